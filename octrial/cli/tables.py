@@ -1,0 +1,40 @@
+"""Readable terminal tables of results (the CSV files keep full precision)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pandas as pd
+
+HEADINGS = {
+    "scenario": "scenario",
+    "is_null": "null",
+    "prob_success": "P(success)",
+    "prob_success_se": "se",
+    "prob_stop_efficacy": "P(early eff)",
+    "prob_stop_futility": "P(early fut)",
+    "expected_n": "E[N]",
+    "sd_n": "sd(N)",
+}
+
+
+def oc_summary(oc: pd.DataFrame) -> str:
+    """The operating characteristics as a compact fixed-width table."""
+    truth = [c for c in oc.columns if c.startswith("true_")]
+    columns = ["scenario", *truth, "is_null", "prob_success"]
+    if (oc["replicates"] > 0).any():
+        columns.append("prob_success_se")
+    columns += ["prob_stop_efficacy", "prob_stop_futility", "expected_n", "sd_n"]
+    view = oc[columns].rename(columns={**HEADINGS, **{c: c.removeprefix("true_") for c in truth}})
+    view["null"] = view["null"].map({True: "yes", False: ""})
+    return view.to_string(index=False, float_format=lambda v: f"{v:.4f}")
+
+
+def type1_line(summary: dict[str, Any] | None) -> str:
+    """One sentence on the maximum type I error."""
+    if summary is None:
+        return "No null scenario in the grid: type I error not assessed."
+    at = ", ".join(f"{k} = {v:g}" for k, v in summary["at"].items())
+    se = f" (se {summary['se']:.4f})" if summary["se"] > 0 else ""
+    return (f"Maximum type I error over {summary['null_scenarios']} null scenarios: "
+            f"{summary['max_type1_error']:.4f}{se} at {at}.")

@@ -1,0 +1,277 @@
+"""Read a TOML design file into a validated :class:`~octrial.design.model.Design`.
+
+All checks live here. Problems are collected over the whole file and raised together as
+one :class:`~octrial.errors.DesignError`; nothing downstream re-validates.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import re
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from octrial.design.model import (
+    CONTROL,
+    METHODS,
+    TREATMENT,
+    Arm,
+    Design,
+    Hypothesis,
+    Looks,
+    Simulation,
+    Source,
+)
+from octrial.design.reader import NONE_WORD, Phrase, Problems, Table
+from octrial.design.scenarios import read_scenarios
+from octrial.design.thresholds import read_threshold
+from octrial.endpoints import FAMILIES, Family
+from octrial.errors import DesignError, Problem
+
+SCHEMA = 1
+TOP_KEYS = ("schema", "name", "title", "endpoint", "hypothesis", "arms", "looks", "scenarios",
+            "simulation")
+NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
+INTERIM_ONLY = ("futility", "futility_predictive")
+
+
+def load_design(path: str | Path) -> Design:
+    """Read and validate a design file.
+
+    Parameters
+    ----------
+    path : str or Path
+        A TOML design file (``schema = 1``); see docs/design-files.md.
+
+    Returns
+    -------
+    Design
+
+    Raises
+    ------
+    DesignError
+        Listing every problem found, each with the file, key, expectation and finding.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise DesignError(str(path), [Problem("", "an existing design file",
+                                              "no such file")])
+    raw = path.read_bytes()
+    try:
+        text = raw.decode("utf-8")
+        data = tomllib.loads(text)
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise DesignError(str(path), [Problem("", "a valid UTF-8 TOML file", str(exc))]) from None
+    source = Source(str(path), hashlib.sha256(raw).hexdigest(), text)
+    return parse_design(data, source)
+
+
+def parse_design(data: dict[str, Any], source: Source) -> Design:
+    """Validate an already parsed design table (``source`` names it in messages)."""
+    problems = Problems()
+    top = Table(data, "", problems)
+    top.allow(*TOP_KEYS)
+    top.number("schema", integer=True, check=lambda v: v == SCHEMA,
+               expected=f"{SCHEMA} (the only schema so far)")
+    name = _read_name(top, source)
+    title = top.string("title", required=False, default="") or ""
+
+    family, endpoint, better = _read_endpoint(top)
+    arms_table = top.table("arms")
+    two_arm = arms_table is not None and arms_table.has(CONTROL)
+    hypothesis = _read_hypothesis(top, family, better, two_arm)
+    arms = _read_arms(arms_table, family)
+    looks = _read_looks(top, arms, two_arm)
+    if looks is not None and not looks.uses_counts and arms:
+        for arm in arms:
+            if "prior" not in arms_table.data[arm.name]:
+                problems.add(f"arms.{arm.name}.prior", "an analysis prior (required unless "
+                             "the rule is stated in counts)", Phrase("nothing (the key is "
+                                                                     "missing)"))
+    scenarios_table = top.table("scenarios")
+    scenarios = None
+    if scenarios_table is not None and family is not None:
+        scenarios = read_scenarios(scenarios_table, family, two_arm)
+    simulation = _read_simulation(top)
+
+    if problems:
+        raise DesignError(source.path, problems)
+    return Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios, simulation,
+                  source)
+
+
+def _read_name(top: Table, source: Source) -> str:
+    default = Path(source.path).stem if source.path else "design"
+    name = top.string("name", required=False, default=default) or default
+    if not NAME_PATTERN.fullmatch(name):
+        top.fail("name", "letters, digits, '.', '_' or '-' (it names the output folder)", name)
+    return name
+
+
+def _read_endpoint(top: Table) -> tuple[Family | None, Any, str | None]:
+    table = top.table("endpoint")
+    if table is None:
+        return None, None, None
+    kind = table.string("type", tuple(FAMILIES))
+    if kind is None:
+        return None, None, None
+    family = FAMILIES[kind]
+    better = table.string("better", ("higher", "lower"), required=family.default_better is None,
+                          default=family.default_better)
+    return family, family.read_endpoint(table), better
+
+
+def _read_hypothesis(
+    top: Table, family: Family | None, better: str | None, two_arm: bool,
+) -> Hypothesis | None:
+    table = top.table("hypothesis")
+    if table is None or family is None or better is None:
+        return None
+    if not two_arm:
+        table.allow("benchmark")
+        benchmark = table.number("benchmark")
+        if benchmark is not None and (problem := family.true_value_problem(benchmark)):
+            table.fail("benchmark", problem, benchmark)
+        return Hypothesis(better, benchmark=benchmark)
+    table.allow("comparison", "margin", "kind")
+    comparison = table.string("comparison", family.comparisons, required=False,
+                              default=family.comparisons[0])
+    kind = table.string("kind", ("superiority", "non-inferiority"), required=False,
+                        default="superiority")
+    margin = table.number("margin", required=False, default=0.0,
+                          check=lambda v: 0 <= v < 1, expected="a margin in [0, 1)")
+    if kind == "non-inferiority" and margin == 0.0:
+        table.fail("margin", "a margin > 0 for a non-inferiority claim", margin)
+    return Hypothesis(better, comparison=comparison, margin=margin or 0.0,
+                      kind=kind or "superiority")
+
+
+def _read_arms(table: Table | None, family: Family | None) -> list[Arm]:
+    if table is None:
+        return []
+    table.allow(TREATMENT, CONTROL)
+    arms = []
+    for name in (TREATMENT, CONTROL):
+        arm = table.table(name, required=name == TREATMENT)
+        if arm is None:
+            continue
+        arm.allow("prior", "allocation")
+        allocation = arm.number("allocation", required=False, default=1.0,
+                                check=lambda v: v > 0, expected="a positive weight")
+        prior = None
+        prior_table = arm.table("prior", required=False)
+        if prior_table is not None and family is not None:
+            prior = family.read_prior(prior_table)
+        arms.append(Arm(name, prior, allocation or 1.0))
+    return arms
+
+
+def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...], ...] | None:
+    """Per-arm cumulative sample sizes from totals and allocation weights."""
+    weights = [a.allocation for a in arms]
+    total = sum(weights)
+    per_arm = []
+    for k, n_k in enumerate(n):
+        sizes = [n_k * w / total for w in weights]
+        if any(abs(s - round(s)) > 1e-9 for s in sizes):
+            ratio = ":".join(f"{w:g}" for w in weights)
+            table.problems.add(f"looks.n[{k + 1}]", f"a total that allocation {ratio} splits "
+                               "into whole per-arm sample sizes", n_k)
+            return None
+        per_arm.append(tuple(round(s) for s in sizes))
+    return tuple(per_arm)
+
+
+def _read_looks(top: Table, arms: list[Arm], two_arm: bool) -> Looks | None:
+    table = top.table("looks")
+    if table is None:
+        return None
+    table.allow("n", "efficacy", "futility", "futility_predictive", "efficacy_count",
+                "futility_count")
+    n = table.numbers("n", integer=True, check=lambda v: v > 0, expected="a whole number > 0")
+    if n is None or any(v is None for v in n):
+        return None
+    if any(b <= a for a, b in itertools.pairwise(n)):
+        table.fail("n", "strictly increasing cumulative sample sizes", n)
+        return None
+    per_arm = _split(table, n, arms) if arms else None
+    information = tuple(v / n[-1] for v in n)
+
+    if table.has("efficacy_count") or table.has("futility_count"):
+        return _read_count_rule(table, n, per_arm, two_arm)
+
+    specs, values = [], {}
+    for key in ("efficacy", *INTERIM_ONLY):
+        spec, values[key] = read_threshold(table, key, information, key in INTERIM_ONLY)
+        if spec is not None:
+            specs.append((key, spec))
+    efficacy, futility = values["efficacy"], values["futility"]
+    if not table.has("efficacy"):
+        table.fail("efficacy", "a final success threshold (the last look's efficacy value)",
+                   Phrase("nothing (the key is missing)"))
+    elif efficacy[-1] is None and any(key == "efficacy" for key, _ in specs):
+        table.fail("efficacy", "a threshold at the last look (the final success threshold)",
+                   Phrase(f"'{NONE_WORD}'"))
+    for k, (e, f) in enumerate(zip(efficacy, futility, strict=True)):
+        if e is not None and f is not None and f >= e:
+            table.fail("futility", f"a futility threshold below the efficacy threshold "
+                       f"({e:.6g}) at look {k + 1}", Phrase(f"{f:.6g}"))
+    if per_arm is None:
+        return None
+    return Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
+                 tuple(values["futility_predictive"]), specs=tuple(specs))
+
+
+def _read_count_rule(
+    table: Table, n: list[int], per_arm: tuple[tuple[int, ...], ...] | None, two_arm: bool,
+) -> Looks | None:
+    for key in ("efficacy", *INTERIM_ONLY):
+        if table.has(key):
+            table.fail(key, "no probability threshold when the rule is stated in counts",
+                       table.data[key])
+    if two_arm:
+        table.fail("efficacy_count", "a one-arm design (count rules compare one arm's "
+                   "responses with fixed numbers)", Phrase("a two-arm design"))
+        return None
+    k = len(n)
+    counts: dict[str, list[int | None]] = {}
+    for key in ("efficacy_count", "futility_count"):
+        if not table.has(key):
+            counts[key] = [None] * k
+            continue
+        entries = table.numbers(key, integer=True, check=lambda v: v >= 0,
+                                expected="a whole number >= 0", allow_none=True, length=k)
+        if entries is None:
+            return None
+        for i, (c, n_i) in enumerate(zip(entries, n, strict=True)):
+            if c is not None and c > n_i:
+                table.problems.add(f"looks.{key}[{i + 1}]",
+                                   f"a count between 0 and the look's n ({n_i})", c)
+        counts[key] = [None if c is None else int(c) for c in entries]
+    efficacy, futility = counts["efficacy_count"], counts["futility_count"]
+    if efficacy[-1] is None:
+        table.fail("efficacy_count", "a count at the last look (the final success rule)",
+                   Phrase(f"'{NONE_WORD}' or nothing"))
+    if futility[-1] is not None:
+        table.fail("futility_count", f"'{NONE_WORD}' at the last look (failing to reach "
+                   "efficacy there is failure)", futility[-1])
+    if per_arm is None:
+        return None
+    none = (None,) * k
+    return Looks(tuple(n), per_arm, none, none, none, tuple(efficacy), tuple(futility))
+
+
+def _read_simulation(top: Table) -> Simulation:
+    table = top.table("simulation", required=False)
+    if table is None:
+        return Simulation()
+    table.allow("method", "replicates", "seed")
+    method = table.string("method", METHODS, required=False, default="auto")
+    replicates = table.number("replicates", required=False, default=10_000, integer=True,
+                              check=lambda v: v >= 1, expected="a whole number >= 1")
+    seed = table.number("seed", required=False, integer=True,
+                        check=lambda v: 0 <= v < 2**63, expected="a whole number >= 0")
+    return Simulation(method or "auto", int(replicates or 10_000),
+                      None if seed is None else int(seed))

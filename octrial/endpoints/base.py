@@ -1,0 +1,123 @@
+"""What every endpoint family provides.
+
+An endpoint family is the maths of one likelihood with its priors: how its design-file
+sections read, what a true parameter value may be, the posterior probability of benefit,
+the predictive distribution of future data, and how a study's data are drawn. Engines and
+rules only talk to this interface, so a new endpoint is one new module registered in
+:mod:`octrial.endpoints`.
+
+Families whose sufficient statistic per arm is a count (binary, count) also implement
+:class:`LatticeFamily`; the exact engine then evaluates any rule on that lattice.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from typing import Any, ClassVar
+
+import numpy as np
+
+from octrial.design.model import Hypothesis
+from octrial.design.reader import Table
+
+NULL_TOLERANCE = 1e-9
+"""Scenarios within this distance of the null boundary count as null (values written as
+decimal ranges rarely land exactly on the boundary in binary floating point)."""
+
+
+class Family(ABC):
+    """The maths and design-file vocabulary of one endpoint.
+
+    Attributes
+    ----------
+    name : str
+        The ``endpoint.type`` value, for example ``'binary'``.
+    parameter : str
+        Plain name of the per-arm parameter, for example ``'rate'``.
+    comparisons : tuple of str
+        Allowed ``hypothesis.comparison`` values for two arms (the first is the default).
+    default_better : str or None
+        Default for ``endpoint.better``; ``None`` makes the key required.
+    """
+
+    name: ClassVar[str]
+    parameter: ClassVar[str]
+    comparisons: ClassVar[tuple[str, ...]]
+    default_better: ClassVar[str | None] = None
+
+    # -- design-file reading ---------------------------------------------------------
+    @abstractmethod
+    def read_endpoint(self, table: Table) -> Any:
+        """Read the ``[endpoint]`` table (its ``type`` already read) into a frozen value."""
+
+    @abstractmethod
+    def read_prior(self, table: Table) -> Any:
+        """Read an analysis prior table into a frozen value, recording problems."""
+
+    @abstractmethod
+    def true_value_problem(self, value: float) -> str | None:
+        """``None`` when ``value`` is a possible true parameter, else what is expected."""
+
+    # -- hypotheses ------------------------------------------------------------------
+    def effect(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
+        """The effect that the hypothesis is about, in the better direction.
+
+        One arm: sign x (theta - benchmark). Two arms on a difference:
+        sign x (theta_T - theta_C) - shift. Positive means benefit beyond the null.
+        """
+        if len(truth) == 1:
+            return hypothesis.sign * (truth[0] - hypothesis.benchmark)
+        return hypothesis.sign * (truth[0] - truth[1]) - hypothesis.shift
+
+    def is_null(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> bool:
+        """Whether a scenario lies in the null region (boundary included)."""
+        return self.effect(hypothesis, truth) <= NULL_TOLERANCE
+
+    @abstractmethod
+    def prior_probability_of_claim(self, design: Any) -> float:
+        """Pr(benefit beyond the benchmark or margin) under the analysis priors alone."""
+
+
+class LatticeFamily(Family):
+    """A family whose per-arm sufficient statistic is a count 0, 1, 2, ...
+
+    The exact engine needs, for each arm, the distribution of the statistic's increment
+    between looks, the posterior probability of benefit at every lattice point, and the
+    predictive distribution of the statistic's remaining increment.
+
+    Attributes
+    ----------
+    statistic : str
+        Plain name of the per-arm count, for example ``'responses'``.
+    truncates : bool
+        Whether the lattice is a truncation of an unbounded statistic (counts); the exact
+        engine then reports the probability mass it neglects.
+    """
+
+    statistic: ClassVar[str]
+    truncates: ClassVar[bool] = False
+
+    @abstractmethod
+    def lattice_size(self, design: Any, arm: int, n: int) -> int:
+        """Number of lattice points (0 .. size-1) kept for arm ``arm`` after ``n`` subjects."""
+
+    @abstractmethod
+    def increment_pmf(self, design: Any, truth: float, n: int, size: int) -> np.ndarray:
+        """Pr(statistic of ``n`` new subjects = 0 .. size-1) at the true value ``truth``."""
+
+    @abstractmethod
+    def posterior(self, design: Any, arm: int, n: int, stats: np.ndarray) -> Any:
+        """Posterior for arm ``arm`` after ``n`` subjects, vectorised over ``stats``."""
+
+    @abstractmethod
+    def benefit(self, design: Any, posteriors: tuple[Any, ...]) -> tuple[np.ndarray, float]:
+        """Posterior probability of benefit on the lattice and its numerical error bound.
+
+        One arm: a vector over the arm's statistic. Two arms: a matrix indexed
+        ``[treatment statistic, control statistic]``.
+        """
+
+    @abstractmethod
+    def predictive_pmf(self, design: Any, posterior: Any, m: int, size: int) -> np.ndarray:
+        """Predictive pmf of the statistic of ``m`` future subjects, one row per lattice
+        point of ``posterior`` and ``size`` columns."""

@@ -1,0 +1,48 @@
+"""Engines: exact dynamic programming and (later) Monte Carlo simulation.
+
+An engine is a class with ``name``, ``unsupported(design) -> str | None`` and
+``run(design, truths, ...) -> Outcome``. :func:`choose` picks one for a design and a
+requested method; ``auto`` takes the first exact engine that applies.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from octrial.design.model import Design
+from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.outcome import Outcome
+from octrial.errors import single
+
+ENGINES: dict[str, tuple[Any, ...]] = {
+    "exact": (ExactLatticeEngine,),
+}
+"""Engines by method name, tried in order."""
+
+
+def choose(design: Design, method: str | None = None) -> Any:
+    """The engine for ``design`` under ``method`` ('auto', 'exact' or 'monte-carlo').
+
+    Raises
+    ------
+    InputError
+        When no engine of that method can evaluate the design.
+    """
+    method = method or design.simulation.method
+    wanted = ("exact", "monte-carlo") if method == "auto" else (method,)
+    reasons = []
+    for name in wanted:
+        for engine in ENGINES.get(name, ()):
+            reason = engine.unsupported(design)
+            if reason is None:
+                return engine
+            reasons.append(f"{name}: {reason}")
+        if name not in ENGINES:
+            reasons.append(f"{name}: not available in this version")
+    available = ", ".join(sorted(ENGINES)) or "none"
+    raise single(design.source.path or design.name, "simulation.method",
+                 f"a method that can evaluate this design (available: {available})",
+                 method, "; ".join(reasons))
+
+
+__all__ = ["ENGINES", "Outcome", "choose"]

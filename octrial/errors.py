@@ -1,0 +1,82 @@
+"""The one error type for bad input, and its wording.
+
+Every problem with a design file (or any other user input) is reported the same way:
+which file, which key, what was expected and what was found, with a suggestion when a
+key looks like a typo. Validation collects every problem it can find before raising, so a
+user fixes a file in one pass.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with the input.
+
+    Parameters
+    ----------
+    key : str
+        Dotted key path inside the file, for example ``looks.efficacy[2]``; empty for the
+        file as a whole.
+    expected : str
+        What the key must hold, in plain words.
+    got : str
+        What was found.
+    hint : str, optional
+        A suggestion, for example the nearest valid key.
+    """
+
+    key: str
+    expected: str
+    got: str
+    hint: str = ""
+
+    def describe(self, source: str) -> str:
+        """Return the one-line message for this problem in ``source``."""
+        where = f"{source}: {self.key}" if self.key else source
+        text = f"{where}: expected {self.expected}; got {self.got}"
+        if self.hint:
+            text += f" ({self.hint})"
+        return text
+
+
+class InputError(ValueError):
+    """Bad input: a design file, a claims file or a command-line value.
+
+    The command line turns it into exit code 2 with every problem on its own line.
+
+    Parameters
+    ----------
+    source : str
+        The file (or option) the problems were found in.
+    problems : list of Problem
+        Everything found wrong.
+    """
+
+    def __init__(self, source: str, problems: list[Problem]) -> None:
+        self.source = source
+        self.problems = tuple(problems)
+        super().__init__("\n".join(p.describe(source) for p in self.problems))
+
+
+class DesignError(InputError):
+    """A design file that cannot be used as written."""
+
+
+def single(source: str, key: str, expected: str, got: object, hint: str = "") -> InputError:
+    """Build an :class:`InputError` with one problem (for checks outside design files)."""
+    return InputError(source, [Problem(key, expected, show(got), hint)])
+
+
+def show(value: object) -> str:
+    """Render a found value for a message: strings quoted, long values shortened."""
+    text = repr(value) if isinstance(value, str) else str(value)
+    if isinstance(value, bool):
+        text = str(value).lower()
+    elif isinstance(value, dict):
+        text = "a table with keys " + ", ".join(map(str, value)) if value else "an empty table"
+    elif isinstance(value, list):
+        text = "an empty list" if not value else f"a list of {len(value)}: {value}"
+    return text if len(text) <= 80 else text[:77] + "..."

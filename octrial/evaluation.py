@@ -1,0 +1,112 @@
+"""Evaluate a design: choose an engine, run every scenario, assemble the tables.
+
+:func:`evaluate` is the public entry point returning the ``oc.csv`` table;
+:func:`compute` returns everything a run writes (tables and numerical facts).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from octrial.design.load import load_design
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.engines import choose
+from octrial.results import oc_table, type1_summary
+from octrial.rules.boundaries import boundary_table
+from octrial.rules.lattice import build_rule
+
+
+@dataclass(frozen=True, eq=False)
+class Evaluation:
+    """Everything one evaluation produces.
+
+    Attributes
+    ----------
+    design : Design
+    oc : DataFrame
+        One row per scenario (the ``oc.csv`` contract).
+    boundaries : DataFrame or None
+        Decision boundaries in counts (discrete endpoints).
+    info : dict
+        Engine, numerical tolerances, the maximum type I error and where it occurs.
+    """
+
+    design: Design
+    oc: pd.DataFrame
+    boundaries: pd.DataFrame | None
+    info: dict[str, Any]
+
+
+def _as_design(design: Design | str | Path) -> Design:
+    return design if isinstance(design, Design) else load_design(design)
+
+
+def compute(design: Design | str | Path, method: str | None = None, **options: Any) -> Evaluation:
+    """Evaluate ``design`` at all its scenarios.
+
+    Parameters
+    ----------
+    design : Design or path
+        A loaded design or the path of a design file.
+    method : {'auto', 'exact', 'monte-carlo'}, optional
+        Overrides ``simulation.method``.
+    **options
+        Passed to the engine.
+
+    Returns
+    -------
+    Evaluation
+    """
+    design = _as_design(design)
+    engine = choose(design, method)
+    truths = np.array(design.scenarios.values, dtype=float)
+    rule = build_rule(design) if isinstance(design.family, LatticeFamily) else None
+    outcome = engine.run(design, truths, rule=rule, **options)
+    oc = oc_table(design, truths, outcome)
+    boundaries = boundary_table(design, rule) if rule is not None else None
+    info = {
+        "engine": engine.name,
+        **outcome.info,
+        "type1": type1_summary(oc),
+        "prior_probability_of_claim": _prior_claim(design),
+        "scenarios_dropped": design.scenarios.dropped,
+    }
+    return Evaluation(design, oc, boundaries, info)
+
+
+def _prior_claim(design: Design) -> float | None:
+    if any(arm.prior is None for arm in design.arms):
+        return None
+    return design.family.prior_probability_of_claim(design)
+
+
+def evaluate(
+    design: Design | str | Path, method: str | None = None, **options: Any,
+) -> pd.DataFrame:
+    """Operating characteristics of ``design``: one row per scenario.
+
+    Parameters
+    ----------
+    design : Design or path
+        A loaded design or the path of a design file.
+    method : {'auto', 'exact', 'monte-carlo'}, optional
+        Overrides ``simulation.method``.
+
+    Returns
+    -------
+    DataFrame
+        The columns of ``oc.csv`` (see docs/output-files.md).
+
+    Examples
+    --------
+    >>> import octrial
+    >>> oc = octrial.evaluate("designs/single-arm-response.toml")  # doctest: +SKIP
+    >>> oc[["true_treatment", "prob_success"]].head()  # doctest: +SKIP
+    """
+    return compute(design, method, **options).oc

@@ -1,0 +1,43 @@
+"""Writing result files atomically: each file appears whole or not at all.
+
+Every file is written to a temporary name in the destination folder and renamed into
+place (``os.replace`` is atomic on POSIX and Windows within one file system), so an
+interrupted run never leaves a half-written table behind.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+
+def write_atomic(path: Path, data: str | bytes) -> Path:
+    """Write ``data`` to ``path`` through a temporary file and a rename."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    mode = "wb" if isinstance(data, bytes) else "w"
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8",
+                                                               "newline": ""})) as handle:
+            handle.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def csv_text(frame: pd.DataFrame) -> str:
+    """A table as CSV text with full float precision (round-trips exactly)."""
+    return frame.to_csv(index=False, float_format="%.17g", lineterminator="\n")
+
+
+def json_text(record: dict[str, Any]) -> str:
+    """A record as indented JSON text."""
+    return json.dumps(record, indent=2, sort_keys=False, default=str) + "\n"

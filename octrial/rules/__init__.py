@@ -1,0 +1,1 @@
+"""Decision rules turned into tables the engines can apply."""
