@@ -1,0 +1,56 @@
+"""Small designs built from Python dictionaries, shared by the tests."""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+from typing import Any
+
+from octrial.design.load import parse_design
+from octrial.design.model import Design, Source
+
+ROOT = Path(__file__).resolve().parents[1]
+DESIGNS = ROOT / "designs"
+
+ONE_ARM: dict[str, Any] = {
+    "schema": 1,
+    "name": "one-arm-test",
+    "endpoint": {"type": "binary", "better": "higher"},
+    "hypothesis": {"benchmark": 0.2},
+    "arms": {"treatment": {"prior": {"distribution": "beta", "a": 1, "b": 1}}},
+    "looks": {"n": [10, 20, 30], "efficacy": [0.999, 0.99, 0.95], "futility": 0.05},
+    "scenarios": {"treatment": [0.2, 0.3, 0.4]},
+}
+
+TWO_ARM: dict[str, Any] = {
+    "schema": 1,
+    "name": "two-arm-test",
+    "endpoint": {"type": "binary", "better": "higher"},
+    "hypothesis": {"comparison": "difference", "margin": 0.0, "kind": "superiority"},
+    "arms": {
+        "treatment": {"allocation": 1, "prior": {"distribution": "beta", "a": 1, "b": 1}},
+        "control": {"allocation": 1, "prior": {"distribution": "beta", "a": 1, "b": 1}},
+    },
+    "looks": {"n": [20, 40], "efficacy": [0.99, 0.975], "futility": 0.1},
+    "scenarios": {"control": [0.3], "effect": [0.0, 0.2]},
+}
+
+
+def build(base: dict[str, Any], **changes: Any) -> Design:
+    """A design from ``base`` with dotted-key changes (value ``None`` deletes the key)."""
+    return parse_design(changed(base, **changes), Source("test.toml", "", ""))
+
+
+def changed(base: dict[str, Any], **changes: Any) -> dict[str, Any]:
+    """A deep copy of ``base`` with ``a__b__c=value`` meaning key path a.b.c."""
+    data = copy.deepcopy(base)
+    for dotted, value in changes.items():
+        *parents, last = dotted.split("__")
+        node = data
+        for key in parents:
+            node = node.setdefault(key, {})
+        if value is None:
+            node.pop(last, None)
+        else:
+            node[last] = value
+    return data

@@ -1,0 +1,81 @@
+"""The command line: outputs, exit codes, and agreement with the Python API."""
+
+from __future__ import annotations
+
+import json
+import shutil
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+import octrial
+from octrial.cli import main
+from tests.helpers import DESIGNS
+
+DEMOS = sorted(DESIGNS.glob("*.toml"))
+
+
+@pytest.fixture
+def runner() -> CliRunner:
+    return CliRunner()
+
+
+@pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
+def test_run_writes_the_contract_and_matches_the_api(runner, tmp_path, path) -> None:
+    result = runner.invoke(main, ["run", str(path), "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    oc = pd.read_csv(tmp_path / "oc.csv")
+    contract = ["scenario", "is_null", "prob_success", "prob_success_se", "prob_stop_efficacy",
+                "prob_stop_futility", "expected_n", "sd_n", "method", "replicates"]
+    assert set(contract) <= set(oc.columns)
+    api = octrial.evaluate(octrial.load_design(path))
+    numeric = api.select_dtypes("number").columns
+    # The CSV keeps 17 significant digits, so the numbers round-trip exactly.
+    np.testing.assert_array_equal(oc[numeric].to_numpy(float), api[numeric].to_numpy(float))
+    assert (oc["method"] == "exact").all() and (oc["replicates"] == 0).all()
+    record = json.loads((tmp_path / "run.json").read_text())
+    assert record["design"]["sha256"] == octrial.load_design(path).source.sha256
+    assert record["octrial_version"] == octrial.__version__
+    assert "regulat" in record["caution"]
+    assert (tmp_path / "boundaries.csv").exists()
+    assert "Maximum type I error" in result.output
+
+
+def test_default_output_folder(runner, tmp_path, monkeypatch) -> None:
+    design = tmp_path / "single-arm-response.toml"
+    shutil.copy(DESIGNS / "single-arm-response.toml", design)
+    monkeypatch.chdir(tmp_path)
+    result = runner.invoke(main, ["run", str(design), "--quiet"])
+    assert result.exit_code == 0 and result.output == ""
+    assert (tmp_path / "reports" / "single-arm-response" / "oc.csv").exists()
+
+
+def test_bad_design_exits_2_and_writes_nothing(runner, tmp_path) -> None:
+    bad = tmp_path / "bad.toml"
+    bad.write_text((DESIGNS / "single-arm-response.toml").read_text()
+                   .replace("benchmark = 0.20", "benchmark = 1.20"))
+    out = tmp_path / "out"
+    result = runner.invoke(main, ["run", str(bad), "--out", str(out)])
+    assert result.exit_code == 2
+    assert f"error: {bad}: hypothesis.benchmark: expected a rate in (0, 1); got 1.2" in (
+        result.output)
+    assert not out.exists()
+
+
+def test_monte_carlo_not_yet_is_a_clear_error(runner, tmp_path) -> None:
+    out = tmp_path / "out"
+    result = runner.invoke(main, ["run", str(DEMOS[0]), "--method", "monte-carlo", "--out",
+                                  str(out)])
+    if "monte-carlo" in octrial.engines.ENGINES:
+        pytest.skip("the Monte Carlo engine exists")
+    assert result.exit_code == 2 and "simulation.method" in result.output
+    assert not out.exists()
+
+
+def test_version_and_help(runner) -> None:
+    assert octrial.__version__ in runner.invoke(main, ["--version"]).output
+    text = runner.invoke(main, ["--help"]).output
+    assert "run" in text and "regulatory agency" in text
+    assert "--out" in runner.invoke(main, ["run", "--help"]).output
