@@ -45,8 +45,11 @@ def test_scenario_forms() -> None:
 
 
 def test_mixture_prior_and_count_rule_read() -> None:
-    mixed = build(ONE_ARM, arms__treatment__prior=MIXTURE)
+    mixed = build(ONE_ARM, arms__treatment__prior=MIXTURE,
+                  arms__treatment__design_prior={"distribution": "beta", "a": 3, "b": 7})
     assert mixed.arms[0].prior.weights == (0.7, 0.3)
+    assert mixed.arms[0].design_prior.a == (3.0,)
+    assert build(ONE_ARM).arms[0].design_prior is None
     counts = build(ONE_ARM, arms__treatment__prior=None,
                    looks={"n": [10, 20], "futility_count": [1, "none"],
                           "efficacy_count": ["none", 5]})

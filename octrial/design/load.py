@@ -157,15 +157,19 @@ def _read_arms(table: Table | None, family: Family | None) -> list[Arm]:
         arm = table.table(name, required=name == TREATMENT)
         if arm is None:
             continue
-        arm.allow("prior", "allocation")
+        arm.allow("prior", "allocation", "design_prior")
         allocation = arm.number("allocation", required=False, default=1.0,
                                 check=lambda v: v > 0, expected="a positive weight")
-        prior = None
-        prior_table = arm.table("prior", required=False)
-        if prior_table is not None and family is not None:
-            prior = family.read_prior(prior_table)
-        arms.append(Arm(name, prior, allocation or 1.0))
+        prior, design_prior = (_read_prior(arm, key, family) for key in ("prior", "design_prior"))
+        arms.append(Arm(name, prior, allocation or 1.0, design_prior))
     return arms
+
+
+def _read_prior(arm: Table, key: str, family: Family | None) -> Any:
+    table = arm.table(key, required=False)
+    if table is None or family is None:
+        return None
+    return family.read_prior(table)
 
 
 def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...], ...] | None:

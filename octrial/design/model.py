@@ -67,11 +67,25 @@ class Hypothesis:
 
 @dataclass(frozen=True)
 class Arm:
-    """One arm: its name, analysis prior and allocation weight."""
+    """One arm.
+
+    Attributes
+    ----------
+    name : str
+        'treatment' or 'control'.
+    prior : object or None
+        The analysis prior (the family's prior value); ``None`` only for count rules.
+    allocation : float
+        Allocation weight.
+    design_prior : object or None
+        The distribution that generates true values (assurance, prior predictive checks);
+        written like an analysis prior. ``None`` when the design file gives none.
+    """
 
     name: str
     prior: Any
     allocation: float = 1.0
+    design_prior: Any = None
 
 
 @dataclass(frozen=True)

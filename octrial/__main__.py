@@ -1,0 +1,5 @@
+"""``python -m octrial`` is the ``octrial`` command."""
+
+from octrial.cli import main
+
+main(prog_name="octrial")
