@@ -19,7 +19,7 @@ from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.results import oc_table, type1_summary
 from octrial.rules.boundaries import boundary_table
-from octrial.rules.lattice import build_rule
+from octrial.rules.lattice import DECISION_TOLERANCE, build_rule
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,6 +72,7 @@ def compute(design: Design | str | Path, method: str | None = None, **options: A
     boundaries = boundary_table(design, rule) if rule is not None else None
     info = {
         "engine": engine.name,
+        "decision_tolerance": DECISION_TOLERANCE,
         **outcome.info,
         "type1": type1_summary(oc),
         "prior_probability_of_claim": _prior_claim(design),
