@@ -9,7 +9,9 @@ import click
 
 from octrial._version import __version__
 from octrial.caution import CAUTION
+from octrial.cli.decide import decide_command
 from octrial.cli.run import run_command
+from octrial.cli.verify import verify_command
 
 
 @click.group(epilog=f"Caution: {CAUTION}")
@@ -22,5 +24,7 @@ def main() -> None:
 
 
 main.add_command(run_command)
+main.add_command(verify_command)
+main.add_command(decide_command)
 
 __all__ = ["main"]

@@ -1,0 +1,80 @@
+"""``octrial decide``: the design's decision at an interim look on the data so far."""
+
+from __future__ import annotations
+
+import click
+
+from octrial.caution import CAUTION
+from octrial.cli.common import design_argument, read_design, reports_input_errors
+from octrial.interim import SYNTAX, Decision, decide
+from octrial.interim.decision import DEFAULT_LEVEL, DEFAULT_SEED
+from octrial.output import json_text
+
+FORMS = "; ".join(f"{endpoint}: ARM={syntax.form}" for endpoint, syntax in SYNTAX.items())
+
+
+@click.command("decide")
+@design_argument
+@click.option("--look", type=int, required=True,
+              help="The look being analysed, from 1 (the last look is the final analysis).")
+@click.option("--data", "data", multiple=True, required=True, metavar="ARM=DATA",
+              help=f"Data so far, once per arm ({FORMS}).")
+@click.option("--level", type=float, default=DEFAULT_LEVEL, show_default=True,
+              help="Credible level of the equal-tailed posterior intervals.")
+@click.option("--subjects", type=click.Path(dir_okay=False), default=None,
+              help="Per-subject CSV for posterior predictive checks of the data model "
+                   "(count and normal endpoints).")
+@click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=DEFAULT_SEED,
+              show_default=True, help="Seed of the posterior predictive simulations.")
+@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
+@reports_input_errors
+def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
+                   subjects: str | None, seed: int, as_json: bool) -> None:
+    """The decision DESIGN's rule gives at an interim look on the data so far.
+
+    Prints the posterior probability of benefit, the predictive probability of final
+    success, posterior means with credible intervals, and the decision: continue, stop for
+    efficacy or stop for futility (at the last look: success or failure). Warns when the
+    observed sample size differs from the planned one.
+
+    Exit codes: 0 a decision was made; 2 bad input.
+    """
+    result = decide(read_design(design), look, data, level=level, subjects=subjects,
+                    seed=seed)
+    for warning in result.warnings:
+        click.echo(f"warning: {warning}", err=True)
+    if as_json:
+        click.echo(json_text(result.as_dict()), nl=False)
+    else:
+        click.echo(render(result))
+    click.echo(f"Caution: {CAUTION}", err=True)
+
+
+def render(result: Decision) -> str:
+    """The decision as plain text."""
+    a = result.assessment
+    kind = "final analysis" if result.look == result.looks else "interim"
+    lines = [f"{result.design}: look {result.look} of {result.looks} ({kind})",
+             "data: " + "; ".join(f"{arm} {obs.describe()}"
+                                  for arm, obs in result.observed.items())]
+    if result.posterior:
+        lines.append(f"posterior mean and {result.level:.0%} equal-tailed credible interval:")
+        width = max(len(s.quantity) for s in result.posterior)
+        lines += [f"  {s.quantity:<{width}}  {s.mean:.4f}  ({s.lower:.4f} to {s.upper:.4f})"
+                  for s in result.posterior]
+    if a.benefit is not None:
+        lines.append(f"{result.statement} = {a.benefit:.4f}")
+    if a.predictive is not None:
+        left = ", ".join(f"{n} {arm}" if len(result.remaining_n) > 1 else str(n)
+                         for arm, n in result.remaining_n.items())
+        lines.append(f"predictive probability of final success = {a.predictive:.4f} "
+                     f"({left} subjects to come)")
+    applied = [f"{k.replace('_', ' ')} {v:g}" for k, v in vars(a.thresholds).items()
+               if v is not None]
+    lines.append("rule at this look: " + ("; ".join(applied) or "no stopping threshold"))
+    lines.append("boundaries at the observed size: "
+                 + "; ".join(f"{k} {v}" for k, v in a.boundaries.items()))
+    for check in result.checks:
+        lines.append(f"check of the data model, {check.statistic}: {check.verdict}")
+    lines.append(f"decision: {a.decision.upper()} ({a.reason})")
+    return "\n".join(lines)

@@ -1,0 +1,110 @@
+"""``octrial verify``: re-compute a sponsor's claimed operating characteristics."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+import pandas as pd
+
+from octrial._version import __version__
+from octrial.caution import CAUTION
+from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
+from octrial.output import csv_text, json_text, write_atomic
+from octrial.provenance import environment, now
+from octrial.review import read_claims, verify
+from octrial.review.verification import DEFAULT_ALPHA, DEFAULT_TOLERANCE, Verification
+
+EXIT_DISCREPANT = 1
+
+
+@click.command("verify")
+@design_argument
+@click.argument("claims", metavar="CLAIMS.csv", type=click.Path(dir_okay=False))
+@click.option("--out", "out", type=click.Path(file_okay=False), default=None,
+              help="Folder for verify.csv and verify.json [default: reports/<design name>/].")
+@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True, max_open=True),
+              default=DEFAULT_ALPHA, show_default=True,
+              help="Family-wise error rate of the Holm-adjusted verdicts.")
+@click.option("--tolerance", type=click.FloatRange(0, 0.01), default=DEFAULT_TOLERANCE,
+              show_default=True,
+              help="Numerical tolerance of exact computation (probability scale; times the "
+                   "maximum n for expected_n), added to each claim's rounding allowance.")
+@click.option("--replicates", type=click.IntRange(1), default=None,
+              help="Monte Carlo recomputation only: replicates per scenario "
+                   "[default: max(100000, 10 x the largest claim's)].")
+@click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=None,
+              help="Monte Carlo recomputation only: overrides simulation.seed.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@reports_input_errors
+def verify_command(design: str, claims: str, out: str | None, alpha: float, tolerance: float,
+                   replicates: int | None, seed: int | None, quiet: bool) -> None:
+    """Re-compute the operating characteristics claimed in CLAIMS.csv for DESIGN.
+
+    Each claim (one row: the scenario's true_<arm> values, metric, claimed, and optionally
+    replicates and se) is recomputed, exactly where possible, and judged by a two-sided
+    test allowing for both Monte Carlo errors and the claim's rounding; p-values are
+    Holm-adjusted over all claims. Writes verify.csv and verify.json.
+
+    Exit codes: 0 every claim consistent; 1 any claim discrepant; 2 bad input.
+    """
+    started = now()
+    loaded = read_design(design)
+    table = read_claims(claims, loaded)
+    result = verify(loaded, table, alpha=alpha, tolerance=tolerance, replicates=replicates,
+                    seed=seed)
+    folder = Path(out) if out else default_out(loaded)
+    record = _record(result, started, now())
+    written = [write_atomic(folder / "verify.csv", csv_text(result.table)),
+               write_atomic(folder / "verify.json", json_text(record))]
+    if not quiet:
+        click.echo(_summary(result))
+        click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+        click.echo(f"Caution: {CAUTION}", err=True)
+    if result.discrepant:
+        raise SystemExit(EXIT_DISCREPANT)
+
+
+def _record(result: Verification, started: str, finished: str) -> dict:
+    design = result.design
+    return {
+        "octrial_version": __version__,
+        "design": {"name": design.name, "path": design.source.path,
+                   "sha256": design.source.sha256},
+        "claims": {"path": result.claims.path, "sha256": result.claims.sha256},
+        "command": sys.argv,
+        "started": started,
+        "finished": finished,
+        **result.info,
+        "environment": environment(),
+        "caution": CAUTION,
+    }
+
+
+def _summary(result: Verification) -> str:
+    design, info, table = result.design, result.info, result.table
+    lines = [f"{design.name}: {info['claims_total']} claims at {info['scenarios']} scenarios, "
+             f"recomputed by the {info['engine']} engine"
+             + (f" ({info['replicates']} replicates per scenario, seed {info['seed']})"
+                if info["replicates"] else "")]
+    truth = [f"true_{arm}" for arm in design.arm_names]
+    view = table[["line", *truth, "metric", "claimed", "recomputed", "z", "p", "p_holm",
+                  "verdict"]].rename(columns={c: c.removeprefix("true_") for c in truth})
+    lines.append(_fixed(view))
+    if result.added:
+        where = "; ".join(", ".join(f"{arm} = {v:g}" for arm, v in
+                                    zip(design.arm_names, t, strict=True))
+                          for t in result.added)
+        lines.append(f"Not in the design's scenario grid (evaluated all the same): {where}.")
+    verdict = (f"{info['discrepant']} of {info['claims_total']} claims discrepant"
+               if info["discrepant"] else f"All {info['claims_total']} claims consistent")
+    lines.append(f"{verdict} (two-sided test, Holm-adjusted, family-wise alpha "
+                 f"{info['alpha']:g}).")
+    return "\n".join(lines)
+
+
+def _fixed(view: pd.DataFrame) -> str:
+    formats = {"recomputed": "{:.6g}".format, "z": "{:.2f}".format, "p": "{:.3g}".format,
+               "p_holm": "{:.3g}".format}
+    return view.to_string(index=False, formatters=formats)

@@ -1,0 +1,319 @@
+"""The decision at an interim look on the data observed so far.
+
+:func:`decide` checks the look and the data, applies the design's rule at the observed
+sample sizes (:mod:`octrial.interim.rule`), and adds the posterior summaries and, when
+per-subject data are given, the posterior predictive adequacy checks.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from octrial._version import __version__
+from octrial.caution import CAUTION
+from octrial.design.model import Design
+from octrial.design.thresholds import FUNCTIONS
+from octrial.errors import InputError, Problem, single
+from octrial.interim.base import EndpointInterim, PosteriorSummary
+from octrial.interim.binary import BinaryInterim
+from octrial.interim.observations import parse_data
+from octrial.interim.rule import (
+    CONTINUE,
+    FAILURE,
+    STOP_EFFICACY,
+    STOP_FUTILITY,
+    SUCCESS,
+    Thresholds,
+    count_decision,
+    observed_look,
+    probability_decision,
+    thresholds_at,
+)
+
+ENDPOINTS: dict[str, EndpointInterim] = {e.endpoint: e for e in (BinaryInterim(),)}
+"""Interim-look support per endpoint type."""
+
+DEFAULT_LEVEL = 0.95
+DEFAULT_SEED = 20_261_201
+"""Seed of the posterior predictive simulations when none is given."""
+
+
+@dataclass(frozen=True)
+class Assessment:
+    """The rule's verdict at one lattice point (no posterior summaries)."""
+
+    benefit: float | None
+    predictive: float | None
+    thresholds: Thresholds
+    decision: str
+    reason: str
+    boundaries: dict[str, str]
+
+
+@dataclass(frozen=True)
+class Decision:
+    """Everything ``octrial decide`` reports.
+
+    Attributes
+    ----------
+    design : str
+        The design's name.
+    look, looks : int
+        This look (from 1) and the number of looks.
+    observed : dict
+        Arm to its observation.
+    planned_n, remaining_n : dict
+        Per arm: the look's planned size, and subjects still to come after the observed.
+    statement : str
+        The posterior probability of benefit in words.
+    assessment : Assessment
+        Posterior and predictive probabilities, thresholds applied, decision and reason.
+    level : float
+        Credible level of the intervals.
+    posterior : tuple of PosteriorSummary
+    warnings : tuple of str
+    checks : tuple
+        Posterior predictive adequacy checks (per-subject data only).
+    """
+
+    design: str
+    look: int
+    looks: int
+    observed: dict[str, Any]
+    planned_n: dict[str, int]
+    remaining_n: dict[str, int]
+    statement: str
+    assessment: Assessment
+    level: float
+    posterior: tuple[PosteriorSummary, ...]
+    warnings: tuple[str, ...] = ()
+    checks: tuple[Any, ...] = ()
+
+    @property
+    def decision(self) -> str:
+        """continue, stop for efficacy, stop for futility; at the last look success or
+        failure."""
+        return self.assessment.decision
+
+    def as_dict(self) -> dict[str, Any]:
+        """The JSON record (docs/output-files.md)."""
+        a = self.assessment
+        return {
+            "octrial_version": __version__,
+            "design": self.design,
+            "look": self.look,
+            "looks": self.looks,
+            "final": self.look == self.looks,
+            "data": {arm: dataclasses.asdict(obs) for arm, obs in self.observed.items()},
+            "planned_n": self.planned_n,
+            "remaining_n": self.remaining_n,
+            "benefit": {"statement": self.statement, "probability": a.benefit},
+            "predictive_probability_of_success": a.predictive,
+            "posterior": {"level": self.level,
+                          "summaries": [dataclasses.asdict(s) for s in self.posterior]},
+            "thresholds": {k: v for k, v in dataclasses.asdict(a.thresholds).items()
+                           if v is not None},
+            "boundaries_at_observed_n": a.boundaries,
+            "decision": a.decision,
+            "reason": a.reason,
+            "warnings": list(self.warnings),
+            "checks": [dataclasses.asdict(c) for c in self.checks],
+            "caution": CAUTION,
+        }
+
+
+def endpoint_support(design: Design) -> EndpointInterim:
+    """The interim support for ``design``'s endpoint, or a clear error."""
+    support = ENDPOINTS.get(design.endpoint.type)
+    if support is None:
+        raise single(design.source.path or design.name, "endpoint.type",
+                     "an endpoint with interim decisions in this version ("
+                     + ", ".join(ENDPOINTS) + ")", design.endpoint.type)
+    return support
+
+
+def assess(design: Design, look: int, sizes: tuple[int, ...],
+           stats: tuple[int, ...]) -> Assessment:
+    """The design's rule at look ``look`` (from 1) for counts ``stats`` of ``sizes``.
+
+    Uses the tables of :func:`octrial.interim.rule.observed_look` (cached per look and
+    sizes), so assessing every point of a lattice is cheap.
+    """
+    support = endpoint_support(design)
+    k = look - 1
+    last = look == design.looks.count
+    tables = observed_look(design, k, tuple(sizes))
+    table = tables.rule.looks[0]
+    benefit = None if table.benefit is None else float(table.benefit[stats])
+    predictive = None if tables.predictive is None else float(tables.predictive[stats])
+    th = tables.thresholds
+    if th.in_counts:
+        decision, reason = count_decision(th, stats[0], design.hypothesis.better == "higher",
+                                          last, design.family.statistic)
+    else:
+        decision, reason = probability_decision(th, benefit, predictive, last,
+                                                support.statement(design))
+    expected = (SUCCESS if last else STOP_EFFICACY) if table.efficacy[stats] else (
+        (FAILURE if last else STOP_FUTILITY) if table.futility[stats] else CONTINUE)
+    if decision != expected:  # the two readings of one rule must agree
+        raise ArithmeticError(f"decision {decision!r} differs from the rule table's "
+                              f"{expected!r} at {stats}")
+    return Assessment(benefit, predictive, th, decision, reason,
+                      _bounds(design, tables.boundaries, stats, last))
+
+
+def _bounds(design: Design, rows: Any, stats: tuple[int, ...], last: bool) -> dict[str, str]:
+    """The look's boundaries at the observed sizes, in words (final look: success and
+    failure)."""
+    statistic = design.family.statistic
+    if design.two_arm:
+        row = rows[rows[f"control_{statistic}"] == stats[1]].iloc[0]
+        given = f" treatment {statistic}, given {stats[1]} control {statistic}"
+    else:
+        row = rows.iloc[0]
+        given = f" {statistic}"
+    out = {}
+    for kind, name in zip(("efficacy", "futility"), ("success", "failure") if last else (
+            "efficacy", "futility"), strict=True):
+        rule = row[f"{kind}_rule"]
+        out[name] = rule if rule == "never" else f"{rule}{given}"
+    return out
+
+
+def _check_sizes(design: Design, look: int, sizes: tuple[int, ...]) -> None:
+    looks = design.looks
+    problems = []
+    maximum = looks.per_arm[-1]
+    for arm, n, top in zip(design.arm_names, sizes, maximum, strict=True):
+        if n > top:
+            problems.append(Problem(arm, f"at most the design's maximum of {top} subjects in "
+                                    f"the {arm} arm", str(n)))
+    if look < looks.count and sum(sizes) >= looks.n[look]:
+        problems.append(Problem("", f"fewer subjects than look {look + 1} plans "
+                                f"({looks.n[look]} in total) for an analysis at look {look}",
+                                f"{sum(sizes)} in total", f"use --look {look + 1} or later"))
+    if problems:
+        raise InputError("--data", problems)
+
+
+def decide(
+    design: Design, look: int, data: Iterable[str], *, level: float = DEFAULT_LEVEL,
+    subjects: str | Path | None = None, seed: int = DEFAULT_SEED,
+) -> Decision:
+    """The decision of ``design``'s rule at ``look`` on the observed ``data``.
+
+    Parameters
+    ----------
+    design : Design
+    look : int
+        The interim look, from 1 (the last look is the final analysis).
+    data : iterable of str
+        ``ARM=...`` per arm in the endpoint's syntax (binary: ``treatment=12/30``).
+    level : float
+        Credible level of the equal-tailed intervals.
+    subjects : path, optional
+        Per-subject data for the posterior predictive adequacy checks (count and normal
+        endpoints).
+    seed : int
+        Seed of the posterior predictive simulations.
+
+    Returns
+    -------
+    Decision
+
+    Raises
+    ------
+    InputError
+        A look out of range, malformed or impossible data, or an unsupported endpoint.
+    """
+    looks = design.looks
+    if not 1 <= look <= looks.count:
+        raise single("--look", "", f"a look between 1 and {looks.count}", look)
+    if not 0 < level < 1:
+        raise single("--level", "", "a credible level between 0 and 1 (exclusive)", level)
+    support = endpoint_support(design)
+    observed = parse_data(design, data)
+    sizes = support.sizes(design, observed)
+    _check_sizes(design, look, sizes)
+    stats = support.statistics(design, observed)
+    assessment = assess(design, look, sizes, stats)
+    planned = looks.per_arm[look - 1]
+    warnings = []
+    if tuple(sizes) != tuple(planned):
+        warnings.append(_size_warning(design, look, sizes, stats, assessment))
+    has_prior = all(arm.prior is not None for arm in design.arms)
+    posterior = support.summaries(design, observed, level) if has_prior else ()
+    if not has_prior:
+        warnings.append("The design states its rule in counts and has no analysis prior: "
+                        "no posterior or predictive probability is computed.")
+    checks = ()
+    if subjects is not None:
+        checks = support.check_subjects(design, Path(subjects), observed, seed)
+    arms = design.arm_names
+    return Decision(
+        design=design.name, look=look, looks=looks.count, observed=observed,
+        planned_n=dict(zip(arms, planned, strict=True)),
+        remaining_n={a: int(top - n) for a, top, n in zip(arms, looks.per_arm[-1], sizes,
+                                                          strict=True)},
+        statement=support.statement(design), assessment=assessment, level=level,
+        posterior=posterior, warnings=tuple(warnings), checks=tuple(checks))
+
+
+def _size_warning(design: Design, look: int, sizes: tuple[int, ...], stats: tuple[int, ...],
+                  assessment: Assessment) -> str:
+    looks = design.looks
+    k = look - 1
+    planned = looks.per_arm[k]
+    arms = design.arm_names
+    if design.two_arm:
+        seen = ", ".join(f"{a} {n}" for a, n in zip(arms, sizes, strict=True))
+        plan = ", ".join(f"{a} {n}" for a, n in zip(arms, planned, strict=True))
+    else:
+        seen, plan = str(sizes[0]), str(planned[0])
+    text = [f"The observed sample size ({seen}) differs from the one planned at look "
+            f"{look} ({plan})."]
+    moved = "; ".join(f"{kind} {rule}" for kind, rule in assessment.boundaries.items())
+    if assessment.thresholds.in_counts:
+        text.append(f"The rule is stated in counts for the planned size and is applied as "
+                    f"written ({moved}); at another size it is a different rule from the one "
+                    "whose error rates were computed.")
+    else:
+        text.append("The probability thresholds are applied at the observed size, so the "
+                    f"count boundaries move: at the observed size {moved}")
+        if not design.two_arm:
+            plan_rows = observed_look(design, k, tuple(planned)).boundaries.iloc[0]
+            names = list(assessment.boundaries)
+            text[-1] += (f" (at the planned size: {names[0]} {plan_rows['efficacy_rule']}; "
+                         f"{names[1]} {plan_rows['futility_rule']})")
+        text[-1] += "."
+        changed = _function_thresholds(design, k, sum(sizes))
+        if changed:
+            text.append(changed)
+    if look < looks.count:
+        left = ", ".join((f"{a} " if design.two_arm else "") + f"{top - n}"
+                         for a, top, n in zip(arms, looks.per_arm[-1], sizes, strict=True))
+        text.append(f"The predictive probability uses the {left} subjects still to come "
+                    "(maximum minus observed).")
+    text.append("The design's operating characteristics were computed for the planned sizes "
+                "and hold only approximately.")
+    return " ".join(text)
+
+
+def _function_thresholds(design: Design, k: int, total: int) -> str:
+    looks = design.looks
+    if k == looks.count - 1:
+        return ""
+    forms = [kind for kind, spec in looks.specs if spec.form in FUNCTIONS]
+    if not forms:
+        return ""
+    now = thresholds_at(design, k, total)
+    t_obs, t_plan = total / looks.n[-1], looks.information[k]
+    parts = [f"{kind} {getattr(now, kind):.4g} (planned {getattr(looks, kind)[k]:.4g})"
+             for kind in forms if getattr(now, kind) is not None]
+    return (f"Thresholds given as a function of the information fraction are evaluated at "
+            f"the observed t = {total}/{looks.n[-1]} = {t_obs:.3f} (planned {t_plan:.3f}): "
+            + ", ".join(parts) + ".")

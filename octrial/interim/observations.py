@@ -1,0 +1,168 @@
+"""The data entered at an interim look: ``ARM=...`` per arm, in each endpoint's syntax.
+
+* binary: ``ARM=x/n`` — x responses among n subjects;
+* count: ``ARM=events/exposure`` — total events and total exposure;
+* normal: ``ARM=mean,sd,n`` — sample mean, sample standard deviation and size.
+
+Each syntax is one small parser registered in :data:`SYNTAX` under the endpoint type, so
+a new endpoint adds its own. Parsers raise :class:`ValueError` with the expected form; the
+caller turns that into an :class:`~octrial.errors.InputError` naming the option and arm.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+
+from octrial.design.model import Design
+from octrial.design.reader import Phrase, Problems, suggest
+from octrial.errors import InputError, single
+
+OPTION = "--data"
+
+WHOLE = r"\s*(\d+)\s*"
+DECIMAL = r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*"
+
+
+@dataclass(frozen=True)
+class BinaryData:
+    """x responses among n subjects."""
+
+    responses: int
+    n: int
+
+    def describe(self) -> str:
+        """Plain text for reports."""
+        return f"{self.responses}/{self.n} responses"
+
+
+@dataclass(frozen=True)
+class CountData:
+    """Total events over total exposure (the subjects' sizes come from the design)."""
+
+    events: int
+    exposure: float
+
+    def describe(self) -> str:
+        """Plain text for reports."""
+        return f"{self.events} events in exposure {self.exposure:g}"
+
+
+@dataclass(frozen=True)
+class NormalData:
+    """Sample mean, sample standard deviation and number of subjects."""
+
+    mean: float
+    sd: float
+    n: int
+
+    def describe(self) -> str:
+        """Plain text for reports."""
+        return f"mean {self.mean:g}, sd {self.sd:g}, n = {self.n}"
+
+
+@dataclass(frozen=True)
+class Syntax:
+    """How one endpoint's data are written on the command line."""
+
+    form: str
+    """The form shown in messages, for example ``x/n``."""
+    example: str
+    parse: Callable[[str], object]
+
+
+def _binary(text: str) -> BinaryData:
+    match = re.fullmatch(f"{WHOLE}/{WHOLE}", text)
+    if match is None:
+        raise ValueError("responses/subjects as two whole numbers")
+    x, n = int(match.group(1)), int(match.group(2))
+    if n == 0:
+        raise ValueError("at least one subject (n >= 1)")
+    if x > n:
+        raise ValueError(f"responses between 0 and the number of subjects ({n})")
+    return BinaryData(x, n)
+
+
+def _count(text: str) -> CountData:
+    match = re.fullmatch(f"{WHOLE}/{DECIMAL}", text)
+    if match is None:
+        raise ValueError("events/exposure: a whole number of events and a positive exposure")
+    exposure = float(match.group(2))
+    if not math.isfinite(exposure) or exposure <= 0:
+        raise ValueError("a positive, finite total exposure")
+    return CountData(int(match.group(1)), exposure)
+
+
+def _normal(text: str) -> NormalData:
+    match = re.fullmatch(f"{DECIMAL},{DECIMAL},{WHOLE}", text)
+    if match is None:
+        raise ValueError("mean,sd,n: two numbers and a whole number of subjects")
+    mean, sd, n = float(match.group(1)), float(match.group(2)), int(match.group(3))
+    if not (math.isfinite(mean) and math.isfinite(sd)) or sd < 0:
+        raise ValueError("a finite mean and a standard deviation >= 0")
+    if n == 0:
+        raise ValueError("at least one subject (n >= 1)")
+    return NormalData(mean, sd, n)
+
+
+SYNTAX: dict[str, Syntax] = {
+    "binary": Syntax("x/n", "12/30", _binary),
+    "count": Syntax("events/exposure", "14/52.5", _count),
+    "normal": Syntax("mean,sd,n", "1.8,2.4,40", _normal),
+}
+"""Data syntax per endpoint type."""
+
+
+def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
+    """Read ``ARM=...`` entries into one observation per arm of ``design``.
+
+    Parameters
+    ----------
+    design : Design
+    entries : iterable of str
+        The ``--data`` values, for example ``["treatment=12/30"]``.
+
+    Returns
+    -------
+    dict
+        Arm name to its observation, in the design's arm order.
+
+    Raises
+    ------
+    InputError
+        Every malformed entry, unknown or repeated arm and missing arm.
+    """
+    syntax = SYNTAX.get(design.endpoint.type)
+    if syntax is None:
+        raise single(OPTION, "", "an endpoint with a data syntax (" + ", ".join(SYNTAX) + ")",
+                     design.endpoint.type)
+    problems = Problems()
+    arms = design.arm_names
+    found: dict[str, object] = {}
+    for entry in entries:
+        name, sep, value = entry.partition("=")
+        name = name.strip()
+        if not sep:
+            problems.add("", f"ARM={syntax.form}, for example {arms[0]}={syntax.example}",
+                         entry)
+            continue
+        if name not in arms:
+            problems.add("", "an arm of the design (" + ", ".join(arms) + ")", name,
+                         suggest(name, arms))
+            continue
+        if name in found:
+            problems.add(name, "each arm once", Phrase("it twice"))
+            continue
+        try:
+            found[name] = syntax.parse(value)
+        except ValueError as exc:
+            problems.add(name, f"{exc}, like {name}={syntax.example}", value)
+    for arm in arms:
+        if arm not in found and not any(p.key == arm for p in problems):
+            problems.add(arm, f"the {arm} arm's data as {arm}={syntax.form}",
+                         Phrase("nothing"))
+    if problems:
+        raise InputError(OPTION, problems)
+    return {arm: found[arm] for arm in arms}

@@ -1,0 +1,224 @@
+"""Re-compute claimed operating characteristics and judge each claim.
+
+The design is evaluated at exactly the claims' scenarios (the design's own grid is
+replaced; scenarios that were not in it are reported), exactly where an exact engine
+applies and otherwise by Monte Carlo with many more replicates than any claim. Each claim
+is then judged by the rounding-aware two-sided z-test of :mod:`octrial.review.comparison`,
+and the p-values of all claims are adjusted together by Holm's procedure
+(:mod:`octrial.review.multiplicity`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from octrial.design.model import Design, Scenarios
+from octrial.engines import choose
+from octrial.errors import InputError, single
+from octrial.evaluation import compute
+from octrial.review.claims import Claims
+from octrial.review.comparison import (
+    EXPECTED_N,
+    standard_errors,
+    two_sided_p,
+    z_scores,
+)
+from octrial.review.multiplicity import holm
+
+DEFAULT_ALPHA = 0.05
+"""Family-wise error rate of the Holm-adjusted verdicts."""
+
+DEFAULT_TOLERANCE = 1e-6
+"""Differences below this (probability scale; times N for expected_n) are numerical noise
+between two correct exact computations, never a discrepancy."""
+
+MIN_REPLICATES = 100_000
+"""Smallest Monte Carlo recomputation, per scenario."""
+
+REPLICATE_FACTOR = 10
+"""A Monte Carlo recomputation uses at least this many times the largest claim's
+replicates, so that its own error is small beside the claim's."""
+
+GRID_TOLERANCE = 1e-9
+"""Scenario values closer than this are the same scenario."""
+
+CONSISTENT, DISCREPANT = "consistent", "discrepant"
+
+
+@dataclass(frozen=True, eq=False)
+class Verification:
+    """The verdict on every claim.
+
+    Attributes
+    ----------
+    design : Design
+        The design as written (its own scenario grid).
+    claims : Claims
+    table : DataFrame
+        One row per claim (the ``verify.csv`` contract, docs/output-files.md).
+    added : tuple of tuple of float
+        Claimed scenarios that are not in the design's grid (evaluated all the same).
+    info : dict
+        Engine, replicates, seed, alpha, tolerances and counts (for verify.json).
+    """
+
+    design: Design
+    claims: Claims
+    table: pd.DataFrame
+    added: tuple[tuple[float, ...], ...]
+    info: dict[str, Any]
+
+    @property
+    def discrepant(self) -> int:
+        """Number of claims judged discrepant."""
+        return int((self.table["verdict"] == DISCREPANT).sum())
+
+
+def recompute_method(design: Design) -> str:
+    """'exact' when an exact engine applies, else 'monte-carlo' when that engine exists.
+
+    Raises
+    ------
+    InputError
+        When neither can evaluate the design.
+    """
+    reasons = []
+    for method in ("exact", "monte-carlo"):
+        try:
+            choose(design, method)
+        except InputError as exc:
+            reasons.append(exc.problems[0].hint or method)
+        else:
+            return method
+    raise single(design.source.path or design.name, "endpoint",
+                 "a design that octrial can recompute exactly or by Monte Carlo",
+                 design.family.name, "; ".join(reasons))
+
+
+def _unique(truths: list[tuple[float, ...]]) -> list[tuple[float, ...]]:
+    found: list[tuple[float, ...]] = []
+    for truth in truths:
+        if not any(_same(truth, seen) for seen in found):
+            found.append(truth)
+    return found
+
+
+def _same(a: tuple[float, ...], b: tuple[float, ...]) -> bool:
+    return all(abs(x - y) <= GRID_TOLERANCE for x, y in zip(a, b, strict=True))
+
+
+def verify(
+    design: Design, claims: Claims, *, alpha: float = DEFAULT_ALPHA,
+    tolerance: float = DEFAULT_TOLERANCE, replicates: int | None = None,
+    seed: int | None = None,
+) -> Verification:
+    """Recompute every claimed number of ``claims`` and judge it.
+
+    Parameters
+    ----------
+    design : Design
+        The design the claims are about.
+    claims : Claims
+        From :func:`octrial.review.claims.read_claims`.
+    alpha : float
+        Family-wise error rate: a claim is discrepant when its Holm-adjusted p-value is
+        below ``alpha``.
+    tolerance : float
+        Numerical tolerance of exact computation on the probability scale (times the
+        maximum sample size for ``expected_n``), added to each claim's rounding allowance.
+    replicates : int, optional
+        Monte Carlo recomputations only: replicates per scenario (default: the larger of
+        100,000 and ten times the largest claim's).
+    seed : int, optional
+        Monte Carlo recomputations only: overrides ``simulation.seed`` (a fresh seed is
+        drawn and reported when neither is given).
+
+    Returns
+    -------
+    Verification
+    """
+    rows = claims.claims
+    truths = _unique([c.truth for c in rows])
+    method = recompute_method(design)
+    simulation = design.simulation
+    if method == "monte-carlo":
+        largest = max((c.replicates for c in rows), default=0)
+        count = replicates or max(MIN_REPLICATES, REPLICATE_FACTOR * largest)
+        if seed is None:
+            seed = simulation.seed
+        if seed is None:
+            seed = int(np.random.SeedSequence().entropy % 2**63)
+        simulation = dataclasses.replace(simulation, method=method, replicates=count, seed=seed)
+    evaluated = dataclasses.replace(
+        design, scenarios=Scenarios(design.scenarios.arms, tuple(truths)), simulation=simulation)
+    evaluation = compute(evaluated, method)
+    oc = evaluation.oc
+    added = tuple(t for t in truths if not any(_same(t, g) for g in design.scenarios.values))
+
+    index = np.array([next(i for i, t in enumerate(truths) if _same(c.truth, t)) for c in rows])
+    metric = np.array([c.metric for c in rows])
+    claimed = np.array([c.claimed for c in rows])
+    claim_reps = np.array([c.replicates for c in rows])
+    claim_se = np.array([np.nan if c.se is None else c.se for c in rows])
+    recomputed = np.array([oc[m].iloc[i] for m, i in zip(metric, index, strict=True)], float)
+    recomputed_reps = oc["replicates"].to_numpy()[index]
+    sd_n = oc["sd_n"].to_numpy()[index]
+
+    neglected = float(evaluation.info.get("max_neglected_mass", 0.0))
+    numerical = tolerance + neglected
+    scale = np.where(metric == EXPECTED_N, design.looks.n[-1], 1.0)
+    rounding = np.array([c.rounding for c in rows])
+    allowance = rounding + numerical * scale
+    se_c, se_r = standard_errors(metric, claimed, claim_reps, claim_se, recomputed,
+                                 recomputed_reps, sd_n)
+    z = z_scores(claimed, recomputed, allowance, se_c, se_r)
+    p = two_sided_p(z)
+    p_holm = holm(p)
+    verdict = np.where(p_holm < alpha, DISCREPANT, CONSISTENT)
+
+    columns: dict[str, Any] = {"line": [c.line for c in rows]}
+    for j, arm in enumerate(design.arm_names):
+        columns[f"true_{arm}"] = [c.truth[j] for c in rows]
+    columns.update({
+        "in_design_grid": [not any(_same(c.truth, t) for t in added) for c in rows],
+        "is_null": oc["is_null"].to_numpy()[index],
+        "metric": metric,
+        "claimed": [c.text for c in rows],
+        "claimed_replicates": claim_reps,
+        "claimed_se": se_c,
+        "rounding": rounding,
+        "recomputed": recomputed,
+        "recomputed_se": se_r,
+        "recomputed_method": oc["method"].to_numpy()[index],
+        "recomputed_replicates": recomputed_reps,
+        "difference": claimed - recomputed,
+        "allowance": allowance,
+        "z": z,
+        "p": p,
+        "p_holm": p_holm,
+        "verdict": verdict,
+        "note": [c.note for c in rows],
+    })
+    table = pd.DataFrame(columns)
+    info = {
+        "engine": evaluation.info["engine"],
+        "replicates": simulation.replicates if method == "monte-carlo" else 0,
+        "seed": simulation.seed if method == "monte-carlo" else None,
+        "alpha": alpha,
+        "adjustment": "Holm (1979)",
+        "tolerance": tolerance,
+        "numerical_error": {k: evaluation.info[k] for k in
+                            ("quadrature_error_bound", "max_neglected_mass")
+                            if k in evaluation.info},
+        "claims_total": len(rows),
+        "consistent": int((verdict == CONSISTENT).sum()),
+        "discrepant": int((verdict == DISCREPANT).sum()),
+        "scenarios": len(truths),
+        "scenarios_added": [dict(zip(design.arm_names, t, strict=True)) for t in added],
+    }
+    return Verification(design, claims, table, added, info)
