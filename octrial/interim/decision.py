@@ -166,15 +166,17 @@ def assess(design: Design, look: int, sizes: tuple[int, ...],
                       _bounds(design, tables.boundaries, stats, last))
 
 
-def _bounds(design: Design, rows: Any, stats: tuple[int, ...], last: bool) -> dict[str, str]:
+def _bounds(
+    design: Design, rows: tuple[dict, ...], stats: tuple[int, ...], last: bool,
+) -> dict[str, str]:
     """The look's boundaries at the observed sizes, in words (final look: success and
     failure)."""
     statistic = design.family.statistic
     if design.two_arm:
-        row = rows[rows[f"control_{statistic}"] == stats[1]].iloc[0]
+        row = rows[stats[1]]
         given = f" treatment {statistic}, given {stats[1]} control {statistic}"
     else:
-        row = rows.iloc[0]
+        row = rows[0]
         given = f" {statistic}"
     out = {}
     for kind, name in zip(("efficacy", "futility"), ("success", "failure") if last else (
@@ -285,7 +287,7 @@ def _size_warning(design: Design, look: int, sizes: tuple[int, ...], stats: tupl
         text.append("The probability thresholds are applied at the observed size, so the "
                     f"count boundaries move: at the observed size {moved}")
         if not design.two_arm:
-            plan_rows = observed_look(design, k, tuple(planned)).boundaries.iloc[0]
+            plan_rows = observed_look(design, k, tuple(planned)).boundaries[0]
             names = list(assessment.boundaries)
             text[-1] += (f" (at the planned size: {names[0]} {plan_rows['efficacy_rule']}; "
                          f"{names[1]} {plan_rows['futility_rule']})")

@@ -21,7 +21,6 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from octrial.design.model import Design, Looks
 from octrial.design.thresholds import FUNCTIONS, evaluate_spec
@@ -108,15 +107,16 @@ class ObservedLook:
     predictive : ndarray or None
         Predictive probability of final success at every lattice point (interim looks with
         an analysis prior).
-    boundaries : DataFrame
-        The boundary-table rows of this look at the observed sizes.
+    boundaries : tuple of dict
+        The boundary-table rows of this look at the observed sizes (two arms: one per
+        control count, in order).
     thresholds : Thresholds
     """
 
     design: Design
     rule: LatticeRule
     predictive: np.ndarray | None
-    boundaries: pd.DataFrame
+    boundaries: tuple[dict, ...]
     thresholds: Thresholds
 
 
@@ -137,8 +137,8 @@ def observed_look(design: Design, k: int, n_arms: tuple[int, ...]) -> ObservedLo
             for j, n in enumerate(n_arms))
         predictive = predictive_success(reduced, family, posteriors, 0, rule.final.efficacy)
     rows = boundary_table(reduced, rule)
-    return ObservedLook(reduced, rule, predictive, rows[rows["look"] == 1],
-                        thresholds_at(design, k, sum(n_arms)))
+    records = tuple(rows[rows["look"] == 1].to_dict("records"))
+    return ObservedLook(reduced, rule, predictive, records, thresholds_at(design, k, sum(n_arms)))
 
 
 def probability_decision(

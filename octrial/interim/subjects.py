@@ -82,7 +82,7 @@ def read_subjects(
         if "exposure" in column:
             time = _positive(fields[column["exposure"]], f"line {line}, column exposure",
                              problems)
-        if value is not None and time is not None:
+        if value is not None and (time is not None or exposure is None):
             data[arm][outcome].append(value)
             data[arm]["exposure"].append(time)
     for arm in arms:

@@ -98,8 +98,9 @@ def z_scores(
     excess = np.maximum(np.abs(difference) - allowance, 0.0)
     scale = np.hypot(claim_se, recomputed_se)
     with np.errstate(invalid="ignore", divide="ignore"):
-        z = np.sign(difference) * excess / scale
-    return np.where(excess == 0.0, 0.0, np.where(scale > 0, z, np.sign(difference) * np.inf))
+        z = np.where(scale > 0, np.sign(difference) * excess / scale,
+                     np.copysign(np.inf, difference))
+    return np.where(excess == 0.0, 0.0, z)
 
 
 def two_sided_p(z: np.ndarray) -> np.ndarray:
