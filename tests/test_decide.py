@@ -270,3 +270,8 @@ def test_data_syntax_of_every_endpoint() -> None:
                            ("normal", "1,2"), ("normal", "1,2,0"), ("binary", "1/2/3")]:
         with pytest.raises(ValueError):
             SYNTAX[endpoint].parse(text)
+
+
+def test_help_carries_the_caution(runner) -> None:
+    for command in ("decide", "verify"):
+        assert "regulatory" in runner.invoke(main, [command, "--help"]).output

@@ -13,7 +13,7 @@ from octrial.output import json_text
 FORMS = "; ".join(f"{endpoint}: ARM={syntax.form}" for endpoint, syntax in SYNTAX.items())
 
 
-@click.command("decide")
+@click.command("decide", epilog=f"Caution: {CAUTION}")
 @design_argument
 @click.option("--look", type=int, required=True,
               help="The look being analysed, from 1 (the last look is the final analysis).")

@@ -19,7 +19,7 @@ from octrial.review.verification import DEFAULT_ALPHA, DEFAULT_TOLERANCE, Verifi
 EXIT_DISCREPANT = 1
 
 
-@click.command("verify")
+@click.command("verify", epilog=f"Caution: {CAUTION}")
 @design_argument
 @click.argument("claims", metavar="CLAIMS.csv", type=click.Path(dir_okay=False))
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
