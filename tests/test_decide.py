@@ -48,6 +48,10 @@ DESIGNS_FOR_TABLES = {
     "two arms, non-inferiority, predictive futility": lambda: build(
         TWO_ARM, hypothesis__kind="non-inferiority", hypothesis__margin=0.1,
         looks__futility_predictive=0.05),
+    "two arms 2:1, lower is better, three looks": lambda: build(
+        TWO_ARM, endpoint__better="lower", arms__treatment__allocation=2,
+        looks={"n": [15, 30, 60], "efficacy": [0.999, 0.99, 0.97], "futility": 0.2,
+               "futility_predictive": 0.05}),
 }
 
 
