@@ -46,6 +46,23 @@ def environment() -> dict[str, Any]:
     }
 
 
+def display_command(argv: list[str]) -> list[str]:
+    """The command line as the user would type it again.
+
+    ``python -m octrial`` reports ``.../octrial/__main__.py`` as ``argv[0]`` and the
+    installed script its absolute path; both become the short form, so records do not
+    depend on where octrial is installed.
+    """
+    if not argv:
+        return list(argv)
+    head = argv[0].replace("\\", "/")
+    if head.endswith("octrial/__main__.py"):
+        return ["python", "-m", "octrial", *argv[1:]]
+    if head.rsplit("/", 1)[-1] == "octrial":
+        return ["octrial", *argv[1:]]
+    return list(argv)
+
+
 def run_record(
     evaluation: Any, *, started: str, finished: str, command: list[str] | None = None,
 ) -> dict[str, Any]:
@@ -58,8 +75,9 @@ def run_record(
             "title": design.title,
             "path": design.source.path,
             "sha256": design.source.sha256,
+            "text": design.source.text,
         },
-        "command": command if command is not None else sys.argv,
+        "command": display_command(command if command is not None else sys.argv),
         "started": started,
         "finished": finished,
         "seed": design.simulation.seed,

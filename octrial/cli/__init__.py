@@ -10,6 +10,7 @@ import click
 from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.cli.decide import decide_command
+from octrial.cli.report import report_command
 from octrial.cli.run import run_command
 from octrial.cli.verify import verify_command
 
@@ -26,5 +27,6 @@ def main() -> None:
 main.add_command(run_command)
 main.add_command(verify_command)
 main.add_command(decide_command)
+main.add_command(report_command)
 
 __all__ = ["main"]

@@ -1,0 +1,63 @@
+"""``octrial report``: the simulation appendix of a design or of a finished run."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from octrial.caution import CAUTION
+from octrial.cli.common import default_out, reports_input_errors
+from octrial.reporting import PrintError, from_design, from_run_folder, write_report
+
+REPORT_NAME = "report.html"
+
+
+@click.command("report")
+@click.argument("source", metavar="DESIGN_OR_RUN_DIR", type=click.Path(exists=True))
+@click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
+              help="The HTML file to write [default: RUN_DIR/report.html, or "
+                   "reports/<design name>/report.html for a design file].")
+@click.option("--pdf", is_flag=True,
+              help="Also print the report to a PDF beside the HTML (needs headless Chromium).")
+@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True, max_open=True),
+              default=None, help="The one-sided type I error level the design must keep: "
+                                 "drawn on the power curve and compared with the maximum.")
+@click.option("--paper", type=click.Choice(["a4", "letter"]), default="a4", show_default=True,
+              help="Page size of the printed report.")
+@click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
+              help="Engine when evaluating a design file; overrides simulation.method.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@reports_input_errors
+def report_command(source: str, out: str | None, pdf: bool, alpha: float | None, paper: str,
+                   method: str | None, quiet: bool) -> None:
+    """Write the simulation appendix of DESIGN_OR_RUN_DIR as one self-contained HTML file.
+
+    DESIGN_OR_RUN_DIR is a design file (evaluated now) or a folder written by
+    'octrial run' (its oc.csv, boundaries.csv and run.json, plus calibration.csv and
+    checks.json when present, are shown as written). The report's tables are also written
+    as CSV, Markdown and LaTeX to <report name>-tables/ beside it; --pdf prints a PDF.
+
+    Exit codes: 0 written; 1 Chromium failed to print; 2 bad input or Chromium missing.
+    """
+    path = Path(source)
+    if path.is_dir():
+        data = from_run_folder(path, alpha=alpha)
+        html = Path(out) if out else path / REPORT_NAME
+    else:
+        data = from_design(path, method, command=sys.argv, alpha=alpha)
+        html = Path(out) if out else default_out(data.design) / REPORT_NAME
+    try:
+        written = write_report(data, html, pdf=pdf, paper=paper, command=sys.argv)
+    except PrintError as exc:
+        click.echo(f"error: printing the PDF failed: {exc}", err=True)
+        click.echo(f"The HTML report was written: {html}", err=True)
+        raise SystemExit(1) from None
+    if quiet:
+        return
+    click.echo(f"wrote {written.html}")
+    click.echo(f"wrote {len(written.tables)} table files in {written.tables[0].parent}")
+    if written.pdf is not None:
+        click.echo(f"wrote {written.pdf}")
+    click.echo(f"Caution: {CAUTION}", err=True)

@@ -1,0 +1,195 @@
+"""Everything a report shows, gathered from a design file or from a run folder.
+
+A report is rendered from one :class:`ReportData`: the design, the operating
+characteristics (``oc.csv``), the boundary table, the run record (``run.json``) and,
+when present in a run folder, the calibration table (``calibration.csv``) and the
+workflow checks (``checks.json``). Given a design file, the design is evaluated when the
+report is made; given a run folder, the files are read back as written, so the report
+shows exactly the numbers in ``oc.csv``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from octrial.design.load import load_design, parse_design
+from octrial.design.model import Design, Source
+from octrial.errors import InputError, Problem, single
+from octrial.evaluation import compute
+from octrial.provenance import now, run_record
+
+RUN_FILES = ("oc.csv", "run.json")
+"""Files a run folder must hold."""
+
+OPTIONAL_FILES = ("boundaries.csv", "calibration.csv", "checks.json")
+"""Files a run folder may hold; each adds to the report when present."""
+
+OC_REQUIRED = ("scenario", "is_null", "prob_success", "prob_success_se", "prob_stop_efficacy",
+               "prob_stop_futility", "expected_n", "sd_n", "method", "replicates")
+"""``oc.csv`` columns the report cannot do without (besides ``true_<arm>`` and looks)."""
+
+
+@dataclass(frozen=True, eq=False)
+class ReportData:
+    """The inputs of one report.
+
+    Attributes
+    ----------
+    design : Design
+    oc : DataFrame
+        The ``oc.csv`` table.
+    boundaries : DataFrame or None
+        The ``boundaries.csv`` table (discrete endpoints).
+    record : dict
+        The ``run.json`` record.
+    origin : str
+        Where the numbers come from, in words (a run folder, or a design evaluated for
+        the report).
+    calibration : DataFrame or None
+        ``calibration.csv`` when the run folder holds one.
+    checks : dict or None
+        ``checks.json`` when the run folder holds one.
+    alpha : float or None
+        The one-sided type I error level the design is meant to keep (for the figures'
+        alpha line and the verdict on the maximum type I error).
+    """
+
+    design: Design
+    oc: pd.DataFrame
+    boundaries: pd.DataFrame | None
+    record: dict[str, Any]
+    origin: str
+    calibration: pd.DataFrame | None = None
+    checks: dict[str, Any] | None = None
+    alpha: float | None = None
+
+    @property
+    def type1(self) -> dict[str, Any] | None:
+        """The maximum type I error over the null scenarios (from run.json)."""
+        return self.record.get("type1")
+
+
+def from_design(
+    design: Design | str | Path, method: str | None = None, command: list[str] | None = None,
+    alpha: float | None = None,
+) -> ReportData:
+    """Evaluate a design and gather what its report shows.
+
+    Parameters
+    ----------
+    design : Design or path
+        A loaded design or a design file.
+    method : str, optional
+        Overrides ``simulation.method``.
+    command : list of str, optional
+        The command line to record (default: ``sys.argv``).
+    alpha : float, optional
+        The type I error level to show (see :class:`ReportData`).
+    """
+    started = now()
+    loaded = design if isinstance(design, Design) else load_design(design)
+    evaluation = compute(loaded, method)
+    record = run_record(evaluation, started=started, finished=now(), command=command)
+    origin = f"design file {loaded.source.path or loaded.name}, evaluated for this report"
+    return ReportData(loaded, evaluation.oc, evaluation.boundaries, record, origin,
+                      alpha=alpha)
+
+
+def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportData:
+    """Read a folder written by ``octrial run`` (and optionally ``octrial calibrate`` or
+    ``octrial check``) and gather what its report shows.
+
+    Raises
+    ------
+    InputError
+        When a required file is missing or unreadable, or the design behind the run
+        cannot be recovered.
+    """
+    folder = Path(folder)
+    missing = [name for name in RUN_FILES if not (folder / name).is_file()]
+    if missing:
+        raise InputError(str(folder), [Problem(
+            name, "a run folder written by 'octrial run' (oc.csv and run.json)",
+            "no such file") for name in missing])
+    record = _read_json(folder / "run.json")
+    design = _design_of(record, folder)
+    oc = read_table(folder / "oc.csv")
+    _check_oc(oc, design, folder / "oc.csv")
+    boundaries = _optional_table(folder / "boundaries.csv")
+    if boundaries is not None:
+        for column in ("efficacy_bound", "futility_bound"):
+            if column in boundaries:
+                boundaries[column] = boundaries[column].astype("Int64")
+    checks = _read_json(folder / "checks.json") if (folder / "checks.json").is_file() else None
+    return ReportData(design, oc, boundaries, record, f"run folder {folder}",
+                      calibration=_optional_table(folder / "calibration.csv"), checks=checks,
+                      alpha=alpha)
+
+
+def read_table(path: Path) -> pd.DataFrame:
+    """Read a CSV table written by octrial, floats exactly as written."""
+    try:
+        return pd.read_csv(path, float_precision="round_trip")
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise single(str(path), "", "a CSV table", str(exc).strip()) from None
+
+
+def _optional_table(path: Path) -> pd.DataFrame | None:
+    return read_table(path) if path.is_file() else None
+
+
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise single(str(path), "", "a JSON record", str(exc)) from None
+    if not isinstance(data, dict):
+        raise single(str(path), "", "a JSON object", type(data).__name__)
+    return data
+
+
+def _design_of(record: dict[str, Any], folder: Path) -> Design:
+    """The design behind a run: its text in run.json, else the file it names (same SHA)."""
+    info = record.get("design") or {}
+    sha = info.get("sha256", "")
+    path = info.get("path") or ""
+    text = info.get("text")
+    where = str(folder / "run.json")
+    if text is None:
+        candidates = [Path(path), folder / Path(path).name] if path else []
+        for candidate in candidates:
+            if candidate.is_file() and hashlib.sha256(candidate.read_bytes()).hexdigest() == sha:
+                text = candidate.read_bytes().decode("utf-8")
+                break
+        else:
+            raise single(where, "design.text", "the design file's text (written by "
+                         "'octrial run' since the report command exists), or the design file "
+                         f"at {path or 'the recorded path'} with SHA-256 {sha or '?'}",
+                         "neither", "re-run 'octrial run' on the design")
+    elif sha and hashlib.sha256(text.encode("utf-8")).hexdigest() != sha:
+        raise single(where, "design.text", f"text with the recorded SHA-256 {sha}",
+                     "text with another checksum", "the record was edited; re-run the design")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise single(where, "design.text", "a TOML design", str(exc)) from None
+    return parse_design(data, Source(path, sha, text))
+
+
+def _check_oc(oc: pd.DataFrame, design: Design, path: Path) -> None:
+    needed = [*OC_REQUIRED, *(f"true_{arm}" for arm in design.arm_names)]
+    needed += [f"look{k + 1}_stop_{why}" for k in range(design.looks.count)
+               for why in ("efficacy", "futility")]
+    absent = [c for c in needed if c not in oc.columns]
+    if absent:
+        raise InputError(str(path), [Problem(c, "the oc.csv column (docs/output-files.md)",
+                                             "no such column") for c in absent])
+    if oc["is_null"].dtype != bool:
+        oc["is_null"] = oc["is_null"].astype(str).str.lower().isin(("true", "1", "yes"))

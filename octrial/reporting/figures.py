@@ -1,0 +1,377 @@
+"""The report's figures, drawn with matplotlib (Agg, no display) and embedded in the HTML.
+
+Every figure reads only ``oc.csv`` columns (``true_<arm>``, ``true_effect``,
+``prob_success``, ``look<k>_stop_*``, ``expected_n``, ...) and a few facts about the design
+(:class:`PlotFacts`), so it works for every endpoint family and for one or two arms. The
+figures are legible in grey scale: lines differ by style and marker, stacked areas by grey
+level and hatching, never by colour alone.
+
+Add a figure by writing a function ``(data, facts) -> Figure | None`` (``None`` when its
+inputs are absent, for example no calibration) and listing it in :data:`FIGURES`.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure as MplFigure
+
+from octrial.reporting import wording
+from octrial.reporting.formats import probability, truth
+
+WIDTH = 6.6
+"""Figure width in inches: the printed text width of an A4 or Letter page."""
+
+STYLE = {
+    "font.size": 8.5, "axes.titlesize": 9, "axes.labelsize": 8.5, "legend.fontsize": 7.5,
+    "xtick.labelsize": 8, "ytick.labelsize": 8, "axes.spines.top": False,
+    "axes.spines.right": False, "axes.grid": True, "grid.color": "0.88",
+    "grid.linewidth": 0.6, "svg.hashsalt": "octrial", "font.family": "DejaVu Sans",
+}
+LINES = [("-", "o", "0.05"), ("--", "s", "0.35"), ("-.", "^", "0.15"), (":", "D", "0.45"),
+         ((0, (5, 1, 1, 1, 1, 1)), "v", "0.25"), ((0, (1, 2)), "P", "0.5")]
+"""(line style, marker, grey) per line: distinct without colour."""
+
+MAX_PANELS = 9
+
+
+@dataclass(frozen=True)
+class Figure:
+    """One embedded figure: what it shows, and its image as a data URI."""
+
+    name: str
+    title: str
+    caption: str
+    uri: str
+    alt: str
+
+
+@dataclass(frozen=True)
+class PlotFacts:
+    """What the figures need to know about the design.
+
+    Attributes
+    ----------
+    x : str
+        The oc.csv column on the horizontal axis (treatment's true value, or the effect).
+    x_label : str
+    group : str or None
+        Column whose values get one line or panel each (two arms: the control value).
+    group_label : str
+    null_at : float or None
+        Where the null boundary lies on the horizontal axis.
+    looks : tuple of int
+        Total sample size at each look.
+    alpha : float or None
+        Stated type I error level (drawn as the alpha line).
+    max_type1 : float or None
+        Maximum type I error over the null scenarios (drawn when no alpha is stated).
+    """
+
+    x: str
+    x_label: str
+    group: str | None
+    group_label: str
+    null_at: float | None
+    looks: tuple[int, ...]
+    alpha: float | None
+    max_type1: float | None
+
+
+def plot_facts(data: Any) -> PlotFacts:
+    """The :class:`PlotFacts` of a report's data."""
+    design = data.design
+    p, u = wording.parameter(design), wording.unit(design)
+    h = design.hypothesis
+    t1 = data.type1
+    common = {"looks": tuple(design.looks.n), "alpha": data.alpha,
+              "max_type1": None if t1 is None else float(t1["max_type1_error"])}
+    if not design.two_arm:
+        return PlotFacts("true_treatment", f"true {p} of the treatment arm ({u})", None, "",
+                         h.benchmark, **common)
+    if h.comparison in (None, "difference"):
+        label = f"true difference in {p}, treatment − control ({u})"
+        null_at = h.shift if h.better == "higher" else -h.shift
+    else:
+        label = f"true {h.comparison} of {p}s, treatment vs control"
+        null_at = None
+    return PlotFacts("true_effect", label, "true_control", f"control {p}", null_at, **common)
+
+
+def _x(oc: pd.DataFrame, facts: PlotFacts) -> pd.DataFrame:
+    """oc with the horizontal-axis column present (two arms without ``true_effect``)."""
+    if facts.x in oc.columns:
+        return oc
+    return oc.assign(**{facts.x: oc["true_treatment"] - oc["true_control"]})
+
+
+def _groups(oc: pd.DataFrame, facts: PlotFacts) -> list[tuple[str, pd.DataFrame]]:
+    oc = _x(oc, facts)
+    if facts.group is None:
+        return [("", oc.sort_values(facts.x))]
+    return [(f"{facts.group_label} {truth(value)}", part.sort_values(facts.x))
+            for value, part in oc.groupby(facts.group, sort=True)]
+
+
+def _new(height: float, ncols: int = 1, nrows: int = 1, **kw: Any) -> tuple[MplFigure, Any]:
+    import matplotlib
+
+    with matplotlib.rc_context(STYLE):
+        fig = MplFigure(figsize=(WIDTH, height), layout="constrained")
+        FigureCanvasAgg(fig)
+        axes = fig.subplots(nrows, ncols, squeeze=False, **kw)
+    return fig, axes
+
+
+RASTER_DPI = 200
+
+
+def encode(fig: MplFigure, raster: bool = False) -> str:
+    """The figure as a data URI: SVG (vector, sharp at any zoom), or PNG with ``raster``.
+
+    Hatched areas are better as PNG: Chromium prints every SVG hatch pattern as its own
+    bitmap, which makes a PDF ten times larger than the same figure as one PNG.
+    """
+    import matplotlib
+
+    buffer = io.BytesIO()
+    with matplotlib.rc_context(STYLE):
+        if raster:
+            fig.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
+        else:
+            fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
+    mime = "image/png" if raster else "image/svg+xml"
+    return f"data:{mime};base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _reference_lines(ax: Axes, facts: PlotFacts, probability_axis: bool) -> None:
+    if facts.null_at is not None:
+        ax.axvline(facts.null_at, color="0.3", linestyle=(0, (1, 1.5)), linewidth=0.9,
+                   label=f"null boundary ({truth(facts.null_at)})")
+    if probability_axis:
+        if facts.alpha is not None:
+            ax.axhline(facts.alpha, color="0.2", linestyle=(0, (6, 2)), linewidth=0.9,
+                       label=f"alpha = {truth(facts.alpha)}")
+        elif facts.max_type1 is not None:
+            ax.axhline(facts.max_type1, color="0.2", linestyle=(0, (6, 2)), linewidth=0.9,
+                       label=f"maximum type I error ({probability(facts.max_type1)})")
+
+
+def power_curve(data: Any, facts: PlotFacts) -> Figure:
+    """Probability of success against the true value (one line per control value)."""
+    import matplotlib
+
+    fig, axes = _new(3.4)
+    ax = axes[0, 0]
+    with matplotlib.rc_context(STYLE):
+        banded = False
+        for i, (label, part) in enumerate(_groups(data.oc, facts)):
+            style, marker, grey = LINES[i % len(LINES)]
+            x = part[facts.x].to_numpy(float)
+            p = part["prob_success"].to_numpy(float)
+            se = part["prob_success_se"].to_numpy(float)
+            if (part["replicates"] > 0).any():
+                ax.fill_between(x, np.clip(p - 1.96 * se, 0, 1), np.clip(p + 1.96 * se, 0, 1),
+                                color="0.8", linewidth=0, zorder=1,
+                                label=None if banded else "95% Monte Carlo band")
+                banded = True
+            ax.plot(x, p, linestyle=style, marker=marker, color=grey, markersize=4,
+                    linewidth=1.3, zorder=3, label=label or "P(success)")
+        _reference_lines(ax, facts, probability_axis=True)
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_xlabel(facts.x_label)
+        ax.set_ylabel("probability of declaring success")
+        ax.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
+    caption = ("Probability of declaring success at any look against the true value: the "
+               "type I error left of the null boundary (inclusive), the power to its right.")
+    if facts.alpha is None and facts.max_type1 is not None:
+        caption += (" No type I error level was stated, so the dashed line marks the maximum "
+                    "type I error over the null scenarios.")
+    if banded:
+        caption += " The grey band is the pointwise 95% Monte Carlo interval (± 1.96 se)."
+    return Figure("power", "Power and type I error", caption, encode(fig),
+                  "Line chart of the probability of success against the true value.")
+
+
+def _stack_layers(k_looks: int) -> list[tuple[str, str, str, str]]:
+    """(column, legend label, grey, hatch) from the bottom up: efficacy stops and success
+    (dark greys, earliest darkest), then failure and futility stops (light greys, hatched,
+    earliest lightest), so the border between dark and light is the probability of
+    success."""
+    eff_greys = np.linspace(0.12, 0.55, k_looks)
+    fut_greys = np.linspace(0.97, 0.78, k_looks)
+    hatches = ["", "///", "\\\\\\", "xx", "---", "|||"]
+    layers = []
+    for k in range(k_looks):
+        final = k == k_looks - 1
+        layers.append((f"look{k + 1}_stop_efficacy",
+                       "final: success" if final else f"look {k + 1}: efficacy stop",
+                       f"{eff_greys[k]:.2f}", ""))
+    for k in reversed(range(k_looks)):
+        final = k == k_looks - 1
+        layers.append((f"look{k + 1}_stop_futility",
+                       "final: failure" if final else f"look {k + 1}: futility stop",
+                       f"{fut_greys[k]:.2f}", hatches[(k_looks - 1 - k) % len(hatches)]))
+    return layers
+
+
+def _panels(n: int) -> tuple[int, int]:
+    """(rows, columns) of small multiples: one row up to three panels, then three wide."""
+    ncols = min(n, 3)
+    return -(-n // ncols), ncols
+
+
+def _subset(groups: list[tuple[str, pd.DataFrame]]) -> tuple[list[tuple[str, pd.DataFrame]],
+                                                            bool]:
+    if len(groups) <= MAX_PANELS:
+        return groups, False
+    keep = np.unique(np.linspace(0, len(groups) - 1, MAX_PANELS).round().astype(int))
+    return [groups[i] for i in keep], True
+
+
+def stopping(data: Any, facts: PlotFacts) -> Figure:
+    """Stacked probabilities of ending at each look for each reason."""
+    import matplotlib
+
+    k_looks = len(facts.looks)
+    groups, subset = _subset(_groups(data.oc, facts))
+    nrows, ncols = _panels(len(groups))
+    fig, axes = _new(1.2 + 2.3 * nrows, ncols, nrows, sharey=True)
+    layers = [layer for layer in _stack_layers(k_looks) if data.oc[layer[0]].any()]
+    with matplotlib.rc_context({**STYLE, "hatch.color": "0.45", "hatch.linewidth": 0.6}):
+        for i, (label, part) in enumerate(groups):
+            ax = axes[i // ncols, i % ncols]
+            x = part[facts.x].to_numpy(float)
+            gaps = np.diff(np.unique(x))
+            width = 0.8 * (gaps.min() if gaps.size else 1.0)
+            bottom = np.zeros(len(part))
+            for column, name, grey, hatch in layers:
+                height = part[column].to_numpy(float)
+                ax.bar(x, height, width, bottom=bottom, color=grey, hatch=hatch,
+                       edgecolor="0.25" if len(x) <= 30 else "none", linewidth=0.3,
+                       label=name if i == 0 else None)
+                bottom = bottom + height
+            ax.set_ylim(0, 1)
+            ax.grid(False)
+            if label:
+                ax.set_title(label)
+            if i % ncols == 0:
+                ax.set_ylabel("probability")
+        for j in range(len(groups), nrows * ncols):
+            axes[j // ncols, j % ncols].set_visible(False)
+        fig.supxlabel(facts.x_label, fontsize=STYLE["axes.labelsize"])
+        handles, labels = axes[0, 0].get_legend_handles_labels()
+        fig.legend(handles[::-1], labels[::-1], loc="outside right center", frameon=False)
+    caption = ("Probability of ending at each look for each reason, stacked in the order of "
+               "the legend. Efficacy stops and final success (dark greys) stack from the "
+               "bottom, futility stops and final failure (light, hatched) from the top; "
+               "the border between dark and light is the probability of success.")
+    if len(groups) > 1:
+        caption += f" One panel per {facts.group_label}."
+    if subset:
+        caption += f" Shown: {len(groups)} evenly spaced control values; the tables have all."
+    return Figure("stopping", "Stopping probabilities per look", caption,
+                  encode(fig, raster=True),
+                  "Stacked bar chart of the probability of stopping at each look.")
+
+
+def expected_sample_size(data: Any, facts: PlotFacts) -> Figure:
+    """Expected total sample size against the true value, with the looks marked."""
+    import matplotlib
+
+    fig, axes = _new(3.2)
+    ax = axes[0, 0]
+    with matplotlib.rc_context(STYLE):
+        for i, (label, part) in enumerate(_groups(data.oc, facts)):
+            style, marker, grey = LINES[i % len(LINES)]
+            x = part[facts.x].to_numpy(float)
+            y = part["expected_n"].to_numpy(float)
+            ax.plot(x, y, linestyle=style, marker=marker, color=grey, markersize=4,
+                    linewidth=1.3, label=label or "E[N]")
+            if (part["replicates"] > 0).any():
+                ax.errorbar(x, y, yerr=1.96 * part["expected_n_se"].to_numpy(float),
+                            fmt="none", ecolor=grey, elinewidth=0.8, capsize=2)
+        for k, n in enumerate(facts.looks):
+            ax.axhline(n, color="0.55", linewidth=0.7, linestyle=(0, (2, 2)))
+            ax.annotate(f"look {k + 1}: n = {n}", (1.0, n), xycoords=("axes fraction", "data"),
+                        xytext=(2, 0), textcoords="offset points", va="center", fontsize=7,
+                        color="0.3")
+        if facts.null_at is not None:
+            ax.axvline(facts.null_at, color="0.3", linestyle=(0, (1, 1.5)), linewidth=0.9,
+                       label=f"null boundary ({truth(facts.null_at)})")
+        ax.set_ylim(0, facts.looks[-1] * 1.05)
+        ax.set_xlabel(facts.x_label)
+        ax.set_ylabel("expected total sample size (subjects)")
+        ax.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
+    caption = ("Expected total sample size E[N] against the true value; the dashed "
+               "horizontal lines are the planned looks.")
+    return Figure("expected-n", "Expected sample size", caption, encode(fig),
+                  "Line chart of the expected sample size against the true value.")
+
+
+SIZE_COLUMNS = ("max_n", "n_max", "n", "N", "sample_size")
+ERROR_COLUMNS = ("max_type1_error", "type1_error", "type1", "alpha_attained")
+POWER_COLUMNS = ("power",)
+
+
+def _first(frame: pd.DataFrame, names: tuple[str, ...]) -> str | None:
+    return next((c for c in names if c in frame.columns), None)
+
+
+def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
+    """Type I error and power against the maximum sample size, when calibration sized N.
+
+    Reads ``calibration.csv`` columns named in :data:`SIZE_COLUMNS`, :data:`ERROR_COLUMNS`
+    and :data:`POWER_COLUMNS`; ``None`` when the calibration did not vary N.
+    """
+    import matplotlib
+
+    frame = data.calibration
+    if frame is None:
+        return None
+    n_col, e_col, p_col = (_first(frame, names) for names in (SIZE_COLUMNS, ERROR_COLUMNS,
+                                                               POWER_COLUMNS))
+    if n_col is None or (e_col is None and p_col is None) or frame[n_col].nunique() < 2:
+        return None
+    curve = frame.groupby(n_col, sort=True).agg(
+        {c: "min" for c in (e_col, p_col) if c is not None}).reset_index()
+    fig, axes = _new(3.2, 2 if e_col and p_col else 1, 1)
+    with matplotlib.rc_context(STYLE):
+        panels = [(c, name) for c, name in ((e_col, "type I error"), (p_col, "power")) if c]
+        for i, (column, name) in enumerate(panels):
+            ax = axes[0, i]
+            style, marker, grey = LINES[i]
+            ax.plot(curve[n_col], curve[column], drawstyle="steps-mid", linestyle=style,
+                    marker=marker, markersize=2.5, color=grey, linewidth=1.0)
+            if name == "type I error" and facts.alpha is not None:
+                ax.axhline(facts.alpha, color="0.2", linestyle=(0, (6, 2)), linewidth=0.9,
+                           label=f"alpha = {truth(facts.alpha)}")
+                ax.legend(frameon=False)
+            ax.set_xlabel("maximum sample size N (subjects)")
+            ax.set_ylabel(name)
+    caption = ("Type I error and power against the maximum sample size, from the "
+               "calibration. With a discrete endpoint both move in a saw-tooth, not "
+               "monotonically, so a larger N can fail where a smaller one passes.")
+    return Figure("sawtooth", "Sample size search", caption, encode(fig),
+                  "Step chart of type I error and power against the maximum sample size.")
+
+
+FIGURES: tuple[Callable[[Any, PlotFacts], Figure | None], ...] = (
+    power_curve, stopping, expected_sample_size, sawtooth,
+)
+"""Figure builders in report order. Simulation-based calibration histograms and the
+sensitivity scatter join here when ``checks.json`` carries their data."""
+
+
+def build_figures(data: Any) -> list[Figure]:
+    """Every figure that the data allow, in report order."""
+    facts = plot_facts(data)
+    return [f for f in (build(data, facts) for build in FIGURES) if f is not None]

@@ -1,0 +1,320 @@
+"""The design in words: hypotheses, the posterior probability the rule uses, the rule at
+each look, sample-size range, borrowing and the assumptions every number depends on.
+
+Endpoint families may refine the wording by defining ``unit`` (the parameter's unit) and
+``assumptions`` (a tuple of sentences about the data model); otherwise the tables below
+are used, keyed by ``endpoint.type``.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from typing import Any
+
+import pandas as pd
+
+from octrial.design.model import Design
+from octrial.reporting.formats import probability, truth
+
+UNITS = {
+    "binary": "proportion",
+    "count": "events per unit of exposure",
+    "normal": "units of the endpoint",
+}
+"""The unit of each family's parameter, for axis labels."""
+
+DATA_MODEL = {
+    "binary": "Each subject's outcome is a response or not, with the arm's true response "
+              "rate, independently of every other subject (binomial model).",
+    "count": "Each subject's number of events follows a Poisson distribution with mean equal "
+             "to the arm's true rate times the subject's exposure, independently of other "
+             "subjects (unless the design states a negative binomial model).",
+    "normal": "Each subject's outcome is normally distributed around the arm's true mean, "
+              "independently of other subjects, with the standard deviation stated in the "
+              "design.",
+}
+"""The data model behind each endpoint family, in one sentence."""
+
+BETTER = {"higher": ">", "lower": "<"}
+WORSE = {"higher": "≤", "lower": "≥"}
+
+
+def parameter(design: Design) -> str:
+    """Plain name of the per-arm parameter (for example 'rate')."""
+    return str(getattr(design.family, "parameter", "parameter"))
+
+
+def unit(design: Design) -> str:
+    """The parameter's unit."""
+    return str(getattr(design.family, "unit", None) or UNITS.get(design.family.name,
+                                                                   "parameter units"))
+
+
+def _effect_expression(design: Design) -> str:
+    p = parameter(design)
+    h = design.hypothesis
+    if h.comparison not in (None, "difference"):
+        return f"{h.comparison} of {p}s (treatment vs control)"
+    if h.better == "higher":
+        return f"{p}_T − {p}_C"
+    return f"{p}_C − {p}_T"
+
+
+def benefit_definition(design: Design) -> str:
+    """B, the posterior probability of benefit the rule compares with its thresholds."""
+    h = design.hypothesis
+    if not design.two_arm:
+        return f"Pr({parameter(design)} {BETTER[h.better]} {truth(h.benchmark)} | data)"
+    if h.comparison not in (None, "difference"):
+        return (f"Pr(treatment better than control beyond the {h.kind} margin "
+                f"{truth(h.margin)} on the {h.comparison} scale | data)")
+    return f"Pr({_effect_expression(design)} > {truth(h.shift)} | data)"
+
+
+def hypotheses(design: Design) -> tuple[str, str]:
+    """The null and alternative hypotheses as text."""
+    h = design.hypothesis
+    if not design.two_arm:
+        p = parameter(design)
+        return (f"{p} {WORSE[h.better]} {truth(h.benchmark)}",
+                f"{p} {BETTER[h.better]} {truth(h.benchmark)}")
+    effect = _effect_expression(design)
+    if h.comparison not in (None, "difference"):
+        return (f"no benefit beyond the {h.kind} margin {truth(h.margin)} ({effect})",
+                f"benefit beyond the {h.kind} margin {truth(h.margin)} ({effect})")
+    return f"{effect} ≤ {truth(h.shift)}", f"{effect} > {truth(h.shift)}"
+
+
+def claim(design: Design) -> str:
+    """What a success claims, in words."""
+    h = design.hypothesis
+    if not design.two_arm:
+        side = "above" if h.better == "higher" else "below"
+        return f"the treatment's true {parameter(design)} is {side} {truth(h.benchmark)}"
+    if h.kind == "non-inferiority":
+        return (f"the treatment is not worse than control by the margin {truth(h.margin)} or "
+                "more (non-inferiority)")
+    extra = f" by more than {truth(h.margin)}" if h.margin else ""
+    return f"the treatment is better than control{extra} (superiority)"
+
+
+def _threshold(value: float | None) -> str:
+    return "–" if value is None else truth(value)
+
+
+def look_rules(design: Design) -> list[dict[str, Any]]:
+    """The decision rule at each look, as table cells."""
+    looks = design.looks
+    rows = []
+    last = looks.count - 1
+    for k in range(looks.count):
+        row: dict[str, Any] = {
+            "look": k + 1,
+            "n": looks.n[k],
+            "per_arm": " / ".join(str(v) for v in looks.per_arm[k]),
+            "information": looks.information[k],
+        }
+        if looks.uses_counts:
+            e, f = looks.efficacy_count[k], looks.futility_count[k]
+            ge, le = ("≥", "≤") if design.hypothesis.better == "higher" else ("≤", "≥")
+            row["efficacy"] = "–" if e is None else f"responses {ge} {e}"
+            row["futility"] = "–" if f is None else f"responses {le} {f}"
+            row["futility_predictive"] = "–"
+        else:
+            row["efficacy"] = _threshold(looks.efficacy[k])
+            row["futility"] = _threshold(looks.futility[k])
+            row["futility_predictive"] = _threshold(looks.futility_predictive[k])
+        row["kind"] = "final analysis" if k == last else "interim"
+        rows.append(row)
+    return rows
+
+
+def rule_sentences(design: Design) -> list[str]:
+    """The decision rule in sentences."""
+    b = "B"
+    looks = design.looks
+    if looks.uses_counts:
+        ge = "at least" if design.hypothesis.better == "higher" else "at most"
+        text = [f"The rule is stated in counts: at each look the study stops for efficacy "
+                f"when the responses reach the efficacy count ({ge} it) and for futility "
+                "when they are on the other side of the futility count."]
+        text.append("At the final look, reaching the efficacy count is success; anything "
+                    "else is failure.")
+        return text
+    text = [f"At each look, with {b} the posterior probability above: stop and declare "
+            f"success if {b} ≥ the look's efficacy threshold (checked first); otherwise "
+            f"stop for futility if {b} < the futility threshold"]
+    if any(v is not None for v in looks.futility_predictive):
+        text[0] += (", or if the predictive probability of success at the final analysis "
+                    "(given the data so far) is below the predictive futility threshold")
+    text[0] += "."
+    text.append(f"At the final look, success if {b} ≥ the final efficacy threshold "
+                f"({_threshold(looks.efficacy[-1])}); otherwise failure. Futility stopping "
+                "is taken as binding: every number assumes the study stops when a futility "
+                "boundary is crossed.")
+    for key, spec in looks.specs:
+        if spec.form not in ("constant", "list"):
+            name = key.replace("_", " ")
+            text.append(f"The {name} threshold is the function {spec.form} of the "
+                        f"information fraction t = n / N, with lambda = {truth(spec.lam)} and "
+                        f"eta = {truth(spec.eta)} (the shape used by Zhou, Lee & Yuan 2017).")
+    return text
+
+
+def arm_rows(design: Design) -> list[dict[str, str]]:
+    """Per arm: allocation, analysis prior, its effective sample size, design prior."""
+    total = sum(a.allocation for a in design.arms)
+    rows = []
+    for arm in design.arms:
+        prior = arm.prior
+        ess = getattr(prior, "effective_sample_size", None)
+        rows.append({
+            "arm": arm.name,
+            "allocation": f"{arm.allocation:g} ({arm.allocation / total:.0%})",
+            "prior": _describe(prior) if prior is not None else "none (rule stated in counts)",
+            "ess": "–" if ess is None else f"{ess:.3g}",
+            "design_prior": _describe(arm.design_prior) if arm.design_prior is not None
+            else "not stated",
+        })
+    return rows
+
+
+def _describe(prior: Any) -> str:
+    describe = getattr(prior, "describe", None)
+    return describe() if callable(describe) else str(prior)
+
+
+ESS_NOTE = {
+    "binary": "Effective sample size of a beta prior: a + b, in subjects; of a mixture, the "
+              "weight-averaged a + b (common practice; Morita, Thall & Müller 2008 give a "
+              "general definition).",
+}
+
+
+def ess_note(design: Design) -> str:
+    """How the effective sample sizes were computed."""
+    return ESS_NOTE.get(design.family.name, "Effective sample size as computed by the "
+                        "endpoint family (see docs/methods.md).")
+
+
+def sample_size_range(design: Design, boundaries: pd.DataFrame | None) -> tuple[int, int]:
+    """Smallest and largest total sample size at which a study can end.
+
+    The smallest is the first look at which the boundary table can be reached (a count
+    exists that stops the study); without a boundary table, the first look with a
+    threshold.
+    """
+    looks = design.looks
+    for k in range(looks.count - 1):
+        if boundaries is not None and {"look", "efficacy_bound", "futility_bound"} <= set(
+                boundaries.columns):
+            at = boundaries[boundaries["look"] == k + 1]
+            if at["efficacy_bound"].notna().any() or at["futility_bound"].notna().any():
+                return looks.n[k], looks.n[-1]
+            continue
+        stops = (looks.efficacy[k], looks.futility[k], looks.futility_predictive[k])
+        counts = (looks.efficacy_count[k], looks.futility_count[k]) if looks.uses_counts else ()
+        if any(v is not None for v in (*stops, *counts)):
+            return looks.n[k], looks.n[-1]
+    return looks.n[-1], looks.n[-1]
+
+
+BORROWING_KEYS = ("historical", "power_prior", "borrow")
+
+
+def borrowing(design: Design) -> str:
+    """Whether the design borrows information from outside the study."""
+    try:
+        data = tomllib.loads(design.source.text) if design.source.text else {}
+    except tomllib.TOMLDecodeError:
+        data = {}
+    found = sorted(_keys_like(data, BORROWING_KEYS))
+    if not found:
+        return "none: the analysis priors use no historical data"
+    return ("historical information enters through " + ", ".join(found)
+            + " (see the priors above and the design file in the reproducibility section)")
+
+
+def _keys_like(node: Any, words: tuple[str, ...], path: str = "") -> set[str]:
+    found: set[str] = set()
+    if isinstance(node, dict):
+        for key, value in node.items():
+            where = f"{path}.{key}" if path else str(key)
+            if any(w in str(key).lower() for w in words):
+                found.add(where)
+            found |= _keys_like(value, words, where)
+    elif isinstance(node, list):
+        for item in node:
+            found |= _keys_like(item, words, path)
+    return found
+
+
+def null_boundary_covered(design: Design, oc: pd.DataFrame) -> bool | None:
+    """Whether the grid holds a scenario on the null boundary (None: no null scenario).
+
+    The maximum type I error of a monotone rule is reached on the boundary; when the
+    grid misses it, the reported maximum understates the true one.
+    """
+    null = oc[oc["is_null"]]
+    if null.empty:
+        return None
+    truths = null[[f"true_{arm}" for arm in design.arm_names]].to_numpy(float)
+    effects = [design.family.effect(design.hypothesis, tuple(t)) for t in truths]
+    return bool(min(abs(e) for e in effects) <= 1e-9)
+
+
+def type1_sentence(data: Any) -> str:
+    """The maximum type I error, where it is reached, and against alpha when given."""
+    t1 = data.type1
+    if t1 is None:
+        return ("No scenario in the grid lies in the null region, so the type I error is "
+                "not assessed by this report.")
+    at = ", ".join(f"{parameter(data.design)}_{arm[0].upper()} = {truth(v)}"
+                   if arm in data.design.arm_names else f"{arm} = {truth(v)}"
+                   for arm, v in t1["at"].items())
+    se = f" (Monte Carlo standard error {probability(t1['se'])})" if t1.get("se") else ""
+    text = (f"Maximum type I error over the {t1['null_scenarios']} null scenarios of the "
+            f"grid: {probability(t1['max_type1_error'])}{se}, at scenario {t1['scenario']} "
+            f"({at}).")
+    if data.alpha is not None:
+        verdict = "at or below" if t1["max_type1_error"] <= data.alpha else "above"
+        text += f" This is {verdict} the stated level alpha = {truth(data.alpha)}."
+    return text
+
+
+def assumptions(data: Any) -> list[str]:
+    """Every assumption the report's numbers depend on."""
+    design = data.design
+    model = getattr(design.family, "assumptions", None)
+    items = list(model) if model else [DATA_MODEL.get(
+        design.family.name, "The data model of the endpoint stated in the design file.")]
+    per_arm = ", ".join(" / ".join(str(v) for v in n) for n in design.looks.per_arm)
+    items += [
+        "The true parameter values are those of each scenario and do not change during the "
+        "study (no drift over time, no difference between centres or subgroups).",
+        "Every subject's outcome is known at the look that counts the subject: no delayed "
+        "outcomes, no drop-out, no missing data.",
+        f"Looks happen at exactly the planned cumulative sample sizes ({per_arm} per arm, "
+        "treatment first); the allocation is met exactly at every look.",
+        "The decision rule is applied exactly as stated, efficacy before futility, and "
+        "futility stopping is binding.",
+        "The analysis priors are as stated in the design summary; results for other priors "
+        "may differ.",
+        "The type I error is evaluated at the null scenarios of the grid only; the composite "
+        "null region between grid points is not searched here.",
+    ]
+    covered = null_boundary_covered(design, data.oc)
+    if covered is False:
+        items.append("The grid has no scenario on the null boundary; for a monotone rule the "
+                     "largest type I error is reached there, so the maximum reported here "
+                     "may understate it.")
+    engines = set(data.oc["method"])
+    if "monte-carlo" in engines:
+        seed = data.record.get("seed")
+        items.append("Monte Carlo results depend on the pseudo-random streams derived from "
+                     f"the seed ({seed}); other seeds give results within the stated "
+                     "standard errors.")
+    if "exact" in engines:
+        items.append("Exact results are exact up to the numerical tolerances stated in the "
+                     "precision section.")
+    return items
