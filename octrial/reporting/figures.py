@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from matplotlib import cycler
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure as MplFigure
@@ -35,6 +36,7 @@ STYLE = {
     "xtick.labelsize": 8, "ytick.labelsize": 8, "axes.spines.top": False,
     "axes.spines.right": False, "axes.grid": True, "grid.color": "0.88",
     "grid.linewidth": 0.6, "svg.hashsalt": "octrial", "font.family": "DejaVu Sans",
+    "axes.prop_cycle": cycler(color=["0.05", "0.35", "0.15", "0.45", "0.25", "0.5"]),
 }
 LINES = [("-", "o", "0.05"), ("--", "s", "0.35"), ("-.", "^", "0.15"), (":", "D", "0.45"),
          ((0, (5, 1, 1, 1, 1, 1)), "v", "0.25"), ((0, (1, 2)), "P", "0.5")]
@@ -298,7 +300,7 @@ def expected_sample_size(data: Any, facts: PlotFacts) -> Figure:
                     linewidth=1.3, label=label or "E[N]")
             if (part["replicates"] > 0).any():
                 ax.errorbar(x, y, yerr=1.96 * part["expected_n_se"].to_numpy(float),
-                            fmt="none", ecolor=grey, elinewidth=0.8, capsize=2)
+                            fmt="none", color=grey, ecolor=grey, elinewidth=0.8, capsize=2)
         for k, n in enumerate(facts.looks):
             ax.axhline(n, color="0.55", linewidth=0.7, linestyle=(0, (2, 2)))
             ax.annotate(f"look {k + 1}: n = {n}", (1.0, n), xycoords=("axes fraction", "data"),

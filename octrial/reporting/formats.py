@@ -59,6 +59,11 @@ def truth(value: float | None) -> str:
     return "0" if text == "-0" else text
 
 
+def fraction(value: float | None) -> str:
+    """A fraction such as the information fraction: three significant digits."""
+    return MISSING if _missing(value) else f"{float(value):.3g}"
+
+
 def number(value: object) -> str:
     """Any value of a table whose meaning the report does not know (calibration, checks)."""
     if _missing(value):
@@ -80,7 +85,7 @@ def parse(text: str) -> float:
 
 
 FORMATS = {"probability": probability, "size": size, "count": count, "truth": truth,
-           "number": number}
+           "fraction": fraction, "number": number}
 """Formatter by column kind."""
 
 TOLERANCE = {"probability": _SMALLEST, "size": 0.5 * 10.0**-SIZE_DECIMALS, "count": 0.0}

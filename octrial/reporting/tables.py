@@ -20,7 +20,7 @@ import pandas as pd
 from octrial.reporting import wording
 from octrial.reporting.formats import FORMATS, number
 
-NUMERIC_KINDS = ("probability", "size", "count", "truth", "number")
+NUMERIC_KINDS = ("probability", "size", "count", "truth", "fraction", "number")
 
 
 @dataclass(frozen=True)
@@ -152,7 +152,7 @@ def looks_table(data: Any) -> Table:
         heads = ("efficacy: B ≥", "futility: B <", "futility: predictive <")
     columns = [Column("look", "look", "count"), Column("kind", "analysis"),
                Column("n", "total n", "count"), Column("per_arm", f"n per arm ({per_arm})"),
-               Column("information", "information fraction", "truth"),
+               Column("information", "information fraction", "fraction"),
                Column("efficacy", heads[0]), Column("futility", heads[1])]
     rules = wording.look_rules(design)
     if not design.looks.uses_counts and any(r["futility_predictive"] != "–" for r in rules):
