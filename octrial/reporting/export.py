@@ -50,7 +50,8 @@ def to_markdown(table: Table) -> str:
              "| " + " | ".join(align) + " |"]
     for row in table.rows:
         lines.append("| " + " | ".join(_md_escape(c.text) for c in row.cells) + " |")
-    lines += ["", *(f"{note}" for note in table.notes)]
+    for note in table.notes:
+        lines += ["", note]
     return "\n".join(lines).rstrip() + "\n"
 
 

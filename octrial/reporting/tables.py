@@ -197,13 +197,13 @@ def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table
     last = int(frame["look"].max())
     columns = [Column("look", "look", "count"), Column("n", "n", "count"),
                Column("efficacy_rule", f"efficacy: {statistic}"),
-               Column("posterior_at_efficacy_bound", "B at bound", "probability"),
+               Column("posterior_at_efficacy_bound", "B at efficacy bound", "probability"),
                Column("futility_rule", f"futility: {statistic}"),
-               Column("posterior_at_futility_bound", "B at bound", "probability")]
+               Column("posterior_at_futility_bound", "B at futility bound", "probability")]
     if "predictive_at_futility_bound" in frame and frame[
             "predictive_at_futility_bound"].notna().any():
-        columns.append(Column("predictive_at_futility_bound", "predictive probability at bound",
-                              "probability"))
+        columns.append(Column("predictive_at_futility_bound",
+                              "predictive probability at futility bound", "probability"))
     rows = []
     for _, r in frame.iterrows():
         values = [_rule(r[c.key]) if c.key.endswith("_rule") else r[c.key] for c in columns]
