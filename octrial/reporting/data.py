@@ -2,10 +2,10 @@
 
 A report is rendered from one :class:`ReportData`: the design, the operating
 characteristics (``oc.csv``), the boundary table, the run record (``run.json``) and,
-when present in a run folder, the calibration table (``calibration.csv``) and the
-workflow checks (``checks.json``). Given a design file, the design is evaluated when the
-report is made; given a run folder, the files are read back as written, so the report
-shows exactly the numbers in ``oc.csv``.
+when present in a run folder, the calibration files (``calibration.csv``, ``sizing.csv``,
+``calibration.json``) and the workflow checks (``checks.json``). Given a design file,
+the design is evaluated when the report is made; given a run folder, the files are read
+back as written, so the report shows exactly the numbers in ``oc.csv``.
 """
 
 from __future__ import annotations
@@ -28,7 +28,8 @@ from octrial.provenance import now, run_record
 RUN_FILES = ("oc.csv", "run.json")
 """Files a run folder must hold."""
 
-OPTIONAL_FILES = ("boundaries.csv", "calibration.csv", "checks.json")
+OPTIONAL_FILES = ("boundaries.csv", "calibration.csv", "sizing.csv", "calibration.json",
+                  "checks.json")
 """Files a run folder may hold; each adds to the report when present."""
 
 OC_REQUIRED = ("scenario", "is_null", "prob_success", "prob_success_se", "prob_stop_efficacy",
@@ -53,12 +54,17 @@ class ReportData:
         Where the numbers come from, in words (a run folder, or a design evaluated for
         the report).
     calibration : DataFrame or None
-        ``calibration.csv`` when the run folder holds one.
+        ``calibration.csv`` (every candidate a calibration examined), when present.
+    sizing : DataFrame or None
+        ``sizing.csv`` (one row per maximum sample size searched), when present.
+    calibration_record : dict or None
+        ``calibration.json`` (the calibration's summary and request), when present.
     checks : dict or None
         ``checks.json`` when the run folder holds one.
     alpha : float or None
         The one-sided type I error level the design is meant to keep (for the figures'
-        alpha line and the verdict on the maximum type I error).
+        alpha line and the verdict on the maximum type I error); taken from the
+        calibration's request when not given.
     """
 
     design: Design
@@ -67,6 +73,8 @@ class ReportData:
     record: dict[str, Any]
     origin: str
     calibration: pd.DataFrame | None = None
+    sizing: pd.DataFrame | None = None
+    calibration_record: dict[str, Any] | None = None
     checks: dict[str, Any] | None = None
     alpha: float | None = None
 
@@ -127,10 +135,23 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
         for column in ("efficacy_bound", "futility_bound"):
             if column in boundaries:
                 boundaries[column] = boundaries[column].astype("Int64")
-    checks = _read_json(folder / "checks.json") if (folder / "checks.json").is_file() else None
+    calibrated = _optional_json(folder / "calibration.json")
+    if alpha is None and calibrated is not None:
+        alpha = _stated_alpha(calibrated)
     return ReportData(design, oc, boundaries, record, f"run folder {folder}",
-                      calibration=_optional_table(folder / "calibration.csv"), checks=checks,
-                      alpha=alpha)
+                      calibration=_optional_table(folder / "calibration.csv"),
+                      sizing=_optional_table(folder / "sizing.csv"),
+                      calibration_record=calibrated,
+                      checks=_optional_json(folder / "checks.json"), alpha=alpha)
+
+
+def _stated_alpha(record: dict[str, Any]) -> float | None:
+    """The type I error level a calibration was asked to meet, if it says."""
+    for holder in (record.get("request") or {}, record):
+        value = holder.get("alpha") if isinstance(holder, dict) else None
+        if isinstance(value, (int, float)) and 0 < value < 1:
+            return float(value)
+    return None
 
 
 def read_table(path: Path) -> pd.DataFrame:
@@ -143,6 +164,10 @@ def read_table(path: Path) -> pd.DataFrame:
 
 def _optional_table(path: Path) -> pd.DataFrame | None:
     return read_table(path) if path.is_file() else None
+
+
+def _optional_json(path: Path) -> dict[str, Any] | None:
+    return _read_json(path) if path.is_file() else None
 
 
 def _read_json(path: Path) -> dict[str, Any]:

@@ -102,10 +102,15 @@ def plot_facts(data: Any) -> PlotFacts:
     if h.comparison in (None, "difference"):
         label = f"true difference in {p}, treatment − control ({u})"
         null_at = h.shift if h.better == "higher" else -h.shift
-    else:
-        label = f"true {h.comparison} of {p}s, treatment vs control"
-        null_at = None
-    return PlotFacts("true_effect", label, "true_control", f"control {p}", null_at, **common)
+        return PlotFacts("true_effect", label, "true_control", f"control {p}", null_at,
+                         **common)
+    # Ratio scales: oc.csv carries the measure as true_ratio or true_odds_ratio.
+    column = "true_" + h.comparison.replace("-", "_")
+    null_at = float(getattr(h, "threshold", 1.0 + h.sign * h.shift))
+    if column not in data.oc.columns:
+        column, null_at = "true_effect", None
+    label = f"true {h.comparison.replace('-', ' ')} of {p}s, treatment to control"
+    return PlotFacts(column, label, "true_control", f"control {p}", null_at, **common)
 
 
 def _x(oc: pd.DataFrame, facts: PlotFacts) -> pd.DataFrame:
@@ -331,20 +336,26 @@ def _first(frame: pd.DataFrame, names: tuple[str, ...]) -> str | None:
 def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
     """Type I error and power against the maximum sample size, when calibration sized N.
 
-    Reads ``calibration.csv`` columns named in :data:`SIZE_COLUMNS`, :data:`ERROR_COLUMNS`
-    and :data:`POWER_COLUMNS`; ``None`` when the calibration did not vary N.
+    Reads ``sizing.csv`` (one row per N) or else ``calibration.csv``, columns named in
+    :data:`SIZE_COLUMNS`, :data:`ERROR_COLUMNS` and :data:`POWER_COLUMNS`; ``None`` when
+    the calibration did not vary N. With several candidates per N in calibration.csv the
+    chosen one (column ``chosen``) or else the first is drawn.
     """
     import matplotlib
 
-    frame = data.calibration
+    frame = getattr(data, "sizing", None)
+    if frame is None:
+        frame = data.calibration
     if frame is None:
         return None
     n_col, e_col, p_col = (_first(frame, names) for names in (SIZE_COLUMNS, ERROR_COLUMNS,
                                                                POWER_COLUMNS))
     if n_col is None or (e_col is None and p_col is None) or frame[n_col].nunique() < 2:
         return None
-    curve = frame.groupby(n_col, sort=True).agg(
-        {c: "min" for c in (e_col, p_col) if c is not None}).reset_index()
+    if "chosen" in frame.columns and frame.duplicated(n_col).any():
+        frame = frame.sort_values("chosen", ascending=False, kind="stable")
+    curve = frame.dropna(subset=[c for c in (e_col, p_col) if c]).drop_duplicates(
+        n_col).sort_values(n_col)
     fig, axes = _new(3.2, 2 if e_col and p_col else 1, 1)
     with matplotlib.rc_context(STYLE):
         panels = [(c, name) for c, name in ((e_col, "type I error"), (p_col, "power")) if c]

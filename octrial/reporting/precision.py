@@ -41,6 +41,9 @@ def statement(data: Any) -> list[str]:
         text += _exact(record, int(exact.sum()), len(oc))
     if (~exact).any():
         text += _monte_carlo(data, oc[~exact])
+    warnings = record.get("warnings")
+    if warnings:
+        text.append("Numerical warnings of the run: " + " ".join(str(w) for w in warnings))
     return text
 
 
@@ -60,8 +63,9 @@ def _exact(record: dict[str, Any], rows: int, total: int) -> list[str]:
     if neglected is not None:
         facts.append("the probability mass neglected by truncating an unbounded outcome is "
                      f"at most {neglected:.2g}")
-    facts.append(f"a posterior probability within {DECISION_TOLERANCE:g} of a threshold counts "
-                 "as reaching it")
+    tolerance = record.get("decision_tolerance", DECISION_TOLERANCE)
+    facts.append(f"a posterior probability within {tolerance:g} of a threshold counts as "
+                 "reaching it")
     text.append("Numerical tolerances: " + "; ".join(facts) + ".")
     return text
 

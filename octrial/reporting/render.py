@@ -132,6 +132,7 @@ def _design(data: Any) -> dict[str, Any]:
         f"{probability(claim)} (Pr(H1) under the analysis priors alone)",
         "sample_size": f"minimum {low}, maximum {high} subjects (total over arms)",
         "borrowing": wording.borrowing(design),
+        "effect_prior": wording.effect_prior(design),
         "scenarios": scenarios,
         "rules": wording.rule_sentences(design),
     }

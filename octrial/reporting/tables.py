@@ -237,22 +237,27 @@ def _two_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str,
 
 
 # -- operating characteristics -----------------------------------------------------------
-KNOWN_OC = re.compile(r"scenario|true_.+|is_null|prob_(success|stop_efficacy|stop_futility)"
-                      r"(_se)?|expected_n(_se)?|sd_n|look\d+_stop_(efficacy|futility)|method|"
-                      r"replicates")
+KNOWN_OC = re.compile(r"scenario|true_.+|drift_.+|is_null|"
+                      r"prob_(success|stop_efficacy|stop_futility)(_se)?|expected_n(_se)?|sd_n|"
+                      r"look\d+_stop_(efficacy|futility)|method|replicates")
 
 
 def truth_columns(data: Any) -> list[Column]:
-    """The true-value columns of ``oc.csv``, arms first, then the effect."""
+    """The columns that say where a scenario is: true values (control first, then
+    treatment, then effect measures) and, for borrowing designs, the drift of each arm's
+    truth from the historical estimate."""
     design = data.design
     names = [f"true_{arm}" for arm in design.arm_names]
     if design.two_arm:
         names = names[::-1]
     names += [c for c in data.oc.columns if c.startswith("true_") and c not in names]
     group = f"true {wording.parameter(data.design)}"
-    comparison = data.design.hypothesis.comparison or "difference"
-    return [Column(c, comparison if c == "true_effect" else c.removeprefix("true_"), "truth",
-                   group) for c in names]
+    columns = [Column(c, "difference" if c == "true_effect" else
+                      c.removeprefix("true_").replace("_", " "), "truth", group)
+               for c in names]
+    columns += [Column(c, c.removeprefix("drift_"), "truth", "drift from historical")
+                for c in data.oc.columns if c.startswith("drift_")]
+    return columns
 
 
 def simulated(data: Any) -> bool:
@@ -356,23 +361,94 @@ def _is_missing(value: Any) -> bool:
         return False
 
 
-def calibration_table(data: Any) -> Table | None:
-    """``calibration.csv``: all rows when short, else the chosen rows."""
-    frame = data.calibration
-    if frame is None:
+def _truthy(column: pd.Series) -> pd.Series:
+    return column.astype(str).str.lower().isin(("true", "1", "yes"))
+
+
+def _marked_rows(frame: pd.DataFrame, source: str, what: str) -> tuple[pd.DataFrame,
+                                                                    list[str]]:
+    """All rows when few, else those marked chosen (or smallest passing, stable from)."""
+    if len(frame) <= MAX_SHOWN_ROWS:
+        return frame, []
+    marks = [c for c in (*CHOSEN, "smallest_passing", "stable_from") if c in frame.columns]
+    if marks:
+        keep = np.zeros(len(frame), dtype=bool)
+        for column in marks:
+            keep |= _truthy(frame[column]).to_numpy()
+        shown = frame[keep]
+        note = (f"Shown: the {len(shown)} marked ({', '.join(marks)}) of {len(frame)} "
+                f"{what}.")
+    else:
+        shown = frame.head(MAX_SHOWN_ROWS)
+        note = f"Shown: the first {MAX_SHOWN_ROWS} of {len(frame)} {what}."
+    return shown, [note, f"Every row is in {source}."]
+
+
+PROVENANCE_KEYS = ("octrial_version", "design", "command", "started", "finished", "files",
+                   "environment", "caution")
+"""Keys of calibration.json shown in the reproducibility section, not the summary."""
+
+
+def calibration_tables(data: Any) -> list[Table]:
+    """The calibration's summary, its sample-size curve and the candidates it examined."""
+    tables = []
+    record = data.calibration_record
+    if record is not None:
+        summary = {k: v for k, v in record.items() if k not in PROVENANCE_KEYS}
+        tables.append(_pairs_table("calibration-summary", "Calibration: request and result",
+                                   list(_flatten(summary).items())))
+    if data.sizing is not None:
+        shown, notes = _marked_rows(data.sizing, "sizing.csv", "sample sizes")
+        tables.append(frame_table("sizing", "Calibration: the maximum sample size searched",
+                                  shown, notes))
+    if data.calibration is not None:
+        shown, notes = _marked_rows(data.calibration, "calibration.csv",
+                                    "candidates examined")
+        tables.append(frame_table("calibration", "Calibration: candidates examined", shown,
+                                  notes))
+    return tables
+
+
+def _pairs_table(name: str, caption: str, pairs: list[tuple[str, Any]]) -> Table:
+    columns = (Column("item", "item"), Column("value", "value", "number"))
+    rows = tuple(Row((Cell(str(k)), _any_cell(v))) for k, v in pairs)
+    return Table(name, caption, columns, rows)
+
+
+def prior_size_table(data: Any) -> Table | None:
+    """The priors' effective sample sizes as run.json records them, when it does."""
+    sizes = data.record.get("prior_effective_sample_size")
+    if not isinstance(sizes, dict) or not sizes:
         return None
-    notes = []
-    shown = frame
-    if len(frame) > MAX_SHOWN_ROWS:
-        chosen = next((c for c in CHOSEN if c in frame.columns), None)
-        if chosen is not None:
-            shown = frame[frame[chosen].astype(str).str.lower().isin(("true", "1", "yes"))]
-            notes.append(f"Shown: the {len(shown)} chosen of {len(frame)} candidates examined.")
-        else:
-            shown = frame.head(MAX_SHOWN_ROWS)
-            notes.append(f"Shown: the first {MAX_SHOWN_ROWS} of {len(frame)} candidates.")
-        notes.append("Every candidate is in calibration.csv.")
-    return frame_table("calibration", "Calibration: candidates examined", shown, notes)
+    columns = (Column("for", "for"), Column("prior", "prior"),
+               Column("simple", "simple ESS", "number"), Column("formula", "formula"),
+               Column("fda", "ESS, n V1 / V2 - n", "number"), Column("n", "at n", "number"),
+               Column("borrowing", "borrowing"))
+    rows = []
+    for label, entry in sizes.items():
+        entry = entry if isinstance(entry, dict) else {"prior": entry}
+        fda = entry.get("fda") or {}
+        rows.append(_row([label, entry.get("prior", ""), entry.get("simple"),
+                          entry.get("simple_formula") or "", fda.get("ess"), fda.get("n"),
+                          _borrowing_text(entry.get("borrowing"))], columns))
+    notes = ("Simple ESS: the prior's own count of subjects (formula shown). n V1 / V2 - n: "
+             "the FDA (2010) device guidance definition, with V1 the posterior variance "
+             "under a non-informative prior and V2 under this prior, for data at the prior "
+             "mean; it counts the subjects the prior adds to n.",)
+    return Table("prior-sample-size", "Effective sample size of the analysis priors",
+                 columns, tuple(rows), notes)
+
+
+def _borrowing_text(borrowing: Any) -> str:
+    if not isinstance(borrowing, dict):
+        return "none"
+    parts = [str(borrowing.get("method", "borrowing"))]
+    for key, label in (("a0", "a0"), ("vague_weight", "vague weight"),
+                       ("historical_estimate", "historical estimate"),
+                       ("historical_size", "historical size")):
+        if borrowing.get(key) is not None:
+            parts.append(f"{label} {number(borrowing[key])}")
+    return ", ".join(parts)
 
 
 def checks_tables(data: Any) -> list[Table]:
@@ -388,9 +464,7 @@ def checks_tables(data: Any) -> list[Table]:
         else:
             pairs += list(_flatten({key: value}).items())
     if pairs:
-        columns = (Column("item", "item"), Column("value", "value", "number"))
-        rows = tuple(Row((Cell(str(k)), _any_cell(v))) for k, v in pairs)
-        tables.insert(0, Table("checks-summary", "Workflow checks: results", columns, rows))
+        tables.insert(0, _pairs_table("checks-summary", "Workflow checks: results", pairs))
     return tables
 
 
@@ -423,6 +497,7 @@ class Tables:
     """Every table of one report, by section."""
 
     design: list[Table] = field(default_factory=list)
+    rule: list[Table] = field(default_factory=list)
     boundaries: list[Table] = field(default_factory=list)
     oc: list[Table] = field(default_factory=list)
     calibration: list[Table] = field(default_factory=list)
@@ -430,7 +505,8 @@ class Tables:
 
     def all(self) -> list[Table]:
         """All tables in report order."""
-        return [*self.design, *self.boundaries, *self.oc, *self.calibration, *self.checks]
+        return [*self.design, *self.rule, *self.boundaries, *self.oc, *self.calibration,
+                *self.checks]
 
 
 def build_tables(data: Any) -> Tables:
@@ -439,8 +515,10 @@ def build_tables(data: Any) -> Tables:
     extra = oc_extra_table(data)
     if extra is not None:
         oc.append(extra)
-    calibration = calibration_table(data)
-    return Tables(design=[arms_table(data), looks_table(data)],
-                  boundaries=boundary_tables(data), oc=oc,
-                  calibration=[calibration] if calibration is not None else [],
-                  checks=checks_tables(data))
+    design = [arms_table(data)]
+    sizes = prior_size_table(data)
+    if sizes is not None:
+        design.append(sizes)
+    return Tables(design=design, rule=[looks_table(data)], boundaries=boundary_tables(data),
+                  oc=oc,
+                  calibration=calibration_tables(data), checks=checks_tables(data))

@@ -50,14 +50,34 @@ def unit(design: Design) -> str:
                                                                    "parameter units"))
 
 
-def _effect_expression(design: Design) -> str:
+def _is_difference(design: Design) -> bool:
+    return design.hypothesis.comparison in (None, "difference")
+
+
+def _measure(design: Design) -> str:
+    """The two-arm effect measure, written in the better direction for differences."""
     p = parameter(design)
     h = design.hypothesis
-    if h.comparison not in (None, "difference"):
-        return f"{h.comparison} of {p}s (treatment vs control)"
-    if h.better == "higher":
-        return f"{p}_T − {p}_C"
-    return f"{p}_C − {p}_T"
+    if h.comparison == "ratio":
+        return f"{p}_T / {p}_C"
+    if h.comparison == "odds-ratio":
+        return f"odds ratio of {p}_T to {p}_C"
+    if not _is_difference(design):
+        return f"{h.comparison} of {p}_T to {p}_C"
+    return f"{p}_T − {p}_C" if h.better == "higher" else f"{p}_C − {p}_T"
+
+
+def _claim_threshold(design: Design) -> float:
+    """The value of the measure a success must pass (differences: in the better
+    direction; ratios: 1 + sign x shift)."""
+    h = design.hypothesis
+    if _is_difference(design):
+        return h.shift
+    return float(getattr(h, "threshold", 1.0 + h.sign * h.shift))
+
+
+def _claim_direction(design: Design) -> str:
+    return "higher" if _is_difference(design) else design.hypothesis.better
 
 
 def benefit_definition(design: Design) -> str:
@@ -65,10 +85,8 @@ def benefit_definition(design: Design) -> str:
     h = design.hypothesis
     if not design.two_arm:
         return f"Pr({parameter(design)} {BETTER[h.better]} {truth(h.benchmark)} | data)"
-    if h.comparison not in (None, "difference"):
-        return (f"Pr(treatment better than control beyond the {h.kind} margin "
-                f"{truth(h.margin)} on the {h.comparison} scale | data)")
-    return f"Pr({_effect_expression(design)} > {truth(h.shift)} | data)"
+    op = BETTER[_claim_direction(design)]
+    return f"Pr({_measure(design)} {op} {truth(_claim_threshold(design))} | data)"
 
 
 def hypotheses(design: Design) -> tuple[str, str]:
@@ -78,11 +96,9 @@ def hypotheses(design: Design) -> tuple[str, str]:
         p = parameter(design)
         return (f"{p} {WORSE[h.better]} {truth(h.benchmark)}",
                 f"{p} {BETTER[h.better]} {truth(h.benchmark)}")
-    effect = _effect_expression(design)
-    if h.comparison not in (None, "difference"):
-        return (f"no benefit beyond the {h.kind} margin {truth(h.margin)} ({effect})",
-                f"benefit beyond the {h.kind} margin {truth(h.margin)} ({effect})")
-    return f"{effect} ≤ {truth(h.shift)}", f"{effect} > {truth(h.shift)}"
+    measure, side = _measure(design), _claim_direction(design)
+    limit = truth(_claim_threshold(design))
+    return f"{measure} {WORSE[side]} {limit}", f"{measure} {BETTER[side]} {limit}"
 
 
 def claim(design: Design) -> str:
@@ -164,19 +180,34 @@ def rule_sentences(design: Design) -> list[str]:
 def arm_rows(design: Design) -> list[dict[str, str]]:
     """Per arm: allocation, analysis prior, its effective sample size, design prior."""
     total = sum(a.allocation for a in design.arms)
+    on_effect = getattr(design.hypothesis, "prior", None) is not None
     rows = []
     for arm in design.arms:
         prior = arm.prior
         ess = getattr(prior, "effective_sample_size", None)
+        if prior is not None:
+            described = _describe(prior)
+        elif on_effect:
+            described = "none: the prior is on the effect (below)"
+        elif design.looks.uses_counts:
+            described = "none (rule stated in counts)"
+        else:
+            described = "none"
         rows.append({
             "arm": arm.name,
             "allocation": f"{arm.allocation:g} ({arm.allocation / total:.0%})",
-            "prior": _describe(prior) if prior is not None else "none (rule stated in counts)",
-            "ess": "–" if ess is None else f"{ess:.3g}",
+            "prior": described,
+            "ess": f"{ess:.3g}" if isinstance(ess, (int, float)) else "–",
             "design_prior": _describe(arm.design_prior) if arm.design_prior is not None
             else "not stated",
         })
     return rows
+
+
+def effect_prior(design: Design) -> str | None:
+    """The analysis prior on the two-arm effect, for families that put it there."""
+    prior = getattr(design.hypothesis, "prior", None)
+    return None if prior is None else _describe(prior)
 
 
 def _describe(prior: Any) -> str:
