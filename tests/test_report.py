@@ -19,6 +19,7 @@ from octrial.provenance import display_command
 from octrial.reporting import formats, from_run_folder, render_html
 from octrial.reporting.export import latex_escape
 from octrial.reporting.render import SECTIONS
+from octrial.reporting.tables import _generic_boundaries
 from tests.helpers import DESIGNS
 from tests.report_pages import parse, section_ids, table_rows, text
 
@@ -221,12 +222,21 @@ def extended_run(runs, tmp_path: Path) -> Path:
     null = oc[oc["is_null"]]
     worst = null.loc[null["prob_success"].idxmax()]
     record["type1"]["se"] = float(worst["prob_success_se"])
+    record["prior_effective_sample_size"] = {"treatment": {
+        "prior": "Beta(0.4, 1.6)", "simple": 2.0, "simple_formula": "a + b",
+        "fda": {"n": 45, "ess": 1.7}}}
+    record["warnings"] = ["a numerical warning of the run"]
     (folder / "run.json").write_text(json.dumps(record))
     n = np.arange(20, 61)
-    pd.DataFrame({"max_n": n, "threshold": 0.95,
-                  "max_type1_error": 0.05 + 0.01 * np.sin(n), "power": n / 70,
+    pd.DataFrame({"n": n, "type1_error": 0.05 + 0.01 * np.sin(n), "power": n / 70,
                   "passes": n % 3 == 0, "chosen": n == 42}).to_csv(
+        folder / "sizing.csv", index=False)
+    pd.DataFrame({"candidate": [1, 2], "n": [42, 42], "efficacy": ["0.95", "0.96"],
+                  "type1_error": [0.051, 0.044], "chosen": [False, True]}).to_csv(
         folder / "calibration.csv", index=False)
+    (folder / "calibration.json").write_text(json.dumps(
+        {"request": {"alpha": 0.05, "power": 0.8}, "chosen_n": 42, "caution": "c",
+         "environment": {"python": "3"}}))
     checks = {"sbc": [{"quantity": "rate", "p_value": 0.41, "verdict": "pass"}],
               "prior_predictive": {"mean_responses": 9.1, "share_implausible": 0.002},
               "seed": 7}
@@ -236,7 +246,7 @@ def extended_run(runs, tmp_path: Path) -> Path:
 
 def test_optional_inputs_are_rendered_as_written(runs, tmp_path) -> None:
     folder = extended_run(runs, tmp_path)
-    result = invoke("report", str(folder), "--alpha", "0.05", "--quiet")
+    result = invoke("report", str(folder), "--quiet")  # alpha from calibration.json
     assert result.exit_code == 0, result.output
     page = parse(folder / "report.html")
     oc = read_oc(folder)
@@ -247,10 +257,16 @@ def test_optional_inputs_are_rendered_as_written(runs, tmp_path) -> None:
         assert_shown_equals(shown.cells["expected_n_se"], expected["expected_n_se"], "size")
     extra = table_rows(page, "simulation-summaries")
     assert [r.cells["bias"].value for r in extra] == list(oc["bias"])
-    calibration = pd.read_csv(folder / "calibration.csv")
-    shown = table_rows(page, "calibration")
-    assert [r.cells["max_type1_error"].value for r in shown] == list(
-        calibration["max_type1_error"])
+    sizing = pd.read_csv(folder / "sizing.csv")
+    shown = table_rows(page, "sizing")
+    assert [r.cells["type1_error"].value for r in shown] == list(sizing["type1_error"])
+    assert [r.cells["type1_error"].value for r in table_rows(page, "calibration")] == [
+        0.051, 0.044]
+    summary = {r.cells["item"].text: r.cells["value"].text
+               for r in table_rows(page, "calibration-summary")}
+    assert summary == {"request.alpha": "0.0500", "request.power": "0.8000", "chosen_n": "42"}
+    sizes = table_rows(page, "prior-sample-size")
+    assert [sizes[0].cells["simple"].value, sizes[0].cells["fda"].value] == [2.0, 1.7]
     summary = {r.cells["item"].text: r.cells["value"] for r in table_rows(page,
                                                                           "checks-summary")}
     assert summary["prior_predictive.mean_responses"].value == 9.1
@@ -259,21 +275,33 @@ def test_optional_inputs_are_rendered_as_written(runs, tmp_path) -> None:
     precision = text(page.find(".//section[@id='precision']"))
     assert "20,000 replicate studies" in precision
     assert "95% Monte Carlo interval" in precision
+    assert "a numerical warning of the run" in precision
     power = text(page.find(".//figure[@id='figure-power']"))
     assert "Monte Carlo interval" in power
     assert "alpha = 0.05" in text(page.find(".//section[@id='operating-characteristics']"))
 
 
-def test_calibration_with_many_rows_shows_the_chosen_ones(runs, tmp_path) -> None:
+def test_calibration_with_many_rows_shows_the_marked_ones(runs, tmp_path) -> None:
     folder = extended_run(runs, tmp_path)
     n = np.arange(10, 151)
-    pd.DataFrame({"n": n, "power": n / 151, "chosen": n == 77}).to_csv(
-        folder / "calibration.csv", index=False)
+    pd.DataFrame({"n": n, "power": n / 151, "chosen": n == 77,
+                  "smallest_passing": n == 70}).to_csv(folder / "sizing.csv", index=False)
     assert invoke("report", str(folder), "--quiet").exit_code == 0
     page = parse(folder / "report.html")
-    assert [r.cells["n"].value for r in table_rows(page, "calibration")] == [77]
-    exported = pd.read_csv(folder / "report-tables" / "calibration.csv")
-    assert len(exported) == 1
+    assert [r.cells["n"].value for r in table_rows(page, "sizing")] == [70, 77]
+    exported = pd.read_csv(folder / "report-tables" / "sizing.csv")
+    assert list(exported["n"]) == [70, 77]
+
+
+def test_boundaries_of_unknown_shape_are_shown_as_written() -> None:
+    frame = pd.DataFrame({"look": [1, 2], "n": [60, 120],
+                          "bound_on": ["sample mean", "sample mean"],
+                          "efficacy_bound": [7.67, 4.12], "efficacy_rule": [">= 7.67", ">= 4.12"]})
+    table = _generic_boundaries(frame)
+    assert [c.key for c in table.columns] == ["look", "n", "efficacy_bound", "efficacy_rule"]
+    assert table.rows[1].cells[3].text == "≥ 4.12"
+    assert table.rows[0].cells[2].value == 7.67
+    assert table.notes == ("bound on: sample mean",)
 
 
 # -- bad input -------------------------------------------------------------------------

@@ -133,7 +133,9 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
     boundaries = _optional_table(folder / "boundaries.csv")
     if boundaries is not None:
         for column in ("efficacy_bound", "futility_bound"):
-            if column in boundaries:
+            # Counts read back as floats when a look has no bound; sample means stay floats.
+            values = boundaries[column].dropna() if column in boundaries else None
+            if values is not None and (values == values.round()).all():
                 boundaries[column] = boundaries[column].astype("Int64")
     calibrated = _optional_json(folder / "calibration.json")
     if alpha is None and calibrated is not None:

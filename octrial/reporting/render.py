@@ -182,7 +182,6 @@ def render_html(
     context = {
         "title": data.design.title or data.design.name,
         "name": data.design.name,
-        "two_arm": data.design.two_arm,
         "origin": data.origin,
         "paper": PAPERS[paper],
         "made": _made(command),

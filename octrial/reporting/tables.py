@@ -189,8 +189,21 @@ def boundary_tables(data: Any) -> list[Table]:
         return [_one_arm_boundaries(data, frame, statistic)]
     if design.two_arm and two_arm <= set(frame.columns):
         return _two_arm_boundaries(data, frame, statistic, control)
-    return [frame_table("boundaries", "Decision boundaries (as written in boundaries.csv)",
-                        frame)]
+    return [_generic_boundaries(frame)]
+
+
+def _generic_boundaries(frame: pd.DataFrame) -> Table:
+    """Boundaries of a shape the report does not know (for example sample means and z
+    values): every column as written, rules with their symbols, and columns that hold one
+    text for every look stated once under the table."""
+    constant = [c for c in frame.columns if not pd.api.types.is_numeric_dtype(frame[c])
+                and frame[c].nunique(dropna=False) == 1 and len(frame) > 1]
+    shown = frame.drop(columns=constant)
+    for column in shown.columns:
+        if column.endswith("_rule"):
+            shown[column] = shown[column].map(_rule)
+    notes = [f"{c.replace('_', ' ')}: {frame[c].iloc[0]}" for c in constant]
+    return frame_table("boundaries", "Decision boundaries per look", shown, notes)
 
 
 def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table:
