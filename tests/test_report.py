@@ -356,6 +356,11 @@ def test_missing_chromium_is_exit_2_and_writes_nothing(runs, tmp_path) -> None:
     assert list(tmp_path.iterdir()) == []
 
 
+def test_method_with_a_run_folder_is_exit_2(runs) -> None:
+    result = invoke("report", str(runs["single-arm-response"]), "--method", "exact")
+    assert result.exit_code == 2 and "--method" in result.output
+
+
 def test_report_help_names_the_options() -> None:
     help_text = invoke("report", "--help").output
     for option in ("--out", "--pdf", "--alpha", "--paper"):

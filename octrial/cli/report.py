@@ -9,6 +9,7 @@ import click
 
 from octrial.caution import CAUTION
 from octrial.cli.common import default_out, reports_input_errors
+from octrial.errors import single
 from octrial.reporting import PrintError, from_design, from_run_folder, write_report
 
 REPORT_NAME = "report.html"
@@ -43,6 +44,9 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
     """
     path = Path(source)
     if path.is_dir():
+        if method is not None:
+            raise single("--method", "", "a design file to evaluate (a run folder's results "
+                         "are shown as computed)", f"the run folder {path}")
         data = from_run_folder(path, alpha=alpha)
         html = Path(out) if out else path / REPORT_NAME
     else:
