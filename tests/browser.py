@@ -28,7 +28,7 @@ from typing import Any
 FLAGS = (
     "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
     "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-extensions",
-    "--disable-default-apps", "--mute-audio", "--hide-scrollbars",
+    "--disable-default-apps", "--mute-audio", "--hide-scrollbars", "--disable-dev-shm-usage",
     "--host-resolver-rules=MAP * ~NOTFOUND", "--proxy-server=127.0.0.1:9",
     "--remote-debugging-pipe",
 )

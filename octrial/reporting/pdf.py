@@ -23,7 +23,7 @@ TIMEOUT = 180.0
 QUIET_FLAGS = (
     "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
     "--disable-component-update", "--disable-sync", "--no-first-run",
-    "--disable-default-apps", "--disable-extensions", "--mute-audio",
+    "--disable-default-apps", "--disable-extensions", "--mute-audio", "--disable-dev-shm-usage",
     # Nothing may leave the machine: every host name fails to resolve.
     "--host-resolver-rules=MAP * ~NOTFOUND",
 )
