@@ -26,11 +26,19 @@ def write_atomic(path: Path, data: str | bytes) -> Path:
         with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8",
                                                                "newline": ""})) as handle:
             handle.write(data)
+        os.chmod(tmp, _default_mode())  # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
     return path
+
+
+def _default_mode() -> int:
+    """0666 less the process umask: the mode ``open()`` would have given a new file."""
+    umask = os.umask(0)
+    os.umask(umask)
+    return 0o666 & ~umask
 
 
 def csv_text(frame: pd.DataFrame) -> str:

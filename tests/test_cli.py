@@ -79,3 +79,14 @@ def test_version_and_help(runner) -> None:
     text = runner.invoke(main, ["--help"]).output
     assert "run" in text and "regulatory agency" in text
     assert "--out" in runner.invoke(main, ["run", "--help"]).output
+
+
+def test_written_files_have_ordinary_permissions(runner, tmp_path) -> None:
+    import os
+    import stat
+
+    runner.invoke(main, ["run", str(DEMOS[0]), "--out", str(tmp_path), "--quiet"])
+    umask = os.umask(0)
+    os.umask(umask)
+    mode = stat.S_IMODE((tmp_path / "oc.csv").stat().st_mode)
+    assert mode == 0o666 & ~umask
