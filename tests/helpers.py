@@ -8,6 +8,7 @@ from typing import Any
 
 from octrial.design.load import parse_design
 from octrial.design.model import Design, Source
+from octrial.design.write import dumps
 
 ROOT = Path(__file__).resolve().parents[1]
 DESIGNS = ROOT / "designs"
@@ -37,8 +38,12 @@ TWO_ARM: dict[str, Any] = {
 
 
 def build(base: dict[str, Any], **changes: Any) -> Design:
-    """A design from ``base`` with dotted-key changes (value ``None`` deletes the key)."""
-    return parse_design(changed(base, **changes), Source("test.toml", "", ""))
+    """A design from ``base`` with dotted-key changes (value ``None`` deletes the key).
+
+    The design's source text is the data written as TOML, as if read from a file.
+    """
+    data = changed(base, **changes)
+    return parse_design(data, Source("test.toml", "", dumps(data)))
 
 
 def changed(base: dict[str, Any], **changes: Any) -> dict[str, Any]:

@@ -9,7 +9,7 @@ import click
 
 from octrial.caution import CAUTION
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
-from octrial.cli.tables import oc_summary, type1_line
+from octrial.cli.tables import assurance_line, oc_summary, type1_line
 from octrial.evaluation import compute
 from octrial.output import csv_text, json_text, write_atomic
 from octrial.provenance import now, run_record
@@ -45,5 +45,8 @@ def run_command(design: str, out: str | None, method: str | None, quiet: bool) -
     click.echo(f"engine: {evaluation.info['engine']}")
     click.echo(oc_summary(evaluation.oc))
     click.echo(type1_line(evaluation.info["type1"]))
+    line = assurance_line(evaluation.info)
+    if line:
+        click.echo(line)
     click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
     click.echo(f"Caution: {CAUTION}", err=True)

@@ -38,3 +38,18 @@ def type1_line(summary: dict[str, Any] | None) -> str:
     se = f" (se {summary['se']:.4f})" if summary["se"] > 0 else ""
     return (f"Maximum type I error over {summary['null_scenarios']} null scenarios: "
             f"{summary['max_type1_error']:.4f}{se} at {at}.")
+
+
+def assurance_line(info: dict[str, Any]) -> str:
+    """One sentence on the prior probability of the claim and the assurance."""
+    parts = []
+    claim = info.get("prior_probability_of_claim")
+    if claim is not None:
+        parts.append(f"Prior probability of the claim (analysis prior): {claim:.4f}.")
+    found = info.get("assurance")
+    if found and "probability" in found:
+        parts.append(f"Assurance (probability of success under the design prior): "
+                     f"{found['probability']:.4f}, expected N {found['expected_n']:.2f}; "
+                     f"Pr(claim true) under the design prior "
+                     f"{found['design_prior_probability_of_claim']:.4f}.")
+    return " ".join(parts)

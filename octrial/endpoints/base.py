@@ -12,6 +12,7 @@ Families whose sufficient statistic per arm is a count (binary, count) also impl
 
 from __future__ import annotations
 
+import math
 from abc import ABC, abstractmethod
 from typing import Any, ClassVar
 
@@ -38,12 +39,16 @@ class Family(ABC):
         Allowed ``hypothesis.comparison`` values for two arms (the first is the default).
     default_better : str or None
         Default for ``endpoint.better``; ``None`` makes the key required.
+    parameter_range : tuple of float
+        The open interval a true parameter lies in (a rate: (0, 1)); calibration spreads its
+        search of the null region over it.
     """
 
     name: ClassVar[str]
     parameter: ClassVar[str]
     comparisons: ClassVar[tuple[str, ...]]
     default_better: ClassVar[str | None] = None
+    parameter_range: ClassVar[tuple[float, float]] = (-math.inf, math.inf)
 
     # -- design-file reading ---------------------------------------------------------
     @abstractmethod
@@ -76,6 +81,14 @@ class Family(ABC):
     @abstractmethod
     def prior_probability_of_claim(self, design: Any) -> float:
         """Pr(benefit beyond the benchmark or margin) under the analysis priors alone."""
+
+    def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
+        """The prior as a mixture: (weight, frozen scipy distribution) pairs, or ``None``.
+
+        Optional. Assurance integrates over a design prior through its components'
+        quantile functions when no exact method applies.
+        """
+        return None
 
 
 class LatticeFamily(Family):

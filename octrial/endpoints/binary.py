@@ -199,6 +199,7 @@ class BinaryFamily(LatticeFamily):
     statistic = "responses"
     comparisons = ("difference",)
     default_better = None
+    parameter_range = (0.0, 1.0)
 
     def read_endpoint(self, table: Table) -> BinaryEndpoint:
         table.allow("type", "better")
@@ -264,6 +265,10 @@ class BinaryFamily(LatticeFamily):
     def prior_probability_of_claim(self, design: Any) -> float:
         priors = tuple(update(arm.prior, 0, np.zeros(1)) for arm in design.arms)
         return float(np.asarray(self.benefit(design, priors)[0]).ravel()[0])
+
+    def prior_components(self, prior: BetaMixture) -> list[tuple[float, Any]]:
+        return [(w, stats.beta(a, b)) for w, a, b in zip(prior.weights, prior.a, prior.b,
+                                                          strict=True)]
 
 
 def _shape(table: Table, key: str) -> float | None:

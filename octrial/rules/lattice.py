@@ -72,30 +72,84 @@ class LatticeRule:
         return self.looks[-1]
 
 
-def build_rule(design: Design) -> LatticeRule:
-    """Turn a design's rule into lattice tables (see module docstring)."""
+class LatticeCache:
+    """Posterior tables by per-arm sample size, shared by designs that differ only in looks
+    and thresholds (calibration examines many such designs).
+
+    The posterior at a look depends on the data only through each arm's count and sample
+    size, so the benefit table for per-arm sizes ``n`` is the same whatever the look number,
+    the maximum sample size or the thresholds. Every design given to one cache must share
+    the endpoint, the hypothesis and the analysis priors.
+    """
+
+    def __init__(self) -> None:
+        self._posteriors: dict[tuple[int, ...], tuple] = {}
+        self._benefit: dict[tuple[int, ...], np.ndarray] = {}
+        self._predictive: dict[tuple, list[np.ndarray]] = {}
+        self.error = 0.0
+        self._key: tuple | None = None
+
+    def _check(self, design: Design) -> None:
+        key = (design.endpoint, design.hypothesis, tuple(a.prior for a in design.arms))
+        if self._key is None:
+            self._key = key
+        elif key != self._key:
+            raise ValueError("a LatticeCache serves designs with the same endpoint, "
+                             "hypothesis and priors only")
+
+    def posteriors(self, design: Design, n: tuple[int, ...]) -> tuple:
+        """Each arm's posterior at every lattice point after per-arm sizes ``n``."""
+        self._check(design)
+        if n not in self._posteriors:
+            family = design.family
+            self._posteriors[n] = tuple(
+                family.posterior(design, j, n[j], np.arange(family.lattice_size(design, j, n[j])))
+                for j in range(len(design.arms)))
+        return self._posteriors[n]
+
+    def benefit(self, design: Design, n: tuple[int, ...]) -> np.ndarray:
+        """Posterior probability of benefit on the lattice after per-arm sizes ``n``."""
+        if n not in self._benefit:
+            values, err = design.family.benefit(design, self.posteriors(design, n))
+            self._benefit[n] = values
+            self.error = max(self.error, err)
+        return self._benefit[n]
+
+    def predictive(
+        self, design: Design, n_now: tuple[int, ...], n_end: tuple[int, ...],
+        sizes: tuple[int, ...],
+    ) -> list[np.ndarray]:
+        """Per arm, the predictive pmf of the statistic still to come, one row per point."""
+        key = (n_now, n_end, sizes)
+        if key not in self._predictive:
+            family = design.family
+            posts = self.posteriors(design, n_now)
+            self._predictive[key] = [
+                family.predictive_pmf(design, post, n_end[j] - n_now[j], sizes[j])
+                for j, post in enumerate(posts)]
+        return self._predictive[key]
+
+
+def build_rule(design: Design, cache: LatticeCache | None = None) -> LatticeRule:
+    """Turn a design's rule into lattice tables (see module docstring).
+
+    Parameters
+    ----------
+    design : Design
+    cache : LatticeCache, optional
+        Posterior tables to reuse across designs that differ only in looks and thresholds.
+    """
     family = design.family
     if not isinstance(family, LatticeFamily):
         raise TypeError(f"{family.name} endpoints have no lattice rule")
+    cache = LatticeCache() if cache is None else cache
     looks = design.looks
     k_last = looks.count - 1
     with_prior = all(arm.prior is not None for arm in design.arms)
-    error = 0.0
 
-    posteriors, benefits = [], []
-    for k in range(looks.count):
-        n_k = looks.per_arm[k]
-        if with_prior:
-            posts = tuple(
-                family.posterior(design, j, n_k[j],
-                                 np.arange(family.lattice_size(design, j, n_k[j])))
-                for j in range(len(design.arms)))
-            b, err = family.benefit(design, posts)
-            error = max(error, err)
-        else:
-            posts, b = None, None
-        posteriors.append(posts)
-        benefits.append(b)
+    benefits: list[np.ndarray | None] = [
+        cache.benefit(design, looks.per_arm[k]) if with_prior else None
+        for k in range(looks.count)]
 
     final_success = _efficacy(design, k_last, benefits[k_last])
     tables = []
@@ -108,12 +162,14 @@ def build_rule(design: Design) -> LatticeRule:
             futility = _futility(design, k, benefits[k], efficacy.shape)
             threshold = looks.futility_predictive[k]
             if threshold is not None:
-                predictive = predictive_success(design, family, posteriors[k], k, final_success)
+                pmfs = cache.predictive(design, looks.per_arm[k], looks.per_arm[-1],
+                                        final_success.shape)
+                predictive = success_from_pmfs(pmfs, final_success)
                 futility |= predictive < threshold - DECISION_TOLERANCE
             futility &= ~efficacy
         tables.append(LookTable(k + 1, looks.per_arm[k], benefits[k], predictive, efficacy,
                                 futility))
-    return LatticeRule(tuple(tables), error)
+    return LatticeRule(tuple(tables), cache.error if with_prior else 0.0)
 
 
 def _efficacy(design: Design, k: int, benefit: np.ndarray | None) -> np.ndarray:
@@ -158,11 +214,17 @@ def predictive_success(
     family's truncation bound).
     """
     n_now, n_end = design.looks.per_arm[k], design.looks.per_arm[-1]
-    final_shape = success.shape
     pmfs = [
-        family.predictive_pmf(design, post, n_end[j] - n_now[j], final_shape[j])
+        family.predictive_pmf(design, post, n_end[j] - n_now[j], success.shape[j])
         for j, post in enumerate(posteriors)
     ]
+    return success_from_pmfs(pmfs, success)
+
+
+def success_from_pmfs(pmfs: list[np.ndarray], success: np.ndarray) -> np.ndarray:
+    """Predictive probability of reaching the final ``success`` region from every point,
+    given each arm's predictive pmf of its remaining statistic (one row per point)."""
+    final_shape = success.shape
     if len(pmfs) == 1:
         (pmf,) = pmfs
         idx = np.arange(pmf.shape[0])[:, None] + np.arange(pmf.shape[1])[None, :]

@@ -1,0 +1,312 @@
+"""``calibrate``: thresholds, sample size or a stage search, chosen and checked.
+
+Sizing (``n`` among the varied values): for every maximum sample size N in the range
+(multiples of the allocation unit), the looks are placed as the request says and the
+thresholds are calibrated (or kept) at that N. With a discrete endpoint the type I error
+and power are saw-tooth functions of N (Chernick & Liu 2002), so the whole curve is kept
+and two rules are offered: the smallest N that passes, and the smallest N from which every
+larger N in the range passes (looks that collide at an N leave that N out of both).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from octrial.assurance import assurance
+from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, evaluator_for
+from octrial.calibration.log import Log
+from octrial.calibration.nulls import Truths, null_truths
+from octrial.calibration.request import Request, make_request
+from octrial.calibration.stages import search
+from octrial.calibration.tuning import Choice, Tuner, best_failing
+from octrial.calibration.variants import Builder, allocation_unit, looks_at
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.errors import InputError, Problem
+from octrial.rules.boundaries import boundary_table
+from octrial.rules.lattice import build_rule
+
+AGREEMENT = 1e-12
+"""The fast path and the exact engine must agree this closely on the chosen design."""
+
+
+@dataclass(frozen=True, eq=False)
+class Calibration:
+    """The outcome of :func:`calibrate`.
+
+    Attributes
+    ----------
+    request : Request
+    original : Design
+    design : Design
+        The calibrated design (what ``data`` reads as).
+    data : dict
+        The calibrated design file's data.
+    choice : Choice
+    truths : Truths
+    candidates : DataFrame
+        Every candidate examined (``calibration.csv``).
+    sizing : DataFrame or None
+        One row per maximum sample size (``sizing.csv``), when N varied.
+    summary : dict
+        The figures the command prints and ``calibration.json`` holds.
+    """
+
+    request: Request
+    original: Design
+    design: Design
+    data: dict[str, Any]
+    choice: Choice
+    truths: Truths
+    candidates: pd.DataFrame
+    sizing: pd.DataFrame | None
+    summary: dict[str, Any]
+
+
+def _point(design: Design, truths: Truths, row: int) -> dict[str, float]:
+    return {arm: float(truths.values[row, j]) for j, arm in enumerate(design.arm_names)}
+
+
+def _where(design: Design, point: dict[str, float]) -> str:
+    return ", ".join(f"{arm} = {v:g}" for arm, v in point.items())
+
+
+def _figures(design: Design, truths: Truths, a: Assessment) -> str:
+    text = f"type I error {a.type1:.4g} at {_where(design, _point(design, truths, a.worst))}"
+    if a.power is not None:
+        text += f", power {a.power:.4g}"
+    return text
+
+
+def _describe(choice: Choice) -> str:
+    looks = choice.design.looks
+    n = f"N = {looks.n[-1]} (looks at {', '.join(map(str, looks.n))})"
+    parts = [n]
+    for name, v in choice.values.items():
+        if name != "stages":
+            parts.append(f"{name} = {v['value']:.10g}")
+    return "; ".join(parts)
+
+
+class _Search:
+    def __init__(self, design: Design, request: Request) -> None:
+        self.design = design
+        self.request = request
+        self.builder = Builder(design)
+        self.truths = null_truths(design, request.null_points, request.alternative)
+        self.ev: Evaluator = evaluator_for(design, self.truths, request.method)
+        self.log = Log(design, self.truths, request.alpha, request.power)
+        self.tuner = Tuner(self.builder, self.ev, request, self.log)
+        self.notes: list[str] = []
+        self.curve: pd.DataFrame | None = None
+        self.sizing: dict[str, Any] | None = None
+
+    def fail(self, key: str, expected: str, got: str) -> InputError:
+        return InputError(self.source, [Problem(key, expected, got)])
+
+    # -- the three kinds of search ------------------------------------------------------------
+    def thresholds(self) -> Choice:
+        choice = self.tuner.tune(self.builder.looks)
+        if choice is None:
+            raise self.fail("--vary", "values that give a valid design",
+                            "no valid candidate (see the design file's [looks])")
+        if not choice.meets_alpha:
+            raise self.fail("--alpha", "a type I error the design can meet by its "
+                            f"{self.request.calibrated or 'rule'}",
+                            f"{self.request.alpha:g} (best found: {_describe(choice)}, "
+                            f"{_figures(self.design, self.truths, choice.assessment)})")
+        if not choice.meets_power:
+            raise self.fail("--power", f"a power the design reaches at N = "
+                            f"{choice.design.looks.n[-1]} with type I error <= "
+                            f"{self.request.alpha:g}",
+                            f"{self.request.power:g} (best found: {_describe(choice)}, "
+                            f"{_figures(self.design, self.truths, choice.assessment)})")
+        return choice
+
+    def sizes(self) -> Choice:
+        lo, hi, step = self.request.n_range
+        unit = allocation_unit(self.design)
+        rows, choices = [], {}
+        for n_max in range(lo, hi + 1, step):
+            if n_max % unit:
+                continue
+            sizes = looks_at(self.design.looks, n_max, self.request.looks, unit)
+            if sizes is None:
+                rows.append({"n": n_max, "note": "looks collide at this N"})
+                continue
+            looks = self.builder.looks
+            looks["n"] = sizes
+            choice = self.tuner.tune(looks)
+            if choice is None:
+                rows.append({"n": n_max, "note": "no valid design at this N"})
+                continue
+            choices[n_max] = choice
+            row = {key: value for key, value in self.log.rows[choice.row - 1].items()
+                   if key not in ("candidate", "step", "chosen", "note")}
+            row["note"] = ""
+            rows.append(row)
+        if not choices:
+            raise self.fail("--n-range", "a range with at least one valid design",
+                            f"{lo}:{hi}:{step} (allocation unit {unit})")
+        passing = [n for n, c in choices.items() if c.passes]
+        first = min(passing) if passing else None
+        stable = None
+        for n in sorted(choices, reverse=True):
+            if not choices[n].passes:
+                break
+            stable = n
+        chosen_n = first if self.request.choose == "first" else stable
+        curve = pd.DataFrame(rows)
+        curve = curve.drop(columns=[c for c in curve if curve[c].astype(str).isin(
+            ["", "nan"]).all() and c != "note"])
+        curve.insert(0, "realised", curve["note"] == "")
+        curve["smallest_passing"] = curve["n"] == first
+        curve["stable_from"] = curve["n"] == stable
+        curve["chosen"] = curve["n"] == chosen_n
+        self.curve = curve
+        self.sizing = {"smallest_passing": first, "stable_from": stable,
+                       "rule": self.request.choose, "chosen_n": chosen_n,
+                       "range": [lo, hi, step], "allocation_unit": unit,
+                       "looks": self.request.looks}
+        if chosen_n is None:
+            best = best_failing(list(choices.values()))
+            rule = ("the smallest N that passes" if self.request.choose == "first" else
+                    "the smallest N from which every larger N in the range passes")
+            extra = (f"; N = {first} passes but not every larger N does" if first else "")
+            raise self.fail("--n-range", f"a range containing {rule}, with type I error <= "
+                            f"{self.request.alpha:g} and power >= {self.request.power:g}",
+                            f"{lo}:{hi} (best found: {_describe(best)}, "
+                            f"{_figures(self.design, self.truths, best.assessment)}{extra})")
+        return choices[chosen_n]
+
+    def stages(self) -> Choice:
+        if not isinstance(self.ev, LatticeEvaluator):
+            raise self.fail("--search", "a design the exact lattice engine evaluates",
+                            f"{self.design.family.name} endpoint")
+        chosen, best, notes = search(self.builder, self.request, self.log, self.ev)
+        self.notes += notes
+        if chosen is None:
+            lo, hi, _ = self.request.n_range
+            got = f"{lo}:{hi}"
+            if best is not None:
+                got += (f" (best found: {_describe(best)}, "
+                        f"{_figures(self.design, self.truths, best.assessment)})")
+            raise self.fail("--n-range", f"a range containing a {self.request.stages}-stage "
+                            f"design with type I error <= {self.request.alpha:g} and power >= "
+                            f"{self.request.power:g}", got)
+        return chosen
+
+
+def _check_against_engine(design: Design, truths: Truths, a: Assessment) -> None:
+    """The chosen design, recomputed by the exact engine (no caches, no batching)."""
+    if not isinstance(design.family, LatticeFamily):
+        return
+    outcome = ExactLatticeEngine.run(design, truths.values)
+    gap = float(np.max(np.abs(outcome.efficacy.sum(axis=1) - a.prob_success)))
+    if gap > AGREEMENT:
+        raise AssertionError(f"calibration fast path and exact engine differ by {gap:g}")
+
+
+def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> Calibration:
+    """Calibrate ``design`` as the settings ask.
+
+    Parameters
+    ----------
+    design : Design
+        Loaded with :func:`octrial.load_design` (its file text is the base of the
+        calibrated file).
+    source : str
+        Where the settings came from, for messages ('command line' for the CLI).
+    **settings
+        See :func:`octrial.calibration.request.make_request`: ``alpha`` (required),
+        ``power``, ``alternative``, ``vary``, ``n_range``, ``looks``, ``choose``,
+        ``criterion``, ``search``, ``rule``, ``stages``, ``null_points``, ``method``.
+
+    Returns
+    -------
+    Calibration
+
+    Raises
+    ------
+    InputError
+        For invalid settings, and when no candidate meets the constraints (the message
+        gives the best found).
+
+    Examples
+    --------
+    >>> import octrial
+    >>> from octrial.calibration import calibrate
+    >>> design = octrial.load_design("designs/single-arm-response.toml")  # doctest: +SKIP
+    >>> result = calibrate(design, alpha=0.05)  # doctest: +SKIP
+    >>> result.summary["chosen"]["final"]["value"]  # doctest: +SKIP
+    """
+    request = make_request(design, source, **settings)
+    run = _Search(design, request)
+    run.source = source
+    if request.search:
+        choice = run.stages()
+    elif request.sizes:
+        choice = run.sizes()
+    else:
+        choice = run.thresholds()
+    run.log.choose(choice.row)
+    _check_against_engine(choice.design, run.truths, choice.assessment)
+    data = run.builder.data_for(choice.looks)
+    data["name"] = f"{design.name}.calibrated"
+    summary = _summary(run, choice)
+    return Calibration(request, design, choice.design, data, choice, run.truths,
+                       run.log.frame(), run.curve, summary)
+
+
+def _summary(run: _Search, choice: Choice) -> dict[str, Any]:
+    design, truths, a = choice.design, run.truths, choice.assessment
+    request = run.request
+    out: dict[str, Any] = {
+        "task": ("stage search" if request.search else
+                 "sizing" if request.sizes else "thresholds"),
+        "alpha": request.alpha,
+        "power_target": request.power,
+        "alternative": (None if request.alternative is None else
+                        dict(zip(design.arm_names, request.alternative, strict=True))),
+        "null_grid": truths.description,
+        "type1_error": a.type1,
+        "type1_error_se": a.type1_se,
+        "worst_null_point": _point(design, truths, a.worst),
+        "power": a.power,
+        "power_se": a.power_se if a.power is not None else None,
+        "expected_n_null": a.expected_n_null,
+        "null_reference_point": _point(design, truths, truths.reference),
+        "expected_n_alternative": a.expected_n_alternative,
+        "chosen": choice.values,
+        "looks_n": list(design.looks.n),
+        "method": "exact" if run.ev.exact else "monte-carlo",
+        "evaluations": run.ev.evaluations,
+        "candidates": len(run.log.rows),
+        "notes": run.notes,
+    }
+    if request.search:
+        out["search"] = {"criterion": request.search, "rule": request.rule,
+                         "stages": request.stages, "range": list(request.n_range)}
+    if run.sizing is not None:
+        out["sizing"] = run.sizing
+    if isinstance(design.family, LatticeFamily):
+        table = boundary_table(design, build_rule(design))
+        if not design.two_arm:
+            out["boundaries"] = [
+                {"look": int(r["look"]), "n": int(r["n"]), "efficacy": r["efficacy_rule"],
+                 "futility": r["futility_rule"]} for _, r in table.iterrows()]
+    found = assurance(design)
+    out["assurance"] = None if found is None else found.as_dict()
+    if all(arm.prior is not None for arm in design.arms):
+        out["prior_probability_of_claim"] = design.family.prior_probability_of_claim(design)
+    else:
+        out["prior_probability_of_claim"] = None
+    return out
+
+
+__all__ = ["Calibration", "calibrate", "make_request"]

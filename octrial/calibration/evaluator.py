@@ -1,0 +1,240 @@
+"""Evaluating candidate designs at the calibration's true values.
+
+Two evaluators share one interface:
+
+* :class:`EngineEvaluator` runs whatever engine :func:`octrial.engines.choose` picks for
+  the design (an exact engine, or Monte Carlo, which gets the same seed for every
+  candidate, so candidates are compared on common random numbers). Thresholds are then
+  searched as continuous values.
+* :class:`LatticeEvaluator` is the fast path for endpoints with a count lattice: the
+  posterior tables are computed once per look size and reused by every candidate
+  (:class:`~octrial.rules.lattice.LatticeCache`), all true values go through one batched
+  dynamic programme (:mod:`octrial.engines.lattice_batch`), the candidate thresholds are the
+  distinct posterior probabilities on the lattice (the probability of success is a step
+  function of a threshold), and when the interim rules do not depend on the final
+  threshold, one pass gives the probability of success under every final threshold at
+  once (:meth:`LatticeEvaluator.sweep_final`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from octrial.calibration.nulls import Truths
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.engines import choose
+from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.lattice_batch import IncrementTables, run_batch
+from octrial.results import proportion_se
+from octrial.rules.lattice import DECISION_TOLERANCE, LatticeCache, build_rule
+
+
+@dataclass(frozen=True, eq=False)
+class Assessment:
+    """What one candidate achieves at the calibration's true values.
+
+    Attributes
+    ----------
+    prob_success : ndarray
+        Probability of success at every true value (null grid, then the alternative).
+    type1, type1_se : float
+        Largest probability of success over the null grid, and its Monte Carlo standard
+        error (0 when exact).
+    worst : int
+        Row of the null grid where it occurs.
+    power, power_se : float or None
+        At the alternative.
+    expected_n_null, expected_n_alternative : float or None
+        Expected total sample size at the null reference point and at the alternative.
+    """
+
+    prob_success: np.ndarray
+    type1: float
+    type1_se: float
+    worst: int
+    power: float | None
+    power_se: float
+    expected_n_null: float
+    expected_n_alternative: float | None
+
+
+def assessment(
+    truths: Truths, prob_success: np.ndarray, expected_n: np.ndarray,
+    replicates: np.ndarray | None = None,
+) -> Assessment:
+    """Summarise per-truth probabilities of success and expected sizes."""
+    reps = np.zeros(len(prob_success), dtype=int) if replicates is None else replicates
+    se = proportion_se(prob_success, reps)
+    null = prob_success[: truths.nulls]
+    worst = int(np.argmax(null))
+    alt = truths.alternative
+    return Assessment(
+        prob_success=prob_success, type1=float(null[worst]), type1_se=float(se[worst]),
+        worst=worst,
+        power=None if alt is None else float(prob_success[alt]),
+        power_se=0.0 if alt is None else float(se[alt]),
+        expected_n_null=float(expected_n[truths.reference]),
+        expected_n_alternative=None if alt is None else float(expected_n[alt]),
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class Sweep:
+    """Probability of success under every candidate final threshold at once.
+
+    Attributes
+    ----------
+    values : ndarray
+        Candidate final thresholds (posterior probabilities, or counts for count rules),
+        from least to most stringent.
+    prob_success : ndarray, shape (candidates, truths)
+    expected_n : ndarray, shape (truths,)
+        The same for every candidate (the final look is reached either way).
+    """
+
+    values: np.ndarray
+    prob_success: np.ndarray
+    expected_n: np.ndarray
+
+
+class Evaluator:
+    """The interface; see the module docstring."""
+
+    exact: bool = True
+
+    def __init__(self, truths: Truths) -> None:
+        self.truths = truths
+        self.evaluations = 0
+
+    def assess(self, design: Design) -> Assessment:
+        """Evaluate one candidate at every true value."""
+        raise NotImplementedError
+
+    def sweep_final(self, design: Design) -> Sweep | None:
+        """Every candidate final threshold at once, or ``None`` when not available."""
+        return None
+
+    def distinct_values(self, design: Design, looks: list[int]) -> np.ndarray | None:
+        """Distinct posterior probabilities at the given looks (0-based), or ``None``
+        when thresholds are continuous for this evaluator."""
+        return None
+
+    def benefit(self, design: Design, look: int) -> np.ndarray | None:
+        """The posterior probability table at one look (lattice evaluators only)."""
+        return None
+
+
+class EngineEvaluator(Evaluator):
+    """Any engine, through its ``run`` method (see module docstring)."""
+
+    def __init__(self, truths: Truths, method: str | None = None) -> None:
+        super().__init__(truths)
+        self.method = method
+        self.exact = method not in ("monte-carlo",)
+
+    def assess(self, design: Design) -> Assessment:
+        engine = choose(design, self.method)
+        outcome = engine.run(design, self.truths.values)
+        self.evaluations += 1
+        self.exact = outcome.method == "exact"
+        stop = outcome.efficacy + outcome.futility
+        expected_n = stop @ np.asarray(design.looks.n, dtype=float)
+        return assessment(self.truths, outcome.efficacy.sum(axis=1), expected_n,
+                          outcome.replicates)
+
+
+def distinct(values: np.ndarray) -> np.ndarray:
+    """Sorted distinct values, merging runs closer than the decision tolerance (each run is
+    represented by its smallest member, the least stringent threshold that keeps the run
+    together)."""
+    v = np.unique(np.asarray(values, dtype=float).ravel())
+    if v.size == 0:
+        return v
+    keep = np.ones(v.size, dtype=bool)
+    # a run's smallest member is kept: drop a value when the one below is within tolerance
+    keep[1:] = np.diff(v) > DECISION_TOLERANCE
+    return v[keep]
+
+
+class LatticeEvaluator(Evaluator):
+    """The lattice fast path (see module docstring)."""
+
+    def __init__(self, truths: Truths, design: Design) -> None:
+        super().__init__(truths)
+        self.cache = LatticeCache()
+        self.increments = IncrementTables(design, truths.values)
+
+    def rule(self, design: Design):
+        """The candidate's lattice rule, from the shared posterior tables."""
+        return build_rule(design, self.cache)
+
+    def assess(self, design: Design) -> Assessment:
+        result = run_batch(design, self.rule(design), self.increments)
+        self.evaluations += 1
+        stop = result.efficacy + result.futility
+        expected_n = stop @ np.asarray(design.looks.n, dtype=float)
+        return assessment(self.truths, result.efficacy.sum(axis=1), expected_n)
+
+    def benefit(self, design: Design, look: int) -> np.ndarray | None:
+        if any(a.prior is None for a in design.arms):
+            return None
+        return self.cache.benefit(design, design.looks.per_arm[look])
+
+    def distinct_values(self, design: Design, looks: list[int]) -> np.ndarray | None:
+        tables = [self.benefit(design, k) for k in looks]
+        if any(t is None for t in tables):
+            return None
+        if not tables:
+            return np.array([])
+        return distinct(np.concatenate([t.ravel() for t in tables]))
+
+    def sweep_final(self, design: Design) -> Sweep | None:
+        looks = design.looks
+        if any(v is not None for v in looks.futility_predictive[:-1]):
+            return None  # interim futility depends on the final threshold
+        rule = self.rule(design)
+        result = run_batch(design, rule, self.increments, keep_final=True)
+        self.evaluations += 1
+        early = result.efficacy[:, :-1].sum(axis=1)
+        n = np.asarray(looks.n, dtype=float)
+        interim = (result.efficacy[:, :-1] + result.futility[:, :-1]) @ n[:-1]
+        reach = result.reach.reshape(len(early), -1)
+        expected_n = interim + n[-1] * reach.sum(axis=1)
+        if looks.uses_counts:
+            counts = np.arange(reach.shape[1])
+            score = counts if design.hypothesis.better == "higher" else -counts
+            order = np.argsort(-score, kind="stable")
+            cum = np.cumsum(reach[:, order], axis=1)
+            values = score[order] * (1 if design.hypothesis.better == "higher" else -1)
+            # values[i] as the bound: success on the first i+1 counts of ``order``
+            prob = early[None, :] + cum.T
+            return Sweep(values[::-1], prob[::-1], expected_n)
+        score = rule.final.benefit.ravel()
+        order = np.argsort(-score, kind="stable")
+        ranked = score[order]
+        cum = np.cumsum(reach[:, order], axis=1)
+        # group ranks whose scores are within the tolerance of the next: a threshold at a
+        # group's smallest score admits exactly the group and everything above it.
+        ends = np.flatnonzero(np.append(ranked[:-1] - ranked[1:] > DECISION_TOLERANCE, True))
+        values = ranked[ends]
+        prob = early[None, :] + cum[:, ends].T
+        if values[0] < 1.0 - 2 * DECISION_TOLERANCE:  # 'never succeed at the final look'
+            values = np.append(1.0, values)
+            prob = np.vstack([early[None, :], prob])
+        return Sweep(values[::-1], prob[::-1], expected_n)
+
+
+def evaluator_for(design: Design, truths: Truths, method: str | None = None) -> Evaluator:
+    """The fast lattice evaluator when the exact lattice engine applies, else the engine's."""
+    if method in (None, "auto", "exact") and isinstance(design.family, LatticeFamily) and (
+            ExactLatticeEngine.unsupported(design) is None):
+        try:
+            engine = choose(design, method)
+        except ValueError:
+            engine = None
+        if engine is ExactLatticeEngine:
+            return LatticeEvaluator(truths, design)
+    return EngineEvaluator(truths, method)

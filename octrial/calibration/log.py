@@ -1,0 +1,99 @@
+"""The record of every candidate a calibration examined (``calibration.csv``)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from octrial.calibration.evaluator import Assessment
+from octrial.calibration.nulls import Truths
+from octrial.design.model import Design, Looks
+
+RULE_KEYS = ("efficacy", "futility", "futility_predictive", "efficacy_count", "futility_count")
+
+
+def _text(values: tuple | list | None) -> str:
+    if values is None or all(v is None for v in values):
+        return ""
+    return " ".join("none" if v is None else f"{v:.10g}" for v in values)
+
+
+def rule_columns(looks: Looks, final: float | None = None) -> dict[str, Any]:
+    """The per-look rule of a candidate as text columns (``final`` overrides the final
+    success threshold or count)."""
+    out: dict[str, Any] = {"n": looks.n[-1], "looks_n": " ".join(map(str, looks.n))}
+    for key in RULE_KEYS:
+        values = getattr(looks, key)
+        if final is not None and values is not None and key == (
+                "efficacy_count" if looks.uses_counts else "efficacy"):
+            values = (*values[:-1], final)
+        if key.startswith("futility") and values is not None:
+            values = values[:-1]  # interim looks only
+        out[key] = _text(values)
+    return out
+
+
+class Log:
+    """Rows of ``calibration.csv``, one per candidate examined."""
+
+    def __init__(self, design: Design, truths: Truths, alpha: float,
+                 power: float | None) -> None:
+        self.design = design
+        self.truths = truths
+        self.alpha = alpha
+        self.power = power
+        self.rows: list[dict[str, Any]] = []
+
+    def meets(self, a: Assessment) -> tuple[bool, bool]:
+        """(type I error <= alpha, power >= target) for an assessment."""
+        alpha_ok = a.type1 <= self.alpha
+        power_ok = self.power is None or (a.power is not None and a.power >= self.power)
+        return alpha_ok, power_ok
+
+    def add(
+        self, step: str, looks: Looks, a: Assessment | None, final: float | None = None,
+        note: str = "",
+    ) -> int:
+        """Record one candidate; returns its row number (from 1)."""
+        row: dict[str, Any] = {"candidate": len(self.rows) + 1, "step": step}
+        row.update(rule_columns(looks, final))
+        arms = self.design.arm_names
+        if a is None:
+            row.update({"type1_error": np.nan, "type1_error_se": np.nan,
+                        **{f"type1_at_{arm}": np.nan for arm in arms},
+                        "power": np.nan, "power_se": np.nan, "expected_n_null": np.nan,
+                        "expected_n_alternative": np.nan, "meets_alpha": False,
+                        "meets_power": False, "passes": False})
+        else:
+            alpha_ok, power_ok = self.meets(a)
+            worst = self.truths.values[a.worst]
+            row.update({"type1_error": a.type1, "type1_error_se": a.type1_se,
+                        **{f"type1_at_{arm}": float(worst[j]) for j, arm in enumerate(arms)},
+                        "power": np.nan if a.power is None else a.power,
+                        "power_se": a.power_se,
+                        "expected_n_null": a.expected_n_null,
+                        "expected_n_alternative": np.nan if a.expected_n_alternative is None
+                        else a.expected_n_alternative,
+                        "meets_alpha": alpha_ok, "meets_power": power_ok,
+                        "passes": alpha_ok and power_ok})
+        row["chosen"] = False
+        row["note"] = note
+        self.rows.append(row)
+        return row["candidate"]
+
+    def choose(self, candidate: int) -> None:
+        """Mark the chosen candidate."""
+        self.rows[candidate - 1]["chosen"] = True
+
+    def frame(self) -> pd.DataFrame:
+        """The table; rule columns a design never uses are left out."""
+        frame = pd.DataFrame(self.rows)
+        for key in RULE_KEYS:
+            if key in frame and (frame[key] == "").all():
+                frame = frame.drop(columns=key)
+        if self.truths.alternative is None:
+            frame = frame.drop(columns=["power", "power_se", "expected_n_alternative",
+                                        "meets_power"])
+        return frame

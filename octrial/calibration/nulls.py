@@ -1,0 +1,124 @@
+"""The composite null region on a grid, and the points where power and expected sizes are read.
+
+One arm: true values from the benchmark into the worse direction, spread over the whole
+null part of the parameter's range (a rate below a benchmark of 0.2 when higher is
+better: 0.2, 0.196, ..., 0.004 with 50 points). Two arms: the null boundary line (true
+effect exactly at the margin) over the control value's whole range. The design file's own
+null scenarios are always added, so a calibrated design's ``octrial run`` never reports a
+type I error above the calibrated one.
+
+With rules that are monotone in each arm's count (all rules octrial builds), the
+probability of success increases with the treatment value in the better direction (a
+coupling argument on the binomial process), so for fixed control the worst null point is on
+the boundary line; which control value is worst is not known in advance, hence the line
+search. One arm: the worst point is the benchmark itself; the grid confirms it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from octrial.design.model import Design
+from octrial.design.scenarios import DECIMALS
+
+
+@dataclass(frozen=True, eq=False)
+class Truths:
+    """The true values every candidate is evaluated at.
+
+    Attributes
+    ----------
+    values : ndarray, shape (points, arms)
+        The null grid first, then the alternative (when there is one).
+    nulls : int
+        Number of null points (the first rows).
+    reference : int
+        Row of the null point where the expected sample size under the null is read (one
+        arm: the benchmark; two arms: the boundary point with the alternative's control
+        value, or the first boundary point).
+    alternative : int or None
+        Row of the alternative.
+    description : str
+        The null grid in words, for summaries.
+    """
+
+    values: np.ndarray
+    nulls: int
+    reference: int
+    alternative: int | None
+    description: str
+
+
+def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> float:
+    """How far the null region reaches from ``start`` along ``direction``."""
+    lo, hi = design.family.parameter_range
+    edge = lo if direction < 0 else hi
+    if math.isfinite(edge):
+        return abs(edge - start)
+    reach = [abs(v - start) for v in axis if (v - start) * direction > 0]
+    return max(reach, default=0.0)
+
+
+def null_truths(
+    design: Design, points: int = 50, alternative: tuple[float, ...] | None = None,
+) -> Truths:
+    """The null grid of ``design`` (see module docstring), with the alternative appended.
+
+    Parameters
+    ----------
+    design : Design
+    points : int
+        Grid points (for unbounded parameters, spread up to the design's farthest null
+        scenario).
+    alternative : tuple of float, optional
+        Appended as the last row.
+    """
+    family, h = design.family, design.hypothesis
+    scenario = np.array(design.scenarios.values, dtype=float)
+    own_nulls = [tuple(t) for t in scenario if family.is_null(h, tuple(t))]
+    if not design.two_arm:
+        b = float(h.benchmark)
+        worse = -h.sign
+        span = _span(design, scenario[:, 0], b, worse)
+        grid = [(round(b + worse * span * i / points, DECIMALS),) for i in range(points)]
+        grid = [g for g in grid if family.true_value_problem(g[0]) is None] or [(b,)]
+        rows = sorted(set(grid) | set(own_nulls), key=lambda t: -worse * t[0])
+        reference = rows.index((b,)) if (b,) in rows else 0
+        lo_v, hi_v = min(r[0] for r in rows), max(r[0] for r in rows)
+        text = (f"{len(rows)} points, {design.arm_names[0]} from {lo_v:.6g} to {hi_v:.6g} "
+                f"(benchmark {b:g})")
+    else:
+        offset = h.sign * h.shift  # treatment = control + offset on the null boundary
+        lo, hi = family.parameter_range
+        c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
+        controls = scenario[:, 1]
+        if not math.isfinite(c_lo):
+            c_lo = float(controls.min())
+        if not math.isfinite(c_hi):
+            c_hi = float(controls.max())
+        wanted = [c_lo + (c_hi - c_lo) * (i + 0.5) / points for i in range(points)]
+        if alternative is not None:
+            wanted.append(alternative[1])
+        grid = []
+        for c in wanted:
+            t = (round(c + offset, DECIMALS), round(c, DECIMALS))
+            if all(family.true_value_problem(v) is None for v in t):
+                grid.append(t)
+        rows = sorted(set(grid) | set(own_nulls), key=lambda t: (t[1], t[0]))
+        reference = 0
+        if alternative is not None:
+            ref = (round(alternative[1] + offset, DECIMALS), round(alternative[1], DECIMALS))
+            reference = rows.index(ref) if ref in rows else 0
+        text = (f"{len(rows)} points on the null boundary ({design.arm_names[0]} = "
+                f"{design.arm_names[1]} {'+' if offset >= 0 else '-'} {abs(offset):g}), "
+                f"{design.arm_names[1]} from {min(r[1] for r in rows):.6g} to "
+                f"{max(r[1] for r in rows):.6g}, plus the design's null scenarios")
+    values = np.array(rows, dtype=float)
+    alt_row = None
+    if alternative is not None:
+        values = np.vstack([values, np.array(alternative, dtype=float)[None, :]])
+        alt_row = len(rows)
+    return Truths(values, len(rows), reference, alt_row, text)

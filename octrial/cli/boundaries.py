@@ -1,0 +1,63 @@
+"""``octrial boundaries``: the decision rule per look, as a committee applies it by hand."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from octrial.caution import CAUTION
+from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.errors import single
+from octrial.output import csv_text, write_atomic
+from octrial.rules.boundaries import boundary_table, committee_table
+from octrial.rules.lattice import build_rule
+
+
+def boundaries_for(design: Design) -> tuple[object, str]:
+    """The boundary table and its committee text for ``design``.
+
+    Lattice endpoints give counts; another family may provide ``boundary_table(design)``
+    and ``committee_table(design, table)`` (for example sample-mean and z bounds).
+    """
+    family = design.family
+    if isinstance(family, LatticeFamily):
+        table = boundary_table(design, build_rule(design))
+        return table, committee_table(design, table)
+    own = getattr(family, "boundary_table", None)
+    text = getattr(family, "committee_table", None)
+    if own is None or text is None:
+        raise single(design.source.path or design.name, "endpoint.type",
+                     "an endpoint with a decision-boundary table in this version (binary)",
+                     family.name)
+    table = own(design)
+    return table, text(design, table)
+
+
+@click.command("boundaries")
+@design_argument
+@click.option("--out", "out", type=click.Path(file_okay=False), default=None,
+              help="Folder for boundaries.csv and boundaries.txt "
+                   "[default: reports/<design name>/].")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@reports_input_errors
+def boundaries_command(design: str, out: str | None, quiet: bool) -> None:
+    """Print and write the decision boundaries of DESIGN per interim look.
+
+    The rule in plain counts (responses) with the posterior probability at each bound and
+    one count short of it, so a monitoring committee can apply the rule without software.
+    Writes boundaries.csv (the same table as octrial run) and boundaries.txt (the printed
+    text).
+    """
+    loaded = read_design(design)
+    table, text = boundaries_for(loaded)
+    folder = Path(out) if out else default_out(loaded)
+    written = [write_atomic(folder / "boundaries.csv", csv_text(table)),
+               write_atomic(folder / "boundaries.txt", f"{text}\nCaution: {CAUTION}\n")]
+    if quiet:
+        return
+    click.echo(text, nl=False)
+    click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+    click.echo(f"Caution: {CAUTION}", err=True)

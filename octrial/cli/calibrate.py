@@ -1,0 +1,92 @@
+"""``octrial calibrate``: thresholds, sample size or a stage search meeting alpha and power."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from octrial.calibration import calibrate
+from octrial.calibration.files import calibrated_toml, record, summary_lines
+from octrial.calibration.request import CRITERIA, LOOK_RULES, RULES, SEARCHES, SIZING_RULES
+from octrial.caution import CAUTION
+from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
+from octrial.output import csv_text, json_text, write_atomic
+from octrial.provenance import now
+
+
+@click.command("calibrate", epilog=f"Caution: {CAUTION}")
+@design_argument
+@click.option("--alpha", type=float, default=None,
+              help="Largest type I error allowed anywhere in the null region (required).")
+@click.option("--power", type=float, default=None,
+              help="Target power at --alternative (needed for sizing and searches).")
+@click.option("--alternative", default=None, metavar="VALUE[,VALUE]",
+              help="True value(s) where power is computed, one per arm in the design's "
+                   "order (treatment, control).")
+@click.option("--vary", default=None, metavar="LIST",
+              help="What to vary, comma-separated: final (default), efficacy, futility, "
+                   "futility-predictive, eta, n.")
+@click.option("--n-range", "n_range", default=None, metavar="MIN:MAX[:STEP]",
+              help="Maximum sample sizes to try (with --vary n, or --search).")
+@click.option("--looks", type=click.Choice(LOOK_RULES), default=None,
+              help="When N varies: interim looks at the same information fractions "
+                   "(default) or the same counts.")
+@click.option("--choose", type=click.Choice(SIZING_RULES), default=None,
+              help="Sizing rule: the smallest N that passes, or (default) the smallest N "
+                   "from which every larger N in the range passes.")
+@click.option("--criterion", type=click.Choice(CRITERIA), default=None,
+              help="Grid searches: largest power, or smallest expected N under the null "
+                   "(default when --power is given).")
+@click.option("--search", type=click.Choice(SEARCHES), default=None,
+              help="Stage search by Simon's criteria: optimal (smallest expected N under "
+                   "the null) or minimax (smallest maximum N).")
+@click.option("--rule", type=click.Choice(RULES), default=None,
+              help="Stage search: count bounds or posterior thresholds "
+                   "[default: as the design states its rule].")
+@click.option("--stages", type=int, default=None,
+              help="Stage search: number of looks [default: the design's].")
+@click.option("--null-points", "null_points", type=int, default=None,
+              help="Points of the grid over the null region [default: 50].")
+@click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
+              help="Engine; overrides simulation.method in the design file.")
+@click.option("--out", "out", type=click.Path(file_okay=False), default=None,
+              help="Folder for the outputs [default: reports/<design name>/].")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@reports_input_errors
+def calibrate_command(design: str, out: str | None, quiet: bool, **options: object) -> None:
+    """Calibrate DESIGN: thresholds, sample size or a multi-stage search.
+
+    Finds the least stringent threshold (--vary final or efficacy) whose type I error
+    is at most --alpha everywhere on a grid over the null region, optionally with futility
+    or eta searched on a grid; with --vary n, the maximum sample size meeting --alpha and
+    --power (the whole saw-tooth curve is written); with --search, the optimal or minimax
+    multi-stage design. Writes calibration.csv (every candidate examined), sizing.csv
+    (with --vary n), calibration.json and <name>.calibrated.toml, a design file that
+    octrial run accepts as is.
+
+    Exit codes: 0 success; 2 bad input, or no candidate meets the constraints (the
+    message gives the best found); nothing is written then.
+    """
+    started = now()
+    loaded = read_design(design)
+    settings = {k: v for k, v in options.items() if v is not None}
+    result = calibrate(loaded, "command line", **settings)
+    folder = Path(out) if out else default_out(loaded)
+    command = ["octrial", *sys.argv[1:]]
+    toml_name = f"{loaded.name}.calibrated.toml"
+    texts = {"calibration.csv": csv_text(result.candidates)}
+    if result.sizing is not None:
+        texts["sizing.csv"] = csv_text(result.sizing)
+    texts[toml_name] = calibrated_toml(result, command)
+    names = [*texts, "calibration.json"]
+    texts["calibration.json"] = json_text(record(result, started=started, command=command,
+                                                 files=names))
+    written = [write_atomic(folder / name, text) for name, text in texts.items()]
+    if quiet:
+        return
+    for line in summary_lines(result):
+        click.echo(line)
+    click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+    click.echo(f"Caution: {CAUTION}", err=True)
