@@ -71,6 +71,16 @@ class Assurance:
         return dataclasses.asdict(self)
 
 
+def assurance_record(design: Design, rule: LatticeRule | None = None) -> dict[str, Any] | None:
+    """Assurance as a record for run.json and calibration.json: ``None`` without design
+    priors, ``{'unavailable': reason}`` when the family offers no way to integrate."""
+    try:
+        found = assurance(design, rule)
+    except ValueError as exc:
+        return {"unavailable": str(exc)}
+    return None if found is None else found.as_dict()
+
+
 def design_prior_design(design: Design) -> Design:
     """The design with each arm's design prior in place of its analysis prior."""
     arms = tuple(dataclasses.replace(arm, prior=arm.design_prior) for arm in design.arms)

@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.assurance import assurance
+from octrial.assurance import assurance_record
 from octrial.design.load import load_design
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
@@ -77,7 +77,7 @@ def compute(design: Design | str | Path, method: str | None = None, **options: A
         **outcome.info,
         "type1": type1_summary(oc),
         "prior_probability_of_claim": _prior_claim(design),
-        "assurance": _assurance(design, rule),
+        "assurance": assurance_record(design, rule),
         "scenarios_dropped": design.scenarios.dropped,
     }
     return Evaluation(design, oc, boundaries, info)
@@ -87,15 +87,6 @@ def _prior_claim(design: Design) -> float | None:
     if any(arm.prior is None for arm in design.arms):
         return None
     return design.family.prior_probability_of_claim(design)
-
-
-def _assurance(design: Design, rule: Any) -> dict[str, Any] | None:
-    """Assurance under the design priors (``None`` without them)."""
-    try:
-        found = assurance(design, rule)
-    except ValueError as exc:  # a family with neither a lattice nor quantile functions
-        return {"unavailable": str(exc)}
-    return None if found is None else found.as_dict()
 
 
 def evaluate(

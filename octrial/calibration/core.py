@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.assurance import assurance
+from octrial.assurance import assurance_record
 from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, evaluator_for
 from octrial.calibration.log import Log
 from octrial.calibration.nulls import Truths, null_truths
@@ -300,8 +300,7 @@ def _summary(run: _Search, choice: Choice) -> dict[str, Any]:
             out["boundaries"] = [
                 {"look": int(r["look"]), "n": int(r["n"]), "efficacy": r["efficacy_rule"],
                  "futility": r["futility_rule"]} for _, r in table.iterrows()]
-    found = assurance(design)
-    out["assurance"] = None if found is None else found.as_dict()
+    out["assurance"] = assurance_record(design)
     if all(arm.prior is not None for arm in design.arms):
         out["prior_probability_of_claim"] = design.family.prior_probability_of_claim(design)
     else:

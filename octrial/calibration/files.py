@@ -84,7 +84,7 @@ def summary_lines(cal: Calibration) -> list[str]:
             f"{'failure' if b['look'] == len(s['boundaries']) else 'futility'} {b['futility']}"
             for b in s["boundaries"]))
     claim = s.get("prior_probability_of_claim")
-    if s.get("assurance"):
+    if s.get("assurance") and "probability" in s["assurance"]:
         a = s["assurance"]
         out.append(f"  assurance (design prior): {a['probability']:.4f}; expected N "
                    f"{a['expected_n']:.2f}; Pr(claim true) under the design prior "

@@ -17,7 +17,8 @@ RULE_KEYS = ("efficacy", "futility", "futility_predictive", "efficacy_count", "f
 def _text(values: tuple | list | None) -> str:
     if values is None or all(v is None for v in values):
         return ""
-    return " ".join("none" if v is None else f"{v:.10g}" for v in values)
+    # repr: the shortest text that reads back as the same float (thresholds must round-trip)
+    return " ".join("none" if v is None else repr(v) for v in values)
 
 
 def rule_columns(looks: Looks, final: float | None = None) -> dict[str, Any]:
