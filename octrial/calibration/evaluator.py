@@ -66,8 +66,10 @@ def assessment(
     replicates: np.ndarray | None = None,
 ) -> Assessment:
     """Summarise per-truth probabilities of success and expected sizes."""
-    reps = np.zeros(len(prob_success), dtype=int) if replicates is None else replicates
-    se = proportion_se(prob_success, reps)
+    if replicates is None or not np.any(replicates):
+        se = np.zeros(len(prob_success))
+    else:
+        se = proportion_se(prob_success, replicates)
     null = prob_success[: truths.nulls]
     worst = int(np.argmax(null))
     alt = truths.alternative

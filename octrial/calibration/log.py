@@ -84,6 +84,40 @@ class Log:
         self.rows.append(row)
         return row["candidate"]
 
+    def add_sweep(self, step: str, looks: Looks, values: np.ndarray, prob: np.ndarray,
+                  expected_n: np.ndarray) -> None:
+        """Record every candidate final threshold of a sweep (one row each).
+
+        ``prob`` has one row per value and one column per true value.
+        """
+        truths = self.truths
+        fixed = rule_columns(looks)
+        key = "efficacy_count" if looks.uses_counts else "efficacy"
+        head = fixed[key].rsplit(" ", 1)[0] + " " if looks.count > 1 else ""
+        null = prob[:, : truths.nulls]
+        worst = np.argmax(null, axis=1)
+        type1 = null[np.arange(len(values)), worst]
+        alt = truths.alternative
+        power = prob[:, alt] if alt is not None else np.full(len(values), np.nan)
+        alpha_ok = type1 <= self.alpha
+        power_ok = (np.ones(len(values), dtype=bool) if self.power is None
+                    else power >= self.power)
+        arms = self.design.arm_names
+        en_alt = np.nan if alt is None else float(expected_n[alt])
+        for i, value in enumerate(values):
+            row = {"candidate": len(self.rows) + 1, "step": step, **fixed,
+                   key: head + repr(value.item())}
+            row.update({"type1_error": float(type1[i]), "type1_error_se": 0.0,
+                        **{f"type1_at_{arm}": float(truths.values[worst[i], j])
+                           for j, arm in enumerate(arms)},
+                        "power": float(power[i]), "power_se": 0.0,
+                        "expected_n_null": float(expected_n[truths.reference]),
+                        "expected_n_alternative": en_alt,
+                        "meets_alpha": bool(alpha_ok[i]), "meets_power": bool(power_ok[i]),
+                        "passes": bool(alpha_ok[i] and power_ok[i]), "chosen": False,
+                        "note": ""})
+            self.rows.append(row)
+
     def choose(self, candidate: int) -> None:
         """Mark the chosen candidate."""
         self.rows[candidate - 1]["chosen"] = True

@@ -21,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, assessment
+from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator
 from octrial.calibration.knobs import Knob, knob, shortest_between
 from octrial.calibration.log import Log
 from octrial.calibration.request import Request
@@ -124,14 +124,10 @@ class Tuner:
         return self._bisect(looks, base, turn, values, step)
 
     def _from_sweep(self, looks, base, turn, sweep, step) -> Choice:
-        truths = self.ev.truths
-        feasible = None
-        for i, value in enumerate(sweep.values):
-            a = assessment(truths, sweep.prob_success[i], sweep.expected_n)
-            self.log.add(step, base.looks, a, final=float(value))
-            if feasible is None and a.type1 <= self.request.alpha:
-                feasible = i
-        index = len(sweep.values) - 1 if feasible is None else feasible
+        self.log.add_sweep(step, base.looks, sweep.values, sweep.prob_success, sweep.expected_n)
+        type1 = sweep.prob_success[:, : self.ev.truths.nulls].max(axis=1)
+        feasible = np.flatnonzero(type1 <= self.request.alpha)
+        index = len(sweep.values) - 1 if feasible.size == 0 else int(feasible[0])
         return self._finish(looks, base, turn, sweep.values, index, step)
 
     def _bisect(self, looks, base, turn, values, step) -> Choice | None:
