@@ -13,9 +13,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.assurance import assurance_record
 from octrial.design.load import load_design
 from octrial.design.model import Design
+from octrial.design_prior import assurance_record
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.results import oc_table, type1_summary

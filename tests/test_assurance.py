@@ -17,8 +17,8 @@ import pytest
 from click.testing import CliRunner
 from scipy import integrate, special, stats
 
-from octrial.assurance import assurance
 from octrial.cli import main
+from octrial.design_prior import assurance
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.lattice_batch import IncrementTables, run_batch
 from octrial.evaluation import compute

@@ -16,7 +16,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.assurance import assurance_record
 from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, evaluator_for
 from octrial.calibration.log import Log
 from octrial.calibration.nulls import Truths, null_truths
@@ -25,6 +24,7 @@ from octrial.calibration.stages import search
 from octrial.calibration.tuning import Choice, Tuner, best_failing
 from octrial.calibration.variants import Builder, allocation_unit, looks_at
 from octrial.design.model import Design
+from octrial.design_prior import assurance_record
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.errors import InputError, Problem

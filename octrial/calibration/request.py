@@ -170,7 +170,8 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     n_range = None
     if settings.get("n_range") is not None:
         n_range = _parse_range(problems, settings["n_range"])
-    null_points = settings.get("null_points", 50) or 50
+    null_points = settings.get("null_points")
+    null_points = 50 if null_points is None else null_points
     if not isinstance(null_points, int) or not 1 <= null_points <= MAX_NULL_POINTS:
         problems.add("--null-points", f"a whole number from 1 to {MAX_NULL_POINTS}", null_points)
     stages = settings.get("stages")

@@ -52,7 +52,7 @@ class Stage:
     ``sizes`` are cumulative look sizes; ``futility[k]`` the largest good count that stops
     for futility at interim look k (-1: none); ``efficacy[k]`` the smallest good count
     that stops for efficacy at interim look k (None: none); ``final`` the smallest good
-    count that succeeds at the end; ``f`` the posterior futility threshold (posterior rules).
+    count that succeeds at the end.
     """
 
     sizes: tuple[int, ...]
@@ -63,7 +63,6 @@ class Stage:
     power: float
     en0: float
     en1: float
-    f: float | None = None
 
 
 class StageSearch:
@@ -176,8 +175,8 @@ class StageSearch:
             candidates = self._two_stage(sizes, eff_bounds[0], final_ok)
         else:
             candidates = []
-            for futility, f in self._futility_vectors(sizes, eff_bounds):
-                stage = self._evaluate(sizes, futility, eff_bounds, final_ok, f)
+            for futility in self._futility_vectors(sizes, eff_bounds):
+                stage = self._evaluate(sizes, futility, eff_bounds, final_ok)
                 if stage is not None:
                     candidates.append(stage)
         if not candidates:
@@ -227,20 +226,20 @@ class StageSearch:
         rows = np.arange(r1.size)
         type1, power = success[0, rows, s], success[1, rows, s]
         en = n1 + (1.0 - stop_fut[:, r1] - early[:, None]) * n2   # (2, r1)
-        f = None if not self.posterior else 0.0
         return [Stage((n1, n_max), (int(r1[i]),), (a1,), int(s[i]), float(type1[i]),
-                      float(power[i]), float(en[0, i]), float(en[1, i]), f)
+                      float(power[i]), float(en[0, i]), float(en[1, i]))
                 for i in np.flatnonzero(any_ok)]
 
     def _futility_vectors(self, sizes, eff_bounds):
-        """Futility bound vectors to try (with the posterior threshold that gives each)."""
+        """Futility bound vectors to try: every non-decreasing vector (count rules), or the
+        vector of each distinct posterior futility threshold (posterior rules)."""
         interim = sizes[:-1]
         caps = [n_k - 1 if a is None else a - 1 for n_k, a in zip(interim, eff_bounds,
                                                                   strict=True)]
         if not self.posterior:
             def walk(k: int, floor: int, prefix: tuple[int, ...]):
                 if k == len(interim):
-                    yield prefix, None
+                    yield prefix
                     return
                 for r in range(max(floor, 0), caps[k] + 1):
                     yield from walk(k + 1, r, (*prefix, r))
@@ -255,9 +254,10 @@ class StageSearch:
                 continue
             if bounds not in seen:
                 seen.add(bounds)
-                yield bounds, float(f)
+                yield bounds
 
-    def _evaluate(self, sizes, futility, eff_bounds, final_ok, f) -> Stage | None:
+    def _evaluate(self, sizes, futility, eff_bounds, final_ok) -> Stage | None:
+        """One futility vector: the recursion over looks with two true values."""
         dist = np.ones((2, 1))
         previous = 0
         early_eff = np.zeros(2)
@@ -290,7 +290,7 @@ class StageSearch:
         else:
             s = int(np.flatnonzero(meets)[0])
         return Stage(tuple(sizes), tuple(futility), tuple(eff_bounds), s,
-                     float(success[0, s]), float(success[1, s]), float(en[0]), float(en[1]), f)
+                     float(success[0, s]), float(success[1, s]), float(en[0]), float(en[1]))
 
     def _log(self, stage: Stage) -> None:
         """One row per looks configuration: its best design (posterior rules show the

@@ -95,11 +95,7 @@ class Tuner:
 
     def fixed(self, looks: dict[str, Any], step: str) -> Choice | None:
         """A candidate with no threshold tuned."""
-        design, a, row = self._try(looks, step)
-        if design is None:
-            return None
-        alpha_ok, power_ok = self.log.meets(a)
-        return Choice(looks, design, a, row, alpha_ok, power_ok, {})
+        return self._chosen(looks, step, {})
 
     # -- the calibrated threshold ----------------------------------------------------------
     def calibrate(self, looks: dict[str, Any], name: str, step: str = "threshold") -> (
@@ -174,27 +170,28 @@ class Tuner:
                         _same_rule(self.ev, precise, rounded)):
                     value = nicer
             equivalent = tuple(sorted((exact, other)))
-        chosen = turn.apply(looks, base, value)
-        design, a, row = self._try(chosen, step)
+        return self._chosen(turn.apply(looks, base, value), step,
+                            {turn.name: {"value": value, "exact": exact,
+                                         "equivalent": equivalent}})
+
+    def _chosen(self, looks: dict[str, Any], step: str,
+                values: dict[str, dict[str, Any]]) -> Choice | None:
+        design, a, row = self._try(looks, step)
         if design is None:
             return None
         alpha_ok, power_ok = self.log.meets(a)
-        return Choice(chosen, design, a, row, alpha_ok, power_ok,
-                      {turn.name: {"value": value, "exact": exact, "equivalent": equivalent}})
+        return Choice(looks, design, a, row, alpha_ok, power_ok, values)
 
     def _continuous(self, looks, base, turn: Knob, step: str) -> Choice | None:
         least, most = turn.span(base)
 
-        def run(value: float) -> tuple[Design | None, Assessment | None]:
-            design, a, _ = self._try(turn.apply(looks, base, value), step)
-            return design, a
-
-        def ok(a: Assessment | None) -> bool:
+        def ok(value: float) -> bool:
+            a = self._try(turn.apply(looks, base, value), step)[1]
             return a is not None and a.type1 <= self.request.alpha
 
-        if not ok(run(most)[1]):
+        if not ok(most):
             value = most
-        elif ok(run(least)[1]):
+        elif ok(least):
             value = least
         else:
             bad, good = least, most
@@ -202,21 +199,16 @@ class Tuner:
                 if abs(good - bad) <= CONTINUOUS_TOLERANCE:
                     break
                 mid = 0.5 * (bad + good)
-                if ok(run(mid)[1]):
+                if ok(mid):
                     good = mid
                 else:
                     bad = mid
             value = good
             nicer = shortest_between(good, bad, closed_other=True)
-            if nicer != good and ok(run(nicer)[1]):
+            if nicer != good and ok(nicer):
                 value = nicer
-        chosen = turn.apply(looks, base, value)
-        design, a, row = self._try(chosen, step)
-        if design is None:
-            return None
-        alpha_ok, power_ok = self.log.meets(a)
-        return Choice(chosen, design, a, row, alpha_ok, power_ok,
-                      {turn.name: {"value": value, "exact": value, "equivalent": None}})
+        return self._chosen(turn.apply(looks, base, value), step,
+                            {turn.name: {"value": value, "exact": value, "equivalent": None}})
 
     # -- grids around the calibrated threshold ------------------------------------------
     def tune(self, looks: dict[str, Any], step: str = "threshold") -> Choice | None:
