@@ -362,3 +362,22 @@ def test_infeasible_alpha_with_interim_efficacy_says_so() -> None:
     design = build(ONE_ARM, looks__n=[10, 30], looks__efficacy=[0.6, 0.95], looks__futility=None)
     with pytest.raises(InputError, match="--alpha: expected a type I error the design can meet"):
         calibrate(design, alpha=0.01)
+
+
+def test_two_arm_refinement_between_grid_points() -> None:
+    """A deliberately coarse null grid (5 points): refinement along the null line finds
+    the maximum that a 999-point scan with the batched engine finds, and a calibration that
+    the coarse grid alone would get wrong is repeated with the worse point added."""
+    from octrial.engines.lattice_batch import IncrementTables, run_batch
+
+    design = build(TWO_ARM, looks__n=[30, 80], looks__efficacy=[0.999, 0.97],
+                   looks__futility=0.1)
+    result = calibrate(design, alpha=0.025, null_points=5)
+    controls = np.linspace(0.001, 0.999, 999)
+    scan = run_batch(result.design, build_rule(result.design),
+                     IncrementTables(result.design, np.column_stack([controls, controls])))
+    best = scan.efficacy.sum(axis=1).max()
+    assert result.summary["type1_error_refined"] >= best - 1e-12
+    assert result.summary["type1_error_refined"] <= 0.025
+    assert result.summary["type1_error_refined"] >= result.summary["type1_error"]
+    assert any("added to the null grid" in note for note in result.summary["notes"])

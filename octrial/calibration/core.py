@@ -19,6 +19,7 @@ import pandas as pd
 from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, evaluator_for
 from octrial.calibration.log import Log
 from octrial.calibration.nulls import Truths, null_truths
+from octrial.calibration.refine import Refined, refine_worst
 from octrial.calibration.request import Request, make_request
 from octrial.calibration.stages import search
 from octrial.calibration.tuning import Choice, Tuner, best_failing
@@ -33,6 +34,8 @@ from octrial.rules.lattice import build_rule
 
 AGREEMENT = 1e-12
 """The fast path and the exact engine must agree this closely on the chosen design."""
+REFINE_ROUNDS = 4
+"""Calibrations with refined worst points added to the null grid before giving up."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -94,11 +97,12 @@ def _describe(choice: Choice) -> str:
 
 
 class _Search:
-    def __init__(self, design: Design, request: Request) -> None:
+    def __init__(self, design: Design, request: Request,
+                 extra: tuple[tuple[float, ...], ...] = ()) -> None:
         self.design = design
         self.request = request
         self.builder = Builder(design)
-        self.truths = null_truths(design, request.null_points, request.alternative)
+        self.truths = null_truths(design, request.null_points, request.alternative, extra)
         self.ev: Evaluator = evaluator_for(design, self.truths, request.method)
         self.log = Log(design, self.truths, request.alpha, request.power)
         self.tuner = Tuner(self.builder, self.ev, request, self.log)
@@ -246,24 +250,43 @@ def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> C
     >>> result.summary["chosen"]["final"]["value"]  # doctest: +SKIP
     """
     request = make_request(design, source, **settings)
-    run = _Search(design, request)
-    run.source = source
-    if request.search:
-        choice = run.stages()
-    elif request.sizes:
-        choice = run.sizes()
+    extra: tuple[tuple[float, ...], ...] = ()
+    history: list[str] = []
+    for _ in range(REFINE_ROUNDS):
+        run = _Search(design, request, extra)
+        run.source = source
+        run.notes += history
+        if request.search:
+            choice = run.stages()
+        elif request.sizes:
+            choice = run.sizes()
+        else:
+            choice = run.thresholds()
+        refined = refine_worst(choice.design, run.truths, choice.assessment)
+        if refined is None or refined.type1 <= request.alpha:
+            break
+        # the grid missed a worse point between its nodes: add it and calibrate again
+        where = ", ".join(f"{arm} = {v:.6g}" for arm, v in zip(design.arm_names,
+                                                                refined.point, strict=True))
+        history.append(f"between grid points the type I error reached {refined.type1:.6g} "
+                       f"at {where}; that point was added to the null grid and the "
+                       "calibration repeated")
+        extra = (*extra, refined.point)
     else:
-        choice = run.thresholds()
+        raise run.fail("--null-points", "a null grid on which the calibration holds between "
+                       "grid points", f"{request.null_points} (type I error {refined.type1:.6g} "
+                       f"> alpha at {refined.point} after {REFINE_ROUNDS} rounds; use more "
+                       "points)")
     run.log.choose(choice.row)
     _check_against_engine(choice.design, run.truths, choice.assessment)
     data = run.builder.data_for(choice.looks)
     data["name"] = f"{design.name}.calibrated"
-    summary = _summary(run, choice)
+    summary = _summary(run, choice, refined)
     return Calibration(request, design, choice.design, data, choice, run.truths,
                        run.log.frame(), run.curve, summary)
 
 
-def _summary(run: _Search, choice: Choice) -> dict[str, Any]:
+def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str, Any]:
     design, truths, a = choice.design, run.truths, choice.assessment
     request = run.request
     out: dict[str, Any] = {
@@ -277,6 +300,9 @@ def _summary(run: _Search, choice: Choice) -> dict[str, Any]:
         "type1_error": a.type1,
         "type1_error_se": a.type1_se,
         "worst_null_point": _point(design, truths, a.worst),
+        "type1_error_refined": None if refined is None else refined.type1,
+        "worst_null_point_refined": None if refined is None else dict(
+            zip(design.arm_names, refined.point, strict=True)),
         "power": a.power,
         "power_se": a.power_se if a.power is not None else None,
         "expected_n_null": a.expected_n_null,

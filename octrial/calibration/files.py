@@ -65,6 +65,9 @@ def summary_lines(cal: Calibration) -> list[str]:
     se = f" (se {s['type1_error_se']:.4f})" if s["type1_error_se"] else ""
     out.append(f"  type I error: {s['type1_error']:.4f}{se}, largest at "
                f"{_where(s['worst_null_point'])}")
+    if s.get("type1_error_refined") is not None:
+        out.append(f"  between grid points (refined along the null line): "
+                   f"{s['type1_error_refined']:.6f} at {_where(s['worst_null_point_refined'])}")
     if s["power"] is not None:
         out.append(f"  power: {s['power']:.4f} at {_where(s['alternative'])}")
     en = (f"  expected N: {s['expected_n_null']:.2f} under the null "

@@ -64,6 +64,7 @@ def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> flo
 
 def null_truths(
     design: Design, points: int = 50, alternative: tuple[float, ...] | None = None,
+    extra: tuple[tuple[float, ...], ...] = (),
 ) -> Truths:
     """The null grid of ``design`` (see module docstring), with the alternative appended.
 
@@ -75,10 +76,13 @@ def null_truths(
         scenario).
     alternative : tuple of float, optional
         Appended as the last row.
+    extra : tuple of tuple of float
+        Further null points (worst points found by refinement).
     """
     family, h = design.family, design.hypothesis
     scenario = np.array(design.scenarios.values, dtype=float)
     own_nulls = [tuple(t) for t in scenario if family.is_null(h, tuple(t))]
+    own_nulls += [tuple(round(v, DECIMALS) for v in t) for t in extra]
     if not design.two_arm:
         b = float(h.benchmark)
         worse = -h.sign
