@@ -63,6 +63,7 @@ def test_calibrated_file_runs_as_is(runner, tmp_path, case) -> None:
         assert at[0.4] == pytest.approx(record["power"], abs=1e-14) and at[0.4] >= 0.8
     loaded = octrial.load_design(written)
     assert loaded.name == "single-arm-response.calibrated"
+    assert record["calibrated_design"]["name"] == loaded.name
     assert tuple(loaded.looks.n) == tuple(record["looks_n"])
 
 

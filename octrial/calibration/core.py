@@ -10,6 +10,7 @@ larger N in the range passes (looks that collide at an N leave that N out of bot
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Any
 
@@ -282,7 +283,8 @@ def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> C
     data = run.builder.data_for(choice.looks)
     data["name"] = f"{design.name}.calibrated"
     summary = _summary(run, choice, refined)
-    return Calibration(request, design, choice.design, data, choice, run.truths,
+    calibrated = dataclasses.replace(choice.design, name=data["name"])  # as the file reads
+    return Calibration(request, design, calibrated, data, choice, run.truths,
                        run.log.frame(), run.curve, summary)
 
 
