@@ -17,7 +17,8 @@ from octrial.design.load import load_design
 from octrial.design.model import Design
 from octrial.design_prior import assurance_record
 from octrial.endpoints.base import LatticeFamily
-from octrial.engines import choose
+from octrial.engines import MonteCarloSettings, choose
+from octrial.execution import Execution
 from octrial.results import oc_table, type1_summary
 from octrial.rules.boundaries import boundary_table
 from octrial.rules.lattice import DECISION_TOLERANCE, build_rule
@@ -48,7 +49,11 @@ def _as_design(design: Design | str | Path) -> Design:
     return design if isinstance(design, Design) else load_design(design)
 
 
-def compute(design: Design | str | Path, method: str | None = None, **options: Any) -> Evaluation:
+def compute(
+    design: Design | str | Path, method: str | None = None,
+    settings: MonteCarloSettings | None = None, execution: Execution | None = None,
+    **options: Any,
+) -> Evaluation:
     """Evaluate ``design`` at all its scenarios.
 
     Parameters
@@ -57,6 +62,11 @@ def compute(design: Design | str | Path, method: str | None = None, **options: A
         A loaded design or the path of a design file.
     method : {'auto', 'exact', 'monte-carlo'}, optional
         Overrides ``simulation.method``.
+    settings : MonteCarloSettings, optional
+        Simulation settings (replicates, seed, target standard error); exact engines
+        ignore them.
+    execution : Execution, optional
+        Workers, backend, checkpoints and progress bar for simulation.
     **options
         Passed to the engine.
 
@@ -68,7 +78,8 @@ def compute(design: Design | str | Path, method: str | None = None, **options: A
     engine = choose(design, method)
     truths = np.array(design.scenarios.values, dtype=float)
     rule = build_rule(design) if isinstance(design.family, LatticeFamily) else None
-    outcome = engine.run(design, truths, rule=rule, **options)
+    outcome = engine.run(design, truths, rule=rule, settings=settings, execution=execution,
+                         **options)
     oc = oc_table(design, truths, outcome)
     boundaries = boundary_table(design, rule) if rule is not None else None
     info = {
@@ -90,7 +101,9 @@ def _prior_claim(design: Design) -> float | None:
 
 
 def evaluate(
-    design: Design | str | Path, method: str | None = None, **options: Any,
+    design: Design | str | Path, method: str | None = None,
+    settings: MonteCarloSettings | None = None, execution: Execution | None = None,
+    **options: Any,
 ) -> pd.DataFrame:
     """Operating characteristics of ``design``: one row per scenario.
 
@@ -100,6 +113,8 @@ def evaluate(
         A loaded design or the path of a design file.
     method : {'auto', 'exact', 'monte-carlo'}, optional
         Overrides ``simulation.method``.
+    settings, execution : optional
+        As for :func:`compute`.
 
     Returns
     -------
@@ -112,4 +127,4 @@ def evaluate(
     >>> oc = octrial.evaluate("designs/single-arm-response.toml")  # doctest: +SKIP
     >>> oc[["true_treatment", "prob_success"]].head()  # doctest: +SKIP
     """
-    return compute(design, method, **options).oc
+    return compute(design, method, settings, execution, **options).oc

@@ -271,11 +271,13 @@ def _read_simulation(top: Table) -> Simulation:
     table = top.table("simulation", required=False)
     if table is None:
         return Simulation()
-    table.allow("method", "replicates", "seed")
+    table.allow("method", "replicates", "seed", "interval_level")
     method = table.string("method", METHODS, required=False, default="auto")
     replicates = table.number("replicates", required=False, default=10_000, integer=True,
                               check=lambda v: v >= 1, expected="a whole number >= 1")
     seed = table.number("seed", required=False, integer=True,
                         check=lambda v: 0 <= v < 2**63, expected="a whole number >= 0")
+    level = table.number("interval_level", required=False, default=0.95,
+                         check=lambda v: 0 < v < 1, expected="a level in (0, 1)")
     return Simulation(method or "auto", int(replicates or 10_000),
-                      None if seed is None else int(seed))
+                      None if seed is None else int(seed), level or 0.95)

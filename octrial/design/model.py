@@ -169,6 +169,8 @@ class Simulation:
     method: str = "auto"
     replicates: int = 10_000
     seed: int | None = None
+    interval_level: float = 0.95
+    """Level of the equal-tailed credible interval whose coverage is reported."""
 
 
 @dataclass(frozen=True)

@@ -74,6 +74,16 @@ class Family(ABC):
             return hypothesis.sign * (truth[0] - hypothesis.benchmark)
         return hypothesis.sign * (truth[0] - truth[1]) - hypothesis.shift
 
+    def target_value(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
+        """The true value of the target parameter that simulation summaries are about.
+
+        One arm: the arm's parameter. Two arms on a difference: theta_T - theta_C.
+        Families comparing on another scale (a ratio) override this.
+        """
+        if len(truth) == 1:
+            return truth[0]
+        return truth[0] - truth[1]
+
     def is_null(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> bool:
         """Whether a scenario lies in the null region (boundary included)."""
         return self.effect(hypothesis, truth) <= NULL_TOLERANCE
@@ -134,3 +144,16 @@ class LatticeFamily(Family):
     def predictive_pmf(self, design: Any, posterior: Any, m: int, size: int) -> np.ndarray:
         """Predictive pmf of the statistic of ``m`` future subjects, one row per lattice
         point of ``posterior`` and ``size`` columns."""
+
+    # -- simulation summaries (optional) --------------------------------------------
+    def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray | None:
+        """Posterior mean of the target parameter (see :meth:`Family.target_value`) on the
+        lattice, shaped like :meth:`benefit`; ``None`` when the family does not provide
+        bias, RMSE and coverage summaries."""
+        return None
+
+    def target_cdf(
+        self, design: Any, posteriors: tuple[Any, ...], value: float,
+    ) -> np.ndarray | None:
+        """Posterior Pr(target <= ``value``) on the lattice, shaped like :meth:`benefit`."""
+        return None

@@ -262,6 +262,19 @@ class BinaryFamily(LatticeFamily):
     def predictive_pmf(self, design: Any, posterior: Any, m: int, size: int) -> np.ndarray:
         return predictive_pmf(posterior, m)[:, :size]
 
+    def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray:
+        if len(posteriors) == 1:
+            return posteriors[0].mean()
+        treatment, control = posteriors
+        return treatment.mean()[:, None] - control.mean()[None, :]
+
+    def target_cdf(self, design: Any, posteriors: tuple[Any, ...], value: float) -> np.ndarray:
+        if len(posteriors) == 1:
+            return posteriors[0].cdf(value)
+        treatment, control = posteriors
+        exceeds, _ = prob_difference_exceeds(treatment, control, value)
+        return 1.0 - exceeds
+
     def prior_probability_of_claim(self, design: Any) -> float:
         priors = tuple(update(arm.prior, 0, np.zeros(1)) for arm in design.arms)
         return float(np.asarray(self.benefit(design, priors)[0]).ravel()[0])

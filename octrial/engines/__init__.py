@@ -1,4 +1,4 @@
-"""Engines: exact dynamic programming and (later) Monte Carlo simulation.
+"""Engines: exact dynamic programming and Monte Carlo simulation.
 
 An engine is a class with ``name``, ``unsupported(design) -> str | None`` and
 ``run(design, truths, ...) -> Outcome``. :func:`choose` picks one for a design and a
@@ -11,11 +11,13 @@ from typing import Any
 
 from octrial.design.model import Design
 from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
 from octrial.engines.outcome import Outcome
 from octrial.errors import single
 
 ENGINES: dict[str, tuple[Any, ...]] = {
     "exact": (ExactLatticeEngine,),
+    "monte-carlo": (MonteCarloEngine,),
 }
 """Engines by method name, tried in order."""
 
@@ -45,4 +47,4 @@ def choose(design: Design, method: str | None = None) -> Any:
                  method, "; ".join(reasons))
 
 
-__all__ = ["ENGINES", "Outcome", "choose"]
+__all__ = ["ENGINES", "MonteCarloSettings", "Outcome", "choose"]

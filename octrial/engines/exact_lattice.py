@@ -6,15 +6,21 @@ arms' increments are independent, so the two-dimensional convolution separates i
 convolution per axis), then move the mass on the look's efficacy and futility points into
 the stopping probabilities. No Monte Carlo error: the only numerical error is that of the
 posterior probabilities behind the rule, reported with the result.
+
+The same stopping distribution gives the bias and RMSE of the posterior mean and the
+coverage of the credible interval at the stopping look as exact expectations.
 """
 
 from __future__ import annotations
+
+from typing import Any
 
 import numpy as np
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
-from octrial.engines.outcome import Outcome
+from octrial.engines.outcome import Estimation, Outcome
+from octrial.rules.estimates import LatticeEstimates, coverage_tables, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule
 
 
@@ -31,20 +37,24 @@ def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndar
     return np.moveaxis(np.tensordot(matrix, dist, axes=([1], [axis])), 0, axis)
 
 
-def stopping_probabilities(
+def stopped_mass(
     design: Design, rule: LatticeRule, truth: tuple[float, ...],
-) -> tuple[np.ndarray, np.ndarray, float]:
-    """Exact per-look stopping probabilities at one true parameter vector.
+) -> tuple[list[np.ndarray], np.ndarray, np.ndarray, float]:
+    """Exact distribution of where studies stop, at one true parameter vector.
 
     Returns
     -------
+    mass : list of ndarray
+        Per look, Pr(the study stops at look k at each lattice point).
     efficacy, futility : ndarray, shape (looks,)
+        Pr(stop for efficacy / futility at look k).
     neglected : float
         Probability mass dropped by truncating the lattice (0 for bounded statistics).
     """
     family: LatticeFamily = design.family
     k_looks = len(rule.looks)
     efficacy, futility = np.zeros(k_looks), np.zeros(k_looks)
+    mass = []
     dist = np.ones((1,) * len(truth))
     previous = (0,) * len(truth)
     neglected = 0.0
@@ -58,9 +68,42 @@ def stopping_probabilities(
             neglected += max(before - dist.sum(), 0.0)
         efficacy[k] = dist[table.efficacy].sum()
         futility[k] = dist[table.futility].sum()
-        dist = np.where(table.efficacy | table.futility, 0.0, dist)
+        stops = table.efficacy | table.futility
+        mass.append(np.where(stops, dist, 0.0))
+        dist = np.where(stops, 0.0, dist)
         previous = table.n
+    return mass, efficacy, futility, neglected
+
+
+def stopping_probabilities(
+    design: Design, rule: LatticeRule, truth: tuple[float, ...],
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Exact per-look stopping probabilities at one true parameter vector.
+
+    Returns
+    -------
+    efficacy, futility : ndarray, shape (looks,)
+    neglected : float
+        Probability mass dropped by truncating the lattice (0 for bounded statistics).
+    """
+    _, efficacy, futility, neglected = stopped_mass(design, rule, truth)
     return efficacy, futility, neglected
+
+
+def exact_estimation(
+    design: Design, estimates: LatticeEstimates, truth: tuple[float, ...],
+    mass: list[np.ndarray], level: float,
+) -> tuple[np.ndarray, float]:
+    """E[e], E[e^2], E[e^4] of the posterior mean's error e at the stopping look, and the
+    coverage probability, as exact sums over the stopping distribution ``mass``."""
+    target = design.family.target_value(design.hypothesis, truth)
+    covered = coverage_tables(design, estimates, truth, level)
+    moments, coverage = np.zeros(3), 0.0
+    for m, mean, cover in zip(mass, estimates.means, covered, strict=True):
+        e2 = (mean - target) ** 2
+        moments += [np.sum(m * (mean - target)), np.sum(m * e2), np.sum(m * e2 * e2)]
+        coverage += float(np.sum(m[cover]))
+    return moments, coverage
 
 
 class ExactLatticeEngine:
@@ -76,15 +119,34 @@ class ExactLatticeEngine:
         return None
 
     @staticmethod
-    def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None) -> Outcome:
-        """Evaluate every scenario in ``truths`` (one row per scenario, one column per arm)."""
+    def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
+            **_simulation: Any) -> Outcome:
+        """Evaluate every scenario in ``truths`` (one row per scenario, one column per arm).
+
+        Simulation settings (replicates, seeds, parallel execution) do not apply and are
+        ignored.
+        """
         rule = build_rule(design) if rule is None else rule
-        rows = [stopping_probabilities(design, rule, tuple(t)) for t in truths]
-        efficacy = np.array([r[0] for r in rows])
-        futility = np.array([r[1] for r in rows])
-        neglected = np.array([r[2] for r in rows])
+        estimates = lattice_estimates(design)
+        level = design.simulation.interval_level
+        efficacy, futility, neglected, moments, coverage = [], [], [], [], []
+        for t in truths:
+            mass, eff, fut, lost = stopped_mass(design, rule, tuple(t))
+            efficacy.append(eff)
+            futility.append(fut)
+            neglected.append(lost)
+            if estimates is not None:
+                m, c = exact_estimation(design, estimates, tuple(t), mass, level)
+                moments.append(m)
+                coverage.append(c)
         info = {
             "quadrature_error_bound": rule.quadrature_error,
-            "max_neglected_mass": float(neglected.max()) if neglected.size else 0.0,
+            "max_neglected_mass": float(max(neglected)) if neglected else 0.0,
         }
-        return Outcome(efficacy, futility, np.zeros(len(truths), dtype=int), "exact", info=info)
+        estimation = None
+        if estimates is not None:
+            estimation = Estimation(np.array(moments).reshape(len(truths), 3),
+                                    np.array(coverage), level)
+        return Outcome(np.array(efficacy), np.array(futility),
+                       np.zeros(len(truths), dtype=int), "exact", info=info,
+                       estimation=estimation)

@@ -15,6 +15,28 @@ import numpy as np
 
 
 @dataclass(frozen=True, eq=False)
+class Estimation:
+    """How well a study estimates its target parameter at the look where it stops.
+
+    The target is what the hypothesis is about (one arm: the arm's parameter; two arms:
+    the effect, treatment - control). e = posterior mean - true value at the stopping look.
+
+    Attributes
+    ----------
+    error_moments : ndarray, shape (scenarios, 3)
+        E[e], E[e^2] and E[e^4] (exact expectations, or averages over simulated studies).
+    coverage : ndarray, shape (scenarios,)
+        Pr(the equal-tailed credible interval at ``level`` contains the true value).
+    level : float
+        The credible interval's level.
+    """
+
+    error_moments: np.ndarray
+    coverage: np.ndarray
+    level: float
+
+
+@dataclass(frozen=True, eq=False)
 class Outcome:
     """Per-scenario results of one engine.
 
@@ -30,9 +52,11 @@ class Outcome:
     method : str
         'exact' or 'monte-carlo'.
     extra : dict of str to ndarray
-        Further per-scenario columns an engine provides (for example bias and coverage).
+        Further per-scenario columns an engine provides.
     info : dict
         Numerical facts for run.json (tolerances, neglected mass, seeds).
+    estimation : Estimation or None
+        Bias, RMSE and coverage ingredients (``None`` when the design has no priors).
     """
 
     efficacy: np.ndarray
@@ -41,3 +65,4 @@ class Outcome:
     method: str
     extra: dict[str, np.ndarray] = field(default_factory=dict)
     info: dict[str, Any] = field(default_factory=dict)
+    estimation: Estimation | None = None

@@ -1,0 +1,263 @@
+"""The Monte Carlo engine: simulated studies per scenario, with standard errors.
+
+Policy lives here; the numbers come from a :class:`~octrial.simulation.base.Simulator`.
+
+* **Kernels.** Lattice families use the table kernel (decision tables on the count
+  lattice, increments from inverse-CDF tables); ``kernel='general'`` evaluates posterior
+  and predictive probabilities per study instead (families register one in
+  :data:`octrial.simulation.GENERAL_KERNELS`).
+* **Randomness.** One seed in. Scenario i's batch b is simulated with
+  ``Generator(PCG64(SeedSequence(seed, spawn_key=(i, b))))``, the child that
+  ``SeedSequence(seed).spawn(...)[i].spawn(...)[b]`` gives, built directly so that any
+  worker can make it. Batches have a fixed size and their tallies are added in batch
+  order, so results do not depend on the number of workers, the backend or the order in
+  which scenarios finish.
+* **Precision.** A fixed number of replicates per scenario, or (``target_se``) batches
+  until every estimated probability's standard error is at most the target or the cap
+  ``max_replicates`` is reached. Memory is bounded by the batch size.
+* **Resumption.** With a checkpoint folder each finished scenario is saved as it
+  arrives (:mod:`octrial.execution.checkpoints`), keyed by everything that determines
+  its numbers.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import secrets
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from octrial._version import __version__
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.engines.outcome import Estimation, Outcome
+from octrial.execution import Execution, run_grid
+from octrial.execution.checkpoints import CheckpointStore, run_key
+from octrial.rules.estimates import LatticeEstimates, lattice_estimates
+from octrial.rules.lattice import LatticeRule, build_rule
+from octrial.simulation import GENERAL_KERNELS, general_unsupported
+from octrial.simulation.base import Simulator, Tally
+from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
+
+KERNELS = ("auto", "table", "general")
+SEED_BITS = 63
+
+
+@dataclass(frozen=True)
+class MonteCarloSettings:
+    """What determines the simulated numbers (beside the design).
+
+    Attributes
+    ----------
+    replicates : int or None
+        Studies per scenario; default ``simulation.replicates``. Ignored with a target.
+    seed : int or None
+        Default ``simulation.seed``; when neither is given one is drawn and recorded.
+    target_se : float or None
+        Simulate batches until every estimated probability's standard error is at most
+        this (or ``max_replicates`` is reached).
+    max_replicates : int
+        Cap on studies per scenario under a target standard error.
+    batch_size : int
+        Studies per batch (the unit of seeding and of memory).
+    kernel : {'auto', 'table', 'general'}
+        'auto' takes the table kernel where a lattice rule exists.
+    """
+
+    replicates: int | None = None
+    seed: int | None = None
+    target_se: float | None = None
+    max_replicates: int = 10_000_000
+    batch_size: int = 50_000
+    kernel: str = "auto"
+
+
+@dataclass(frozen=True, eq=False)
+class ScenarioTask:
+    """Everything a worker needs to simulate one scenario (picklable)."""
+
+    index: int
+    truth: tuple[float, ...]
+    design: Design
+    plan: LatticePlan | None
+    estimates: LatticeEstimates | None
+    settings: MonteCarloSettings
+
+
+def batch_generator(seed: int, scenario: int, batch: int) -> np.random.Generator:
+    """The random generator for one batch of one scenario (0-based indices)."""
+    sequence = np.random.SeedSequence(seed, spawn_key=(scenario, batch))
+    return np.random.Generator(np.random.PCG64(sequence))
+
+
+def adjusted_se(tally: Tally) -> float:
+    """Largest standard error over the tally's probabilities, with p estimated as
+    (x + 1) / (R + 2) so that a probability not yet observed does not count as known
+    exactly (used only to decide when to stop simulating)."""
+    r = tally.replicates
+    p = (tally.probabilities() * r + 1.0) / (r + 2.0)
+    return float(np.sqrt(np.max(p * (1.0 - p)) / r))
+
+
+def make_simulator(task: ScenarioTask) -> Simulator:
+    """The simulator a task asks for."""
+    design = task.design
+    level = design.simulation.interval_level
+    if task.plan is not None:
+        return LatticeSimulator(design, task.plan, task.truth, task.estimates, level)
+    return GENERAL_KERNELS[design.family.name](design, task.truth, level)
+
+
+def simulate_scenario(task: ScenarioTask) -> dict[str, np.ndarray]:
+    """Simulate one scenario batch by batch (runs in a worker)."""
+    settings = task.settings
+    simulator = make_simulator(task)
+    tally: Tally | None = None
+    batch = 0
+    while True:
+        done = 0 if tally is None else tally.replicates
+        if settings.target_se is None:
+            size = min(settings.batch_size, settings.replicates - done)
+        else:
+            size = min(settings.batch_size, settings.max_replicates - done)
+        if size <= 0:
+            break
+        part = simulator.simulate(batch_generator(settings.seed, task.index, batch), size)
+        tally = part if tally is None else tally + part
+        batch += 1
+        if settings.target_se is not None and adjusted_se(tally) <= settings.target_se:
+            break
+    arrays = tally.to_arrays()
+    if settings.target_se is not None:
+        arrays["target_met"] = np.array(adjusted_se(tally) <= settings.target_se)
+    return arrays
+
+
+class MonteCarloEngine:
+    """Simulated operating characteristics with Monte Carlo standard errors."""
+
+    name = "monte-carlo"
+
+    @staticmethod
+    def unsupported(design: Design) -> str | None:
+        """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
+        if isinstance(design.family, LatticeFamily):
+            return None
+        return general_unsupported(design)
+
+    @staticmethod
+    def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
+            settings: MonteCarloSettings | None = None,
+            execution: Execution | None = None) -> Outcome:
+        """Simulate every scenario in ``truths`` (one row per scenario, one column per arm).
+
+        Parameters
+        ----------
+        settings : MonteCarloSettings, optional
+            Replicates, seed, target standard error, kernel.
+        execution : Execution, optional
+            Workers, backend, checkpoints, progress (never changes a number).
+        """
+        settings = settings or MonteCarloSettings()
+        execution = execution or Execution()
+        kernel = _kernel(design, settings.kernel)
+        settings = dataclasses.replace(
+            settings, kernel=kernel,
+            replicates=settings.replicates or design.simulation.replicates,
+            seed=settings.seed if settings.seed is not None else design.simulation.seed)
+        store, settings, drawn = _checkpoints(design, settings, execution)
+
+        plan = estimates = None
+        if kernel == "table":
+            rule = build_rule(design) if rule is None else rule
+            estimates = lattice_estimates(design)
+            plan = lattice_plan(design, rule, estimates)
+        tasks = [ScenarioTask(i, tuple(float(v) for v in t), design, plan, estimates, settings)
+                 for i, t in enumerate(truths)]
+        results, resumed = run_grid(simulate_scenario, tasks, execution, store)
+        return _outcome(design, settings, results, drawn, resumed)
+
+
+def _kernel(design: Design, wanted: str) -> str:
+    if wanted not in KERNELS:
+        raise ValueError(f"kernel must be one of {KERNELS}; got {wanted!r}")
+    if wanted == "auto":
+        return "table" if isinstance(design.family, LatticeFamily) else "general"
+    if wanted == "table" and not isinstance(design.family, LatticeFamily):
+        raise ValueError(f"{design.family.name} endpoints have no decision tables")
+    if wanted == "general" and (reason := general_unsupported(design)):
+        raise ValueError(reason)
+    return wanted
+
+
+def _checkpoints(
+    design: Design, settings: MonteCarloSettings, execution: Execution,
+) -> tuple[CheckpointStore | None, MonteCarloSettings, bool]:
+    """The run's checkpoint store (if any) and the settings with a seed for certain."""
+    drawn = settings.seed is None
+    numbers = dataclasses.asdict(settings)
+    if settings.target_se is None:
+        numbers.pop("max_replicates")
+    else:
+        numbers.pop("replicates")
+    ingredients = {
+        "design_sha256": design.source.sha256,
+        "design": repr(design),
+        "engine": MonteCarloEngine.name,
+        "settings": {**numbers, "seed": "drawn" if drawn else settings.seed},
+        "octrial": __version__,
+    }
+    store = None
+    if execution.checkpoints is not None:
+        store = CheckpointStore(execution.checkpoints / run_key(ingredients), ingredients)
+    seed = settings.seed
+    if drawn:
+        seed = store.seed() if store is not None else None
+        if seed is None:
+            seed = secrets.randbits(SEED_BITS)
+            if store is not None:
+                store.save_seed(seed)
+    return store, dataclasses.replace(settings, seed=seed), drawn
+
+
+def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[str, Any]],
+             drawn: bool, resumed: int) -> Outcome:
+    tallies = [Tally.from_arrays(r) for r in results]
+    replicates = np.array([t.replicates for t in tallies], dtype=np.int64)
+    r = replicates[:, None].astype(float)
+    efficacy = np.array([t.efficacy for t in tallies], dtype=float) / r
+    futility = np.array([t.futility for t in tallies], dtype=float) / r
+    estimation = None
+    if tallies and tallies[0].error_sums is not None:
+        moments = np.array([t.error_sums for t in tallies]) / r
+        coverage = np.array([t.covered for t in tallies], dtype=float) / replicates
+        estimation = Estimation(moments, coverage, design.simulation.interval_level)
+    info: dict[str, Any] = {
+        "seed": settings.seed,
+        "seed_drawn": drawn,
+        "random_numbers": "numpy PCG64; scenario i (from 0), batch b: "
+                          "SeedSequence(seed, spawn_key=(i, b))",
+        "kernel": settings.kernel,
+        "batch_size": settings.batch_size,
+        "replicates_per_scenario": (None if settings.target_se is not None
+                                    else settings.replicates),
+        "scenarios_resumed": resumed,
+        "studies_clipped": int(sum(t.clipped for t in tallies)),
+    }
+    extra: dict[str, np.ndarray] = {}
+    if settings.target_se is not None:
+        met = np.array([bool(res["target_met"]) for res in results])
+        extra["target_se_met"] = met
+        info["target_se"] = settings.target_se
+        info["max_replicates"] = settings.max_replicates
+        info["scenarios_short_of_target"] = [int(i) + 1 for i in np.flatnonzero(~met)]
+    return Outcome(efficacy, futility, replicates, "monte-carlo", extra=extra, info=info,
+                   estimation=estimation)
+
+
+def replicates_for(se: float, p: float = 0.5) -> int:
+    """Studies needed for standard error ``se`` at probability ``p``: p (1 - p) / se^2."""
+    return math.ceil(p * (1.0 - p) / se**2)
