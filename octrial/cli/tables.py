@@ -36,6 +36,8 @@ def type1_line(summary: dict[str, Any] | None) -> str:
         return "No null scenario in the grid: type I error not assessed."
     at = ", ".join(f"{k} = {v:g}" for k, v in summary["at"].items())
     se = f" (se {summary['se']:.4f})" if summary["se"] > 0 else ""
+    if "upper_bound_95" in summary:
+        se = f" (never observed; one-sided 95% upper bound {summary['upper_bound_95']:.2g})"
     return (f"Maximum type I error over {summary['null_scenarios']} null scenarios: "
             f"{summary['max_type1_error']:.4f}{se} at {at}.")
 
