@@ -64,14 +64,29 @@ def test_bad_design_exits_2_and_writes_nothing(runner, tmp_path) -> None:
     assert not out.exists()
 
 
-def test_monte_carlo_not_yet_is_a_clear_error(runner, tmp_path) -> None:
-    out = tmp_path / "out"
+def test_monte_carlo_from_the_command_line(runner, tmp_path) -> None:
     result = runner.invoke(main, ["run", str(DEMOS[0]), "--method", "monte-carlo", "--out",
-                                  str(out)])
-    if "monte-carlo" in octrial.engines.ENGINES:
-        pytest.skip("the Monte Carlo engine exists")
-    assert result.exit_code == 2 and "simulation.method" in result.output
-    assert not out.exists()
+                                  str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    oc = pd.read_csv(tmp_path / "oc.csv")
+    design = octrial.load_design(DEMOS[0])
+    assert (oc["method"] == "monte-carlo").all()
+    assert (oc["replicates"] == design.simulation.replicates).all()
+    assert (oc["prob_success_se"] > 0).any() and {"bias", "rmse", "coverage"} <= set(oc)
+    record = json.loads((tmp_path / "run.json").read_text())
+    assert record["engine"] == "monte-carlo" and record["seed"] == design.simulation.seed
+    assert record["kernel"] == "table" and not record["seed_drawn"]
+    assert not (tmp_path / ".partial").exists()
+    api = octrial.evaluate(design, "monte-carlo")
+    numeric = api.select_dtypes("number").columns
+    np.testing.assert_array_equal(oc[numeric].to_numpy(float), api[numeric].to_numpy(float))
+
+
+def test_auto_prefers_exact(runner, tmp_path) -> None:
+    result = runner.invoke(main, ["run", str(DEMOS[0]), "--method", "auto", "--out",
+                                  str(tmp_path)])
+    assert result.exit_code == 0
+    assert (pd.read_csv(tmp_path / "oc.csv")["method"] == "exact").all()
 
 
 def test_version_and_help(runner) -> None:
