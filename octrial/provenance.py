@@ -16,7 +16,8 @@ from typing import Any
 from octrial._version import __version__
 from octrial.caution import CAUTION
 
-LIBRARIES = ("numpy", "scipy", "pandas", "numba", "joblib", "matplotlib", "click", "jinja2")
+LIBRARIES = ("numpy", "scipy", "pandas", "numba", "joblib", "matplotlib", "click", "jinja2",
+             "dask", "distributed")
 
 
 def now() -> str:

@@ -1,0 +1,110 @@
+"""Exact bias, RMSE and coverage at the stopping look, against path enumeration.
+
+The reference walks every outcome path (scipy.stats.binom probabilities), applies the
+rule, and at the stopping point takes the posterior mean (``scipy.stats.beta.mean``) and
+the equal-tailed interval's end points (``scipy.stats.beta.ppf``; two arms: quantiles of
+p_T - p_C by ``scipy.optimize.brentq`` on a ``scipy.integrate.quad`` CDF). It shares no
+code with octrial, and it uses the interval's end points where octrial uses the posterior
+CDF at the truth.
+"""
+
+from __future__ import annotations
+
+import functools
+import itertools
+
+import numpy as np
+import pytest
+from scipy import integrate, optimize, stats
+
+from octrial.evaluation import compute
+from tests.helpers import ONE_ARM, TWO_ARM, build
+
+
+def enumerate_one_arm(prior, looks, efficacy, futility, p0, truth, level):
+    a0, b0 = prior
+    sizes = np.diff([0, *looks])
+    moments, coverage = np.zeros(3), 0.0
+    for path in itertools.product(*(range(s + 1) for s in sizes)):
+        prob = np.prod([stats.binom.pmf(y, s, truth) for y, s in zip(path, sizes, strict=True)])
+        x = 0
+        for k, (y, n) in enumerate(zip(path, looks, strict=True)):
+            x += y
+            a, b = a0 + x, b0 + n - x
+            benefit = stats.beta.sf(p0, a, b)
+            last = k == len(looks) - 1
+            if last or benefit >= efficacy[k] or benefit < futility[k]:
+                e = stats.beta.mean(a, b) - truth
+                moments += prob * np.array([e, e**2, e**4])
+                lo, hi = stats.beta.ppf([(1 - level) / 2, (1 + level) / 2], a, b)
+                coverage += prob * (lo <= truth <= hi)
+                break
+    return moments, coverage
+
+
+@pytest.mark.parametrize("truth", [0.15, 0.3, 0.5])
+@pytest.mark.parametrize("level", [0.95, 0.8])
+def test_exact_estimation_matches_enumeration(truth: float, level: float) -> None:
+    looks, efficacy, futility = [5, 10, 15], [0.99, 0.97, 0.9], [0.1, 0.2, -1.0]
+    design = build(ONE_ARM, arms__treatment__prior={"distribution": "beta", "a": 0.6,
+                                                    "b": 1.4},
+                   hypothesis__benchmark=0.25, looks__n=looks, looks__efficacy=efficacy,
+                   looks__futility=futility[:2], scenarios__treatment=[truth],
+                   simulation={"interval_level": level})
+    oc = compute(design).oc
+    moments, coverage = enumerate_one_arm((0.6, 1.4), looks, efficacy, futility, 0.25,
+                                          truth, level)
+    assert oc["bias"].iloc[0] == pytest.approx(moments[0], abs=1e-12)
+    assert oc["rmse"].iloc[0] == pytest.approx(np.sqrt(moments[1]), abs=1e-12)
+    assert oc["coverage"].iloc[0] == pytest.approx(coverage, abs=1e-12)
+    assert oc["bias_se"].iloc[0] == oc["coverage_se"].iloc[0] == 0.0
+
+
+@functools.cache
+def difference_cdf(a_t, b_t, a_c, b_c, d):
+    """Pr(p_T - p_C <= d) by quad (scipy.integrate)."""
+    lo, hi = max(0.0, -d), min(1.0, 1.0 - d)
+    value = integrate.quad(lambda u: stats.beta.pdf(u, a_c, b_c) * stats.beta.sf(u + d, a_t, b_t),
+                           lo, hi, epsabs=1e-13, limit=200)[0]
+    return 1.0 - value - (stats.beta.cdf(-d, a_c, b_c) if d < 0 else 0.0)
+
+
+def test_two_arm_exact_estimation_matches_enumeration() -> None:
+    per_arm, efficacy, futility, level = [3, 6], [0.95, 0.9], [0.2], 0.9
+    truth = (0.55, 0.3)
+    design = build(TWO_ARM, looks__n=[6, 12], looks__efficacy=efficacy,
+                   looks__futility=futility, simulation={"interval_level": level},
+                   scenarios={"control": [truth[1]], "treatment": [truth[0]]})
+    oc = compute(design).oc
+    delta = truth[0] - truth[1]
+    moments, coverage = np.zeros(3), 0.0
+    sizes = np.diff([0, *per_arm])
+    for path in itertools.product(*(range(s + 1) for s in sizes for _ in (0, 1))):
+        incs = np.array(path).reshape(len(sizes), 2)
+        prob = np.prod([stats.binom.pmf(incs[k, 0], s, truth[0]) * stats.binom.pmf(
+            incs[k, 1], s, truth[1]) for k, s in enumerate(sizes)])
+        x_t = x_c = 0
+        for k, n in enumerate(per_arm):
+            x_t, x_c = x_t + incs[k, 0], x_c + incs[k, 1]
+            shapes = (1 + x_t, 1 + n - x_t, 1 + x_c, 1 + n - x_c)
+            benefit = 1.0 - difference_cdf(*shapes, 0.0)
+            if k == len(per_arm) - 1 or benefit >= efficacy[k] or benefit < futility[k]:
+                e = stats.beta.mean(*shapes[:2]) - stats.beta.mean(*shapes[2:]) - delta
+                moments += prob * np.array([e, e**2, e**4])
+                lo, hi = (optimize.brentq(lambda d, q=q, s=shapes: difference_cdf(*s, d) - q,
+                                          -1 + 1e-12, 1 - 1e-12, xtol=1e-13)
+                          for q in ((1 - level) / 2, (1 + level) / 2))
+                coverage += prob * (lo <= delta <= hi)
+                break
+    assert oc["bias"].iloc[0] == pytest.approx(moments[0], abs=1e-10)
+    assert oc["rmse"].iloc[0] == pytest.approx(np.sqrt(moments[1]), abs=1e-10)
+    assert oc["coverage"].iloc[0] == pytest.approx(coverage, abs=1e-10)
+
+
+def test_count_rules_without_priors_have_no_estimation_columns() -> None:
+    design = build(ONE_ARM, arms__treatment__prior=None,
+                   looks={"n": [10, 29], "futility_count": [1, "none"],
+                          "efficacy_count": ["none", 6]})
+    for method in ("exact", "monte-carlo"):
+        oc = compute(design, method).oc
+        assert not {"bias", "rmse", "coverage"} & set(oc.columns)
