@@ -20,28 +20,35 @@ from octrial.simulation.lattice import LatticeSimulator, lattice_plan
 from tests.helpers import ONE_ARM, build
 from tests.test_monte_carlo_vs_exact import DESIGN_MAKERS
 
-ONE_ARM_DESIGNS = ["demo-one-arm", "one-arm-lower-predictive", "one-arm-mixture-predictive",
-                   "simon-counts", "simon-posterior"]
+GENERAL_DESIGNS = ["demo-one-arm", "one-arm-lower-predictive", "one-arm-mixture-predictive",
+                   "simon-counts", "simon-posterior", "two-arm", "two-arm-2-to-1"]
 
 
 def simulate(design, **settings):
     return compute(design, "monte-carlo", MonteCarloSettings(**settings)).oc
 
 
-@pytest.mark.parametrize("name", ONE_ARM_DESIGNS)
+@pytest.mark.parametrize("name", GENERAL_DESIGNS)
 def test_general_kernel_reaches_the_table_kernels_decisions(name: str) -> None:
     # The general kernel computes every posterior and predictive probability per study
-    # (numba incomplete beta); the table kernel looks decisions up in tables built with
-    # scipy. Same seed, same draws: every stopping count must be identical, and the
-    # summaries equal up to rounding.
+    # (numba incomplete beta; two arms numba quadrature); the table kernel looks
+    # decisions up in tables built with scipy. Same seed, same draws: every stopping
+    # count must be identical, and the summaries equal up to rounding.
     design = DESIGN_MAKERS[name]()
-    table = simulate(design, replicates=3000, seed=11, kernel="table")
-    general = simulate(design, replicates=3000, seed=11, kernel="general")
+    replicates = 1000 if design.two_arm else 3000
+    table = simulate(design, replicates=replicates, seed=11, kernel="table")
+    general = simulate(design, replicates=replicates, seed=11, kernel="general")
     looks = [c for c in table.columns if c.startswith("look") and not c.endswith("_se")]
     np.testing.assert_array_equal(table[looks].to_numpy(), general[looks].to_numpy())
     for column in ("bias", "rmse", "coverage"):
         if column in table:
             np.testing.assert_allclose(general[column], table[column], rtol=1e-11, atol=1e-14)
+
+
+def test_general_kernel_limits_are_clear() -> None:
+    design = DESIGN_MAKERS["two-arm-non-inferiority-predictive"]()
+    with pytest.raises(ValueError, match="predictive futility"):
+        simulate(design, replicates=100, seed=1, kernel="general")
 
 
 def test_batch_seeds_are_spawned_children() -> None:

@@ -101,3 +101,55 @@ def test_draw_frequencies_match_the_pmf() -> None:
     assert counts[~keep].sum() < 40
     assert stats.chisquare(observed, expected[keep] / expected[keep].sum()
                            * observed.sum()).pvalue > 1e-3
+
+
+def quad_difference(a_t, b_t, a_c, b_c, d):
+    """Pr(p_T - p_C > d) by scipy.integrate.quad with the kink as an end point."""
+    from scipy import integrate
+
+    lo, hi = max(0.0, -d), min(1.0, 1.0 - d)
+    value = integrate.quad(lambda u: stats.beta.pdf(u, a_c, b_c) * stats.beta.sf(u + d, a_t, b_t),
+                           lo, hi, epsabs=1e-14, epsrel=1e-12, limit=400)[0]
+    return value + (stats.beta.cdf(-d, a_c, b_c) if d < 0 else 0.0)
+
+
+@pytest.mark.parametrize("a_t, b_t, a_c, b_c, d", [
+    (0.5, 10.5, 0.5, 10.5, 0.0),      # Jeffreys prior, no responses: identity gives 1/2
+    (6.0, 6.0, 4.0, 8.0, 0.1),
+    (31.0, 71.0, 61.0, 41.0, -0.2),
+    (0.5, 3.5, 3.5, 0.5, 0.0),
+    (101.0, 101.0, 91.0, 111.0, 0.05),
+    (2.3, 48.7, 1.3, 49.7, -0.1),
+])
+def test_numba_difference_probability_against_quad(a_t, b_t, a_c, b_c, d) -> None:
+    from octrial.simulation.binary import prob_difference_exceeds, quadrature_nodes
+
+    one = np.ones(1)
+    value = prob_difference_exceeds(one, np.array([a_t]), np.array([b_t]), one,
+                                    np.array([a_c]), np.array([b_c]), d, *quadrature_nodes(),
+                                    1e-11)
+    reference = 0.5 if (a_t, b_t) == (a_c, b_c) and d == 0 else quad_difference(a_t, b_t, a_c,
+                                                                                b_c, d)
+    assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_numba_difference_probability_matches_the_lattice_quadrature() -> None:
+    # Random posteriors (mixtures included) against the vectorised quadrature that builds
+    # the decision tables (itself checked against quad and closed forms).
+    from octrial.endpoints.binary import BetaMixture, prob_difference_exceeds, update
+    from octrial.simulation import binary
+
+    nodes = binary.quadrature_nodes()
+    rng = np.random.default_rng(0)
+    for i in range(300):
+        n_t, n_c = (int(v) for v in rng.integers(1, 300, 2))
+        x_t, x_c = int(rng.integers(0, n_t + 1)), int(rng.integers(0, n_c + 1))
+        d = float(rng.choice([0.0, rng.uniform(-0.9, 0.9)]))
+        a, b = float(rng.choice([0.3, 0.5, 1, 2])), float(rng.choice([0.3, 0.5, 1, 3]))
+        prior = BetaMixture.single(a, b) if i % 3 else BetaMixture((0.6, 0.4), (a, 5.0),
+                                                                     (b, 15.0))
+        t, c = update(prior, n_t, np.array([x_t])), update(prior, n_c, np.array([x_c]))
+        reference = prob_difference_exceeds(t, c, d)[0][0, 0]
+        value = binary.prob_difference_exceeds(t.weights[0], t.a[0], t.b[0], c.weights[0],
+                                               c.a[0], c.b[0], d, *nodes, 1e-11)
+        assert value == pytest.approx(reference, abs=1e-11), (x_t, n_t, x_c, n_c, d)
