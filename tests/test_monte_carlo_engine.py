@@ -51,6 +51,17 @@ def test_general_kernel_limits_are_clear() -> None:
         simulate(design, replicates=100, seed=1, kernel="general")
 
 
+def test_bad_settings_are_reported_together() -> None:
+    from octrial.errors import InputError
+
+    with pytest.raises(InputError) as info:
+        MonteCarloSettings(replicates=0, target_se=0.7, kernel="fast")
+    text = str(info.value)
+    assert "replicates: expected a whole number >= 1; got 0" in text
+    assert "target_se: expected a standard error in (0, 0.5]; got 0.7" in text
+    assert "kernel: expected one of auto, table, general; got 'fast'" in text
+
+
 def test_batch_seeds_are_spawned_children() -> None:
     # SeedSequence(seed, spawn_key=(i, b)) is what SeedSequence(seed).spawn(.)[i].spawn(.)[b]
     # gives (numpy's documented spawn_key mechanism).

@@ -34,6 +34,7 @@ from octrial._version import __version__
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.outcome import Estimation, Outcome
+from octrial.errors import InputError, Problem, show
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import CheckpointStore, run_key
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
@@ -73,6 +74,23 @@ class MonteCarloSettings:
     max_replicates: int = 10_000_000
     batch_size: int = 50_000
     kernel: str = "auto"
+
+    def __post_init__(self) -> None:
+        checks = [
+            ("replicates", self.replicates is None or self.replicates >= 1,
+             "a whole number >= 1"),
+            ("seed", self.seed is None or 0 <= self.seed < 2**SEED_BITS,
+             "a whole number in [0, 2^63)"),
+            ("target_se", self.target_se is None or 0 < self.target_se <= 0.5,
+             "a standard error in (0, 0.5]"),
+            ("max_replicates", self.max_replicates >= 1, "a whole number >= 1"),
+            ("batch_size", self.batch_size >= 1, "a whole number >= 1"),
+            ("kernel", self.kernel in KERNELS, "one of " + ", ".join(KERNELS)),
+        ]
+        problems = [Problem(name, expected, show(getattr(self, name)))
+                    for name, ok, expected in checks if not ok]
+        if problems:
+            raise InputError("simulation settings", problems)
 
 
 @dataclass(frozen=True, eq=False)
@@ -182,8 +200,6 @@ class MonteCarloEngine:
 
 
 def _kernel(design: Design, wanted: str) -> str:
-    if wanted not in KERNELS:
-        raise ValueError(f"kernel must be one of {KERNELS}; got {wanted!r}")
     if wanted == "auto":
         return "table" if isinstance(design.family, LatticeFamily) else "general"
     if wanted == "table" and not isinstance(design.family, LatticeFamily):
