@@ -78,8 +78,11 @@ def compute(
     engine = choose(design, method)
     truths = np.array(design.scenarios.values, dtype=float)
     rule = build_rule(design) if isinstance(design.family, LatticeFamily) else None
-    outcome = engine.run(design, truths, rule=rule, settings=settings, execution=execution,
-                         **options)
+    # Simulation settings go only to engines asked to use them (engines written to the
+    # plain ``run(design, truths, rule)`` interface keep working).
+    given = {k: v for k, v in (("settings", settings), ("execution", execution))
+             if v is not None}
+    outcome = engine.run(design, truths, rule=rule, **given, **options)
     oc = oc_table(design, truths, outcome)
     boundaries = boundary_table(design, rule) if rule is not None else None
     info = {
