@@ -86,6 +86,16 @@ def _predictive(weights, a, b, x, n, n_final, p0, higher, final_threshold, tol, 
     return total
 
 
+@numba.njit(cache=True, inline="always")
+def _add_estimate(err, cdf, tail, sums):
+    """Add the error powers of one stopped study to ``sums``; 1 if its interval covers."""
+    e2 = err * err
+    sums[0] += err
+    sums[1] += e2
+    sums[2] += e2 * e2
+    return 1 if tail <= cdf <= 1.0 - tail else 0
+
+
 @numba.njit(cache=True)
 def one_arm_studies(words, n, weights, a, b, p0, higher, efficacy, futility, predictive,
                     efficacy_count, futility_count, uses_counts, has_prior, truth, tail, tol,
@@ -121,10 +131,7 @@ def one_arm_studies(words, n, weights, a, b, p0, higher, efficacy, futility, pre
                 fut = not eff
             if not (eff or fut):
                 continue
-            if eff:
-                stops_efficacy[k] += 1
-            else:
-                stops_futility[k] += 1
+            (stops_efficacy if eff else stops_futility)[k] += 1
             if has_prior:
                 _posterior_weights(weights, a, b, x, n[k], w)
                 mean = 0.0
@@ -133,12 +140,7 @@ def one_arm_studies(words, n, weights, a, b, p0, higher, efficacy, futility, pre
                     aj, bj = a[j] + x, b[j] + n[k] - x
                     mean += w[j] * aj / (aj + bj)
                     cdf += w[j] * betainc_pair(aj, bj, truth)[0]
-                err = mean - truth
-                sums[0] += err
-                sums[1] += err * err
-                sums[2] += err * err * err * err
-                if tail <= cdf <= 1.0 - tail:
-                    covered += 1
+                covered += _add_estimate(mean - truth, cdf, tail, sums)
             break
     return covered
 
@@ -274,26 +276,18 @@ def two_arm_studies(words, n_t, n_c, weights_t, a_t, b_t, weights_c, a_c, b_c, s
                 fut = not eff
             if not (eff or fut):
                 continue
-            if eff:
-                stops_efficacy[k] += 1
-            else:
-                stops_futility[k] += 1
+            (stops_efficacy if eff else stops_futility)[k] += 1
             if has_prior:
                 mean = 0.0
                 for j in range(wt.size):
                     mean += wt[j] * at_post[j] / (at_post[j] + bt_post[j])
                 for j in range(wc.size):
                     mean -= wc[j] * ac_post[j] / (ac_post[j] + bc_post[j])
-                err = mean - truth_difference
-                sums[0] += err
-                sums[1] += err * err
-                sums[2] += err * err * err * err
                 cdf = 1.0 - prob_difference_exceeds(
                     wt, at_post, bt_post, wc, ac_post, bc_post, truth_difference,
                     log_u_nodes, log_1mu_nodes, log_w_nodes, level_start,
                     QUADRATURE_TOLERANCE)
-                if tail <= cdf <= 1.0 - tail:
-                    covered += 1
+                covered += _add_estimate(mean - truth_difference, cdf, tail, sums)
             break
     return covered
 

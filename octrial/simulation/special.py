@@ -58,6 +58,18 @@ def log_beta(a: float, b: float) -> float:
     return math.lgamma(p) + corr + p - p * math.log(s) + (q - 0.5) * math.log1p(-p / s)
 
 
+@numba.njit(cache=True, inline="always")
+def _lentz_step(aa: float, c: float, d: float) -> tuple[float, float]:
+    """One modified-Lentz update of (C, 1/D) for the partial numerator ``aa``."""
+    d = 1.0 + aa * d
+    if abs(d) < TINY:
+        d = TINY
+    c = 1.0 + aa / c
+    if abs(c) < TINY:
+        c = TINY
+    return c, 1.0 / d
+
+
 @numba.njit(cache=True)
 def _continued_fraction(a: float, b: float, x: float) -> float:
     """The continued fraction of I_x(a, b) (converges fast for x < (a + 1) / (a + b + 2))."""
@@ -70,23 +82,9 @@ def _continued_fraction(a: float, b: float, x: float) -> float:
     h = d
     for m in range(1, MAX_TERMS + 1):
         m2 = 2.0 * m
-        aa = m * (b - m) * x / ((qam + m2) * (a + m2))
-        d = 1.0 + aa * d
-        if abs(d) < TINY:
-            d = TINY
-        c = 1.0 + aa / c
-        if abs(c) < TINY:
-            c = TINY
-        d = 1.0 / d
+        c, d = _lentz_step(m * (b - m) * x / ((qam + m2) * (a + m2)), c, d)
         h *= d * c
-        aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2))
-        d = 1.0 + aa * d
-        if abs(d) < TINY:
-            d = TINY
-        c = 1.0 + aa / c
-        if abs(c) < TINY:
-            c = TINY
-        d = 1.0 / d
+        c, d = _lentz_step(-(a + m) * (qab + m) * x / ((a + m2) * (qap + m2)), c, d)
         delta = d * c
         h *= delta
         if abs(delta - 1.0) < EPS:
