@@ -153,3 +153,21 @@ def test_numba_difference_probability_matches_the_lattice_quadrature() -> None:
         value = binary.prob_difference_exceeds(t.weights[0], t.a[0], t.b[0], c.weights[0],
                                                c.a[0], c.b[0], d, *nodes, 1e-11)
         assert value == pytest.approx(reference, abs=1e-11), (x_t, n_t, x_c, n_c, d)
+
+
+def test_table_kernel_holds_studies_at_the_edge_of_a_truncated_lattice() -> None:
+    # A lattice kept to 0..2 while a look adds Binomial(10, 0.5): every study whose count
+    # passes 2 is held at 2 and counted once (the share is Pr(Y >= 3), scipy.stats.binom).
+    from octrial.simulation.lattice import stop_histogram
+
+    tables = DrawTables.from_pmfs([stats.binom.pmf(np.arange(11), 10, 0.5)])
+    words = np.random.Generator(np.random.PCG64(3)).bit_generator.random_raw(
+        200_000).reshape(-1, 1, 1)
+    decision = np.array([2, 2, 1], dtype=np.int8)
+    hist = np.zeros(3, dtype=np.int64)
+    clipped = stop_histogram(words, decision, np.array([0, 3]), np.array([[1]]),
+                             np.array([[3]]), hist, *tables.arrays())
+    expected = stats.binom.sf(2, 10, 0.5)
+    assert clipped == hist[2]
+    assert abs(clipped / words.shape[0] - expected) < 4 * np.sqrt(expected * (1 - expected)
+                                                                  / words.shape[0])

@@ -78,7 +78,8 @@ def lattice_plan(design: Design, rule: LatticeRule,
 @numba.njit(cache=True)
 def stop_histogram(words, decision, start, strides, sizes, hist,
                    bounds, t_start, t_length, guide, guide_start, shift):
-    """Add each study's stopping point to ``hist``; return how many were clipped.
+    """Add each study's stopping point to ``hist``; return how many studies ran past the
+    edge of a truncated lattice (and were held at the edge).
 
     ``words`` has shape (studies, looks, arms): one random word per arm and look.
     """
@@ -87,6 +88,7 @@ def stop_histogram(words, decision, start, strides, sizes, hist,
     clipped = 0
     for r in range(n_studies):
         x[:] = 0
+        past_edge = False
         for k in range(n_looks):
             point = start[k]
             for j in range(n_arms):
@@ -94,11 +96,13 @@ def stop_histogram(words, decision, start, strides, sizes, hist,
                              guide, guide_start, shift)
                 if x[j] >= sizes[k, j]:
                     x[j] = sizes[k, j] - 1
-                    clipped += 1
+                    past_edge = True
                 point += x[j] * strides[k, j]
             if decision[point] != 0 or k == n_looks - 1:
                 hist[point] += 1
                 break
+        if past_edge:
+            clipped += 1
     return clipped
 
 
