@@ -89,6 +89,8 @@ def compute(
         "engine": engine.name,
         "decision_tolerance": DECISION_TOLERANCE,
         **outcome.info,
+        "interval_level": (outcome.estimation.level if outcome.estimation is not None
+                           else None),
         "type1": type1_summary(oc),
         "prior_probability_of_claim": _prior_claim(design),
         "assurance": assurance_record(design, rule),
