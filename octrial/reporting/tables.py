@@ -252,7 +252,8 @@ def _two_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str,
 # -- operating characteristics -----------------------------------------------------------
 KNOWN_OC = re.compile(r"scenario|true_.+|drift_.+|is_null|"
                       r"prob_(success|stop_efficacy|stop_futility)(_se)?|expected_n(_se)?|sd_n|"
-                      r"look\d+_stop_(efficacy|futility)|method|replicates")
+                      r"look\d+_stop_(efficacy|futility)(_se)?|method|replicates|"
+                      r"zero_estimate_bound")
 
 
 def truth_columns(data: Any) -> list[Column]:
