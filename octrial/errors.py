@@ -65,6 +65,12 @@ class DesignError(InputError):
     """A design file that cannot be used as written."""
 
 
+class NumericalWarning(UserWarning):
+    """A computation ran but its numerical error is larger than it should be (for
+    example a parameter grid too coarse for the prior); the message gives the measured
+    error and the setting to change. Runs record these in run.json."""
+
+
 def single(source: str, key: str, expected: str, got: object, hint: str = "") -> InputError:
     """Build an :class:`InputError` with one problem (for checks outside design files)."""
     return InputError(source, [Problem(key, expected, show(got), hint)])

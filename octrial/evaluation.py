@@ -6,6 +6,7 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -16,12 +17,11 @@ import pandas as pd
 from octrial.design.load import load_design
 from octrial.design.model import Design
 from octrial.design_prior import assurance_record
-from octrial.endpoints.base import LatticeFamily
 from octrial.engines import MonteCarloSettings, choose
+from octrial.errors import NumericalWarning
 from octrial.execution import Execution
 from octrial.results import oc_table, type1_summary
-from octrial.rules.boundaries import boundary_table
-from octrial.rules.lattice import DECISION_TOLERANCE, build_rule
+from octrial.rules.lattice import DECISION_TOLERANCE
 
 
 @dataclass(frozen=True, eq=False)
@@ -34,7 +34,8 @@ class Evaluation:
     oc : DataFrame
         One row per scenario (the ``oc.csv`` contract).
     boundaries : DataFrame or None
-        Decision boundaries in counts (discrete endpoints).
+        Decision boundaries (counts for discrete endpoints; sample mean and z for normal
+        endpoints with known sd); ``None`` when the rule has no table form.
     info : dict
         Engine, numerical tolerances, the maximum type I error and where it occurs.
     """
@@ -77,14 +78,16 @@ def compute(
     design = _as_design(design)
     engine = choose(design, method)
     truths = np.array(design.scenarios.values, dtype=float)
-    rule = build_rule(design) if isinstance(design.family, LatticeFamily) else None
     # Simulation settings go only to engines asked to use them (engines written to the
     # plain ``run(design, truths, rule)`` interface keep working).
     given = {k: v for k, v in (("settings", settings), ("execution", execution))
              if v is not None}
-    outcome = engine.run(design, truths, rule=rule, **given, **options)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", NumericalWarning)
+        rule = design.family.decision_rule(design, truths)
+        outcome = engine.run(design, truths, rule=rule, **given, **options)
     oc = oc_table(design, truths, outcome)
-    boundaries = boundary_table(design, rule) if rule is not None else None
+    boundaries = rule.boundary_table(design) if rule is not None else None
     info = {
         "engine": engine.name,
         "decision_tolerance": DECISION_TOLERANCE,
@@ -92,17 +95,21 @@ def compute(
         "interval_level": (outcome.estimation.level if outcome.estimation is not None
                            else None),
         "type1": type1_summary(oc),
-        "prior_probability_of_claim": _prior_claim(design),
+        "prior_probability_of_claim": design.family.prior_probability_of_claim(design),
+        "prior_effective_sample_size": design.family.effective_sample_size(design),
         "assurance": assurance_record(design, rule),
         "scenarios_dropped": design.scenarios.dropped,
     }
+    notes = list(dict.fromkeys(str(w.message) for w in caught
+                               if issubclass(w.category, NumericalWarning)))
+    for w in caught:
+        if not issubclass(w.category, NumericalWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    if notes:
+        info["warnings"] = notes
+        for note in notes:
+            warnings.warn(note, NumericalWarning, stacklevel=2)
     return Evaluation(design, oc, boundaries, info)
-
-
-def _prior_claim(design: Design) -> float | None:
-    if any(arm.prior is None for arm in design.arms):
-        return None
-    return design.family.prior_probability_of_claim(design)
 
 
 def evaluate(

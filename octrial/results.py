@@ -1,7 +1,9 @@
 """The operating-characteristics table (``oc.csv``) built from any engine's outcome.
 
 Columns, in order (the contract in docs/output-files.md):
-``scenario``, ``true_<arm>`` per arm, ``true_effect`` (two arms), ``is_null``,
+``scenario``, ``true_<arm>`` per arm, ``true_effect`` (two arms: treatment - control),
+``true_ratio`` or ``true_odds_ratio`` (two arms compared on that scale), ``drift_<arm>``
+(arms borrowing historical data: true value - historical estimate), ``is_null``,
 ``prob_success`` and its ``_se``, ``prob_stop_efficacy`` and ``prob_stop_futility`` (early
 stops, interim looks only) with their ``_se``, ``expected_n`` with ``expected_n_se``,
 ``sd_n``, ``look<k>_stop_efficacy`` and ``look<k>_stop_futility`` for every look (at the
@@ -84,8 +86,16 @@ def oc_table(design: Design, truths: np.ndarray, outcome: Outcome) -> pd.DataFra
     columns: dict[str, Any] = {"scenario": np.arange(1, len(truths) + 1)}
     for j, arm in enumerate(design.arm_names):
         columns[f"true_{arm}"] = truths[:, j]
+    hypothesis = design.hypothesis
     if design.two_arm:
         columns["true_effect"] = np.round(truths[:, 0] - truths[:, 1], 12)
+        if hypothesis.comparison != "difference":
+            columns["true_" + hypothesis.comparison.replace("-", "_")] = np.round(
+                [family.measure(hypothesis.comparison, t, c) for t, c in truths], 12)
+    for j, arm in enumerate(design.arms):
+        borrowing = getattr(arm.prior, "borrowing", None)
+        if borrowing is not None:
+            columns[f"drift_{arm.name}"] = np.round(truths[:, j] - borrowing.estimate, 12)
     columns["is_null"] = [family.is_null(design.hypothesis, tuple(t)) for t in truths]
     probabilities = {
         "prob_success": eff.sum(axis=1),

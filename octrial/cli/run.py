@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import sys
+import warnings
 from pathlib import Path
 
 import click
 
 from octrial.caution import CAUTION
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
-from octrial.cli.tables import assurance_line, oc_summary, type1_line
+from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, type1_line
 from octrial.engines import MonteCarloSettings
+from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
 from octrial.execution import Execution
 from octrial.execution.backends import BACKENDS
@@ -48,8 +50,8 @@ def run_command(design: str, out: str | None, method: str | None, jobs: int, bac
                 quiet: bool) -> None:
     """Compute the operating characteristics of DESIGN at every scenario.
 
-    Writes oc.csv (one row per scenario), boundaries.csv (decision boundaries in counts,
-    discrete endpoints) and run.json (provenance), and prints a summary table.
+    Writes oc.csv (one row per scenario), boundaries.csv (decision boundaries in counts, or
+    sample means and z for normal endpoints) and run.json (provenance), and prints a summary table.
 
     Simulation (method monte-carlo) saves each finished scenario under OUT/.partial; an
     interrupted run started again with the same arguments resumes where it stopped.
@@ -68,7 +70,9 @@ def run_command(design: str, out: str | None, method: str | None, jobs: int, bac
     execution = Execution(jobs=jobs, backend=backend, scheduler=scheduler,
                           checkpoints=folder / PARTIAL, progress=not quiet)
     try:
-        evaluation = compute(loaded, method, settings, execution)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NumericalWarning)  # printed below from run.json
+            evaluation = compute(loaded, method, settings, execution)
     except KeyboardInterrupt:
         click.echo(f"\ninterrupted: finished scenarios are kept in {folder / PARTIAL}; run "
                    "the same command again to resume", err=True)
@@ -79,6 +83,8 @@ def run_command(design: str, out: str | None, method: str | None, jobs: int, bac
         written.append(write_atomic(folder / "boundaries.csv", csv_text(evaluation.boundaries)))
     written.append(write_atomic(folder / "run.json", json_text(record)))
     remove_partial(folder / PARTIAL)
+    for note in evaluation.info.get("warnings", []):
+        click.echo(f"warning: {note}", err=True)
     if quiet:
         return
     click.echo(f"{loaded.name}: {loaded.title}" if loaded.title else loaded.name)
@@ -92,5 +98,7 @@ def run_command(design: str, out: str | None, method: str | None, jobs: int, bac
     if short:
         click.echo(f"warning: scenarios {short} reached the replicate cap before the target "
                    "standard error", err=True)
+    for line in prior_size_lines(evaluation.info.get("prior_effective_sample_size")):
+        click.echo(line)
     click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
     click.echo(f"Caution: {CAUTION}", err=True)

@@ -20,7 +20,7 @@ HEADINGS = {
 
 def oc_summary(oc: pd.DataFrame) -> str:
     """The operating characteristics as a compact fixed-width table."""
-    truth = [c for c in oc.columns if c.startswith("true_")]
+    truth = [c for c in oc.columns if c.startswith(("true_", "drift_"))]
     columns = ["scenario", *truth, "is_null", "prob_success"]
     if (oc["replicates"] > 0).any():
         columns.append("prob_success_se")
@@ -55,3 +55,23 @@ def assurance_line(info: dict[str, Any]) -> str:
                      f"Pr(claim true) under the design prior "
                      f"{found['design_prior_probability_of_claim']:.4f}.")
     return " ".join(parts)
+
+
+def prior_size_lines(sizes: dict[str, Any] | None) -> list[str]:
+    """One line per arm (or effect) on the analysis prior's effective sample size."""
+    if not sizes:
+        return []
+    lines = []
+    for name, summary in sizes.items():
+        parts = []
+        if "simple" in summary:
+            parts.append(f"{summary['simple']:.3g} ({summary['simple_formula']})")
+        if "fda" in summary:
+            fda = summary["fda"]
+            parts.append(f"{fda['ess']:.3g} (FDA n V1/V2 - n at n = {fda['n']:g})")
+        line = f"Prior effective sample size, {name}: " + ", ".join(parts)
+        if "borrowing" in summary:
+            b = summary["borrowing"]
+            line += f"; borrows by {b['method']} from historical {b['historical']}"
+        lines.append(line)
+    return lines

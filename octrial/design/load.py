@@ -35,6 +35,7 @@ TOP_KEYS = ("schema", "name", "title", "endpoint", "hypothesis", "arms", "looks"
             "simulation")
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
 INTERIM_ONLY = ("futility", "futility_predictive")
+GRID_POINTS = Simulation.grid_points
 
 
 def load_design(path: str | Path) -> Design:
@@ -81,20 +82,22 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     family, endpoint, better = _read_endpoint(top)
     arms_table = top.table("arms")
     two_arm = arms_table is not None and arms_table.has(CONTROL)
-    hypothesis = _read_hypothesis(top, family, better, two_arm)
-    arms = _read_arms(arms_table, family)
+    on_effect = family is not None and endpoint is not None and family.prior_on_effect(
+        endpoint, two_arm)
+    hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
+    arms = _read_arms(arms_table, family, on_effect)
     looks = _read_looks(top, arms, two_arm)
     if looks is not None and not looks.uses_counts and arms:
-        for arm in arms:
-            if "prior" not in arms_table.data[arm.name]:
-                problems.add(f"arms.{arm.name}.prior", "an analysis prior (required unless "
-                             "the rule is stated in counts)", Phrase("nothing (the key is "
-                                                                     "missing)"))
+        _require_priors(top, arms_table, arms, on_effect)
     scenarios_table = top.table("scenarios")
     scenarios = None
     if scenarios_table is not None and family is not None:
         scenarios = read_scenarios(scenarios_table, family, two_arm)
     simulation = _read_simulation(top)
+    if family is not None:
+        family.check_design({"endpoint": endpoint, "hypothesis": hypothesis, "arms": arms,
+                             "looks": looks, "simulation": simulation, "two_arm": two_arm},
+                            problems)
 
     if problems:
         raise DesignError(source.path, problems)
@@ -124,7 +127,7 @@ def _read_endpoint(top: Table) -> tuple[Family | None, Any, str | None]:
 
 
 def _read_hypothesis(
-    top: Table, family: Family | None, better: str | None, two_arm: bool,
+    top: Table, family: Family | None, better: str | None, two_arm: bool, on_effect: bool,
 ) -> Hypothesis | None:
     table = top.table("hypothesis")
     if table is None or family is None or better is None:
@@ -135,20 +138,26 @@ def _read_hypothesis(
         if benchmark is not None and (problem := family.true_value_problem(benchmark)):
             table.fail("benchmark", problem, benchmark)
         return Hypothesis(better, benchmark=benchmark)
-    table.allow("comparison", "margin", "kind")
+    table.allow("comparison", "margin", "kind", *(("prior", "design_prior") if on_effect
+                                                  else ()))
     comparison = table.string("comparison", family.comparisons, required=False,
                               default=family.comparisons[0])
     kind = table.string("kind", ("superiority", "non-inferiority"), required=False,
                         default="superiority")
-    margin = table.number("margin", required=False, default=0.0,
-                          check=lambda v: 0 <= v < 1, expected="a margin in [0, 1)")
+    margin = table.number("margin", required=False, default=0.0)
     if kind == "non-inferiority" and margin == 0.0:
         table.fail("margin", "a margin > 0 for a non-inferiority claim", margin)
-    return Hypothesis(better, comparison=comparison, margin=margin or 0.0,
-                      kind=kind or "superiority")
+    prior, design_prior = (_read_prior(table, key, family) if on_effect else None
+                           for key in ("prior", "design_prior"))
+    hypothesis = Hypothesis(better, comparison=comparison, margin=margin or 0.0,
+                            kind=kind or "superiority", prior=prior, design_prior=design_prior)
+    if comparison is not None and margin is not None and (
+            problem := family.margin_problem(hypothesis)):
+        table.fail("margin", problem, margin)
+    return hypothesis
 
 
-def _read_arms(table: Table | None, family: Family | None) -> list[Arm]:
+def _read_arms(table: Table | None, family: Family | None, on_effect: bool) -> list[Arm]:
     if table is None:
         return []
     table.allow(TREATMENT, CONTROL)
@@ -157,16 +166,39 @@ def _read_arms(table: Table | None, family: Family | None) -> list[Arm]:
         arm = table.table(name, required=name == TREATMENT)
         if arm is None:
             continue
-        arm.allow("prior", "allocation", "design_prior")
+        if on_effect:
+            arm.allow("allocation")
+            for key in ("prior", "design_prior"):
+                if arm.has(key):
+                    arm.fail(key, f"no per-arm prior (the prior is on the treatment effect: "
+                             f"write it as hypothesis.{key})", arm.data[key])
+        else:
+            arm.allow("prior", "allocation", "design_prior")
         allocation = arm.number("allocation", required=False, default=1.0,
                                 check=lambda v: v > 0, expected="a positive weight")
-        prior, design_prior = (_read_prior(arm, key, family) for key in ("prior", "design_prior"))
+        prior, design_prior = (None, None) if on_effect else (
+            _read_prior(arm, key, family) for key in ("prior", "design_prior"))
         arms.append(Arm(name, prior, allocation or 1.0, design_prior))
     return arms
 
 
-def _read_prior(arm: Table, key: str, family: Family | None) -> Any:
-    table = arm.table(key, required=False)
+def _require_priors(top: Table, arms_table: Table, arms: list[Arm], on_effect: bool) -> None:
+    """Probability rules need analysis priors: per arm, or on the effect."""
+    missing = Phrase("nothing (the key is missing)")
+    if on_effect:
+        hypothesis = top.data.get("hypothesis")
+        if isinstance(hypothesis, dict) and "prior" not in hypothesis:
+            top.problems.add("hypothesis.prior", "an analysis prior on the treatment effect "
+                             "(required unless the rule is stated in counts)", missing)
+        return
+    for arm in arms:
+        if "prior" not in arms_table.data[arm.name]:
+            top.problems.add(f"arms.{arm.name}.prior", "an analysis prior (required unless "
+                             "the rule is stated in counts)", missing)
+
+
+def _read_prior(parent: Table, key: str, family: Family | None) -> Any:
+    table = parent.table(key, required=False)
     if table is None or family is None:
         return None
     return family.read_prior(table)
@@ -271,7 +303,7 @@ def _read_simulation(top: Table) -> Simulation:
     table = top.table("simulation", required=False)
     if table is None:
         return Simulation()
-    table.allow("method", "replicates", "seed", "interval_level")
+    table.allow("method", "replicates", "seed", "interval_level", "grid_points")
     method = table.string("method", METHODS, required=False, default="auto")
     replicates = table.number("replicates", required=False, default=10_000, integer=True,
                               check=lambda v: v >= 1, expected="a whole number >= 1")
@@ -279,5 +311,9 @@ def _read_simulation(top: Table) -> Simulation:
                         check=lambda v: 0 <= v < 2**63, expected="a whole number >= 0")
     level = table.number("interval_level", required=False, default=0.95,
                          check=lambda v: 0 < v < 1, expected="a level in (0, 1)")
+    grid = table.number("grid_points", required=False, default=GRID_POINTS, integer=True,
+                        check=lambda v: 101 <= v <= 200_001,
+                        expected="a whole number from 101 to 200001")
     return Simulation(method or "auto", int(replicates or 10_000),
-                      None if seed is None else int(seed), level or 0.95)
+                      None if seed is None else int(seed), level or 0.95,
+                      grid_points=int(grid or GRID_POINTS))

@@ -37,11 +37,15 @@ class Hypothesis:
     benchmark : float or None
         One arm: the value the treatment must beat.
     comparison : str or None
-        Two arms: the effect measure ('difference' for binary and normal endpoints).
+        Two arms: the effect measure ('difference', 'ratio' or 'odds-ratio').
     margin : float
-        Two arms: superiority margin (>= 0) or non-inferiority margin (> 0).
+        Two arms: superiority margin (>= 0) or non-inferiority margin (> 0); on a ratio
+        scale a relative margin (see :attr:`threshold`).
     kind : {'superiority', 'non-inferiority'}
         Two arms: which claim the study makes.
+    prior, design_prior : object or None
+        Two arms, families whose prior is on the effect itself (normal endpoint with known
+        sd): the analysis and design priors of the effect. ``None`` otherwise.
     """
 
     better: str
@@ -49,6 +53,8 @@ class Hypothesis:
     comparison: str | None = None
     margin: float = 0.0
     kind: str = "superiority"
+    prior: Any = None
+    design_prior: Any = None
 
     @property
     def sign(self) -> int:
@@ -63,6 +69,23 @@ class Hypothesis:
         needs effect > -d.
         """
         return self.margin if self.kind == "superiority" else -self.margin
+
+    @property
+    def neutral(self) -> float:
+        """The no-effect value of the comparison: 0 for a difference, 1 for a ratio."""
+        return 0.0 if self.comparison in (None, "difference") else 1.0
+
+    @property
+    def threshold(self) -> float:
+        """Two arms: the value of the effect measure the claim must pass,
+        ``neutral + sign x shift``.
+
+        Success means measure > threshold when higher is better and measure < threshold
+        when lower is better. On a ratio: superiority by margin d needs a ratio above
+        1 + d (higher better) or below 1 - d (lower better); non-inferiority with margin
+        d needs a ratio above 1 - d or below 1 + d.
+        """
+        return self.neutral + self.sign * self.shift
 
 
 @dataclass(frozen=True)
@@ -171,6 +194,8 @@ class Simulation:
     seed: int | None = None
     interval_level: float = 0.95
     """Level of the equal-tailed credible interval whose coverage is reported."""
+    grid_points: int = 4001
+    """Points of the parameter grid for posteriors with no closed form (grid engine)."""
 
 
 @dataclass(frozen=True)

@@ -2,8 +2,10 @@
 
 Each arm's values are a list of numbers or a range ``{ from, to, step }`` (both ends
 included). One arm: ``treatment``. Two arms: ``control`` with either ``treatment`` (the
-full control x treatment grid) or ``effect`` (control x effect, treatment = control +
-effect); grid points outside the parameter's range are left out and counted.
+full control x treatment grid) or a shift of the control value on the scale of one of the
+family's comparisons: ``effect`` (treatment = control + effect), ``ratio`` (treatment =
+control x ratio) or ``odds_ratio``; grid points outside the parameter's range are left
+out and counted.
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ import math
 
 from octrial.design.model import CONTROL, TREATMENT, Scenarios
 from octrial.design.reader import Phrase, Table
-from octrial.endpoints.base import Family
+from octrial.endpoints.base import SCENARIO_AXES, Family
 
 DECIMALS = 12
 """Generated values are rounded to this many decimals, so 0.1 + 2 x 0.1 prints as 0.3."""
@@ -68,10 +70,12 @@ def read_scenarios(table: Table, family: Family, two_arm: bool) -> Scenarios | N
             return None
         return Scenarios((TREATMENT,), tuple((v,) for v in values))
 
-    table.allow(CONTROL, TREATMENT, "effect")
-    if table.has(TREATMENT) == table.has("effect"):
-        table.fail(TREATMENT, "exactly one of 'treatment' or 'effect' beside 'control'",
-                   Phrase("both" if table.has(TREATMENT) else "neither"))
+    axes = {SCENARIO_AXES[c][0]: SCENARIO_AXES[c][1] for c in family.comparisons}
+    table.allow(CONTROL, TREATMENT, *axes)
+    given = [key for key in (TREATMENT, *axes) if table.has(key)]
+    if len(given) != 1:
+        table.fail(TREATMENT, "exactly one of " + ", ".join(f"'{k}'" for k in (TREATMENT, *axes))
+                   + " beside 'control'", Phrase(" and ".join(given) if given else "none"))
         return None
     control = read_values(table, CONTROL)
     if control is None or not _check(table, CONTROL, control, family):
@@ -82,20 +86,23 @@ def read_scenarios(table: Table, family: Family, two_arm: bool) -> Scenarios | N
             return None
         rows = [(t, c) for c in control for t in treatment]
         return Scenarios((TREATMENT, CONTROL), tuple(rows))
-    effects = read_values(table, "effect")
-    if effects is None:
+    (axis,) = given
+    shifts = read_values(table, axis)
+    if shifts is None:
         return None
     rows, dropped = [], 0
     for c in control:
-        for e in effects:
-            t = round(c + e, DECIMALS)
-            if family.true_value_problem(t) is None:
+        for e in shifts:
+            try:
+                t = round(axes[axis](c, e), DECIMALS)
+            except (ArithmeticError, ValueError):
+                t = math.nan
+            if math.isfinite(t) and family.true_value_problem(t) is None:
                 rows.append((t, c))
             else:
                 dropped += 1
     if not rows:
-        table.fail("effect", "effects that keep control + effect a valid "
-                   f"{family.parameter}", Phrase("no valid combination"))
+        table.fail(axis, f"values that keep the treatment {family.parameter} valid",
+                   Phrase("no valid combination"))
         return None
     return Scenarios((TREATMENT, CONTROL), tuple(rows), dropped)
-

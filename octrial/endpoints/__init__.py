@@ -10,8 +10,11 @@ from typing import Any
 
 from octrial.endpoints.base import Family, LatticeFamily
 from octrial.endpoints.binary import BinaryFamily
+from octrial.endpoints.count import CountFamily
+from octrial.endpoints.normal import NormalFamily
 
-FAMILIES: dict[str, Family] = {family.name: family for family in (BinaryFamily(),)}
+FAMILIES: dict[str, Family] = {family.name: family for family in (
+    BinaryFamily(), CountFamily(), NormalFamily())}
 """Every endpoint family, by its ``endpoint.type`` name."""
 
 

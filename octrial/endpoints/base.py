@@ -14,16 +14,42 @@ from __future__ import annotations
 
 import math
 from abc import ABC, abstractmethod
+from collections.abc import Callable
 from typing import Any, ClassVar
 
 import numpy as np
 
 from octrial.design.model import Hypothesis
-from octrial.design.reader import Table
+from octrial.design.reader import Problems, Table
 
 NULL_TOLERANCE = 1e-9
 """Scenarios within this distance of the null boundary count as null (values written as
 decimal ranges rarely land exactly on the boundary in binary floating point)."""
+
+
+def _odds_ratio(t: float, c: float) -> float:
+    return t * (1.0 - c) / (c * (1.0 - t))
+
+
+def _from_odds_ratio(c: float, ratio: float) -> float:
+    odds = ratio * c / (1.0 - c)
+    return odds / (1.0 + odds)
+
+
+COMPARISONS: dict[str, tuple[Callable[[float, float], float], float]] = {
+    "difference": (lambda t, c: t - c, 0.0),
+    "ratio": (lambda t, c: t / c, 1.0),
+    "odds-ratio": (_odds_ratio, 1.0),
+}
+"""Two-arm effect measures: the measure of (treatment, control) and its no-effect value."""
+
+SCENARIO_AXES: dict[str, tuple[str, Callable[[float, float], float]]] = {
+    "difference": ("effect", lambda c, e: c + e),
+    "ratio": ("ratio", lambda c, r: c * r),
+    "odds-ratio": ("odds_ratio", _from_odds_ratio),
+}
+"""For each comparison, the ``[scenarios]`` key that shifts the control value and how the
+treatment value follows from (control, value)."""
 
 
 class Family(ABC):
@@ -49,6 +75,8 @@ class Family(ABC):
     comparisons: ClassVar[tuple[str, ...]]
     default_better: ClassVar[str | None] = None
     parameter_range: ClassVar[tuple[float, float]] = (-math.inf, math.inf)
+    difference_margin_below_one: ClassVar[bool] = True
+    """Whether a margin on the difference scale must lie below 1 (parameters in (0, 1))."""
 
     # -- design-file reading ---------------------------------------------------------
     @abstractmethod
@@ -63,16 +91,50 @@ class Family(ABC):
     def true_value_problem(self, value: float) -> str | None:
         """``None`` when ``value`` is a possible true parameter, else what is expected."""
 
+    def prior_on_effect(self, endpoint: Any, two_arm: bool) -> bool:
+        """Whether the analysis prior is on the two-arm effect (``hypothesis.prior``)
+        rather than on each arm's parameter (``arms.<arm>.prior``)."""
+        return False
+
+    def check_design(self, parts: dict[str, Any], problems: Problems) -> None:
+        """Family-specific checks across tables, once every table has been read.
+
+        ``parts`` holds 'endpoint', 'hypothesis', 'arms', 'looks', 'simulation' and
+        'two_arm' (any may be ``None`` after earlier problems); problems are recorded with
+        their key paths.
+        """
+        return None
+
+    def margin_problem(self, hypothesis: Hypothesis) -> str | None:
+        """``None`` when ``hypothesis.margin`` is valid for its comparison, else what is
+        expected. Ratios need a positive threshold 1 + sign x shift; differences of rates
+        need a margin below 1."""
+        margin = hypothesis.margin
+        if COMPARISONS[hypothesis.comparison][1] == 1.0:
+            if hypothesis.threshold <= 0:
+                return "a margin in [0, 1) (the ratio it implies must stay above 0)"
+            return None if margin >= 0 else "a margin >= 0"
+        if self.difference_margin_below_one:
+            return None if 0 <= margin < 1 else "a margin in [0, 1)"
+        return None if margin >= 0 else "a margin >= 0"
+
     # -- hypotheses ------------------------------------------------------------------
+    def measure(self, comparison: str, treatment: float, control: float) -> float:
+        """The two-arm effect measure ('difference', 'ratio', 'odds-ratio')."""
+        return COMPARISONS[comparison][0](treatment, control)
+
     def effect(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
         """The effect that the hypothesis is about, in the better direction.
 
-        One arm: sign x (theta - benchmark). Two arms on a difference:
-        sign x (theta_T - theta_C) - shift. Positive means benefit beyond the null.
+        One arm: sign x (theta - benchmark). Two arms: sign x (measure - no-effect value)
+        - shift, where the measure is theta_T - theta_C (no effect 0) or a ratio (no
+        effect 1). Positive means benefit beyond the null.
         """
         if len(truth) == 1:
             return hypothesis.sign * (truth[0] - hypothesis.benchmark)
-        return hypothesis.sign * (truth[0] - truth[1]) - hypothesis.shift
+        measure = self.measure(hypothesis.comparison, truth[0], truth[1])
+        neutral = COMPARISONS[hypothesis.comparison][1]
+        return hypothesis.sign * (measure - neutral) - hypothesis.shift
 
     def target_value(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
         """The true value of the target parameter that simulation summaries are about.
@@ -89,8 +151,20 @@ class Family(ABC):
         return self.effect(hypothesis, truth) <= NULL_TOLERANCE
 
     @abstractmethod
-    def prior_probability_of_claim(self, design: Any) -> float:
-        """Pr(benefit beyond the benchmark or margin) under the analysis priors alone."""
+    def prior_probability_of_claim(self, design: Any) -> float | None:
+        """Pr(benefit beyond the benchmark or margin) under the analysis priors alone
+        (``None`` when the design has no proper analysis prior)."""
+
+    def effective_sample_size(self, design: Any) -> dict[str, Any] | None:
+        """The analysis priors' effective sample sizes, by arm (see docs/methods.md)."""
+        return None
+
+    # -- decision rules --------------------------------------------------------------
+    def decision_rule(self, design: Any, truths: np.ndarray | None = None) -> Any:
+        """The rule as tables the exact engines apply, sized for ``truths`` where that
+        matters (``None`` when no table form exists). Rules provide
+        ``boundary_table(design)`` and ``info()``."""
+        return None
 
     def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
         """The prior as a mixture: (weight, frozen scipy distribution) pairs, or ``None``.
@@ -120,9 +194,24 @@ class LatticeFamily(Family):
     statistic: ClassVar[str]
     truncates: ClassVar[bool] = False
 
+    def decision_rule(self, design: Any, truths: np.ndarray | None = None) -> Any:
+        from octrial.rules.lattice import build_rule
+
+        return build_rule(design, truths=truths)
+
+    def lattice_reach(self, design: Any) -> tuple[float, ...] | None:
+        """Per arm, the largest true value the lattice must serve (truncating families);
+        taken from the design's scenarios, which :func:`~octrial.rules.lattice.build_rule`
+        extends with the truths it is asked about."""
+        return None
+
     @abstractmethod
     def lattice_size(self, design: Any, arm: int, n: int) -> int:
-        """Number of lattice points (0 .. size-1) kept for arm ``arm`` after ``n`` subjects."""
+        """Number of lattice points (0 .. size-1) kept for arm ``arm`` after ``n`` subjects.
+
+        Truncating families size the lattice so that the mass beyond it is below
+        their truncation epsilon at every true value up to :meth:`lattice_reach`.
+        """
 
     @abstractmethod
     def increment_pmf(self, design: Any, truth: float, n: int, size: int) -> np.ndarray:
@@ -144,6 +233,26 @@ class LatticeFamily(Family):
     def predictive_pmf(self, design: Any, posterior: Any, m: int, size: int) -> np.ndarray:
         """Predictive pmf of the statistic of ``m`` future subjects, one row per lattice
         point of ``posterior`` and ``size`` columns."""
+
+    def predictive_lattice_size(self, design: Any, arm: int) -> int:
+        """Final-look lattice points needed for predictive probabilities: enough that from
+        any interim lattice point the predictive mass beyond them is negligible (the final
+        lattice itself for bounded statistics)."""
+        return self.lattice_size(design, arm, design.looks.per_arm[-1][arm])
+
+    def predictive_error(self, design: Any, posterior: Any, m: int, size: int) -> float:
+        """Numerical error bound of :meth:`predictive_pmf` in total variation (0 when the
+        pmf is computed in closed form)."""
+        return 0.0
+
+    def on_grid(self, design: Any) -> bool:
+        """Whether the design's posteriors come from the grid engine (no closed form)."""
+        return False
+
+    def rule_info(self, design: Any, error: float) -> dict[str, Any]:
+        """Numerical settings behind the rule for run.json (for example a grid), given the
+        largest measured error of the probabilities behind it."""
+        return {}
 
     # -- simulation summaries (optional) --------------------------------------------
     def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray | None:

@@ -12,6 +12,9 @@ Formulas (see docs/methods.md for the derivations and references):
   lattice point, so the whole lattice is one matrix product.
 * Predictive: the responses among m future subjects follow the mixture of
   beta-binomials sum_j w'_j BetaBinomial(m, a'_j, b'_j) (Lee & Liu 2008).
+* A logit-normal prior (normal on logit p), or a comparison on the odds ratio, has no
+  closed form: the posteriors then come from the grid engine
+  (:mod:`octrial.endpoints.grid_family`) on the logit scale.
 """
 
 from __future__ import annotations
@@ -23,11 +26,18 @@ import numpy as np
 from scipy import special, stats
 
 from octrial.design.model import Hypothesis
-from octrial.design.reader import Phrase, Table
+from octrial.design.reader import Phrase, Problems, Table
+from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
+from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
+from octrial.endpoints.grid_family import GridModel
+from octrial.endpoints.prior_size import arm_summary, fda_summary
+from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
 
 WEIGHT_TOLERANCE = 1e-9
+TAIL = 1e-15
+"""Prior quantile that bounds the grid's range."""
 
 
 @dataclass(frozen=True)
@@ -44,6 +54,7 @@ class BetaMixture:
     weights: tuple[float, ...]
     a: tuple[float, ...]
     b: tuple[float, ...]
+    borrowing: Borrowing | None = None
 
     @classmethod
     def single(cls, a: float, b: float) -> BetaMixture:
@@ -57,12 +68,29 @@ class BetaMixture:
         return float(sum(w * (a + b) for w, a, b in zip(self.weights, self.a, self.b,
                                                          strict=True)))
 
+    @property
+    def mean(self) -> float:
+        """Prior mean of the rate."""
+        return float(sum(w * a / (a + b) for w, a, b in zip(self.weights, self.a, self.b,
+                                                             strict=True)))
+
     def describe(self) -> str:
         """Plain-text form for tables and reports."""
         parts = [f"Beta({a:g}, {b:g})" for a, b in zip(self.a, self.b, strict=True)]
-        if len(parts) == 1:
-            return parts[0]
-        return " + ".join(f"{w:g} x {p}" for w, p in zip(self.weights, parts, strict=True))
+        text = parts[0] if len(parts) == 1 else " + ".join(
+            f"{w:.6g} x {p}" for w, p in zip(self.weights, parts, strict=True))
+        return text if self.borrowing is None else f"{text} ({self.borrowing.describe()})"
+
+
+@dataclass(frozen=True)
+class LogitNormal:
+    """A normal prior on logit(rate) (no conjugate form: grid engine)."""
+
+    logit_mean: float
+    logit_sd: float
+
+    def describe(self) -> str:
+        return f"logit rate ~ Normal({self.logit_mean:g}, {self.logit_sd:g}^2)"
 
 
 @dataclass(frozen=True, eq=False)
@@ -191,50 +219,71 @@ def predictive_pmf(post: BetaPosterior, m: int) -> np.ndarray:
     return out
 
 
-class BinaryFamily(LatticeFamily):
+class BinaryFamily(GridModel, LatticeFamily):
     """Binomial responses, beta or beta-mixture priors, exact on the response lattice."""
 
     name = "binary"
     parameter = "rate"
     statistic = "responses"
-    comparisons = ("difference",)
+    comparisons = ("difference", "odds-ratio")
     default_better = None
     parameter_range = (0.0, 1.0)
+    grid_scale = "logit rate"
 
     def read_endpoint(self, table: Table) -> BinaryEndpoint:
         table.allow("type", "better")
         return BinaryEndpoint()
 
-    def read_prior(self, table: Table) -> BetaMixture | None:
-        kind = table.string("distribution", ("beta", "beta-mixture"))
+    def read_prior(self, table: Table) -> BetaMixture | LogitNormal | None:
+        kind = table.string("distribution", ("beta", "beta-mixture", "logit-normal"))
+        extra = ("historical", "borrowing")
         if kind == "beta":
-            table.allow("distribution", "a", "b")
+            table.allow("distribution", "a", "b", *extra)
             a = _shape(table, "a")
             b = _shape(table, "b")
-            return None if a is None or b is None else BetaMixture.single(a, b)
-        if kind == "beta-mixture":
-            table.allow("distribution", "components")
-            parts = table.sub_tables("components")
-            if parts is None:
-                return None
-            read = []
-            for part in parts:
-                part.allow("weight", "a", "b")
-                w = part.number("weight", check=lambda v: 0 < v <= 1,
-                                expected="a weight in (0, 1]")
-                read.append((w, _shape(part, "a"), _shape(part, "b")))
-            if any(v is None for r in read for v in r):
-                return None
-            total = sum(r[0] for r in read)
-            if abs(total - 1.0) > WEIGHT_TOLERANCE:
-                table.fail("components", "weights summing to 1", Phrase(f"a sum of {total:g}"))
-                return None
-            w, a, b = zip(*read, strict=True)
-            return BetaMixture(tuple(w), tuple(a), tuple(b))
-        return None
+            prior = None if a is None or b is None else BetaMixture.single(a, b)
+        elif kind == "beta-mixture":
+            table.allow("distribution", "components", *extra)
+            prior = _read_mixture(table)
+        elif kind == "logit-normal":
+            table.allow("distribution", "logit_mean", "logit_sd", *extra)
+            mean = table.number("logit_mean", expected="a number (mean of logit rate)")
+            sd = table.number("logit_sd", check=lambda v: v > 0,
+                              expected="a number > 0 (sd of logit rate)")
+            prior = None if mean is None or sd is None else LogitNormal(mean, sd)
+        else:
+            return None
+        spec = read_borrowing(table, {"responses": "count", "n": "size"})
+        if spec is None or prior is None:
+            return prior
+        x0, n0 = spec["historical"]["responses"], spec["historical"]["n"]
+        if x0 > n0:
+            table.fail("historical.responses", f"at most n ({n0:g}) responses", x0)
+            return None
+        if not isinstance(prior, BetaMixture):
+            table.fail("borrowing", "a beta or beta-mixture initial prior (borrowing stays "
+                       "conjugate only for those)", Phrase(f"a {kind} prior"))
+            return None
+        return borrow_mixture(prior, update, n0, x0, spec, x0 / n0)
 
     def true_value_problem(self, value: float) -> str | None:
         return None if 0.0 < value < 1.0 else "a rate in (0, 1)"
+
+    def check_design(self, parts: dict[str, Any], problems: Problems) -> None:
+        hypothesis = parts["hypothesis"]
+        if not parts["two_arm"] or hypothesis is None or hypothesis.comparison != "difference":
+            return
+        for arm in parts["arms"]:
+            if isinstance(arm.prior, LogitNormal):
+                problems.add("hypothesis.comparison", "'odds-ratio' (a logit-normal prior in "
+                             "a two-arm design is evaluated on the odds-ratio scale)",
+                             "difference")
+                return
+
+    def on_grid(self, design: Any) -> bool:
+        """Whether posteriors need the grid engine (no closed form)."""
+        return design.hypothesis.comparison == "odds-ratio" or any(
+            isinstance(arm.prior, LogitNormal) for arm in design.arms)
 
     # -- lattice interface -----------------------------------------------------------
     def lattice_size(self, design: Any, arm: int, n: int) -> int:
@@ -243,10 +292,14 @@ class BinaryFamily(LatticeFamily):
     def increment_pmf(self, design: Any, truth: float, n: int, size: int) -> np.ndarray:
         return stats.binom.pmf(np.arange(size), n, truth)
 
-    def posterior(self, design: Any, arm: int, n: int, stats_: np.ndarray) -> BetaPosterior:
+    def posterior(self, design: Any, arm: int, n: int, stats_: np.ndarray) -> Any:
+        if self.on_grid(design):
+            return grid_family.posterior(design, arm, n, stats_)
         return update(design.arms[arm].prior, n, stats_)
 
     def benefit(self, design: Any, posteriors: tuple[Any, ...]) -> tuple[np.ndarray, float]:
+        if self.on_grid(design):
+            return grid_family.benefit(design, posteriors)
         h: Hypothesis = design.hypothesis
         if len(posteriors) == 1:
             post = posteriors[0]
@@ -260,28 +313,137 @@ class BinaryFamily(LatticeFamily):
         return flipped.T, error
 
     def predictive_pmf(self, design: Any, posterior: Any, m: int, size: int) -> np.ndarray:
+        if self.on_grid(design):
+            return grid_family.predictive(design, posterior, m, size)
         return predictive_pmf(posterior, m)[:, :size]
 
-    def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray:
+    def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray | None:
+        if self.on_grid(design):
+            return None  # grid posteriors: no bias, RMSE or coverage summaries yet
         if len(posteriors) == 1:
             return posteriors[0].mean()
         treatment, control = posteriors
         return treatment.mean()[:, None] - control.mean()[None, :]
 
-    def target_cdf(self, design: Any, posteriors: tuple[Any, ...], value: float) -> np.ndarray:
+    def target_cdf(self, design: Any, posteriors: tuple[Any, ...],
+                   value: float) -> np.ndarray | None:
+        if self.on_grid(design):
+            return None
         if len(posteriors) == 1:
             return posteriors[0].cdf(value)
         treatment, control = posteriors
         exceeds, _ = prob_difference_exceeds(treatment, control, value)
         return 1.0 - exceeds
 
-    def prior_probability_of_claim(self, design: Any) -> float:
-        priors = tuple(update(arm.prior, 0, np.zeros(1)) for arm in design.arms)
-        return float(np.asarray(self.benefit(design, priors)[0]).ravel()[0])
-
-    def prior_components(self, prior: BetaMixture) -> list[tuple[float, Any]]:
+    def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
+        if not isinstance(prior, BetaMixture):
+            return None
         return [(w, stats.beta(a, b)) for w, a, b in zip(prior.weights, prior.a, prior.b,
                                                           strict=True)]
+
+    def predictive_error(self, design: Any, posterior: Any, m: int, size: int) -> float:
+        if self.on_grid(design):
+            return grid_family.predictive_error(design, posterior, m, size)
+        return 0.0
+
+    def rule_info(self, design: Any, error: float) -> dict[str, Any]:
+        return grid_family.info(design, error) if self.on_grid(design) else {}
+
+    def prior_probability_of_claim(self, design: Any) -> float | None:
+        if any(arm.prior is None for arm in design.arms):
+            return None
+        priors = tuple(self.posterior(design, j, 0, np.zeros(1))
+                       for j in range(len(design.arms)))
+        return float(np.asarray(self.benefit(design, priors)[0]).ravel()[0])
+
+    def effective_sample_size(self, design: Any) -> dict[str, Any] | None:
+        if any(arm.prior is None for arm in design.arms):
+            return None
+        out = {}
+        for j, arm in enumerate(design.arms):
+            prior = arm.prior
+            n = design.looks.per_arm[-1][j]
+            simple = formula = None
+            if isinstance(prior, BetaMixture):
+                simple, formula = prior.effective_sample_size, "a + b"
+                m = prior.mean
+                v1 = m * (1 - m) / (n + 1)  # Beta(n m, n (1 - m)): flat on logit p
+                v2 = float(update(prior, n, np.array([n * m])).variance()[0])
+            else:
+                x = n * grid_family.mean_of(design, j, prior)
+                v1 = grid_family.variance_at(design, j, prior, n, x, flat=True)
+                v2 = grid_family.variance_at(design, j, prior, n, x)
+            out[arm.name] = arm_summary(prior.describe(), simple, formula,
+                                        fda_summary(n, v1, v2), getattr(prior, "borrowing",
+                                                                         None))
+        return out
+
+    # -- grid model ------------------------------------------------------------------
+    def to_theta(self, value: float) -> float:
+        return float(special.logit(value))
+
+    def from_theta(self, theta: np.ndarray) -> np.ndarray:
+        return special.expit(theta)
+
+    def grid_log_prior(self, prior: Any) -> Any:
+        if isinstance(prior, LogitNormal):
+            return lambda t: pg.log_normal_density(t, prior.logit_mean, prior.logit_sd)
+
+        def log_beta_on_logit_scale(t: np.ndarray) -> np.ndarray:
+            # density of p = expit(t) times the Jacobian p (1 - p)
+            log_p, log_q = _log_p(t), _log_p(-t)
+            return pg.log_mixture([(w, a * log_p + b * log_q - special.betaln(a, b))
+                                   for w, a, b in zip(prior.weights, prior.a, prior.b,
+                                                      strict=True)])
+        return log_beta_on_logit_scale
+
+    def grid_prior_range(self, prior: Any) -> tuple[float, float]:
+        if isinstance(prior, LogitNormal):
+            z = stats.norm.isf(TAIL)
+            return prior.logit_mean - z * prior.logit_sd, prior.logit_mean + z * prior.logit_sd
+        lo = min(stats.beta.ppf(TAIL, a, b) for a, b in zip(prior.a, prior.b, strict=True))
+        hi = max(stats.beta.isf(TAIL, a, b) for a, b in zip(prior.a, prior.b, strict=True))
+        return float(special.logit(max(lo, 1e-300))), float(special.logit(min(hi, 1 - 1e-16)))
+
+    def grid_log_likelihood(self, design: Any, n: float, stats_: np.ndarray) -> Any:
+        x = np.asarray(stats_, dtype=float)[:, None]
+        return lambda t: x * _log_p(t)[None, :] + (n - x) * _log_p(-t)[None, :]
+
+    def grid_data_range(self, design: Any, arm: int) -> tuple[float, float]:
+        n = design.looks.per_arm[-1][arm]
+        return (float(special.logit(0.5 / (n + 1))) - 5.0,
+                float(special.logit((n + 0.5) / (n + 1))) + 5.0)
+
+    def grid_predictive_table(self, design: Any, theta: np.ndarray, m: int,
+                              size: int) -> np.ndarray:
+        y = np.arange(size, dtype=float)[None, :]
+        t = theta[:, None]
+        log_choose = special.gammaln(m + 1) - special.gammaln(y + 1) - special.gammaln(m - y + 1)
+        return np.where(y <= m, np.exp(log_choose + y * _log_p(t) + (m - y) * _log_p(-t)), 0.0)
+
+
+def _log_p(t: np.ndarray) -> np.ndarray:
+    """log expit(t), accurate in both tails."""
+    return -np.logaddexp(0.0, -t)
+
+
+def _read_mixture(table: Table) -> BetaMixture | None:
+    parts = table.sub_tables("components")
+    if parts is None:
+        return None
+    read = []
+    for part in parts:
+        part.allow("weight", "a", "b")
+        w = part.number("weight", check=lambda v: 0 < v <= 1, expected="a weight in (0, 1]")
+        read.append((w, _shape(part, "a"), _shape(part, "b")))
+    if any(v is None for r in read for v in r):
+        return None
+    total = sum(r[0] for r in read)
+    if abs(total - 1.0) > WEIGHT_TOLERANCE:
+        table.fail("components", "weights summing to 1", Phrase(f"a sum of {total:g}"))
+        return None
+    w, a, b = zip(*read, strict=True)
+    return BetaMixture(tuple(w), tuple(a), tuple(b))
 
 
 def _shape(table: Table, key: str) -> float | None:

@@ -11,15 +11,17 @@ from typing import Any
 
 from octrial.design.model import Design
 from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.exact_normal import NormalRecursionEngine
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
 from octrial.engines.outcome import Outcome
 from octrial.errors import single
 
 ENGINES: dict[str, tuple[Any, ...]] = {
-    "exact": (ExactLatticeEngine,),
+    "exact": (ExactLatticeEngine, NormalRecursionEngine),
     "monte-carlo": (MonteCarloEngine,),
 }
-"""Engines by method name, tried in order."""
+"""Engines by method name, tried in order. An engine may say which endpoint families it
+serves (``serves(family) -> bool``); only those explain why they cannot run a design."""
 
 
 def choose(design: Design, method: str | None = None) -> Any:
@@ -38,7 +40,8 @@ def choose(design: Design, method: str | None = None) -> Any:
             reason = engine.unsupported(design)
             if reason is None:
                 return engine
-            reasons.append(f"{name}: {reason}")
+            if getattr(engine, "serves", lambda _: True)(design.family):
+                reasons.append(f"{name}: {reason}")
         if name not in ENGINES:
             reasons.append(f"{name}: not available in this version")
     available = ", ".join(sorted(ENGINES)) or "none"

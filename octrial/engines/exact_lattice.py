@@ -16,6 +16,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+from scipy import linalg
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
@@ -26,9 +27,11 @@ from octrial.rules.lattice import LatticeRule, build_rule
 
 def _shift_matrix(pmf: np.ndarray, old: int, new: int) -> np.ndarray:
     """M[i, x] = pmf[i - x]: maps a distribution over ``old`` points to ``new`` points."""
-    lag = np.arange(new)[:, None] - np.arange(old)[None, :]
-    valid = (lag >= 0) & (lag < pmf.size)
-    return np.where(valid, pmf[np.clip(lag, 0, pmf.size - 1)], 0.0)
+    column = np.zeros(new)
+    column[: min(new, pmf.size)] = pmf[:new]
+    row = np.zeros(old)
+    row[0] = column[0]
+    return linalg.toeplitz(column, row)
 
 
 def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:
@@ -39,7 +42,7 @@ def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndar
 
 def stopped_mass(
     design: Design, rule: LatticeRule, truth: tuple[float, ...],
-) -> tuple[list[np.ndarray], np.ndarray, np.ndarray, float]:
+) -> tuple[list[np.ndarray], np.ndarray, np.ndarray, float, float]:
     """Exact distribution of where studies stop, at one true parameter vector.
 
     Returns
@@ -50,6 +53,10 @@ def stopped_mass(
         Pr(stop for efficacy / futility at look k).
     neglected : float
         Probability mass dropped by truncating the lattice (0 for bounded statistics).
+    uncertain : float
+        Probability of reaching a point whose decision numerical error could change (see
+        :class:`~octrial.rules.lattice.LookTable`); with ``neglected`` it bounds the error
+        of every stopping probability.
     """
     family: LatticeFamily = design.family
     k_looks = len(rule.looks)
@@ -57,7 +64,7 @@ def stopped_mass(
     mass = []
     dist = np.ones((1,) * len(truth))
     previous = (0,) * len(truth)
-    neglected = 0.0
+    neglected = uncertain = 0.0
     for k, table in enumerate(rule.looks):
         before = dist.sum() if family.truncates else 0.0
         for j, theta in enumerate(truth):
@@ -66,13 +73,15 @@ def stopped_mass(
             dist = _advance(dist, pmf, j, table.shape[j])
         if family.truncates:
             neglected += max(before - dist.sum(), 0.0)
+        if table.uncertain is not None:
+            uncertain += dist[table.uncertain].sum()
         efficacy[k] = dist[table.efficacy].sum()
         futility[k] = dist[table.futility].sum()
         stops = table.efficacy | table.futility
         mass.append(np.where(stops, dist, 0.0))
         dist = np.where(stops, 0.0, dist)
         previous = table.n
-    return mass, efficacy, futility, neglected
+    return mass, efficacy, futility, neglected, uncertain
 
 
 def stopping_probabilities(
@@ -86,7 +95,7 @@ def stopping_probabilities(
     neglected : float
         Probability mass dropped by truncating the lattice (0 for bounded statistics).
     """
-    _, efficacy, futility, neglected = stopped_mass(design, rule, truth)
+    _, efficacy, futility, neglected, _ = stopped_mass(design, rule, truth)
     return efficacy, futility, neglected
 
 
@@ -112,6 +121,10 @@ class ExactLatticeEngine:
     name = "exact"
 
     @staticmethod
+    def serves(family: object) -> bool:
+        return isinstance(family, LatticeFamily)
+
+    @staticmethod
     def unsupported(design: Design) -> str | None:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
         if not isinstance(design.family, LatticeFamily):
@@ -123,26 +136,33 @@ class ExactLatticeEngine:
             **_simulation: Any) -> Outcome:
         """Evaluate every scenario in ``truths`` (one row per scenario, one column per arm).
 
+        A rule whose truncated lattice is too small for ``truths`` is rebuilt for them.
         Simulation settings (replicates, seeds, parallel execution) do not apply and are
         ignored.
         """
-        rule = build_rule(design) if rule is None else rule
-        estimates = lattice_estimates(design)
+        if rule is None or not rule.covers(truths):
+            rule = build_rule(design, truths=truths)
+        estimates = lattice_estimates(design, rule)
         level = design.simulation.interval_level
-        efficacy, futility, neglected, moments, coverage = [], [], [], [], []
+        efficacy, futility, neglected, uncertain, moments, coverage = [], [], [], [], [], []
         for t in truths:
-            mass, eff, fut, lost = stopped_mass(design, rule, tuple(t))
+            mass, eff, fut, lost, unsure = stopped_mass(design, rule, tuple(t))
             efficacy.append(eff)
             futility.append(fut)
             neglected.append(lost)
+            uncertain.append(unsure)
             if estimates is not None:
                 m, c = exact_estimation(design, estimates, tuple(t), mass, level)
                 moments.append(m)
                 coverage.append(c)
         info = {
-            "quadrature_error_bound": rule.quadrature_error,
+            **rule.info(),
             "max_neglected_mass": float(max(neglected)) if neglected else 0.0,
         }
+        if rule.reach is not None:
+            info["truncation_epsilon"] = design.family.truncation_epsilon
+        if uncertain and max(uncertain) > 0:
+            info["max_uncertain_mass"] = float(max(uncertain))
         estimation = None
         if estimates is not None:
             estimation = Estimation(np.array(moments).reshape(len(truths), 3),

@@ -21,6 +21,7 @@ import numpy as np
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
+from octrial.rules.lattice import LatticeRule
 
 
 @dataclass(frozen=True, eq=False)
@@ -39,18 +40,20 @@ class LatticeEstimates:
     posteriors: tuple[tuple, ...]
 
 
-def lattice_estimates(design: Design) -> LatticeEstimates | None:
+def lattice_estimates(design: Design, rule: LatticeRule | None = None) -> LatticeEstimates | None:
     """The posterior-mean tables, or ``None`` when the design or family has none (a rule
-    stated in counts without priors, or a family without target summaries)."""
+    stated in counts without priors, or a family without target summaries). With a
+    ``rule``, the tables follow its lattice (a truncated lattice may have been sized for
+    other truths than the design's scenarios)."""
     family = design.family
     if not isinstance(family, LatticeFamily) or any(a.prior is None for a in design.arms):
         return None
     means, posteriors = [], []
-    for n_k in design.looks.per_arm:
-        posts = tuple(
-            family.posterior(design, j, n_k[j],
-                             np.arange(family.lattice_size(design, j, n_k[j])))
-            for j in range(len(design.arms)))
+    for k, n_k in enumerate(design.looks.per_arm):
+        sizes = (rule.looks[k].shape if rule is not None else
+                 [family.lattice_size(design, j, n_k[j]) for j in range(len(design.arms))])
+        posts = tuple(family.posterior(design, j, n_k[j], np.arange(sizes[j]))
+                      for j in range(len(design.arms)))
         mean = family.target_mean(design, posts)
         if mean is None:
             return None

@@ -12,9 +12,11 @@ point at the last look is a failure.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
@@ -44,6 +46,10 @@ class LookTable:
     efficacy, futility : ndarray of bool
         Where the study stops for efficacy (at the last look: succeeds) and for futility
         (at the last look: every point that does not succeed).
+    uncertain : ndarray of bool or None
+        Points whose decision the numerical error of a probability behind it could change
+        (a posterior on a grid; a predictive probability whose mass partly falls beyond a
+        truncated final lattice). ``None`` when there are none.
     """
 
     look: int
@@ -52,6 +58,7 @@ class LookTable:
     predictive: np.ndarray | None
     efficacy: np.ndarray
     futility: np.ndarray
+    uncertain: np.ndarray | None = None
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -61,15 +68,37 @@ class LookTable:
 
 @dataclass(frozen=True, eq=False)
 class LatticeRule:
-    """Every look's table, plus the numerical error of the probabilities behind them."""
+    """Every look's table, plus the numerical error of the probabilities behind them.
+
+    ``reach`` is, per arm, the largest true value a truncated lattice serves (``None``
+    when the lattice is complete); ``settings`` holds numerical facts for run.json.
+    """
 
     looks: tuple[LookTable, ...]
     quadrature_error: float
+    reach: tuple[float, ...] | None = None
+    settings: dict[str, Any] = field(default_factory=dict)
 
     @property
     def final(self) -> LookTable:
         """The last look's table."""
         return self.looks[-1]
+
+    def covers(self, truths: np.ndarray) -> bool:
+        """Whether the lattice is large enough for every row of ``truths``."""
+        if self.reach is None:
+            return True
+        return bool(np.all(np.asarray(truths, dtype=float) <= np.asarray(self.reach) + 1e-12))
+
+    def boundary_table(self, design: Design) -> pd.DataFrame:
+        """The rule in plain counts (``boundaries.csv``)."""
+        from octrial.rules.boundaries import boundary_table
+
+        return boundary_table(design, self)
+
+    def info(self) -> dict[str, Any]:
+        """Numerical facts about the rule for run.json."""
+        return {"quadrature_error_bound": self.quadrature_error, **self.settings}
 
 
 class LatticeCache:
@@ -79,12 +108,13 @@ class LatticeCache:
     The posterior at a look depends on the data only through each arm's count and sample
     size, so the benefit table for per-arm sizes ``n`` is the same whatever the look number,
     the maximum sample size or the thresholds. Every design given to one cache must share
-    the endpoint, the hypothesis and the analysis priors.
+    the endpoint, the hypothesis and the analysis priors. Tables are keyed by the lattice
+    sizes too: a truncated lattice depends on the true values it serves.
     """
 
     def __init__(self) -> None:
-        self._posteriors: dict[tuple[int, ...], tuple] = {}
-        self._benefit: dict[tuple[int, ...], np.ndarray] = {}
+        self._posteriors: dict[tuple, tuple] = {}
+        self._benefit: dict[tuple, np.ndarray] = {}
         self._predictive: dict[tuple, list[np.ndarray]] = {}
         self.error = 0.0
         self._key: tuple | None = None
@@ -97,30 +127,42 @@ class LatticeCache:
             raise ValueError("a LatticeCache serves designs with the same endpoint, "
                              "hypothesis and priors only")
 
-    def posteriors(self, design: Design, n: tuple[int, ...]) -> tuple:
-        """Each arm's posterior at every lattice point after per-arm sizes ``n``."""
-        self._check(design)
-        if n not in self._posteriors:
-            family = design.family
-            self._posteriors[n] = tuple(
-                family.posterior(design, j, n[j], np.arange(family.lattice_size(design, j, n[j])))
-                for j in range(len(design.arms)))
-        return self._posteriors[n]
+    @staticmethod
+    def _sizes(design: Design, n: tuple[int, ...]) -> tuple[int, ...]:
+        family = design.family
+        return tuple(family.lattice_size(design, j, n[j]) for j in range(len(design.arms)))
 
-    def benefit(self, design: Design, n: tuple[int, ...]) -> np.ndarray:
+    def posteriors(self, design: Design, n: tuple[int, ...],
+                   sizes: tuple[int, ...] | None = None) -> tuple:
+        """Each arm's posterior at every lattice point after per-arm sizes ``n`` (on a
+        lattice of ``sizes`` points per arm; by default the design's)."""
+        self._check(design)
+        sizes = self._sizes(design, n) if sizes is None else sizes
+        key = (n, sizes)
+        if key not in self._posteriors:
+            family = design.family
+            self._posteriors[key] = tuple(
+                family.posterior(design, j, n[j], np.arange(sizes[j]))
+                for j in range(len(design.arms)))
+        return self._posteriors[key]
+
+    def benefit(self, design: Design, n: tuple[int, ...],
+                sizes: tuple[int, ...] | None = None) -> np.ndarray:
         """Posterior probability of benefit on the lattice after per-arm sizes ``n``."""
-        if n not in self._benefit:
-            values, err = design.family.benefit(design, self.posteriors(design, n))
-            self._benefit[n] = values
+        sizes = self._sizes(design, n) if sizes is None else sizes
+        key = (n, sizes)
+        if key not in self._benefit:
+            values, err = design.family.benefit(design, self.posteriors(design, n, sizes))
+            self._benefit[key] = values
             self.error = max(self.error, err)
-        return self._benefit[n]
+        return self._benefit[key]
 
     def predictive(
         self, design: Design, n_now: tuple[int, ...], n_end: tuple[int, ...],
         sizes: tuple[int, ...],
     ) -> list[np.ndarray]:
         """Per arm, the predictive pmf of the statistic still to come, one row per point."""
-        key = (n_now, n_end, sizes)
+        key = (n_now, self._sizes(design, n_now), n_end, sizes)
         if key not in self._predictive:
             family = design.family
             posts = self.posteriors(design, n_now)
@@ -130,7 +172,19 @@ class LatticeCache:
         return self._predictive[key]
 
 
-def build_rule(design: Design, cache: LatticeCache | None = None) -> LatticeRule:
+def serving(design: Design, truths: np.ndarray | None) -> Design:
+    """``design`` with its scenarios extended by ``truths`` when a truncated lattice must
+    serve them (the family sizes its lattice from the design's scenarios)."""
+    if truths is None or not design.family.truncates:
+        return design
+    rows = tuple(tuple(float(v) for v in row) for row in np.asarray(truths, dtype=float))
+    values = tuple(dict.fromkeys(design.scenarios.values + rows))
+    return replace(design, scenarios=replace(design.scenarios, values=values))
+
+
+def build_rule(
+    design: Design, cache: LatticeCache | None = None, *, truths: np.ndarray | None = None,
+) -> LatticeRule:
     """Turn a design's rule into lattice tables (see module docstring).
 
     Parameters
@@ -138,11 +192,15 @@ def build_rule(design: Design, cache: LatticeCache | None = None) -> LatticeRule
     design : Design
     cache : LatticeCache, optional
         Posterior tables to reuse across designs that differ only in looks and thresholds.
+    truths : ndarray, optional
+        True values (scenarios x arms) the rule will be evaluated at; a truncated lattice
+        is sized for them as well as for the design's own scenarios.
     """
     family = design.family
     if not isinstance(family, LatticeFamily):
         raise TypeError(f"{family.name} endpoints have no lattice rule")
     cache = LatticeCache() if cache is None else cache
+    design = serving(design, truths)
     looks = design.looks
     k_last = looks.count - 1
     with_prior = all(arm.prior is not None for arm in design.arms)
@@ -150,12 +208,20 @@ def build_rule(design: Design, cache: LatticeCache | None = None) -> LatticeRule
     benefits: list[np.ndarray | None] = [
         cache.benefit(design, looks.per_arm[k]) if with_prior else None
         for k in range(looks.count)]
+    error = cache.error if with_prior else 0.0
 
     final_success = _efficacy(design, k_last, benefits[k_last])
+    grid = with_prior and family.on_grid(design)
+    predictive_error = 0.0
+    reach_success = final_success
+    if any(t is not None for t in looks.futility_predictive):
+        reach_success = _success_for_predictive(design, cache, final_success)
+        error = max(error, cache.error)
     tables = []
     for k in range(looks.count):
         efficacy = final_success if k == k_last else _efficacy(design, k, benefits[k])
         predictive = None
+        uncertain = _near(design, k, benefits[k], error) if grid else None
         if k == k_last:
             futility = ~efficacy
         else:
@@ -163,13 +229,76 @@ def build_rule(design: Design, cache: LatticeCache | None = None) -> LatticeRule
             threshold = looks.futility_predictive[k]
             if threshold is not None:
                 pmfs = cache.predictive(design, looks.per_arm[k], looks.per_arm[-1],
-                                        final_success.shape)
-                predictive = success_from_pmfs(pmfs, final_success)
+                                        reach_success.shape)
+                predictive = success_from_pmfs(pmfs, reach_success)
                 futility |= predictive < threshold - DECISION_TOLERANCE
+                slack, err = _predictive_slack(design, family,
+                                               cache.posteriors(design, looks.per_arm[k]), k,
+                                               pmfs, reach_success.shape)
+                predictive_error = max(predictive_error, err)
+                if np.any(slack > 0):
+                    near = np.abs(predictive - threshold) < slack
+                    uncertain = near if uncertain is None else uncertain | near
             futility &= ~efficacy
+        if uncertain is not None and not uncertain.any():
+            uncertain = None
         tables.append(LookTable(k + 1, looks.per_arm[k], benefits[k], predictive, efficacy,
-                                futility))
-    return LatticeRule(tuple(tables), cache.error if with_prior else 0.0)
+                                futility, uncertain))
+    settings = family.rule_info(design, max(error, predictive_error)) if with_prior else {}
+    return LatticeRule(tuple(tables), error, family.lattice_reach(design), settings)
+
+
+def _near(design: Design, k: int, benefit: np.ndarray, error: float) -> np.ndarray | None:
+    """Points whose posterior probability lies within ``error`` of a threshold at look k."""
+    looks = design.looks
+    thresholds = [looks.efficacy[k], looks.futility[k] if k < looks.count - 1 else None]
+    near = np.zeros(benefit.shape, dtype=bool)
+    for t in thresholds:
+        if t is not None:
+            near |= np.abs(benefit - t) < error
+    return near
+
+
+def _predictive_slack(
+    design: Design, family: LatticeFamily, posteriors: tuple, k: int, pmfs: list[np.ndarray],
+    final_shape: tuple[int, ...],
+) -> tuple[np.ndarray, float]:
+    """Per point, how far the computed predictive probability may be from the true one:
+    the predictive mass beyond a truncated final lattice (counted as failure) plus the
+    numerical error of the predictive distribution (also returned on its own)."""
+    n_now, n_end = design.looks.per_arm[k], design.looks.per_arm[-1]
+    error = sum(family.predictive_error(design, post, n_end[j] - n_now[j], final_shape[j])
+                for j, post in enumerate(posteriors))
+    if not family.truncates:
+        return np.full([p.shape[0] for p in pmfs], error), error
+    tails = []
+    for pmf, size in zip(pmfs, final_shape, strict=True):
+        # Pr(x + Y >= size) = 1 - sum_{y < size - x} Pr(Y = y | x)
+        x = np.arange(pmf.shape[0])
+        inside = np.cumsum(pmf, axis=1)[x, size - 1 - x]
+        tails.append(np.clip(1.0 - inside, 0.0, None))
+    if len(tails) == 1:
+        return tails[0] + error, error
+    return tails[0][:, None] + tails[1][None, :] + error, error
+
+
+def _success_for_predictive(
+    design: Design, cache: LatticeCache, final_success: np.ndarray,
+) -> np.ndarray:
+    """The final success region on a lattice large enough for predictive probabilities.
+
+    A truncated final lattice serves the true values; the predictive distribution from a
+    high interim count can reach further. The family says how far
+    (:meth:`~octrial.endpoints.base.LatticeFamily.predictive_lattice_size`), and the
+    final success region is evaluated on that larger lattice.
+    """
+    family = design.family
+    sizes = tuple(max(size, family.predictive_lattice_size(design, j))
+                  for j, size in enumerate(final_success.shape))
+    if sizes == final_success.shape:
+        return final_success
+    benefit = cache.benefit(design, design.looks.per_arm[-1], sizes)
+    return _efficacy(design, design.looks.count - 1, benefit)
 
 
 def _efficacy(design: Design, k: int, benefit: np.ndarray | None) -> np.ndarray:
@@ -203,6 +332,17 @@ def _futility(
     return benefit < threshold - DECISION_TOLERANCE
 
 
+def predictive_pmfs(
+    design: Design, family: LatticeFamily, posteriors: tuple, k: int,
+    final_shape: tuple[int, ...],
+) -> list[np.ndarray]:
+    """Per arm, the predictive pmf of the statistic still to come after look ``k``, one
+    row per lattice point and one column per final lattice point."""
+    n_now, n_end = design.looks.per_arm[k], design.looks.per_arm[-1]
+    return [family.predictive_pmf(design, post, n_end[j] - n_now[j], final_shape[j])
+            for j, post in enumerate(posteriors)]
+
+
 def predictive_success(
     design: Design, family: LatticeFamily, posteriors: tuple, k: int, success: np.ndarray,
 ) -> np.ndarray:
@@ -210,15 +350,11 @@ def predictive_success(
 
     PP(x) = sum_y Pr(Y = y | x) 1[final success at x + y], with Y the statistic of the
     subjects still to come (Lee & Liu 2008); per arm independently for two arms. Points
-    beyond a truncated final lattice count as failures (their mass is reported by the
-    family's truncation bound).
+    beyond a truncated final lattice count as failures; where that could change a
+    decision, the point is marked uncertain (see :func:`build_rule`).
     """
-    n_now, n_end = design.looks.per_arm[k], design.looks.per_arm[-1]
-    pmfs = [
-        family.predictive_pmf(design, post, n_end[j] - n_now[j], success.shape[j])
-        for j, post in enumerate(posteriors)
-    ]
-    return success_from_pmfs(pmfs, success)
+    return success_from_pmfs(predictive_pmfs(design, family, posteriors, k, success.shape),
+                             success)
 
 
 def success_from_pmfs(pmfs: list[np.ndarray], success: np.ndarray) -> np.ndarray:
