@@ -38,6 +38,8 @@ from octrial.engines import choose
 from octrial.rules.lattice import LatticeRule, build_rule
 
 QUADRATURE_NODES = 64
+REACH_TAIL = 1e-12
+"""Design-prior upper quantile a truncated (count) lattice is sized to serve."""
 """Gauss-Legendre nodes per mixture component and arm for the quadrature method."""
 
 
@@ -114,7 +116,9 @@ def assurance(
     if method == "exact" or (method == "auto" and lattice):
         if not lattice:
             raise ValueError(f"no exact assurance for {family.name} endpoints")
-        rule = build_rule(design) if rule is None else rule
+        reach = _reach(design)
+        if rule is None or (reach is not None and not rule.covers(reach)):
+            rule = build_rule(design, truths=reach)
         eff, fut = _predictive_programme(design, generating, rule)
         method_used = "exact"
     else:
@@ -138,14 +142,30 @@ def _predictive_programme(
         for j in range(arms):
             old = dist.shape[j]
             post = family.posterior(generating, j, previous[j], np.arange(old))
+            # increments up to the lattice's size (counts are not bounded by subjects)
             pmf = family.predictive_pmf(generating, post, table.n[j] - previous[j],
-                                        table.n[j] - previous[j] + 1)
+                                        table.shape[j])
             dist = _advance(dist, pmf, j, table.shape[j])
         eff[k] = dist[table.efficacy].sum()
         fut[k] = dist[table.futility].sum()
         dist = np.where(table.efficacy | table.futility, 0.0, dist)
         previous = table.n
     return eff, fut
+
+
+def _reach(design: Design) -> np.ndarray | None:
+    """For a truncated lattice: true values up to the design priors' 1 - 1e-12 quantiles,
+    so that the lattice serves (nearly) every value the design prior generates."""
+    family = design.family
+    if not getattr(family, "truncates", False):
+        return None
+    tops = []
+    for arm in design.arms:
+        components = family.prior_components(arm.design_prior)
+        if components is None:
+            return None
+        tops.append(max(float(dist.isf(REACH_TAIL)) for _, dist in components))
+    return np.array([tops])
 
 
 def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:

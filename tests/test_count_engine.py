@@ -202,3 +202,18 @@ def test_ratio_scenarios_null_and_columns() -> None:
     np.testing.assert_allclose(oc["true_treatment"], [0.8, 1.0, 1.2])
     assert list(oc["is_null"]) == [False, True, True]
     assert design.hypothesis.threshold == pytest.approx(1.25)
+
+
+def test_assurance_on_a_truncated_lattice() -> None:
+    # The exact assurance programme (design-prior predictive increments on the count
+    # lattice, sized for the design prior's 1 - 1e-12 quantile) against Gauss-Legendre
+    # quadrature over the design prior's quantiles of the exact Pr(success | rate).
+    from octrial.design_prior import assurance
+
+    design = build(ONE_ARM, arms__treatment__design_prior={
+        "distribution": "gamma-mixture", "components": [
+            {"weight": 0.5, "shape": 10, "rate": 12}, {"weight": 0.5, "shape": 3, "rate": 2}]})
+    exact = assurance(design)
+    assert sum(exact.stop_efficacy) + sum(exact.stop_futility) == pytest.approx(1, abs=1e-9)
+    assert exact.probability == pytest.approx(
+        assurance(design, method="quadrature").probability, abs=1e-5)

@@ -240,3 +240,34 @@ def test_unknown_sd_prior_probability_against_draws() -> None:
     mu = rng.normal(0.2, np.sqrt(sigma2 / 2.0))
     estimate = np.mean(mu > 0.5)
     assert abs(value - estimate) < 5 * math.sqrt(estimate * (1 - estimate) / mu.size)
+
+
+def test_assurance_by_quadrature_against_closed_form() -> None:
+    # Identity: one look, flat analysis prior, design prior N(m, s^2) on the mean: the
+    # sample mean is N(m, s^2 + sd^2 / n) marginally, so
+    # assurance = Pr(z >= z_gamma) = Phi((m sqrt(n) / sd - z_gamma) / sqrt(1 + n s^2 / sd^2)).
+    from octrial.design_prior import assurance
+
+    m, s, n, gamma = 0.2, 0.15, 100, 0.975
+    design = build(ONE_ARM, looks__n=[n], looks__efficacy=gamma,
+                   arms__treatment__design_prior={"distribution": "normal", "mean": m, "sd": s})
+    got = assurance(design)
+    expected = stats.norm.cdf((m * math.sqrt(n) - stats.norm.ppf(gamma))
+                              / math.sqrt(1 + n * s**2))
+    assert got.method == "quadrature"
+    assert got.probability == pytest.approx(expected, abs=1e-6)
+
+
+def test_boundaries_command_on_a_normal_design(tmp_path) -> None:
+    # The committee text gives each look's bound on the difference in sample means with
+    # its z value; under the flat prior the final z bound is Phi^{-1}(0.975).
+    from click.testing import CliRunner
+
+    from octrial.cli import main
+    from tests.helpers import DESIGNS
+
+    result = CliRunner().invoke(main, ["boundaries", str(DESIGNS / "two-arm-continuous-score.toml"),
+                                       "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    assert "success if difference >= " in result.output and "(z +" in result.output
+    assert (tmp_path / "boundaries.csv").exists()

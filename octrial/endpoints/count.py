@@ -382,8 +382,8 @@ class CountFamily(GridModel, LatticeFamily):
         return prob_ratio(posteriors[0], posteriors[1], math.exp(value), below=True)
 
     def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
-        if not isinstance(prior, GammaMixture):
-            return None
+        if isinstance(prior, LogNormalRate):
+            return [(1.0, stats.lognorm(prior.log_sd, scale=math.exp(prior.log_mean)))]
         return [(w, stats.gamma(a, scale=1 / b)) for w, a, b in zip(
             prior.weights, prior.a, prior.b, strict=True)]
 

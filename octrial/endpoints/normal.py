@@ -36,6 +36,7 @@ from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowing
 from octrial.endpoints.prior_size import arm_summary, fda_summary
+from octrial.errors import single
 
 WEIGHT_TOLERANCE = 1e-9
 UNKNOWN = "unknown"
@@ -273,6 +274,27 @@ class NormalFamily(Family):
         from octrial.rules.normal import build_normal_rule
 
         return build_normal_rule(design)
+
+    def boundary_table(self, design: Any) -> Any:
+        """``octrial boundaries``: the bounds as sample means and z (known sd)."""
+        rule = self.decision_rule(design)
+        if rule is None:
+            raise single(design.source.path or design.name, "endpoint.sd",
+                         "a known sd (with an unknown sd the rule has no table of bounds: "
+                         "the decision depends on the sample mean and sd together)",
+                         UNKNOWN)
+        return rule.boundary_table(design)
+
+    def committee_table(self, design: Any, table: Any) -> str:
+        from octrial.rules.normal import committee_text
+
+        return committee_text(design, table)
+
+    def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
+        if not isinstance(prior, NormalMixture):
+            return None
+        return [(w, stats.norm(m, s)) for w, m, s in zip(prior.weights, prior.mean, prior.sd,
+                                                          strict=True)]
 
     def prior_probability_of_claim(self, design: Any) -> float | None:
         h = design.hypothesis

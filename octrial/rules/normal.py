@@ -88,6 +88,31 @@ class NormalRule:
         return {"boundary_root_tolerance": ROOT_TOLERANCE}
 
 
+def committee_text(design: Design, table: pd.DataFrame) -> str:
+    """The bounds per look in words, as a monitoring committee applies them by hand."""
+    lines = [f"Decision rule of {design.name}, on the {table['bound_on'].iloc[0]}:"]
+    last = int(table["look"].max())
+    for row in table.itertuples():
+        n = (f"{row.n_treatment} + {row.n_control} subjects" if design.two_arm
+             else f"{row.n} subjects")
+        lines.append(f"look {row.look} ({n}):")
+        efficacy = "success" if row.look == last else "stop for efficacy"
+        lines.append(f"  {efficacy} if {row.efficacy_rule}" + (
+            f"  (z {row.efficacy_z:+.4f}; posterior {row.posterior_at_efficacy_bound:.4f} "
+            "there)" if math.isfinite(row.efficacy_z) else ""))
+        if row.look == last:
+            lines.append("  failure otherwise")
+        elif row.futility_rule != "never":
+            note = (f"  (z {row.futility_z:+.4f}; posterior "
+                    f"{row.posterior_at_futility_bound:.4f} there)"
+                    if math.isfinite(row.futility_z) else "")
+            lines.append(f"  stop for futility if {row.futility_rule}{note}")
+            lines.append("  otherwise continue")
+        else:
+            lines.append("  otherwise continue")
+    return "\n".join(lines) + "\n"
+
+
 def _rule(kind: str, s: float, text: str) -> str:
     if math.isfinite(s):
         return text
