@@ -31,11 +31,11 @@ from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
+from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
 
-WEIGHT_TOLERANCE = 1e-9
 TAIL = 1e-15
 """Prior quantile that bounds the grid's range."""
 
@@ -77,9 +77,7 @@ class BetaMixture:
     def describe(self) -> str:
         """Plain-text form for tables and reports."""
         parts = [f"Beta({a:g}, {b:g})" for a, b in zip(self.a, self.b, strict=True)]
-        text = parts[0] if len(parts) == 1 else " + ".join(
-            f"{w:.6g} x {p}" for w, p in zip(self.weights, parts, strict=True))
-        return text if self.borrowing is None else f"{text} ({self.borrowing.describe()})"
+        return describe(self.weights, parts, self.borrowing)
 
 
 @dataclass(frozen=True)
@@ -244,7 +242,8 @@ class BinaryFamily(GridModel, LatticeFamily):
             prior = None if a is None or b is None else BetaMixture.single(a, b)
         elif kind == "beta-mixture":
             table.allow("distribution", "components", *extra)
-            prior = _read_mixture(table)
+            found = read_components(table, ("a", "b"), (_shape, _shape))
+            prior = None if found is None else BetaMixture(*found)
         elif kind == "logit-normal":
             table.allow("distribution", "logit_mean", "logit_sd", *extra)
             mean = table.number("logit_mean", expected="a number (mean of logit rate)")
@@ -427,23 +426,6 @@ def _log_p(t: np.ndarray) -> np.ndarray:
     return -np.logaddexp(0.0, -t)
 
 
-def _read_mixture(table: Table) -> BetaMixture | None:
-    parts = table.sub_tables("components")
-    if parts is None:
-        return None
-    read = []
-    for part in parts:
-        part.allow("weight", "a", "b")
-        w = part.number("weight", check=lambda v: 0 < v <= 1, expected="a weight in (0, 1]")
-        read.append((w, _shape(part, "a"), _shape(part, "b")))
-    if any(v is None for r in read for v in r):
-        return None
-    total = sum(r[0] for r in read)
-    if abs(total - 1.0) > WEIGHT_TOLERANCE:
-        table.fail("components", "weights summing to 1", Phrase(f"a sum of {total:g}"))
-        return None
-    w, a, b = zip(*read, strict=True)
-    return BetaMixture(tuple(w), tuple(a), tuple(b))
 
 
 def _shape(table: Table, key: str) -> float | None:

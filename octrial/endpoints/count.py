@@ -37,13 +37,13 @@ from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
+from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.numerics import parameter_grid as pg
 
 TRUNCATION_EPSILON = 1e-10
 """Largest probability mass the truncated count lattice may neglect per scenario."""
 
-WEIGHT_TOLERANCE = 1e-9
 MODELS = ("poisson", "negative-binomial")
 TAIL = 1e-15
 """Prior quantile that bounds the grid's range."""
@@ -91,9 +91,7 @@ class GammaMixture:
     def describe(self) -> str:
         """Plain-text form for tables and reports."""
         parts = [f"Gamma(shape {a:g}, rate {b:g})" for a, b in zip(self.a, self.b, strict=True)]
-        text = parts[0] if len(parts) == 1 else " + ".join(
-            f"{w:.6g} x {p}" for w, p in zip(self.weights, parts, strict=True))
-        return text if self.borrowing is None else f"{text} ({self.borrowing.describe()})"
+        return describe(self.weights, parts, self.borrowing)
 
 
 @dataclass(frozen=True)
@@ -227,7 +225,8 @@ class CountFamily(GridModel, LatticeFamily):
             prior = None if a is None or b is None else GammaMixture.single(a, b)
         elif kind == "gamma-mixture":
             table.allow("distribution", "components", *extra)
-            prior = _read_mixture(table)
+            found = read_components(table, ("shape", "rate"), (_positive, _positive))
+            prior = None if found is None else GammaMixture(*found)
         elif kind == "log-normal":
             table.allow("distribution", "log_mean", "log_sd", *extra)
             mean = table.number("log_mean", expected="a number (mean of the log rate)")
@@ -477,21 +476,3 @@ class CountFamily(GridModel, LatticeFamily):
 def _positive(table: Table, key: str) -> float | None:
     return table.number(key, check=lambda v: v > 0, expected="a number > 0")
 
-
-def _read_mixture(table: Table) -> GammaMixture | None:
-    parts = table.sub_tables("components")
-    if parts is None:
-        return None
-    read = []
-    for part in parts:
-        part.allow("weight", "shape", "rate")
-        w = part.number("weight", check=lambda v: 0 < v <= 1, expected="a weight in (0, 1]")
-        read.append((w, _positive(part, "shape"), _positive(part, "rate")))
-    if any(v is None for r in read for v in r):
-        return None
-    total = sum(r[0] for r in read)
-    if abs(total - 1.0) > WEIGHT_TOLERANCE:
-        table.fail("components", "weights summing to 1", Phrase(f"a sum of {total:g}"))
-        return None
-    w, a, b = zip(*read, strict=True)
-    return GammaMixture(tuple(w), tuple(a), tuple(b))

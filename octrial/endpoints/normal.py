@@ -35,10 +35,10 @@ from scipy import special, stats
 from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowing
+from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.errors import single
 
-WEIGHT_TOLERANCE = 1e-9
 UNKNOWN = "unknown"
 HISTORICAL = {"mean": "number", "sd": "positive", "n": "size"}
 
@@ -75,9 +75,7 @@ class NormalMixture:
 
     def describe(self) -> str:
         parts = [f"Normal({m:g}, {s:g}^2)" for m, s in zip(self.mean, self.sd, strict=True)]
-        text = parts[0] if len(parts) == 1 else " + ".join(
-            f"{w:.6g} x {p}" for w, p in zip(self.weights, parts, strict=True))
-        return text if self.borrowing is None else f"{text} ({self.borrowing.describe()})"
+        return describe(self.weights, parts, self.borrowing)
 
     @property
     def prior_mean(self) -> float:
@@ -200,7 +198,8 @@ class NormalFamily(Family):
             prior = None if mean is None or sd is None else NormalMixture((1.0,), (mean,), (sd,))
         elif kind == "normal-mixture":
             table.allow("distribution", "components", *extra)
-            prior = _read_mixture(table)
+            found = read_components(table, ("mean", "sd"), (_number, _sd))
+            prior = None if found is None else NormalMixture(*found)
         elif kind == "flat":
             table.allow("distribution", *extra)
             prior = Flat()
@@ -404,24 +403,10 @@ def _sd(table: Table, key: str) -> float | None:
     return table.number(key, check=lambda v: v > 0, expected="a standard deviation > 0")
 
 
+def _number(table: Table, key: str) -> float | None:
+    return table.number(key)
+
+
 def _positive(table: Table, key: str) -> float | None:
     return table.number(key, check=lambda v: v > 0, expected="a number > 0")
 
-
-def _read_mixture(table: Table) -> NormalMixture | None:
-    parts = table.sub_tables("components")
-    if parts is None:
-        return None
-    read = []
-    for part in parts:
-        part.allow("weight", "mean", "sd")
-        w = part.number("weight", check=lambda v: 0 < v <= 1, expected="a weight in (0, 1]")
-        read.append((w, part.number("mean"), _sd(part, "sd")))
-    if any(v is None for r in read for v in r):
-        return None
-    total = sum(r[0] for r in read)
-    if abs(total - 1.0) > WEIGHT_TOLERANCE:
-        table.fail("components", "weights summing to 1", Phrase(f"a sum of {total:g}"))
-        return None
-    w, m, s = zip(*read, strict=True)
-    return NormalMixture(tuple(w), tuple(m), tuple(s))
