@@ -38,9 +38,10 @@ from octrial.engines import choose
 from octrial.rules.lattice import LatticeRule, build_rule
 
 QUADRATURE_NODES = 64
+"""Gauss-Legendre nodes per mixture component and arm for the quadrature method."""
+
 REACH_TAIL = 1e-12
 """Design-prior upper quantile a truncated (count) lattice is sized to serve."""
-"""Gauss-Legendre nodes per mixture component and arm for the quadrature method."""
 
 
 @dataclass(frozen=True)
