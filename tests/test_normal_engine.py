@@ -269,5 +269,5 @@ def test_boundaries_command_on_a_normal_design(tmp_path) -> None:
     result = CliRunner().invoke(main, ["boundaries", str(DESIGNS / "two-arm-continuous-score.toml"),
                                        "--out", str(tmp_path)])
     assert result.exit_code == 0, result.output
-    assert "success if difference >= " in result.output and "(z +" in result.output
+    assert "success if difference >= " in result.output and "(z >= " in result.output
     assert (tmp_path / "boundaries.csv").exists()

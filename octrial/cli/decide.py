@@ -60,21 +60,30 @@ def render(result: Decision) -> str:
     if result.posterior:
         lines.append(f"posterior mean and {result.level:.0%} equal-tailed credible interval:")
         width = max(len(s.quantity) for s in result.posterior)
-        lines += [f"  {s.quantity:<{width}}  {s.mean:.4f}  ({s.lower:.4f} to {s.upper:.4f})"
-                  for s in result.posterior]
+        lines += [f"  {s.quantity:<{width}}  {_number(s.mean)}  ({_number(s.lower)} to "
+                  f"{_number(s.upper)})" for s in result.posterior]
     if a.benefit is not None:
         lines.append(f"{result.statement} = {a.benefit:.4f}")
     if a.predictive is not None:
-        left = ", ".join(f"{n} {arm}" if len(result.remaining_n) > 1 else str(n)
-                         for arm, n in result.remaining_n.items())
+        se = "" if a.predictive_se is None else f", Monte Carlo SE {a.predictive_se:.4f}"
         lines.append(f"predictive probability of final success = {a.predictive:.4f} "
-                     f"({left} subjects to come)")
+                     f"({result.to_come} to come{se})")
     applied = [f"{k.replace('_', ' ')} {v:g}" for k, v in vars(a.thresholds).items()
                if v is not None]
     lines.append("rule at this look: " + ("; ".join(applied) or "no stopping threshold"))
     lines.append("boundaries at the observed size: "
                  + "; ".join(f"{k} {v}" for k, v in a.boundaries.items()))
     for check in result.checks:
-        lines.append(f"check of the data model, {check.statistic}: {check.verdict}")
+        arm = f" ({check.arm})" if len(result.observed) > 1 else ""
+        lines.append(f"check of the data model{arm}, {check.statistic}: {check.verdict}")
     lines.append(f"decision: {a.decision.upper()} ({a.reason})")
     return "\n".join(lines)
+
+
+def _number(value: float | None) -> str:
+    """A posterior summary value with four decimals, or its magnitude's digits."""
+    if value is None:
+        return "no finite mean"
+    if value != 0 and not 1e-3 <= abs(value) < 1e6:
+        return f"{value:.4g}"
+    return f"{value:.4f}"

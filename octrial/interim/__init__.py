@@ -8,11 +8,14 @@ credible intervals, and the decision the design's rule gives::
     result = decide(design, look=2, data=["treatment=14/30"])
     result.decision                      # 'continue', 'stop for efficacy', ...
 
+Count data are ``ARM=events/exposure`` and normal data ``ARM=mean,sd,n``.
+
 The rule is evaluated by the same code as the boundary tables (:mod:`octrial.interim.rule`),
 so at the planned sample sizes the decision is the table's.
 """
 
-from octrial.interim.decision import ENDPOINTS, Assessment, Decision, assess, decide
+from octrial.interim.decision import ENDPOINTS, Assessment, Decision, assess, decide, rule_at
 from octrial.interim.observations import SYNTAX, parse_data
 
-__all__ = ["ENDPOINTS", "SYNTAX", "Assessment", "Decision", "assess", "decide", "parse_data"]
+__all__ = ["ENDPOINTS", "SYNTAX", "Assessment", "Decision", "assess", "decide", "parse_data",
+           "rule_at"]

@@ -21,18 +21,78 @@ from octrial.errors import InputError, Problem
 
 @dataclass(frozen=True)
 class PosteriorSummary:
-    """Posterior mean and equal-tailed credible interval of one quantity."""
+    """Posterior mean and equal-tailed credible interval of one quantity (``mean`` is
+    ``None`` where the posterior has no finite mean, for example a rate ratio whose control
+    rate may be arbitrarily close to 0)."""
 
     quantity: str
-    mean: float
+    mean: float | None
     lower: float
     upper: float
+
+
+@dataclass(frozen=True)
+class Frame:
+    """The observations placed on a design's rule.
+
+    Attributes
+    ----------
+    design : Design
+        The design whose rule is applied: the user's design, or a copy in other units of
+        size (count data whose exposure is not a whole number of subjects) or with a
+        larger count lattice (counts beyond it).
+    sizes : tuple of int
+        Per arm, the size observed in ``design``'s units (subjects).
+    """
+
+    design: Design
+    sizes: tuple[int, ...]
 
 
 class EndpointInterim(ABC):
     """Interim-look support for one endpoint type."""
 
     endpoint: str
+
+    def frame(self, design: Design, observed: dict[str, Any], look: int) -> Frame:
+        """The design whose rule at ``look`` (from 1) the observations are read on, and
+        their sizes in its units (by default the design itself and :meth:`sizes`)."""
+        return Frame(design, self.sizes(design, observed))
+
+    size_word = "sample size"
+    """What the size of an arm is called in messages."""
+
+    def quantity(self, design: Design, n: float) -> str:
+        """A size in ``design``'s units as a plain number in the user's units (``'28'``)."""
+        return f"{n:g}"
+
+    def amount(self, design: Design, n: float) -> str:
+        """A size in ``design``'s units in words (``'28 subjects'``)."""
+        return f"{self.quantity(design, n)} subjects"
+
+    def has_prior(self, design: Design) -> bool:
+        """Whether the design has an analysis prior (else the rule is in counts)."""
+        return all(arm.prior is not None for arm in design.arms)
+
+    def assess_point(self, design: Design, look: int, sizes: tuple[int, ...],
+                     observed: dict[str, Any], seed: int) -> Any:
+        """The rule's :class:`~octrial.interim.rule.Assessment` at the observed point, for
+        families without a count lattice (lattice families are read off their tables)."""
+        raise NotImplementedError(f"{self.endpoint} designs are read off the lattice")
+
+    def bound_rules(self, design: Design, look: int,
+                    sizes: tuple[int, ...]) -> tuple[str, str] | None:
+        """Families without a lattice: the (efficacy, futility) bounds in words at
+        ``sizes``."""
+        return None
+
+    def extra_record(self, design: Design, frame: Frame, look: int) -> dict[str, Any]:
+        """Further entries of the JSON record (for example exposures for count data)."""
+        return {}
+
+    def warnings(self, design: Design, observed: dict[str, Any]) -> tuple[str, ...]:
+        """Warnings about the observations themselves (none by default)."""
+        return ()
 
     @abstractmethod
     def sizes(self, design: Design, observed: dict[str, Any]) -> tuple[int, ...]:
@@ -54,8 +114,9 @@ class EndpointInterim(ABC):
 
     def check_subjects(
         self, design: Design, path: Path, observed: dict[str, Any], seed: int,
-    ) -> tuple[Any, ...]:
-        """Posterior predictive adequacy checks on per-subject data (none by default)."""
+    ) -> tuple[tuple[Any, ...], tuple[str, ...]]:
+        """Posterior predictive adequacy checks on per-subject data, and warnings (for
+        example per-subject data that do not add up to ``--data``); none by default."""
         raise InputError(str(path), [Problem(
             "", "per-subject data for a count or normal endpoint (the adequacy checks test "
             "those data models)", f"a {self.endpoint} design",

@@ -8,7 +8,7 @@ per-subject data are given, the posterior predictive adequacy checks.
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -17,9 +17,12 @@ from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.design.model import Design
 from octrial.design.thresholds import FUNCTIONS
+from octrial.endpoints.base import LatticeFamily
 from octrial.errors import InputError, Problem, single
-from octrial.interim.base import EndpointInterim, PosteriorSummary
+from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
 from octrial.interim.binary import BinaryInterim
+from octrial.interim.count import CountInterim
+from octrial.interim.normal import NormalInterim
 from octrial.interim.observations import parse_data
 from octrial.interim.rule import (
     CONTINUE,
@@ -27,31 +30,20 @@ from octrial.interim.rule import (
     STOP_EFFICACY,
     STOP_FUTILITY,
     SUCCESS,
-    Thresholds,
+    Assessment,
     count_decision,
     observed_look,
     probability_decision,
     thresholds_at,
 )
 
-ENDPOINTS: dict[str, EndpointInterim] = {e.endpoint: e for e in (BinaryInterim(),)}
+ENDPOINTS: dict[str, EndpointInterim] = {
+    e.endpoint: e for e in (BinaryInterim(), CountInterim(), NormalInterim())}
 """Interim-look support per endpoint type."""
 
 DEFAULT_LEVEL = 0.95
 DEFAULT_SEED = 20_261_201
 """Seed of the posterior predictive simulations when none is given."""
-
-
-@dataclass(frozen=True)
-class Assessment:
-    """The rule's verdict at one lattice point (no posterior summaries)."""
-
-    benefit: float | None
-    predictive: float | None
-    thresholds: Thresholds
-    decision: str
-    reason: str
-    boundaries: dict[str, str]
 
 
 @dataclass(frozen=True)
@@ -67,7 +59,8 @@ class Decision:
     observed : dict
         Arm to its observation.
     planned_n, remaining_n : dict
-        Per arm: the look's planned size, and subjects still to come after the observed.
+        Per arm: the look's planned size, and subjects still to come after the observed
+        (count data: subject-equivalents, exposure / exposure per subject).
     statement : str
         The posterior probability of benefit in words.
     assessment : Assessment
@@ -78,6 +71,10 @@ class Decision:
     warnings : tuple of str
     checks : tuple
         Posterior predictive adequacy checks (per-subject data only).
+    extra : dict
+        Endpoint-specific entries of the JSON record (count data: exposures).
+    to_come : str
+        What is still to come after the observed data, in words ('17 subjects').
     """
 
     design: str
@@ -85,13 +82,15 @@ class Decision:
     looks: int
     observed: dict[str, Any]
     planned_n: dict[str, int]
-    remaining_n: dict[str, int]
+    remaining_n: dict[str, float]
     statement: str
     assessment: Assessment
     level: float
     posterior: tuple[PosteriorSummary, ...]
     warnings: tuple[str, ...] = ()
     checks: tuple[Any, ...] = ()
+    extra: dict[str, Any] = dataclasses.field(default_factory=dict)
+    to_come: str = ""
 
     @property
     def decision(self) -> str:
@@ -102,7 +101,7 @@ class Decision:
     def as_dict(self) -> dict[str, Any]:
         """The JSON record (docs/output-files.md)."""
         a = self.assessment
-        return {
+        record = {
             "octrial_version": __version__,
             "design": self.design,
             "look": self.look,
@@ -111,8 +110,13 @@ class Decision:
             "data": {arm: dataclasses.asdict(obs) for arm, obs in self.observed.items()},
             "planned_n": self.planned_n,
             "remaining_n": self.remaining_n,
+            **self.extra,
             "benefit": {"statement": self.statement, "probability": a.benefit},
             "predictive_probability_of_success": a.predictive,
+        }
+        if a.predictive_se is not None:
+            record["predictive_probability_se"] = a.predictive_se
+        record.update({
             "posterior": {"level": self.level,
                           "summaries": [dataclasses.asdict(s) for s in self.posterior]},
             "thresholds": {k: v for k, v in dataclasses.asdict(a.thresholds).items()
@@ -123,7 +127,8 @@ class Decision:
             "warnings": list(self.warnings),
             "checks": [dataclasses.asdict(c) for c in self.checks],
             "caution": CAUTION,
-        }
+        })
+        return record
 
 
 def endpoint_support(design: Design) -> EndpointInterim:
@@ -138,7 +143,8 @@ def endpoint_support(design: Design) -> EndpointInterim:
 
 def assess(design: Design, look: int, sizes: tuple[int, ...],
            stats: tuple[int, ...]) -> Assessment:
-    """The design's rule at look ``look`` (from 1) for counts ``stats`` of ``sizes``.
+    """The rule of a lattice design at look ``look`` (from 1) for counts ``stats`` of
+    ``sizes``.
 
     Uses the tables of :func:`octrial.interim.rule.observed_look` (cached per look and
     sizes), so assessing every point of a lattice is cheap.
@@ -186,20 +192,40 @@ def _bounds(
     return out
 
 
-def _check_sizes(design: Design, look: int, sizes: tuple[int, ...]) -> None:
+def _check_sizes(support: EndpointInterim, frame: Frame, look: int) -> None:
+    design, sizes = frame.design, frame.sizes
     looks = design.looks
     problems = []
     maximum = looks.per_arm[-1]
     for arm, n, top in zip(design.arm_names, sizes, maximum, strict=True):
         if n > top:
-            problems.append(Problem(arm, f"at most the design's maximum of {top} subjects in "
-                                    f"the {arm} arm", str(n)))
+            problems.append(Problem(arm, f"at most the design's maximum of "
+                                    f"{support.amount(design, top)} in the {arm} arm",
+                                    support.amount(design, n)))
     if look < looks.count and sum(sizes) >= looks.n[look]:
-        problems.append(Problem("", f"fewer subjects than look {look + 1} plans "
-                                f"({looks.n[look]} in total) for an analysis at look {look}",
-                                f"{sum(sizes)} in total", f"use --look {look + 1} or later"))
+        problems.append(Problem("", f"a total {support.size_word} below the one look "
+                                f"{look + 1} plans ({support.quantity(design, looks.n[look])})"
+                                f" for an analysis at look {look}",
+                                f"{support.quantity(design, sum(sizes))} in total",
+                                f"use --look {look + 1} or later"))
     if problems:
         raise InputError("--data", problems)
+
+
+def rule_at(design: Design, look: int, observed: dict[str, Any],
+            seed: int = DEFAULT_SEED) -> tuple[Frame, Assessment]:
+    """The rule's verdict at ``look`` (from 1) on parsed observations: the frame they are
+    read on (sizes checked against the design) and the :class:`Assessment`.
+
+    The decision part of :func:`decide`, without summaries, checks or warnings.
+    """
+    support = endpoint_support(design)
+    frame = support.frame(design, observed, look)
+    _check_sizes(support, frame, look)
+    on = frame.design
+    if isinstance(on.family, LatticeFamily):
+        return frame, assess(on, look, frame.sizes, support.statistics(on, observed))
+    return frame, support.assess_point(on, look, frame.sizes, observed, seed)
 
 
 def decide(
@@ -214,14 +240,17 @@ def decide(
     look : int
         The interim look, from 1 (the last look is the final analysis).
     data : iterable of str
-        ``ARM=...`` per arm in the endpoint's syntax (binary: ``treatment=12/30``).
+        ``ARM=...`` per arm in the endpoint's syntax (binary ``treatment=12/30``; count
+        ``treatment=14/52.5``, events/exposure; normal ``treatment=1.8,2.4,40``,
+        mean,sd,n).
     level : float
         Credible level of the equal-tailed intervals.
     subjects : path, optional
         Per-subject data for the posterior predictive adequacy checks (count and normal
         endpoints).
     seed : int
-        Seed of the posterior predictive simulations.
+        Seed of the simulations (posterior predictive checks; the predictive probability
+        of two-arm unknown-sd designs).
 
     Returns
     -------
@@ -239,73 +268,125 @@ def decide(
         raise single("--level", "", "a credible level between 0 and 1 (exclusive)", level)
     support = endpoint_support(design)
     observed = parse_data(design, data)
-    sizes = support.sizes(design, observed)
-    _check_sizes(design, look, sizes)
-    stats = support.statistics(design, observed)
-    assessment = assess(design, look, sizes, stats)
-    planned = looks.per_arm[look - 1]
-    warnings = []
-    if tuple(sizes) != tuple(planned):
-        warnings.append(_size_warning(design, look, sizes, stats, assessment))
-    has_prior = all(arm.prior is not None for arm in design.arms)
+    frame, assessment = rule_at(design, look, observed, seed)
+    on = frame.design
+    planned = on.looks.per_arm[look - 1]
+    warnings = list(support.warnings(design, observed))
+    near = _near_threshold(assessment)
+    if near:
+        warnings.append(near)
+    if tuple(frame.sizes) != tuple(planned):
+        warnings.append(_size_warning(support, on, look, frame.sizes, assessment))
+    has_prior = support.has_prior(design)
     posterior = support.summaries(design, observed, level) if has_prior else ()
     if not has_prior:
         warnings.append("The design states its rule in counts and has no analysis prior: "
                         "no posterior or predictive probability is computed.")
-    checks = ()
+    checks: tuple[Any, ...] = ()
     if subjects is not None:
-        checks = support.check_subjects(design, Path(subjects), observed, seed)
+        checks, notes = support.check_subjects(design, Path(subjects), observed, seed)
+        warnings.extend(notes)
+        flagged = [f"{c.statistic}" + (f" ({c.arm})" if design.two_arm else "")
+                   for c in checks if c.flagged]
+        if flagged:
+            warnings.append("The posterior predictive checks flag the data model ("
+                            + ", ".join(flagged) + "): the probabilities above rest on that "
+                            "model; review the data and the model before acting on the "
+                            "decision.")
     arms = design.arm_names
+    scale = looks.per_arm[-1][0] / on.looks.per_arm[-1][0]  # design units per frame unit
+    to_come = ", ".join((f"{a} " if design.two_arm else "") + support.amount(on, top - n)
+                        for a, top, n in zip(arms, on.looks.per_arm[-1], frame.sizes,
+                                             strict=True))
     return Decision(
         design=design.name, look=look, looks=looks.count, observed=observed,
-        planned_n=dict(zip(arms, planned, strict=True)),
-        remaining_n={a: int(top - n) for a, top, n in zip(arms, looks.per_arm[-1], sizes,
-                                                          strict=True)},
+        planned_n=dict(zip(arms, looks.per_arm[look - 1], strict=True)),
+        remaining_n={a: _whole((top - n) * scale) for a, top, n in zip(
+            arms, on.looks.per_arm[-1], frame.sizes, strict=True)},
         statement=support.statement(design), assessment=assessment, level=level,
-        posterior=posterior, warnings=tuple(warnings), checks=tuple(checks))
+        posterior=posterior, warnings=tuple(warnings), checks=tuple(checks),
+        extra=support.extra_record(design, frame, look), to_come=to_come)
 
 
-def _size_warning(design: Design, look: int, sizes: tuple[int, ...], stats: tuple[int, ...],
-                  assessment: Assessment) -> str:
+def _near_threshold(a: Assessment) -> str:
+    """A warning when a simulated predictive probability is within 3 standard errors of
+    its futility threshold (the decision could change with the seed)."""
+    g = a.thresholds.futility_predictive
+    if a.predictive_se is None or g is None or a.predictive is None:
+        return ""
+    if abs(a.predictive - g) >= 3 * a.predictive_se:
+        return ""
+    return (f"The predictive probability ({a.predictive:.4f}, Monte Carlo standard error "
+            f"{a.predictive_se:.4f}) is within 3 standard errors of the futility threshold "
+            f"{g:g}: the comparison is not settled by the simulation; rerun with other "
+            "seeds (--seed) before acting on it.")
+
+
+def _whole(value: float) -> float | int:
+    """An integer when ``value`` is one (sizes in subjects), else the value."""
+    return round(value) if abs(value - round(value)) < 1e-9 else float(value)
+
+
+def _size_warning(support: EndpointInterim, design: Design, look: int,
+                  sizes: tuple[int, ...], assessment: Assessment) -> str:
     looks = design.looks
     k = look - 1
     planned = looks.per_arm[k]
     arms = design.arm_names
     if design.two_arm:
-        seen = ", ".join(f"{a} {n}" for a, n in zip(arms, sizes, strict=True))
-        plan = ", ".join(f"{a} {n}" for a, n in zip(arms, planned, strict=True))
+        seen = ", ".join(f"{a} {support.quantity(design, n)}" for a, n in zip(
+            arms, sizes, strict=True))
+        plan = ", ".join(f"{a} {support.quantity(design, n)}" for a, n in zip(
+            arms, planned, strict=True))
     else:
-        seen, plan = str(sizes[0]), str(planned[0])
-    text = [f"The observed sample size ({seen}) differs from the one planned at look "
-            f"{look} ({plan})."]
+        seen, plan = support.quantity(design, sizes[0]), support.quantity(design, planned[0])
+    size = support.size_word
+    text = [f"The observed {size} ({seen}) differs from the one planned at look {look} "
+            f"({plan})."]
     moved = "; ".join(f"{kind} {rule}" for kind, rule in assessment.boundaries.items())
     if assessment.thresholds.in_counts:
         text.append(f"The rule is stated in counts for the planned size and is applied as "
                     f"written ({moved}); at another size it is a different rule from the one "
                     "whose error rates were computed.")
     else:
-        text.append("The probability thresholds are applied at the observed size, so the "
-                    f"count boundaries move: at the observed size {moved}")
-        if not design.two_arm:
-            plan_rows = observed_look(design, k, tuple(planned)).boundaries[0]
+        text.append(f"The probability thresholds are applied at the observed {size}, so "
+                    f"the boundaries move: at the observed {size} {moved}")
+        at_plan = _planned_bounds(support, design, look)
+        if at_plan is not None:
             names = list(assessment.boundaries)
-            text[-1] += (f" (at the planned size: {names[0]} {plan_rows['efficacy_rule']}; "
-                         f"{names[1]} {plan_rows['futility_rule']})")
+            text[-1] += (f" (at the planned {size}: {names[0]} {at_plan[0]}; "
+                         f"{names[1]} {at_plan[1]})")
         text[-1] += "."
-        changed = _function_thresholds(design, k, sum(sizes))
+        changed = _function_thresholds(design, k, sum(sizes), support.quantity)
         if changed:
             text.append(changed)
     if look < looks.count:
-        left = ", ".join((f"{a} " if design.two_arm else "") + f"{top - n}"
+        left = ", ".join((f"{a} " if design.two_arm else "")
+                         + support.amount(design, top - n)
                          for a, top, n in zip(arms, looks.per_arm[-1], sizes, strict=True))
-        text.append(f"The predictive probability uses the {left} subjects still to come "
+        text.append(f"The predictive probability uses the {left} still to come "
                     "(maximum minus observed).")
     text.append("The design's operating characteristics were computed for the planned sizes "
                 "and hold only approximately.")
     return " ".join(text)
 
 
-def _function_thresholds(design: Design, k: int, total: int) -> str:
+def _planned_bounds(support: EndpointInterim, design: Design,
+                    look: int) -> tuple[str, str] | None:
+    """The look's (efficacy, futility) bounds at the planned sizes in words, one arm."""
+    if design.two_arm:
+        return None
+    planned = tuple(design.looks.per_arm[look - 1])
+    if isinstance(design.family, LatticeFamily):
+        row = observed_look(design, look - 1, planned).boundaries[0]
+        statistic = design.family.statistic
+        return tuple(rule if rule == "never" else f"{rule} {statistic}"
+                     for rule in (row["efficacy_rule"], row["futility_rule"]))
+    return support.bound_rules(design, look, planned)
+
+
+def _function_thresholds(design: Design, k: int, total: int,
+                         quantity: Callable[[Design, float], str]) -> str:
     looks = design.looks
     if k == looks.count - 1:
         return ""
@@ -317,5 +398,5 @@ def _function_thresholds(design: Design, k: int, total: int) -> str:
     parts = [f"{kind} {getattr(now, kind):.4g} (planned {getattr(looks, kind)[k]:.4g})"
              for kind in forms if getattr(now, kind) is not None]
     return (f"Thresholds given as a function of the information fraction are evaluated at "
-            f"the observed t = {total}/{looks.n[-1]} = {t_obs:.3f} (planned {t_plan:.3f}): "
-            + ", ".join(parts) + ".")
+            f"the observed t = {quantity(design, total)}/{quantity(design, looks.n[-1])} = "
+            f"{t_obs:.3f} (planned {t_plan:.3f}): " + ", ".join(parts) + ".")

@@ -100,10 +100,10 @@ def _normal(text: str) -> NormalData:
     if match is None:
         raise ValueError("mean,sd,n: two numbers and a whole number of subjects")
     mean, sd, n = float(match.group(1)), float(match.group(2)), int(match.group(3))
-    if not (math.isfinite(mean) and math.isfinite(sd)) or sd < 0:
-        raise ValueError("a finite mean and a standard deviation >= 0")
-    if n == 0:
-        raise ValueError("at least one subject (n >= 1)")
+    if not (math.isfinite(mean) and math.isfinite(sd)) or sd <= 0:
+        raise ValueError("a finite mean and a standard deviation > 0")
+    if n < 2:
+        raise ValueError("at least two subjects (n >= 2; a sample sd needs two)")
     return NormalData(mean, sd, n)
 
 

@@ -56,6 +56,34 @@ class Thresholds:
         return self.efficacy_count is not None or self.futility_count is not None
 
 
+@dataclass(frozen=True)
+class Assessment:
+    """The rule's verdict at the observed point (no posterior summaries).
+
+    Attributes
+    ----------
+    benefit, predictive : float or None
+        Posterior probability of benefit and predictive probability of final success
+        (``None`` where the rule has none: no prior, or the last look).
+    thresholds : Thresholds
+    decision, reason : str
+    boundaries : dict
+        The look's bounds at the observed sizes in words (efficacy and futility; at the
+        last look success and failure).
+    predictive_se : float or None
+        Monte Carlo standard error of ``predictive`` when it is simulated (normal
+        endpoints with an unknown sd and two arms); ``None`` when computed exactly.
+    """
+
+    benefit: float | None
+    predictive: float | None
+    thresholds: Thresholds
+    decision: str
+    reason: str
+    boundaries: dict[str, str]
+    predictive_se: float | None = None
+
+
 def thresholds_at(design: Design, k: int, n_total: int) -> Thresholds:
     """The thresholds of look ``k`` (from 0) when ``n_total`` subjects have been observed."""
     looks = design.looks

@@ -89,27 +89,73 @@ class NormalRule:
 
 
 def committee_text(design: Design, table: pd.DataFrame) -> str:
-    """The bounds per look in words, as a monitoring committee applies them by hand."""
-    lines = [f"Decision rule of {design.name}, on the {table['bound_on'].iloc[0]}:"]
+    """The bounds per look in words, as a monitoring committee applies them by hand: the
+    bound on the sample mean (difference in sample means), the same bound as a z value with
+    the standard error to compute it, the thresholds behind each bound and the posterior
+    (and predictive) probability there."""
+    h = design.hypothesis
+    family = design.family
+    higher = h.better == "higher"
+    sd = design.endpoint.sd
+    if design.two_arm:
+        name = "difference"
+        better, worse = ("treatment", "control") if higher else ("control", "treatment")
+        claim = f"Pr(mean_{better} - mean_{worse} > {h.shift:g} | data)"
+        null = h.shift if higher else -h.shift
+        error = f"{sd:g} x sqrt(1/n_treatment + 1/n_control)"
+    else:
+        name = "mean"
+        claim = f"Pr(mean {'>' if higher else '<'} {h.benchmark:g} | data)"
+        null = h.benchmark
+        error = f"{sd:g} / sqrt(n)"
+    z = (f"({name} - {null:g}) / standard error" if higher
+         else f"({null:g} - {name}) / standard error")
+    prior = family.analysis_prior(design)
+    lines = [
+        f"Decision rule of {design.name}, on the {table['bound_on'].iloc[0]}; posterior = "
+        f"{claim}, with the known sd {sd:g} and the analysis prior {prior.describe()}.",
+        "Efficacy is checked first. At the final analysis a study that does not reach the "
+        "success bound fails.",
+        f"z = {z} (positive favours the treatment); standard error = {error}.",
+        "Bounds are shown to 6 significant digits (boundaries.csv holds them in full).",
+    ]
+    looks = design.looks
     last = int(table["look"].max())
     for row in table.itertuples():
-        n = (f"{row.n_treatment} + {row.n_control} subjects" if design.two_arm
-             else f"{row.n} subjects")
-        lines.append(f"look {row.look} ({n}):")
-        efficacy = "success" if row.look == last else "stop for efficacy"
-        lines.append(f"  {efficacy} if {row.efficacy_rule}" + (
-            f"  (z {row.efficacy_z:+.4f}; posterior {row.posterior_at_efficacy_bound:.4f} "
-            "there)" if math.isfinite(row.efficacy_z) else ""))
-        if row.look == last:
-            lines.append("  failure otherwise")
-        elif row.futility_rule != "never":
-            note = (f"  (z {row.futility_z:+.4f}; posterior "
-                    f"{row.posterior_at_futility_bound:.4f} there)"
-                    if math.isfinite(row.futility_z) else "")
-            lines.append(f"  stop for futility if {row.futility_rule}{note}")
-            lines.append("  otherwise continue")
+        k = row.look - 1
+        final = row.look == last
+        size = (f"{row.n_treatment} treatment and {row.n_control} control subjects"
+                if design.two_arm else f"{row.n} subjects")
+        info = family.information(design, looks.per_arm[k])
+        lines += ["", f"Look {row.look}{' (final analysis)' if final else ''}, after {size} "
+                      f"(standard error {1 / math.sqrt(info):.6g}):"]
+        stop, fail = ("success", "failure") if final else ("stop for efficacy",
+                                                          "stop for futility")
+        efficacy = f"posterior >= {looks.efficacy[k]:g}" if looks.efficacy[k] is not None else ""
+        if row.efficacy_rule in ("never", "always"):
+            lines.append(f"  {stop}: {row.efficacy_rule}")
         else:
-            lines.append("  otherwise continue")
+            lines.append(f"  {stop} if {row.efficacy_rule}  (z >= {row.efficacy_z:.6g}; rule: "
+                         f"{efficacy}; posterior {row.posterior_at_efficacy_bound:.4f} there)")
+        if final:
+            if row.efficacy_rule not in ("never", "always"):
+                op = "<" if higher else ">"
+                lines.append(f"  {fail} if {name} {op} {row.efficacy_bound:.6g}")
+            continue
+        if row.futility_rule in ("never", "always"):
+            lines.append(f"  {fail}: {row.futility_rule}")
+        else:
+            rules = []
+            if looks.futility[k] is not None:
+                rules.append(f"posterior < {looks.futility[k]:g}")
+            if looks.futility_predictive[k] is not None:
+                rules.append(f"predictive < {looks.futility_predictive[k]:g}")
+            there = f"posterior {row.posterior_at_futility_bound:.4f}"
+            if not math.isnan(row.predictive_at_futility_bound):
+                there += f", predictive {row.predictive_at_futility_bound:.4f}"
+            lines.append(f"  {fail} if {row.futility_rule}  (z < {row.futility_z:.6g}; rule: "
+                         f"{' or '.join(rules)}; {there} there)")
+        lines.append("  otherwise continue")
     return "\n".join(lines) + "\n"
 
 

@@ -1,0 +1,200 @@
+"""``octrial decide`` end to end for count and normal designs: per-subject data that fit
+the model and data that clearly do not (invented data sets, drawn here with numpy), and
+bad input (exit code 2 with file, row, column, expected and found)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from octrial.cli import main
+from octrial.design.write import dumps
+from tests.helpers import DESIGNS
+from tests.test_decide_endpoints import UNKNOWN_ONE_ARM
+
+EVENT_RATE = DESIGNS / "single-arm-event-rate.toml"
+SCORE = DESIGNS / "two-arm-continuous-score.toml"
+
+
+@pytest.fixture
+def runner() -> CliRunner:
+    return CliRunner()
+
+
+def write_counts(path, counts: np.ndarray) -> str:
+    path.write_text("# invented per-subject counts, one year of follow-up each\nevents\n"
+                    + "".join(f"{int(v)}\n" for v in counts))
+    return str(path)
+
+
+def write_values(path, arms: dict[str, np.ndarray]) -> str:
+    lines = [f"{arm},{float(v)!r}" for arm, values in arms.items() for v in values]
+    path.write_text("arm,value\n" + "\n".join(lines) + "\n")
+    return str(path)
+
+
+def run_json(runner, design, look: int, data: list[str], subjects: str) -> dict:
+    args = ["decide", str(design), "--look", str(look), "--subjects", subjects, "--json"]
+    for entry in data:
+        args += ["--data", entry]
+    result = runner.invoke(main, args)
+    assert result.exit_code == 0, result.output
+    return json.loads(result.stdout), result.stderr
+
+
+def test_counts_that_fit_a_poisson_model(runner, tmp_path) -> None:
+    counts = np.random.default_rng(20261201).poisson(1.2, 60)
+    path = write_counts(tmp_path / "fit.csv", counts)
+    record, err = run_json(runner, EVENT_RATE, 2, [f"treatment={counts.sum()}/60"], path)
+    checks = {c["statistic"]: c for c in record["checks"]}
+    assert set(checks) == {"zeros", "variance-to-mean ratio"}
+    assert not any(c["flagged"] for c in checks.values())
+    assert checks["zeros"]["observed"] == np.sum(counts == 0)
+    assert all(c["verdict"].startswith("consistent with the model") for c in checks.values())
+    assert "flag the data model" not in err
+
+
+def test_zero_inflated_counts_are_flagged(runner, tmp_path) -> None:
+    rng = np.random.default_rng(20261202)
+    counts = np.where(rng.random(60) < 0.55, 0, rng.poisson(2.8, 60))  # many structural zeros
+    path = write_counts(tmp_path / "zeros.csv", counts)
+    record, err = run_json(runner, EVENT_RATE, 2, [f"treatment={counts.sum()}/60"], path)
+    checks = {c["statistic"]: c for c in record["checks"]}
+    assert checks["zeros"]["flagged"] and checks["variance-to-mean ratio"]["flagged"]
+    assert "more zeros than a Poisson model produces" in checks["zeros"]["verdict"]
+    assert "overdispersed" in checks["variance-to-mean ratio"]["verdict"]
+    assert "flag the data model (zeros, variance-to-mean ratio)" in err
+    text = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "2", "--data",
+                                f"treatment={counts.sum()}/60", "--subjects", path])
+    assert "check of the data model, zeros: more zeros than a Poisson model" in text.stdout
+
+
+def test_normal_values_that_fit_the_known_sd_model(runner, tmp_path) -> None:
+    rng = np.random.default_rng(20261203)
+    arms = {"treatment": 43 + 12 * rng.standard_normal(60),
+            "control": 40 + 12 * rng.standard_normal(60)}
+    path = write_values(tmp_path / "fit.csv", arms)
+    data = [f"{a}={float(v.mean())!r},{float(v.std(ddof=1))!r},60" for a, v in arms.items()]
+    record, err = run_json(runner, SCORE, 1, data, path)
+    assert len(record["checks"]) == 4           # spread and skewness per arm
+    assert not any(c["flagged"] for c in record["checks"])
+    assert err.count("warning") == 0
+
+
+def test_skewed_normal_values_are_flagged(runner, tmp_path) -> None:
+    rng = np.random.default_rng(20261204)
+    # log-normal scores: strongly right-skewed, sd near the design's 12
+    arms = {"treatment": 30 + np.exp(2.2 + 0.9 * rng.standard_normal(60)),
+            "control": 28 + np.exp(2.2 + 0.9 * rng.standard_normal(60))}
+    path = write_values(tmp_path / "skewed.csv", arms)
+    data = [f"{a}={float(v.mean())!r},{float(v.std(ddof=1))!r},60" for a, v in arms.items()]
+    record, err = run_json(runner, SCORE, 1, data, path)
+    skew = [c for c in record["checks"] if c["statistic"] == "skewness"]
+    assert all(c["flagged"] for c in skew)
+    assert all("skewed to the right beyond what a normal model produces" in c["verdict"]
+               for c in skew)
+    assert "flag the data model (" in err and "skewness (control)" in err
+
+
+def test_unknown_sd_outlier_is_flagged(runner, tmp_path) -> None:
+    # 19 well-behaved values and one 12 sd away: far more skewed than normal samples of 20
+    design_file = tmp_path / "unknown.toml"
+    design_file.write_text(dumps(UNKNOWN_ONE_ARM))
+    values = 0.5 + 1.5 * np.append(np.random.default_rng(20261205).standard_normal(19), 12.0)
+    path = write_values(tmp_path / "outlier.csv", {"treatment": values})
+    data = f"treatment={float(values.mean())!r},{float(values.std(ddof=1))!r},20"
+    record, err = run_json(runner, design_file, 1, [data], path)
+    checks = {c["statistic"]: c for c in record["checks"]}
+    assert checks["skewness"]["flagged"]
+    assert "skewed to the right" in checks["skewness"]["verdict"]
+    assert "flag the data model (skewness" in err
+
+
+def test_subject_totals_must_match_the_data(runner, tmp_path) -> None:
+    path = write_counts(tmp_path / "c.csv", np.array([1, 0, 2, 3]))
+    result = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1", "--data",
+                                  "treatment=7/30", "--subjects", path])
+    assert result.exit_code == 2
+    assert (f"{path}: treatment: expected per-subject events adding up to the 7 events given "
+            "in --data; got 6 events over 4 subjects") in result.stderr
+    values = tmp_path / "v.csv"
+    values.write_text("arm,value\ntreatment,1\ntreatment,2\ntreatment,3\ncontrol,1\n"
+                      "control,2\ncontrol,4\n")
+    result = runner.invoke(main, ["decide", str(SCORE), "--look", "1", "--data",
+                                  "treatment=2,1,60", "--data", "control=2,1,60",
+                                  "--subjects", str(values)])
+    assert result.exit_code == 2
+    assert "treatment: expected 60 subjects (as in --data); got 3 rows" in result.stderr
+
+
+# (design, arguments, words the message must contain)
+BAD = [
+    (EVENT_RATE, ["--data", "treatment=14-30"], "--data: treatment: expected events/exposure"),
+    (EVENT_RATE, ["--data", "treatment=14/"], "got '14/'"),
+    (EVENT_RATE, ["--data", "treatment=-3/30"], "like treatment=14/52.5"),
+    (EVENT_RATE, ["--data", "treatment=3/-30"], "expected a positive, finite total exposure"),
+    (EVENT_RATE, ["--data", "treatment=3/0"], "a positive, finite total exposure"),
+    (EVENT_RATE, ["--data", "treatment=2.5/30"], "a whole number of events"),
+    (EVENT_RATE, ["--look", "4", "--data", "treatment=3/30"],
+     "--look: expected a look between 1 and 3; got 4"),
+    (EVENT_RATE, ["--data", "treatment=30/95"],
+     "expected at most the design's maximum of exposure 90 in the treatment arm; "
+     "got exposure 95"),
+    (EVENT_RATE, ["--data", "treatment=30/60"],
+     "expected a total exposure below the one look 2 plans (60) for an analysis at look 1"),
+    (SCORE, ["--data", "treatment=1,2", "--data", "control=1,2,60"],
+     "treatment: expected mean,sd,n: two numbers and a whole number of subjects"),
+    (SCORE, ["--data", "treatment=1,-2,60", "--data", "control=1,2,60"],
+     "a finite mean and a standard deviation > 0"),
+    (SCORE, ["--data", "treatment=1,0,60", "--data", "control=1,2,60"],
+     "a standard deviation > 0, like treatment=1.8,2.4,40; got '1,0,60'"),
+    (SCORE, ["--data", "treatment=1,2,1", "--data", "control=1,2,60"], "at least two subjects"),
+    (SCORE, ["--data", "treatment=x,2,60", "--data", "control=1,2,60"], "got 'x,2,60'"),
+    (SCORE, ["--data", "treatment=1,2,200", "--data", "control=1,2,60"],
+     "treatment: expected at most the design's maximum of 180 subjects"),
+    (SCORE, ["--data", "treatment=1,2,60"], "control: expected the control arm's data"),
+]
+
+
+@pytest.mark.parametrize(("design", "args", "words"), BAD,
+                         ids=[f"{d.stem} {' '.join(a)}" for d, a, _ in BAD])
+def test_bad_input_exits_2(runner, design, args, words) -> None:
+    if "--look" not in args:
+        args = ["--look", "1", *args]
+    result = runner.invoke(main, ["decide", str(design), *args])
+    assert result.exit_code == 2, result.output
+    assert words in result.stderr
+    assert result.stdout == ""
+
+
+@pytest.mark.parametrize(("text", "words"), [
+    ("events,exposure\n1,1\n\n,1\n2,1\n", "line 4, column events: expected a whole number "
+                                          ">= 0; got an empty field"),
+    ("events\n1\ntwo\n3\n", "line 3, column events: expected a whole number >= 0; got 'two'"),
+    ("events,exposure\n1,1\n2\n3,1\n", "line 3: expected 2 fields (as in the header); got 1"),
+    ("events,exposure\n1,1\n2,-1\n3,1\n", "line 3, column exposure: expected a positive "
+                                          "exposure; got '-1'"),
+])
+def test_bad_subject_files_exit_2(runner, tmp_path, text, words) -> None:
+    path = tmp_path / "bad.csv"
+    path.write_text(text)
+    result = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1", "--data",
+                                  "treatment=6/30", "--subjects", str(path)])
+    assert result.exit_code == 2, result.output
+    assert f"{path}: {words}" in result.stderr
+    assert result.stdout == ""
+
+
+def test_normal_subject_file_with_a_missing_value(runner, tmp_path) -> None:
+    path = tmp_path / "bad.csv"
+    path.write_text("arm,value\ntreatment,1.5\ntreatment,\ncontrol,nan\ncontrol,2\n")
+    result = runner.invoke(main, ["decide", str(SCORE), "--look", "1", "--data",
+                                  "treatment=2,1,60", "--data", "control=2,1,60",
+                                  "--subjects", str(path)])
+    assert result.exit_code == 2
+    assert f"{path}: line 3, column value: expected a finite number; got an empty field" in (
+        result.stderr)
+    assert "line 4, column value: expected a finite number; got 'nan'" in result.stderr
