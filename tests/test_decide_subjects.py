@@ -198,3 +198,37 @@ def test_normal_subject_file_with_a_missing_value(runner, tmp_path) -> None:
     assert f"{path}: line 3, column value: expected a finite number; got an empty field" in (
         result.stderr)
     assert "line 4, column value: expected a finite number; got 'nan'" in result.stderr
+
+
+def test_negative_binomial_needs_whole_subjects_and_rounding_is_reported(runner,
+                                                                         tmp_path) -> None:
+    import tomllib
+    data = tomllib.loads(EVENT_RATE.read_text())
+    data["endpoint"].update(model="negative-binomial", dispersion=0.5)
+    path = tmp_path / "nb.toml"
+    path.write_text(dumps(data))
+    result = runner.invoke(main, ["decide", str(path), "--look", "1", "--data",
+                                  "treatment=30/29.5"])
+    assert result.exit_code == 2
+    assert ("--data: treatment: expected a whole number of subjects' exposure (a multiple "
+            "of 1: the negative binomial model depends on the number of subjects); got "
+            "29.5") in result.stderr
+    rounded = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1", "--data",
+                                   "treatment=30/29.0001234"])
+    assert rounded.exit_code == 0, rounded.output
+    assert "Exposures were rounded to a multiple of" in rounded.stderr
+
+
+def test_a_simulated_predictive_probability_near_its_threshold_warns() -> None:
+    from octrial.interim.decision import _near_threshold
+    from octrial.interim.rule import Assessment, Thresholds
+
+    near = Assessment(0.7, 0.052, Thresholds(efficacy=0.99, futility_predictive=0.05),
+                      "continue", "", {}, 0.001)
+    assert "within 3 standard errors of the futility threshold 0.05" in _near_threshold(near)
+    far = Assessment(0.7, 0.06, Thresholds(efficacy=0.99, futility_predictive=0.05),
+                     "continue", "", {}, 0.001)
+    assert _near_threshold(far) == ""
+    exact = Assessment(0.7, 0.05, Thresholds(efficacy=0.99, futility_predictive=0.05),
+                       "continue", "", {}, None)
+    assert _near_threshold(exact) == ""

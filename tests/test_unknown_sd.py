@@ -12,7 +12,6 @@ import pytest
 from scipy import integrate, special, stats
 
 from octrial.endpoints import unknown_sd as U
-from octrial.interim.adequacy import normal_inverse_gamma_posterior
 
 
 def within(estimate: float, exact: float, se: float, k: float = 4.0) -> bool:
@@ -45,13 +44,21 @@ def final_b_by_simulation(post: U.StudentPosterior, future: int, claim: float, r
     return m_n, np.sqrt(b_n / (a_n * k_n)), 2 * a_n
 
 
-def test_update_matches_the_per_subject_conjugate_update() -> None:
-    # Source: octrial.interim.adequacy.normal_inverse_gamma_posterior, itself checked
-    # against a two-dimensional Simpson integration of the joint posterior.
+def test_update_in_two_batches_equals_one_batch() -> None:
+    # Identity (Bayes' rule is sequential): the posterior after the first batch, used as
+    # the prior for the second, gives the posterior of all the data at once. (The
+    # one-batch update is checked against a Simpson integration of the joint posterior in
+    # test_adequacy.py::test_normal_inverse_gamma_posterior_against_quadrature.)
     y = np.array([1.2, 0.4, 2.2, 1.9, 0.7, 1.5, -0.3])
-    post = U.update(0.5, 2.0, 3.0, 2.0, n=y.size, ybar=y.mean(), sd=y.std(ddof=1))
-    assert (post.mean, post.mean_n, post.shape, post.scale) == pytest.approx(
-        normal_inverse_gamma_posterior(0.5, 2.0, 3.0, 2.0, y), rel=1e-13)
+
+    def on(values: np.ndarray, prior: tuple) -> U.StudentPosterior:
+        return U.update(*prior, n=values.size, ybar=values.mean(), sd=values.std(ddof=1))
+
+    first = on(y[:3], (0.5, 2.0, 3.0, 2.0))
+    second = on(y[3:], (first.mean, first.mean_n, first.shape, first.scale))
+    whole = on(y, (0.5, 2.0, 3.0, 2.0))
+    assert (second.mean, second.mean_n, second.shape, second.scale) == pytest.approx(
+        (whole.mean, whole.mean_n, whole.shape, whole.scale), rel=1e-13)
 
 
 def test_one_arm_benefit_against_draws() -> None:

@@ -38,6 +38,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special, stats
 
+from octrial.endpoints import unknown_sd
+
 DRAWS = 20_000
 """Replicated data sets per check; the p-values' Monte Carlo error is at most 0.0036."""
 
@@ -117,14 +119,12 @@ def normal_inverse_gamma_posterior(
     m0: float, k0: float, a0: float, b0: float, values: np.ndarray,
 ) -> tuple[float, float, float, float]:
     """Posterior (m_n, k_n, a_n, b_n) of the normal-inverse-gamma prior
-    mu | s2 ~ N(m0, s2 / k0), s2 ~ InvGamma(a0, b0)."""
+    mu | s2 ~ N(m0, s2 / k0), s2 ~ InvGamma(a0, b0)
+    (:func:`octrial.endpoints.unknown_sd.update` on the values' mean and sd)."""
     y = np.asarray(values, dtype=float)
-    n, ybar = y.size, float(np.mean(y))
-    k_n = k0 + n
-    m_n = (k0 * m0 + n * ybar) / k_n
-    a_n = a0 + n / 2.0
-    b_n = b0 + 0.5 * float(np.sum((y - ybar) ** 2)) + k0 * n * (ybar - m0) ** 2 / (2.0 * k_n)
-    return m_n, k_n, a_n, b_n
+    post = unknown_sd.update(m0, k0, a0, b0, n=y.size, ybar=float(np.mean(y)),
+                             sd=float(np.std(y, ddof=1)) if y.size > 1 else 0.0)
+    return post.mean, post.mean_n, post.shape, post.scale
 
 
 # -- statistics ----------------------------------------------------------------------

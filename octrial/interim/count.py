@@ -203,9 +203,9 @@ class CountInterim(EndpointInterim):
         e = design.endpoint.exposure / q
         taken = ", ".join(f"{arm} {n * e:.10g}" for arm, n in zip(
             design.arm_names, sizes, strict=True))
-        return (f"Exposures were rounded to a multiple of {e:.6g} (1/{q} of the exposure per "
-                f"subject) for the count lattice: {taken}; relative change up to "
-                f"{rounding:.1e}.",)
+        unit = "" if q == 1 else f" (1/{q} of the exposure per subject)"
+        return (f"Exposures were rounded to a multiple of {e:.6g}{unit} for the count "
+                f"lattice: {taken}; relative change up to {rounding:.1e}.",)
 
     def extra_record(self, design: Design, frame: Frame, look: int) -> dict[str, Any]:
         e = design.endpoint.exposure
@@ -285,8 +285,12 @@ class CountInterim(EndpointInterim):
         priors = [arm.prior for arm in design.arms]
         if endpoint.model != "poisson" or not all(isinstance(p, GammaMixture)
                                                    for p in priors):
-            got = ("a negative binomial endpoint" if endpoint.model != "poisson"
-                   else "a log-normal prior")
+            if endpoint.model != "poisson":
+                got = "a negative binomial endpoint"
+            elif any(p is None for p in priors):
+                got = "a rule in counts without an analysis prior"
+            else:
+                got = "a log-normal prior"
             raise single(str(path), "", "a Poisson count endpoint with gamma or "
                          "gamma-mixture priors (the adequacy checks use the conjugate "
                          "posterior)", Phrase(got), "leave out --subjects")
