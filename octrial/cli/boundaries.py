@@ -30,7 +30,8 @@ def boundaries_for(design: Design) -> tuple[object, str]:
     text = getattr(family, "committee_table", None)
     if own is None or text is None:
         raise single(design.source.path or design.name, "endpoint.type",
-                     "an endpoint with a decision-boundary table in this version (binary)",
+                     "an endpoint with a decision-boundary table in this version (binary, "
+                     "count, normal with a known sd)",
                      family.name)
     table = own(design)
     return table, text(design, table)
@@ -46,8 +47,10 @@ def boundaries_for(design: Design) -> tuple[object, str]:
 def boundaries_command(design: str, out: str | None, quiet: bool) -> None:
     """Print and write the decision boundaries of DESIGN per interim look.
 
-    The rule in plain counts (responses) with the posterior probability at each bound and
-    one count short of it, so a monitoring committee can apply the rule without software.
+    The rule in plain counts (responses, events) with the posterior probability at each
+    bound and one count short of it, or for a normal endpoint with a known sd as bounds on
+    the sample mean (difference in sample means) and in z with the standard error, so a
+    monitoring committee can apply the rule without software.
     Writes boundaries.csv (the same table as octrial run) and boundaries.txt (the printed
     text).
     """

@@ -22,10 +22,13 @@ FORMS = "; ".join(f"{endpoint}: ARM={syntax.form}" for endpoint, syntax in SYNTA
 @click.option("--level", type=float, default=DEFAULT_LEVEL, show_default=True,
               help="Credible level of the equal-tailed posterior intervals.")
 @click.option("--subjects", type=click.Path(dir_okay=False), default=None,
-              help="Per-subject CSV for posterior predictive checks of the data model "
-                   "(count and normal endpoints).")
+              help="Per-subject CSV for posterior predictive checks of the data model: "
+                   "columns arm (optional for one arm) and events [and exposure] for counts, "
+                   "arm and value for normal data.")
 @click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=DEFAULT_SEED,
-              show_default=True, help="Seed of the posterior predictive simulations.")
+              show_default=True, help="Seed of the simulations (posterior predictive checks; "
+                                      "the predictive probability of two-arm unknown-sd "
+                                      "designs).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
 @reports_input_errors
 def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
