@@ -11,6 +11,7 @@ from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.cli.boundaries import boundaries_command
 from octrial.cli.calibrate import calibrate_command
+from octrial.cli.check import check_command
 from octrial.cli.decide import decide_command
 from octrial.cli.report import report_command
 from octrial.cli.run import run_command
@@ -32,5 +33,6 @@ main.add_command(decide_command)
 main.add_command(report_command)
 main.add_command(calibrate_command)
 main.add_command(boundaries_command)
+main.add_command(check_command)
 
 __all__ = ["main"]

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from octrial.caution import CAUTION
-from octrial.cli.common import default_out, reports_input_errors
+from octrial.cli.common import default_out, read_design, reports_input_errors
 from octrial.errors import single
 from octrial.reporting import PrintError, from_design, from_run_folder, write_report
 
@@ -37,7 +37,9 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
 
     DESIGN_OR_RUN_DIR is a design file (evaluated now) or a folder written by
     'octrial run' (its oc.csv, boundaries.csv and run.json, plus calibration.csv and
-    checks.json when present, are shown as written). The report's tables are also written
+    checks.json when present, are shown as written; for a design file, the checks that
+    'octrial check' wrote into the report's folder for the same file are shown). The
+    report's tables are also written
     as CSV, Markdown and LaTeX to <report name>-tables/ beside it; --pdf prints a PDF.
 
     Exit codes: 0 written; 1 Chromium failed to print; 2 bad input or Chromium missing.
@@ -50,8 +52,11 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
         data = from_run_folder(path, alpha=alpha)
         html = Path(out) if out else path / REPORT_NAME
     else:
-        data = from_design(path, method, command=sys.argv, alpha=alpha)
-        html = Path(out) if out else default_out(data.design) / REPORT_NAME
+        loaded = read_design(str(path))
+        html = Path(out) if out else default_out(loaded) / REPORT_NAME
+        # checks written by 'octrial check' beside the report, for this very file
+        data = from_design(loaded, method, command=sys.argv, alpha=alpha,
+                           checks_folder=html.parent)
     try:
         written = write_report(data, html, pdf=pdf, paper=paper, command=sys.argv)
     except PrintError as exc:

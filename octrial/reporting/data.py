@@ -29,7 +29,7 @@ RUN_FILES = ("oc.csv", "run.json")
 """Files a run folder must hold."""
 
 OPTIONAL_FILES = ("boundaries.csv", "calibration.csv", "sizing.csv", "calibration.json",
-                  "checks.json")
+                  "checks.json", "sensitivity.csv")
 """Files a run folder may hold; each adds to the report when present."""
 
 OC_REQUIRED = ("scenario", "is_null", "prob_success", "prob_success_se", "prob_stop_efficacy",
@@ -61,6 +61,9 @@ class ReportData:
         ``calibration.json`` (the calibration's summary and request), when present.
     checks : dict or None
         ``checks.json`` when the run folder holds one.
+    sensitivity : DataFrame or None
+        ``sensitivity.csv`` (written by ``octrial check`` beside checks.json): every
+        simulated study's posterior shrinkage and z-score per look.
     alpha : float or None
         The one-sided type I error level the design is meant to keep (for the figures'
         alpha line and the verdict on the maximum type I error); taken from the
@@ -77,6 +80,7 @@ class ReportData:
     calibration_record: dict[str, Any] | None = None
     checks: dict[str, Any] | None = None
     alpha: float | None = None
+    sensitivity: pd.DataFrame | None = None
 
     @property
     def type1(self) -> dict[str, Any] | None:
@@ -86,7 +90,7 @@ class ReportData:
 
 def from_design(
     design: Design | str | Path, method: str | None = None, command: list[str] | None = None,
-    alpha: float | None = None,
+    alpha: float | None = None, checks_folder: str | Path | None = None,
 ) -> ReportData:
     """Evaluate a design and gather what its report shows.
 
@@ -100,14 +104,29 @@ def from_design(
         The command line to record (default: ``sys.argv``).
     alpha : float, optional
         The type I error level to show (see :class:`ReportData`).
+    checks_folder : path, optional
+        A folder where ``octrial check`` may have written checks.json (and
+        sensitivity.csv); they are shown when they are about this very design file
+        (same SHA-256).
     """
     started = now()
     loaded = design if isinstance(design, Design) else load_design(design)
     evaluation = compute(loaded, method)
     record = run_record(evaluation, started=started, finished=now(), command=command)
     origin = f"design file {loaded.source.path or loaded.name}, evaluated for this report"
+    checks, sensitivity = (None, None) if checks_folder is None else _checks_of(
+        Path(checks_folder), loaded)
     return ReportData(loaded, evaluation.oc, evaluation.boundaries, record, origin,
-                      alpha=alpha)
+                      alpha=alpha, checks=checks, sensitivity=sensitivity)
+
+
+def _checks_of(folder: Path, design: Design) -> tuple[dict[str, Any] | None,
+                                                      pd.DataFrame | None]:
+    """checks.json and sensitivity.csv in ``folder`` when they belong to ``design``."""
+    checks = _optional_json(folder / "checks.json")
+    if checks is None or (checks.get("design") or {}).get("sha256") != design.source.sha256:
+        return None, None
+    return checks, _optional_table(folder / "sensitivity.csv")
 
 
 def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportData:
@@ -144,7 +163,8 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
                       calibration=_optional_table(folder / "calibration.csv"),
                       sizing=_optional_table(folder / "sizing.csv"),
                       calibration_record=calibrated,
-                      checks=_optional_json(folder / "checks.json"), alpha=alpha)
+                      checks=_optional_json(folder / "checks.json"), alpha=alpha,
+                      sensitivity=_optional_table(folder / "sensitivity.csv"))
 
 
 def _stated_alpha(record: dict[str, Any]) -> float | None:

@@ -377,11 +377,59 @@ def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
                   "Step chart of type I error and power against the maximum sample size.")
 
 
+def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
+    """Simulation-based calibration histograms (checks.json written by ``octrial check``)."""
+    from octrial.reporting import check_figures
+    from octrial.reporting.check_tables import is_ours
+
+    if data.checks is None or not is_ours(data.checks):
+        return None
+    sbc = data.checks.get("sbc") or {}
+    entries = sbc.get("quantities") or []
+    if not entries:
+        return None
+    fig = check_figures.sbc_figure(entries, sbc["band_level"])
+    failed = [e["id"] for e in entries if e["verdict"] == "fail"]
+    caption = (f"Simulation-based calibration: for {sbc['simulations']:,} studies with true "
+               "values drawn from the analysis prior, the posterior CDF at the true value "
+               "(or the rank of the truth among posterior draws) in "
+               f"{sbc['bins']} bins. A correct posterior computation gives a flat histogram "
+               f"within the grey {sbc['band_level']:.0%} binomial band. ")
+    caption += (f"Failing: {', '.join(failed)}." if failed else
+                "Every computation passes (Holm-adjusted p-values in the panel titles).")
+    return Figure("checks-sbc", "Simulation-based calibration", caption,
+                  encode(fig, raster=True),
+                  "Histograms of posterior CDF values at the true value, one per quantity.")
+
+
+def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
+    """Posterior z-score against shrinkage per look (sensitivity.csv and checks.json)."""
+    from octrial.reporting import check_figures
+    from octrial.reporting.check_tables import is_ours
+
+    if data.checks is None or not is_ours(data.checks):
+        return None
+    record = data.checks.get("sensitivity") or {}
+    points = getattr(data, "sensitivity", None)
+    if points is None or "looks" not in record or points.empty:
+        return None
+    fig = check_figures.sensitivity_figure(points, record["label"])
+    caption = (f"Posterior z-score (posterior mean − truth) / posterior sd against posterior "
+               f"shrinkage 1 − posterior variance / prior variance of {record['label']}, for "
+               f"{record['studies']:,} studies with true values from the "
+               f"{record['truths_from']}, at each look. The grey band is |z| ≤ 2; left of the "
+               "dotted line (shrinkage < 0.1) a study learns little beyond the prior.")
+    return Figure("checks-sensitivity", "Posterior shrinkage and z-score", caption,
+                  encode(fig, raster=True),
+                  "Scatter plots of posterior z-score against posterior shrinkage per look.")
+
+
 FIGURES: tuple[Callable[[Any, PlotFacts], Figure | None], ...] = (
-    power_curve, stopping, expected_sample_size, sawtooth,
+    power_curve, stopping, expected_sample_size, sawtooth, sbc_histograms,
+    sensitivity_scatter,
 )
-"""Figure builders in report order. Simulation-based calibration histograms and the
-sensitivity scatter join here when ``checks.json`` carries their data."""
+"""Figure builders in report order. Figures named ``checks-...`` are shown in the
+workflow-checks section."""
 
 
 def build_figures(data: Any) -> list[Figure]:

@@ -25,6 +25,8 @@ from octrial.reporting.formats import probability, truth
 from octrial.reporting.tables import Tables, build_tables
 
 PAPERS = {"a4": "A4", "letter": "letter"}
+CHECK_FIGURES = "checks-"
+"""Figures whose name starts with this are shown in the workflow-checks section."""
 """Paper sizes for printing, by option value."""
 
 
@@ -191,6 +193,8 @@ def render_html(
         "design": _design(data),
         "tables": tables,
         "figures": figures,
+        "main_figures": [f for f in figures if not f.name.startswith(CHECK_FIGURES)],
+        "check_figures": [f for f in figures if f.name.startswith(CHECK_FIGURES)],
         "type1": wording.type1_sentence(data),
         "precision": precision.statement(data),
         "run": _run(data),

@@ -466,10 +466,16 @@ def _borrowing_text(borrowing: Any) -> str:
 
 
 def checks_tables(data: Any) -> list[Table]:
-    """``checks.json`` as tables: lists of records as tables, everything else as key/value."""
+    """``checks.json`` as tables: tailored tables for files written by ``octrial check``
+    (:mod:`~octrial.reporting.check_tables`); for others, lists of records as tables and
+    everything else as key/value."""
     checks = data.checks
     if checks is None:
         return []
+    from octrial.reporting.check_tables import is_ours, workflow_tables
+
+    if is_ours(checks):
+        return workflow_tables(checks)
     tables, pairs = [], []
     for key, value in checks.items():
         if isinstance(value, list) and value and all(isinstance(v, dict) for v in value):
