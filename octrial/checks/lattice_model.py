@@ -339,9 +339,12 @@ class LatticePosteriors(Posteriors):
         j = self._arm(quantity)
         kind = self.model.kind
         if j is not None:
-            if self.model.on_grid:
-                return grid_values.cdf_at(self.posts[j], self.rows[j], TO_GRID[kind](values))
             low, high = self.model.family.parameter_range
+            if self.model.on_grid:
+                inside = (values > low) & (values < high)
+                theta = TO_GRID[kind](np.where(inside, values, 0.5))
+                value = grid_values.cdf_at(self.posts[j], self.rows[j], theta)
+                return np.where(inside, value, np.where(values <= low, 0.0, 1.0))
             inside = np.clip(values, low, min(high, np.finfo(float).max))
             return self._conjugate_rows(j).cdf(inside[:, None])
         if self.model.on_grid:

@@ -31,7 +31,13 @@ from scipy import stats
 from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity
 from octrial.checks.predictive import Predictive
 from octrial.design.model import Design
-from octrial.endpoints.normal import Flat, NormalMixture, update
+from octrial.endpoints.normal import (
+    Flat,
+    NormalMixture,
+    NormalPosterior,
+    benefit_components,
+    update,
+)
 
 QUADRATURE_NODES = 96
 """Gauss-Legendre nodes for the CDF of a difference of two Student t posteriors."""
@@ -108,7 +114,9 @@ class KnownSdModel(CheckModel):
         prior = self._prior(ANALYSIS)
         if isinstance(prior, Flat):
             return KnownSdPosteriors(None, self.sign)
-        return KnownSdPosteriors(update(prior, self.sign, 0.0, np.zeros(1)), self.sign)
+        w, m, p = benefit_components(prior, self.sign)
+        return KnownSdPosteriors(NormalPosterior(w[None, :], m[None, :], p[None, :]),
+                                 self.sign)
 
     def simulate(self, rng: np.random.Generator, truths: np.ndarray) -> ScoreData:
         eta = self.sign * truths[:, 0]
@@ -405,13 +413,15 @@ class NigPosteriors(Posteriors):
         j = self._arm(quantity)
         if j is not None:
             return np.broadcast_to(self.arms[j].mean_variance()[0], (len(self),))
-        return self.arms[0].mean_variance()[0] - self.arms[1].mean_variance()[0]
+        return np.broadcast_to(self.arms[0].mean_variance()[0]
+                               - self.arms[1].mean_variance()[0], (len(self),))
 
     def variance(self, quantity: Quantity) -> np.ndarray:
         j = self._arm(quantity)
         if j is not None:
             return np.broadcast_to(self.arms[j].mean_variance()[1], (len(self),))
-        return self.arms[0].mean_variance()[1] + self.arms[1].mean_variance()[1]
+        return np.broadcast_to(self.arms[0].mean_variance()[1]
+                               + self.arms[1].mean_variance()[1], (len(self),))
 
     def draw(self, quantity: Quantity, rng: np.random.Generator, draws: int) -> np.ndarray:
         def one(nig: Nig) -> np.ndarray:

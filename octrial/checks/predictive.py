@@ -63,8 +63,9 @@ class Predictive:
     def from_pmf(cls, name: str, label: str, values: np.ndarray, pmf: np.ndarray,
                  effect: bool = False,
                  extremes: tuple[float, float] | None = None) -> Predictive:
-        """A discrete distribution; equal values are merged and the support sorted."""
-        values = np.asarray(values, dtype=float).ravel()
+        """A discrete distribution; equal values (to 12 decimals, so that rounding in a
+        difference does not split one value in two) are merged and the support sorted."""
+        values = np.round(np.asarray(values, dtype=float).ravel(), 12)
         pmf = np.asarray(pmf, dtype=float).ravel()
         support, inverse = np.unique(values, return_inverse=True)
         merged = np.bincount(inverse, weights=pmf, minlength=support.size)

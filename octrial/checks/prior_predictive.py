@@ -99,8 +99,8 @@ def run_prior_predictive(model: CheckModel, settings: CheckSettings) -> PriorPre
                     share = p.below(lo) + p.above(hi)
                     row["outside_plausible_range"] = share
                     if share > IMPLAUSIBLE:
-                        flags.append(f"implausible: {share:.1%} of studies would show an "
-                                     f"{p.label} outside [{lo:.4g}, {hi:.4g}] ({why})")
+                        flags.append(f"implausible: in {share:.1%} of studies the {p.label} "
+                                     f"falls outside [{lo:.4g}, {hi:.4g}] (plausible: {why})")
             rows.append(row)
         record[source] = {
             "prior": _describe(model, source), "outcomes": rows, "flags": flags,

@@ -32,6 +32,9 @@ from octrial.checks.settings import CheckSettings, generator
 
 LEVELS = (0.025, 0.05, 0.5, 0.95, 0.975)
 DRAWS = (100, 1_000, 10_000, 100_000)
+MAX_DRAWS = 2_000_000
+"""Draws per size L at most (fewer repeats for large L; the agreement range allows for
+it)."""
 TARGET = 0.01
 """Draws needed are reported for a Monte Carlo SE of this fraction of the posterior sd."""
 AGREEMENT_LEVEL = 0.999
@@ -63,7 +66,7 @@ def run_tail_accuracy(model: CheckModel, settings: CheckSettings) -> dict[str, A
     rows = []
     agree = True
     for draws in DRAWS:
-        repeats = settings.repeats if draws < 100_000 else max(20, settings.repeats // 4)
+        repeats = min(settings.repeats, max(20, MAX_DRAWS // draws))
         estimates = np.quantile(post.draw(q, rng, draws * repeats).reshape(repeats, draws),
                                 LEVELS, axis=1)
         for i, level in enumerate(LEVELS):
