@@ -119,6 +119,11 @@ class CheckModel(ABC):
         """Why truths cannot be drawn from the ``source`` prior ('analysis' or 'design'),
         or ``None`` when they can."""
 
+    def cannot_compute(self) -> str | None:
+        """Why no posterior can be computed (no analysis prior), or ``None``. An improper
+        analysis prior gives posteriors but no truths (:meth:`cannot_draw`)."""
+        return self.cannot_draw(ANALYSIS)
+
     @abstractmethod
     def draw_truths(self, rng: np.random.Generator, size: int, source: str) -> np.ndarray:
         """True parameters drawn from the ``source`` prior: shape (size, parameters)."""

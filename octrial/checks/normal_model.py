@@ -107,6 +107,9 @@ class KnownSdModel(CheckModel):
             return f"the {what} is flat (improper): no true values can be drawn from it"
         return None
 
+    def cannot_compute(self) -> str | None:
+        return None if self._prior(ANALYSIS) is not None else "no analysis prior"
+
     def draw_truths(self, rng: np.random.Generator, size: int, source: str) -> np.ndarray:
         return _mixture_draws(self._prior(source), rng, size)[:, None]
 

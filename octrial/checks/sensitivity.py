@@ -51,12 +51,13 @@ class SensitivityResult:
 
 def run_sensitivity(model: CheckModel, settings: CheckSettings) -> SensitivityResult:
     """Posterior shrinkage and z-score of the target at every look (module docstring)."""
-    reason = model.cannot_draw(ANALYSIS)
-    if reason is not None and "flat" not in reason:
+    reason = model.cannot_compute()
+    if reason is not None:
         return SensitivityResult({"not_applicable": reason}, pd.DataFrame())
     source = DESIGN if model.cannot_draw(DESIGN) is None else ANALYSIS
-    if source == ANALYSIS and reason is not None:
-        return SensitivityResult({"not_applicable": f"{reason}; and {model.cannot_draw(DESIGN)}"},
+    if model.cannot_draw(source) is not None:
+        return SensitivityResult({"not_applicable": f"{model.cannot_draw(ANALYSIS)}; and "
+                                                    f"{model.cannot_draw(DESIGN)}"},
                                  pd.DataFrame())
     started = time.perf_counter()
     rng = generator(settings.seed, "sensitivity")

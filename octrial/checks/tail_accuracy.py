@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 from scipy import optimize, stats
 
-from octrial.checks.model import ANALYSIS, CheckModel
+from octrial.checks.model import CheckModel
 from octrial.checks.settings import CheckSettings, generator
 
 LEVELS = (0.025, 0.05, 0.5, 0.95, 0.975)
@@ -47,7 +47,7 @@ ASYMPTOTIC_SLACK = 0.10
 
 def run_tail_accuracy(model: CheckModel, settings: CheckSettings) -> dict[str, Any]:
     """The tail-accuracy record for checks.json (module docstring)."""
-    reason = model.cannot_draw(ANALYSIS)
+    reason = model.cannot_compute()
     if reason is not None:
         return {"not_applicable": reason}
     started = time.perf_counter()
