@@ -136,3 +136,27 @@ def test_sawtooth_needs_a_sample_size_search() -> None:
     assert sawtooth(SimpleNamespace(calibration=thresholds_only), plot) is None
     sizes = pd.DataFrame({"n": np.arange(10, 40), "power": np.linspace(0.3, 0.9, 30)})
     assert sawtooth(SimpleNamespace(calibration=sizes), plot) is not None
+
+
+def test_check_figures_render_in_grey_from_a_check_record() -> None:
+    """The SBC histograms and the sensitivity scatter draw from checks.json and
+    sensitivity.csv as written; without an octrial check record they are absent."""
+    from octrial.checks import CheckSettings, check
+    from octrial.checks.files import plain
+    from octrial.reporting.figures import sbc_histograms, sensitivity_scatter
+    from tests.helpers import TWO_ARM, build
+
+    out = check(build(TWO_ARM), CheckSettings(simulations=100, bins=5, draws=49, seed=2,
+                                              checks=("sbc", "sensitivity")))
+    data = SimpleNamespace(checks=plain(out.record), sensitivity=out.sensitivity)
+    plot = facts("true_effect", "true difference in rate", 2, "true_control")
+    for build_figure in (sbc_histograms, sensitivity_scatter):
+        figure = build_figure(data, plot)
+        head, png = decode(figure.uri)
+        assert head == "data:image/png;base64"
+        pixels = image.imread(io.BytesIO(png))[..., :3]
+        assert np.allclose(pixels[..., 0], pixels[..., 1]) and np.allclose(
+            pixels[..., 1], pixels[..., 2])
+        assert figure.name.startswith("checks-")
+        assert build_figure(SimpleNamespace(checks={"sbc": []}, sensitivity=None),
+                            plot) is None

@@ -382,9 +382,10 @@ def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
     from octrial.reporting import check_figures
     from octrial.reporting.check_tables import is_ours
 
-    if data.checks is None or not is_ours(data.checks):
+    checks = getattr(data, "checks", None)
+    if checks is None or not is_ours(checks):
         return None
-    sbc = data.checks.get("sbc") or {}
+    sbc = checks.get("sbc") or {}
     entries = sbc.get("quantities") or []
     if not entries:
         return None
@@ -407,9 +408,10 @@ def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
     from octrial.reporting import check_figures
     from octrial.reporting.check_tables import is_ours
 
-    if data.checks is None or not is_ours(data.checks):
+    checks = getattr(data, "checks", None)
+    if checks is None or not is_ours(checks):
         return None
-    record = data.checks.get("sensitivity") or {}
+    record = checks.get("sensitivity") or {}
     points = getattr(data, "sensitivity", None)
     if points is None or "looks" not in record or points.empty:
         return None
