@@ -89,8 +89,11 @@ def run_conflict(design: Design) -> dict[str, Any]:
         baseline = vague if baseline is None else variant(baseline, j, None)
         if isinstance(design.family, LatticeFamily):
             table = _lattice_conflict(design, j, informative, vague)
-        else:
+        elif getattr(design.endpoint, "known_sd", False):
             table = _normal_conflict(design, j, informative, vague)
+        else:
+            return {"not_applicable": "prior-data conflict is not available for "
+                                      "normal-inverse-gamma priors (unknown sd) yet"}
         per_arm.append({
             "arm": design.arms[j].name, "method": record.method, "a0": record.a0,
             "vague_weight": record.vague_weight, "historical": record.data(),

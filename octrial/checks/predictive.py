@@ -180,12 +180,19 @@ def truncated_support(pmf_of: Any, start: int, mass: float = 1e-10,
         size *= 2
 
 
+MAX_PAIRS = 4_000_000
+"""Largest outer product of two supports combined exactly (see :func:`pair_effect`)."""
+
+
 def pair_effect(first: Predictive, second: Predictive, measure: Any, name: str, label: str,
                 first_scale: float = 1.0, second_scale: float = 1.0,
-                max_points: int = 4_000_000) -> Predictive:
+                max_points: int = MAX_PAIRS) -> Predictive:
     """The observed effect ``measure(x1 / scale1, x2 / scale2)`` of two independent
-    discrete observables, as a discrete distribution (the outer product of their pmfs;
-    both supports are cut to their 1 - 1e-12 mass first when the product is large)."""
+    discrete observables, as a discrete distribution: the outer product of their pmfs.
+    When the product is large, both supports are first cut to their 1 - 1e-12 mass and,
+    if still too long (counts in the thousands), neighbouring values are merged into
+    sqrt(max_points) groups at their mean (an approximation finer than the spacing of
+    any quantile that is reported)."""
     a_vals, a_pmf = _cut(first, max_points)
     b_vals, b_pmf = _cut(second, max_points)
     values = measure(a_vals[:, None] / first_scale, b_vals[None, :] / second_scale)
@@ -198,4 +205,12 @@ def _cut(p: Predictive, max_points: int) -> tuple[np.ndarray, np.ndarray]:
         return p.values, p.weights
     keep = np.cumsum(p.weights) <= 1.0 - 1e-12
     keep[np.argmin(keep)] = True
-    return p.values[keep], p.weights[keep]
+    values, weights = p.values[keep], p.weights[keep]
+    groups = int(np.sqrt(max_points))
+    if values.size <= groups:
+        return values, weights
+    which = np.arange(values.size) * groups // values.size
+    mass = np.bincount(which, weights=weights, minlength=groups)
+    centre = np.bincount(which, weights=weights * values, minlength=groups)
+    nonzero = mass > 0
+    return centre[nonzero] / mass[nonzero], mass[nonzero]

@@ -189,8 +189,8 @@ def _entry(q: Quantity, look: int, looks: Any, kind: str, values: np.ndarray,
     return {"id": f"{q.name}@look{look + 1}" + ("" if kind == "cdf" else ":rank"),
             "quantity": q.name, "label": q.label, "look": look + 1,
             "n": list(looks.per_arm[look]), "statistic": statistic, "kind": kind,
-            "computation": ("posterior draws (the sampler used for Monte Carlo summaries)"
-                            if kind == "rank" else q.computation),
+            "computation": ("posterior draws (the checks' sampler, also behind the "
+                            "tail-accuracy check)" if kind == "rank" else q.computation),
             "closed_form": q.closed_form if kind == "cdf" else False,
             **test, "p_value": p, "seconds": seconds}
 
