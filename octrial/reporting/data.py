@@ -159,12 +159,16 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
     calibrated = _optional_json(folder / "calibration.json")
     if alpha is None and calibrated is not None:
         alpha = _stated_alpha(calibrated)
+    checks = _optional_json(folder / "checks.json")
+    sensitivity = _optional_table(folder / "sensitivity.csv")
+    if checks is not None and str(checks.get("kind", "")).startswith("octrial-checks/"):
+        # checks of another version of the design file are not this run's
+        checks, sensitivity = _checks_of(folder, design)
     return ReportData(design, oc, boundaries, record, f"run folder {folder}",
                       calibration=_optional_table(folder / "calibration.csv"),
                       sizing=_optional_table(folder / "sizing.csv"),
-                      calibration_record=calibrated,
-                      checks=_optional_json(folder / "checks.json"), alpha=alpha,
-                      sensitivity=_optional_table(folder / "sensitivity.csv"))
+                      calibration_record=calibrated, checks=checks, alpha=alpha,
+                      sensitivity=sensitivity)
 
 
 def _stated_alpha(record: dict[str, Any]) -> float | None:
