@@ -10,12 +10,13 @@ need one say so.
 
 **Unknown sd.** Each arm has a normal-inverse-gamma prior (mu | s2 ~ N(m, s2 / k),
 s2 ~ InvGamma(a, b)). A study's data per arm are its size, sample mean and sum of squared
-deviations; the posterior of mu is Student t with 2 a_n degrees of freedom, location m_n
-and scale sqrt(b_n / (a_n k_n)) (conjugate update, docs/methods.md). On two arms the
-difference of two independent t posteriors has no closed form: its CDF is computed here by
-Gauss-Legendre quadrature over the treatment posterior's quantiles (a reference
-computation of the model's posterior; the simulation kernel for unknown sd computes its
-own).
+deviations; the posterior comes from the unknown-sd rule's own conjugate update
+(:func:`octrial.endpoints.unknown_sd.update`, vectorised over studies; the update is the
+same on the parameter's scale as on the benefit scale), and mu is Student t with 2 a_n
+degrees of freedom, location m_n and scale sqrt(b_n / (a_n k_n)). On two arms the
+difference of two independent t posteriors has no closed form; its CDF is the rule's
+:func:`octrial.endpoints.unknown_sd.difference_sf` (a sinh-substituted trapezoidal rule),
+with each study's value moved into the treatment location.
 """
 
 from __future__ import annotations
@@ -31,6 +32,7 @@ from scipy import stats
 from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity
 from octrial.checks.predictive import Predictive
 from octrial.design.model import Design
+from octrial.endpoints import unknown_sd
 from octrial.endpoints.normal import (
     Flat,
     NormalMixture,
@@ -38,9 +40,6 @@ from octrial.endpoints.normal import (
     benefit_components,
     update,
 )
-
-QUADRATURE_NODES = 96
-"""Gauss-Legendre nodes for the CDF of a difference of two Student t posteriors."""
 
 
 def normal_model(design: Design) -> CheckModel:
@@ -221,14 +220,14 @@ class Nig:
     a: Any
     b: Any
 
-    def updated(self, n: float, mean: np.ndarray, ss: np.ndarray) -> Nig:
+    def updated(self, n: int, mean: np.ndarray, ss: np.ndarray) -> Nig:
         """The posterior after ``n`` observations with sample ``mean`` and sum of squared
-        deviations ``ss`` (conjugate update; docs/methods.md)."""
+        deviations ``ss``, by :func:`octrial.endpoints.unknown_sd.update`."""
         if n == 0:
             return self
-        k = self.k + n
-        return Nig((self.k * self.m + n * mean) / k, k, self.a + n / 2.0,
-                   self.b + ss / 2.0 + self.k * n * (mean - self.m) ** 2 / (2.0 * k))
+        sd = np.sqrt(ss / (n - 1)) if n > 1 else np.zeros_like(mean)
+        post = unknown_sd.update(self.m, self.k, self.a, self.b, n=n, ybar=mean, sd=sd)
+        return Nig(post.mean, post.mean_n, post.shape, post.scale)
 
     def t(self) -> Any:
         """The marginal Student t of mu (frozen, vectorised)."""
@@ -272,13 +271,13 @@ class UnknownSdModel(CheckModel):
     def quantities(self) -> tuple[Quantity, ...]:
         arms = self.design.arm_names
         per_arm = tuple(Quantity(f"mean_{a}", f"mean ({a})", len(arms) == 1,
-                                 "normal-inverse-gamma update, Student t marginal (closed "
-                                 "form)", True) for a in arms)
+                                 "normal-inverse-gamma update of the unknown-sd rule, "
+                                 "Student t marginal (closed form)", True) for a in arms)
         if len(arms) == 1:
             return per_arm
         return (Quantity("difference", "mean_T − mean_C", True,
-                         "difference of two Student t posteriors by Gauss-Legendre "
-                         "quadrature (a reference computation)", False), *per_arm)
+                         "difference of two Student t posteriors (the unknown-sd rule's "
+                         "sinh-substituted trapezoidal rule)", False), *per_arm)
 
     def true_value(self, quantity: Quantity, truths: np.ndarray) -> np.ndarray:
         if quantity.name == "difference":
@@ -404,13 +403,14 @@ class NigPosteriors(Posteriors):
         j = self._arm(quantity)
         if j is not None:
             return self.arms[j].t().cdf(values)
-        u, w = np.polynomial.legendre.leggauss(QUADRATURE_NODES)
-        u, w = 0.5 * (u + 1.0), 0.5 * w
-        # Pr(mu_T - mu_C <= d) = E_T[Pr(mu_C >= mu_T - d)] = int_0^1 S_C(Q_T(u) - d) du
-        t_dist = _column(self.arms[0]).t()
-        c_dist = _column(self.arms[1]).t()
-        q_t = t_dist.ppf(u[None, :])
-        return np.clip(c_dist.sf(q_t - values[:, None]) @ w, 0.0, 1.0)
+        # Pr(mu_T - mu_C <= d) = 1 - Pr((mu_T - d) - mu_C > 0), one d per study
+        t, c = self.arms
+        scale_t, scale_c = (np.sqrt(n.b / (n.a * n.k)) for n in (t, c))
+        size = (len(self),)
+        exceeds = unknown_sd.difference_sf(
+            np.broadcast_to(t.m, size) - values, np.broadcast_to(scale_t, size), 2.0 * t.a,
+            np.broadcast_to(c.m, size), np.broadcast_to(scale_c, size), 2.0 * c.a, 0.0)
+        return np.clip(1.0 - exceeds, 0.0, 1.0)
 
     def mean(self, quantity: Quantity) -> np.ndarray:
         j = self._arm(quantity)
