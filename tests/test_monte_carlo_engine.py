@@ -18,10 +18,13 @@ from octrial.rules.estimates import lattice_estimates
 from octrial.rules.lattice import build_rule
 from octrial.simulation.lattice import LatticeSimulator, lattice_plan
 from tests.helpers import ONE_ARM, build
+from tests.test_count_engine import TWO_ARM as COUNT_TWO_ARM
 from tests.test_monte_carlo_vs_exact import DESIGN_MAKERS
 
 GENERAL_DESIGNS = ["demo-one-arm", "one-arm-lower-predictive", "one-arm-mixture-predictive",
-                   "simon-counts", "simon-posterior", "two-arm", "two-arm-2-to-1"]
+                   "simon-counts", "simon-posterior", "two-arm", "two-arm-2-to-1",
+                   "demo-event-rate", "count-one-arm-predictive",
+                   "count-one-arm-higher-mixture", "count-two-arm-superiority"]
 
 
 def simulate(design, **settings):
@@ -34,7 +37,7 @@ def test_general_kernel_reaches_the_table_kernels_decisions(name: str) -> None:
     # (numba incomplete beta; two arms numba quadrature); the table kernel looks
     # decisions up in tables built with scipy. Same seed, same draws: every stopping
     # count must be identical, and the summaries equal up to rounding.
-    design = DESIGN_MAKERS[name]()
+    design = (DESIGN_MAKERS[name] if name in DESIGN_MAKERS else EXTRA_DESIGNS[name])()
     replicates = 1000 if design.two_arm else 3000
     table = simulate(design, replicates=replicates, seed=11, kernel="table")
     general = simulate(design, replicates=replicates, seed=11, kernel="general")
@@ -45,9 +48,21 @@ def test_general_kernel_reaches_the_table_kernels_decisions(name: str) -> None:
             np.testing.assert_allclose(general[column], table[column], rtol=1e-11, atol=1e-14)
 
 
-def test_general_kernel_limits_are_clear() -> None:
-    design = DESIGN_MAKERS["two-arm-non-inferiority-predictive"]()
-    with pytest.raises(ValueError, match="predictive futility"):
+EXTRA_DESIGNS = {
+    # two-arm counts without predictive futility, which the general kernel leaves out
+    "count-two-arm-superiority": lambda: build(
+        COUNT_TWO_ARM, hypothesis__margin=0.2, looks__futility_predictive=None,
+        arms__control__prior={"distribution": "gamma-mixture", "components": [
+            {"weight": 0.5, "shape": 2, "rate": 2}, {"weight": 0.5, "shape": 0.5, "rate": 0.5}]},
+        scenarios={"control": [1.0, 2.0], "ratio": [1.0, 0.5]}),
+}
+
+
+@pytest.mark.parametrize("name", ["two-arm-non-inferiority-predictive", "count-two-arm",
+                                  "count-negative-binomial"])
+def test_general_kernel_limits_are_clear(name: str) -> None:
+    design = DESIGN_MAKERS[name]()
+    with pytest.raises(ValueError, match=r"predictive futility|table kernel"):
         simulate(design, replicates=100, seed=1, kernel="general")
 
 

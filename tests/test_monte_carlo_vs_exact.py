@@ -1,8 +1,13 @@
-"""The Monte Carlo engine against the exact engine on every binary design in the tests.
+"""The Monte Carlo engine against the exact engines on every binary, count and known-sd
+normal design in the tests.
 
-The exact engine is itself checked against path enumeration with scipy
-(tests/test_exact_engine.py), so agreement here checks the simulation: its draws, its
-use of the decision tables, its stopping counts and its standard errors.
+The exact engines are themselves checked against path enumeration with scipy
+(tests/test_exact_engine.py, tests/test_count_engine.py) and, for normal endpoints, against
+published group-sequential constants and scipy integration (tests/test_normal_engine.py),
+so agreement here checks the simulation: its draws, its use of the decision tables or
+its per-study posterior and predictive probabilities (normal endpoints: the general
+kernel, whose numbers share no code with the recursion's bounds), its stopping counts and
+its standard errors.
 
 Criteria (fixed seeds, so each run is reproducible):
 
@@ -30,6 +35,11 @@ from octrial.design.load import load_design
 from octrial.engines import MonteCarloSettings
 from octrial.evaluation import compute
 from tests.helpers import DESIGNS, ONE_ARM, TWO_ARM, build
+from tests.test_count_engine import ONE_ARM as COUNT_ONE_ARM
+from tests.test_count_engine import TWO_ARM as COUNT_TWO_ARM
+from tests.test_normal_engine import MIXTURE
+from tests.test_normal_engine import ONE_ARM as NORMAL_ONE_ARM
+from tests.test_normal_engine import TWO_ARM as NORMAL_TWO_ARM
 from tests.test_simon_designs import SIMON, bayesian_design, count_design
 
 REPLICATES = 20_000
@@ -63,6 +73,41 @@ def _designs() -> dict:
                                         looks__n=[30, 60]),
         "simon-counts": lambda: count_design(simon[0], simon[1], *simon[5:9]),
         "simon-posterior": lambda: bayesian_design(simon[0], simon[1], *simon[5:9]),
+        # count endpoints (table kernel on the truncated lattice)
+        "demo-event-rate": lambda: load_design(DESIGNS / "single-arm-event-rate.toml"),
+        "count-one-arm-predictive": lambda: build(
+            COUNT_ONE_ARM, scenarios__treatment=[0.6, 1.2, 2.0]),
+        "count-one-arm-higher-mixture": lambda: build(
+            COUNT_ONE_ARM, endpoint__better="higher", hypothesis__benchmark=0.8,
+            arms__treatment__prior={"distribution": "gamma-mixture", "components": [
+                {"weight": 0.6, "shape": 4, "rate": 5}, {"weight": 0.4, "shape": 1,
+                                                         "rate": 1}]},
+            scenarios__treatment=[0.8, 1.3]),
+        "count-two-arm": lambda: build(COUNT_TWO_ARM, scenarios={"control": [1.0, 2.0],
+                                                                 "ratio": [1.0, 0.5]}),
+        "count-negative-binomial": lambda: build(
+            COUNT_ONE_ARM, endpoint={"type": "count", "exposure": 0.5, "better": "lower",
+                                     "model": "negative-binomial", "dispersion": 0.8},
+            looks__futility_predictive=None, scenarios__treatment=[0.6, 1.2]),
+        # normal endpoints with a known sd (general kernel against the recursion)
+        "demo-continuous-score": lambda: load_design(DESIGNS / "two-arm-continuous-score.toml"),
+        "normal-one-arm-flat": lambda: build(
+            NORMAL_ONE_ARM, looks={"n": [30, 60, 100], "efficacy": [0.999, 0.99, 0.975],
+                                   "futility": [0.1, 0.2]},
+            scenarios__treatment=[0.0, 0.15, 0.3]),
+        "normal-one-arm-mixture-predictive": lambda: build(
+            NORMAL_ONE_ARM, endpoint__better="lower", hypothesis__benchmark=0.2,
+            arms__treatment__prior=MIXTURE,
+            looks={"n": [20, 40, 60], "efficacy": [0.995, 0.98, 0.95],
+                   "futility_predictive": [0.1, 0.2]},
+            scenarios__treatment=[0.2, 0.0, -0.2]),
+        "normal-two-arm-2-to-1-non-inferiority": lambda: build(
+            NORMAL_TWO_ARM, arms__treatment__allocation=2, hypothesis__kind="non-inferiority",
+            hypothesis__margin=3.0, hypothesis__prior={"distribution": "normal", "mean": 0.0,
+                                                       "sd": 5.0},
+            looks={"n": [90, 180], "efficacy": [0.995, 0.975], "futility": 0.2,
+                   "futility_predictive": 0.1},
+            scenarios={"control": [10.0], "effect": [-3.0, 0.0, 2.0]}),
     }
 
 

@@ -38,7 +38,7 @@ from octrial.errors import InputError, Problem, show
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import CheckpointStore, run_key
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
-from octrial.rules.lattice import LatticeRule, build_rule
+from octrial.rules.lattice import LatticeRule, build_rule, serving
 from octrial.simulation import GENERAL_KERNELS, general_unsupported
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
@@ -187,10 +187,14 @@ class MonteCarloEngine:
             replicates=settings.replicates or design.simulation.replicates,
             seed=settings.seed if settings.seed is not None else design.simulation.seed)
         store, settings, drawn = _checkpoints(design, settings, execution)
+        # a truncated lattice (counts) and the kernels' draw tables are sized for every
+        # truth simulated, not only the design's own scenarios
+        if isinstance(design.family, LatticeFamily):
+            design = serving(design, truths)
 
         plan = estimates = None
         if kernel == "table":
-            rule = build_rule(design) if rule is None else rule
+            rule = build_rule(design, truths=truths) if rule is None else rule
             estimates = lattice_estimates(design)
             plan = lattice_plan(design, rule, estimates)
         tasks = [ScenarioTask(i, tuple(float(v) for v in t), design, plan, estimates, settings)

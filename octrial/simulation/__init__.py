@@ -8,6 +8,10 @@
 * :mod:`~octrial.simulation.special`: special functions compiled with numba.
 * :mod:`~octrial.simulation.binary`: the general kernel for binary endpoints (posterior
   and predictive probabilities evaluated per study).
+* :mod:`~octrial.simulation.count`: the general kernel for count endpoints (gamma-Poisson).
+* :mod:`~octrial.simulation.normal`: normal endpoints, data as sufficient statistics;
+  known sd; :mod:`~octrial.simulation.normal_unknown`: unknown sd (Student t posteriors,
+  :mod:`~octrial.simulation.student_t` for two arms).
 
 Families add a general kernel by registering a factory in :data:`GENERAL_KERNELS`.
 """
@@ -43,9 +47,11 @@ def general_unsupported(design: Any) -> str | None:
 
 
 def _register_builtin() -> None:
-    from octrial.simulation import binary
+    from octrial.simulation import binary, count, normal
 
     register_general("binary", binary.BinarySimulator, binary.unsupported)
+    register_general("count", count.CountSimulator, count.unsupported)
+    register_general("normal", normal.NormalSimulator, normal.unsupported)
 
 
 _register_builtin()

@@ -36,6 +36,9 @@ NONE = -1
 
 def unsupported(design: Design) -> str | None:
     """Why the general binary kernel cannot simulate ``design``, or ``None``."""
+    if design.family.on_grid(design):
+        return ("the general binary kernel needs beta or beta-mixture priors on a rate "
+                "difference (posteriors on a grid: the table kernel simulates these designs)")
     if design.two_arm and any(v is not None for v in design.looks.futility_predictive):
         return ("the general binary kernel has no two-arm predictive futility (the table "
                 "kernel has)")

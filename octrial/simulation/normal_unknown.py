@@ -1,0 +1,394 @@
+"""General kernels for normal endpoints with unknown sd (normal-inverse-gamma priors).
+
+Data are drawn as in :mod:`octrial.simulation.normal` (increment means and sums of
+squares, exactly), at the design's ``endpoint.true_sd``.
+
+**Posterior.** Prior mu | sigma^2 ~ N(m0, sigma^2 / k0), sigma^2 ~ InvGamma(a0, b0)
+(``mean``, ``mean_n``, ``shape``, ``scale``). After n subjects with mean xbar and sum of
+squared deviations SS (Gelman et al., Bayesian Data Analysis, 3rd ed., section 3.3):
+
+    k_n = k0 + n,  m_n = (k0 m0 + n xbar) / k_n,  a_n = a0 + n / 2,
+    b_n = b0 + SS / 2 + k0 n (xbar - m0)^2 / (2 k_n),
+
+and mu | data is Student t with 2 a_n degrees of freedom, location m_n and scale
+sqrt(b_n / (a_n k_n)). One arm: B = Pr(sign mu > sign mu0) is one t distribution function
+(:func:`octrial.simulation.special.student_t_pair`). Two arms (independent priors, so
+unequal variances): B = Pr(sign (mu_T - mu_C) > shift), the Behrens-Fisher probability,
+by the quadrature of :mod:`octrial.simulation.student_t`.
+
+**Predictive probability of final success (one arm), derived.** At look k (posterior
+m_n, k_n, a_n, b_n) the m = N - n future subjects have mean ybar and sum of squares SS_y.
+Sequential conjugate updating gives the final posterior exactly:
+
+    k_N = k_n + m,  m_N = m_n + (m / k_N) delta,  a_N = a_n + m / 2,
+    b_N = b_n + SS_y / 2 + (k_n m / (2 k_N)) delta^2,      delta = ybar - m_n,
+
+and success is B_N >= gamma, i.e. z_N = sign(m_N - mu0) sqrt(a_N k_N / b_N) >= c with
+c = t^{-1}_{2 a_N}(gamma) (the degrees of freedom at the end are known in advance). Under
+the posterior predictive, given sigma^2: delta ~ N(0, sigma^2 (1/k_n + 1/m)) and
+SS_y ~ sigma^2 chi^2_{m-1}, independent. Integrating sigma^2 out in two steps:
+
+* u = SS_y / (2 b_n + SS_y) ~ Beta((m - 1) / 2, a_n) (a ratio of independent gammas),
+* given SS_y, sigma^2 ~ InvGamma(a_n + (m - 1) / 2, B) with B = b_n + SS_y / 2
+  = b_n / (1 - u), so delta is Student t with 2 a_n + m - 1 degrees of freedom and scale
+  sqrt(B (1/k_n + 1/m) / (a_n + (m - 1) / 2)).
+
+Given u, success is (D + g delta) sqrt(A / (B + h delta^2)) >= c with D = sign(m_n - mu0),
+g = m / k_N, h = k_n m / (2 k_N), A = a_N k_N (delta on the benefit scale, whose
+distribution is symmetric): the boundary points are the real roots of the quadratic
+(A g^2 - c^2 h) delta^2 + 2 A D g delta + (A D^2 - c^2 B), and the success set is the union
+of the segments between them where the inequality holds (tested at one point of each),
+whose t probability is exact. So
+
+    PP = E_u[ Pr(delta in success set | u) ],
+
+one integral over u, taken by Gauss-Jacobi quadrature for the Beta((m - 1)/2, a_n)
+weight with :data:`PREDICTIVE_NODES` nodes (the nodes depend only on the look; built once
+with ``scipy.special.roots_jacobi``). With one subject to come SS_y = 0 and no integral
+is needed. Checked in tests/test_normal_unknown_sd.py against a plain simulation of the
+future data and against the same quadrature with four times the nodes.
+
+Two arms with unknown sd: no predictive futility (it would need the Behrens-Fisher
+quadrature inside a four-dimensional predictive integral per study).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numba
+import numpy as np
+from scipy import linalg
+
+from octrial.design.model import Design
+from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.simulation import student_t
+from octrial.simulation.base import Simulator, Tally
+from octrial.simulation.normal import add_estimate, draw_increments, increment_sizes, thresholds
+from octrial.simulation.special import student_t_pair
+
+PREDICTIVE_NODES = 16
+"""Gauss-Jacobi nodes of the predictive integral over u (module docstring)."""
+
+BISECTIONS = 200
+
+
+@numba.njit(cache=True)
+def pool(n_before, total, squares, m, mean, ss):
+    """Add m subjects with mean ``mean`` and sum of squares ``ss`` to (total, squares) of
+    ``n_before`` subjects (Chan, Golub & LeVeque 1983); returns the new pair."""
+    if n_before > 0:
+        gap = total / n_before - mean
+        squares += ss + n_before * m / (n_before + m) * gap * gap
+    else:
+        squares = ss
+    return total + m * mean, squares
+
+
+@numba.njit(cache=True)
+def update(m0, k0, a0, b0, n, total, squares):
+    """Normal-inverse-gamma posterior (m_n, k_n, a_n, b_n) after n subjects."""
+    xbar = total / n
+    k = k0 + n
+    gap = xbar - m0
+    return ((k0 * m0 + total) / k, k, a0 + 0.5 * n,
+            b0 + 0.5 * squares + 0.5 * k0 * n * gap * gap / k)
+
+
+@numba.njit(cache=True)
+def t_quantile(p, nu):
+    """c with Pr(T_nu <= c) = p, by bisection on :func:`student_t_pair` (-inf for p <= 0,
+    +inf for p >= 1)."""
+    if p <= 0.0:
+        return -np.inf
+    if p >= 1.0:
+        return np.inf
+    lo, hi = -1.0, 1.0
+    while student_t_pair(lo, nu)[0] > p:
+        lo *= 2.0
+    while student_t_pair(hi, nu)[0] < p:
+        hi *= 2.0
+    for _ in range(BISECTIONS):
+        mid = 0.5 * (lo + hi)
+        if mid == lo or mid == hi:
+            break
+        if student_t_pair(mid, nu)[0] >= p:
+            hi = mid
+        else:
+            lo = mid
+    return hi
+
+
+@numba.njit(cache=True)
+def t_mass(lo, hi, scale, nu):
+    """Pr(lo < scale T_nu < hi), from whichever tails keep the accuracy."""
+    if lo == -np.inf and hi == np.inf:
+        return 1.0
+    if lo == -np.inf:
+        return student_t_pair(hi / scale, nu)[0]
+    if hi == np.inf:
+        return student_t_pair(lo / scale, nu)[1]
+    if lo >= 0.0:
+        return max(student_t_pair(lo / scale, nu)[1] - student_t_pair(hi / scale, nu)[1], 0.0)
+    if hi <= 0.0:
+        return max(student_t_pair(hi / scale, nu)[0] - student_t_pair(lo / scale, nu)[0], 0.0)
+    return max(1.0 - student_t_pair(lo / scale, nu)[0] - student_t_pair(hi / scale, nu)[1],
+               0.0)
+
+
+@numba.njit(cache=True, inline="always")
+def _succeeds(delta, d, big_b, g, h, a, c):
+    return (d + g * delta) * math.sqrt(a / (big_b + h * delta * delta)) >= c
+
+
+@numba.njit(cache=True)
+def success_mass(d, big_b, g, h, a, c, scale, nu):
+    """Pr((d + g delta) sqrt(a / (big_b + h delta^2)) >= c) for delta = scale T_nu."""
+    p = a * g * g - c * c * h
+    q = 2.0 * a * d * g
+    r = a * d * d - c * c * big_b
+    # the boundary points: real roots x1 <= x2 of p x^2 + q x + r (count of them)
+    count = 0
+    x1 = x2 = 0.0
+    if p == 0.0:
+        if q != 0.0:
+            x1 = -r / q
+            count = 1
+    else:
+        disc = q * q - 4.0 * p * r
+        if disc >= 0.0:
+            root = math.sqrt(disc)
+            qq = -0.5 * (q + (root if q >= 0.0 else -root))
+            if qq == 0.0:
+                count = 1
+            else:
+                x1, x2 = min(qq / p, r / qq), max(qq / p, r / qq)
+                count = 2
+    if count == 0:
+        return 1.0 if _succeeds(0.0, d, big_b, g, h, a, c) else 0.0
+    # segments (-inf, x1), (x1, x2), (x2, inf) (the middle one only with two roots),
+    # each tested at one inner point
+    total = 0.0
+    if _succeeds(x1 - (1.0 + abs(x1)), d, big_b, g, h, a, c):
+        total += t_mass(-np.inf, x1, scale, nu)
+    if count == 2 and _succeeds(0.5 * (x1 + x2), d, big_b, g, h, a, c):
+        total += t_mass(x1, x2, scale, nu)
+    top = x2 if count == 2 else x1
+    if _succeeds(top + (1.0 + abs(top)), d, big_b, g, h, a, c):
+        total += t_mass(top, np.inf, scale, nu)
+    return min(total, 1.0)
+
+
+@numba.njit(cache=True)
+def predictive(d, b_n, constants, nodes, weights):
+    """PP from the posterior's (D, b_n) and the look's constants (g, h, A, c, nu of delta,
+    (1/k_n + 1/m) / (a_n + (m - 1)/2)) with its Gauss-Jacobi nodes and weights in u."""
+    g, h, a, c, nu, spread = (constants[0], constants[1], constants[2], constants[3],
+                              constants[4], constants[5])
+    if c == np.inf:
+        return 0.0
+    if c == -np.inf:
+        return 1.0
+    total = 0.0
+    for i in range(nodes.size):
+        big_b = b_n / (1.0 - nodes[i])
+        total += weights[i] * success_mass(d, big_b, g, h, a, c, math.sqrt(big_b * spread),
+                                           nu)
+    return min(max(total, 0.0), 1.0)
+
+
+@numba.njit(cache=True)
+def one_arm_studies(means, squares, sizes, n, prior, sign, benchmark, efficacy, futility,
+                    predictive_threshold, constants, nodes, weights, has_estimate, truth,
+                    tail, tol, stops_efficacy, stops_futility, sums):
+    """Simulate one-arm unknown-sd studies from increment means and sums of squares
+    (studies, looks); add stops per look and error sums; return the covered count."""
+    n_studies, n_looks = means.shape
+    m0, k0, a0, b0 = prior[0], prior[1], prior[2], prior[3]
+    last = n_looks - 1
+    covered = 0
+    for r in range(n_studies):
+        total, ss = 0.0, 0.0
+        for k in range(n_looks):
+            total, ss = pool(n[k] - sizes[k], total, ss, sizes[k], means[r, k], squares[r, k])
+            mean, kn, an, bn = update(m0, k0, a0, b0, n[k], total, ss)
+            scale = math.sqrt(bn / (an * kn))
+            d = sign * (mean - benchmark)
+            b = student_t_pair(d / scale, 2.0 * an)[0]
+            eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
+            fut = not math.isnan(futility[k]) and b < futility[k] - tol
+            if k < last and not eff and not fut and not math.isnan(predictive_threshold[k]):
+                pp = predictive(d, bn, constants[k], nodes[k], weights[k])
+                fut = pp < predictive_threshold[k] - tol
+            if k == last:
+                fut = not eff
+            if not (eff or fut):
+                continue
+            (stops_efficacy if eff else stops_futility)[k] += 1
+            if has_estimate:
+                cdf = student_t_pair((truth - mean) / scale, 2.0 * an)[0]
+                covered += add_estimate(mean - truth, cdf, tail, sums)
+            break
+    return covered
+
+
+@numba.njit(cache=True)
+def two_arm_studies(means, squares, sizes, n, priors, sign, shift, efficacy, futility,
+                    has_estimate, truth, tail, tol, nodes, weights, start,
+                    stops_efficacy, stops_futility, sums):
+    """Simulate two-arm unknown-sd studies (increments shaped (studies, looks, 2)); the
+    t rule of look k and arm j is row 2 k + j of the packed rules."""
+    n_studies, n_looks, _ = means.shape
+    last = n_looks - 1
+    covered = 0
+    total = np.zeros(2)
+    ss = np.zeros(2)
+    loc = np.zeros(2)
+    scale = np.zeros(2)
+    nu = np.zeros(2)
+    # benefit orientation: X - Y > shift with X the arm that is better when higher
+    x_arm = 0 if sign > 0 else 1
+    y_arm = 1 - x_arm
+    for r in range(n_studies):
+        total[:] = 0.0
+        ss[:] = 0.0
+        for k in range(n_looks):
+            for j in range(2):
+                total[j], ss[j] = pool(n[k, j] - sizes[k, j], total[j], ss[j], sizes[k, j],
+                                       means[r, k, j], squares[r, k, j])
+                mean, kn, an, bn = update(priors[j, 0], priors[j, 1], priors[j, 2],
+                                          priors[j, 3], n[k, j], total[j], ss[j])
+                loc[j], scale[j], nu[j] = mean, math.sqrt(bn / (an * kn)), 2.0 * an
+            b = student_t.prob_difference_exceeds(
+                loc[x_arm], scale[x_arm], nu[x_arm], 2 * k + x_arm,
+                loc[y_arm], scale[y_arm], nu[y_arm], 2 * k + y_arm, shift,
+                nodes, weights, start)
+            eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
+            fut = not math.isnan(futility[k]) and b < futility[k] - tol
+            if k == last:
+                fut = not eff
+            if not (eff or fut):
+                continue
+            (stops_efficacy if eff else stops_futility)[k] += 1
+            if has_estimate:
+                cdf = 1.0 - student_t.prob_difference_exceeds(
+                    loc[0], scale[0], nu[0], 2 * k, loc[1], scale[1], nu[1], 2 * k + 1,
+                    truth, nodes, weights, start)
+                covered += add_estimate(loc[0] - loc[1] - truth, cdf, tail, sums)
+            break
+    return covered
+
+
+def predictive_rules(design: Design) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per interim look: the constants of :func:`predictive` and its nodes and weights in
+    u (one arm; rows of zeros where no predictive threshold applies)."""
+    prior = design.arms[0].prior
+    looks = design.looks
+    n = [per[0] for per in looks.per_arm]
+    big_n = n[-1]
+    a_end, k_end = prior.shape + big_n / 2, prior.mean_n + big_n
+    final = looks.efficacy[-1]
+    c = math.inf if final is None else float(t_quantile(final - DECISION_TOLERANCE,
+                                                        2 * a_end))
+    constants = np.zeros((looks.count, 6))
+    nodes = np.zeros((looks.count, PREDICTIVE_NODES))
+    weights = np.zeros((looks.count, PREDICTIVE_NODES))
+    for k in range(looks.count - 1):
+        if looks.futility_predictive[k] is None:
+            continue
+        m = big_n - n[k]
+        k_now, a_now = prior.mean_n + n[k], prior.shape + n[k] / 2
+        half = a_now + (m - 1) / 2
+        constants[k] = (m / k_end, k_now * m / (2 * k_end), a_end * k_end, c, 2 * half,
+                        (1 / k_now + 1 / m) / half)
+        if m == 1:
+            weights[k, 0] = 1.0  # SS_y = 0: the one node u = 0 carries everything
+            continue
+        nodes[k], weights[k] = beta_quadrature(PREDICTIVE_NODES, (m - 1) / 2, a_now)
+    return constants, nodes, weights
+
+
+def beta_quadrature(size: int, p: float, q: float) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Jacobi nodes and weights (summing to 1) for the Beta(p, q) distribution.
+
+    Golub & Welsch (1969): the nodes are the eigenvalues of the Jacobi matrix of the
+    Jacobi polynomials P^(q-1, p-1) on [-1, 1] (mapped by u = (1 + x) / 2), and the weights
+    the squared first components of its eigenvectors. Computed here rather than with
+    ``scipy.special.roots_jacobi``, whose weights overflow for shapes in the hundreds
+    (the total 2^(alpha + beta + 1) B(...) is formed explicitly).
+    """
+    alpha, beta = q - 1.0, p - 1.0
+    i = np.arange(size, dtype=float)
+    s = 2.0 * i + alpha + beta
+    with np.errstate(divide="ignore", invalid="ignore"):
+        diagonal = np.where(s * (s + 2.0) != 0.0, (beta**2 - alpha**2) / (s * (s + 2.0)),
+                            (beta - alpha) / (alpha + beta + 2.0))
+    j = i[1:]
+    t = 2.0 * j + alpha + beta
+    # (j + alpha + beta) / (t - 1) is 1 at j = 1: cancelled there (0 / 0 when p + q = 1)
+    ratio = np.ones_like(j)
+    ratio[1:] = (j[1:] + alpha + beta) / (t[1:] - 1.0)
+    off = np.sqrt(4.0 * j * (j + alpha) * (j + beta) * ratio / (t**2 * (t + 1.0)))
+    x, vectors = linalg.eigh_tridiagonal(diagonal, off)
+    w = vectors[0] ** 2
+    return (1.0 + x) / 2.0, w / w.sum()
+
+
+class UnknownSdSimulator(Simulator):
+    """Normal studies with unknown sd by the general kernel (see module docstring)."""
+
+    kernel = "general"
+
+    def __init__(self, design: Design, truth: tuple[float, ...], level: float) -> None:
+        h = design.hypothesis
+        looks = design.looks
+        self.design = design
+        self.looks = looks.count
+        self.two_arm = design.two_arm
+        self.sizes = increment_sizes(design)
+        self.truth = np.array(truth, dtype=float)
+        self.sd = np.full(len(truth), float(design.endpoint.true_sd))
+        self.target = float(design.family.target_value(h, tuple(truth)))
+        self.tail = (1.0 - level) / 2.0
+        priors = np.array([[a.prior.mean, a.prior.mean_n, a.prior.shape, a.prior.scale]
+                           for a in design.arms])
+        rule = (thresholds(looks.efficacy), thresholds(looks.futility))
+        if self.two_arm:
+            n = np.array(looks.per_arm, dtype=float)
+            nus = [2 * (priors[j, 2] + n[k, j] / 2) for k in range(looks.count)
+                   for j in range(2)]
+            self.arguments: tuple[Any, ...] = (
+                self.sizes.astype(float), n, priors, float(h.sign), float(h.shift), *rule)
+            self.quadrature = student_t.rules(nus)
+        else:
+            n = np.array([per[0] for per in looks.per_arm], dtype=float)
+            self.arguments = (
+                self.sizes[:, 0].astype(float), n, priors[0], float(h.sign),
+                float(h.benchmark), *rule, thresholds(looks.futility_predictive),
+                *predictive_rules(design))
+
+    def draw(self, rng: np.random.Generator, replicates: int) -> tuple[np.ndarray, ...]:
+        """This batch's increment means and sums of squares (the only use of ``rng``)."""
+        return draw_increments(rng, replicates, self.sizes, self.truth, self.sd, True)
+
+    def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
+        return self.run(self.draw(rng, replicates), replicates, True)
+
+    def run(self, data: tuple[np.ndarray, ...], replicates: int, estimate: bool) -> Tally:
+        """The tally of studies with the given increments (see
+        :meth:`octrial.simulation.normal.NormalSimulator.run`)."""
+        means, squares = data
+        efficacy = np.zeros(self.looks, dtype=np.int64)
+        futility = np.zeros(self.looks, dtype=np.int64)
+        sums = np.zeros(3)
+        common = (estimate, self.target, self.tail, DECISION_TOLERANCE)
+        if self.two_arm:
+            covered = two_arm_studies(means, squares, *self.arguments, *common,
+                                      *self.quadrature, efficacy, futility, sums)
+        else:
+            covered = one_arm_studies(means[:, :, 0], squares[:, :, 0], *self.arguments,
+                                      *common, efficacy, futility, sums)
+        if not estimate:
+            return Tally(replicates, efficacy, futility)
+        return Tally(replicates, efficacy, futility, sums, int(covered))
