@@ -14,8 +14,8 @@ design prior, a beta-binomial; for a beta mixture, a mixture of beta-binomials w
 updated weights). Two arms are independent a priori, so the update separates by arm. No
 quadrature and no simulation: exact to rounding.
 
-**Quadrature, otherwise.** Over each mixture component's quantile function, theta = Q(u),
-which turns ∫ f(theta) dPi(theta) into ∫_0^1 f(Q(u)) du, with the engine's
+**Quadrature, where an exact engine applies.** Over each mixture component's quantile
+function, theta = Q(u), which turns ∫ f(theta) dPi(theta) into ∫_0^1 f(Q(u)) du, with the engine's
 Pr(success | theta) at the nodes. One dimension (one arm, or a design prior on the two-arm
 effect, as for normal endpoints with a known sd, whose operating characteristics depend on
 the difference in means only): tanh-sinh quadrature in u (Takahasi & Mori 1974;
@@ -23,6 +23,11 @@ the difference in means only): tanh-sinh quadrature in u (Takahasi & Mori 1974;
 because f(Q(u)) has singular derivatives at u = 0 and 1 where Gauss-Legendre converges
 only algebraically (64 nodes were 2e-6 off for a normal mixture). Two arms: a tensor
 grid of Gauss-Legendre nodes.
+
+**Simulation, otherwise** (a normal endpoint with unknown sd): every simulated study
+draws its own true values from the design prior, then its data
+(:mod:`octrial.simulation.prior_studies`), with ``simulation.replicates`` studies and the
+design's seed; the result carries its Monte Carlo standard error.
 
 The probability that the claim is true is reported beside it, under the analysis prior
 (FDA 2010 guidance on Bayesian device trials asks for the prior probability of the claim)
@@ -33,6 +38,8 @@ from __future__ import annotations
 
 import dataclasses
 import itertools
+import math
+import secrets
 from dataclasses import dataclass
 from typing import Any
 
@@ -41,8 +48,14 @@ import numpy as np
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
+from octrial.engines.monte_carlo import SEED_BITS
+from octrial.errors import InputError
 from octrial.numerics import tanh_sinh
 from octrial.rules.lattice import LatticeRule, build_rule
+from octrial.simulation.prior_studies import (
+    prior_simulation_unsupported,
+    simulate_under_design_prior,
+)
 
 QUADRATURE_NODES = 64
 """Gauss-Legendre nodes per mixture component and arm for the quadrature method over two
@@ -73,9 +86,15 @@ class Assurance:
     stop_efficacy, stop_futility : tuple of float
         Per look, as in ``oc.csv`` (at the last look: success and failure).
     method : str
-        'exact' (predictive dynamic programme) or 'quadrature'.
+        'exact' (predictive dynamic programme), 'quadrature' or 'simulation'.
     design_prior_probability_of_claim : float
         Pr(benefit beyond the benchmark or margin) under the design prior.
+    probability_se, expected_n_se : float
+        Monte Carlo standard errors (0 unless simulated).
+    replicates : int
+        Simulated studies (0 unless simulated).
+    seed : int or None
+        The simulation's seed.
     """
 
     probability: float
@@ -84,17 +103,22 @@ class Assurance:
     stop_futility: tuple[float, ...]
     method: str
     design_prior_probability_of_claim: float
+    probability_se: float = 0.0
+    expected_n_se: float = 0.0
+    replicates: int = 0
+    seed: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """For run.json and calibration.json."""
         return dataclasses.asdict(self)
 
 
-def assurance_record(design: Design, rule: LatticeRule | None = None) -> dict[str, Any] | None:
+def assurance_record(design: Design, rule: LatticeRule | None = None,
+                     settings: Any = None) -> dict[str, Any] | None:
     """Assurance as a record for run.json and calibration.json: ``None`` without design
     priors, ``{'unavailable': reason}`` when the family offers no way to integrate."""
     try:
-        found = assurance(design, rule)
+        found = assurance(design, rule, settings=settings)
     except ValueError as exc:
         return {"unavailable": str(exc)}
     return None if found is None else found.as_dict()
@@ -125,6 +149,7 @@ def design_prior_design(design: Design) -> Design:
 
 def assurance(
     design: Design, rule: LatticeRule | None = None, method: str = "auto",
+    settings: Any = None,
 ) -> Assurance | None:
     """Assurance of ``design`` under its design priors (see module docstring).
 
@@ -133,8 +158,12 @@ def assurance(
     design : Design
     rule : LatticeRule, optional
         The design's lattice rule, when already built.
-    method : {'auto', 'exact', 'quadrature'}
-        'auto' uses the exact method on a count lattice and quadrature otherwise.
+    method : {'auto', 'exact', 'quadrature', 'simulation'}
+        'auto' uses the exact method on a count lattice, quadrature where an exact engine
+        gives Pr(success | truth), and simulation otherwise.
+    settings : MonteCarloSettings, optional
+        Simulation only: replicates and seed (default: the design's ``[simulation]``;
+        a seed is drawn and recorded when neither gives one).
 
     Returns
     -------
@@ -155,12 +184,44 @@ def assurance(
             rule = build_rule(design, truths=reach)
         eff, fut = _predictive_programme(design, generating, rule)
         method_used = "exact"
+    elif method == "simulation" or (method == "auto" and not _exact_engine(design)):
+        return _simulated(design, settings, claim)
     else:
         eff, fut = _quadrature(design, generating)
         method_used = "quadrature"
     n = np.asarray(design.looks.n, dtype=float)
     return Assurance(float(eff.sum()), float((eff + fut) @ n), tuple(map(float, eff)),
                      tuple(map(float, fut)), method_used, claim)
+
+
+def _exact_engine(design: Design) -> bool:
+    try:
+        choose(design, "exact")
+    except InputError:
+        return False
+    return True
+
+
+def _simulated(design: Design, settings: Any, claim: float) -> Assurance:
+    reason = prior_simulation_unsupported(design)
+    if reason is not None:
+        raise ValueError(f"no assurance by simulation: {reason}")
+    simulation = design.simulation
+    replicates = getattr(settings, "replicates", None) or simulation.replicates
+    seed = getattr(settings, "seed", None)
+    seed = simulation.seed if seed is None else seed
+    if seed is None:
+        seed = secrets.randbits(SEED_BITS)
+    tally = simulate_under_design_prior(design, replicates, seed)
+    eff, fut = tally.efficacy / replicates, tally.futility / replicates
+    n = np.asarray(design.looks.n, dtype=float)
+    stop = eff + fut
+    expected_n = float(stop @ n)
+    sd_n = math.sqrt(max(float(stop @ n**2) - expected_n**2, 0.0))
+    p = float(eff.sum())
+    return Assurance(p, expected_n, tuple(map(float, eff)), tuple(map(float, fut)),
+                     "simulation", claim, math.sqrt(p * (1 - p) / replicates),
+                     sd_n / math.sqrt(replicates), int(replicates), int(seed))
 
 
 def _predictive_programme(

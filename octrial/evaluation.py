@@ -97,7 +97,7 @@ def compute(
         "type1": type1_summary(oc),
         "prior_probability_of_claim": design.family.prior_probability_of_claim(design),
         "prior_effective_sample_size": design.family.effective_sample_size(design),
-        "assurance": assurance_record(design, rule),
+        "assurance": assurance_record(design, rule, settings),
         "scenarios_dropped": design.scenarios.dropped,
     }
     notes = list(dict.fromkeys(str(w.message) for w in caught

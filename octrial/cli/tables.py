@@ -50,8 +50,10 @@ def assurance_line(info: dict[str, Any]) -> str:
         parts.append(f"Prior probability of the claim (analysis prior): {claim:.4f}.")
     found = info.get("assurance")
     if found and "probability" in found:
+        se = (f" (simulated, SE {found['probability_se']:.4f} from "
+              f"{found['replicates']:,} studies)" if found.get("replicates") else "")
         parts.append(f"Assurance (probability of success under the design prior): "
-                     f"{found['probability']:.4f}, expected N {found['expected_n']:.2f}; "
+                     f"{found['probability']:.4f}{se}, expected N {found['expected_n']:.2f}; "
                      f"Pr(claim true) under the design prior "
                      f"{found['design_prior_probability_of_claim']:.4f}.")
     return " ".join(parts)

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import special, stats
+from scipy import integrate, special, stats
 
 from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints.base import Family
@@ -303,12 +303,19 @@ class NormalFamily(Family):
                 return None
             w, m, p = benefit_components(prior, h.sign)
             return float(np.sum(w * special.ndtr((m - self.claim_value(design)) * np.sqrt(p))))
-        if design.two_arm or design.arms[0].prior is None:
+        if any(arm.prior is None for arm in design.arms):
             return None
-        nig = design.arms[0].prior
-        scale = math.sqrt(nig.scale / (nig.shape * nig.mean_n))
-        t = stats.t(2 * nig.shape, nig.mean, scale)
-        return float(t.sf(h.benchmark) if h.better == "higher" else t.cdf(h.benchmark))
+        marginals = [stats.t(2 * nig.shape, nig.mean,
+                             math.sqrt(nig.scale / (nig.shape * nig.mean_n)))
+                     for nig in (arm.prior for arm in design.arms)]
+        if not design.two_arm:
+            t = marginals[0]
+            return float(t.sf(h.benchmark) if h.better == "higher" else t.cdf(h.benchmark))
+        # Pr(sign (mu_T - mu_C) > shift) for independent t marginals (Behrens-Fisher)
+        better, worse = marginals if h.sign > 0 else marginals[::-1]
+        value = integrate.quad(lambda u: worse.pdf(u) * better.sf(u + h.shift), -np.inf,
+                               np.inf, epsabs=1e-12, limit=200)[0]
+        return float(min(max(value, 0.0), 1.0))
 
     def effective_sample_size(self, design: Any) -> dict[str, Any] | None:
         if not design.endpoint.known_sd:

@@ -31,7 +31,8 @@ DATA_MODEL = {
              "subjects (unless the design states a negative binomial model).",
     "normal": "Each subject's outcome is normally distributed around the arm's true mean, "
               "independently of other subjects, with the standard deviation stated in the "
-              "design.",
+              "design (when the analysis treats the sd as unknown, the stated true sd "
+              "generates every scenario's data and the analysis estimates it).",
 }
 """The data model behind each endpoint family, in one sentence."""
 

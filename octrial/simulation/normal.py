@@ -220,6 +220,30 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
     return covered
 
 
+def design_prior_draws(design: Design, rng: np.random.Generator,
+                       replicates: int) -> tuple[np.ndarray, np.ndarray]:
+    """True (mean, sd) per study and arm, shape (replicates, arms), drawn from the arms'
+    design priors: normal-inverse-gamma, sigma^2 = scale / Gamma(shape) then
+    mu ~ N(mean, sigma^2 / mean_n) (the sd varies between studies); a normal mixture
+    (known sd), a component then a normal draw."""
+    from octrial.endpoints.normal import NormalInverseGamma
+
+    means, sds = [], []
+    for arm in design.arms:
+        prior = arm.design_prior
+        if isinstance(prior, NormalInverseGamma):
+            variance = prior.scale / rng.standard_gamma(prior.shape, replicates)
+            means.append(prior.mean + np.sqrt(variance / prior.mean_n)
+                         * rng.standard_normal(replicates))
+            sds.append(np.sqrt(variance))
+        else:
+            component = rng.choice(len(prior.weights), size=replicates, p=prior.weights)
+            means.append(np.asarray(prior.mean)[component] + np.asarray(prior.sd)[component]
+                         * rng.standard_normal(replicates))
+            sds.append(np.full(replicates, float(design.endpoint.sd)))
+    return np.column_stack(means), np.column_stack(sds)
+
+
 def thresholds(values: tuple[float | None, ...]) -> np.ndarray:
     """Per-look thresholds with NaN where a look has none."""
     return np.array([np.nan if v is None else v for v in values], dtype=float)
@@ -282,9 +306,13 @@ class NormalSimulator(Simulator):
         self.target = float(family.target_value(h, tuple(truth)))
         self.tail = (1.0 - level) / 2.0
 
-    def draw(self, rng: np.random.Generator, replicates: int) -> tuple[np.ndarray, ...]:
-        """This batch's increments (the only use of ``rng``)."""
-        return draw_increments(rng, replicates, self.sizes, self.truth, self.sd, False)[:1]
+    def draw(self, rng: np.random.Generator, replicates: int, mean: np.ndarray | None = None,
+             sd: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+        """This batch's increments (the only use of ``rng``), at the scenario's truth or
+        at per-study true ``mean`` and ``sd`` of shape (replicates, arms)."""
+        mean = self.truth if mean is None else mean
+        sd = self.sd if sd is None else sd
+        return draw_increments(rng, replicates, self.sizes, mean, sd, False)[:1]
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         return self.run(self.draw(rng, replicates), replicates, True)

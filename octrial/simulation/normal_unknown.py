@@ -368,9 +368,13 @@ class UnknownSdSimulator(Simulator):
                 float(h.benchmark), *rule, thresholds(looks.futility_predictive),
                 *predictive_rules(design))
 
-    def draw(self, rng: np.random.Generator, replicates: int) -> tuple[np.ndarray, ...]:
-        """This batch's increment means and sums of squares (the only use of ``rng``)."""
-        return draw_increments(rng, replicates, self.sizes, self.truth, self.sd, True)
+    def draw(self, rng: np.random.Generator, replicates: int, mean: np.ndarray | None = None,
+             sd: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+        """This batch's increment means and sums of squares (the only use of ``rng``); see
+        :meth:`octrial.simulation.normal.NormalSimulator.draw`."""
+        mean = self.truth if mean is None else mean
+        sd = self.sd if sd is None else sd
+        return draw_increments(rng, replicates, self.sizes, mean, sd, True)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         return self.run(self.draw(rng, replicates), replicates, True)
