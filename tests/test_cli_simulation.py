@@ -44,6 +44,27 @@ def test_identical_tables_for_any_jobs_and_backend(runner, tmp_path) -> None:
         assert record["seed"] == 20261201
 
 
+@pytest.mark.parametrize("name", ["single-arm-mean-change", "single-arm-event-rate",
+                                  "two-arm-continuous-score"])
+def test_identical_tables_for_any_jobs_on_count_and_normal_designs(runner, tmp_path,
+                                                                    name) -> None:
+    # The general normal kernels (unknown and known sd) and the count table kernel:
+    # the same bytes with one and two worker processes.
+    text = (DESIGNS / f"{name}.toml").read_text()
+    path = tmp_path / f"{name}.toml"
+    path.write_text(text.replace("replicates = 20000", "replicates = 3000")
+                    + ("" if "replicates" in text else "replicates = 3000\n"))
+    tables = []
+    for jobs in ("1", "2"):
+        out = tmp_path / f"jobs{jobs}"
+        run(runner, str(path), "--method", "monte-carlo", "--quiet", "--jobs", jobs, "--out",
+            str(out))
+        tables.append((out / "oc.csv").read_bytes())
+        assert json.loads((out / "run.json").read_text())["seed"] is not None
+    assert tables[0] == tables[1]
+    assert b"monte-carlo" in tables[0]
+
+
 def resumable_design(tmp_path):
     text = DEMO.read_text().replace("replicates = 20000", "replicates = 3000000")
     path = tmp_path / "long.toml"

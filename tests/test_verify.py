@@ -359,3 +359,34 @@ def test_count_rule_design_claims(tmp_path) -> None:
     rows = [{"true_treatment": t, "metric": "prob_success", "claimed": f"{p:.3f}"}
             for t, p in zip(oc["true_treatment"], oc["prob_success"], strict=True)]
     assert verify(design, read_claims(claims_file(tmp_path, rows), design)).discrepant == 0
+
+
+def test_unknown_sd_design_is_verified_by_simulation(runner, tmp_path) -> None:
+    # No exact engine exists for an unknown sd, so `octrial verify` recomputes by Monte
+    # Carlo (the general normal kernel). Claims: an honest simulation with another seed
+    # (consistent), and one claimed type I error half the true one (discrepant).
+    from octrial.engines import MonteCarloSettings
+
+    path = DESIGNS / "single-arm-mean-change.toml"
+    design = load_design(path)
+    at = replace(design, scenarios=Scenarios(design.scenarios.arms, ((2.0,), (5.0,))))
+    oc = octrial.evaluate(at, settings=MonteCarloSettings(replicates=20_000, seed=1))
+    rows = [{"true_treatment": t, "metric": metric, "claimed": f"{oc.loc[i, metric]:.4f}",
+             "replicates": 20_000}
+            for i, t in enumerate((2.0, 5.0))
+            for metric in ("prob_success", "prob_stop_futility", "expected_n")]
+    rows.append({"true_treatment": 2.0, "metric": "prob_success",
+                 "claimed": f"{oc.loc[0, 'prob_success'] / 2:.4f}", "replicates": 20_000,
+                 "note": "halved"})
+    claims = claims_file(tmp_path, rows)
+    out = tmp_path / "out"
+    result = runner.invoke(main, ["verify", str(path), str(claims), "--out", str(out),
+                                  "--replicates", "40000", "--seed", "99"])
+    assert result.exit_code == 1, result.output
+    table = pd.read_csv(out / "verify.csv")
+    assert (table["recomputed_method"] == "monte-carlo").all()
+    assert (table["recomputed_replicates"] == 40_000).all()
+    assert table.loc[table["verdict"] == "discrepant", "note"].tolist() == ["halved"]
+    record = json.loads((out / "verify.json").read_text())
+    assert record["engine"] == "monte-carlo" and record["seed"] == 99
+    assert record["replicates"] == 40_000

@@ -3,9 +3,14 @@
 Two evaluators share one interface:
 
 * :class:`EngineEvaluator` runs whatever engine :func:`octrial.engines.choose` picks for
-  the design (an exact engine, or Monte Carlo, which gets the same seed for every
-  candidate, so candidates are compared on common random numbers). Thresholds are then
-  searched as continuous values.
+  the design (an exact engine, or Monte Carlo). Thresholds are then searched as
+  continuous values. Monte Carlo gets one seed for every candidate (the design's, or one
+  drawn once and recorded), so every candidate is evaluated on the same simulated
+  studies (common random numbers): the kernels draw every study's data before and
+  independently of the rule, so a study that succeeds under a stricter threshold
+  succeeds under a looser one, and the estimated probability of success is monotone in
+  each threshold, as the bisection needs, rather than monotone only up to Monte Carlo
+  noise.
 * :class:`LatticeEvaluator` is the fast path for endpoints with a count lattice: the
   posterior tables are computed once per look size and reused by every candidate
   (:class:`~octrial.rules.lattice.LatticeCache`), all true values go through one batched
@@ -18,6 +23,7 @@ Two evaluators share one interface:
 
 from __future__ import annotations
 
+import secrets
 from dataclasses import dataclass
 
 import numpy as np
@@ -28,6 +34,7 @@ from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.lattice_batch import IncrementTables, run_batch
+from octrial.engines.monte_carlo import SEED_BITS, MonteCarloEngine, MonteCarloSettings
 from octrial.results import proportion_se
 from octrial.rules.lattice import DECISION_TOLERANCE, LatticeCache, build_rule
 
@@ -130,16 +137,34 @@ class Evaluator:
 
 
 class EngineEvaluator(Evaluator):
-    """Any engine, through its ``run`` method (see module docstring)."""
+    """Any engine, through its ``run`` method (see module docstring).
+
+    Attributes
+    ----------
+    seed : int or None
+        Monte Carlo only: the one seed every candidate is simulated with.
+    replicates : int or None
+        Monte Carlo only: studies per true value and candidate.
+    """
 
     def __init__(self, truths: Truths, method: str | None = None) -> None:
         super().__init__(truths)
         self.method = method
         self.exact = method not in ("monte-carlo",)
+        self.seed: int | None = None
+        self.replicates: int | None = None
 
     def assess(self, design: Design) -> Assessment:
         engine = choose(design, self.method)
-        outcome = engine.run(design, self.truths.values)
+        if engine is MonteCarloEngine:
+            if self.seed is None:
+                seed = design.simulation.seed
+                self.seed = secrets.randbits(SEED_BITS) if seed is None else seed
+            self.replicates = design.simulation.replicates
+            outcome = engine.run(design, self.truths.values,
+                                 settings=MonteCarloSettings(seed=self.seed))
+        else:
+            outcome = engine.run(design, self.truths.values)
         self.evaluations += 1
         self.exact = outcome.method == "exact"
         stop = outcome.efficacy + outcome.futility

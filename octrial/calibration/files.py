@@ -89,13 +89,18 @@ def summary_lines(cal: Calibration) -> list[str]:
     claim = s.get("prior_probability_of_claim")
     if s.get("assurance") and "probability" in s["assurance"]:
         a = s["assurance"]
-        out.append(f"  assurance (design prior): {a['probability']:.4f}; expected N "
+        se = f" (se {a['probability_se']:.4f})" if a.get("replicates") else ""
+        out.append(f"  assurance (design prior): {a['probability']:.4f}{se}; expected N "
                    f"{a['expected_n']:.2f}; Pr(claim true) under the design prior "
                    f"{a['design_prior_probability_of_claim']:.4f}")
     if claim is not None:
         out.append(f"  prior probability of the claim (analysis prior): {claim:.4f}")
     out.append(f"  candidates examined: {s['candidates']} ({s['method']}; "
                f"{s['evaluations']} evaluations)")
+    if s.get("simulation"):
+        z = s["simulation"]
+        out.append(f"  simulation: {z['replicates']:,} studies per true value, seed "
+                   f"{z['seed']}, the same studies for every candidate")
     for note in s["notes"]:
         out.append(f"  note: {note}")
     return out

@@ -30,6 +30,9 @@ from octrial.design.model import Design
 
 CONTINUOUS_TOLERANCE = 1e-10
 """Bisection on a continuous threshold stops when the bracket is this narrow."""
+MONTE_CARLO_TOLERANCE = 1e-6
+"""... this narrow when the evaluator simulates: a threshold moved by 1e-6 moves a
+probability of success by far less than its Monte Carlo standard error."""
 MAX_BISECTIONS = 80
 
 
@@ -195,8 +198,9 @@ class Tuner:
             value = least
         else:
             bad, good = least, most
+            tolerance = CONTINUOUS_TOLERANCE if self.ev.exact else MONTE_CARLO_TOLERANCE
             for _ in range(MAX_BISECTIONS):
-                if abs(good - bad) <= CONTINUOUS_TOLERANCE:
+                if abs(good - bad) <= tolerance:
                     break
                 mid = 0.5 * (bad + good)
                 if ok(mid):
