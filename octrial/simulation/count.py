@@ -53,7 +53,7 @@ def unsupported(design: Design) -> str | None:
     return None
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def posterior(weights, a, b, x, t, w, a_post, b_post):
     """Gamma-mixture posterior after x events in exposure t, into (w, a_post, b_post)."""
     top = -np.inf
@@ -71,7 +71,7 @@ def posterior(weights, a, b, x, t, w, a_post, b_post):
         w[j] /= total
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def rate_cdf(w, a_post, b_post, value, upper):
     """Pr(lambda <= value) (or > value when ``upper``) under the posterior mixture."""
     total = 0.0
@@ -81,7 +81,7 @@ def rate_cdf(w, a_post, b_post, value, upper):
     return total
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def benefit(weights, a, b, x, t, benchmark, lower, w, a_post, b_post):
     """B = Pr(lambda < benchmark | x events in exposure t) (> when higher is better)."""
     posterior(weights, a, b, x, t, w, a_post, b_post)
@@ -120,7 +120,7 @@ def final_bound(weights, a, b, t, benchmark, lower, target):
     return lo if lower else hi
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def predictive(w, a_post, b_post, x, t_more, bound, lower):
     """Pr(final success) from x events now with exposure t_more still to come (module
     docstring); the posterior (w, a_post, b_post) already computed."""
@@ -187,7 +187,7 @@ def one_arm_studies(words, n, exposure, weights, a, b, benchmark, lower, efficac
     return covered
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def ratio_below(wt, at, bt, wc, ac, bc, c, upper):
     """Pr(lambda_T / lambda_C < c) (or > c when ``upper``) by the Beta identity."""
     total = 0.0

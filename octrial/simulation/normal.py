@@ -87,30 +87,31 @@ def draw_increments(
     return means, sd**2 * chi2
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def posterior(s, info, weights, means, precisions, w, m, p):
     """Normal-mixture posterior of eta after score ``s`` with information ``info``, into
     (w, m, p): weights, means, precisions."""
-    top = -np.inf
     for j in range(weights.size):
         p[j] = precisions[j] + info
         m[j] = (means[j] * precisions[j] + s) / p[j]
-        if weights.size == 1:
-            w[j] = 0.0
-            continue
+    if weights.size == 1:
+        w[0] = 1.0
+        return
+    top = -np.inf
+    for j in range(weights.size):
         var = info + info * info / precisions[j]
         z = s - info * means[j]
         w[j] = math.log(weights[j]) - 0.5 * z * z / var - 0.5 * math.log(var)
         top = max(top, w[j])
     total = 0.0
     for j in range(weights.size):
-        w[j] = math.exp(w[j] - top) if weights.size > 1 else 1.0
+        w[j] = math.exp(w[j] - top)
         total += w[j]
     for j in range(weights.size):
         w[j] /= total
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def benefit(s, info, claim, weights, means, precisions, w, m, p):
     """B = Pr(eta > claim | score s)."""
     posterior(s, info, weights, means, precisions, w, m, p)
@@ -120,7 +121,7 @@ def benefit(s, info, claim, weights, means, precisions, w, m, p):
     return total
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def predictive(s, d, final_upper, w, m, p):
     """Pr(S_K >= final_upper | score s now), the posterior (w, m, p) already computed, with
     d = I_K - I_k information still to come."""

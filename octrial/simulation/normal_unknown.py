@@ -180,7 +180,7 @@ def success_mass(d, big_b, g, h, a, c, scale, nu):
     return min(total, 1.0)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def predictive(d, b_n, constants, nodes, weights):
     """PP from the posterior's (D, b_n) and the look's constants (g, h, A, c, nu of delta,
     (1/k_n + 1/m) / (a_n + (m - 1)/2)) with its Gauss-Jacobi nodes and weights in u."""
