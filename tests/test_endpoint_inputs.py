@@ -163,20 +163,31 @@ def test_accepted_forms() -> None:
     assert (prior.mean_n, prior.shape) == (6.0, 4.5) and prior.mean == pytest.approx(5 / 6)
 
 
-def test_unknown_sd_needs_the_monte_carlo_engine(tmp_path) -> None:
+def test_unknown_sd_is_simulated_and_exact_is_refused_clearly(tmp_path) -> None:
     design = build(NORMAL_ONE_ARM, endpoint=UNKNOWN_SD, arms__treatment__prior=NIG)
-    from octrial.simulation import GENERAL_KERNELS
-    if "normal" in GENERAL_KERNELS:
-        pytest.skip("a Monte Carlo kernel for normal endpoints exists")
-    with pytest.raises(InputError, match="needs the Monte Carlo engine") as info:
-        compute(design)
-    assert "monte-carlo: no general simulation kernel for normal endpoints" in str(info.value)
+    with pytest.raises(InputError, match="needs the Monte Carlo engine"):
+        compute(design, "exact")
     path = tmp_path / "unknown.toml"
     path.write_text(UNKNOWN_TOML)
-    result = CliRunner().invoke(main, ["run", str(path), "--out", str(tmp_path / "out")])
+    runner = CliRunner()
+    result = runner.invoke(main, ["run", str(path), "--out", str(tmp_path / "out"),
+                                  "--method", "exact"])
     assert result.exit_code == 2
     assert "simulation.method" in result.output and "Monte Carlo engine" in result.output
     assert not (tmp_path / "out").exists()
+    result = runner.invoke(main, ["run", str(path), "--out", str(tmp_path / "auto")])
+    assert result.exit_code == 0, result.output
+    assert "monte-carlo" in (tmp_path / "auto" / "oc.csv").read_text()
+
+
+def test_two_arm_unknown_sd_predictive_futility_is_refused_clearly() -> None:
+    design = build(NORMAL_ONE_ARM, endpoint=UNKNOWN_SD, arms={
+        "treatment": {"prior": NIG}, "control": {"prior": NIG}},
+        hypothesis={"comparison": "difference", "margin": 0.0},
+        looks={"n": [40, 80], "efficacy": [0.99, 0.975], "futility_predictive": 0.1},
+        scenarios={"control": [0.0], "effect": [0.0]})
+    with pytest.raises(InputError, match="predictive futility for two arms with unknown sd"):
+        compute(design)
 
 
 UNKNOWN_TOML = """

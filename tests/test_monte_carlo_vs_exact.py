@@ -73,6 +73,11 @@ def _designs() -> dict:
                                         looks__n=[30, 60]),
         "simon-counts": lambda: count_design(simon[0], simon[1], *simon[5:9]),
         "simon-posterior": lambda: bayesian_design(simon[0], simon[1], *simon[5:9]),
+        # a posterior on a grid (logit-normal prior): the table kernel reads the grid's tables
+        "one-arm-logit-normal": lambda: build(
+            ONE_ARM, arms__treatment__prior={"distribution": "logit-normal",
+                                             "logit_mean": -1.0, "logit_sd": 1.5},
+            looks__futility_predictive=0.1, scenarios__treatment=[0.2, 0.35]),
         # count endpoints (table kernel on the truncated lattice)
         "demo-event-rate": lambda: load_design(DESIGNS / "single-arm-event-rate.toml"),
         "count-one-arm-predictive": lambda: build(
