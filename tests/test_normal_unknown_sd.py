@@ -338,3 +338,38 @@ def test_assurance_by_simulation_approaches_the_known_sd_quadrature() -> None:
     assert abs(simulated.expected_n - quadrature.expected_n) <= 4 * simulated.expected_n_se
     assert simulated.probability_se == pytest.approx(math.sqrt(
         simulated.probability * (1 - simulated.probability) / REPLICATES))
+
+
+def test_kernel_maths_equal_the_scipy_reference_of_octrial_decide() -> None:
+    # octrial/endpoints/unknown_sd.py (used by `octrial decide`) was derived separately
+    # (its one-arm PP integrates over the final mean with an inner incomplete beta; the
+    # kernel's over a beta variable of the future spread with an inner t probability) and
+    # uses scipy throughout. Both must give the same B, two-arm B and PP.
+    from octrial.endpoints import unknown_sd as reference
+    from octrial.simulation import student_t
+
+    rng = np.random.default_rng(17)
+    dofs = [2 * (2.0 + n / 2) for n in (10, 40)] + [2 * (3.0 + n / 2) for n in (10, 40)]
+    packed = student_t.rules(dofs)
+    for _ in range(40):
+        n = int(rng.choice([10, 40]))
+        xbar, s = rng.normal(0.3, 1.0), float(np.exp(rng.normal(0.5, 0.4)))
+        post = reference.update(0.0, 1.0, 2.0, 8.0, n=n, ybar=xbar, sd=s)
+        m_n, k_n, a_n, b_n = nu.update(0.0, 1.0, 2.0, 8.0, n, xbar * n, (n - 1) * s**2)
+        scale = math.sqrt(b_n / (a_n * k_n))
+        assert student_t_pair((m_n - 0.1) / scale, 2 * a_n)[0] == pytest.approx(
+            reference.benefit_one_arm(post, 0.1), abs=1e-12)
+        other = reference.update(0.5, 2.0, 3.0, 6.0, n=n, ybar=xbar - 0.4, sd=s * 1.3)
+        rx, ry = (0 if n == 10 else 1), (2 if n == 10 else 3)
+        value = student_t.prob_difference_exceeds(
+            post.mean, post.t_scale, post.df, rx, other.mean, other.t_scale, other.df, ry,
+            0.2, *packed)
+        assert value == pytest.approx(reference.benefit_two_arms(post, other, 0.2), abs=1e-11)
+    for state in STATES:
+        (m0, k0, a0, b0), n, big_n, gamma, better, xbar, s = state
+        inputs, _ = predictive_inputs(state)
+        sign = 1.0 if better == "higher" else -1.0
+        post = reference.update(sign * m0, k0, a0, b0, n=n, ybar=sign * xbar, sd=s)
+        expected = reference.predictive_one_arm(post, big_n - n, 0.0,
+                                                gamma - DECISION_TOLERANCE)
+        assert nu.predictive(*inputs) == pytest.approx(expected, abs=1e-7), state
