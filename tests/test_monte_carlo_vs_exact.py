@@ -179,3 +179,25 @@ def test_look_columns_and_identities_hold_for_simulation() -> None:
     np.testing.assert_allclose(
         mc["prob_success"], mc[[c for c in looks if c.endswith("efficacy")]].sum(axis=1),
         atol=1e-12)
+
+
+@pytest.mark.parametrize("arms", ["one arm", "one arm, lower better", "two arms"])
+def test_normal_summaries_under_a_flat_prior_are_the_frequentist_ones(arms: str) -> None:
+    # Identity: with a flat prior and one look the posterior mean is the estimate (sample
+    # mean or difference), unbiased with RMSE = its standard error, and the equal-tailed
+    # 95% credible interval is the 95% confidence interval, so coverage is 0.95 exactly.
+    # The exact recursion reports no such summaries, so this is their check.
+    if arms.startswith("one arm"):
+        better = "lower" if arms.endswith("better") else "higher"
+        design = build(NORMAL_ONE_ARM, endpoint__better=better,
+                       looks={"n": [40], "efficacy": 0.975}, scenarios__treatment=[0.0, 0.3])
+        se = 1.0 / np.sqrt(40)
+    else:
+        design = build(NORMAL_TWO_ARM, arms__treatment__allocation=2,
+                       looks={"n": [90], "efficacy": 0.975},
+                       scenarios={"control": [10.0], "effect": [0.0, 4.0]})
+        se = 12.0 * np.sqrt(1 / 60 + 1 / 30)
+    oc = compute(design, "monte-carlo", MonteCarloSettings(replicates=REPLICATES, seed=9)).oc
+    assert (np.abs(oc["bias"] / oc["bias_se"]) <= 4).all()
+    assert (np.abs(oc["rmse"] - se) <= 4 * oc["rmse_se"]).all()
+    assert (np.abs(oc["coverage"] - 0.95) <= 4 * np.sqrt(0.95 * 0.05 / REPLICATES)).all()
