@@ -73,18 +73,22 @@ def nig(mean: float, mean_n: float, shape: float, scale: float) -> dict:
 
 
 def run_kernel(means: np.ndarray, squares: np.ndarray, n: list[int], prior: tuple,
-               efficacy: list[float], sign: float = 1.0, benchmark: float = 0.0) -> np.ndarray:
-    """One-arm kernel on given increment statistics (studies, looks); efficacy stops."""
+               efficacy: list[float], sign: float = 1.0, benchmark: float = 0.0,
+               truth: float = 0.0) -> tuple[np.ndarray, np.ndarray, int]:
+    """One-arm kernel on given increment statistics (studies, looks): efficacy stops, the
+    sums of the posterior mean's error powers and the covered count (95% intervals)."""
     looks = len(n)
     sizes = np.diff(np.array(n, dtype=float), prepend=0.0)
     stops_e, stops_f = np.zeros(looks, dtype=np.int64), np.zeros(looks, dtype=np.int64)
     none = np.full(looks, np.nan)
-    nu.one_arm_studies(means, squares, sizes, np.array(n, dtype=float),
-                       np.array(prior, dtype=float), sign, benchmark,
-                       np.array(efficacy, dtype=float), none, none, np.zeros((looks, 6)),
-                       np.zeros((looks, 16)), np.zeros((looks, 16)), False, 0.0, 0.025,
-                       DECISION_TOLERANCE, stops_e, stops_f, np.zeros(3))
-    return stops_e
+    sums = np.zeros(3)
+    covered = nu.one_arm_studies(means, squares, sizes, np.array(n, dtype=float),
+                                 np.array(prior, dtype=float), sign, benchmark,
+                                 np.array(efficacy, dtype=float), none, none,
+                                 np.zeros((looks, 6)), np.zeros((looks, 16)),
+                                 np.zeros((looks, 16)), True, truth, 0.025,
+                                 DECISION_TOLERANCE, stops_e, stops_f, sums)
+    return stops_e, sums, int(covered)
 
 
 @pytest.mark.parametrize("better", ["higher", "lower"])
@@ -92,7 +96,7 @@ def test_reference_prior_single_look_is_the_one_sample_t_test(better: str) -> No
     rng = np.random.default_rng(11)
     n, mu0, gamma = 25, 1.0, 0.95
     sign = 1.0 if better == "higher" else -1.0
-    x = rng.normal(mu0 + 0.3 * sign, 1.7, (4000, n))
+    x = rng.normal(mu0 + 0.3 * sign, 1.7, (4000, n))  # truth mu0 + 0.3 sign
     mean = x.mean(axis=1)
     squares = ((x - mean[:, None]) ** 2).sum(axis=1)
     alternative = "greater" if better == "higher" else "less"
@@ -103,8 +107,14 @@ def test_reference_prior_single_look_is_the_one_sample_t_test(better: str) -> No
         m_n, k_n, a_n, b_n = nu.update(*reference, n, mean[i] * n, squares[i])
         b[i] = student_t_pair(sign * (m_n - mu0) / math.sqrt(b_n / (a_n * k_n)), 2 * a_n)[0]
     np.testing.assert_allclose(b, 1 - p, rtol=0, atol=1e-12)
-    stops = run_kernel(mean[:, None], squares[:, None], [n], reference, [gamma], sign, mu0)
+    truth = mu0 + 0.3 * sign
+    stops, sums, covered = run_kernel(mean[:, None], squares[:, None], [n], reference,
+                                      [gamma], sign, mu0, truth)
     assert stops[0] == np.sum(p <= 1 - gamma) > 100
+    # the 95% credible interval is the t confidence interval: the same studies cover
+    half = stats.t.ppf(0.975, n - 1) * np.sqrt(squares / (n - 1) / n)
+    assert covered == np.sum(np.abs(mean - truth) <= half)
+    assert sums[0] == pytest.approx(np.sum(mean - truth), rel=1e-9)
 
 
 def known_sd_twin(design_dict: dict, two_arm: bool) -> dict:
