@@ -175,7 +175,10 @@ def one_arm_studies(words, n, exposure, weights, a, b, benchmark, lower, efficac
                 fut = not eff
             if not (eff or fut):
                 continue
-            (stops_efficacy if eff else stops_futility)[k] += 1
+            if eff:
+                stops_efficacy[k] += 1
+            else:
+                stops_futility[k] += 1
             if has_prior:
                 posterior(weights, a, b, x, t, w, ap, bp)
                 mean = 0.0

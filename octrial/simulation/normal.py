@@ -179,15 +179,21 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                      truth, tail, tol, stops_efficacy, stops_futility, sums):
     """Simulate known-sd studies from their increment means (studies, looks, arms); add
     stops per look and error sums; return the covered count. Thresholds are NaN where a
-    look has none; ``truth`` is the true target (mean, or difference in means)."""
+    look has none; ``truth`` is the true target (mean, or difference in means).
+
+    A one-component prior (normal or flat) is computed with scalars: passing the
+    component arrays to a helper costs more than its arithmetic (reference counting)."""
     n_studies, n_looks, n_arms = means.shape
     size = weights.size
+    single = size == 1
+    m0, p0 = prior_means[0], precisions[0]
     w, m, p = np.empty(size), np.empty(size), np.empty(size)
     total = np.zeros(n_arms)
     last = n_looks - 1
     covered = 0
     for r in range(n_studies):
-        total[:] = 0.0
+        for j in range(n_arms):
+            total[j] = 0.0
         for k in range(n_looks):
             for j in range(n_arms):
                 total[j] += sizes[k, j] * means[r, k, j]
@@ -195,18 +201,35 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
             if n_arms == 2:
                 estimate -= total[1] / n[k, 1]
             s = sign * info[k] * estimate
-            b = benefit(s, info[k], claim, weights, prior_means, precisions, w, m, p)
+            if single:
+                big_p = p0 + info[k]
+                big_m = (m0 * p0 + s) / big_p
+                b = normal_sf((claim - big_m) * math.sqrt(big_p))
+            else:
+                b = benefit(s, info[k], claim, weights, prior_means, precisions, w, m, p)
             eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
             fut = not math.isnan(futility[k]) and b < futility[k] - tol
             if k < last and not eff and not fut and not math.isnan(predictive_threshold[k]):
-                pp = predictive(s, info[last] - info[k], final_upper, w, m, p)
+                d = info[last] - info[k]
+                if not single:
+                    pp = predictive(s, d, final_upper, w, m, p)
+                elif math.isinf(final_upper):
+                    pp = 0.0 if final_upper > 0 else 1.0
+                else:
+                    pp = normal_sf((final_upper - s - big_m * d)
+                                   / math.sqrt(d + d * d / big_p))
                 fut = pp < predictive_threshold[k] - tol
             if k == last:
                 fut = not eff
             if not (eff or fut):
                 continue
-            (stops_efficacy if eff else stops_futility)[k] += 1
+            if eff:
+                stops_efficacy[k] += 1
+            else:
+                stops_futility[k] += 1
             if has_estimate:
+                if single:
+                    w[0], m[0], p[0] = 1.0, big_m, big_p
                 mean = 0.0
                 cdf = 0.0
                 for j in range(size):
@@ -219,6 +242,11 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 covered += add_estimate(sign * mean - truth, cdf, tail, sums)
             break
     return covered
+
+
+def thresholds(values: tuple[float | None, ...]) -> np.ndarray:
+    """Per-look thresholds with NaN where a look has none."""
+    return np.array([np.nan if v is None else v for v in values], dtype=float)
 
 
 def design_prior_draws(design: Design, rng: np.random.Generator,
@@ -243,11 +271,6 @@ def design_prior_draws(design: Design, rng: np.random.Generator,
                          * rng.standard_normal(replicates))
             sds.append(np.full(replicates, float(design.endpoint.sd)))
     return np.column_stack(means), np.column_stack(sds)
-
-
-def thresholds(values: tuple[float | None, ...]) -> np.ndarray:
-    """Per-look thresholds with NaN where a look has none."""
-    return np.array([np.nan if v is None else v for v in values], dtype=float)
 
 
 def unsupported(design: Design) -> str | None:
