@@ -343,7 +343,6 @@ class UnknownSdSimulator(Simulator):
     def __init__(self, design: Design, truth: tuple[float, ...], level: float) -> None:
         h = design.hypothesis
         looks = design.looks
-        self.design = design
         self.looks = looks.count
         self.two_arm = design.two_arm
         self.sizes = increment_sizes(design)
