@@ -34,6 +34,8 @@ NIG = {"distribution": "normal-inverse-gamma", "mean": 0.0, "mean_n": 1.0, "shap
 
 # (base design, changes, the key the message must name, words it must contain)
 BAD = [
+    (NORMAL_ONE_ARM, {"looks": {"n": [100], "efficacy_count": [60]}}, "looks.efficacy_count",
+     "an endpoint whose data are counts"),
     (COUNT_ONE_ARM, {"endpoint__exposure": -1.0}, "endpoint.exposure", "exposure per subject > 0"),
     (COUNT_ONE_ARM, {"endpoint__exposure": 0}, "endpoint.exposure", "> 0"),
     (COUNT_ONE_ARM, {"endpoint__model": "negative-binomial"}, "endpoint.dispersion",
@@ -212,3 +214,19 @@ efficacy = 0.975
 [scenarios]
 treatment = [0.0, 0.5]
 """
+
+
+def test_count_rule_on_events_may_exceed_the_number_of_subjects() -> None:
+    # Identity: one look, lower is better, success iff events <= a, events ~ Poisson(n e
+    # rate); so P(success) is the Poisson CDF (scipy.stats.poisson).
+    from scipy import stats
+
+    design = build(COUNT_ONE_ARM, endpoint__better="lower", arms__treatment__prior=None,
+                   looks={"n": [40], "efficacy_count": [25]},
+                   scenarios__treatment=[0.9, 1.5, 2.0])
+    oc = compute(design).oc
+    expected = stats.poisson.cdf(25, 40 * 0.5 * oc["true_treatment"])
+    assert oc["prob_success"].to_numpy() == pytest.approx(expected, abs=1e-12)
+    # 25 events among 40 subjects is fine; a responder count above n would not be.
+    with pytest.raises(DesignError, match="between 0 and the look's n"):
+        build(ONE_ARM, looks={"n": [10, 20], "efficacy_count": ["none", 25]})

@@ -27,7 +27,7 @@ from octrial.design.model import (
 from octrial.design.reader import NONE_WORD, Phrase, Problems, Table
 from octrial.design.scenarios import read_scenarios
 from octrial.design.thresholds import read_threshold
-from octrial.endpoints import FAMILIES, Family
+from octrial.endpoints import FAMILIES, Family, LatticeFamily
 from octrial.errors import DesignError, Problem
 
 SCHEMA = 1
@@ -86,7 +86,7 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
         endpoint, two_arm)
     hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
     arms = _read_arms(arms_table, family, on_effect)
-    looks = _read_looks(top, arms, two_arm)
+    looks = _read_looks(top, arms, two_arm, family)
     if looks is not None and not looks.uses_counts and arms:
         _require_priors(top, arms_table, arms, on_effect)
     scenarios_table = top.table("scenarios")
@@ -220,7 +220,9 @@ def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...]
     return tuple(per_arm)
 
 
-def _read_looks(top: Table, arms: list[Arm], two_arm: bool) -> Looks | None:
+def _read_looks(
+    top: Table, arms: list[Arm], two_arm: bool, family: Family | None,
+) -> Looks | None:
     table = top.table("looks")
     if table is None:
         return None
@@ -236,7 +238,7 @@ def _read_looks(top: Table, arms: list[Arm], two_arm: bool) -> Looks | None:
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):
-        return _read_count_rule(table, n, per_arm, two_arm)
+        return _read_count_rule(table, n, per_arm, two_arm, family)
 
     specs, values = [], {}
     for key in ("efficacy", *INTERIM_ONLY):
@@ -262,6 +264,7 @@ def _read_looks(top: Table, arms: list[Arm], two_arm: bool) -> Looks | None:
 
 def _read_count_rule(
     table: Table, n: list[int], per_arm: tuple[tuple[int, ...], ...] | None, two_arm: bool,
+    family: Family | None,
 ) -> Looks | None:
     for key in ("efficacy", *INTERIM_ONLY):
         if table.has(key):
@@ -271,6 +274,12 @@ def _read_count_rule(
         table.fail("efficacy_count", "a one-arm design (count rules compare one arm's "
                    "responses with fixed numbers)", Phrase("a two-arm design"))
         return None
+    if family is not None and not isinstance(family, LatticeFamily):
+        table.fail("efficacy_count", "an endpoint whose data are counts (binary or count) "
+                   "for a rule stated in counts", Phrase(f"a {family.name} endpoint"))
+        return None
+    # Responses cannot exceed the subjects; event counts can.
+    bounded = family is None or not family.truncates
     k = len(n)
     counts: dict[str, list[int | None]] = {}
     for key in ("efficacy_count", "futility_count"):
@@ -282,7 +291,7 @@ def _read_count_rule(
         if entries is None:
             return None
         for i, (c, n_i) in enumerate(zip(entries, n, strict=True)):
-            if c is not None and c > n_i:
+            if bounded and c is not None and c > n_i:
                 table.problems.add(f"looks.{key}[{i + 1}]",
                                    f"a count between 0 and the look's n ({n_i})", c)
         counts[key] = [None if c is None else int(c) for c in entries]
