@@ -29,7 +29,8 @@ from octrial.numerics import tanh_sinh
 from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.draws import DrawTables, draw
-from octrial.simulation.special import betainc_pair, log_beta
+from octrial.simulation.estimates import add_estimate
+from octrial.simulation.special import betainc_pair, log_beta, normalise_log_weights
 
 NONE = -1
 
@@ -48,17 +49,10 @@ def unsupported(design: Design) -> str | None:
 @numba.njit(cache=True)
 def _posterior_weights(weights, a, b, x, n, out):
     """Posterior mixture weights after x responses in n subjects, into ``out``."""
-    top = -np.inf
     for j in range(weights.size):
         out[j] = (math.log(weights[j]) + log_beta(a[j] + x, b[j] + n - x)
                   - log_beta(a[j], b[j]))
-        top = max(top, out[j])
-    total = 0.0
-    for j in range(weights.size):
-        out[j] = math.exp(out[j] - top)
-        total += out[j]
-    for j in range(weights.size):
-        out[j] /= total
+    normalise_log_weights(out)
 
 
 @numba.njit(cache=True)
@@ -87,16 +81,6 @@ def _predictive(weights, a, b, x, n, n_final, p0, higher, final_threshold, tol, 
             total += w[j] * math.exp(log_choose + log_beta(aj + y, bj + m - y)
                                      - log_beta(aj, bj))
     return total
-
-
-@numba.njit(cache=True, inline="always")
-def _add_estimate(err, cdf, tail, sums):
-    """Add the error powers of one stopped study to ``sums``; 1 if its interval covers."""
-    e2 = err * err
-    sums[0] += err
-    sums[1] += e2
-    sums[2] += e2 * e2
-    return 1 if tail <= cdf <= 1.0 - tail else 0
 
 
 @numba.njit(cache=True)
@@ -143,7 +127,7 @@ def one_arm_studies(words, n, weights, a, b, p0, higher, efficacy, futility, pre
                     aj, bj = a[j] + x, b[j] + n[k] - x
                     mean += w[j] * aj / (aj + bj)
                     cdf += w[j] * betainc_pair(aj, bj, truth)[0]
-                covered += _add_estimate(mean - truth, cdf, tail, sums)
+                covered += add_estimate(mean - truth, cdf, tail, sums)
             break
     return covered
 
@@ -290,7 +274,7 @@ def two_arm_studies(words, n_t, n_c, weights_t, a_t, b_t, weights_c, a_c, b_c, s
                     wt, at_post, bt_post, wc, ac_post, bc_post, truth_difference,
                     log_u_nodes, log_1mu_nodes, log_w_nodes, level_start,
                     QUADRATURE_TOLERANCE)
-                covered += _add_estimate(mean - truth_difference, cdf, tail, sums)
+                covered += add_estimate(mean - truth_difference, cdf, tail, sums)
             break
     return covered
 

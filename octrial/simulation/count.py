@@ -37,8 +37,13 @@ from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.binary import NONE, _counts, _thresholds
 from octrial.simulation.draws import DrawTables, draw
-from octrial.simulation.normal import add_estimate
-from octrial.simulation.special import betainc_pair, digamma, gammainc_pair
+from octrial.simulation.estimates import add_estimate
+from octrial.simulation.special import (
+    betainc_pair,
+    digamma,
+    gammainc_pair,
+    normalise_log_weights,
+)
 
 
 def unsupported(design: Design) -> str | None:
@@ -56,19 +61,12 @@ def unsupported(design: Design) -> str | None:
 @numba.njit(cache=True, inline="always")
 def posterior(weights, a, b, x, t, w, a_post, b_post):
     """Gamma-mixture posterior after x events in exposure t, into (w, a_post, b_post)."""
-    top = -np.inf
     for j in range(weights.size):
         a_post[j] = a[j] + x
         b_post[j] = b[j] + t
         w[j] = (math.log(weights[j]) + a[j] * math.log(b[j]) + math.lgamma(a_post[j])
                 - math.lgamma(a[j]) - a_post[j] * math.log(b_post[j]))
-        top = max(top, w[j])
-    total = 0.0
-    for j in range(weights.size):
-        w[j] = math.exp(w[j] - top)
-        total += w[j]
-    for j in range(weights.size):
-        w[j] /= total
+    normalise_log_weights(w)
 
 
 @numba.njit(cache=True, inline="always")

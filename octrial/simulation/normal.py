@@ -45,7 +45,8 @@ from octrial.design.model import Design
 from octrial.endpoints.normal import benefit_components
 from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.special import normal_sf
+from octrial.simulation.estimates import add_estimate
+from octrial.simulation.special import normal_sf, normalise_log_weights
 
 BISECTIONS = 200
 
@@ -97,18 +98,11 @@ def posterior(s, info, weights, means, precisions, w, m, p):
     if weights.size == 1:
         w[0] = 1.0
         return
-    top = -np.inf
     for j in range(weights.size):
         var = info + info * info / precisions[j]
         z = s - info * means[j]
         w[j] = math.log(weights[j]) - 0.5 * z * z / var - 0.5 * math.log(var)
-        top = max(top, w[j])
-    total = 0.0
-    for j in range(weights.size):
-        w[j] = math.exp(w[j] - top)
-        total += w[j]
-    for j in range(weights.size):
-        w[j] /= total
+    normalise_log_weights(w)
 
 
 @numba.njit(cache=True, inline="always")
@@ -161,16 +155,6 @@ def score_bound(target, info, claim, weights, means, precisions):
         else:
             lo = mid
     return hi
-
-
-@numba.njit(cache=True, inline="always")
-def add_estimate(err, cdf, tail, sums):
-    """Add one stopped study's error powers to ``sums``; 1 if its interval covers."""
-    e2 = err * err
-    sums[0] += err
-    sums[1] += e2
-    sums[2] += e2 * e2
-    return 1 if tail <= cdf <= 1.0 - tail else 0
 
 
 @numba.njit(cache=True)

@@ -65,7 +65,8 @@ from octrial.design.model import Design
 from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.simulation import student_t
 from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.normal import add_estimate, draw_increments, increment_sizes, thresholds
+from octrial.simulation.estimates import add_estimate
+from octrial.simulation.normal import draw_increments, increment_sizes, thresholds
 from octrial.simulation.special import student_t_pair
 
 PREDICTIVE_NODES = 16

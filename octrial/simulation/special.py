@@ -219,3 +219,18 @@ def digamma(x: float) -> float:
     series = inv2 * (1.0 / 12.0 - inv2 * (1.0 / 120.0 - inv2 * (
         1.0 / 252.0 - inv2 * (1.0 / 240.0 - inv2 * (1.0 / 132.0)))))
     return total + math.log(x) - 0.5 / x - series
+
+
+@numba.njit(cache=True, inline="always")
+def normalise_log_weights(w) -> None:
+    """Turn log mixture weights in ``w`` into weights summing to 1, in place (the largest
+    is subtracted before exponentiating, so no weight overflows)."""
+    top = -math.inf
+    for j in range(w.size):
+        top = max(top, w[j])
+    total = 0.0
+    for j in range(w.size):
+        w[j] = math.exp(w[j] - top)
+        total += w[j]
+    for j in range(w.size):
+        w[j] /= total
