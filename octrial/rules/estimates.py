@@ -15,7 +15,7 @@ coverage needs F at the truth, not the interval's end points.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -34,10 +34,15 @@ class LatticeEstimates:
         Per look, the posterior mean on the look's lattice (one axis per arm).
     posteriors : tuple
         Per look, the family's posteriors per arm (for the posterior CDF at a truth).
+    cdf_cache : dict
+        Posterior CDF tables already computed, by target value: scenarios sharing a true
+        effect (a control x effect grid) share them, and for two arms each costs a
+        quadrature over the whole lattice.
     """
 
     means: tuple[np.ndarray, ...]
     posteriors: tuple[tuple, ...]
+    cdf_cache: dict[float, tuple[np.ndarray, ...]] = field(default_factory=dict, repr=False)
 
 
 def lattice_estimates(design: Design, rule: LatticeRule | None = None) -> LatticeEstimates | None:
@@ -67,10 +72,11 @@ def coverage_tables(
 ) -> tuple[np.ndarray, ...]:
     """Per look, whether the equal-tailed ``level`` interval covers the true target."""
     family: LatticeFamily = design.family
-    value = family.target_value(design.hypothesis, truth)
+    # Rounded as true_effect is in oc.csv, so that 0.25 - 0.2 and 0.15 - 0.1 share a table.
+    value = round(family.target_value(design.hypothesis, truth), 12)
     tail = (1.0 - level) / 2.0
-    out = []
-    for posts in estimates.posteriors:
-        cdf = np.asarray(family.target_cdf(design, posts, value), dtype=float)
-        out.append((cdf >= tail) & (cdf <= 1.0 - tail))
-    return tuple(out)
+    if value not in estimates.cdf_cache:
+        estimates.cdf_cache[value] = tuple(
+            np.asarray(family.target_cdf(design, posts, value), dtype=float)
+            for posts in estimates.posteriors)
+    return tuple((cdf >= tail) & (cdf <= 1.0 - tail) for cdf in estimates.cdf_cache[value])
