@@ -27,7 +27,9 @@ grid of Gauss-Legendre nodes.
 **Simulation, otherwise** (a normal endpoint with unknown sd): every simulated study
 draws its own true values from the design prior, then its data
 (:mod:`octrial.simulation.prior_studies`), with ``simulation.replicates`` studies and the
-design's seed; the result carries its Monte Carlo standard error.
+design's seed; the result carries its Monte Carlo standard error. Its batches run
+through the execution layer: in worker processes, with checkpoints and a progress bar
+when the caller gives an :class:`~octrial.execution.Execution`.
 
 The probability that the claim is true is reported beside it, under the analysis prior
 (FDA 2010 guidance on Bayesian device trials asks for the prior probability of the claim)
@@ -39,20 +41,22 @@ from __future__ import annotations
 import dataclasses
 import itertools
 import math
-import secrets
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from octrial._version import __version__
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
-from octrial.engines.monte_carlo import SEED_BITS
 from octrial.errors import InputError
+from octrial.execution import Execution
+from octrial.execution.checkpoints import kept_seed
 from octrial.numerics import tanh_sinh
 from octrial.rules.lattice import LatticeRule, build_rule
 from octrial.simulation.prior_studies import (
+    BATCH_SIZE,
     prior_simulation_unsupported,
     simulate_under_design_prior,
 )
@@ -114,11 +118,12 @@ class Assurance:
 
 
 def assurance_record(design: Design, rule: LatticeRule | None = None,
-                     settings: Any = None) -> dict[str, Any] | None:
+                     settings: Any = None,
+                     execution: Execution | None = None) -> dict[str, Any] | None:
     """Assurance as a record for run.json and calibration.json: ``None`` without design
     priors, ``{'unavailable': reason}`` when the family offers no way to integrate."""
     try:
-        found = assurance(design, rule, settings=settings)
+        found = assurance(design, rule, settings=settings, execution=execution)
     except ValueError as exc:
         return {"unavailable": str(exc)}
     return None if found is None else found.as_dict()
@@ -149,7 +154,7 @@ def design_prior_design(design: Design) -> Design:
 
 def assurance(
     design: Design, rule: LatticeRule | None = None, method: str = "auto",
-    settings: Any = None,
+    settings: Any = None, execution: Execution | None = None,
 ) -> Assurance | None:
     """Assurance of ``design`` under its design priors (see module docstring).
 
@@ -164,6 +169,8 @@ def assurance(
     settings : MonteCarloSettings, optional
         Simulation only: replicates and seed (default: the design's ``[simulation]``;
         a seed is drawn and recorded when neither gives one).
+    execution : Execution, optional
+        Simulation only: workers, checkpoints and progress (never changes a number).
 
     Returns
     -------
@@ -185,7 +192,7 @@ def assurance(
         eff, fut = _predictive_programme(design, generating, rule)
         method_used = "exact"
     elif method == "simulation" or (method == "auto" and not _exact_engine(design)):
-        return _simulated(design, settings, claim)
+        return _simulated(design, settings, claim, execution)
     else:
         eff, fut = _quadrature(design, generating)
         method_used = "quadrature"
@@ -202,7 +209,8 @@ def _exact_engine(design: Design) -> bool:
     return True
 
 
-def _simulated(design: Design, settings: Any, claim: float) -> Assurance:
+def _simulated(design: Design, settings: Any, claim: float,
+               execution: Execution | None) -> Assurance:
     reason = prior_simulation_unsupported(design)
     if reason is not None:
         raise ValueError(f"no assurance by simulation: {reason}")
@@ -210,9 +218,16 @@ def _simulated(design: Design, settings: Any, claim: float) -> Assurance:
     replicates = getattr(settings, "replicates", None) or simulation.replicates
     seed = getattr(settings, "seed", None)
     seed = simulation.seed if seed is None else seed
-    if seed is None:
-        seed = secrets.randbits(SEED_BITS)
-    tally = simulate_under_design_prior(design, replicates, seed)
+    store = None
+    if execution is not None:
+        store = execution.store({
+            "design_sha256": design.source.sha256, "design": repr(design),
+            "assurance": "simulation", "replicates": replicates,
+            "seed": "drawn" if seed is None else seed, "batch_size": BATCH_SIZE,
+            "octrial": __version__})
+    seed, _ = kept_seed(store, seed)
+    tally = simulate_under_design_prior(design, replicates, seed, execution=execution,
+                                        store=store)
     eff, fut = tally.efficacy / replicates, tally.futility / replicates
     n = np.asarray(design.looks.n, dtype=float)
     stop = eff + fut

@@ -53,7 +53,7 @@ def _as_design(design: Design | str | Path) -> Design:
 def compute(
     design: Design | str | Path, method: str | None = None,
     settings: MonteCarloSettings | None = None, execution: Execution | None = None,
-    **options: Any,
+    assurance: bool = True, **options: Any,
 ) -> Evaluation:
     """Evaluate ``design`` at all its scenarios.
 
@@ -67,7 +67,11 @@ def compute(
         Simulation settings (replicates, seed, target standard error); exact engines
         ignore them.
     execution : Execution, optional
-        Workers, backend, checkpoints and progress bar for simulation.
+        Workers, backend, checkpoints and progress bar for simulation (the scenarios,
+        and the assurance when it is simulated).
+    assurance : bool
+        Compute the assurance under the design priors (``info['assurance']``); callers
+        that do not report it (``octrial verify``) skip it, since it may be simulated.
     **options
         Passed to the engine.
 
@@ -97,7 +101,7 @@ def compute(
         "type1": type1_summary(oc),
         "prior_probability_of_claim": design.family.prior_probability_of_claim(design),
         "prior_effective_sample_size": design.family.effective_sample_size(design),
-        "assurance": assurance_record(design, rule, settings),
+        "assurance": assurance_record(design, rule, settings, execution) if assurance else None,
         "scenarios_dropped": design.scenarios.dropped,
     }
     notes = list(dict.fromkeys(str(w.message) for w in caught

@@ -190,7 +190,8 @@ def test_generic_engine_path_agrees_with_the_lattice_fast_path(monkeypatch) -> N
                    looks__futility=[0.1], hypothesis__benchmark=0.25)
     fast = calibrate(design, alpha=0.05, null_points=6)
     monkeypatch.setattr(core, "evaluator_for",
-                        lambda design, truths, method=None: EngineEvaluator(truths, method))
+                        lambda design, truths, method=None, *simulation: EngineEvaluator(
+                            truths, method, *simulation))
     slow = calibrate(design, alpha=0.05, null_points=6)
     lo, hi = fast.summary["chosen"]["final"]["equivalent"]
     value = slow.summary["chosen"]["final"]["value"]

@@ -18,7 +18,7 @@ import octrial
 from octrial.cli import main
 from octrial.design.load import load_design
 from octrial.design.model import Scenarios
-from octrial.engines import ENGINES
+from octrial.engines import ENGINES, MonteCarloSettings
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.outcome import Outcome
 from octrial.errors import InputError
@@ -224,11 +224,13 @@ class StandInMonteCarlo:
         return None
 
     @classmethod
-    def run(cls, design, truths, rule=None):
-        cls.seen.append(design.simulation)
+    def run(cls, design, truths, rule=None, settings=None, execution=None):
+        settings = settings or MonteCarloSettings(replicates=design.simulation.replicates)
+        cls.seen.append(settings)
         exact = ExactLatticeEngine.run(design, truths, rule)
-        reps = np.full(len(truths), design.simulation.replicates)
-        return Outcome(exact.efficacy, exact.futility, reps, "monte-carlo")
+        reps = np.full(len(truths), settings.replicates)
+        info = {"seed": settings.seed, "seed_drawn": False, "scenarios_resumed": 0}
+        return Outcome(exact.efficacy, exact.futility, reps, "monte-carlo", info=info)
 
 
 def test_designs_without_exact_engine_use_monte_carlo_with_more_replicates(

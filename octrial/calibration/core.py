@@ -6,6 +6,10 @@ thresholds are calibrated (or kept) at that N. With a discrete endpoint the type
 and power are saw-tooth functions of N (Chernick & Liu 2002), so the whole curve is kept
 and two rules are offered: the smallest N that passes, and the smallest N from which every
 larger N in the range passes (looks that collide at an N leave that N out of both).
+
+Simulated calibrations keep their checkpoints in one folder per calibration (keyed by
+the design, the request and the simulation settings; it holds a drawn seed) with one
+subfolder per candidate evaluation (see :mod:`octrial.calibration.evaluator`).
 """
 
 from __future__ import annotations
@@ -17,7 +21,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator, evaluator_for
+from octrial._version import __version__
+from octrial.calibration.evaluator import (
+    Assessment,
+    EngineEvaluator,
+    Evaluator,
+    LatticeEvaluator,
+    evaluator_for,
+)
 from octrial.calibration.log import Log
 from octrial.calibration.nulls import Truths, null_truths
 from octrial.calibration.refine import Refined, refine_worst
@@ -29,7 +40,10 @@ from octrial.design.model import Design
 from octrial.design_prior import assurance_record
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.monte_carlo import MonteCarloSettings
 from octrial.errors import InputError, Problem
+from octrial.execution import Execution
+from octrial.execution.checkpoints import CheckpointStore
 from octrial.rules.boundaries import boundary_table
 from octrial.rules.lattice import build_rule
 
@@ -99,12 +113,18 @@ def _describe(choice: Choice) -> str:
 
 class _Search:
     def __init__(self, design: Design, request: Request,
-                 extra: tuple[tuple[float, ...], ...] = ()) -> None:
+                 extra: tuple[tuple[float, ...], ...] = (),
+                 simulation: MonteCarloSettings | None = None,
+                 execution: Execution | None = None,
+                 seed_store: CheckpointStore | None = None) -> None:
         self.design = design
         self.request = request
+        self.execution = execution
+        self.simulation = simulation
         self.builder = Builder(design)
         self.truths = null_truths(design, request.null_points, request.alternative, extra)
-        self.ev: Evaluator = evaluator_for(design, self.truths, request.method)
+        self.ev: Evaluator = evaluator_for(design, self.truths, request.method, simulation,
+                                           execution, seed_store)
         self.log = Log(design, self.truths, request.alpha, request.power)
         self.tuner = Tuner(self.builder, self.ev, request, self.log)
         self.notes: list[str] = []
@@ -217,7 +237,9 @@ def _check_against_engine(design: Design, truths: Truths, a: Assessment) -> None
         raise AssertionError(f"calibration fast path and exact engine differ by {gap:g}")
 
 
-def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> Calibration:
+def calibrate(design: Design, source: str = "calibrate()", *,
+              simulation: MonteCarloSettings | None = None,
+              execution: Execution | None = None, **settings: Any) -> Calibration:
     """Calibrate ``design`` as the settings ask.
 
     Parameters
@@ -227,6 +249,13 @@ def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> C
         calibrated file).
     source : str
         Where the settings came from, for messages ('command line' for the CLI).
+    simulation : MonteCarloSettings, optional
+        When candidates are simulated: replicates, seed, or a target standard error
+        (which fixes the replicates of every candidate; see
+        :mod:`octrial.calibration.evaluator`); default the design's ``[simulation]``.
+    execution : Execution, optional
+        When candidates (or the assurance) are simulated: workers, backend,
+        checkpoints and progress; never changes a number.
     **settings
         See :func:`octrial.calibration.request.make_request`: ``alpha`` (required),
         ``power``, ``alternative``, ``vary``, ``n_range``, ``looks``, ``choose``,
@@ -251,18 +280,24 @@ def calibrate(design: Design, source: str = "calibrate()", **settings: Any) -> C
     >>> result.summary["chosen"]["final"]["value"]  # doctest: +SKIP
     """
     request = make_request(design, source, **settings)
+    execution, seed_store = (execution or Execution()).within({
+        "calibration": repr(request), "design_sha256": design.source.sha256,
+        "design": repr(design), "simulation": repr(simulation), "octrial": __version__})
     extra: tuple[tuple[float, ...], ...] = ()
     history: list[str] = []
     for _ in range(REFINE_ROUNDS):
-        run = _Search(design, request, extra)
+        run = _Search(design, request, extra, simulation, execution, seed_store)
         run.source = source
         run.notes += history
-        if request.search:
-            choice = run.stages()
-        elif request.sizes:
-            choice = run.sizes()
-        else:
-            choice = run.thresholds()
+        try:
+            if request.search:
+                choice = run.stages()
+            elif request.sizes:
+                choice = run.sizes()
+            else:
+                choice = run.thresholds()
+        finally:
+            run.ev.finish()
         refined = refine_worst(choice.design, run.truths, choice.assessment)
         if refined is None or refined.type1 <= request.alpha:
             break
@@ -313,10 +348,7 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
         "chosen": choice.values,
         "looks_n": list(design.looks.n),
         "method": "exact" if run.ev.exact else "monte-carlo",
-        "simulation": None if run.ev.exact else {
-            "seed": getattr(run.ev, "seed", None),
-            "replicates": getattr(run.ev, "replicates", None),
-            "common_random_numbers": "every candidate simulated with this seed"},
+        "simulation": _simulation(run.ev, run.simulation),
         "evaluations": run.ev.evaluations,
         "candidates": len(run.log.rows),
         "notes": run.notes,
@@ -332,12 +364,23 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
             out["boundaries"] = [
                 {"look": int(r["look"]), "n": int(r["n"]), "efficacy": r["efficacy_rule"],
                  "futility": r["futility_rule"]} for _, r in table.iterrows()]
-    out["assurance"] = assurance_record(design)
+    out["assurance"] = assurance_record(design, settings=run.simulation,
+                                        execution=run.execution)
     if all(arm.prior is not None for arm in design.arms):
         out["prior_probability_of_claim"] = design.family.prior_probability_of_claim(design)
     else:
         out["prior_probability_of_claim"] = None
     return out
+
+
+def _simulation(ev: Evaluator, settings: MonteCarloSettings | None) -> dict[str, Any] | None:
+    if ev.exact or not isinstance(ev, EngineEvaluator):
+        return None
+    target = None if settings is None else settings.target_se
+    return {"seed": ev.seed, "seed_drawn": ev.seed_drawn, "replicates": ev.replicates,
+            **({"target_se": target} if target is not None else {}),
+            "common_random_numbers": "every candidate simulated with this seed",
+            "scenarios_resumed": ev.scenarios_resumed}
 
 
 __all__ = ["Calibration", "calibrate", "make_request"]

@@ -10,7 +10,13 @@ Two evaluators share one interface:
   independently of the rule, so a study that succeeds under a stricter threshold
   succeeds under a looser one, and the estimated probability of success is monotone in
   each threshold, as the bisection needs, rather than monotone only up to Monte Carlo
-  noise.
+  noise. Its candidates run through the execution layer (:mod:`octrial.execution`): the
+  scenarios of a candidate in worker processes, each saved under a key made of the
+  candidate design, seed and replicates, so that a resumed calibration takes every
+  evaluation already done from disk; a seed drawn for the calibration is saved too.
+  ``--target-se`` cannot stop each candidate at its own number of studies without
+  breaking the common random numbers, so it fixes one number for every candidate: the
+  studies that bound every standard error by the target, 0.25 / SE^2 (capped).
 * :class:`LatticeEvaluator` is the fast path for endpoints with a count lattice: the
   posterior tables are computed once per look size and reused by every candidate
   (:class:`~octrial.rules.lattice.LatticeCache`), all true values go through one batched
@@ -23,7 +29,7 @@ Two evaluators share one interface:
 
 from __future__ import annotations
 
-import secrets
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,7 +40,10 @@ from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.lattice_batch import IncrementTables, run_batch
-from octrial.engines.monte_carlo import SEED_BITS, MonteCarloEngine, MonteCarloSettings
+from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings, replicates_for
+from octrial.execution import Execution
+from octrial.execution.checkpoints import CheckpointStore, kept_seed
+from octrial.execution.progress import StatusLine, clock
 from octrial.results import proportion_se
 from octrial.rules.lattice import DECISION_TOLERANCE, LatticeCache, build_rule
 
@@ -135,42 +144,116 @@ class Evaluator:
         """The posterior probability table at one look (lattice evaluators only)."""
         return None
 
+    def finish(self) -> None:
+        """End any progress display (called once the calibration stops)."""
+
 
 class EngineEvaluator(Evaluator):
     """Any engine, through its ``run`` method (see module docstring).
+
+    Parameters
+    ----------
+    truths : Truths
+    method : str, optional
+        Engine method override.
+    settings : MonteCarloSettings, optional
+        Monte Carlo only: replicates (default ``simulation.replicates``), seed (default
+        ``simulation.seed``, else drawn once), or a target standard error that fixes the
+        replicates (see module docstring).
+    execution : Execution, optional
+        Monte Carlo only: workers, checkpoints, progress, for every candidate.
+    seed_store : CheckpointStore, optional
+        Where a drawn seed is saved, so that a resumed calibration draws the same one.
 
     Attributes
     ----------
     seed : int or None
         Monte Carlo only: the one seed every candidate is simulated with.
+    seed_drawn : bool
+        Whether it was drawn rather than given.
     replicates : int or None
         Monte Carlo only: studies per true value and candidate.
+    scenarios_resumed : int
+        Scenario results taken from the checkpoints of an interrupted earlier run.
     """
 
-    def __init__(self, truths: Truths, method: str | None = None) -> None:
+    def __init__(self, truths: Truths, method: str | None = None,
+                 settings: MonteCarloSettings | None = None,
+                 execution: Execution | None = None,
+                 seed_store: CheckpointStore | None = None) -> None:
         super().__init__(truths)
         self.method = method
         self.exact = method not in ("monte-carlo",)
+        self.settings = settings or MonteCarloSettings()
+        self.execution = execution or Execution()
+        self.seed_store = seed_store
         self.seed: int | None = None
+        self.seed_drawn = False
         self.replicates: int | None = None
+        self.scenarios_resumed = 0
+        self.done: dict[str, Assessment] = {}
+        self.status: StatusLine | None = None
+        self.saved = 0
 
     def assess(self, design: Design) -> Assessment:
         engine = choose(design, self.method)
-        if engine is MonteCarloEngine:
-            if self.seed is None:
-                seed = design.simulation.seed
-                self.seed = secrets.randbits(SEED_BITS) if seed is None else seed
-            self.replicates = design.simulation.replicates
-            outcome = engine.run(design, self.truths.values,
-                                 settings=MonteCarloSettings(seed=self.seed))
-        else:
+        if engine is not MonteCarloEngine:
             outcome = engine.run(design, self.truths.values)
+        else:
+            key = repr(design)  # the bisection asks for some candidates twice
+            if key in self.done:
+                return self.done[key]
+            outcome = engine.run(design, self.truths.values, settings=self._settings(design),
+                                 execution=self._execution())
+            self.scenarios_resumed += outcome.info["scenarios_resumed"]
         self.evaluations += 1
         self.exact = outcome.method == "exact"
         stop = outcome.efficacy + outcome.futility
         expected_n = stop @ np.asarray(design.looks.n, dtype=float)
-        return assessment(self.truths, outcome.efficacy.sum(axis=1), expected_n,
-                          outcome.replicates)
+        found = assessment(self.truths, outcome.efficacy.sum(axis=1), expected_n,
+                           outcome.replicates)
+        if not self.exact:
+            self.done[repr(design)] = found
+            self._show(f"{self.evaluations} candidates simulated, the last with type I "
+                       f"error {found.type1:.4g}")
+        return found
+
+    def _settings(self, design: Design) -> MonteCarloSettings:
+        """One seed and one number of studies for every candidate."""
+        if self.seed is None:
+            given = self.settings.seed
+            self.seed, self.seed_drawn = kept_seed(
+                self.seed_store, design.simulation.seed if given is None else given)
+        target = self.settings.target_se
+        self.replicates = (min(replicates_for(target), self.settings.max_replicates)
+                           if target is not None else
+                           self.settings.replicates or design.simulation.replicates)
+        return dataclasses.replace(self.settings, seed=self.seed, replicates=self.replicates,
+                                   target_se=None)
+
+    def _execution(self) -> Execution:
+        """The execution for one candidate: its own progress bar replaced by one status
+        line for the whole calibration."""
+        if self.execution.progress and self.status is None:
+            self.status = StatusLine()
+        self.saved = 0
+        return dataclasses.replace(self.execution, progress=False, on_saved=self._on_saved)
+
+    def _on_saved(self, index: int) -> None:
+        self.saved += 1
+        self._show(f"candidate {self.evaluations + 1}: {self.saved} of "
+                   f"{len(self.truths.values)} true values simulated")
+        if self.execution.on_saved is not None:
+            self.execution.on_saved(index)
+
+    def _show(self, text: str, force: bool = False) -> None:
+        if self.status is not None:
+            self.status.show(f"calibrating by simulation: {text}; "
+                             f"{clock(self.status.elapsed())} elapsed", force)
+
+    def finish(self) -> None:
+        if self.status is not None:
+            self.status.close()
 
 
 def distinct(values: np.ndarray) -> np.ndarray:
@@ -254,8 +337,12 @@ class LatticeEvaluator(Evaluator):
         return Sweep(values[::-1], prob[::-1], expected_n)
 
 
-def evaluator_for(design: Design, truths: Truths, method: str | None = None) -> Evaluator:
-    """The fast lattice evaluator when the exact lattice engine applies, else the engine's."""
+def evaluator_for(design: Design, truths: Truths, method: str | None = None,
+                  settings: MonteCarloSettings | None = None,
+                  execution: Execution | None = None,
+                  seed_store: CheckpointStore | None = None) -> Evaluator:
+    """The fast lattice evaluator when the exact lattice engine applies, else the engine's
+    (``settings``, ``execution`` and ``seed_store`` as for :class:`EngineEvaluator`)."""
     if method in (None, "auto", "exact") and isinstance(design.family, LatticeFamily) and (
             ExactLatticeEngine.unsupported(design) is None):
         try:
@@ -264,4 +351,4 @@ def evaluator_for(design: Design, truths: Truths, method: str | None = None) -> 
             engine = None
         if engine is ExactLatticeEngine:
             return LatticeEvaluator(truths, design)
-    return EngineEvaluator(truths, method)
+    return EngineEvaluator(truths, method, settings, execution, seed_store)

@@ -11,7 +11,15 @@ from octrial.calibration import calibrate
 from octrial.calibration.files import calibrated_toml, record, summary_lines
 from octrial.calibration.request import CRITERIA, LOOK_RULES, RULES, SEARCHES, SIZING_RULES
 from octrial.caution import CAUTION
-from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
+from octrial.cli.common import (
+    SimulationOptions,
+    default_out,
+    design_argument,
+    read_design,
+    reports_input_errors,
+    resumable,
+    simulation_options,
+)
 from octrial.output import csv_text, json_text, write_atomic
 from octrial.provenance import now
 
@@ -53,9 +61,10 @@ from octrial.provenance import now
               help="Engine; overrides simulation.method in the design file.")
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
               help="Folder for the outputs [default: reports/<design name>/].")
-@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@simulation_options
 @reports_input_errors
-def calibrate_command(design: str, out: str | None, quiet: bool, **options: object) -> None:
+def calibrate_command(design: str, out: str | None, simulation: SimulationOptions,
+                      **options: object) -> None:
     """Calibrate DESIGN: thresholds, sample size or a multi-stage search.
 
     Finds the least stringent threshold (--vary final or efficacy) whose type I error
@@ -66,14 +75,23 @@ def calibrate_command(design: str, out: str | None, quiet: bool, **options: obje
     (with --vary n), calibration.json and <name>.calibrated.toml, a design file that
     octrial run accepts as is.
 
+    Designs without an exact engine are calibrated by simulation, every candidate on the
+    same simulated studies (one seed); --target-se then fixes the studies per true value
+    for every candidate at 0.25 / SE^2 (capped by --max-replicates). Each candidate's
+    finished simulations are saved under OUT/.partial; an interrupted calibration started
+    again with the same arguments resumes where it stopped.
+
     Exit codes: 0 success; 2 bad input, or no candidate meets the constraints (the
-    message gives the best found); nothing is written then.
+    message gives the best found); nothing is written then; 130 interrupted.
     """
     started = now()
     loaded = read_design(design)
     settings = {k: v for k, v in options.items() if v is not None}
-    result = calibrate(loaded, "command line", **settings)
     folder = Path(out) if out else default_out(loaded)
+    execution = simulation.execution(folder)
+    with resumable(execution):
+        result = calibrate(loaded, "command line", simulation=simulation.settings(),
+                           execution=execution, **settings)
     command = ["octrial", *sys.argv[1:]]
     toml_name = f"{loaded.name}.calibrated.toml"
     texts = {"calibration.csv": csv_text(result.candidates)}
@@ -84,7 +102,8 @@ def calibrate_command(design: str, out: str | None, quiet: bool, **options: obje
     texts["calibration.json"] = json_text(record(result, started=started, command=command,
                                                  files=names))
     written = [write_atomic(folder / name, text) for name, text in texts.items()]
-    if quiet:
+    execution.remove_checkpoints()
+    if simulation.quiet:
         return
     for line in summary_lines(result):
         click.echo(line)

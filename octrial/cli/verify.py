@@ -10,7 +10,15 @@ import pandas as pd
 
 from octrial._version import __version__
 from octrial.caution import CAUTION
-from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
+from octrial.cli.common import (
+    SimulationOptions,
+    default_out,
+    design_argument,
+    read_design,
+    reports_input_errors,
+    resumable,
+    simulation_options,
+)
 from octrial.output import csv_text, json_text, write_atomic
 from octrial.provenance import environment, now
 from octrial.review import read_claims, verify
@@ -36,10 +44,11 @@ EXIT_DISCREPANT = 1
                    "[default: max(100000, 10 x the largest claim's)].")
 @click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=None,
               help="Monte Carlo recomputation only: overrides simulation.seed.")
-@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@simulation_options
 @reports_input_errors
 def verify_command(design: str, claims: str, out: str | None, alpha: float, tolerance: float,
-                   replicates: int | None, seed: int | None, quiet: bool) -> None:
+                   replicates: int | None, seed: int | None,
+                   simulation: SimulationOptions) -> None:
     """Re-compute the operating characteristics claimed in CLAIMS.csv for DESIGN.
 
     Each claim (one row: the scenario's true_<arm> values, metric, claimed, and optionally
@@ -47,18 +56,27 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
     test allowing for both Monte Carlo errors and the claim's rounding; p-values are
     Holm-adjusted over all claims. Writes verify.csv and verify.json.
 
-    Exit codes: 0 every claim consistent; 1 any claim discrepant; 2 bad input.
+    A Monte Carlo recomputation saves each finished scenario under OUT/.partial; an
+    interrupted run started again with the same arguments resumes where it stopped.
+    Exit codes: 0 every claim consistent; 1 any claim discrepant; 2 bad input;
+    130 interrupted.
     """
+    if replicates is not None and simulation.target_se is not None:
+        raise click.UsageError("--replicates and --target-se exclude each other")
     started = now()
     loaded = read_design(design)
     table = read_claims(claims, loaded)
-    result = verify(loaded, table, alpha=alpha, tolerance=tolerance, replicates=replicates,
-                    seed=seed)
     folder = Path(out) if out else default_out(loaded)
+    execution = simulation.execution(folder)
+    with resumable(execution):
+        result = verify(loaded, table, alpha=alpha, tolerance=tolerance,
+                        replicates=replicates, seed=seed, target_se=simulation.target_se,
+                        max_replicates=simulation.max_replicates, execution=execution)
     record = _record(result, started, now())
     written = [write_atomic(folder / "verify.csv", csv_text(result.table)),
                write_atomic(folder / "verify.json", json_text(record))]
-    if not quiet:
+    execution.remove_checkpoints()
+    if not simulation.quiet:
         click.echo(_summary(result))
         click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
         click.echo(f"Caution: {CAUTION}", err=True)
@@ -86,8 +104,7 @@ def _summary(result: Verification) -> str:
     design, info, table = result.design, result.info, result.table
     lines = [f"{design.name}: {info['claims_total']} claims at {info['scenarios']} scenarios, "
              f"recomputed by the {info['engine']} engine"
-             + (f" ({info['replicates']} replicates per scenario, seed {info['seed']})"
-                if info["replicates"] else "")]
+             + _simulated(info)]
     truth = [f"true_{arm}" for arm in design.arm_names]
     view = table[["line", *truth, "metric", "claimed", "recomputed", "z", "p", "p_holm",
                   "verdict"]].rename(columns={c: c.removeprefix("true_") for c in truth})
@@ -102,6 +119,15 @@ def _summary(result: Verification) -> str:
     lines.append(f"{verdict} (two-sided test, Holm-adjusted, family-wise alpha "
                  f"{info['alpha']:g}).")
     return "\n".join(lines)
+
+
+def _simulated(info: dict) -> str:
+    if info["seed"] is None:
+        return ""
+    if info.get("target_se") is not None:
+        return (f" (until every standard error is at most {info['target_se']:g}, at most "
+                f"{info['max_replicates']} replicates per scenario, seed {info['seed']})")
+    return f" ({info['replicates']} replicates per scenario, seed {info['seed']})"
 
 
 def _fixed(view: pd.DataFrame) -> str:

@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import secrets
 from dataclasses import dataclass
 from typing import Any
 
@@ -36,7 +35,7 @@ from octrial.endpoints.base import LatticeFamily
 from octrial.engines.outcome import Estimation, Outcome
 from octrial.errors import InputError, Problem, show
 from octrial.execution import Execution, run_grid
-from octrial.execution.checkpoints import CheckpointStore, run_key
+from octrial.execution.checkpoints import SEED_BITS, CheckpointStore, kept_seed
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule, serving
 from octrial.simulation import GENERAL_KERNELS, general_unsupported
@@ -44,7 +43,6 @@ from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
 
 KERNELS = ("auto", "table", "general")
-SEED_BITS = 63
 
 
 @dataclass(frozen=True)
@@ -230,16 +228,8 @@ def _checkpoints(
         "settings": {**numbers, "seed": "drawn" if drawn else settings.seed},
         "octrial": __version__,
     }
-    store = None
-    if execution.checkpoints is not None:
-        store = CheckpointStore(execution.checkpoints / run_key(ingredients), ingredients)
-    seed = settings.seed
-    if drawn:
-        seed = store.seed() if store is not None else None
-        if seed is None:
-            seed = secrets.randbits(SEED_BITS)
-            if store is not None:
-                store.save_seed(seed)
+    store = execution.store(ingredients)
+    seed, _ = kept_seed(store, settings.seed)
     return store, dataclasses.replace(settings, seed=seed), drawn
 
 

@@ -1,10 +1,12 @@
-"""Finished scenarios saved under the output folder, so an interrupted run can resume.
+"""Finished tasks saved under the output folder, so an interrupted run can resume.
 
-A run's scenarios are saved in ``ROOT/<key>/scenario-<index>.npz``, where the key is a
-SHA-256 over everything that determines the numbers (the design's bytes and value, the
-engine, the seed, replicates or target standard error, batch size, kernel and the octrial
-version): a rerun with other arguments gets another folder and never reuses stale
-results. Each file is written atomically, so a killed run leaves whole files or none.
+A run's tasks (scenarios, or batches of studies) are saved in
+``ROOT/<key>/scenario-<index>.npz``, where the key is a SHA-256 over everything that
+determines the numbers (for a scenario grid: the design's bytes and value, the engine, the
+seed, replicates or target standard error, batch size, kernel and the octrial version): a
+rerun with other arguments gets another folder and never reuses stale results. Each file
+is written atomically, so a killed run leaves whole files or none. A seed drawn for a run
+is saved beside its results (:func:`kept_seed`), so that the resumed run draws nothing.
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ from __future__ import annotations
 import hashlib
 import io
 import json
-import shutil
+import secrets
 from pathlib import Path
 from typing import Any
 
@@ -22,6 +24,9 @@ from octrial.output import json_text, write_atomic
 
 PARTIAL = ".partial"
 """Name of the folder, inside the output folder, that holds unfinished runs."""
+
+SEED_BITS = 63
+"""Drawn seeds are whole numbers in [0, 2^63)."""
 
 
 def run_key(ingredients: dict[str, Any]) -> str:
@@ -81,6 +86,21 @@ class CheckpointStore:
         write_atomic(self.folder / "seed.json", json_text({"seed": seed}))
 
 
-def remove_partial(root: Path) -> None:
-    """Delete ``root`` (a ``.partial`` folder) after a complete run."""
-    shutil.rmtree(root, ignore_errors=True)
+def kept_seed(store: CheckpointStore | None, seed: int | None) -> tuple[int, bool]:
+    """``seed`` when given; otherwise the seed drawn for this run: the one ``store`` saved
+    earlier (a resumed run), or a new one, saved there.
+
+    Returns
+    -------
+    seed : int
+    drawn : bool
+        Whether the seed was drawn rather than given.
+    """
+    if seed is not None:
+        return seed, False
+    saved = store.seed() if store is not None else None
+    if saved is None:
+        saved = secrets.randbits(SEED_BITS)
+        if store is not None:
+            store.save_seed(saved)
+    return saved, True

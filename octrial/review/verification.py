@@ -2,7 +2,9 @@
 
 The design is evaluated at exactly the claims' scenarios (the design's own grid is
 replaced; scenarios that were not in it are reported), exactly where an exact engine
-applies and otherwise by Monte Carlo with many more replicates than any claim. Each claim
+applies and otherwise by Monte Carlo with many more replicates than any claim (or to a
+target standard error), through the execution layer: worker processes, checkpoints for a
+resumed run and a progress bar, none of which changes a number. Each claim
 is then judged by the rounding-aware two-sided z-test of :mod:`octrial.review.comparison`,
 and the p-values of all claims are adjusted together by Holm's procedure
 (:mod:`octrial.review.multiplicity`).
@@ -18,9 +20,10 @@ import numpy as np
 import pandas as pd
 
 from octrial.design.model import Design, Scenarios
-from octrial.engines import choose
+from octrial.engines import MonteCarloSettings, choose
 from octrial.errors import InputError, single
 from octrial.evaluation import compute
+from octrial.execution import Execution
 from octrial.review.claims import Claims
 from octrial.review.comparison import (
     EXPECTED_N,
@@ -115,7 +118,8 @@ def _same(a: tuple[float, ...], b: tuple[float, ...]) -> bool:
 def verify(
     design: Design, claims: Claims, *, alpha: float = DEFAULT_ALPHA,
     tolerance: float = DEFAULT_TOLERANCE, replicates: int | None = None,
-    seed: int | None = None,
+    seed: int | None = None, target_se: float | None = None,
+    max_replicates: int | None = None, execution: Execution | None = None,
 ) -> Verification:
     """Recompute every claimed number of ``claims`` and judge it.
 
@@ -136,7 +140,13 @@ def verify(
         100,000 and ten times the largest claim's).
     seed : int, optional
         Monte Carlo recomputations only: overrides ``simulation.seed`` (a fresh seed is
-        drawn and reported when neither is given).
+        drawn and reported when neither is given; a resumed run keeps it).
+    target_se, max_replicates : optional
+        Monte Carlo recomputations only: simulate each scenario until every estimated
+        probability's standard error is at most ``target_se`` (instead of
+        ``replicates``), with at most ``max_replicates`` studies.
+    execution : Execution, optional
+        Workers, backend, checkpoints and progress bar (never changes a number).
 
     Returns
     -------
@@ -145,18 +155,16 @@ def verify(
     rows = claims.claims
     truths = _unique([c.truth for c in rows])
     method = recompute_method(design)
-    simulation = design.simulation
+    settings = None
     if method == "monte-carlo":
         largest = max((c.replicates for c in rows), default=0)
         count = replicates or max(MIN_REPLICATES, REPLICATE_FACTOR * largest)
-        if seed is None:
-            seed = simulation.seed
-        if seed is None:
-            seed = int(np.random.SeedSequence().entropy % 2**63)
-        simulation = dataclasses.replace(simulation, method=method, replicates=count, seed=seed)
+        cap = {} if max_replicates is None else {"max_replicates": max_replicates}
+        settings = MonteCarloSettings(replicates=count, seed=seed, target_se=target_se, **cap)
     evaluated = dataclasses.replace(
-        design, scenarios=Scenarios(design.scenarios.arms, tuple(truths)), simulation=simulation)
-    evaluation = compute(evaluated, method)
+        design, scenarios=Scenarios(design.scenarios.arms, tuple(truths)),
+        simulation=dataclasses.replace(design.simulation, method=method))
+    evaluation = compute(evaluated, method, settings, execution, assurance=False)
     oc = evaluation.oc
     added = tuple(t for t in truths if not any(_same(t, g) for g in design.scenarios.values))
 
@@ -205,10 +213,17 @@ def verify(
         "note": [c.note for c in rows],
     })
     table = pd.DataFrame(columns)
+    simulated = method == "monte-carlo"
     info = {
         "engine": evaluation.info["engine"],
-        "replicates": simulation.replicates if method == "monte-carlo" else 0,
-        "seed": simulation.seed if method == "monte-carlo" else None,
+        "replicates": (settings.replicates if simulated and target_se is None else
+                       None if simulated else 0),
+        "seed": evaluation.info["seed"] if simulated else None,
+        "seed_drawn": evaluation.info["seed_drawn"] if simulated else None,
+        **({"target_se": target_se, "max_replicates": evaluation.info["max_replicates"],
+            "scenarios_short_of_target": evaluation.info["scenarios_short_of_target"]}
+           if simulated and target_se is not None else {}),
+        "scenarios_resumed": evaluation.info["scenarios_resumed"] if simulated else 0,
         "alpha": alpha,
         "adjustment": "Holm (1979)",
         "tolerance": tolerance,

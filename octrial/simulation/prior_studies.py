@@ -11,17 +11,21 @@ sqrt(p (1 - p) / R), and that of the expected sample size sd(N) / sqrt(R).
 Randomness: batch b uses ``SeedSequence(seed, spawn_key=(ASSURANCE_STREAM, b))``, a
 stream no scenario uses (scenarios use (i, b) with i the scenario's index), in batches of
 a fixed size added in order, so the result depends on the seed and the number of
-studies only.
+studies only. The batches are independent tasks for :func:`octrial.execution.run_grid`
+(worker processes, checkpoints, progress), which never changes a number.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from octrial.design.model import Design
+from octrial.execution import Execution, run_grid
+from octrial.execution.checkpoints import CheckpointStore
 from octrial.simulation import GENERAL_KERNELS
 from octrial.simulation.base import Tally
 
@@ -52,24 +56,44 @@ def prior_simulation_unsupported(design: Design) -> str | None:
     return general_unsupported(design)
 
 
-def simulate_under_design_prior(design: Design, replicates: int, seed: int,
-                                batch_size: int = BATCH_SIZE) -> Tally:
-    """``replicates`` studies of ``design``, each at true values drawn from its design
-    priors (see module docstring); no bias or coverage sums (there is no single truth)."""
-    draws = PRIOR_DRAWS[design.family.name]
+@dataclass(frozen=True, eq=False)
+class PriorBatch:
+    """One batch of studies under the design prior (picklable, for a worker)."""
+
+    design: Design
+    seed: int
+    index: int
+    size: int
+
+
+def simulate_prior_batch(task: PriorBatch) -> dict[str, np.ndarray]:
+    """The tally of one batch, as arrays (runs in a worker)."""
+    design = task.design
     placeholder = tuple(0.0 for _ in design.arms)
     simulator: Any = GENERAL_KERNELS[design.family.name](
         design, placeholder, design.simulation.interval_level)
-    tally: Tally | None = None
-    done = batch = 0
-    while done < replicates:
-        size = min(batch_size, replicates - done)
-        sequence = np.random.SeedSequence(seed, spawn_key=(ASSURANCE_STREAM, batch))
-        rng = np.random.Generator(np.random.PCG64(sequence))
-        mean, sd = draws(design, rng, size)
-        part = simulator.run(simulator.draw(rng, size, mean, sd), size, False)
-        tally = part if tally is None else tally + part
-        done += size
-        batch += 1
-    assert tally is not None
-    return tally
+    sequence = np.random.SeedSequence(task.seed, spawn_key=(ASSURANCE_STREAM, task.index))
+    rng = np.random.Generator(np.random.PCG64(sequence))
+    mean, sd = PRIOR_DRAWS[design.family.name](design, rng, task.size)
+    return simulator.run(simulator.draw(rng, task.size, mean, sd), task.size, False).to_arrays()
+
+
+def simulate_under_design_prior(
+    design: Design, replicates: int, seed: int, batch_size: int = BATCH_SIZE,
+    execution: Execution | None = None, store: CheckpointStore | None = None,
+) -> Tally:
+    """``replicates`` studies of ``design``, each at true values drawn from its design
+    priors (see module docstring); no bias or coverage sums (there is no single truth).
+
+    ``execution`` says where the batches run; ``store`` keeps finished batches for a
+    resumed run (keyed by the caller on the design, seed, replicates and batch size).
+    """
+    sizes = [min(batch_size, replicates - start) for start in range(0, replicates, batch_size)]
+    tasks = [PriorBatch(design, seed, b, size) for b, size in enumerate(sizes)]
+    results, _ = run_grid(simulate_prior_batch, tasks, execution or Execution(), store,
+                          unit="assurance batches")
+    tallies = [Tally.from_arrays(r) for r in results]
+    total = tallies[0]
+    for part in tallies[1:]:
+        total = total + part
+    return total
