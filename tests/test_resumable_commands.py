@@ -9,6 +9,7 @@ replicates, so that every test stays fast.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 
@@ -19,6 +20,7 @@ from click.testing import CliRunner
 
 from octrial.calibration import calibrate
 from octrial.cli import main
+from octrial.cli.common import SimulationOptions
 from octrial.design.write import dumps
 from octrial.design_prior import assurance
 from octrial.engines import MonteCarloSettings
@@ -247,20 +249,36 @@ def test_calibration_to_a_target_fixes_one_number_of_studies_for_every_candidate
 
 # -- commands: Ctrl-C, and partial folders of other runs --------------------------------
 
-@pytest.mark.parametrize("command, target", [("verify", "octrial.cli.verify.verify"),
-                                             ("calibrate", "octrial.cli.calibrate.calibrate")])
-def test_ctrl_c_exits_130_and_says_how_to_resume(runner, files, tmp_path, monkeypatch,
-                                                 command, target) -> None:
-    def interrupted(*args, **kwargs):
-        raise KeyboardInterrupt
-
-    monkeypatch.setattr(target, interrupted)
+@pytest.mark.parametrize("command", ["verify", "calibrate"])
+def test_command_interrupted_by_ctrl_c_resumes_to_the_same_files(runner, files, tmp_path,
+                                                                 monkeypatch, command) -> None:
     design, claims = files
-    args = [str(claims)] if command == "verify" else ["--alpha", "0.05"]
-    result = runner.invoke(main, [command, str(design), *args, "--out", str(tmp_path / "o")])
+    args = ([command, str(design), str(claims), "--replicates", "3000"] if command == "verify"
+            else [command, str(design), *CALIBRATE_ARGS])
+    code = 1 if command == "verify" else 0
+    whole, out = tmp_path / "whole", tmp_path / "out"
+    invoke(runner, *args, "--out", str(whole), code=code)
+    plain = SimulationOptions.execution
+
+    def interrupting(self, folder):  # Ctrl-C after three scenarios
+        return dataclasses.replace(plain(self, folder), on_saved=stop_after(3, []))
+
+    monkeypatch.setattr(SimulationOptions, "execution", interrupting)
+    result = runner.invoke(main, [*args, "--out", str(out)])
     assert result.exit_code == 130
     assert "run the same command again to resume" in result.output
-    assert not (tmp_path / "o").exists()
+    assert len(list((out / PARTIAL).rglob("scenario-*.npz"))) == 3
+    assert not list(out.glob("*.csv")) and not list(out.glob("*.json"))
+    monkeypatch.setattr(SimulationOptions, "execution", plain)
+    invoke(runner, *args, "--out", str(out), code=code)
+    assert not (out / PARTIAL).exists()
+    name = f"{command}.json" if command == "verify" else "calibration.json"
+    record = json.loads((out / name).read_text())
+    resumed = record["scenarios_resumed"] if command == "verify" else (
+        record["simulation"]["scenarios_resumed"])
+    assert resumed == 3
+    table = f"{command}.csv" if command == "verify" else "calibration.csv"
+    assert (out / table).read_bytes() == (whole / table).read_bytes()
 
 
 def test_a_finished_command_leaves_other_unfinished_runs_alone(runner, files, tmp_path) -> None:

@@ -280,6 +280,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     >>> result.summary["chosen"]["final"]["value"]  # doctest: +SKIP
     """
     request = make_request(design, source, **settings)
+    simulation = simulation or MonteCarloSettings()
     execution, seed_store = (execution or Execution()).within({
         "calibration": repr(request), "design_sha256": design.source.sha256,
         "design": repr(design), "simulation": repr(simulation), "octrial": __version__})
