@@ -197,6 +197,7 @@ class EngineEvaluator(Evaluator):
 
     def assess(self, design: Design) -> Assessment:
         engine = choose(design, self.method)
+        key = None
         if engine is not MonteCarloEngine:
             outcome = engine.run(design, self.truths.values)
         else:
@@ -212,8 +213,8 @@ class EngineEvaluator(Evaluator):
         expected_n = stop @ np.asarray(design.looks.n, dtype=float)
         found = assessment(self.truths, outcome.efficacy.sum(axis=1), expected_n,
                            outcome.replicates)
-        if not self.exact:
-            self.done[repr(design)] = found
+        if key is not None:
+            self.done[key] = found
             self._show(f"{self.evaluations} candidates simulated, the last with type I "
                        f"error {found.type1:.4g}")
         return found
