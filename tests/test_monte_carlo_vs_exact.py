@@ -186,7 +186,7 @@ def test_normal_summaries_under_a_flat_prior_are_the_frequentist_ones(arms: str)
     # Identity: with a flat prior and one look the posterior mean is the estimate (sample
     # mean or difference), unbiased with RMSE = its standard error, and the equal-tailed
     # 95% credible interval is the 95% confidence interval, so coverage is 0.95 exactly.
-    # The exact recursion reports no such summaries, so this is their check.
+    # (The exact recursion is held to the same identity in tests/test_normal_engine.py.)
     if arms.startswith("one arm"):
         better = "lower" if arms.endswith("better") else "higher"
         design = build(NORMAL_ONE_ARM, endpoint__better=better,

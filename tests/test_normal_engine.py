@@ -271,3 +271,131 @@ def test_boundaries_command_on_a_normal_design(tmp_path) -> None:
     assert result.exit_code == 0, result.output
     assert "success if difference >= " in result.output and "(z >= " in result.output
     assert (tmp_path / "boundaries.csv").exists()
+
+
+@pytest.mark.parametrize("prior", ["flat", "normal"])
+@pytest.mark.parametrize("better", ["higher", "lower"])
+@pytest.mark.parametrize("level", [0.95, 0.8])
+def test_single_look_bias_rmse_coverage_in_closed_form(prior: str, better: str,
+                                                       level: float) -> None:
+    # Identity (normal-normal conjugacy): one look, n subjects, known sd sigma, prior
+    # N(m0, s0^2) (precision p0 = 1/s0^2; flat: p0 = 0), information I = n / sigma^2. The
+    # posterior mean is (p0 m0 + I xbar) / (p0 + I) with xbar ~ N(theta, 1/I), so its error
+    # is normal with mean b = p0 (m0 - theta) / (p0 + I) and sd v = sqrt(I) / (p0 + I); the
+    # equal-tailed interval is mean +- z / sqrt(p0 + I), which covers theta with probability
+    # Phi((h - b) / v) - Phi((-h - b) / v), h = z / sqrt(p0 + I). Flat prior: b = 0,
+    # RMSE = sigma / sqrt(n), coverage = level.
+    sigma, n, m0, s0 = 2.0, 40, 0.3, 0.5
+    spec = {"distribution": "flat"} if prior == "flat" else {
+        "distribution": "normal", "mean": m0, "sd": s0}
+    truths = [-0.4, 0.0, 0.25, 0.9]
+    design = build(ONE_ARM, endpoint={"type": "normal", "sd": sigma, "better": better},
+                   arms__treatment__prior=spec, looks={"n": [n], "efficacy": 0.975},
+                   scenarios__treatment=truths, simulation={"interval_level": level})
+    oc = compute(design).oc
+    p0 = 0.0 if prior == "flat" else 1 / s0**2
+    info = n / sigma**2
+    theta = np.array(truths)
+    b = p0 * (m0 - theta) / (p0 + info)
+    v = math.sqrt(info) / (p0 + info)
+    h = stats.norm.ppf((1 + level) / 2) / math.sqrt(p0 + info)
+    np.testing.assert_allclose(oc["bias"], b, atol=1e-9)
+    np.testing.assert_allclose(oc["rmse"], np.sqrt(b**2 + v**2), atol=1e-9)
+    np.testing.assert_allclose(oc["coverage"],
+                               stats.norm.cdf((h - b) / v) - stats.norm.cdf((-h - b) / v),
+                               atol=1e-9)
+    if prior == "flat":
+        np.testing.assert_allclose(oc["coverage"], level, atol=1e-9)
+    assert (oc["bias_se"] == 0).all() and (oc["coverage_se"] == 0).all()
+
+
+def reference_two_look_estimation(design, eta: float, level: float) -> np.ndarray:
+    """(E[e], E[e^2], coverage) at the stopping look of a two-look design, integrating
+    over the score: scipy.integrate.quad over look 1 and, for look 2, quad over S_1 of a
+    Gauss-Hermite sum (scipy.special.roots_hermite, 80 nodes) over S_2 | S_1. The posterior
+    is :func:`update` (checked against quad above); the interval's end points come from
+    scipy.optimize.brentq on the posterior CDF, and the scores where they cross the truth
+    (between them the interval covers) from brentq again."""
+    from scipy import optimize, special
+
+    rule = design.family.decision_rule(design)
+    prior = design.family.analysis_prior(design)
+    sign = rule.sign
+    info = [look.information for look in rule.looks]
+    up0, lo0 = rule.looks[0].upper, rule.looks[0].lower
+    d = info[1] - info[0]
+    tail = (1 - level) / 2
+    x, w = special.roots_hermite(80)
+
+    def errors(s: np.ndarray, i: float) -> np.ndarray:
+        post = update(prior, sign, i, np.atleast_1d(s))
+        return np.sum(post.weights * post.mean, axis=1) - eta
+
+    def end(s: float, i: float, p: float) -> float:
+        post = update(prior, sign, i, np.array([s]))
+
+        def cdf(v: float) -> float:
+            return float(np.sum(post.weights * stats.norm.cdf(
+                (v - post.mean) * np.sqrt(post.precision))))
+        return optimize.brentq(lambda v: cdf(v) - p, -100, 100, xtol=1e-14)
+
+    def covered_scores(i: float) -> tuple[float, float]:
+        span = 100 * i
+        low = optimize.brentq(lambda s: end(s, i, 1 - tail) - eta, -span, span, xtol=1e-12)
+        high = optimize.brentq(lambda s: end(s, i, tail) - eta, -span, span, xtol=1e-12)
+        return low, high
+
+    f1 = lambda s: stats.norm.pdf(s, eta * info[0], math.sqrt(info[0]))  # noqa: E731
+    opts = {"epsabs": 1e-12, "epsrel": 1e-11, "limit": 200}
+    total = np.zeros(3)
+    # look 1: the stopping region outside [lo0, up0)
+    centre, width = eta * info[0], 12 * math.sqrt(info[0])
+    c_lo, c_hi = covered_scores(info[0])
+    for a, b in ((centre - width, lo0), (up0, centre + width)):
+        if b <= a:
+            continue
+        total[0] += integrate.quad(lambda s: f1(s) * sign * errors(s, info[0])[0], a, b,
+                                   **opts)[0]
+        total[1] += integrate.quad(lambda s: f1(s) * errors(s, info[0])[0] ** 2, a, b,
+                                   **opts)[0]
+        a, b = max(a, c_lo), min(b, c_hi)
+        if b > a:
+            total[2] += integrate.quad(f1, a, b, **opts)[0]
+
+    # look 2: S_2 | S_1 ~ N(S_1 + eta d, d); E[g(S_2)] = sum_j w_j g(mean + sqrt(2 d) x_j)
+    def inner(s1: float, power: int) -> float:
+        e = errors(s1 + eta * d + math.sqrt(2 * d) * x, info[1])
+        values = sign * e if power == 1 else e**2
+        return float(w @ values) / math.sqrt(math.pi)
+
+    c_lo, c_hi = covered_scores(info[1])
+    for m, integrand in enumerate((lambda s: f1(s) * inner(s, 1),
+                                   lambda s: f1(s) * inner(s, 2),
+                                   lambda s: f1(s) * (stats.norm.cdf(c_hi, s + eta * d,
+                                                                     math.sqrt(d))
+                                                      - stats.norm.cdf(c_lo, s + eta * d,
+                                                                       math.sqrt(d))))):
+        total[m] += integrate.quad(integrand, lo0, up0, **opts)[0]
+    return total
+
+
+@pytest.mark.parametrize("effect", [0.0, 4.0])
+def test_two_look_bias_rmse_coverage_against_scipy_integration(effect: float) -> None:
+    # Source: scipy.integrate over the score at looks 1 and 2 (reference above), for a
+    # mixture prior on the difference, lower better, with posterior futility.
+    level = 0.9
+    design = build(TWO_ARM, endpoint__better="lower", hypothesis__prior=MIXTURE | {
+        "components": [{"weight": 0.7, "mean": 0.0, "sd": 2.0},
+                       {"weight": 0.3, "mean": -3.0, "sd": 8.0}]},
+        looks={"n": [80, 160], "efficacy": [0.995, 0.975], "futility": 0.2},
+        scenarios={"control": [20.0], "effect": [-effect]},
+        simulation={"interval_level": level})
+    ev = compute(design)
+    eta = effect  # benefit scale: lower better, difference -effect
+    bias, second, coverage = reference_two_look_estimation(design, eta, level)
+    oc = ev.oc
+    assert oc["bias"].iloc[0] == pytest.approx(bias, abs=1e-6)
+    assert oc["rmse"].iloc[0] == pytest.approx(math.sqrt(second), abs=1e-6)
+    assert oc["coverage"].iloc[0] == pytest.approx(coverage, abs=1e-6)
+    errors = ev.info["estimation_error_estimate"]
+    assert max(errors.values()) < 1e-6

@@ -241,6 +241,13 @@ def _benefit_root(prior: Any, sign: int, information: float, claim: float,
         return math.inf
     if t <= 0:
         return -math.inf
+    return benefit_score(prior, sign, information, claim, t)
+
+
+def benefit_score(prior: Any, sign: int, information: float, claim: float,
+                  probability: float) -> float:
+    """The score S where Pr(eta > claim | S) = ``probability`` (in (0, 1))."""
+    t = probability
     _, m, p0 = benefit_components(prior, sign)
     precision = p0 + information
     z = special.ndtri(t)
