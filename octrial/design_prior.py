@@ -330,7 +330,7 @@ def _quadrature(design: Design, generating: Design) -> tuple[np.ndarray, np.ndar
             total = np.zeros((2, design.looks.count))
             for weight, dist in components:
                 theta = np.where(u < 0.5, dist.ppf(u), dist.isf(v))
-                outcome = engine.run(design, truths_at(theta))
+                outcome = engine.run(design, truths_at(theta), estimate=False)
                 total += weight * np.stack([w @ outcome.efficacy, w @ outcome.futility])
             return total
 
@@ -339,5 +339,5 @@ def _quadrature(design: Design, generating: Design) -> tuple[np.ndarray, np.ndar
     per_arm = [_nodes(family, arm.prior) for arm in generating.arms]
     truths = np.array(list(itertools.product(*(nodes for nodes, _ in per_arm))))
     weights = np.prod(np.array(list(itertools.product(*(wt for _, wt in per_arm)))), axis=1)
-    outcome = engine.run(design, truths)
+    outcome = engine.run(design, truths, estimate=False)
     return weights @ outcome.efficacy, weights @ outcome.futility

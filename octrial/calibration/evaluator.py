@@ -199,7 +199,7 @@ class EngineEvaluator(Evaluator):
         engine = choose(design, self.method)
         key = None
         if engine is not MonteCarloEngine:
-            outcome = engine.run(design, self.truths.values)
+            outcome = engine.run(design, self.truths.values, estimate=False)
         else:
             key = repr(design)  # the bisection asks for some candidates twice
             if key in self.done:

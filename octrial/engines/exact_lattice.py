@@ -133,16 +133,17 @@ class ExactLatticeEngine:
 
     @staticmethod
     def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
-            **_simulation: Any) -> Outcome:
+            estimate: bool = True, **_simulation: Any) -> Outcome:
         """Evaluate every scenario in ``truths`` (one row per scenario, one column per arm).
 
         A rule whose truncated lattice is too small for ``truths`` is rebuilt for them.
-        Simulation settings (replicates, seeds, parallel execution) do not apply and are
-        ignored.
+        Without ``estimate`` the bias, RMSE and coverage are skipped (searches that need
+        only the stopping probabilities). Simulation settings (replicates, seeds, parallel
+        execution) do not apply and are ignored.
         """
         if rule is None or not rule.covers(truths):
             rule = build_rule(design, truths=truths)
-        estimates = lattice_estimates(design, rule)
+        estimates = lattice_estimates(design, rule) if estimate else None
         level = design.simulation.interval_level
         efficacy, futility, neglected, uncertain, moments, coverage = [], [], [], [], [], []
         for t in truths:
