@@ -114,3 +114,109 @@ def test_count_rules_without_priors_have_no_estimation_columns() -> None:
     for method in ("exact", "monte-carlo"):
         oc = compute(design, method).oc
         assert not {"bias", "rmse", "coverage"} & set(oc.columns)
+
+
+# -- posteriors on a grid --------------------------------------------------------------
+
+
+@functools.cache
+def logit_normal_posterior(mean: float, sd: float, n: int, x: int):
+    """Posterior mean of p and its CDF (a function) under a logit-normal prior after x
+    responses in n, by scipy.integrate.quad over the logit (independent of the grid)."""
+    def density(t: float) -> float:
+        p = 1 / (1 + np.exp(-t))
+        return stats.norm.pdf(t, mean, sd) * stats.binom.pmf(x, n, p)
+
+    lo, hi = mean - 12 * sd, mean + 12 * sd
+    opts = {"epsabs": 0.0, "epsrel": 1e-12, "limit": 400}
+    total = integrate.quad(density, lo, hi, **opts)[0]
+    first = integrate.quad(lambda t: density(t) / (1 + np.exp(-t)), lo, hi, **opts)[0]
+
+    def cdf(p: float) -> float:
+        return integrate.quad(density, lo, np.log(p / (1 - p)), **opts)[0] / total
+    return first / total, cdf
+
+
+@pytest.mark.parametrize("truth", [0.2, 0.45])
+def test_grid_estimation_matches_enumeration_with_quad(truth: float) -> None:
+    # Source: path enumeration (scipy.stats.binom) with the logit-normal posterior by
+    # scipy.integrate.quad at each stopping point.
+    looks, efficacy, futility, level = [6, 12, 18], [0.99, 0.97, 0.9], [0.1, 0.2], 0.9
+    prior = (-1.0, 1.2)
+    design = build(ONE_ARM, arms__treatment__prior={"distribution": "logit-normal",
+                                                    "logit_mean": prior[0],
+                                                    "logit_sd": prior[1]},
+                   hypothesis__benchmark=0.25, looks__n=looks, looks__efficacy=efficacy,
+                   looks__futility=futility, scenarios__treatment=[truth],
+                   simulation={"interval_level": level})
+    oc = compute(design).oc
+    rule = design.family.decision_rule(design)
+    sizes = np.diff([0, *looks])
+    moments, coverage = np.zeros(3), 0.0
+    for path in itertools.product(*(range(s + 1) for s in sizes)):
+        prob = np.prod([stats.binom.pmf(y, s, truth) for y, s in zip(path, sizes, strict=True)])
+        x = 0
+        for k, (y, n) in enumerate(zip(path, looks, strict=True)):
+            x += y
+            # the decision is read from octrial's table (checked against quad elsewhere)
+            table = rule.looks[k]
+            if table.efficacy[x] or table.futility[x]:
+                mean, cdf = logit_normal_posterior(*prior, n, x)
+                e = mean - truth
+                moments += prob * np.array([e, e**2, e**4])
+                coverage += prob * ((1 - level) / 2 <= cdf(truth) <= (1 + level) / 2)
+                break
+    assert abs(moments[0]) > 1e-3  # a shrinking prior: the check has something to find
+    assert oc["bias"].iloc[0] == pytest.approx(moments[0], abs=1e-8)
+    assert oc["rmse"].iloc[0] == pytest.approx(np.sqrt(moments[1]), abs=1e-8)
+    assert oc["coverage"].iloc[0] == pytest.approx(coverage, abs=1e-8)
+
+
+def test_grid_two_arm_odds_ratio_estimation_against_beta_identities() -> None:
+    # Two arms on the odds-ratio scale with beta priors (posteriors on the grid). The
+    # target is the log odds ratio: E[logit p] = digamma(a) - digamma(b) under Beta(a, b)
+    # (identity: E[log p] = digamma(a) - digamma(a + b)), and Pr(log OR <= t) by
+    # scipy.integrate.quad over the control rate; enumeration of every path as above.
+    from scipy import special
+
+    per_arm, efficacy, futility, level = [4, 8], [0.97, 0.95], [0.15], 0.8
+    truth = (0.6, 0.35)
+    design = build(TWO_ARM, hypothesis__comparison="odds-ratio", looks__n=[8, 16],
+                   looks__efficacy=efficacy, looks__futility=futility,
+                   simulation={"interval_level": level},
+                   scenarios={"control": [truth[1]], "treatment": [truth[0]]})
+    oc = compute(design).oc
+    rule = design.family.decision_rule(design)
+    target = special.logit(truth[0]) - special.logit(truth[1])
+
+    @functools.cache
+    def summaries(x_t: int, x_c: int, n: int) -> tuple[float, float]:
+        a_t, b_t, a_c, b_c = 1 + x_t, 1 + n - x_t, 1 + x_c, 1 + n - x_c
+        mean = (special.digamma(a_t) - special.digamma(b_t)
+                - special.digamma(a_c) + special.digamma(b_c))
+
+        def integrand(u: float) -> float:  # Pr(logit p_T <= logit u + target)
+            p = special.expit(special.logit(u) + target)
+            return stats.beta.pdf(u, a_c, b_c) * stats.beta.cdf(p, a_t, b_t)
+        cdf = integrate.quad(integrand, 0, 1, epsabs=1e-14, limit=200)[0]
+        return mean, cdf
+
+    moments, coverage = np.zeros(3), 0.0
+    sizes = np.diff([0, *per_arm])
+    for path in itertools.product(*(range(s + 1) for s in sizes for _ in (0, 1))):
+        incs = np.array(path).reshape(len(sizes), 2)
+        prob = np.prod([stats.binom.pmf(incs[k, 0], s, truth[0]) * stats.binom.pmf(
+            incs[k, 1], s, truth[1]) for k, s in enumerate(sizes)])
+        x_t = x_c = 0
+        for k, n in enumerate(per_arm):
+            x_t, x_c = x_t + incs[k, 0], x_c + incs[k, 1]
+            table = rule.looks[k]
+            if table.efficacy[x_t, x_c] or table.futility[x_t, x_c]:
+                mean, cdf = summaries(x_t, x_c, n)
+                e = mean - target
+                moments += prob * np.array([e, e**2, e**4])
+                coverage += prob * ((1 - level) / 2 <= cdf <= (1 + level) / 2)
+                break
+    assert oc["bias"].iloc[0] == pytest.approx(moments[0], abs=1e-7)
+    assert oc["rmse"].iloc[0] == pytest.approx(np.sqrt(moments[1]), abs=1e-7)
+    assert oc["coverage"].iloc[0] == pytest.approx(coverage, abs=1e-7)

@@ -316,9 +316,16 @@ class BinaryFamily(GridModel, LatticeFamily):
             return grid_family.predictive(design, posterior, m, size)
         return predictive_pmf(posterior, m)[:, :size]
 
+    def target_value(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
+        """One arm: the rate. Two arms: p_T - p_C, or the log odds ratio when the
+        comparison is on the odds-ratio scale (grid posteriors)."""
+        if len(truth) == 2 and hypothesis.comparison == "odds-ratio":
+            return float(special.logit(truth[0]) - special.logit(truth[1]))
+        return super().target_value(hypothesis, truth)
+
     def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray | None:
         if self.on_grid(design):
-            return None  # grid posteriors: no bias, RMSE or coverage summaries yet
+            return grid_family.target_mean(design, posteriors)
         if len(posteriors) == 1:
             return posteriors[0].mean()
         treatment, control = posteriors
@@ -327,7 +334,7 @@ class BinaryFamily(GridModel, LatticeFamily):
     def target_cdf(self, design: Any, posteriors: tuple[Any, ...],
                    value: float) -> np.ndarray | None:
         if self.on_grid(design):
-            return None
+            return grid_family.target_cdf(design, posteriors, value)
         if len(posteriors) == 1:
             return posteriors[0].cdf(value)
         treatment, control = posteriors

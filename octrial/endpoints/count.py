@@ -365,7 +365,7 @@ class CountFamily(GridModel, LatticeFamily):
 
     def target_mean(self, design: Any, posteriors: tuple[Any, ...]) -> np.ndarray | None:
         if self.on_grid(design):
-            return None  # grid posteriors: no bias, RMSE or coverage summaries yet
+            return grid_family.target_mean(design, posteriors)
         if len(posteriors) == 1:
             return posteriors[0].mean()
         treatment, control = (np.sum(p.weights * (special.digamma(p.a) - np.log(p.b)), axis=1)
@@ -375,7 +375,7 @@ class CountFamily(GridModel, LatticeFamily):
     def target_cdf(self, design: Any, posteriors: tuple[Any, ...],
                    value: float) -> np.ndarray | None:
         if self.on_grid(design):
-            return None
+            return grid_family.target_cdf(design, posteriors, value)
         if len(posteriors) == 1:
             return posteriors[0].cdf(value)
         return prob_ratio(posteriors[0], posteriors[1], math.exp(value), below=True)

@@ -149,6 +149,28 @@ def benefit(design: Any, posts: tuple[GridPosterior, ...]) -> tuple[np.ndarray, 
     return value, min(error, 1.0)
 
 
+def target_mean(design: Any, posts: tuple[GridPosterior, ...]) -> np.ndarray:
+    """Posterior mean of the target parameter: one arm, the rate (trapezoidal sum of
+    the back-transformed nodes); two arms, theta_T - theta_C (log odds ratio, log rate
+    ratio), shaped treatment x control like :func:`benefit`."""
+    family: GridModel = design.family
+    if len(posts) == 1:
+        post = posts[0]
+        return post.weights @ family.from_theta(post.grid.nodes)
+    treatment, control = (post.weights @ post.grid.nodes for post in posts)
+    return treatment[:, None] - control[None, :]
+
+
+def target_cdf(design: Any, posts: tuple[GridPosterior, ...], value: float) -> np.ndarray:
+    """Posterior Pr(target <= ``value``), shaped like :func:`target_mean`."""
+    family: GridModel = design.family
+    if len(posts) == 1:
+        post = posts[0]
+        position = (family.to_theta(value) - post.grid.anchor) / post.grid.step
+        return pg.cdf_at(post, np.array([position]))[:, 0]
+    return pg.difference_cdf(posts[0], posts[1], value)
+
+
 def predictive(design: Any, post: GridPosterior, m: int, size: int) -> np.ndarray:
     """Predictive pmf of the statistic of ``m`` future subjects, one row per point."""
     key = ("predictive", m, size)
