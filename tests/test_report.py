@@ -375,3 +375,14 @@ def test_paper_size_and_commands_as_typed(runs) -> None:
         "python", "-m", "octrial", "run", "d.toml"]
     assert display_command(["/usr/local/bin/octrial", "report", "r"]) == [
         "octrial", "report", "r"]
+
+
+def test_precision_of_the_normal_recursion_is_stated_from_run_json(runs) -> None:
+    folder = runs["two-arm-continuous-score"]
+    record = json.loads((folder / "run.json").read_text())
+    precision = text(parse(folder / "report.html").find(".//section[@id='precision']"))
+    assert "recursive numerical integration" in precision
+    assert "dynamic programming" not in precision
+    assert f"is {record['quadrature_error_estimate']:.2g}" in precision
+    coverage = record["estimation_error_estimate"]["coverage"]
+    assert f"{coverage:.2g}" in precision

@@ -51,11 +51,23 @@ def _exact(record: dict[str, Any], rows: int, total: int) -> list[str]:
     share = "All" if rows == total else f"{rows} of the {total}"
     quad = record.get("quadrature_error_bound")
     neglected = record.get("max_neglected_mass")
-    text = [f"{share} scenarios were computed exactly by dynamic programming over the "
-            "distribution of the sufficient statistic (engine "
+    recursion = record.get("quadrature")
+    how = ("recursive numerical integration over the distribution of the sufficient "
+           "statistic (Armitage, McPherson & Rowe 1969)" if recursion is not None else
+           "dynamic programming over the distribution of the sufficient statistic")
+    text = [f"{share} scenarios were computed exactly by {how} (engine "
             f"'{record.get('engine', 'exact')}'): these numbers carry no Monte Carlo error and "
             "their standard errors are 0."]
     facts = []
+    if recursion is not None:
+        facts.append(f"with {recursion['points_per_sd']} grid points per standard deviation, "
+                     "the largest difference of any stopping probability from the computation "
+                     f"with half as many is {record['quadrature_error_estimate']:.2g}")
+        summaries = record.get("estimation_error_estimate")
+        if summaries:
+            facts.append("the same differences for bias, RMSE and coverage are at most "
+                         f"{summaries['bias']:.2g}, {summaries['rmse']:.2g} and "
+                         f"{summaries['coverage']:.2g}")
     if quad is not None:
         facts.append("the largest estimated absolute error of any posterior probability "
                       f"behind the rule is {quad:.2g}" + (" (closed form)" if quad == 0 else
