@@ -6,6 +6,7 @@ tests/test_checks.py.
 
 from __future__ import annotations
 
+import base64
 import json
 import shutil
 from pathlib import Path
@@ -78,6 +79,11 @@ def test_report_shows_the_checks(folder) -> None:
     section = page.find(".//section[@id='checks']")
     assert section.find(".//figure[@id='figure-checks-sbc']") is not None
     assert section.find(".//figure[@id='figure-checks-sensitivity']") is not None
+    assert section.find(".//figure[@id='figure-checks-tail-accuracy']") is not None
+    # the prior predictive drawing is embedded byte for byte from prior-predictive.png
+    drawing = section.find(".//figure[@id='figure-checks-prior-predictive']//img")
+    embedded = base64.b64decode(drawing.get("src").split(",", 1)[1])
+    assert embedded == (folder / "prior-predictive.png").read_bytes()
     record = json.loads((folder / "checks.json").read_text())
     verdicts = table_rows(page, "checks-verdicts")
     assert [r.cells["verdict"].text for r in verdicts] == [v["verdict"] for v in

@@ -64,6 +64,9 @@ class ReportData:
     sensitivity : DataFrame or None
         ``sensitivity.csv`` (written by ``octrial check`` beside checks.json): every
         simulated study's posterior shrinkage and z-score per look.
+    prior_predictive_png : bytes or None
+        ``prior-predictive.png``, drawn by the same ``octrial check`` as checks.json (its
+        distributions are not in checks.json, so the report embeds the drawing).
     alpha : float or None
         The one-sided type I error level the design is meant to keep (for the figures'
         alpha line and the verdict on the maximum type I error); taken from the
@@ -81,6 +84,7 @@ class ReportData:
     checks: dict[str, Any] | None = None
     alpha: float | None = None
     sensitivity: pd.DataFrame | None = None
+    prior_predictive_png: bytes | None = None
 
     @property
     def type1(self) -> dict[str, Any] | None:
@@ -114,19 +118,23 @@ def from_design(
     evaluation = compute(loaded, method)
     record = run_record(evaluation, started=started, finished=now(), command=command)
     origin = f"design file {loaded.source.path or loaded.name}, evaluated for this report"
-    checks, sensitivity = (None, None) if checks_folder is None else _checks_of(
-        Path(checks_folder), loaded)
+    checks, sensitivity, predictive = (None, None, None) if checks_folder is None else (
+        _checks_of(Path(checks_folder), loaded))
     return ReportData(loaded, evaluation.oc, evaluation.boundaries, record, origin,
-                      alpha=alpha, checks=checks, sensitivity=sensitivity)
+                      alpha=alpha, checks=checks, sensitivity=sensitivity,
+                      prior_predictive_png=predictive)
 
 
 def _checks_of(folder: Path, design: Design) -> tuple[dict[str, Any] | None,
-                                                      pd.DataFrame | None]:
-    """checks.json and sensitivity.csv in ``folder`` when they belong to ``design``."""
+                                                      pd.DataFrame | None, bytes | None]:
+    """checks.json, sensitivity.csv and prior-predictive.png in ``folder`` when they
+    belong to ``design``."""
     checks = _optional_json(folder / "checks.json")
     if checks is None or (checks.get("design") or {}).get("sha256") != design.source.sha256:
-        return None, None
-    return checks, _optional_table(folder / "sensitivity.csv")
+        return None, None, None
+    drawing = folder / "prior-predictive.png"
+    return (checks, _optional_table(folder / "sensitivity.csv"),
+            drawing.read_bytes() if drawing.is_file() else None)
 
 
 def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportData:
@@ -161,14 +169,15 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
         alpha = _stated_alpha(calibrated)
     checks = _optional_json(folder / "checks.json")
     sensitivity = _optional_table(folder / "sensitivity.csv")
+    predictive = None
     if checks is not None and str(checks.get("kind", "")).startswith("octrial-checks/"):
         # checks of another version of the design file are not this run's
-        checks, sensitivity = _checks_of(folder, design)
+        checks, sensitivity, predictive = _checks_of(folder, design)
     return ReportData(design, oc, boundaries, record, f"run folder {folder}",
                       calibration=_optional_table(folder / "calibration.csv"),
                       sizing=_optional_table(folder / "sizing.csv"),
                       calibration_record=calibrated, checks=checks, alpha=alpha,
-                      sensitivity=sensitivity)
+                      sensitivity=sensitivity, prior_predictive_png=predictive)
 
 
 def _stated_alpha(record: dict[str, Any]) -> float | None:

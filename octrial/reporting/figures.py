@@ -377,6 +377,25 @@ def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
                   "Step chart of type I error and power against the maximum sample size.")
 
 
+def prior_predictive(data: Any, facts: PlotFacts) -> Figure | None:
+    """The prior predictive distributions drawn by ``octrial check`` (prior-predictive.png
+    beside checks.json: the distributions themselves are not in checks.json)."""
+    drawing = getattr(data, "prior_predictive_png", None)
+    if drawing is None:
+        return None
+    record = (getattr(data, "checks", None) or {}).get("prior_predictive") or {}
+    flags = [flag for source in ("analysis", "design")
+             for flag in (record.get(source) or {}).get("flags", [])]
+    caption = ("Prior predictive distribution of each observable at the final look: what "
+               "the analysis prior (solid, dark) and the design prior (dashed, lighter), "
+               "with the data model, expect the study to see before any data. ")
+    caption += ("Flagged: " + "; ".join(flags) + "." if flags else
+                "No prior puts visible mass on implausible outcomes.")
+    uri = "data:image/png;base64," + base64.b64encode(drawing).decode("ascii")
+    return Figure("checks-prior-predictive", "Prior predictive distributions", caption, uri,
+                  "Prior predictive probability or density of each observable.")
+
+
 def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
     """Simulation-based calibration histograms (checks.json written by ``octrial check``)."""
     from octrial.reporting import check_figures
@@ -426,9 +445,30 @@ def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
                   "Scatter plots of posterior z-score against posterior shrinkage per look.")
 
 
+def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
+    """Monte Carlo error of posterior quantiles against the number of draws (checks.json)."""
+    from octrial.reporting import check_figures
+    from octrial.reporting.check_tables import is_ours
+
+    checks = getattr(data, "checks", None)
+    if checks is None or not is_ours(checks):
+        return None
+    record = checks.get("tail_accuracy") or {}
+    if "table" not in record:
+        return None
+    fig = check_figures.tail_figure(record)
+    caption = (f"Monte Carlo standard error of posterior quantiles of {record['label']} "
+               f"({record['data']}), relative to the posterior sd, against the number of "
+               "posterior draws: repeated draws (markers) and the asymptotic formula (lines). "
+               "Tail quantiles need several times the draws of the median for the same "
+               "precision.")
+    return Figure("checks-tail-accuracy", "Accuracy of posterior tail quantiles", caption,
+                  encode(fig), "Log-log plot of quantile standard error against draws.")
+
+
 FIGURES: tuple[Callable[[Any, PlotFacts], Figure | None], ...] = (
-    power_curve, stopping, expected_sample_size, sawtooth, sbc_histograms,
-    sensitivity_scatter,
+    power_curve, stopping, expected_sample_size, sawtooth, prior_predictive, sbc_histograms,
+    sensitivity_scatter, tail_accuracy,
 )
 """Figure builders in report order. Figures named ``checks-...`` are shown in the
 workflow-checks section."""
