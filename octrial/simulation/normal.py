@@ -261,10 +261,6 @@ def unsupported(design: Design) -> str | None:
     """Why the normal kernels cannot simulate ``design``, or ``None``."""
     if design.looks.uses_counts:
         return "a rule stated in counts needs a count or binary endpoint"
-    if (not design.endpoint.known_sd and design.two_arm
-            and any(v is not None for v in design.looks.futility_predictive[:-1])):
-        return ("predictive futility for two arms with unknown sd is not available (the "
-                "predictive probability would need a four-dimensional integral per study)")
     if any(prior is None for prior in _priors(design)):
         return "an analysis prior"
     return None
