@@ -182,14 +182,16 @@ def test_unknown_sd_is_simulated_and_exact_is_refused_clearly(tmp_path) -> None:
     assert "monte-carlo" in (tmp_path / "auto" / "oc.csv").read_text()
 
 
-def test_two_arm_unknown_sd_predictive_futility_is_refused_clearly() -> None:
+def test_two_arm_unknown_sd_predictive_futility_is_simulated() -> None:
+    # (Once refused; its predictive rule is checked in tests/test_normal_unknown_sd.py.)
     design = build(NORMAL_ONE_ARM, endpoint=UNKNOWN_SD, arms={
         "treatment": {"prior": NIG}, "control": {"prior": NIG}},
         hypothesis={"comparison": "difference", "margin": 0.0},
         looks={"n": [40, 80], "efficacy": [0.99, 0.975], "futility_predictive": 0.1},
-        scenarios={"control": [0.0], "effect": [0.0]})
-    with pytest.raises(InputError, match="predictive futility for two arms with unknown sd"):
-        compute(design)
+        scenarios={"control": [0.0], "effect": [0.0]}, simulation__replicates=2000)
+    oc = compute(design).oc
+    assert (oc["method"] == "monte-carlo").all()
+    assert oc["look1_stop_futility"].iloc[0] > 0.2  # no other futility rule at look 1
 
 
 UNKNOWN_TOML = """
