@@ -50,6 +50,7 @@ from octrial._version import __version__
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
+from octrial.engines.monte_carlo import adjusted_se
 from octrial.errors import InputError
 from octrial.execution import Execution
 from octrial.execution.checkpoints import kept_seed
@@ -99,6 +100,10 @@ class Assurance:
         Simulated studies (0 unless simulated).
     seed : int or None
         The simulation's seed.
+    target_se : float or None
+        The standard error the simulation was asked to reach (``--target-se``).
+    target_met : bool or None
+        Whether it was reached within the replicate cap.
     """
 
     probability: float
@@ -111,6 +116,8 @@ class Assurance:
     expected_n_se: float = 0.0
     replicates: int = 0
     seed: int | None = None
+    target_se: float | None = None
+    target_met: bool | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """For run.json and calibration.json."""
@@ -215,28 +222,36 @@ def _simulated(design: Design, settings: Any, claim: float,
     if reason is not None:
         raise ValueError(f"no assurance by simulation: {reason}")
     simulation = design.simulation
-    replicates = getattr(settings, "replicates", None) or simulation.replicates
+    target = getattr(settings, "target_se", None)
+    if target is None:
+        replicates = getattr(settings, "replicates", None) or simulation.replicates
+        size = {"replicates": replicates}
+    else:
+        replicates = settings.max_replicates
+        size = {"target_se": target, "max_replicates": replicates}
     seed = getattr(settings, "seed", None)
     seed = simulation.seed if seed is None else seed
     store = None
     if execution is not None:
         store = execution.store({
             "design_sha256": design.source.sha256, "design": repr(design),
-            "assurance": "simulation", "replicates": replicates,
+            "assurance": "simulation", **size,
             "seed": "drawn" if seed is None else seed, "batch_size": BATCH_SIZE,
             "octrial": __version__})
     seed, _ = kept_seed(store, seed)
     tally = simulate_under_design_prior(design, replicates, seed, execution=execution,
-                                        store=store)
+                                        store=store, target_se=target)
+    replicates = tally.replicates
     eff, fut = tally.efficacy / replicates, tally.futility / replicates
     n = np.asarray(design.looks.n, dtype=float)
     stop = eff + fut
     expected_n = float(stop @ n)
     sd_n = math.sqrt(max(float(stop @ n**2) - expected_n**2, 0.0))
     p = float(eff.sum())
+    met = None if target is None else bool(adjusted_se(tally) <= target)
     return Assurance(p, expected_n, tuple(map(float, eff)), tuple(map(float, fut)),
                      "simulation", claim, math.sqrt(p * (1 - p) / replicates),
-                     sd_n / math.sqrt(replicates), int(replicates), int(seed))
+                     sd_n / math.sqrt(replicates), int(replicates), int(seed), target, met)
 
 
 def _predictive_programme(

@@ -21,15 +21,21 @@ from octrial.evaluation import compute
 from tests.helpers import ONE_ARM, TWO_ARM, build
 
 
-def enumerate_one_arm(prior, looks, efficacy, futility, p0, truth, level):
-    a0, b0 = prior
+def one_arm_paths(looks: list[int], truth: float):
+    """Every outcome path of a one-arm binary design: (probability by scipy.stats.binom,
+    [(look, n, responses so far) per look])."""
     sizes = np.diff([0, *looks])
-    moments, coverage = np.zeros(3), 0.0
     for path in itertools.product(*(range(s + 1) for s in sizes)):
         prob = np.prod([stats.binom.pmf(y, s, truth) for y, s in zip(path, sizes, strict=True)])
-        x = 0
-        for k, (y, n) in enumerate(zip(path, looks, strict=True)):
-            x += y
+        yield prob, [(k, n, int(x)) for k, (n, x) in enumerate(zip(looks, np.cumsum(path),
+                                                                    strict=True))]
+
+
+def enumerate_one_arm(prior, looks, efficacy, futility, p0, truth, level):
+    a0, b0 = prior
+    moments, coverage = np.zeros(3), 0.0
+    for prob, path in one_arm_paths(looks, truth):
+        for k, n, x in path:
             a, b = a0 + x, b0 + n - x
             benefit = stats.beta.sf(p0, a, b)
             last = k == len(looks) - 1
@@ -60,6 +66,19 @@ def test_exact_estimation_matches_enumeration(truth: float, level: float) -> Non
     assert oc["bias_se"].iloc[0] == oc["coverage_se"].iloc[0] == 0.0
 
 
+def two_arm_paths(per_arm: list[int], truth: tuple[float, float]):
+    """Every outcome path of a two-arm binary design with ``per_arm`` subjects per arm at
+    each look: (probability by scipy.stats.binom, [(look, n, x_t, x_c) per look])."""
+    sizes = np.diff([0, *per_arm])
+    for path in itertools.product(*(range(s + 1) for s in sizes for _ in (0, 1))):
+        incs = np.array(path).reshape(len(sizes), 2)
+        prob = np.prod([stats.binom.pmf(incs[k, 0], s, truth[0]) * stats.binom.pmf(
+            incs[k, 1], s, truth[1]) for k, s in enumerate(sizes)])
+        counts = np.cumsum(incs, axis=0)
+        yield prob, [(k, n, int(counts[k, 0]), int(counts[k, 1]))
+                     for k, n in enumerate(per_arm)]
+
+
 @functools.cache
 def difference_cdf(a_t, b_t, a_c, b_c, d):
     """Pr(p_T - p_C <= d) by quad (scipy.integrate)."""
@@ -86,14 +105,8 @@ def test_two_arm_exact_estimation_matches_enumeration() -> None:
     oc = compute(design).oc
     delta = truth[0] - truth[1]
     moments, coverage = np.zeros(3), 0.0
-    sizes = np.diff([0, *per_arm])
-    for path in itertools.product(*(range(s + 1) for s in sizes for _ in (0, 1))):
-        incs = np.array(path).reshape(len(sizes), 2)
-        prob = np.prod([stats.binom.pmf(incs[k, 0], s, truth[0]) * stats.binom.pmf(
-            incs[k, 1], s, truth[1]) for k, s in enumerate(sizes)])
-        x_t = x_c = 0
-        for k, n in enumerate(per_arm):
-            x_t, x_c = x_t + incs[k, 0], x_c + incs[k, 1]
+    for prob, looks in two_arm_paths(per_arm, truth):
+        for k, n, x_t, x_c in looks:
             shapes = (1 + x_t, 1 + n - x_t, 1 + x_c, 1 + n - x_c)
             benefit = 1.0 - difference_cdf(*shapes, 0.0)
             if k == len(per_arm) - 1 or benefit >= efficacy[k] or benefit < futility[k]:
@@ -151,13 +164,9 @@ def test_grid_estimation_matches_enumeration_with_quad(truth: float) -> None:
                    simulation={"interval_level": level})
     oc = compute(design).oc
     rule = design.family.decision_rule(design)
-    sizes = np.diff([0, *looks])
     moments, coverage = np.zeros(3), 0.0
-    for path in itertools.product(*(range(s + 1) for s in sizes)):
-        prob = np.prod([stats.binom.pmf(y, s, truth) for y, s in zip(path, sizes, strict=True)])
-        x = 0
-        for k, (y, n) in enumerate(zip(path, looks, strict=True)):
-            x += y
+    for prob, path in one_arm_paths(looks, truth):
+        for k, n, x in path:
             # the decision is read from octrial's table (checked against quad elsewhere)
             table = rule.looks[k]
             if table.efficacy[x] or table.futility[x]:
@@ -202,14 +211,8 @@ def test_grid_two_arm_odds_ratio_estimation_against_beta_identities() -> None:
         return mean, cdf
 
     moments, coverage = np.zeros(3), 0.0
-    sizes = np.diff([0, *per_arm])
-    for path in itertools.product(*(range(s + 1) for s in sizes for _ in (0, 1))):
-        incs = np.array(path).reshape(len(sizes), 2)
-        prob = np.prod([stats.binom.pmf(incs[k, 0], s, truth[0]) * stats.binom.pmf(
-            incs[k, 1], s, truth[1]) for k, s in enumerate(sizes)])
-        x_t = x_c = 0
-        for k, n in enumerate(per_arm):
-            x_t, x_c = x_t + incs[k, 0], x_c + incs[k, 1]
+    for prob, looks in two_arm_paths(per_arm, truth):
+        for k, n, x_t, x_c in looks:
             table = rule.looks[k]
             if table.efficacy[x_t, x_c] or table.futility[x_t, x_c]:
                 mean, cdf = summaries(x_t, x_c, n)

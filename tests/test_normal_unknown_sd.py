@@ -459,3 +459,27 @@ def test_two_arm_predictive_against_the_reference_of_octrial_decide(state) -> No
     assert 0.02 < expected < 0.98  # a state where the futility decision is not obvious
     assert abs(value - fine) <= 3e-3
     assert abs(value - expected) <= 4 * se + 3e-3, (value, expected, se)
+
+
+def test_assurance_by_simulation_meets_a_target_standard_error() -> None:
+    # Batches until sqrt(p (1 - p) / R) <= target (common practice); the batches are the
+    # fixed-size run's, so the result equals a fixed run of as many studies, and it is
+    # the first number of batches that meets the target (one batch fewer does not).
+    from octrial.engines.monte_carlo import adjusted_se
+    from octrial.simulation.prior_studies import simulate_under_design_prior
+
+    design = build({**ONE_ARM, "arms": {"treatment": {
+        "prior": nig(0.0, 1.0, 2.0, 8.0), "design_prior": nig(0.4, 4.0, 20.0, 80.0)}}})
+    batch, target = 500, 0.012
+    found = simulate_under_design_prior(design, 40_000, 3, batch_size=batch,
+                                        target_se=target)
+    r = found.replicates
+    p = found.efficacy.sum() / r
+    assert r % batch == 0 and r < 40_000
+    assert math.sqrt(p * (1 - p) / r) <= target
+    fixed = simulate_under_design_prior(design, r, 3, batch_size=batch)
+    np.testing.assert_array_equal(found.efficacy, fixed.efficacy)
+    fewer = simulate_under_design_prior(design, r - batch, 3, batch_size=batch)
+    assert adjusted_se(fewer) > target
+    capped = simulate_under_design_prior(design, 1500, 3, batch_size=batch, target_se=1e-4)
+    assert capped.replicates == 1500

@@ -52,6 +52,8 @@ def assurance_line(info: dict[str, Any]) -> str:
     if found and "probability" in found:
         se = (f" (simulated, SE {found['probability_se']:.4f} from "
               f"{found['replicates']:,} studies)" if found.get("replicates") else "")
+        if found.get("target_met") is False:
+            se += f" (target SE {found['target_se']:g} not reached within the cap)"
         parts.append(f"Assurance (probability of success under the design prior): "
                      f"{found['probability']:.4f}{se}, expected N {found['expected_n']:.2f}; "
                      f"Pr(claim true) under the design prior "

@@ -17,6 +17,7 @@ studies only. The batches are independent tasks for :func:`octrial.execution.run
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -81,19 +82,39 @@ def simulate_prior_batch(task: PriorBatch) -> dict[str, np.ndarray]:
 def simulate_under_design_prior(
     design: Design, replicates: int, seed: int, batch_size: int = BATCH_SIZE,
     execution: Execution | None = None, store: CheckpointStore | None = None,
+    target_se: float | None = None,
 ) -> Tally:
-    """``replicates`` studies of ``design``, each at true values drawn from its design
-    priors (see module docstring); no bias or coverage sums (there is no single truth).
+    """Studies of ``design``, each at true values drawn from its design priors (see
+    module docstring); no bias or coverage sums (there is no single truth).
 
-    ``execution`` says where the batches run; ``store`` keeps finished batches for a
-    resumed run (keyed by the caller on the design, seed, replicates and batch size).
+    Without ``target_se``: ``replicates`` studies. With it, ``replicates`` is the cap, and
+    the result is the first whole number of batches after which every probability's
+    standard error (with p taken as (x + 1) / (R + 2), as for scenarios) is at most
+    ``target_se``, as if batches were added one at a time; to keep the workers busy they
+    run in rounds, each asking for the studies p (1 - p) / target_se^2 that the estimate
+    so far needs. So the result depends on the seed and the target only, whatever the
+    workers. ``execution`` says where the batches run; ``store`` keeps finished batches
+    for a resumed run (keyed by the caller on the design, seed, size or target, and batch
+    size).
     """
-    sizes = [min(batch_size, replicates - start) for start in range(0, replicates, batch_size)]
-    tasks = [PriorBatch(design, seed, b, size) for b, size in enumerate(sizes)]
-    results, _ = run_grid(simulate_prior_batch, tasks, execution or Execution(), store,
-                          unit="assurance batches")
-    tallies = [Tally.from_arrays(r) for r in results]
-    total = tallies[0]
-    for part in tallies[1:]:
-        total = total + part
-    return total
+    from octrial.engines.monte_carlo import adjusted_se
+
+    cap = -(-replicates // batch_size)
+    batches = cap if target_se is None else 1
+    total: Tally | None = None
+    checked = 0
+    while True:
+        sizes = [min(batch_size, replicates - b * batch_size) for b in range(batches)]
+        tasks = [PriorBatch(design, seed, b, size) for b, size in enumerate(sizes)]
+        results, _ = run_grid(simulate_prior_batch, tasks, execution or Execution(), store,
+                              unit="assurance batches")
+        for result in results[checked:]:
+            part = Tally.from_arrays(result)
+            total = part if total is None else total + part
+            checked += 1
+            if target_se is not None and adjusted_se(total) <= target_se:
+                return total
+        if checked >= cap:
+            return total
+        needed = total.replicates * (adjusted_se(total) / target_se) ** 2
+        batches = min(cap, max(batches + 1, -(-math.ceil(needed) // batch_size)))
