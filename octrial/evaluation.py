@@ -91,7 +91,8 @@ def compute(
         rule = design.family.decision_rule(design, truths)
         outcome = engine.run(design, truths, rule=rule, **given, **options)
     oc = oc_table(design, truths, outcome)
-    boundaries = rule.boundary_table(design) if rule is not None else None
+    boundaries = (rule.boundary_table(design) if rule is not None
+                  else design.family.boundaries_without_rule(design))
     info = {
         "engine": engine.name,
         "decision_tolerance": DECISION_TOLERANCE,

@@ -37,10 +37,10 @@ def test_run_writes_the_contract_and_matches_the_api(runner, tmp_path, path) -> 
     # ones too: the design's seed fixes them).
     np.testing.assert_array_equal(oc[numeric].to_numpy(float), api[numeric].to_numpy(float))
     if design.family.name == "normal" and not design.endpoint.known_sd:
-        # no exact engine: 'auto' simulates, and the rule has no table of bounds
+        # no exact engine: 'auto' simulates; the bounds are tabulated per sample sd
         assert (oc["method"] == "monte-carlo").all()
         assert (oc["replicates"] == design.simulation.replicates).all()
-        assert not (tmp_path / "boundaries.csv").exists()
+        assert "sample_sd" in pd.read_csv(tmp_path / "boundaries.csv")
         assert "Maximum type I error" in result.output
         return
     assert (oc["method"] == "exact").all() and (oc["replicates"] == 0).all()

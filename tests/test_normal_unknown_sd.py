@@ -483,3 +483,67 @@ def test_assurance_by_simulation_meets_a_target_standard_error() -> None:
     assert adjusted_se(fewer) > target
     capped = simulate_under_design_prior(design, 1500, 3, batch_size=batch, target_se=1e-4)
     assert capped.replicates == 1500
+
+
+def test_boundary_table_agrees_with_octrial_decide_at_every_bound() -> None:
+    # octrial decide computes B and PP with scipy (octrial/endpoints/unknown_sd.py, its
+    # PP by quadrature); just inside and outside every bound of the table its decision
+    # must change as the table says. Lower is better here, with posterior and predictive
+    # futility, so both kinds of bound and the mirrored direction are exercised.
+    from octrial.interim.decision import decide
+    from octrial.interim.rule import CONTINUE, FAILURE, STOP_EFFICACY, STOP_FUTILITY, SUCCESS
+    from octrial.rules.unknown_sd import boundary_table
+
+    design = build(ONE_ARM, endpoint__better="lower", hypothesis__benchmark=1.0,
+                   looks={"n": [20, 40, 60], "efficacy": [0.999, 0.99, 0.975],
+                          "futility": [0.05, 0.1], "futility_predictive": [0.1, 0.2]})
+    table = boundary_table(design, (1.5, 2.0, 3.0))
+    assert len(table) == 9
+    last = table["look"].max()
+    for row in table.itertuples():
+        step = 1e-4 * row.sample_sd / math.sqrt(row.n)
+        final = row.look == last
+
+        def decision(mean: float, row=row) -> str:
+            found = decide(design, int(row.look), [f"treatment={mean!r},{row.sample_sd},"
+                                                   f"{row.n}"])
+            return found.assessment.decision
+
+        stop, fail = (SUCCESS, FAILURE) if final else (STOP_EFFICACY, STOP_FUTILITY)
+        # lower is better: efficacy below its bound, futility above its bound
+        assert row.efficacy_rule.startswith("mean <="), row.efficacy_rule
+        assert decision(row.efficacy_bound - step) == stop
+        assert decision(row.efficacy_bound + step) == (fail if final else CONTINUE)
+        assert row.futility_rule.startswith("mean >"), row.futility_rule
+        assert decision(row.futility_bound + step) == fail
+        if not final:
+            assert decision(row.futility_bound - step) == CONTINUE
+
+
+def test_boundaries_command_with_an_unknown_sd(tmp_path) -> None:
+    import pandas as pd
+    from click.testing import CliRunner
+
+    from octrial.cli import main
+    from tests.helpers import DESIGNS
+
+    demo = str(DESIGNS / "single-arm-mean-change.toml")
+    runner = CliRunner()
+    result = runner.invoke(main, ["boundaries", demo, "--out", str(tmp_path), "--sd", "8,10"])
+    assert result.exit_code == 0, result.output
+    assert "sample sd 8: success if mean >= " in result.output
+    table = pd.read_csv(tmp_path / "boundaries.csv")
+    assert sorted(set(table["sample_sd"])) == [8.0, 10.0]
+    # the run writes the table at the default sds (true_sd x 0.5 ... 2)
+    result = runner.invoke(main, ["run", demo, "--out", str(tmp_path / "run"), "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert len(pd.read_csv(tmp_path / "run" / "boundaries.csv")) == 3 * 6
+    bad = [[demo, "--sd", "8,x"], [demo, "--sd", "-1"],
+           [str(DESIGNS / "two-arm-continuous-score.toml"), "--sd", "3"]]
+    for arguments in bad:
+        result = runner.invoke(main, ["boundaries", *arguments, "--out", str(tmp_path / "x")])
+        assert result.exit_code == 2 and "--sd" in result.output, result.output
+    two_arm = build(TWO_ARM)
+    with pytest.raises(Exception, match="use octrial decide"):
+        two_arm.family.boundary_table(two_arm)
+    assert not (tmp_path / "x").exists()

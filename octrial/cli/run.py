@@ -39,7 +39,8 @@ def run_command(design: str, out: str | None, method: str | None,
     """Compute the operating characteristics of DESIGN at every scenario.
 
     Writes oc.csv (one row per scenario), boundaries.csv (decision boundaries in counts, or
-    sample means and z for normal endpoints) and run.json (provenance), and prints a summary table.
+    sample means and z for normal endpoints; with an unknown sd and one arm, sample means
+    at a few sample sds) and run.json (provenance), and prints a summary table.
 
     Simulation (method monte-carlo, and assurance without an exact engine) saves each
     finished scenario (or batch) under OUT/.partial; an interrupted run started again with

@@ -166,6 +166,11 @@ class Family(ABC):
         ``boundary_table(design)`` and ``info()``."""
         return None
 
+    def boundaries_without_rule(self, design: Any) -> Any:
+        """``boundaries.csv`` of a design that has no decision table (``None`` when the
+        family cannot tabulate its rule)."""
+        return None
+
     def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
         """The prior as a mixture: (weight, frozen scipy distribution) pairs, or ``None``.
 

@@ -274,17 +274,32 @@ class NormalFamily(Family):
 
         return build_normal_rule(design)
 
-    def boundary_table(self, design: Any) -> Any:
-        """``octrial boundaries``: the bounds as sample means and z (known sd)."""
+    def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
+        """``octrial boundaries``: the bounds as sample means and z (known sd), or as
+        sample means at a few sample sds ``sds`` (unknown sd, one arm)."""
         rule = self.decision_rule(design)
-        if rule is None:
+        if rule is not None:
+            return rule.boundary_table(design)
+        if design.two_arm:
             raise single(design.source.path or design.name, "endpoint.sd",
-                         "a known sd (with an unknown sd the rule has no table of bounds: "
-                         "the decision depends on the sample mean and sd together)",
-                         UNKNOWN)
-        return rule.boundary_table(design)
+                         "a known sd or one arm (with an unknown sd and two arms the "
+                         "decision depends on both arms' means and sds: use octrial "
+                         "decide)", UNKNOWN)
+        from octrial.rules import unknown_sd
+
+        return unknown_sd.boundary_table(design, sds)
+
+    def boundaries_without_rule(self, design: Any) -> Any:
+        """Unknown sd, one arm: the bounds on the mean at a few sample sds."""
+        if design.endpoint.known_sd or design.two_arm:
+            return None
+        return self.boundary_table(design)
 
     def committee_table(self, design: Any, table: Any) -> str:
+        if not design.endpoint.known_sd:
+            from octrial.rules.unknown_sd import committee_text as unknown_text
+
+            return unknown_text(design, table)
         from octrial.rules.normal import committee_text
 
         return committee_text(design, table)

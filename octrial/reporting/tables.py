@@ -181,7 +181,7 @@ def boundary_tables(data: Any) -> list[Table]:
     if frame is None:
         return []
     design = data.design
-    statistic = getattr(design.family, "statistic", "statistic")
+    statistic = getattr(design.family, "statistic", "sample mean")
     one_arm = {"look", "n", "efficacy_rule", "futility_rule"}
     control = f"control_{statistic}"
     two_arm = {"look", "n_treatment", "n_control", control, "efficacy_rule", "futility_rule"}
@@ -208,8 +208,10 @@ def _generic_boundaries(frame: pd.DataFrame) -> Table:
 
 def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table:
     last = int(frame["look"].max())
-    columns = [Column("look", "look", "count"), Column("n", "n", "count"),
-               Column("efficacy_rule", f"efficacy: {statistic}"),
+    columns = [Column("look", "look", "count"), Column("n", "n", "count")]
+    if "sample_sd" in frame:  # an unknown sd: the bounds hold at this sample sd
+        columns.append(Column("sample_sd", "sample sd", "truth"))
+    columns += [Column("efficacy_rule", f"efficacy: {statistic}"),
                Column("posterior_at_efficacy_bound", "B at efficacy bound", "probability"),
                Column("futility_rule", f"futility: {statistic}"),
                Column("posterior_at_futility_bound", "B at futility bound", "probability")]
@@ -221,10 +223,22 @@ def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table
     for _, r in frame.iterrows():
         values = [_rule(r[c.key]) if c.key.endswith("_rule") else r[c.key] for c in columns]
         rows.append(_row(values, columns, ("final",) if int(r["look"]) == last else ()))
-    notes = (f"Stop for efficacy when the {statistic} reach the efficacy rule; stop for "
-             "futility when they meet the futility rule ('never': no count does). At the "
-             "final look the efficacy rule is success and the futility rule is failure.",
-             f"B = {wording.benefit_definition(data.design)} at the boundary count.")
+    if data.design.family.name == "normal":
+        notes: tuple[str, ...] = (
+            "Stop for efficacy when the sample mean meets the efficacy rule; stop for "
+            "futility when it meets the futility rule ('never': no sample mean does). At "
+            "the final look the efficacy rule is success and the futility rule is failure.",
+            f"B = {wording.benefit_definition(data.design)} at the bound.")
+        if "sample_sd" in frame:
+            notes += ("With an unknown sd the decision depends on the sample mean and sd "
+                      "together: the bounds hold at the sample sd of the row (octrial "
+                      "decide gives the decision at any other).",)
+    else:
+        notes = (f"Stop for efficacy when the {statistic} reach the efficacy rule; stop for "
+                 "futility when they meet the futility rule ('never': no count does). At "
+                 "the final look the efficacy rule is success and the futility rule is "
+                 "failure.",
+                 f"B = {wording.benefit_definition(data.design)} at the boundary count.")
     return Table("boundaries", f"Decision boundaries in {statistic} per look", tuple(columns),
                  tuple(rows), notes)
 
