@@ -27,6 +27,10 @@ scenarios' means (neglecting less than 1e-15). The whole computation is repeated
 r and 2r; the finer result is returned and the largest difference over every look and
 scenario is reported as ``quadrature_error_estimate`` (Simpson's rule is fourth order, so
 the finer result is about 16 times more accurate than that estimate).
+
+Bias, RMSE and coverage at the stopping look come from the same continuation densities
+(:func:`estimation`), with their own difference between the two grids reported as
+``estimation_error_estimate``.
 """
 
 from __future__ import annotations
