@@ -377,13 +377,23 @@ def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
                   "Step chart of type I error and power against the maximum sample size.")
 
 
+def _check_record(data: Any, key: str) -> dict[str, Any]:
+    """Entry ``key`` of the run's checks.json when ``octrial check`` wrote it, else {}."""
+    from octrial.reporting.check_tables import is_ours
+
+    checks = getattr(data, "checks", None)
+    if checks is None or not is_ours(checks):
+        return {}
+    return checks.get(key) or {}
+
+
 def prior_predictive(data: Any, facts: PlotFacts) -> Figure | None:
     """The prior predictive distributions drawn by ``octrial check`` (prior-predictive.png
     beside checks.json: the distributions themselves are not in checks.json)."""
     drawing = getattr(data, "prior_predictive_png", None)
     if drawing is None:
         return None
-    record = (getattr(data, "checks", None) or {}).get("prior_predictive") or {}
+    record = _check_record(data, "prior_predictive")
     flags = [flag for source in ("analysis", "design")
              for flag in (record.get(source) or {}).get("flags", [])]
     caption = ("Prior predictive distribution of each observable at the final look: what "
@@ -399,12 +409,8 @@ def prior_predictive(data: Any, facts: PlotFacts) -> Figure | None:
 def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
     """Simulation-based calibration histograms (checks.json written by ``octrial check``)."""
     from octrial.reporting import check_figures
-    from octrial.reporting.check_tables import is_ours
 
-    checks = getattr(data, "checks", None)
-    if checks is None or not is_ours(checks):
-        return None
-    sbc = checks.get("sbc") or {}
+    sbc = _check_record(data, "sbc")
     entries = sbc.get("quantities") or []
     if not entries:
         return None
@@ -425,12 +431,8 @@ def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
 def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
     """Posterior z-score against shrinkage per look (sensitivity.csv and checks.json)."""
     from octrial.reporting import check_figures
-    from octrial.reporting.check_tables import is_ours
 
-    checks = getattr(data, "checks", None)
-    if checks is None or not is_ours(checks):
-        return None
-    record = checks.get("sensitivity") or {}
+    record = _check_record(data, "sensitivity")
     points = getattr(data, "sensitivity", None)
     if points is None or "looks" not in record or points.empty:
         return None
@@ -448,12 +450,8 @@ def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
 def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
     """Monte Carlo error of posterior quantiles against the number of draws (checks.json)."""
     from octrial.reporting import check_figures
-    from octrial.reporting.check_tables import is_ours
 
-    checks = getattr(data, "checks", None)
-    if checks is None or not is_ours(checks):
-        return None
-    record = checks.get("tail_accuracy") or {}
+    record = _check_record(data, "tail_accuracy")
     if "table" not in record:
         return None
     fig = check_figures.tail_figure(record)
