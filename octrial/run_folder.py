@@ -253,7 +253,7 @@ def stale_dependents(folder: Path, design_sha256: str) -> set[str]:
     return stale
 
 
-def _readable(path: Path) -> dict[str, Any] | None | bool:
+def _readable(path: Path) -> dict[str, Any] | bool | None:
     """The record at ``path``; ``False`` when there is none, ``None`` when unreadable."""
     if not path.is_file():
         return False
@@ -308,13 +308,16 @@ SEALED_BY = {"oc.csv": "run.json", "boundaries.csv": "run.json",
 """Every input a report reads besides the records, and the record whose seal covers it."""
 
 
-def check_sealed(folder: Path, records: Mapping[str, dict[str, Any] | None]) -> None:
-    """Refuse a run folder whose files are not exactly what its records sealed.
+def check_sealed(folder: Path, records: Mapping[str, dict[str, Any] | None],
+                 design_sha256: str) -> None:
+    """Refuse a folder whose files are not exactly what its records sealed.
 
-    ``records`` maps ``run.json`` (required), ``checks.json`` and ``calibration.json``
-    (``None`` when absent) to their contents. Every problem is listed: a record without
-    a seal; a sealed file missing or with another SHA-256; a file the report would show
-    that no record sealed; checks or a calibration of another design.
+    ``records`` maps the records to look at (``run.json``, ``checks.json``,
+    ``calibration.json``) to their contents, ``None`` for one that is absent; files a
+    report reads are checked for the records named only. Every problem is listed: a
+    record without a seal; a sealed file missing or with another SHA-256; a file the
+    report would show that no record sealed; checks or a calibration not about the design
+    with SHA-256 ``design_sha256``.
 
     Raises
     ------
@@ -322,8 +325,7 @@ def check_sealed(folder: Path, records: Mapping[str, dict[str, Any] | None]) -> 
         Naming each file and what is wrong with it.
     """
     problems: list[Problem] = []
-    run = records["run.json"] or {}
-    design = _design_sha(run) or ""
+    design = design_sha256
     for name, record in records.items():
         if record is None:
             continue
@@ -352,12 +354,14 @@ def check_sealed(folder: Path, records: Mapping[str, dict[str, Any] | None]) -> 
                     continue  # the calibrated design file may be moved; it is not shown
                 problems.append(Problem(str(file), f"the file {name} records", "no such file",
                                         "deleted or moved after it was written"))
-            elif file_digest(path) != expected:
+            elif (found := file_digest(path)) != expected:
                 problems.append(Problem(str(file), f"SHA-256 {expected} (as {name} records)",
-                                        f"SHA-256 {file_digest(path)}",
+                                        f"SHA-256 {found}",
                                         "the file was changed after it was written"))
     for file, record_name in SEALED_BY.items():
-        record = records.get(record_name)
+        if record_name not in records:
+            continue
+        record = records[record_name]
         sealed = record.get(SEAL) if record else None
         if (folder / file).is_file() and not (isinstance(sealed, dict) and file in sealed):
             problems.append(Problem(file, f"a file recorded in {record_name}",

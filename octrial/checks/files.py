@@ -3,7 +3,9 @@
 ``checks.json`` (every verdict and number), ``sbc.csv`` (every simulated study's CDF value
 or rank), ``sensitivity.csv`` (every simulated study's shrinkage and z-score per look),
 one PNG histogram per SBC quantity (``sbc-<quantity>-look<k>[-rank].png``),
-``prior-predictive.png``, ``sensitivity.png`` and ``tail-accuracy.png``.
+``prior-predictive.png``, ``sensitivity.png`` and ``tail-accuracy.png``. ``checks.json``
+records the SHA-256 of the others (``file_sha256``), so that a report can tell they are
+this check's (:mod:`octrial.run_folder`).
 """
 
 from __future__ import annotations
@@ -16,15 +18,13 @@ from typing import Any
 import numpy as np
 
 from octrial.checks.core import CheckOutcome
-from octrial.output import csv_text, json_text, write_atomic
+from octrial.output import csv_text, json_text
 from octrial.reporting import check_figures
+from octrial.run_folder import REPORT_FILES, SEAL, is_check_file, seal, write_folder
 
 CHECKS_JSON = "checks.json"
 SBC_CSV = "sbc.csv"
 SENSITIVITY_CSV = "sensitivity.csv"
-OWN_FILES = (SBC_CSV, SENSITIVITY_CSV, "prior-predictive.png", "sensitivity.png",
-             "tail-accuracy.png")
-"""Files of an earlier check that a new one removes when it does not write them."""
 
 
 def plain(value: Any) -> Any:
@@ -53,8 +53,10 @@ def sbc_file(entry: dict[str, Any]) -> str:
 def write_outputs(outcome: CheckOutcome, folder: Path) -> list[Path]:
     """Write every output of ``outcome`` into ``folder``; returns the paths written.
 
-    Everything is rendered before the first file is written, so a failure leaves the
-    folder as it was; histograms of quantities no longer checked are removed.
+    Everything is rendered first, then written all at once
+    (:func:`~octrial.run_folder.write_folder`), so a failure leaves the folder as it
+    was; files of an earlier check that this one does not write, and a report made
+    before, are removed.
     """
     folder = Path(folder)
     record = outcome.record
@@ -75,9 +77,7 @@ def write_outputs(outcome: CheckOutcome, folder: Path) -> list[Path]:
         files["tail-accuracy.png"] = check_figures.png(check_figures.tail_figure(tail))
     if not outcome.sbc.empty:
         files[SBC_CSV] = csv_text(outcome.sbc)
+    record[SEAL] = seal(files)
     files[CHECKS_JSON] = json_text(plain(record))
-    written = [write_atomic(folder / name, data) for name, data in files.items()]
-    for stale in [*folder.glob("sbc-*.png"), *(folder / n for n in OWN_FILES)]:
-        if stale.name not in files and stale.is_file():
-            stale.unlink()
-    return written
+    return write_folder(folder, files, drop=lambda name: (
+        is_check_file(name) or name in REPORT_FILES)).written

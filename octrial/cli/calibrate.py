@@ -20,8 +20,9 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
-from octrial.output import csv_text, json_text, write_atomic
+from octrial.output import csv_text, json_text
 from octrial.provenance import now
+from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
 
 
 @click.command("calibrate", epilog=f"Caution: {CAUTION}")
@@ -99,9 +100,12 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
         texts["sizing.csv"] = csv_text(result.sizing)
     texts[toml_name] = calibrated_toml(result, command)
     names = [*texts, "calibration.json"]
-    texts["calibration.json"] = json_text(record(result, started=started, command=command,
-                                                 files=names))
-    written = [write_atomic(folder / name, text) for name, text in texts.items()]
+    summary = record(result, started=started, command=command, files=names)
+    summary[SEAL] = seal(texts)
+    texts["calibration.json"] = json_text(summary)
+    # all at once; a sizing.csv of an earlier calibration and an earlier report go
+    written = write_folder(folder, texts, drop=lambda name: name in (
+        "sizing.csv", *REPORT_FILES)).written
     execution.remove_checkpoints()
     if simulation.quiet:
         return

@@ -21,8 +21,9 @@ from octrial.cli.common import (
 from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, type1_line
 from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
-from octrial.output import csv_text, json_text, write_atomic
+from octrial.output import csv_text
 from octrial.provenance import now, run_record
+from octrial.run_folder import write_run
 
 
 @click.command("run")
@@ -40,12 +41,15 @@ def run_command(design: str, out: str | None, method: str | None,
 
     Writes oc.csv (one row per scenario), boundaries.csv (decision boundaries in counts, or
     sample means and z for normal endpoints; with an unknown sd and one arm, sample means
-    at a few sample sds) and run.json (provenance), and prints a summary table.
+    at a few sample sds) and run.json (provenance, with the SHA-256 of each file), all at
+    once, and prints a summary table. A report of the folder's earlier results, and checks
+    or a calibration of another design, are removed.
 
     Simulation (method monte-carlo, and assurance without an exact engine) saves each
     finished scenario (or batch) under OUT/.partial; an interrupted run started again with
     the same arguments resumes where it stopped.
-    Exit codes: 0 success; 2 bad input; 130 interrupted.
+    Exit codes: 0 success; 2 bad input, or OUT cannot be written (then it is left as it
+    was); 130 interrupted.
     """
     started = now()
     loaded = read_design(design)
@@ -55,10 +59,8 @@ def run_command(design: str, out: str | None, method: str | None,
         warnings.simplefilter("ignore", NumericalWarning)  # printed below from run.json
         evaluation = compute(loaded, method, simulation.settings(), execution)
     record = run_record(evaluation, started=started, finished=now(), command=sys.argv)
-    written = [write_atomic(folder / "oc.csv", csv_text(evaluation.oc))]
-    if evaluation.boundaries is not None:
-        written.append(write_atomic(folder / "boundaries.csv", csv_text(evaluation.boundaries)))
-    written.append(write_atomic(folder / "run.json", json_text(record)))
+    boundaries = None if evaluation.boundaries is None else csv_text(evaluation.boundaries)
+    done = write_run(folder, record, csv_text(evaluation.oc), boundaries)  # all at once
     execution.remove_checkpoints()
     for note in evaluation.info.get("warnings", []):
         click.echo(f"warning: {note}", err=True)
@@ -77,5 +79,7 @@ def run_command(design: str, out: str | None, method: str | None,
                    "standard error", err=True)
     for line in prior_size_lines(evaluation.info.get("prior_effective_sample_size")):
         click.echo(line)
-    click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+    click.echo("wrote " + ", ".join(str(p) for p in done.written), err=True)
+    if done.removed:
+        click.echo("removed, as not about these results: " + ", ".join(done.removed), err=True)
     click.echo(f"Caution: {CAUTION}", err=True)

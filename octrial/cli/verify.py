@@ -19,10 +19,11 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
-from octrial.output import csv_text, json_text, write_atomic
+from octrial.output import csv_text, json_text
 from octrial.provenance import environment, now
 from octrial.review import read_claims, verify
 from octrial.review.verification import DEFAULT_ALPHA, DEFAULT_TOLERANCE, Verification
+from octrial.run_folder import write_folder
 
 EXIT_DISCREPANT = 1
 
@@ -73,8 +74,8 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
                         replicates=replicates, seed=seed, target_se=simulation.target_se,
                         max_replicates=simulation.max_replicates, execution=execution)
     record = _record(result, started, now())
-    written = [write_atomic(folder / "verify.csv", csv_text(result.table)),
-               write_atomic(folder / "verify.json", json_text(record))]
+    written = write_folder(folder, {"verify.csv": csv_text(result.table),
+                                    "verify.json": json_text(record)}).written
     execution.remove_checkpoints()
     if not simulation.quiet:
         click.echo(_summary(result))

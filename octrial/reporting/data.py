@@ -5,13 +5,14 @@ characteristics (``oc.csv``), the boundary table, the run record (``run.json``) 
 when present in a run folder, the calibration files (``calibration.csv``, ``sizing.csv``,
 ``calibration.json``) and the workflow checks (``checks.json``). Given a design file,
 the design is evaluated when the report is made; given a run folder, the files are read
-back as written, so the report shows exactly the numbers in ``oc.csv``.
+back as written, so the report shows exactly the numbers in ``oc.csv``, after their
+SHA-256 seals are checked (:func:`octrial.run_folder.check_sealed`): a file edited,
+missing, left from another run, or checks and a calibration of another design are refused.
 """
 
 from __future__ import annotations
 
 import hashlib
-import json
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -24,6 +25,7 @@ from octrial.design.model import Design, Source
 from octrial.errors import InputError, Problem, single
 from octrial.evaluation import compute
 from octrial.provenance import now, run_record
+from octrial.run_folder import check_sealed, checks_belong, read_record
 
 RUN_FILES = ("oc.csv", "run.json")
 """Files a run folder must hold."""
@@ -130,8 +132,9 @@ def _checks_of(folder: Path, design: Design) -> tuple[dict[str, Any] | None,
     """checks.json, sensitivity.csv and prior-predictive.png in ``folder`` when they
     belong to ``design``."""
     checks = _optional_json(folder / "checks.json")
-    if checks is None or (checks.get("design") or {}).get("sha256") != design.source.sha256:
+    if checks is None or not checks_belong(checks, design.source.sha256):
         return None, None, None
+    check_sealed(folder, {"checks.json": checks}, design.source.sha256)
     drawing = folder / "prior-predictive.png"
     return (checks, _optional_table(folder / "sensitivity.csv"),
             drawing.read_bytes() if drawing.is_file() else None)
@@ -144,8 +147,9 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
     Raises
     ------
     InputError
-        When a required file is missing or unreadable, or the design behind the run
-        cannot be recovered.
+        When a required file is missing or unreadable, a file is not what its record
+        sealed (edited, missing, from another run; checks or a calibration of another
+        design), or the design behind the run cannot be recovered.
     """
     folder = Path(folder)
     missing = [name for name in RUN_FILES if not (folder / name).is_file()]
@@ -153,8 +157,12 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
         raise InputError(str(folder), [Problem(
             name, "a run folder written by 'octrial run' (oc.csv and run.json)",
             "no such file") for name in missing])
-    record = _read_json(folder / "run.json")
+    record = read_record(folder / "run.json")
     design = _design_of(record, folder)
+    calibrated = _optional_json(folder / "calibration.json")
+    checks = _optional_json(folder / "checks.json")
+    check_sealed(folder, {"run.json": record, "checks.json": checks,
+                          "calibration.json": calibrated}, design.source.sha256)
     oc = read_table(folder / "oc.csv")
     _check_oc(oc, design, folder / "oc.csv")
     boundaries = _optional_table(folder / "boundaries.csv")
@@ -164,15 +172,11 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
             values = boundaries[column].dropna() if column in boundaries else None
             if values is not None and (values == values.round()).all():
                 boundaries[column] = boundaries[column].astype("Int64")
-    calibrated = _optional_json(folder / "calibration.json")
     if alpha is None and calibrated is not None:
         alpha = _stated_alpha(calibrated)
-    checks = _optional_json(folder / "checks.json")
     sensitivity = _optional_table(folder / "sensitivity.csv")
-    predictive = None
-    if checks is not None and str(checks.get("kind", "")).startswith("octrial-checks/"):
-        # checks of another version of the design file are not this run's
-        checks, sensitivity, predictive = _checks_of(folder, design)
+    drawing = folder / "prior-predictive.png"
+    predictive = drawing.read_bytes() if checks is not None and drawing.is_file() else None
     return ReportData(design, oc, boundaries, record, f"run folder {folder}",
                       calibration=_optional_table(folder / "calibration.csv"),
                       sizing=_optional_table(folder / "sizing.csv"),
@@ -202,17 +206,7 @@ def _optional_table(path: Path) -> pd.DataFrame | None:
 
 
 def _optional_json(path: Path) -> dict[str, Any] | None:
-    return _read_json(path) if path.is_file() else None
-
-
-def _read_json(path: Path) -> dict[str, Any]:
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise single(str(path), "", "a JSON record", str(exc)) from None
-    if not isinstance(data, dict):
-        raise single(str(path), "", "a JSON object", type(data).__name__)
-    return data
+    return read_record(path) if path.is_file() else None
 
 
 def _design_of(record: dict[str, Any], folder: Path) -> Design:
