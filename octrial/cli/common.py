@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import warnings
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, fields
 from pathlib import Path
@@ -24,7 +25,7 @@ from octrial.engines import MonteCarloSettings
 from octrial.errors import InputError
 from octrial.execution import Execution
 from octrial.execution.backends import BACKENDS
-from octrial.execution.checkpoints import PARTIAL
+from octrial.execution.checkpoints import PARTIAL, CheckpointWarning
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
@@ -128,9 +129,21 @@ def resumable(execution: Execution) -> Iterator[None]:
     """Run a command's computation: Ctrl-C becomes exit code 130 with a hint (what was
     finished is kept in the checkpoint folder and the same command resumes from it); bad
     input found on the way (a calibration that nothing meets) removes the checkpoints, so
-    that nothing is left behind with exit code 2."""
+    that nothing is left behind with exit code 2. A checkpoint found unusable (and
+    computed again) is reported as a plain ``warning:`` line on stderr."""
+    shown = warnings.showwarning
+
+    def show(message: Any, category: type[Warning], *args: Any, **kwargs: Any) -> None:
+        if issubclass(category, CheckpointWarning):
+            click.echo(f"warning: {message}", err=True)
+        else:
+            shown(message, category, *args, **kwargs)
+
     try:
-        yield
+        with warnings.catch_warnings():
+            warnings.showwarning = show
+            warnings.simplefilter("always", CheckpointWarning)
+            yield
     except KeyboardInterrupt:
         click.echo(f"\ninterrupted: finished simulations are kept in {execution.checkpoints}; "
                    "run the same command again to resume", err=True)

@@ -39,7 +39,7 @@ from octrial.execution.checkpoints import SEED_BITS, CheckpointStore, kept_seed
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule, serving
 from octrial.simulation import GENERAL_KERNELS, general_unsupported
-from octrial.simulation.base import Simulator, Tally
+from octrial.simulation.base import Simulator, Tally, tally_problems
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
 
 KERNELS = ("auto", "table", "general")
@@ -101,6 +101,26 @@ class ScenarioTask:
     plan: LatticePlan | None
     estimates: LatticeEstimates | None
     settings: MonteCarloSettings
+
+    def identity(self) -> dict[str, Any]:
+        """What this scenario's checkpoint records (every batch of the scenario)."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.settings.seed,
+                "scenario": self.index, "batch": "all", "kernel": self.settings.kernel}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this scenario's saved result."""
+        settings = self.settings
+        if settings.target_se is None:
+            wrong = tally_problems(arrays, self.design.looks.count, settings.replicates)
+        else:
+            wrong = tally_problems(arrays, self.design.looks.count,
+                                   at_most=settings.max_replicates)
+            if np.shape(arrays.get("target_met")) != ():
+                wrong.append("no target_met")
+            r = int(arrays["replicates"]) if not wrong else 0
+            if r and r % settings.batch_size and r != settings.max_replicates:
+                wrong.append(f"{r} studies, neither whole batches nor the cap")
+        return wrong
 
 
 def batch_generator(seed: int, scenario: int, batch: int) -> np.random.Generator:

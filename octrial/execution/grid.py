@@ -98,14 +98,16 @@ def run_grid(
     """Results of ``function(task)`` for every task, in task order.
 
     ``function`` must be a picklable top-level function returning a dict of arrays (what
-    a checkpoint holds). ``unit`` names the tasks on the progress bar. Returns the
-    results and how many came from earlier runs.
+    a checkpoint holds); with a ``store``, tasks say what their saved results must record
+    and hold (:class:`~octrial.execution.checkpoints.Checkpointed`), and a saved result
+    that does not is computed again. ``unit`` names the tasks on the progress bar.
+    Returns the results and how many came from earlier runs.
     """
     results: dict[int, dict[str, np.ndarray]] = {}
     if store is not None:
-        for index in store.finished():
-            if index < len(tasks):
-                results[index] = store.load(index)
+        for index in sorted(store.finished()):
+            if index < len(tasks) and (saved := store.load(index, tasks[index])) is not None:
+                results[index] = saved
     resumed = len(results)
     missing = [(function, i, task) for i, task in enumerate(tasks) if i not in results]
     bar = ProgressBar(len(tasks), resumed, unit=unit) if execution.progress else None
@@ -114,7 +116,7 @@ def run_grid(
                                           jobs=execution.jobs, scheduler=execution.scheduler):
             results[index] = result
             if store is not None:
-                store.save(index, result)
+                store.save(index, result, tasks[index])
             if bar is not None:
                 bar.advance()
             if execution.on_saved is not None:

@@ -83,6 +83,51 @@ class Tally:
                    None if sums is None else int(arrays["covered"]), int(arrays["clipped"]))
 
 
+def tally_problems(arrays: dict[str, np.ndarray], looks: int, replicates: int | None = None,
+                   at_most: int | None = None) -> list[str]:
+    """What is wrong with ``arrays`` as a saved :class:`Tally` of a ``looks``-look design
+    (a checkpoint): missing or misshapen arrays, counts that are negative, not whole or
+    beyond the studies, studies that do not end exactly once, non-finite sums. The
+    studies must be ``replicates`` when given, else between 1 and ``at_most``."""
+    wrong: list[str] = []
+    needed = ("replicates", "efficacy", "futility", "clipped")
+    absent = [name for name in needed if name not in arrays]
+    if absent:
+        return [f"no {', '.join(absent)}"]
+    shapes = {"replicates": (), "clipped": (), "efficacy": (looks,), "futility": (looks,)}
+    if "error_sums" in arrays or "covered" in arrays:
+        shapes |= {"error_sums": (3,), "covered": ()}
+    for name, shape in shapes.items():
+        value = arrays.get(name)
+        if value is None or np.shape(value) != shape:
+            wrong.append(f"{name} of shape {np.shape(value) if value is not None else None}"
+                         f" (expected {shape})")
+    if wrong:
+        return wrong
+    counts = {name: np.asarray(arrays[name]) for name in
+              ("replicates", "efficacy", "futility", "clipped", "covered") if name in arrays}
+    for name, value in counts.items():
+        if value.dtype.kind not in "iu":
+            wrong.append(f"{name} not whole numbers ({value.dtype})")
+    if wrong:
+        return wrong
+    r = int(counts["replicates"])
+    if replicates is not None and r != replicates:
+        wrong.append(f"{r} studies (expected {replicates})")
+    elif replicates is None and not 1 <= r <= (at_most if at_most is not None else r):
+        wrong.append(f"{r} studies (expected 1 to {at_most})")
+    for name, value in counts.items():
+        if np.any(value < 0) or np.any(value > r):
+            wrong.append(f"{name} outside 0 to {r}")
+    ended = int(counts["efficacy"].sum() + counts["futility"].sum())
+    if ended != r:
+        wrong.append(f"{ended} studies ending at a look (expected {r})")
+    sums = arrays.get("error_sums")
+    if sums is not None and not (np.all(np.isfinite(sums)) and sums[1] >= 0 and sums[2] >= 0):
+        wrong.append("error sums not finite, or negative sums of squares")
+    return wrong
+
+
 class Simulator(ABC):
     """Simulated studies of one design at one scenario.
 

@@ -28,7 +28,7 @@ from octrial.design.model import Design
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import CheckpointStore
 from octrial.simulation import GENERAL_KERNELS
-from octrial.simulation.base import Tally
+from octrial.simulation.base import Tally, tally_problems
 
 ASSURANCE_STREAM = 2**32 - 1
 BATCH_SIZE = 50_000
@@ -65,6 +65,15 @@ class PriorBatch:
     seed: int
     index: int
     size: int
+
+    def identity(self) -> dict[str, Any]:
+        """What this batch's checkpoint records."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
+                "scenario": "design prior", "batch": self.index, "kernel": "general"}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this batch's saved tally."""
+        return tally_problems(arrays, self.design.looks.count, self.size)
 
 
 def simulate_prior_batch(task: PriorBatch) -> dict[str, np.ndarray]:
