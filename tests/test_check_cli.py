@@ -175,12 +175,14 @@ def test_normal_outcome_range_is_accepted(tmp_path) -> None:
     assert outcome["outside_possible_range"] < 1e-6  # |difference| beyond 100
 
 
-def test_checks_of_another_design_version_are_not_shown(folder, tmp_path) -> None:
+def test_checks_of_another_design_version_are_refused(folder, tmp_path) -> None:
+    """Never shown beside the run's numbers (tests/test_sealed_folders.py has the rest)."""
     copy = tmp_path / "run"
     shutil.copytree(folder, copy)
     record = json.loads((copy / "checks.json").read_text())
     record["design"]["sha256"] = "0" * 64
     (copy / "checks.json").write_text(json.dumps(record))
-    assert invoke("report", copy, "--quiet").exit_code == 0
-    page = parse(copy / "report.html")
-    assert "No workflow checks" in text(page.find(".//section[@id='checks']"))
+    (copy / "report.html").unlink(missing_ok=True)
+    result = invoke("report", copy, "--quiet")
+    assert result.exit_code == 2 and "checks.json: design.sha256" in result.output
+    assert not (copy / "report.html").exists()

@@ -3,6 +3,7 @@ back from the HTML, not string-matched), exported tables, optional inputs, bad i
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 import re
@@ -203,6 +204,20 @@ def test_probability_format(value, shown) -> None:
 
 
 # -- files the report shows when present -----------------------------------------------
+def reseal(folder: Path) -> None:
+    """Record the SHA-256 of the files a test wrote by hand in the records that list them
+    (as the commands writing them would; octrial.run_folder)."""
+    for name, files in (("run.json", ("oc.csv", "boundaries.csv")), ("checks.json", ()),
+                        ("calibration.json", ("calibration.csv", "sizing.csv"))):
+        path = folder / name
+        if path.is_file():
+            record = json.loads(path.read_text())
+            record["file_sha256"] = {
+                f: hashlib.sha256((folder / f).read_bytes()).hexdigest()
+                for f in files if (folder / f).is_file()}
+            path.write_text(json.dumps(record))
+
+
 def extended_run(runs, tmp_path: Path) -> Path:
     """A copy of the one-arm run with Monte Carlo rows, extra columns, a calibration and
     checks, as later commands will write them."""
@@ -236,11 +251,12 @@ def extended_run(runs, tmp_path: Path) -> Path:
         folder / "calibration.csv", index=False)
     (folder / "calibration.json").write_text(json.dumps(
         {"request": {"alpha": 0.05, "power": 0.8}, "chosen_n": 42, "caution": "c",
-         "environment": {"python": "3"}}))
+         "environment": {"python": "3"}, "design": record["design"]}))
     checks = {"sbc": [{"quantity": "rate", "p_value": 0.41, "verdict": "pass"}],
               "prior_predictive": {"mean_responses": 9.1, "share_implausible": 0.002},
-              "seed": 7}
+              "seed": 7, "design": {"sha256": record["design"]["sha256"]}}
     (folder / "checks.json").write_text(json.dumps(checks))
+    reseal(folder)
     return folder
 
 
@@ -286,6 +302,7 @@ def test_calibration_with_many_rows_shows_the_marked_ones(runs, tmp_path) -> Non
     n = np.arange(10, 151)
     pd.DataFrame({"n": n, "power": n / 151, "chosen": n == 77,
                   "smallest_passing": n == 70}).to_csv(folder / "sizing.csv", index=False)
+    reseal(folder)
     assert invoke("report", str(folder), "--quiet").exit_code == 0
     page = parse(folder / "report.html")
     assert [r.cells["n"].value for r in table_rows(page, "sizing")] == [70, 77]

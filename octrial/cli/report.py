@@ -37,12 +37,15 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
 
     DESIGN_OR_RUN_DIR is a design file (evaluated now) or a folder written by
     'octrial run' (its oc.csv, boundaries.csv and run.json, plus calibration.csv and
-    checks.json when present, are shown as written; for a design file, the checks that
+    checks.json when present, are shown as written, once their SHA-256 are found to be
+    the ones recorded: an edited, missing or foreign file is refused with exit code 2;
+    for a design file, the checks that
     'octrial check' wrote into the report's folder for the same file are shown). The
     report's tables are also written
     as CSV, Markdown and LaTeX to <report name>-tables/ beside it; --pdf prints a PDF.
 
-    Exit codes: 0 written; 1 Chromium failed to print; 2 bad input or Chromium missing.
+    Exit codes: 0 written; 1 Chromium failed to print; 2 bad input (a run folder whose
+    files are not what was recorded, a report that cannot be written) or Chromium missing.
     """
     path = Path(source)
     if path.is_dir():
@@ -63,6 +66,9 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
         click.echo(f"error: printing the PDF failed: {exc}", err=True)
         click.echo(f"The HTML report was written: {html}", err=True)
         raise SystemExit(1) from None
+    except OSError as exc:  # a full disk, a read-only folder: a plain message, exit 2
+        raise single(str(html), "", "a report file that can be written",
+                     exc.strerror or type(exc).__name__) from None
     if quiet:
         return
     click.echo(f"wrote {written.html}")
