@@ -265,3 +265,18 @@ def test_missing_arrays_are_named() -> None:
 def test_beyond_the_cap_is_named() -> None:
     assert tally_problems(GOOD, 3, at_most=50) == ["100 studies (expected 1 to 50)"]
 
+
+
+def test_checkpoints_that_cannot_be_saved_do_not_stop_the_run(tmp_path) -> None:
+    """A folder that cannot be written: the simulation runs without checkpoints (one
+    warning), and the results that cannot be written either end in exit code 2."""
+    design = tmp_path / "d.toml"
+    design.write_text(dumps(changed(ONE_ARM, simulation={"replicates": 500, "seed": 3})))
+    blocker = tmp_path / "file"
+    blocker.write_text("a file")
+    result = CliRunner().invoke(main, ["run", str(design), "--out", str(blocker / "out"),
+                                       "--quiet"])
+    assert result.exit_code == 2, result.output
+    assert result.output.count("cannot save checkpoints") == 1
+    assert "Traceback" not in result.output and "error:" in result.output
+    assert blocker.read_text() == "a file"

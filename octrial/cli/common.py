@@ -130,14 +130,17 @@ def resumable(execution: Execution) -> Iterator[None]:
     finished is kept in the checkpoint folder and the same command resumes from it); bad
     input found on the way (a calibration that nothing meets) removes the checkpoints, so
     that nothing is left behind with exit code 2. A checkpoint found unusable (and
-    computed again) is reported as a plain ``warning:`` line on stderr."""
+    computed again), or checkpoints that cannot be saved, are reported as plain
+    ``warning:`` lines on stderr."""
     shown = warnings.showwarning
+    said: set[str] = set()
 
     def show(message: Any, category: type[Warning], *args: Any, **kwargs: Any) -> None:
-        if issubclass(category, CheckpointWarning):
-            click.echo(f"warning: {message}", err=True)
-        else:
+        if not issubclass(category, CheckpointWarning):
             shown(message, category, *args, **kwargs)
+        elif str(message) not in said:  # once, for however many stores
+            said.add(str(message))
+            click.echo(f"warning: {message}", err=True)
 
     try:
         with warnings.catch_warnings():

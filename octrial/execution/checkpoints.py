@@ -85,6 +85,7 @@ class CheckpointStore:
     def __init__(self, folder: Path, ingredients: dict[str, Any] | None = None) -> None:
         self.folder = Path(folder)
         self.ingredients = ingredients or {}
+        self.failed = False
 
     def _path(self, index: int) -> Path:
         return self.folder / f"scenario-{index:06d}.npz"
@@ -107,12 +108,25 @@ class CheckpointStore:
                 "octrial": __version__}
 
     def save(self, index: int, arrays: dict[str, np.ndarray], task: Checkpointed) -> None:
-        """Save one task's arrays with its identity."""
-        self._describe()
+        """Save one task's arrays with its identity (see :meth:`_write`)."""
         buffer = io.BytesIO()
         label = json.dumps(self.identity(index, task), sort_keys=True, default=str)
         np.savez(buffer, **arrays, **{IDENTITY: np.array(label)})
-        write_atomic(self._path(index), buffer.getvalue())
+        self._write(self._path(index), buffer.getvalue())
+
+    def _write(self, path: Path, data: str | bytes) -> None:
+        """Write a checkpoint file; when that fails (a full disk, a read-only folder)
+        warn once and save nothing more: the run goes on, only resuming is lost."""
+        if self.failed:
+            return
+        try:
+            self._describe()
+            write_atomic(path, data)
+        except OSError as exc:
+            self.failed = True
+            warnings.warn(CheckpointWarning(
+                f"cannot save checkpoints ({exc.strerror or exc}); the run goes on "
+                "without them (an interrupted run cannot resume)"), stacklevel=3)
 
     def load(self, index: int, task: Checkpointed) -> dict[str, np.ndarray] | None:
         """Task ``index``'s saved arrays; ``None`` (with a :class:`CheckpointWarning`, the
@@ -165,8 +179,7 @@ class CheckpointStore:
 
     def save_seed(self, seed: int) -> None:
         """Remember a drawn seed, so that resuming uses the same one."""
-        self._describe()
-        write_atomic(self.folder / "seed.json", json_text({"seed": seed}))
+        self._write(self.folder / "seed.json", json_text({"seed": seed}))
 
 
 def kept_seed(store: CheckpointStore | None, seed: int | None) -> tuple[int, bool]:
