@@ -413,7 +413,7 @@ def _marked_rows(frame: pd.DataFrame, source: str, what: str) -> tuple[pd.DataFr
 
 
 PROVENANCE_KEYS = ("octrial_version", "design", "command", "started", "finished", "files",
-                   "environment", "caution")
+                   "file_sha256", "environment", "caution")
 """Keys of calibration.json shown in the reproducibility section, not the summary."""
 
 
