@@ -175,6 +175,24 @@ def test_the_same_design_keeps_its_checks(copy) -> None:
     assert invoke("report", copy, "--quiet").exit_code == 0
 
 
+def test_a_calibration_goes_with_its_calibrated_design_only(tmp_path) -> None:
+    folder = tmp_path / "run"
+    result = invoke("calibrate", RESPONSE, "--alpha", "0.05", "--out", folder, "--quiet")
+    assert result.exit_code == 0, result.output
+    record = json.loads((folder / "calibration.json").read_text())
+    calibrated = folder / "single-arm-response.calibrated.toml"
+    assert record["file_sha256"] == {name: sha256(folder / name)
+                                     for name in ("calibration.csv", calibrated.name)}
+    assert invoke("run", calibrated, "--out", folder, "--quiet").exit_code == 0
+    assert invoke("report", folder, "--quiet").exit_code == 0
+    assert "calibration" in (folder / "report.html").read_text()
+    assert invoke("run", EVENTS, "--out", folder, "--quiet").exit_code == 0
+    names = {p.name for p in folder.iterdir()}
+    assert not names & set(run_folder.CALIBRATION_FILES)
+    assert calibrated.name in names  # a design file, kept
+    assert invoke("report", folder, "--quiet").exit_code == 0
+
+
 # -- failures leave the old folder as it was -----------------------------------------------
 def assert_failed_cleanly(result, folder: Path, before: dict[str, bytes], *words: str) -> None:
     assert result.exit_code == 2, result.output
