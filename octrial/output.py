@@ -2,7 +2,8 @@
 
 Every file is written to a temporary name in the destination folder and renamed into
 place (``os.replace`` is atomic on POSIX and Windows within one file system), so an
-interrupted run never leaves a half-written table behind.
+interrupted run never leaves a half-written table behind. Commands that write a run
+folder write it all at once instead (:mod:`octrial.run_folder`).
 """
 
 from __future__ import annotations

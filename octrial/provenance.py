@@ -2,7 +2,9 @@
 
 Everything needed to reproduce the numbers: octrial and library versions, the design
 file's SHA-256 (and path), the command line, seed, engine and its numerical tolerances,
-timestamps and platform.
+timestamps and platform. ``octrial run`` adds the SHA-256 of each file it wrote
+(``file_sha256``, :func:`octrial.run_folder.run_files`), so that a report can tell the
+files are this run's.
 """
 
 from __future__ import annotations

@@ -14,7 +14,8 @@ one run. Two measures (docs/output-files.md, "Sealed run folders"):
   folder keeps, then swaps it into place with two renames and deletes the old folder.
   Any failure (a full disk, a read-only folder, ``--out`` naming a file) deletes the
   temporary folder, leaves the old one as it was and becomes an :class:`InputError`
-  (exit code 2) with a plain message.
+  (exit code 2) with a plain message. A mount point or the working folder cannot be
+  renamed away; it is written file by file, the sealing record last.
 
 A seal guards against accidents (a hand-edited table, a file copied in from another run,
 a half-finished write), not against someone who rewrites the hashes too.
@@ -33,7 +34,7 @@ from pathlib import Path
 from typing import Any
 
 from octrial.errors import InputError, Problem, show, single
-from octrial.output import json_text
+from octrial.output import json_text, write_atomic
 
 SEAL = "file_sha256"
 """The key of a record (run.json, checks.json, calibration.json) holding its files' hashes."""
@@ -112,12 +113,16 @@ def write_folder(
         When the folder cannot be written; the old folder is left as it was and no
         temporary folder remains.
     """
-    folder = Path(folder)
+    shown = Path(folder)  # as the user gave it, for messages
+    folder = Path(os.path.abspath(folder))
     if folder.is_symlink():
         folder = folder.resolve()  # replace the folder the link points to, keep the link
     drop = drop or (lambda name: False)
     if folder.exists() and not folder.is_dir():
-        raise _unwritable(folder, "a file of that name")
+        raise _unwritable(shown, "a file of that name")
+    if folder.is_dir() and not _movable(folder):
+        done = _write_in_place(folder, files, drop, shown)
+        return FolderWrite([shown / name for name in files], done.removed)
     temp: Path | None = None
     try:
         folder.parent.mkdir(parents=True, exist_ok=True)
@@ -138,12 +143,48 @@ def write_folder(
     except OSError as exc:
         if temp is not None:
             shutil.rmtree(temp, ignore_errors=True)
-        raise _unwritable(folder, exc.strerror or type(exc).__name__) from None
+        raise _unwritable(shown, exc.strerror or type(exc).__name__) from None
     except BaseException:
         if temp is not None:
             shutil.rmtree(temp, ignore_errors=True)
         raise
-    return FolderWrite([folder / name for name in files], removed)
+    return FolderWrite([shown / name for name in files], removed)
+
+
+def _movable(folder: Path) -> bool:
+    """Whether ``folder`` can be renamed away: not a mount point, and neither the working
+    folder nor one that contains it (a shell there would be left in a deleted folder)."""
+    if os.path.ismount(folder):
+        return False
+    here = Path.cwd().resolve()
+    target = folder.resolve()
+    return target != here and target not in here.parents
+
+
+def _write_in_place(folder: Path, files: Mapping[str, str | bytes],
+                    drop: Callable[[str], bool], shown: Path) -> FolderWrite:
+    """For a folder that cannot be swapped: each file written atomically, in the order
+    given (every command gives its sealing record last, so a folder left half-written is
+    refused by the report), then the dropped entries deleted."""
+    written = []
+    try:
+        for name, data in files.items():
+            written.append(write_atomic(folder / name, data))
+        removed = sorted(e.name for e in os.scandir(folder)
+                         if e.name not in files and drop(e.name))
+        for name in removed:
+            path = folder / name
+            if path.is_dir() and not path.is_symlink():
+                shutil.rmtree(path)
+            else:
+                path.unlink()
+    except OSError as exc:
+        raise InputError(str(shown), [Problem(
+            "", "a folder that can be written", exc.strerror or type(exc).__name__,
+            "the folder (a mount point or the working folder) is written file by file: "
+            f"{len(written)} of {len(files)} files were replaced; run the command again")]
+        ) from None
+    return FolderWrite(written, removed)
 
 
 def _unwritable(folder: Path, why: str) -> InputError:

@@ -318,3 +318,25 @@ def test_a_real_read_only_file_system_is_exit_2(tmpfs) -> None:
         pytest.skip("cannot remount read-only: " + remounted.stderr.decode().strip())
     result = invoke("run", EVENTS, "--out", folder, "--quiet")
     assert_failed_cleanly(result, folder, before, "Read-only file system")
+
+
+def test_the_working_folder_is_written_in_place(copy, monkeypatch) -> None:
+    """Swapping the working folder would leave the shell in a deleted folder."""
+    monkeypatch.chdir(copy)
+    result = invoke("run", EVENTS, "--out", ".", "--quiet")
+    assert result.exit_code == 0, result.output
+    assert Path.cwd().exists() and Path.cwd() == copy.resolve()
+    assert not any(run_folder.is_check_file(p.name) for p in copy.iterdir())
+    assert invoke("report", ".", "--quiet").exit_code == 0
+    assert leftovers(copy.parent) == []
+
+
+def test_a_mount_point_is_written_in_place(tmpfs) -> None:
+    """A mount point cannot be renamed: its files are replaced one by one, the sealing
+    record last."""
+    assert invoke("run", RESPONSE, "--out", tmpfs, "--quiet").exit_code == 0
+    assert invoke("run", EVENTS, "--out", tmpfs, "--quiet").exit_code == 0
+    record = json.loads((tmpfs / "run.json").read_text())
+    assert record["design"]["sha256"] == sha256(EVENTS)
+    result = invoke("report", tmpfs, "--out", tmpfs.parent / "report.html", "--quiet")
+    assert result.exit_code == 0, result.output
