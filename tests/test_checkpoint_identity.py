@@ -162,17 +162,36 @@ def test_a_corrupt_drawn_seed_is_drawn_again(tmp_path) -> None:
         compute(design, "monte-carlo", MonteCarloSettings(),
                 Execution(checkpoints=partial, on_saved=stop_after(1)))
     (seed_file,) = partial.glob("*/seed.json")
-    seed_file.write_text('{"seed": -3}')
+    saved = json.loads(seed_file.read_text())
+    assert saved["key"] == seed_file.parent.name
+    seed_file.write_text(json.dumps({**saved, "seed": -3}))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = compute(design, "monte-carlo", MonteCarloSettings(),
                          Execution(checkpoints=partial))
     notes = [str(w.message) for w in caught if issubclass(w.category, CheckpointWarning)]
-    assert any("a new seed drawn" in n for n in notes)
+    assert any("not a seed" in n and "a new seed drawn" in n for n in notes)
     # the saved scenario was simulated with the old seed: not merged with the new one
     assert any("another run's" in n for n in notes)
     assert result.info["scenarios_resumed"] == 0
     assert 0 <= result.info["seed"] < 2**63
+
+
+def test_a_drawn_seed_of_another_run_is_not_used(tmp_path) -> None:
+    design = build(changed(ONE_ARM, simulation={"replicates": 500}))
+    partial = tmp_path / PARTIAL
+    with pytest.raises(Stop):
+        compute(design, "monte-carlo", MonteCarloSettings(),
+                Execution(checkpoints=partial, on_saved=stop_after(1)))
+    (seed_file,) = partial.glob("*/seed.json")
+    seed_file.write_text(json.dumps({"seed": 12345, "key": "0" * 24}))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = compute(design, "monte-carlo", MonteCarloSettings(),
+                         Execution(checkpoints=partial))
+    notes = [str(w.message) for w in caught if issubclass(w.category, CheckpointWarning)]
+    assert any("seed.json" in n and "another run's" in n for n in notes)
+    assert result.info["seed"] != 12345
 
 
 def test_octrial_run_warns_plainly_and_writes_the_clean_numbers(tmp_path) -> None:

@@ -162,16 +162,21 @@ class CheckpointStore:
         return None
 
     def seed(self) -> int | None:
-        """The seed drawn for this run, if one was saved (and can be read)."""
+        """The seed drawn for this run, if one was saved (and can be read, and is this
+        run's: ``seed.json`` records the run key too)."""
         path = self.folder / "seed.json"
         if not path.exists():
             return None
         try:
-            seed = json.loads(path.read_text(encoding="utf-8"))["seed"]
-            if isinstance(seed, int) and not isinstance(seed, bool) and (
+            saved = json.loads(path.read_text(encoding="utf-8"))
+            seed = saved["seed"]
+            if saved.get("key") != self.folder.name:
+                why = f"another run's (key {saved.get('key')!r}, expected {self.folder.name!r})"
+            elif isinstance(seed, int) and not isinstance(seed, bool) and (
                     0 <= seed < 2**SEED_BITS):
                 return seed
-            why = f"not a seed in [0, 2^{SEED_BITS}): {seed!r}"
+            else:
+                why = f"not a seed in [0, 2^{SEED_BITS}): {seed!r}"
         except (OSError, ValueError, KeyError, TypeError) as exc:
             why = f"unreadable ({type(exc).__name__})"
         self._discard(path, why, then="a new seed drawn")
@@ -179,7 +184,7 @@ class CheckpointStore:
 
     def save_seed(self, seed: int) -> None:
         """Remember a drawn seed, so that resuming uses the same one."""
-        self._write(self.folder / "seed.json", json_text({"seed": seed}))
+        self._write(self.folder / "seed.json", json_text({"seed": seed, "key": self.folder.name}))
 
 
 def kept_seed(store: CheckpointStore | None, seed: int | None) -> tuple[int, bool]:
