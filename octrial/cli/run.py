@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import sys
 import warnings
 from pathlib import Path
@@ -32,9 +33,12 @@ from octrial.provenance import now, run_record
                    "[default: reports/<design name>/].")
 @click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
               help="Engine; overrides simulation.method in the design file.")
+@click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=None,
+              help="Random seed of the simulations; overrides simulation.seed in the design "
+                   "file (run.json records the seed used).")
 @simulation_options
 @reports_input_errors
-def run_command(design: str, out: str | None, method: str | None,
+def run_command(design: str, out: str | None, method: str | None, seed: int | None,
                 simulation: SimulationOptions) -> None:
     """Compute the operating characteristics of DESIGN at every scenario.
 
@@ -49,6 +53,9 @@ def run_command(design: str, out: str | None, method: str | None,
     """
     started = now()
     loaded = read_design(design)
+    if seed is not None:  # as in check and verify, the command line overrides the file
+        loaded = dataclasses.replace(
+            loaded, simulation=dataclasses.replace(loaded.simulation, seed=seed))
     folder = Path(out) if out else default_out(loaded)
     execution = simulation.execution(folder)
     with resumable(execution), warnings.catch_warnings():
