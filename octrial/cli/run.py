@@ -23,6 +23,7 @@ from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, typ
 from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
 from octrial.output import csv_text, json_text, write_atomic
+from octrial.plurals import noun
 from octrial.provenance import now, run_record
 
 
@@ -80,8 +81,8 @@ def run_command(design: str, out: str | None, method: str | None, seed: int | No
         click.echo(line)
     short = evaluation.info.get("scenarios_short_of_target")
     if short:
-        click.echo(f"warning: scenarios {short} reached the replicate cap before the target "
-                   "standard error", err=True)
+        click.echo(f"warning: {noun(len(short), 'scenario')} {', '.join(map(str, short))} "
+                   f"reached the replicate cap before the target standard error", err=True)
     for line in prior_size_lines(evaluation.info.get("prior_effective_sample_size")):
         click.echo(line)
     click.echo("wrote " + ", ".join(str(p) for p in written), err=True)

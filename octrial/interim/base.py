@@ -17,6 +17,7 @@ from typing import Any
 
 from octrial.design.model import Design
 from octrial.errors import Problem
+from octrial.plurals import noun
 
 
 @dataclass(frozen=True)
@@ -68,7 +69,7 @@ class EndpointInterim(ABC):
 
     def amount(self, design: Design, n: float) -> str:
         """A size in ``design``'s units in words (``'28 subjects'``)."""
-        return f"{self.quantity(design, n)} subjects"
+        return f"{self.quantity(design, n)} {noun(n, 'subject')}"
 
     def has_prior(self, design: Design) -> bool:
         """Whether the design has an analysis prior (else the rule is in counts)."""

@@ -51,6 +51,7 @@ from octrial.interim.observations import CountData
 from octrial.interim.rule import observed_design
 from octrial.interim.subjects import read_subjects
 from octrial.numerics.parameter_grid import Grid, GridPosterior
+from octrial.plurals import count
 from octrial.rules.lattice import serving
 
 MAX_DENOMINATOR = 1000
@@ -299,8 +300,8 @@ class CountInterim(EndpointInterim):
             if file.events != typed.events or abs(file.exposure - typed.exposure) > (
                     SUMS * typed.exposure):
                 out.append(disagreement(
-                    arm, path, f"{file.events} events in exposure {file.exposure:.10g}",
-                    f"{typed.events} events in exposure {typed.exposure:.10g}"))
+                    arm, path, f"{count(file.events, 'event')} in exposure {file.exposure:.10g}",
+                    f"{count(typed.events, 'event')} in exposure {typed.exposure:.10g}"))
         return out
 
     def check_subjects(
