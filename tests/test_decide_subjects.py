@@ -376,3 +376,28 @@ def test_binary_responses_must_be_0_or_1(runner, tmp_path) -> None:
     assert result.exit_code == 2
     assert f"{path}: line 3, column response: expected a whole number from 0 to 1; got '2'" \
         in result.stderr
+
+
+def test_equal_normal_values_have_no_sample_sd(runner, tmp_path) -> None:
+    path = write_values(tmp_path / "flat.csv", {"treatment": np.full(5, 2.0),
+                                                "control": np.array([1.0, 2.0, 3.0])})
+    result = runner.invoke(main, ["decide", str(SCORE), "--look", "1", "--subjects",
+                                  str(path)])
+    assert result.exit_code == 2
+    assert (f"{path}: treatment: expected values that are not all equal (a sample sd > 0); "
+            "got 5 equal values") in result.stderr
+
+
+def test_negative_binomial_subjects_give_the_data_and_say_no_check_ran(runner,
+                                                                      tmp_path) -> None:
+    import tomllib
+    data = tomllib.loads(EVENT_RATE.read_text())
+    data["endpoint"].update(model="negative-binomial", dispersion=0.5)
+    design = tmp_path / "nb.toml"
+    design.write_text(dumps(data))
+    counts = np.array([0, 2, 1, 0, 3, 1, 0, 0, 2, 1])
+    path = write_counts(tmp_path / "nb.csv", counts)
+    record, err = run_json(runner, design, 1, [], path)
+    assert record["data"]["treatment"] == {"events": 10, "exposure": 10.0}
+    assert record["checks"] == []
+    assert "No posterior predictive check of the data model for a negative binomial" in err

@@ -43,10 +43,9 @@ import numpy as np
 from scipy import optimize, special, stats
 
 from octrial.design.model import Design
-from octrial.design.reader import Phrase
 from octrial.endpoints import unknown_sd
 from octrial.endpoints.normal import Flat, NormalPosterior, update
-from octrial.errors import Problem, single
+from octrial.errors import InputError, Problem
 from octrial.interim import adequacy
 from octrial.interim.base import EndpointInterim, PosteriorSummary, disagreement
 from octrial.interim.count import arm_seed
@@ -290,8 +289,9 @@ class NormalInterim(EndpointInterim):
             values = data[arm]["value"]
             sd = float(values.std(ddof=1))
             if not sd > 0:
-                raise single(str(path), arm, "values that are not all equal (a sample "
-                             "sd > 0)", Phrase(f"{values.size} equal values"))
+                raise InputError(str(path), [Problem(
+                    arm, "values that are not all equal (a sample sd > 0)",
+                    f"{values.size} equal values")])
             out[arm] = NormalData(float(values.mean()), sd, int(values.size))
         return out
 
