@@ -44,3 +44,15 @@ def count(number: float, word: str, plural: str | None = None) -> str:
     """
     shown = str(number) if isinstance(number, int) else f"{number:g}"
     return f"{shown} {noun(number, word, plural)}"
+
+
+def series(items: list[str] | tuple[str, ...]) -> str:
+    """Items joined as English lists them: ``a``, ``a and b``, ``a, b and c``.
+
+    Examples
+    --------
+    >>> series(["treatment"]), series(["treatment", "control"])
+    ('treatment', 'treatment and control')
+    """
+    items = list(items)
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]

@@ -62,3 +62,15 @@ def test_scenarios_short_of_the_target_are_listed_plainly(runner, tmp_path) -> N
     assert result.exit_code == 0, result.output
     assert "warning: scenarios 1, 2, 3, " in result.stderr
     assert "[" not in result.stderr
+
+
+def test_arms_without_a_design_prior_in_words() -> None:
+    from octrial.checks.model import DESIGN, model_for
+    from octrial.plurals import series
+    from tests.helpers import ONE_ARM, TWO_ARM, build
+
+    assert series(["a", "b", "c"]) == "a, b and c"
+    assert model_for(build(TWO_ARM)).cannot_draw(DESIGN) == (
+        "no design prior on the treatment and control arms")
+    assert model_for(build(ONE_ARM)).cannot_draw(DESIGN) == (
+        "no design prior on the treatment arm")
