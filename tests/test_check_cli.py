@@ -159,7 +159,7 @@ def _single_arm_with_prior(a: float, b: float) -> dict:
     (("--only", ","), "--only: expected one or more of"),
     (("--outcome-range", "0:x"), "--outcome-range"),
     (("--outcome-range", "0:100"), "a normal endpoint"),
-    (("--plausible", "3:1"), "plausible"),
+    (("--plausible", "3:1"), "--plausible: expected LOW:HIGH with LOW < HIGH; got 3:1"),
 ])
 def test_bad_input_exits_2_and_writes_nothing(tmp_path, args, words) -> None:
     out = tmp_path / "out"

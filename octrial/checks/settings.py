@@ -90,7 +90,7 @@ class CheckSettings:
             ("outcome_range", ordered(self.outcome_range), "LOW:HIGH with LOW < HIGH"),
             ("plausible", ordered(self.plausible), "LOW:HIGH with LOW < HIGH"),
         ]
-        problems = [Problem(OPTIONS.get(name, name), expected, show(getattr(self, name)))
+        problems = [Problem(OPTIONS.get(name, name), expected, _found(getattr(self, name)))
                     for name, ok, expected in checks if not ok]
         problems += _checks_problems(self.checks)
         if problems:
@@ -104,6 +104,14 @@ class CheckSettings:
             return self
         seed = design_seed if design_seed is not None else secrets.randbits(SEED_BITS)
         return replace(self, seed=seed)
+
+
+def _found(value: object) -> str:
+    """A found setting in a message: a range as LOW:HIGH, as it is typed."""
+    if isinstance(value, tuple) and len(value) == 2 and all(
+            isinstance(v, int | float) for v in value):
+        return f"{value[0]:g}:{value[1]:g}"
+    return show(value)
 
 
 def _checks_problems(names: tuple[str, ...]) -> list[Problem]:
