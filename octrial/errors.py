@@ -77,12 +77,21 @@ def single(source: str, key: str, expected: str, got: object, hint: str = "") ->
 
 
 def show(value: object) -> str:
-    """Render a found value for a message: strings quoted, long values shortened."""
+    """Render a found value for a message: strings quoted, lists as their items (no
+    Python brackets or reprs), long values shortened."""
     text = repr(value) if isinstance(value, str) else str(value)
     if isinstance(value, bool):
         text = str(value).lower()
     elif isinstance(value, dict):
         text = "a table with keys " + ", ".join(map(str, value)) if value else "an empty table"
-    elif isinstance(value, list):
-        text = "an empty list" if not value else f"a list of {len(value)}: {value}"
+    elif isinstance(value, list | tuple):
+        text = "an empty list" if not value else f"a list of {len(value)}: {_items(value)}"
+    elif hasattr(value, "item") and hasattr(value, "dtype") and getattr(value, "ndim", 1) == 0:
+        text = show(value.item())  # a numpy scalar as the plain number
     return text if len(text) <= 80 else text[:77] + "..."
+
+
+def _items(values: list | tuple) -> str:
+    """The items of a list, comma-separated; inner lists in brackets as written in TOML."""
+    return ", ".join(f"[{_items(v)}]" if isinstance(v, list | tuple) else show(v)
+                     for v in values)

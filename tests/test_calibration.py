@@ -382,3 +382,46 @@ def test_two_arm_refinement_between_grid_points() -> None:
     assert result.summary["type1_error_refined"] <= 0.025
     assert result.summary["type1_error_refined"] >= result.summary["type1_error"]
     assert any("added to the null grid" in note for note in result.summary["notes"])
+
+
+COUNT_BORROWING: dict = {
+    "schema": 1,
+    "name": "count-borrowing-test",
+    "endpoint": {"type": "count", "better": "lower"},
+    "hypothesis": {"comparison": "ratio", "margin": 0.0, "kind": "superiority"},
+    "arms": {
+        "treatment": {"allocation": 1,
+                      "prior": {"distribution": "gamma", "shape": 0.5, "rate": 0.5}},
+        "control": {"allocation": 1, "prior": {
+            "distribution": "gamma", "shape": 0.5, "rate": 0.5,
+            "historical": {"events": 200, "exposure": 100},
+            "borrowing": {"method": "robust-mixture", "vague_weight": 0.2}}},
+    },
+    "looks": {"n": [40, 80], "efficacy": [0.995, 0.975]},
+    # the historical rate (2.0) lies above every scenario: the borrowed control prior pulls
+    # the control posterior up, so the type I error rises to the top of the searched range
+    "scenarios": {"control": {"from": 0.3, "to": 1.2, "step": 0.3}, "ratio": [0.6]},
+}
+
+
+@pytest.mark.parametrize("ratios", [[0.6], [1.0, 0.6]])
+def test_count_refinement_with_the_worst_point_at_the_top_of_the_grid(ratios) -> None:
+    """Issue 12: two-arm counts with a robust-mixture historical control whose type I error
+    peaks at the highest control rate searched. The count rate has no upper end, so the
+    refinement used to get an infinite bound (scipy: "Optimization bounds must be finite
+    scalars"); it now stays inside the range searched (control up to the largest scenario
+    value, 1.2) and finds what brute force over a 2,001-point grid of that range finds
+    (the batched exact engine, itself checked against path enumeration)."""
+    from octrial.engines.lattice_batch import IncrementTables, run_batch
+
+    design = build(COUNT_BORROWING, scenarios__ratio=ratios)
+    result = calibrate(design, alpha=0.05, null_points=20)
+    controls = np.linspace(1e-6, 1.2, 2001)
+    scan = run_batch(result.design, build_rule(result.design),
+                     IncrementTables(result.design, np.column_stack([controls, controls])))
+    success = scan.efficacy.sum(axis=1)
+    assert int(np.argmax(success)) == len(controls) - 1  # the worst point is the grid's top
+    # within the refinement's control tolerance (1e-7) of the edge
+    assert result.summary["type1_error_refined"] == pytest.approx(success.max(), abs=1e-7)
+    assert result.summary["worst_null_point_refined"]["control"] == pytest.approx(1.2, abs=1e-6)
+    assert result.summary["type1_error_refined"] <= 0.05

@@ -150,18 +150,23 @@ def _single_arm_with_prior(a: float, b: float) -> dict:
 
 
 @pytest.mark.parametrize("args, words", [
-    (("--simulations", "5"), "simulations"),
-    (("--bins", "1"), "bins"),
-    (("--only", "sbc,everything"), "checks"),
+    (("--simulations", "5"), "--simulations: expected a whole number >= 20; got 5"),
+    (("--bins", "1"), "--bins: expected a whole number from 2 to --simulations / 5"),
+    # issue 12: the option and the valid values in plain words, not a Python tuple
+    (("--only", "sbc,everything"), "--only: expected one or more of prior-predictive, sbc, "
+     "sensitivity, tail-accuracy and conflict, separated by commas; got 'everything'"),
+    (("--only", "sbc,sensitivty"), "got 'sensitivty' (did you mean 'sensitivity'?)"),
+    (("--only", ","), "--only: expected one or more of"),
     (("--outcome-range", "0:x"), "--outcome-range"),
     (("--outcome-range", "0:100"), "a normal endpoint"),
-    (("--plausible", "3:1"), "plausible"),
+    (("--plausible", "3:1"), "--plausible: expected LOW:HIGH with LOW < HIGH; got 3:1"),
 ])
 def test_bad_input_exits_2_and_writes_nothing(tmp_path, args, words) -> None:
     out = tmp_path / "out"
     result = invoke("check", DESIGNS / "single-arm-response.toml", "--out", out, *args)
     assert result.exit_code == 2, result.output
     assert words in result.output
+    assert "(" + "'" not in result.output and "()" not in result.output  # no tuple reprs
     assert not out.exists()
 
 

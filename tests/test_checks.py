@@ -451,6 +451,9 @@ def test_flat_prior_uses_the_design_prior_where_it_can() -> None:
                                  {"alpha": 1.5}, {"plausible": (2.0, 1.0)},
                                  {"checks": ("sbc", "nonsense")}])
 def test_bad_settings_are_input_errors(bad) -> None:
+    from octrial.checks.settings import OPTIONS
+
     with pytest.raises(InputError) as caught:
         CheckSettings(**bad)
-    assert next(iter(bad)) in str(caught.value)
+    name = next(iter(bad))
+    assert f"{OPTIONS[name]}: expected" in str(caught.value)  # the command-line option

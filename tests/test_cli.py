@@ -91,6 +91,36 @@ def test_monte_carlo_from_the_command_line(runner, tmp_path) -> None:
     np.testing.assert_array_equal(oc[numeric].to_numpy(float), api[numeric].to_numpy(float))
 
 
+def test_run_seed_overrides_the_design_file(runner, tmp_path) -> None:
+    """Issue 12: ``run --seed`` as ``check --seed`` and ``verify --seed``: --seed 7 gives
+    the bytes a design file with simulation.seed = 7 gives, another seed other numbers, and
+    run.json records the seed used."""
+    text = (DESIGNS / "single-arm-response.toml").read_text().replace(
+        "replicates = 20000", "replicates = 2000")
+    path = tmp_path / "design.toml"
+    path.write_text(text)
+    seeded = tmp_path / "seeded.toml"
+    seeded.write_text(text.replace("seed = 20261201", "seed = 7"))
+    tables = {}
+    for label, design, extra in [("option", path, ["--seed", "7"]), ("file", seeded, []),
+                                 ("other", path, ["--seed", "8"])]:
+        out = tmp_path / label
+        result = runner.invoke(main, ["run", str(design), "--method", "monte-carlo", "--quiet",
+                                      "--out", str(out), *extra])
+        assert result.exit_code == 0, result.output
+        tables[label] = (out / "oc.csv").read_bytes()
+        record = json.loads((out / "run.json").read_text())
+        assert record["seed"] == {"option": 7, "file": 7, "other": 8}[label]
+        assert not record["seed_drawn"]
+    assert tables["option"] == tables["file"] != tables["other"]
+    exact = runner.invoke(main, ["run", str(path), "--seed", "9", "--quiet", "--out",
+                                 str(tmp_path / "exact")])
+    assert exact.exit_code == 0, exact.output
+    assert json.loads((tmp_path / "exact" / "run.json").read_text())["seed"] == 9
+    bad = runner.invoke(main, ["run", str(path), "--seed", "-1"])
+    assert bad.exit_code == 2 and "--seed" in bad.output
+
+
 def test_auto_prefers_exact(runner, tmp_path) -> None:
     result = runner.invoke(main, ["run", str(DEMOS[0]), "--method", "auto", "--out",
                                   str(tmp_path)])

@@ -248,8 +248,8 @@ BAD = [
      "a total sample size below the one look 2 plans (30)"),
     (["--look", "3", "--data", "treatment=3/46"], "at most the design's maximum of 45"),
     (["--look", "1", "--data", "treatment=3/15", "--level", "1.2"], "--level: expected"),
-    (["--look", "1", "--data", "treatment=3/15", "--subjects", "s.csv"],
-     "per-subject data for a count or normal endpoint"),
+    (["--look", "1", "--data", "treatment=3/15", "--subjects", "no-such-file.csv"],
+     "no-such-file.csv: expected an existing per-subject data file (CSV); got no such file"),
 ]
 
 

@@ -118,8 +118,9 @@ def test_subject_totals_must_match_the_data(runner, tmp_path) -> None:
     result = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1", "--data",
                                   "treatment=7/30", "--subjects", path])
     assert result.exit_code == 2
-    assert (f"{path}: treatment: expected per-subject events adding up to the 7 events given "
-            "in --data; got 6 events over 4 subjects") in result.stderr
+    assert (f"--data: treatment: expected the data of the per-subject file {path} (6 events "
+            "in exposure 4); got 7 events in exposure 30 (leave out --data to take the data "
+            "from the file)") in result.stderr
     values = tmp_path / "v.csv"
     values.write_text("arm,value\ntreatment,1\ntreatment,2\ntreatment,3\ncontrol,1\n"
                       "control,2\ncontrol,4\n")
@@ -127,7 +128,9 @@ def test_subject_totals_must_match_the_data(runner, tmp_path) -> None:
                                   "treatment=2,1,60", "--data", "control=2,1,60",
                                   "--subjects", str(values)])
     assert result.exit_code == 2
-    assert "treatment: expected 60 subjects (as in --data); got 3 rows" in result.stderr
+    assert (f"--data: treatment: expected the data of the per-subject file {values} (mean 2, "
+            "sd 1, n = 3); got mean 2, sd 1, n = 60") in result.stderr
+    assert "control: expected the data of the per-subject file" in result.stderr
 
 
 # (design, arguments, words the message must contain)
@@ -232,3 +235,169 @@ def test_a_simulated_predictive_probability_near_its_threshold_warns() -> None:
     exact = Assessment(0.7, 0.05, Thresholds(efficacy=0.99, futility_predictive=0.05),
                        "continue", "", {}, None)
     assert _near_threshold(exact) == ""
+
+
+# -- the data derived from the per-subject file (issue 12) ------------------------------
+
+SINGLE = DESIGNS / "single-arm-response.toml"
+BORROWED = DESIGNS / "borrowed-control-response.toml"
+
+
+def decide_json(runner, design, look: int, *args: str) -> dict:
+    result = runner.invoke(main, ["decide", str(design), "--look", str(look), "--json", *args])
+    assert result.exit_code == 0, result.output
+    return json.loads(result.stdout)
+
+
+def same_decision(a: dict, b: dict) -> None:
+    for key in ("data", "benefit", "predictive_probability_of_success", "posterior",
+                "decision", "boundaries_at_observed_n"):
+        assert a[key] == b[key], key
+
+
+def test_count_data_derived_from_the_subjects(runner, tmp_path) -> None:
+    """Events/exposure per arm are the file's sums (numpy), and the decision is the one
+    --data with those totals gives."""
+    rng = np.random.default_rng(20261206)
+    counts, times = rng.poisson(1.1, 40), rng.choice([0.5, 1.0], 40)
+    path = tmp_path / "counts.csv"
+    path.write_text("subject,events,exposure\n" + "".join(
+        f"S{i:03d},{c},{t}\n" for i, (c, t) in enumerate(zip(counts, times, strict=True))))
+    derived = decide_json(runner, EVENT_RATE, 1, "--subjects", str(path))
+    assert derived["data"] == {"treatment": {"events": int(counts.sum()),
+                                             "exposure": float(times.sum())}}
+    typed = decide_json(runner, EVENT_RATE, 1, "--subjects", str(path), "--data",
+                        f"treatment={counts.sum()}/{times.sum():g}")
+    same_decision(derived, typed)
+    assert derived["checks"] == typed["checks"] and len(derived["checks"]) == 2
+
+
+def test_normal_data_derived_from_the_subjects(runner, tmp_path) -> None:
+    """mean, sd (divisor n - 1) and n per arm by numpy; with the same numbers typed in
+    --data (to 12 significant digits) the decision is the same."""
+    rng = np.random.default_rng(20261207)
+    arms = {"treatment": 43 + 12 * rng.standard_normal(60),
+            "control": 40 + 12 * rng.standard_normal(60)}
+    path = write_values(tmp_path / "scores.csv", arms)
+    derived = decide_json(runner, SCORE, 1, "--subjects", str(path))
+    for arm, v in arms.items():
+        got = derived["data"][arm]
+        assert got["n"] == 60
+        assert got["mean"] == pytest.approx(float(np.mean(v)), rel=1e-14)
+        assert got["sd"] == pytest.approx(float(np.std(v, ddof=1)), rel=1e-14)
+    typed = [f"{a}={np.mean(v):.12g},{np.std(v, ddof=1):.12g},60" for a, v in arms.items()]
+    typed = ["--data", typed[0], "--data", *typed[1:]]
+    both = decide_json(runner, SCORE, 1, "--subjects", str(path), *typed)
+    assert both["benefit"]["probability"] == pytest.approx(derived["benefit"]["probability"],
+                                                           abs=1e-9)
+    assert both["decision"] == derived["decision"]
+
+
+def test_binary_data_derived_from_responses_with_an_id_column(runner, tmp_path) -> None:
+    """Binary subjects: a response column of 0/1 gives x/n; an id column is accepted."""
+    responses = [1, 0, 0, 1, 1, 0, 0, 0, 1, 0, 1, 1, 0, 0, 1]
+    path = tmp_path / "responses.csv"
+    path.write_text("# invented\nid,response\n" + "".join(
+        f"P{i},{r}\n" for i, r in enumerate(responses)))
+    derived = decide_json(runner, SINGLE, 1, "--subjects", str(path))
+    typed = decide_json(runner, SINGLE, 1, "--data", f"treatment={sum(responses)}/15")
+    assert derived["data"] == {"treatment": {"responses": 7, "n": 15}}
+    same_decision(derived, typed)
+    assert derived["checks"] == []
+    two = tmp_path / "two.csv"
+    two.write_text("arm,subject,response\n" + "".join(
+        f"{arm},{arm[0]}{i},{(i * 7 + j) % 3 == 0:d}\n"
+        for j, arm in enumerate(("treatment", "control")) for i in range(45)))
+    record = decide_json(runner, BORROWED, 1, "--subjects", str(two))
+    assert record["data"] == {"treatment": {"responses": 15, "n": 45},
+                              "control": {"responses": 15, "n": 45}}
+
+
+@pytest.mark.parametrize(("design", "text", "data", "words"), [
+    # binary: x differs
+    (SINGLE, "response\n1\n0\n1\n", ["treatment=3/3"],
+     "--data: treatment: expected the data of the per-subject file {path} (2/3 responses); "
+     "got 3/3 responses (leave out --data to take the data from the file)"),
+    # count: same events, exposure differs beyond rounding
+    (EVENT_RATE, "events,exposure\n1,1\n0,1\n2,1.25\n", ["treatment=3/3.5"],
+     "--data: treatment: expected the data of the per-subject file {path} (3 events in "
+     "exposure 3.25); got 3 events in exposure 3.5"),
+    # normal: a mean 0.1 sd away (beyond rounding)
+    (SCORE, "arm,value\ntreatment,1\ntreatment,2\ntreatment,3\ncontrol,1\ncontrol,2\n"
+     "control,3\n", ["treatment=2.1,1,3", "control=2,1,3"],
+     "--data: treatment: expected the data of the per-subject file {path} (mean 2, sd 1, "
+     "n = 3); got mean 2.1, sd 1, n = 3"),
+])
+def test_data_and_subjects_that_disagree_exit_2(runner, tmp_path, design, text, data,
+                                                words) -> None:
+    """Issue 12: --data and --subjects both given and disagreeing is an error naming both
+    values (it used to be a warning, the decision taken on --data)."""
+    path = tmp_path / "subjects.csv"
+    path.write_text(text)
+    args = ["decide", str(design), "--look", "1", "--subjects", str(path)]
+    for entry in data:
+        args += ["--data", entry]
+    result = runner.invoke(main, args)
+    assert result.exit_code == 2, result.output
+    assert words.format(path=path) in result.stderr
+    assert result.stdout == ""
+
+
+@pytest.mark.parametrize(("text", "words"), [
+    ("id,events\nA,1\nB,0\nA,2\n",
+     "line 4, column id: expected each subject once; got 'A' (also on line 2)"),
+    ("id,events\nA,1\n,0\nC,2\n", "line 3, column id: expected a subject identifier; got "
+                                      "an empty field"),
+    ("id,subject,events\nA,1,1\nB,2,0\nC,3,2\n",
+     "line 1 (header): expected at most one subject identifier column (id or subject); "
+     "got both"),
+])
+def test_identifier_column_problems_exit_2(runner, tmp_path, text, words) -> None:
+    path = tmp_path / "ids.csv"
+    path.write_text(text)
+    result = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1", "--subjects",
+                                  str(path)])
+    assert result.exit_code == 2, result.output
+    assert f"{path}: {words}" in result.stderr
+
+
+def test_neither_data_nor_subjects_exits_2(runner) -> None:
+    result = runner.invoke(main, ["decide", str(EVENT_RATE), "--look", "1"])
+    assert result.exit_code == 2
+    assert ("--data: expected the data so far: --data ARM=events/exposure for each arm "
+            "(treatment), or a per-subject file (--subjects); got neither") in result.stderr
+
+
+def test_binary_responses_must_be_0_or_1(runner, tmp_path) -> None:
+    path = tmp_path / "r.csv"
+    path.write_text("response\n1\n2\n")
+    result = runner.invoke(main, ["decide", str(SINGLE), "--look", "1", "--subjects",
+                                  str(path)])
+    assert result.exit_code == 2
+    assert f"{path}: line 3, column response: expected a whole number from 0 to 1; got '2'" \
+        in result.stderr
+
+
+def test_equal_normal_values_have_no_sample_sd(runner, tmp_path) -> None:
+    path = write_values(tmp_path / "flat.csv", {"treatment": np.full(5, 2.0),
+                                                "control": np.array([1.0, 2.0, 3.0])})
+    result = runner.invoke(main, ["decide", str(SCORE), "--look", "1", "--subjects",
+                                  str(path)])
+    assert result.exit_code == 2
+    assert (f"{path}: treatment: expected values that are not all equal (a sample sd > 0); "
+            "got 5 equal values") in result.stderr
+
+
+def test_negative_binomial_subjects_give_the_data_and_say_no_check_ran(runner,
+                                                                      tmp_path) -> None:
+    import tomllib
+    data = tomllib.loads(EVENT_RATE.read_text())
+    data["endpoint"].update(model="negative-binomial", dispersion=0.5)
+    design = tmp_path / "nb.toml"
+    design.write_text(dumps(data))
+    counts = np.array([0, 2, 1, 0, 3, 1, 0, 0, 2, 1])
+    path = write_counts(tmp_path / "nb.csv", counts)
+    record, err = run_json(runner, design, 1, [], path)
+    assert record["data"]["treatment"] == {"events": 10, "exposure": 10.0}
+    assert record["checks"] == []
+    assert "No posterior predictive check of the data model for a negative binomial" in err

@@ -300,6 +300,35 @@ def test_demo_claims_flag_the_deliberately_wrong_line(runner, tmp_path) -> None:
         result.stdout)
 
 
+def test_notes_that_start_like_formulas_are_neutralised(runner, tmp_path) -> None:
+    """Issue 12: verify.csv copies each claim's note; a note a spreadsheet would run as a
+    formula (starting with =, +, -, @; OWASP "CSV Injection") gets a leading single
+    quote, while plain text, plain numbers and the numeric columns are left alone."""
+    import csv
+
+    notes = ['=HYPERLINK("http://example.invalid","x")', "+SUM(1,2)", "-2+3", "@SUM(A1)",
+             "-0.5", "type I error", "a = b"]
+    claims = tmp_path / "claims.csv"
+    with claims.open("w", newline="") as handle:
+        writer = csv.writer(handle)
+        writer.writerow(["true_treatment", "metric", "claimed", "note"])
+        for note in notes:
+            writer.writerow(["0.2", "prob_success", "0.04669", note])
+    out = tmp_path / "out"
+    result = runner.invoke(main, ["verify", str(SINGLE), str(claims), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    with (out / "verify.csv").open(newline="") as handle:
+        rows = list(csv.DictReader(handle))
+    assert [r["note"] for r in rows] == [
+        '\'=HYPERLINK("http://example.invalid","x")', "'+SUM(1,2)", "'-2+3", "'@SUM(A1)",
+        "-0.5", "type I error", "a = b"]
+    # numeric cells stay numbers (a negative difference is not text)
+    assert all(float(r["difference"]) == pytest.approx(0.04669 - float(r["recomputed"]))
+               for r in rows)
+    assert any(r["difference"].startswith("-") for r in rows)
+    assert all(r["claimed"] == "0.04669" for r in rows)
+
+
 # (file text, words the message must contain)
 BAD = [
     ("true_treatment,metric,claimed\n0.2,power,0.05\n",

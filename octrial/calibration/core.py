@@ -312,7 +312,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     else:
         raise run.fail("--null-points", "a null grid on which the calibration holds between "
                        "grid points", f"{request.null_points} (type I error {refined.type1:.6g} "
-                       f"> alpha at {refined.point} after {REFINE_ROUNDS} rounds; use more "
+                       f"> alpha at {where} after {REFINE_ROUNDS} rounds; use more "
                        "points)")
     run.log.choose(choice.row)
     _check_against_engine(choice.design, run.truths, choice.assessment)

@@ -44,6 +44,7 @@ from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings, re
 from octrial.execution import Execution
 from octrial.execution.checkpoints import CheckpointStore, kept_seed
 from octrial.execution.progress import StatusLine, clock
+from octrial.plurals import count
 from octrial.results import proportion_se
 from octrial.rules.lattice import DECISION_TOLERANCE, LatticeCache, build_rule
 
@@ -215,7 +216,7 @@ class EngineEvaluator(Evaluator):
                            outcome.replicates)
         if key is not None:
             self.done[key] = found
-            self._show(f"{self.evaluations} candidates simulated, the last with type I "
+            self._show(f"{count(self.evaluations, 'candidate')} simulated, the last with type I "
                        f"error {found.type1:.4g}")
         return found
 

@@ -8,6 +8,7 @@ from octrial._version import __version__
 from octrial.calibration.core import Calibration
 from octrial.caution import CAUTION
 from octrial.design.write import edited_text, value_text
+from octrial.plurals import count
 from octrial.provenance import environment, now
 
 KNOB_WORDS = {
@@ -96,7 +97,7 @@ def summary_lines(cal: Calibration) -> list[str]:
     if claim is not None:
         out.append(f"  prior probability of the claim (analysis prior): {claim:.4f}")
     out.append(f"  candidates examined: {s['candidates']} ({s['method']}; "
-               f"{s['evaluations']} evaluations)")
+               f"{count(s['evaluations'], 'evaluation')})")
     if s.get("simulation"):
         z = s["simulation"]
         out.append(f"  simulation: {z['replicates']:,} studies per true value, seed "

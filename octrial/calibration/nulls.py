@@ -62,6 +62,26 @@ def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> flo
     return max(reach, default=0.0)
 
 
+def control_range(design: Design) -> tuple[float, float]:
+    """The control values searched on a two-arm null boundary line (finite).
+
+    The parameter's range where it is finite (a rate in [0, 1] on both arms); where it is
+    not (a count rate has no upper end), the range of the design's scenario control values.
+    Calibration controls the type I error over this range only, and refinement between
+    grid points stays inside it.
+    """
+    h = design.hypothesis
+    offset = h.sign * h.shift
+    lo, hi = design.family.parameter_range
+    c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
+    controls = np.array(design.scenarios.values, dtype=float)[:, 1]
+    if not math.isfinite(c_lo):
+        c_lo = float(controls.min())
+    if not math.isfinite(c_hi):
+        c_hi = float(controls.max())
+    return c_lo, c_hi
+
+
 def null_truths(
     design: Design, points: int = 50, alternative: tuple[float, ...] | None = None,
     extra: tuple[tuple[float, ...], ...] = (),
@@ -96,13 +116,7 @@ def null_truths(
                 f"(benchmark {b:g})")
     else:
         offset = h.sign * h.shift  # treatment = control + offset on the null boundary
-        lo, hi = family.parameter_range
-        c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
-        controls = scenario[:, 1]
-        if not math.isfinite(c_lo):
-            c_lo = float(controls.min())
-        if not math.isfinite(c_hi):
-            c_hi = float(controls.max())
+        c_lo, c_hi = control_range(design)
         wanted = [c_lo + (c_hi - c_lo) * (i + 0.5) / points for i in range(points)]
         if alternative is not None:
             wanted.append(alternative[1])

@@ -17,7 +17,7 @@ import numpy as np
 from scipy import optimize
 
 from octrial.calibration.evaluator import Assessment
-from octrial.calibration.nulls import Truths
+from octrial.calibration.nulls import Truths, control_range
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import stopping_probabilities
@@ -52,8 +52,9 @@ def refine_worst(design: Design, truths: Truths, a: Assessment) -> Refined | Non
     success = a.prob_success[: truths.nulls][on_line]
     order = np.argsort(controls)
     controls, success = controls[order], success[order]
-    lo, hi = design.family.parameter_range
-    c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
+    # the range the grid searched, finite even where the parameter's is not (a count
+    # rate): a worst point at the grid's edge is refined up to that edge, not beyond
+    c_lo, c_hi = control_range(design)
     rule = build_rule(design)
 
     def type1(c: float) -> float:

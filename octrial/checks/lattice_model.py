@@ -34,6 +34,7 @@ from octrial.endpoints import count as count_maths
 from octrial.endpoints import grid_family
 from octrial.endpoints.binary import BetaMixture, BetaPosterior, LogitNormal
 from octrial.endpoints.count import GammaMixture, GammaPosterior
+from octrial.plurals import noun, series
 from octrial.simulation import binary as binary_kernel
 
 TO_GRID = {"binary": special.logit, "count": np.log}
@@ -129,7 +130,7 @@ class LatticeModel(CheckModel):
         if not missing:
             return None
         what = "analysis prior" if source == ANALYSIS else "design prior"
-        return f"no {what} on arm(s) {', '.join(missing)}"
+        return f"no {what} on the {series(missing)} {noun(len(missing), 'arm')}"
 
     def draw_truths(self, rng: np.random.Generator, size: int, source: str) -> np.ndarray:
         key = "prior" if source == ANALYSIS else "design_prior"

@@ -40,6 +40,7 @@ from octrial.endpoints.normal import (
     benefit_components,
     update,
 )
+from octrial.plurals import noun, series
 
 
 def normal_model(design: Design) -> CheckModel:
@@ -288,7 +289,9 @@ class UnknownSdModel(CheckModel):
         key = "prior" if source == ANALYSIS else "design_prior"
         missing = [a.name for a in self.design.arms if getattr(a, key) is None]
         what = "analysis prior" if source == ANALYSIS else "design prior"
-        return f"no {what} on arm(s) {', '.join(missing)}" if missing else None
+        if not missing:
+            return None
+        return f"no {what} on the {series(missing)} {noun(len(missing), 'arm')}"
 
     def draw_truths(self, rng: np.random.Generator, size: int, source: str) -> np.ndarray:
         means, sds = [], []

@@ -11,12 +11,19 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from octrial.design.reader import suggest
 from octrial.errors import InputError, Problem, show
 
 CHECKS = ("prior-predictive", "sbc", "sensitivity", "tail-accuracy", "conflict")
 """The checks ``octrial check`` runs, in order."""
 
 SEED_BITS = 63
+
+OPTIONS = {"simulations": "--simulations", "bins": "--bins", "draws": "--draws",
+           "alpha": "--alpha", "seed": "--seed", "outcome_range": "--outcome-range",
+           "plausible": "--plausible", "checks": "--only"}
+"""The command-line option of each setting, named in messages (``band`` and ``repeats``
+have none: they keep their own names)."""
 
 STREAMS = {"sbc": 1, "sensitivity": 2, "tail-accuracy": 3, "sbc-null": 4}
 """Each check's random stream: ``SeedSequence(seed, spawn_key=(stream,))``."""
@@ -73,7 +80,7 @@ class CheckSettings:
         checks = [
             ("simulations", self.simulations >= 20, "a whole number >= 20"),
             ("bins", 2 <= self.bins <= self.simulations // 5,
-             "a whole number from 2 to simulations / 5 (at least 5 studies per bin)"),
+             "a whole number from 2 to --simulations / 5 (at least 5 studies per bin)"),
             ("draws", self.draws >= 1, "a whole number >= 1"),
             ("alpha", 0 < self.alpha < 1, "a level in (0, 1)"),
             ("band", 0 < self.band < 1, "a level in (0, 1)"),
@@ -82,13 +89,12 @@ class CheckSettings:
              "a whole number in [0, 2^63)"),
             ("outcome_range", ordered(self.outcome_range), "LOW:HIGH with LOW < HIGH"),
             ("plausible", ordered(self.plausible), "LOW:HIGH with LOW < HIGH"),
-            ("checks", bool(self.checks) and set(self.checks) <= set(CHECKS),
-             "one or more of " + ", ".join(CHECKS)),
         ]
-        problems = [Problem(name, expected, show(getattr(self, name)))
+        problems = [Problem(OPTIONS.get(name, name), expected, _found(getattr(self, name)))
                     for name, ok, expected in checks if not ok]
+        problems += _checks_problems(self.checks)
         if problems:
-            raise InputError("check settings", problems)
+            raise InputError("octrial check", problems)
 
     def with_seed(self, design_seed: int | None) -> CheckSettings:
         """These settings with the seed settled: this one, else the design's, else drawn."""
@@ -98,6 +104,24 @@ class CheckSettings:
             return self
         seed = design_seed if design_seed is not None else secrets.randbits(SEED_BITS)
         return replace(self, seed=seed)
+
+
+def _found(value: object) -> str:
+    """A found setting in a message: a range as LOW:HIGH, as it is typed."""
+    if isinstance(value, tuple) and len(value) == 2 and all(
+            isinstance(v, int | float) for v in value):
+        return f"{value[0]:g}:{value[1]:g}"
+    return show(value)
+
+
+def _checks_problems(names: tuple[str, ...]) -> list[Problem]:
+    """What is wrong with the checks asked for (``--only``), in plain words."""
+    expected = ("one or more of " + ", ".join(CHECKS[:-1]) + f" and {CHECKS[-1]}, "
+                "separated by commas")
+    if not names:
+        return [Problem(OPTIONS["checks"], expected, "no check")]
+    return [Problem(OPTIONS["checks"], expected, show(name), suggest(name, CHECKS))
+            for name in names if name not in CHECKS]
 
 
 def generator(seed: int, stream: str) -> np.random.Generator:

@@ -13,6 +13,7 @@ from octrial.checks import CHECKS, CheckSettings, check
 from octrial.checks.files import write_outputs
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
 from octrial.errors import NumericalWarning, single
+from octrial.plurals import count
 from octrial.provenance import display_command, now
 
 EXIT_FAILED = 1
@@ -105,7 +106,7 @@ def check_command(design: str, out: str | None, simulations: int, bins: int, dra
         times = ", ".join(f"{k} {v:.1f} s" for k, v in
                           outcome.record["timings_seconds"].items())
         click.echo(f"time: {times}")
-        click.echo(f"wrote {len(written)} files in {folder}", err=True)
+        click.echo(f"wrote {count(len(written), 'file')} in {folder}", err=True)
         click.echo(f"Caution: {CAUTION}", err=True)
     if outcome.failed:
         raise SystemExit(EXIT_FAILED)

@@ -17,14 +17,17 @@ FORMS = "; ".join(f"{endpoint}: ARM={syntax.form}" for endpoint, syntax in SYNTA
 @design_argument
 @click.option("--look", type=int, required=True,
               help="The look being analysed, from 1 (the last look is the final analysis).")
-@click.option("--data", "data", multiple=True, required=True, metavar="ARM=DATA",
-              help=f"Data so far, once per arm ({FORMS}).")
+@click.option("--data", "data", multiple=True, metavar="ARM=DATA",
+              help=f"Data so far, once per arm ({FORMS}); may be left out with --subjects.")
 @click.option("--level", type=float, default=DEFAULT_LEVEL, show_default=True,
               help="Credible level of the equal-tailed posterior intervals.")
 @click.option("--subjects", type=click.Path(dir_okay=False), default=None,
-              help="Per-subject CSV for posterior predictive checks of the data model: "
-                   "columns arm (optional for one arm) and events [and exposure] for counts, "
-                   "arm and value for normal data.")
+              help="Per-subject CSV, one row per subject: the data so far are derived "
+                   "from it (with --data as well, the two must agree), and for counts and "
+                   "normal data the posterior predictive checks of the data model run on it. "
+                   "Columns: arm (optional for one arm), an optional id or subject column, "
+                   "and response (0 or 1) for binary data, events [and exposure] for counts, "
+                   "value for normal data.")
 @click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=DEFAULT_SEED,
               show_default=True, help="Seed of the simulations (posterior predictive checks; "
                                       "the predictive probability of two-arm unknown-sd "
@@ -38,7 +41,8 @@ def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
     Prints the posterior probability of benefit, the predictive probability of final
     success, posterior means with credible intervals, and the decision: continue, stop for
     efficacy or stop for futility (at the last look: success or failure). Warns when the
-    observed sample size differs from the planned one.
+    observed sample size differs from the planned one. The data come from --data, from a
+    per-subject file (--subjects), or both (they must agree).
 
     Exit codes: 0 a decision was made; 2 bad input.
     """

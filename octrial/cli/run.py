@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import sys
 import warnings
 from pathlib import Path
@@ -22,6 +23,7 @@ from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, typ
 from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
 from octrial.output import csv_text
+from octrial.plurals import noun
 from octrial.provenance import now, run_record
 from octrial.run_folder import write_run
 
@@ -33,9 +35,12 @@ from octrial.run_folder import write_run
                    "[default: reports/<design name>/].")
 @click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
               help="Engine; overrides simulation.method in the design file.")
+@click.option("--seed", type=click.IntRange(0, 2**63 - 1), default=None,
+              help="Random seed of the simulations; overrides simulation.seed in the design "
+                   "file (run.json records the seed used).")
 @simulation_options
 @reports_input_errors
-def run_command(design: str, out: str | None, method: str | None,
+def run_command(design: str, out: str | None, method: str | None, seed: int | None,
                 simulation: SimulationOptions) -> None:
     """Compute the operating characteristics of DESIGN at every scenario.
 
@@ -53,6 +58,9 @@ def run_command(design: str, out: str | None, method: str | None,
     """
     started = now()
     loaded = read_design(design)
+    if seed is not None:  # as in check and verify, the command line overrides the file
+        loaded = dataclasses.replace(
+            loaded, simulation=dataclasses.replace(loaded.simulation, seed=seed))
     folder = Path(out) if out else default_out(loaded)
     execution = simulation.execution(folder)
     with resumable(execution), warnings.catch_warnings():
@@ -75,8 +83,8 @@ def run_command(design: str, out: str | None, method: str | None,
         click.echo(line)
     short = evaluation.info.get("scenarios_short_of_target")
     if short:
-        click.echo(f"warning: scenarios {short} reached the replicate cap before the target "
-                   "standard error", err=True)
+        click.echo(f"warning: {noun(len(short), 'scenario')} {', '.join(map(str, short))} "
+                   f"reached the replicate cap before the target standard error", err=True)
     for line in prior_size_lines(evaluation.info.get("prior_effective_sample_size")):
         click.echo(line)
     click.echo("wrote " + ", ".join(str(p) for p in done.written), err=True)

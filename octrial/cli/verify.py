@@ -20,6 +20,7 @@ from octrial.cli.common import (
     simulation_options,
 )
 from octrial.output import csv_text, json_text
+from octrial.plurals import count
 from octrial.provenance import environment, now
 from octrial.review import read_claims, verify
 from octrial.review.verification import DEFAULT_ALPHA, DEFAULT_TOLERANCE, Verification
@@ -103,8 +104,8 @@ def _record(result: Verification, started: str, finished: str) -> dict:
 
 def _summary(result: Verification) -> str:
     design, info, table = result.design, result.info, result.table
-    lines = [f"{design.name}: {info['claims_total']} claims at {info['scenarios']} scenarios, "
-             f"recomputed by the {info['engine']} engine"
+    lines = [f"{design.name}: {count(info['claims_total'], 'claim')} at "
+             f"{count(info['scenarios'], 'scenario')}, recomputed by the {info['engine']} engine"
              + _simulated(info)]
     truth = [f"true_{arm}" for arm in design.arm_names]
     view = table[["line", *truth, "metric", "claimed", "recomputed", "z", "p", "p_holm",
@@ -115,8 +116,10 @@ def _summary(result: Verification) -> str:
                                     zip(design.arm_names, t, strict=True))
                           for t in result.added)
         lines.append(f"Not in the design's scenario grid (evaluated all the same): {where}.")
-    verdict = (f"{info['discrepant']} of {info['claims_total']} claims discrepant"
-               if info["discrepant"] else f"All {info['claims_total']} claims consistent")
+    total = info["claims_total"]
+    verdict = (f"{info['discrepant']} of {count(total, 'claim')} discrepant"
+               if info["discrepant"] else
+               "The claim is consistent" if total == 1 else f"All {total} claims consistent")
     lines.append(f"{verdict} (two-sided test, Holm-adjusted, family-wise alpha "
                  f"{info['alpha']:g}).")
     return "\n".join(lines)
@@ -127,8 +130,9 @@ def _simulated(info: dict) -> str:
         return ""
     if info.get("target_se") is not None:
         return (f" (until every standard error is at most {info['target_se']:g}, at most "
-                f"{info['max_replicates']} replicates per scenario, seed {info['seed']})")
-    return f" ({info['replicates']} replicates per scenario, seed {info['seed']})"
+                f"{count(info['max_replicates'], 'replicate')} per scenario, seed "
+                f"{info['seed']})")
+    return f" ({count(info['replicates'], 'replicate')} per scenario, seed {info['seed']})"
 
 
 def _fixed(view: pd.DataFrame) -> str:

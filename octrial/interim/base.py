@@ -16,7 +16,8 @@ from pathlib import Path
 from typing import Any
 
 from octrial.design.model import Design
-from octrial.errors import InputError, Problem
+from octrial.errors import Problem
+from octrial.plurals import noun
 
 
 @dataclass(frozen=True)
@@ -68,7 +69,7 @@ class EndpointInterim(ABC):
 
     def amount(self, design: Design, n: float) -> str:
         """A size in ``design``'s units in words (``'28 subjects'``)."""
-        return f"{self.quantity(design, n)} subjects"
+        return f"{self.quantity(design, n)} {noun(n, 'subject')}"
 
     def has_prior(self, design: Design) -> bool:
         """Whether the design has an analysis prior (else the rule is in counts)."""
@@ -112,12 +113,37 @@ class EndpointInterim(ABC):
     ) -> tuple[PosteriorSummary, ...]:
         """Posterior mean and credible interval of each arm's parameter (and the effect)."""
 
+    # -- per-subject data ----------------------------------------------------------
+    subject_outcome = ""
+    """The outcome column of a per-subject file ('response', 'events', 'value')."""
+
+    def read_subject_file(self, design: Design, path: Path) -> dict[str, dict[str, Any]]:
+        """Per arm, the per-subject arrays of ``path`` (:func:`~octrial.interim.subjects.
+        read_subjects` with this endpoint's outcome column)."""
+        raise NotImplementedError
+
+    def observed_from_subjects(self, design: Design, path: Path,
+                               data: dict[str, dict[str, Any]]) -> dict[str, Any]:
+        """The ``--data`` observation of each arm, derived from per-subject data."""
+        raise NotImplementedError
+
+    def disagreements(self, design: Design, path: Path, from_file: dict[str, Any],
+                      given: dict[str, Any]) -> list[Problem]:
+        """Arms whose ``--data`` (``given``) differ from the summary of the per-subject
+        file ``path`` (``from_file``) beyond the rounding of a typed number, as problems
+        of ``--data`` naming both values. Exact equality by default (whole numbers)."""
+        return [disagreement(arm, path, from_file[arm].describe(), given[arm].describe())
+                for arm in design.arm_names if from_file[arm] != given[arm]]
+
     def check_subjects(
-        self, design: Design, path: Path, observed: dict[str, Any], seed: int,
+        self, design: Design, path: Path, data: dict[str, dict[str, Any]], seed: int,
     ) -> tuple[tuple[Any, ...], tuple[str, ...]]:
-        """Posterior predictive adequacy checks on per-subject data, and warnings (for
-        example per-subject data that do not add up to ``--data``); none by default."""
-        raise InputError(str(path), [Problem(
-            "", "per-subject data for a count or normal endpoint (the adequacy checks test "
-            "those data models)", f"a {self.endpoint} design",
-            "binary outcomes are fully described by x/n; leave out --subjects")])
+        """Posterior predictive adequacy checks on per-subject ``data`` read from
+        ``path``, and warnings; none by default."""
+        return (), ()
+
+
+def disagreement(arm: str, path: Path, in_file: str, in_data: str) -> Problem:
+    """The problem of an arm whose ``--data`` disagree with its per-subject data."""
+    return Problem(arm, f"the data of the per-subject file {path} ({in_file})", in_data,
+                   "leave out --data to take the data from the file")

@@ -8,6 +8,7 @@ the two-arm posterior probability of :func:`octrial.endpoints.binary.prob_differ
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -16,6 +17,8 @@ from scipy import optimize
 from octrial.design.model import Design
 from octrial.endpoints.binary import BetaPosterior, prob_difference_exceeds, update
 from octrial.interim.base import EndpointInterim, PosteriorSummary
+from octrial.interim.observations import BinaryData
+from octrial.interim.subjects import read_subjects
 
 XTOL = 1e-12
 EDGE = 1e-12
@@ -74,3 +77,15 @@ class BinaryInterim(EndpointInterim):
                 difference_quantile(treatment, control, tail),
                 difference_quantile(treatment, control, 1.0 - tail)))
         return tuple(out)
+
+    # -- per-subject data: responses 0/1 (x/n is all they say: no adequacy check) --------
+    subject_outcome = "response"
+
+    def read_subject_file(self, design: Design, path: Path) -> dict[str, dict[str, Any]]:
+        return read_subjects(str(path), design.arm_names, "response", whole=True,
+                             largest=1, minimum=1)
+
+    def observed_from_subjects(self, design: Design, path: Path,
+                               data: dict[str, dict[str, Any]]) -> dict[str, Any]:
+        return {arm: BinaryData(int(data[arm]["response"].sum()), int(data[arm]["response"].size))
+                for arm in design.arm_names}

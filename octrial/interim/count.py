@@ -42,15 +42,16 @@ import numpy as np
 from scipy import interpolate, optimize
 
 from octrial.design.model import Design
-from octrial.design.reader import Phrase
 from octrial.endpoints import grid_family
 from octrial.endpoints.count import GammaMixture, GammaPosterior, prob_ratio, update
-from octrial.errors import InputError, Problem, single
+from octrial.errors import InputError, Problem
 from octrial.interim import adequacy
-from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
+from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary, disagreement
+from octrial.interim.observations import CountData
 from octrial.interim.rule import observed_design
 from octrial.interim.subjects import read_subjects
 from octrial.numerics.parameter_grid import Grid, GridPosterior
+from octrial.plurals import count
 from octrial.rules.lattice import serving
 
 MAX_DENOMINATOR = 1000
@@ -61,7 +62,7 @@ EXACT = 1e-9
 
 SUMS = 1e-6
 """Relative difference in total exposure between --data and a per-subject file that is
-put down to rounding (a larger one is reported)."""
+put down to rounding (a larger one is an error)."""
 
 XTOL = 1e-12
 
@@ -278,56 +279,56 @@ class CountInterim(EndpointInterim):
         return tuple(out)
 
     # -- per-subject data ------------------------------------------------------------
+    subject_outcome = "events"
+
+    def read_subject_file(self, design: Design, path: Path) -> dict[str, dict[str, Any]]:
+        return read_subjects(str(path), design.arm_names, "events", whole=True,
+                             exposure=design.endpoint.exposure)
+
+    def observed_from_subjects(self, design: Design, path: Path,
+                               data: dict[str, dict[str, Any]]) -> dict[str, Any]:
+        return {arm: CountData(int(data[arm]["events"].sum()),
+                               float(data[arm]["exposure"].sum()))
+                for arm in design.arm_names}
+
+    def disagreements(self, design: Design, path: Path, from_file: dict[str, Any],
+                      given: dict[str, Any]) -> list[Problem]:
+        """Events must be equal; total exposures equal up to :data:`SUMS` (relative)."""
+        out = []
+        for arm in design.arm_names:
+            file, typed = from_file[arm], given[arm]
+            if file.events != typed.events or abs(file.exposure - typed.exposure) > (
+                    SUMS * typed.exposure):
+                out.append(disagreement(
+                    arm, path, f"{count(file.events, 'event')} in exposure {file.exposure:.10g}",
+                    f"{count(typed.events, 'event')} in exposure {typed.exposure:.10g}"))
+        return out
+
     def check_subjects(
-        self, design: Design, path: Path, observed: dict[str, Any], seed: int,
+        self, design: Design, path: Path, data: dict[str, dict[str, Any]], seed: int,
     ) -> tuple[tuple[Any, ...], tuple[str, ...]]:
         endpoint = design.endpoint
         priors = [arm.prior for arm in design.arms]
         if endpoint.model != "poisson" or not all(isinstance(p, GammaMixture)
                                                    for p in priors):
             if endpoint.model != "poisson":
-                got = "a negative binomial endpoint"
+                what = "a negative binomial endpoint"
             elif any(p is None for p in priors):
-                got = "a rule in counts without an analysis prior"
+                what = "a rule in counts without an analysis prior"
             else:
-                got = "a log-normal prior"
-            raise single(str(path), "", "a Poisson count endpoint with gamma or "
-                         "gamma-mixture priors (the adequacy checks use the conjugate "
-                         "posterior)", Phrase(got), "leave out --subjects")
-        data = read_subjects(str(path), design.arm_names, "events", whole=True,
-                             exposure=endpoint.exposure)
-        _agree(str(path), design, data, observed)
-        notes = []
+                what = "a log-normal prior"
+            return (), (f"No posterior predictive check of the data model for {what} (the "
+                        "checks use the conjugate Poisson-gamma posterior): the per-subject "
+                        f"file {path} gave the data only.",)
         checks: list[Any] = []
         for j, (arm, prior) in enumerate(zip(design.arm_names, priors, strict=True)):
-            counts, times = data[arm]["events"], data[arm]["exposure"]
-            total = float(times.sum())
-            given = observed[arm].exposure
-            if abs(total - given) > SUMS * given:
-                notes.append(f"The {arm} subjects in {path} add up to exposure {total:g}, "
-                             f"not the {given:g} given in --data; the adequacy check uses "
-                             "the file, the decision uses --data.")
             checks += adequacy.count_checks(
-                arm, counts, times, weights=np.array(prior.weights), shape=np.array(prior.a),
+                arm, data[arm]["events"], data[arm]["exposure"],
+                weights=np.array(prior.weights), shape=np.array(prior.a),
                 rate=np.array(prior.b), seed=arm_seed(seed, j))
-        return tuple(checks), tuple(notes)
+        return tuple(checks), ()
 
 
 def arm_seed(seed: int, arm: int) -> int:
     """An independent seed per arm from the user's seed (SeedSequence entropy pooling)."""
     return int(np.random.SeedSequence([seed, arm]).generate_state(1, np.uint64)[0])
-
-
-def _agree(path: str, design: Design, data: dict[str, dict[str, np.ndarray]],
-           observed: dict[str, Any]) -> None:
-    """The file's event totals must equal --data's (they are whole numbers)."""
-    problems = []
-    for arm in design.arm_names:
-        total = int(data[arm]["events"].sum())
-        if total != observed[arm].events:
-            problems.append(Problem(arm, f"per-subject events adding up to the "
-                                    f"{observed[arm].events} events given in --data",
-                                    f"{total} events over {data[arm]['events'].size} "
-                                    "subjects"))
-    if problems:
-        raise InputError(path, problems)

@@ -23,7 +23,7 @@ from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
 from octrial.interim.binary import BinaryInterim
 from octrial.interim.count import CountInterim
 from octrial.interim.normal import NormalInterim
-from octrial.interim.observations import parse_data
+from octrial.interim.observations import OPTION, SYNTAX, parse_data
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -242,12 +242,15 @@ def decide(
     data : iterable of str
         ``ARM=...`` per arm in the endpoint's syntax (binary ``treatment=12/30``; count
         ``treatment=14/52.5``, events/exposure; normal ``treatment=1.8,2.4,40``,
-        mean,sd,n).
+        mean,sd,n). May be empty when ``subjects`` is given: the data are then the
+        per-subject file's.
     level : float
         Credible level of the equal-tailed intervals.
     subjects : path, optional
-        Per-subject data for the posterior predictive adequacy checks (count and normal
-        endpoints).
+        Per-subject data (:mod:`octrial.interim.subjects`): each arm's data are derived
+        from it, and for count and normal endpoints the posterior predictive adequacy
+        checks run on it. With ``data`` as well, the two must agree (up to the rounding
+        of typed numbers).
     seed : int
         Seed of the simulations (posterior predictive checks; the predictive probability
         of two-arm unknown-sd designs).
@@ -259,7 +262,8 @@ def decide(
     Raises
     ------
     InputError
-        A look out of range, malformed or impossible data, or an unsupported endpoint.
+        A look out of range, malformed or impossible data, ``data`` that disagree with
+        the per-subject file, or an unsupported endpoint.
     """
     looks = design.looks
     if not 1 <= look <= looks.count:
@@ -267,7 +271,25 @@ def decide(
     if not 0 < level < 1:
         raise single("--level", "", "a credible level between 0 and 1 (exclusive)", level)
     support = endpoint_support(design)
-    observed = parse_data(design, data)
+    data = tuple(data)
+    path = None if subjects is None else Path(subjects)
+    if not data and path is None:
+        form = SYNTAX[design.endpoint.type].form
+        raise InputError(OPTION, [Problem(
+            "", f"the data so far: --data ARM={form} for each arm "
+            f"({', '.join(design.arm_names)}), or a per-subject file (--subjects)",
+            "neither")])
+    observed = parse_data(design, data) if data else None
+    per_subject = None
+    if path is not None:
+        per_subject = support.read_subject_file(design, path)
+        from_file = support.observed_from_subjects(design, path, per_subject)
+        if observed is None:
+            observed = from_file
+        else:
+            problems = support.disagreements(design, path, from_file, observed)
+            if problems:
+                raise InputError(OPTION, problems)
     frame, assessment = rule_at(design, look, observed, seed)
     on = frame.design
     planned = on.looks.per_arm[look - 1]
@@ -283,8 +305,8 @@ def decide(
         warnings.append("The design states its rule in counts and has no analysis prior: "
                         "no posterior or predictive probability is computed.")
     checks: tuple[Any, ...] = ()
-    if subjects is not None:
-        checks, notes = support.check_subjects(design, Path(subjects), observed, seed)
+    if path is not None:
+        checks, notes = support.check_subjects(design, path, per_subject, seed)
         warnings.extend(notes)
         flagged = [f"{c.statistic}" + (f" ({c.arm})" if design.two_arm else "")
                    for c in checks if c.flagged]

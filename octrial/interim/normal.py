@@ -47,8 +47,9 @@ from octrial.endpoints import unknown_sd
 from octrial.endpoints.normal import Flat, NormalPosterior, update
 from octrial.errors import InputError, Problem
 from octrial.interim import adequacy
-from octrial.interim.base import EndpointInterim, PosteriorSummary
+from octrial.interim.base import EndpointInterim, PosteriorSummary, disagreement
 from octrial.interim.count import arm_seed
+from octrial.interim.observations import NormalData
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -74,7 +75,7 @@ probability reading may differ (root-finding accuracy of the bounds)."""
 
 AGREE = 0.01
 """Per-subject mean and sd may differ from --data by this fraction of the sd (rounding)
-before a note says so."""
+before they disagree (an error)."""
 
 VAGUE = 1e6
 """Prior sd, in units of the data sd, of the vague per-arm prior used by the known-sd
@@ -275,26 +276,41 @@ class NormalInterim(EndpointInterim):
                     "consider an unknown-sd design.")
         return tuple(out)
 
-    def check_subjects(
-        self, design: Design, path: Path, observed: dict[str, Any], seed: int,
-    ) -> tuple[tuple[Any, ...], tuple[str, ...]]:
-        data = read_subjects(str(path), design.arm_names, "value", whole=False)
-        problems, notes = [], []
+    # -- per-subject data: values; mean, sd (divisor n - 1) and n --------------------
+    subject_outcome = "value"
+
+    def read_subject_file(self, design: Design, path: Path) -> dict[str, dict[str, Any]]:
+        return read_subjects(str(path), design.arm_names, "value", whole=False)
+
+    def observed_from_subjects(self, design: Design, path: Path,
+                               data: dict[str, dict[str, Any]]) -> dict[str, Any]:
+        out = {}
         for arm in design.arm_names:
-            values, given = data[arm]["value"], observed[arm]
-            if values.size != given.n:
-                problems.append(Problem(arm, f"{given.n} subjects (as in --data)",
-                                        f"{values.size} rows"))
-                continue
-            mean, sd = float(values.mean()), float(values.std(ddof=1))
-            if abs(mean - given.mean) > AGREE * given.sd or abs(sd - given.sd) > AGREE * (
-                    given.sd):
-                notes.append(f"The {arm} values in {path} have mean {mean:.6g} and sd "
-                             f"{sd:.6g}, not the {given.mean:g} and {given.sd:g} given in "
-                             "--data; the adequacy check uses the file, the decision uses "
-                             "--data.")
-        if problems:
-            raise InputError(str(path), problems)
+            values = data[arm]["value"]
+            sd = float(values.std(ddof=1))
+            if not sd > 0:
+                raise InputError(str(path), [Problem(
+                    arm, "values that are not all equal (a sample sd > 0)",
+                    f"{values.size} equal values")])
+            out[arm] = NormalData(float(values.mean()), sd, int(values.size))
+        return out
+
+    def disagreements(self, design: Design, path: Path, from_file: dict[str, Any],
+                      given: dict[str, Any]) -> list[Problem]:
+        """n must be equal; mean and sd equal to within :data:`AGREE` of the sd."""
+        out = []
+        for arm in design.arm_names:
+            file, typed = from_file[arm], given[arm]
+            if file.n != typed.n or abs(file.mean - typed.mean) > AGREE * typed.sd or abs(
+                    file.sd - typed.sd) > AGREE * typed.sd:
+                out.append(disagreement(
+                    arm, path, f"mean {file.mean:.10g}, sd {file.sd:.10g}, n = {file.n}",
+                    f"mean {typed.mean:g}, sd {typed.sd:g}, n = {typed.n}"))
+        return out
+
+    def check_subjects(
+        self, design: Design, path: Path, data: dict[str, dict[str, Any]], seed: int,
+    ) -> tuple[tuple[Any, ...], tuple[str, ...]]:
         checks: list[Any] = []
         for j, arm in enumerate(design.arms):
             values = data[arm.name]["value"]
@@ -314,7 +330,7 @@ class NormalInterim(EndpointInterim):
                 checks += adequacy.normal_unknown_sd_checks(
                     arm.name, values, m0=p.mean, k0=p.mean_n, a0=p.shape, b0=p.scale,
                     seed=seed_j)
-        return tuple(checks), tuple(notes)
+        return tuple(checks), ()
 
 
 def reflect(post: unknown_sd.StudentPosterior, sign: int) -> unknown_sd.StudentPosterior:

@@ -41,6 +41,10 @@ from octrial.errors import InputError
 NUMBER = re.compile(r"[+-]?(?:(\d+)(?:\.(\d*))?|\.(\d+))(?:[eE]([+-]?\d+))?")
 """A plain decimal number, optionally with an exponent (no percent signs, no separators)."""
 
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+"""First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV
+Injection")."""
+
 OPTIONAL = ("replicates", "se", "note")
 
 ALIASES = {
@@ -106,6 +110,26 @@ class Claims:
 
     def __len__(self) -> int:
         return len(self.claims)
+
+
+def spreadsheet_safe(text: str) -> str:
+    """``text`` for a CSV cell that a spreadsheet will not run as a formula.
+
+    Text copied from a user's file (a claim's note) that starts with ``=``, ``+``, ``-``,
+    ``@``, a tab or a carriage return gets a leading single quote, the neutralisation the
+    OWASP "CSV Injection" guidance recommends; plain numbers (``-0.5``, ``+1e-3``) stay
+    numbers, and nothing else is changed.
+
+    Examples
+    --------
+    >>> spreadsheet_safe("=1+2"), spreadsheet_safe("@SUM(A1)")
+    ("'=1+2", "'@SUM(A1)")
+    >>> spreadsheet_safe("-0.5"), spreadsheet_safe("type I error")
+    ('-0.5', 'type I error')
+    """
+    if text.startswith(FORMULA_STARTS) and NUMBER.fullmatch(text) is None:
+        return "'" + text
+    return text
 
 
 def half_unit(text: str) -> float:

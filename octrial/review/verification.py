@@ -24,7 +24,7 @@ from octrial.engines import MonteCarloSettings, choose
 from octrial.errors import InputError, single
 from octrial.evaluation import compute
 from octrial.execution import Execution
-from octrial.review.claims import Claims
+from octrial.review.claims import Claims, spreadsheet_safe
 from octrial.review.comparison import (
     EXPECTED_N,
     standard_errors,
@@ -210,7 +210,8 @@ def verify(
         "p": p,
         "p_holm": p_holm,
         "verdict": verdict,
-        "note": [c.note for c in rows],
+        # the user's own words, made safe to open in a spreadsheet
+        "note": [spreadsheet_safe(c.note) for c in rows],
     })
     table = pd.DataFrame(columns)
     simulated = method == "monte-carlo"
