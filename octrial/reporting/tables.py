@@ -19,6 +19,7 @@ import pandas as pd
 
 from octrial.reporting import wording
 from octrial.reporting.formats import FORMATS, number
+from octrial.rules.boundaries import BEYOND, beyond_note
 
 NUMERIC_KINDS = ("probability", "size", "count", "truth", "fraction", "number")
 
@@ -239,6 +240,7 @@ def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table
                  "the final look the efficacy rule is success and the futility rule is "
                  "failure.",
                  f"B = {wording.benefit_definition(data.design)} at the boundary count.")
+    notes += _beyond_notes(data.design, frame)
     return Table("boundaries", f"Decision boundaries in {statistic} per look", tuple(columns),
                  tuple(rows), notes)
 
@@ -259,8 +261,18 @@ def _two_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str,
         caption = (f"Look {int(look)}{' (final analysis)' if final else ''}: "
                    f"{n_t} treatment and {n_c} control subjects")
         tables.append(Table(f"boundaries-look{int(look)}", caption, columns, rows,
+                            _beyond_notes(data.design, part),
                             blocks=max(1, min(3, -(-len(rows) // 15)))))
     return tables
+
+
+def _beyond_notes(design: Any, frame: pd.DataFrame) -> tuple[str, ...]:
+    """Why some bound of ``frame`` lies beyond the computed range (none: no such bound)."""
+    rules = pd.concat([frame[c].astype(str) for c in ("efficacy_rule", "futility_rule")
+                       if c in frame])
+    if not rules.str.contains(BEYOND, regex=False).any():
+        return ()
+    return (beyond_note(design),)
 
 
 # -- operating characteristics -----------------------------------------------------------
