@@ -10,10 +10,14 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
+from matplotlib.axis import Tick
+from matplotlib.text import Text
 
 from octrial.cli import main
 from octrial.design.write import dumps
+from octrial.reporting import figures, from_run_folder
 from octrial.reporting.pdf import print_pdf
+from tests.helpers import ROOT
 from tests.report_pages import parse, table_rows
 from tests.test_boundary_text import STRONG_PRIOR, scipy_futility_bound
 
@@ -64,3 +68,42 @@ def test_pdf_has_the_mode_of_an_ordinary_new_file(tmp_path: Path, umask: int) ->
     assert pdf.read_bytes().startswith(b"%PDF")
     assert stat.S_IMODE(pdf.stat().st_mode) == 0o666 & ~umask
     assert stat.S_IMODE(pdf.stat().st_mode) == stat.S_IMODE(plain.stat().st_mode)
+
+
+# -- figure text inside the figure ----------------------------------------------------------
+
+def outside_texts(fig) -> list[str]:
+    """Titles, axis labels, legend entries and annotations of ``fig`` that reach past its
+    edges when drawn at the resolution the report saves it (tick labels excluded: those
+    outside the axes' limits are never drawn)."""
+    fig.set_dpi(figures.RASTER_DPI)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    ticks = {label for tick in fig.findobj(Tick) for label in (tick.label1, tick.label2)}
+    width, height = fig.bbox.width, fig.bbox.height
+    out = []
+    for item in fig.findobj(Text):
+        if item in ticks or not item.get_visible() or not item.get_text():
+            continue
+        box = item.get_window_extent(renderer)
+        if box.x0 < 0 or box.y0 < 0 or box.x1 > width or box.y1 > height:
+            out.append(item.get_text())
+    return out
+
+
+@pytest.mark.parametrize("demo", ["single-arm-response", "borrowed-control-response",
+                                  "two-arm-randomised"])
+def test_no_figure_text_is_cut_at_the_figure_edge(demo, monkeypatch) -> None:
+    drawn = []
+    encode = figures.encode
+
+    def keep(fig, raster=False):
+        uri = encode(fig, raster)  # the report's own fitting and saving
+        drawn.append(fig)
+        return uri
+    monkeypatch.setattr(figures, "encode", keep)
+    data = from_run_folder(ROOT / "reports" / demo)
+    built = figures.build_figures(data)
+    assert any(f.name == "checks-sbc" for f in built)
+    for fig in drawn:
+        assert outside_texts(fig) == []

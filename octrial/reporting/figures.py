@@ -141,6 +141,55 @@ def _new(height: float, ncols: int = 1, nrows: int = 1, **kw: Any) -> tuple[MplF
 RASTER_DPI = 200
 
 
+FIT_ROUNDS = 40
+"""Most layouts :func:`fit_text` tries (each wraps every text too wide one character
+narrower; wrapping one text can move the others)."""
+
+
+def fit_text(fig: MplFigure) -> None:
+    """Wrap every panel title and horizontal-axis label that would not fit beside its
+    neighbours or would be cut at the figure's edge.
+
+    Constrained layout makes room above and below panels for their text but not beside
+    them, so a title wider than its share of the figure's width runs into the next panel
+    or is cut at the edge. Each such text is re-wrapped at word boundaries, one character
+    narrower at a time, and the layout redone until every text fits.
+    """
+    for _ in range(FIT_ROUNDS):
+        fig.canvas.draw()
+        renderer = fig.canvas.get_renderer()
+        wrapped = False
+        for ax in fig.axes:
+            spec = ax.get_subplotspec()
+            if not ax.get_visible() or spec is None:
+                continue
+            share = fig.bbox.width / spec.get_gridspec().ncols
+            for text in (ax.title, ax.xaxis.label):
+                if text.get_text() and not _fits(text, renderer, share, fig.bbox.width):
+                    _narrower(text)
+                    wrapped = True
+        if not wrapped:
+            return
+
+
+def _fits(text: Any, renderer: Any, share: float, edge: float) -> bool:
+    # margins of 2% absorb the text widths of other resolutions (fonts are hinted per dpi)
+    box = text.get_window_extent(renderer)
+    margin = 0.02 * edge
+    return box.width <= share - margin and box.x0 >= margin and box.x1 <= edge - margin
+
+
+def _narrower(text: Any) -> None:
+    """Wrap ``text`` one step narrower than its longest line (never below 8 characters),
+    each of its own lines separately."""
+    import textwrap
+
+    original = getattr(text, "_unwrapped", None) or text.get_text()
+    text._unwrapped = original
+    width = max(8, max(len(line) for line in text.get_text().splitlines()) - 1)
+    text.set_text("\n".join(textwrap.fill(line, width) for line in original.splitlines()))
+
+
 def encode(fig: MplFigure, raster: bool = False) -> str:
     """The figure as a data URI: SVG (vector, sharp at any zoom), or PNG with ``raster``.
 
@@ -151,6 +200,7 @@ def encode(fig: MplFigure, raster: bool = False) -> str:
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(STYLE):
+        fit_text(fig)
         if raster:
             fig.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
         else:
