@@ -424,29 +424,12 @@ def _marked_rows(frame: pd.DataFrame, source: str, what: str) -> tuple[pd.DataFr
     return shown, [note, f"Every row is in {source}."]
 
 
-PROVENANCE_KEYS = ("octrial_version", "design", "command", "started", "finished", "files",
-                   "environment", "caution")
-"""Keys of calibration.json shown in the reproducibility section, not the summary."""
-
-
 def calibration_tables(data: Any) -> list[Table]:
-    """The calibration's summary, its sample-size curve and the candidates it examined."""
-    tables = []
-    record = data.calibration_record
-    if record is not None:
-        summary = {k: v for k, v in record.items() if k not in PROVENANCE_KEYS}
-        tables.append(_pairs_table("calibration-summary", "Calibration: request and result",
-                                   list(_flatten(summary).items())))
-    if data.sizing is not None:
-        shown, notes = _marked_rows(data.sizing, "sizing.csv", "sample sizes")
-        tables.append(frame_table("sizing", "Calibration: the maximum sample size searched",
-                                  shown, notes))
-    if data.calibration is not None:
-        shown, notes = _marked_rows(data.calibration, "calibration.csv",
-                                    "candidates examined")
-        tables.append(frame_table("calibration", "Calibration: candidates examined", shown,
-                                  notes))
-    return tables
+    """The calibration section's tables (:mod:`~octrial.reporting.calibration_section`,
+    which builds on this module)."""
+    from octrial.reporting.calibration_section import calibration_tables as build
+
+    return build(data)
 
 
 def _pairs_table(name: str, caption: str, pairs: list[tuple[str, Any]]) -> Table:
