@@ -15,6 +15,7 @@ from scipy import stats
 
 from octrial.cli.boundaries import boundaries_for
 from octrial.interim.binary import BinaryInterim
+from octrial.reporting import wording
 from octrial.rules import boundaries
 from octrial.rules.boundaries import BEYOND, NEVER, boundary_table
 from octrial.rules.lattice import build_rule
@@ -172,3 +173,19 @@ def test_decide_statement_of_an_odds_ratio_design() -> None:
     design = build(ODDS)
     assert BinaryInterim().statement(design) == (
         "Pr(odds ratio of rate_treatment to rate_control > 1.25 | data)")
+
+
+def test_count_rule_stated_in_counts_past_the_lattice_keeps_its_count() -> None:
+    # futility at 150 events after 30 subjects: past the lattice (sized for rates up to
+    # 2, 118 points); the table must give the design file's own count
+    design = build(STRONG_PRIOR, looks__efficacy=None, looks__futility=None,
+                   looks__efficacy_count=["none", 40, 60],
+                   looks__futility_count=[150, 80, "none"])
+    rule = build_rule(design)
+    assert rule.looks[0].shape[0] <= 150
+    row = boundary_table(design, rule).iloc[0]
+    assert (row["futility_bound"], row["futility_rule"]) == (150, ">= 150")
+    assert decision_of(design, 1, ["treatment=150/30"]).decision == "stop for futility"
+    assert decision_of(design, 1, ["treatment=149/30"]).decision == "continue"
+    rules = wording.look_rules(design)
+    assert rules[0]["futility"] == "events ≥ 150"  # not 'responses'
