@@ -190,14 +190,19 @@ def _resolve(
     for bigger in extensions.rules():
         wide = bigger.looks[k]
         eff_w, fut_w = wide.efficacy[axis], wide.futility[axis]
-        found = _row(wide, eff_w, fut_w, higher, prefix)
+        try:
+            found = _row(wide, eff_w, fut_w, higher, prefix)
+        except ArithmeticError:
+            # far past the design's scenarios a region need not stay a tail (predictive
+            # mass beyond even this lattice); the bound then stays beyond what is computed
+            break
+        edge = eff_w.size - 1
         for kind, mask, upper in (("efficacy", eff_w, higher),
                                   ("futility", fut_w, not higher)):
             if kind in wanted and not _open(mask, upper, True):
                 keys = EFFICACY_KEYS if kind == "efficacy" else FUTILITY_KEYS
                 row.update({key: found[key] for key in keys})
                 wanted.remove(kind)
-        edge = eff_w.size - 1
         if not wanted:
             return
     for kind in wanted:
