@@ -279,8 +279,8 @@ def test_optional_inputs_are_rendered_as_written(runs, tmp_path) -> None:
     assert [r.cells["type1_error"].value for r in table_rows(page, "calibration")] == [
         0.051, 0.044]
     summary = {r.cells["item"].text: r.cells["value"].text
-               for r in table_rows(page, "calibration-summary")}
-    assert summary == {"request.alpha": "0.0500", "request.power": "0.8000", "chosen_n": "42"}
+               for r in table_rows(page, "calibration-further")}
+    assert summary == {"request": "alpha = 0.0500; power = 0.8000", "chosen n": "42"}
     sizes = table_rows(page, "prior-sample-size")
     assert [sizes[0].cells["simple"].value, sizes[0].cells["fda"].value] == [2.0, 1.7]
     summary = {r.cells["item"].text: r.cells["value"] for r in table_rows(page,
@@ -307,7 +307,7 @@ def test_calibration_with_many_rows_shows_the_marked_ones(runs, tmp_path) -> Non
     page = parse(folder / "report.html")
     assert [r.cells["n"].value for r in table_rows(page, "sizing")] == [70, 77]
     exported = pd.read_csv(folder / "report-tables" / "sizing.csv")
-    assert list(exported["n"]) == [70, 77]
+    assert list(exported["N"]) == [70, 77]
 
 
 def test_boundaries_of_unknown_shape_are_shown_as_written() -> None:

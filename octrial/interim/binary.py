@@ -51,6 +51,9 @@ class BinaryInterim(EndpointInterim):
         h = design.hypothesis
         if not design.two_arm:
             return f"Pr(rate {'>' if h.better == 'higher' else '<'} {h.benchmark:g} | data)"
+        if h.comparison == "odds-ratio":
+            side = ">" if h.better == "higher" else "<"
+            return f"Pr(odds ratio of rate_treatment to rate_control {side} {h.threshold:g} | data)"
         better, worse = ("treatment", "control") if h.better == "higher" else (
             "control", "treatment")
         return f"Pr(rate_{better} - rate_{worse} > {h.shift:g} | data)"

@@ -36,6 +36,7 @@ from octrial.interim.rule import (
     probability_decision,
     thresholds_at,
 )
+from octrial.rules.boundaries import with_unit
 
 ENDPOINTS: dict[str, EndpointInterim] = {
     e.endpoint: e for e in (BinaryInterim(), CountInterim(), NormalInterim())}
@@ -188,7 +189,7 @@ def _bounds(
     for kind, name in zip(("efficacy", "futility"), ("success", "failure") if last else (
             "efficacy", "futility"), strict=True):
         rule = row[f"{kind}_rule"]
-        out[name] = rule if rule == "never" else f"{rule}{given}"
+        out[name] = with_unit(rule, given)
     return out
 
 
@@ -402,7 +403,7 @@ def _planned_bounds(support: EndpointInterim, design: Design,
     if isinstance(design.family, LatticeFamily):
         row = observed_look(design, look - 1, planned).boundaries[0]
         statistic = design.family.statistic
-        return tuple(rule if rule == "never" else f"{rule} {statistic}"
+        return tuple(with_unit(rule, f" {statistic}")
                      for rule in (row["efficacy_rule"], row["futility_rule"]))
     return support.bound_rules(design, look, planned)
 

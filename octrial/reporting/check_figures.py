@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure as MplFigure
 
-from octrial.reporting.figures import LINES, RASTER_DPI, STYLE, _new, _panels
+from octrial.reporting.figures import LINES, RASTER_DPI, STYLE, _new, _panels, fit_text
 
 SOURCE_STYLE = {"analysis": ("-", "0.1", "analysis prior"),
                 "design": ("--", "0.5", "design prior")}
@@ -27,11 +27,13 @@ def png(fig: MplFigure) -> bytes:
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(STYLE):
+        fit_text(fig)
         fig.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
     return buffer.getvalue()
 
 
-def _sbc_panel(ax: Any, entry: dict[str, Any], title: bool = True) -> None:
+def _sbc_panel(ax: Any, entry: dict[str, Any], title: bool = True,
+               ylabel: bool = True) -> None:
     counts = np.asarray(entry["counts"], dtype=float)
     bins = counts.size
     edges = np.arange(bins + 1)
@@ -49,7 +51,8 @@ def _sbc_panel(ax: Any, entry: dict[str, Any], title: bool = True) -> None:
     ax.set_xticks(ticks, [f"{t / bins:g}" for t in ticks])
     ax.set_xlabel("rank of the truth / (draws + 1)" if entry["kind"] == "rank"
                   else "posterior CDF at the true value")
-    ax.set_ylabel("simulated studies per bin")
+    if ylabel:
+        ax.set_ylabel("simulated studies per bin")
     ax.grid(False)
     if title:
         verdict = entry["verdict"].upper()
@@ -66,7 +69,7 @@ def sbc_figure(entries: Sequence[dict[str, Any]], band_level: float) -> MplFigur
     fig, axes = _new(1.0 + 2.2 * nrows, ncols, nrows)
     with matplotlib.rc_context(STYLE):
         for i, entry in enumerate(entries):
-            _sbc_panel(axes[i // ncols, i % ncols], entry)
+            _sbc_panel(axes[i // ncols, i % ncols], entry, ylabel=i % ncols == 0)
         for j in range(len(entries), nrows * ncols):
             axes[j // ncols, j % ncols].set_visible(False)
         handles, labels = axes[0, 0].get_legend_handles_labels()

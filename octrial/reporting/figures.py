@@ -15,7 +15,7 @@ from __future__ import annotations
 import base64
 import io
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -76,6 +76,13 @@ class PlotFacts:
         Stated type I error level (drawn as the alpha line).
     max_type1 : float or None
         Maximum type I error over the null scenarios (drawn when no alpha is stated).
+    power_target : float or None
+        The power a calibration was asked for (``calibration.json``), drawn on the power
+        curve and the saw-tooth.
+    alternative_at : float or None
+        Where that calibration's alternative lies on the horizontal axis.
+    chosen_n : int or None
+        The maximum sample size the calibration chose (marked on the saw-tooth).
     """
 
     x: str
@@ -86,16 +93,55 @@ class PlotFacts:
     looks: tuple[int, ...]
     alpha: float | None
     max_type1: float | None
+    power_target: float | None = None
+    alternative_at: float | None = None
+    chosen_n: int | None = None
+
+
+def _calibration_facts(data: Any) -> dict[str, Any]:
+    """Target power, the alternative's place on the horizontal axis (filled in by
+    :func:`plot_facts`) and the chosen N, from ``calibration.json`` when present."""
+    record = getattr(data, "calibration_record", None) or {}
+    target = record.get("power_target")
+    looks = record.get("looks_n")
+    return {"power_target": float(target) if isinstance(target, (int, float)) else None,
+            "chosen_n": int(looks[-1]) if isinstance(looks, list) and looks else None}
+
+
+def _alternative_at(data: Any, column: str) -> float | None:
+    """The calibration's alternative on the axis ``column`` (a true value, difference or
+    ratio), when calibration.json names one for every arm."""
+    record = getattr(data, "calibration_record", None) or {}
+    alternative = record.get("alternative")
+    design = data.design
+    if not isinstance(alternative, dict) or not all(
+            isinstance(alternative.get(arm), (int, float)) for arm in design.arm_names):
+        return None
+    values = [float(alternative[arm]) for arm in design.arm_names]
+    if not design.two_arm:
+        return values[0]
+    t, c = values
+    if column == "true_effect":
+        return t - c
+    return float(design.family.measure(design.hypothesis.comparison, t, c))
 
 
 def plot_facts(data: Any) -> PlotFacts:
     """The :class:`PlotFacts` of a report's data."""
+    facts = _plot_facts(data)
+    if facts.power_target is None:
+        return facts
+    return replace(facts, alternative_at=_alternative_at(data, facts.x))
+
+
+def _plot_facts(data: Any) -> PlotFacts:
     design = data.design
     p, u = wording.parameter(design), wording.unit(design)
     h = design.hypothesis
     t1 = data.type1
     common = {"looks": tuple(design.looks.n), "alpha": data.alpha,
-              "max_type1": None if t1 is None else float(t1["max_type1_error"])}
+              "max_type1": None if t1 is None else float(t1["max_type1_error"]),
+              **_calibration_facts(data)}
     if not design.two_arm:
         return PlotFacts("true_treatment", f"true {p} of the treatment arm ({u})", None, "",
                          h.benchmark, **common)
@@ -141,6 +187,55 @@ def _new(height: float, ncols: int = 1, nrows: int = 1, **kw: Any) -> tuple[MplF
 RASTER_DPI = 200
 
 
+FIT_ROUNDS = 40
+"""Most layouts :func:`fit_text` tries (each wraps every text too wide one character
+narrower; wrapping one text can move the others)."""
+
+
+def fit_text(fig: MplFigure) -> None:
+    """Wrap every panel title and horizontal-axis label that would not fit beside its
+    neighbours or would be cut at the figure's edge.
+
+    Constrained layout makes room above and below panels for their text but not beside
+    them, so a title wider than its share of the figure's width runs into the next panel
+    or is cut at the edge. Each such text is re-wrapped at word boundaries, one character
+    narrower at a time, and the layout redone until every text fits.
+    """
+    for _ in range(FIT_ROUNDS):
+        fig.canvas.draw()
+        renderer = fig.canvas.get_renderer()
+        wrapped = False
+        for ax in fig.axes:
+            spec = ax.get_subplotspec()
+            if not ax.get_visible() or spec is None:
+                continue
+            share = fig.bbox.width / spec.get_gridspec().ncols
+            for text in (ax.title, ax.xaxis.label):
+                if text.get_text() and not _fits(text, renderer, share, fig.bbox.width):
+                    _narrower(text)
+                    wrapped = True
+        if not wrapped:
+            return
+
+
+def _fits(text: Any, renderer: Any, share: float, edge: float) -> bool:
+    # margins of 2% absorb the text widths of other resolutions (fonts are hinted per dpi)
+    box = text.get_window_extent(renderer)
+    margin = 0.02 * edge
+    return box.width <= share - margin and box.x0 >= margin and box.x1 <= edge - margin
+
+
+def _narrower(text: Any) -> None:
+    """Wrap ``text`` one step narrower than its longest line (never below 8 characters),
+    each of its own lines separately."""
+    import textwrap
+
+    original = getattr(text, "_unwrapped", None) or text.get_text()
+    text._unwrapped = original
+    width = max(8, max(len(line) for line in text.get_text().splitlines()) - 1)
+    text.set_text("\n".join(textwrap.fill(line, width) for line in original.splitlines()))
+
+
 def encode(fig: MplFigure, raster: bool = False) -> str:
     """The figure as a data URI: SVG (vector, sharp at any zoom), or PNG with ``raster``.
 
@@ -151,6 +246,7 @@ def encode(fig: MplFigure, raster: bool = False) -> str:
 
     buffer = io.BytesIO()
     with matplotlib.rc_context(STYLE):
+        fit_text(fig)
         if raster:
             fig.savefig(buffer, format="png", dpi=RASTER_DPI, metadata={"Software": None})
         else:
@@ -170,6 +266,17 @@ def _reference_lines(ax: Axes, facts: PlotFacts, probability_axis: bool) -> None
         elif facts.max_type1 is not None:
             ax.axhline(facts.max_type1, color="0.2", linestyle=(0, (6, 2)), linewidth=0.9,
                        label=f"maximum type I error ({probability(facts.max_type1)})")
+
+
+def _calibration_marks(ax: Axes, facts: PlotFacts) -> None:
+    """The target power and the alternative a calibration asked for, when it did."""
+    if facts.power_target is None:
+        return
+    ax.axhline(facts.power_target, color="0.35", linestyle="-.", linewidth=0.9,
+               label=f"target power {truth(facts.power_target)}")
+    if facts.alternative_at is not None:
+        ax.axvline(facts.alternative_at, color="0.35", linestyle="-.", linewidth=0.9,
+                   label=f"alternative ({truth(facts.alternative_at)})")
 
 
 def power_curve(data: Any, facts: PlotFacts) -> Figure:
@@ -193,6 +300,7 @@ def power_curve(data: Any, facts: PlotFacts) -> Figure:
             ax.plot(x, p, linestyle=style, marker=marker, color=grey, markersize=4,
                     linewidth=1.3, zorder=3, label=label or "P(success)")
         _reference_lines(ax, facts, probability_axis=True)
+        _calibration_marks(ax, facts)
         ax.set_ylim(-0.02, 1.02)
         ax.set_xlabel(facts.x_label)
         ax.set_ylabel("probability of declaring success")
@@ -204,6 +312,11 @@ def power_curve(data: Any, facts: PlotFacts) -> Figure:
                     "type I error over the null scenarios.")
     if banded:
         caption += " The grey band is the pointwise 95% Monte Carlo interval (± 1.96 se)."
+    if facts.power_target is not None:
+        caption += (f" The calibration asked for power {truth(facts.power_target)}"
+                    + (f" at the alternative {truth(facts.alternative_at)}"
+                       if facts.alternative_at is not None else "")
+                    + ": the dash-dotted lines mark them.")
     return Figure("power", "Power and type I error", caption, encode(fig),
                   "Line chart of the probability of success against the true value.")
 
@@ -367,12 +480,21 @@ def sawtooth(data: Any, facts: PlotFacts) -> Figure | None:
             if name == "type I error" and facts.alpha is not None:
                 ax.axhline(facts.alpha, color="0.2", linestyle=(0, (6, 2)), linewidth=0.9,
                            label=f"alpha = {truth(facts.alpha)}")
-                ax.legend(frameon=False)
+            if name == "power" and facts.power_target is not None:
+                ax.axhline(facts.power_target, color="0.35", linestyle="-.", linewidth=0.9,
+                           label=f"target power {truth(facts.power_target)}")
+            if facts.chosen_n is not None and (curve[n_col] == facts.chosen_n).any():
+                ax.axvline(facts.chosen_n, color="0.5", linestyle=(0, (1, 1.5)),
+                           linewidth=0.9, label=f"chosen N = {facts.chosen_n}")
+            if ax.get_legend_handles_labels()[0]:
+                ax.legend(frameon=False, loc="best")
             ax.set_xlabel("maximum sample size N (subjects)")
             ax.set_ylabel(name)
     caption = ("Type I error and power against the maximum sample size, from the "
                "calibration. With a discrete endpoint both move in a saw-tooth, not "
                "monotonically, so a larger N can fail where a smaller one passes.")
+    if facts.chosen_n is not None:
+        caption += " The dotted vertical line marks the N chosen."
     return Figure("sawtooth", "Sample size search", caption, encode(fig),
                   "Step chart of type I error and power against the maximum sample size.")
 

@@ -15,6 +15,7 @@ import tempfile
 from pathlib import Path
 
 from octrial.errors import single
+from octrial.output import _default_mode
 
 CANDIDATES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
 TIMEOUT = 180.0
@@ -78,6 +79,9 @@ def print_pdf(html: Path, pdf: Path, chromium: str | None = None) -> Path:
             if Path(tmp).stat().st_size == 0:
                 raise PrintError(f"Chromium wrote no PDF (exit code {done.returncode}): "
                                  + _last_lines(done.stderr))
+            # mkstemp makes 0600 (and Chromium writes into the file it is given): a
+            # report is an ordinary file, with the mode open() would give it
+            os.chmod(tmp, _default_mode())
             os.replace(tmp, pdf)
         except subprocess.TimeoutExpired:
             raise PrintError(f"Chromium did not finish printing within {TIMEOUT:g} s") from None

@@ -25,9 +25,11 @@ from octrial.reporting.formats import probability, truth
 from octrial.reporting.tables import Tables, build_tables
 
 PAPERS = {"a4": "A4", "letter": "letter"}
+"""Paper sizes for printing, by option value."""
 CHECK_FIGURES = "checks-"
 """Figures whose name starts with this are shown in the workflow-checks section."""
-"""Paper sizes for printing, by option value."""
+CALIBRATION_FIGURES = ("sawtooth",)
+"""Figures shown in the calibration section."""
 
 
 @dataclass(frozen=True)
@@ -193,7 +195,9 @@ def render_html(
         "design": _design(data),
         "tables": tables,
         "figures": figures,
-        "main_figures": [f for f in figures if not f.name.startswith(CHECK_FIGURES)],
+        "main_figures": [f for f in figures if not f.name.startswith(CHECK_FIGURES)
+                         and f.name not in CALIBRATION_FIGURES],
+        "calibration_figures": [f for f in figures if f.name in CALIBRATION_FIGURES],
         "check_figures": [f for f in figures if f.name.startswith(CHECK_FIGURES)],
         "type1": wording.type1_sentence(data),
         "precision": precision.statement(data),

@@ -19,6 +19,7 @@ import pandas as pd
 
 from octrial.reporting import wording
 from octrial.reporting.formats import FORMATS, number
+from octrial.rules.boundaries import BEYOND, beyond_note
 
 NUMERIC_KINDS = ("probability", "size", "count", "truth", "fraction", "number")
 
@@ -239,6 +240,7 @@ def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table
                  "the final look the efficacy rule is success and the futility rule is "
                  "failure.",
                  f"B = {wording.benefit_definition(data.design)} at the boundary count.")
+    notes += _beyond_notes(data.design, frame)
     return Table("boundaries", f"Decision boundaries in {statistic} per look", tuple(columns),
                  tuple(rows), notes)
 
@@ -259,8 +261,18 @@ def _two_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str,
         caption = (f"Look {int(look)}{' (final analysis)' if final else ''}: "
                    f"{n_t} treatment and {n_c} control subjects")
         tables.append(Table(f"boundaries-look{int(look)}", caption, columns, rows,
+                            _beyond_notes(data.design, part),
                             blocks=max(1, min(3, -(-len(rows) // 15)))))
     return tables
+
+
+def _beyond_notes(design: Any, frame: pd.DataFrame) -> tuple[str, ...]:
+    """Why some bound of ``frame`` lies beyond the computed range (none: no such bound)."""
+    rules = pd.concat([frame[c].astype(str) for c in ("efficacy_rule", "futility_rule")
+                       if c in frame])
+    if not rules.str.contains(BEYOND, regex=False).any():
+        return ()
+    return (beyond_note(design),)
 
 
 # -- operating characteristics -----------------------------------------------------------
@@ -412,29 +424,12 @@ def _marked_rows(frame: pd.DataFrame, source: str, what: str) -> tuple[pd.DataFr
     return shown, [note, f"Every row is in {source}."]
 
 
-PROVENANCE_KEYS = ("octrial_version", "design", "command", "started", "finished", "files",
-                   "file_sha256", "environment", "caution")
-"""Keys of calibration.json shown in the reproducibility section, not the summary."""
-
-
 def calibration_tables(data: Any) -> list[Table]:
-    """The calibration's summary, its sample-size curve and the candidates it examined."""
-    tables = []
-    record = data.calibration_record
-    if record is not None:
-        summary = {k: v for k, v in record.items() if k not in PROVENANCE_KEYS}
-        tables.append(_pairs_table("calibration-summary", "Calibration: request and result",
-                                   list(_flatten(summary).items())))
-    if data.sizing is not None:
-        shown, notes = _marked_rows(data.sizing, "sizing.csv", "sample sizes")
-        tables.append(frame_table("sizing", "Calibration: the maximum sample size searched",
-                                  shown, notes))
-    if data.calibration is not None:
-        shown, notes = _marked_rows(data.calibration, "calibration.csv",
-                                    "candidates examined")
-        tables.append(frame_table("calibration", "Calibration: candidates examined", shown,
-                                  notes))
-    return tables
+    """The calibration section's tables (:mod:`~octrial.reporting.calibration_section`,
+    which builds on this module)."""
+    from octrial.reporting.calibration_section import calibration_tables as build
+
+    return build(data)
 
 
 def _pairs_table(name: str, caption: str, pairs: list[tuple[str, Any]]) -> Table:

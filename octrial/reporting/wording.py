@@ -45,6 +45,11 @@ def parameter(design: Design) -> str:
     return str(getattr(design.family, "parameter", "parameter"))
 
 
+def statistic(design: Design) -> str:
+    """Plain name of the counted statistic of a lattice endpoint ('responses', 'events')."""
+    return str(getattr(design.family, "statistic", "responses"))
+
+
 def unit(design: Design) -> str:
     """The parameter's unit."""
     return str(getattr(design.family, "unit", None) or UNITS.get(design.family.name,
@@ -134,8 +139,9 @@ def look_rules(design: Design) -> list[dict[str, Any]]:
         if looks.uses_counts:
             e, f = looks.efficacy_count[k], looks.futility_count[k]
             ge, le = ("≥", "≤") if design.hypothesis.better == "higher" else ("≤", "≥")
-            row["efficacy"] = "–" if e is None else f"responses {ge} {e}"
-            row["futility"] = "–" if f is None else f"responses {le} {f}"
+            counted = statistic(design)
+            row["efficacy"] = "–" if e is None else f"{counted} {ge} {e}"
+            row["futility"] = "–" if f is None else f"{counted} {le} {f}"
             row["futility_predictive"] = "–"
         else:
             row["efficacy"] = _threshold(looks.efficacy[k])
@@ -153,8 +159,8 @@ def rule_sentences(design: Design) -> list[str]:
     if looks.uses_counts:
         ge = "at least" if design.hypothesis.better == "higher" else "at most"
         text = [f"The rule is stated in counts: at each look the study stops for efficacy "
-                f"when the responses reach the efficacy count ({ge} it) and for futility "
-                "when they are on the other side of the futility count."]
+                f"when the {statistic(design)} reach the efficacy count ({ge} it) and for "
+                "futility when they are on the other side of the futility count."]
         text.append("At the final look, reaching the efficacy count is success; anything "
                     "else is failure.")
         return text

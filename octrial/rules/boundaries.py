@@ -8,17 +8,37 @@ Beside each bound the table gives the posterior probability of benefit at the bo
 one count short of it (inside the region where the study continues), so a committee sees
 how the threshold falls between two counts, and the thresholds themselves.
 :func:`committee_table` renders it as plain text.
+
+A truncated lattice (counts) ends where the design's scenarios make more events
+negligible, but a bound may lie beyond that edge (a strong prior, a far threshold), and
+``octrial decide`` stops there all the same. When a stopping region that starts above
+the edge is empty on the lattice, or one that ends at the edge fills it, the rule is
+rebuilt on lattices serving larger rates (:data:`EXTENSIONS`, the rule of
+``octrial decide`` on the larger lattice) until the bound is inside. A bound still
+beyond the largest of them is written as such (:data:`BEYOND`), never as ``never``,
+which is kept for regions no count can reach (no threshold, or a bound below 0).
 """
 
 from __future__ import annotations
+
+from collections.abc import Iterator
 
 import numpy as np
 import pandas as pd
 
 from octrial.design.model import Design
-from octrial.rules.lattice import LatticeRule, LookTable
+from octrial.rules.lattice import LatticeRule, LookTable, build_rule, serving
 
 NEVER = "never"
+BEYOND = "beyond the computed range"
+"""Marks a rule whose bound lies past the largest lattice examined (see module docstring)."""
+
+EXTENSIONS = (2.0, 4.0, 8.0, 16.0)
+"""Factors on the lattice's reach (the largest rate it serves) tried in turn for a bound
+beyond the design's own lattice."""
+
+MAX_POINTS = 2_000_000
+"""Largest extended lattice (points over both arms at a look) built to find such a bound."""
 
 
 def _bound(mask: np.ndarray, higher: bool) -> int | None:
@@ -37,8 +57,34 @@ def _bound(mask: np.ndarray, higher: bool) -> int | None:
     return bound
 
 
+def _open(mask: np.ndarray, upper: bool, applies: bool) -> bool:
+    """Whether the lattice cannot show the bound of a region of a truncated lattice: an
+    upper tail (x >= b) that is empty although a threshold applies, or a lower tail
+    (x <= b) that reaches the last point."""
+    if not applies:
+        return False
+    return not mask.any() if upper else bool(mask[-1])
+
+
 def _rule_text(bound: int | None, op: str) -> str:
     return NEVER if bound is None else f"{op} {bound}"
+
+
+def with_unit(rule: str, unit: str) -> str:
+    """``rule`` with the words ``unit`` after its count (``>= 13 responses``; a rule
+    beyond the computed range keeps its remark last); ``never`` as it is."""
+    if rule == NEVER:
+        return rule
+    head, sep, tail = rule.partition(" (")
+    return f"{head}{unit}{sep}{tail}"
+
+
+def beyond_text(edge: int, upper: bool) -> str:
+    """The rule of a bound past the largest lattice examined, whose last count is
+    ``edge``."""
+    if upper:
+        return f"none up to {edge} ({BEYOND})"
+    return f"every count up to {edge} ({BEYOND})"
 
 
 def _at(values: np.ndarray | None, index: tuple[int, ...] | None) -> float:
@@ -75,6 +121,98 @@ def _row(
     }
 
 
+EFFICACY_KEYS = ("efficacy_bound", "efficacy_rule", "posterior_at_efficacy_bound",
+                 "posterior_before_efficacy_bound")
+FUTILITY_KEYS = ("futility_bound", "futility_rule", "posterior_at_futility_bound",
+                 "posterior_after_futility_bound", "predictive_at_futility_bound")
+
+
+def _applies(design: Design, k: int) -> tuple[bool, bool]:
+    """Whether look ``k`` has an efficacy rule and a futility rule at all."""
+    looks = design.looks
+    last = k == looks.count - 1
+    if looks.uses_counts:
+        efficacy = looks.efficacy_count[k] is not None
+        futility = efficacy if last else looks.futility_count[k] is not None
+        return efficacy, futility
+    efficacy = looks.efficacy[k] is not None
+    if last:
+        return efficacy, efficacy
+    return efficacy, looks.futility[k] is not None or looks.futility_predictive[k] is not None
+
+
+class _Extensions:
+    """Rules of ``design`` on lattices serving ``EXTENSIONS`` times its reach, built on
+    first use (the rule ``octrial decide`` applies to a count past the design's lattice)."""
+
+    def __init__(self, design: Design, rule: LatticeRule) -> None:
+        self.design, self.rule = design, rule
+        self._rules: dict[float, LatticeRule | None] = {}
+
+    def rules(self) -> Iterator[LatticeRule]:
+        """The extended rules, smallest first, until one would be too large."""
+        reach = self.rule.reach
+        if reach is None:
+            return
+        for factor in EXTENSIONS:
+            if factor not in self._rules:
+                self._rules[factor] = self._build(np.array([reach], dtype=float) * factor)
+            found = self._rules[factor]
+            if found is None:
+                return
+            yield found
+
+    def _build(self, truths: np.ndarray) -> LatticeRule | None:
+        design = serving(self.design, truths)
+        family = design.family
+        for n in design.looks.per_arm:
+            points = np.prod([family.lattice_size(design, j, m) for j, m in enumerate(n)])
+            if points > MAX_POINTS:
+                return None
+        return build_rule(design)
+
+
+def _resolve(
+    row: dict[str, object], extensions: _Extensions, k: int, axis: slice | int,
+    higher: bool, applies: tuple[bool, bool], prefix: tuple[int, ...],
+    table: LookTable,
+) -> None:
+    """Replace, in ``row``, the bounds the lattice of ``table`` cannot show (see
+    :func:`_open`) by those of the first extended lattice that shows them, or by
+    :func:`beyond_text` when none does."""
+    eff, fut = table.efficacy[axis], table.futility[axis]
+    wanted = [kind for kind, mask, upper, ok in (
+        ("efficacy", eff, higher, applies[0]), ("futility", fut, not higher, applies[1]))
+        if _open(mask, upper, ok)]
+    if not wanted:
+        return
+    edge = eff.size - 1
+    for bigger in extensions.rules():
+        wide = bigger.looks[k]
+        eff_w, fut_w = wide.efficacy[axis], wide.futility[axis]
+        try:
+            found = _row(wide, eff_w, fut_w, higher, prefix)
+        except ArithmeticError:
+            # far past the design's scenarios a region need not stay a tail (predictive
+            # mass beyond even this lattice); the bound then stays beyond what is computed
+            break
+        edge = eff_w.size - 1
+        for kind, mask, upper in (("efficacy", eff_w, higher),
+                                  ("futility", fut_w, not higher)):
+            if kind in wanted and not _open(mask, upper, True):
+                keys = EFFICACY_KEYS if kind == "efficacy" else FUTILITY_KEYS
+                row.update({key: found[key] for key in keys})
+                wanted.remove(kind)
+        if not wanted:
+            return
+    for kind in wanted:
+        upper = higher if kind == "efficacy" else not higher
+        keys = EFFICACY_KEYS if kind == "efficacy" else FUTILITY_KEYS
+        row.update({key: float("nan") for key in keys})
+        row[f"{kind}_bound"] = None
+        row[f"{kind}_rule"] = beyond_text(edge, upper)
+
+
 def _thresholds(design: Design, k: int) -> dict[str, float]:
     looks = design.looks
     last = k == looks.count - 1
@@ -90,14 +228,19 @@ def _thresholds(design: Design, k: int) -> dict[str, float]:
 def boundary_table(design: Design, rule: LatticeRule) -> pd.DataFrame:
     """The ``boundaries.csv`` table (see module docstring).
 
-    At the last look the futility columns describe failure at the final analysis.
+    At the last look the futility columns describe failure at the final analysis. On a
+    truncated lattice, a bound past its edge is looked for on larger lattices.
     """
     higher = design.hypothesis.better == "higher"
+    truncated = bool(getattr(design.family, "truncates", False))
+    extensions = _Extensions(design, rule)
     rows = []
     for k, table in enumerate(rule.looks):
+        applies = _applies(design, k) if truncated else (False, False)
         if not design.two_arm:
             row = {"look": table.look, "n": table.n[0]}
             row.update(_row(table, table.efficacy, table.futility, higher))
+            _resolve(row, extensions, k, slice(None), higher, applies, (), table)
             row.update(_thresholds(design, k))
             rows.append(row)
             continue
@@ -106,6 +249,7 @@ def boundary_table(design: Design, rule: LatticeRule) -> pd.DataFrame:
                    f"control_{design.family.statistic}": x_c}
             row.update(_row(table, table.efficacy[:, x_c], table.futility[:, x_c], higher,
                             (x_c,)))
+            _resolve(row, extensions, k, (slice(None), x_c), higher, applies, (x_c,), table)
             row.update(_thresholds(design, k))
             rows.append(row)
     frame = pd.DataFrame(rows)
@@ -137,21 +281,37 @@ def _threshold_words(row: pd.Series, last: bool) -> tuple[str, str]:
     return efficacy, " or ".join(parts)
 
 
+def claim_text(design: Design) -> str:
+    """The posterior probability the rule compares with its thresholds, in plain text.
+
+    Two arms: the comparison as the endpoint family computes it (a difference treatment -
+    control against the margin's shift, signed; a rate ratio or odds ratio against the
+    relative threshold 1 + sign x shift, :attr:`~octrial.design.model.Hypothesis.threshold`).
+    """
+    family, h = design.family, design.hypothesis
+    p = family.parameter
+    op = ">" if h.better == "higher" else "<"
+    if not design.two_arm:
+        return f"Pr({p} {op} {h.benchmark:g} | data)"
+    if h.comparison in (None, "difference"):
+        value = h.sign * h.shift
+        limit = f"{value:+g}" if value else "0"
+        return f"Pr({p} treatment - {p} control {op} {limit} | data)"
+    if h.comparison == "ratio":
+        return f"Pr({p} treatment / {p} control {op} {h.threshold:g} | data)"
+    if h.comparison == "odds-ratio":
+        return f"Pr(odds ratio of {p} treatment to {p} control {op} {h.threshold:g} | data)"
+    return f"Pr({h.comparison} of {p} treatment to {p} control {op} {h.threshold:g} | data)"
+
+
 def committee_table(design: Design, frame: pd.DataFrame) -> str:
     """The boundary table as plain text a monitoring committee can apply without software.
 
     One arm: a few lines per look. Two arms: per look, one line per control count.
     """
-    family, h = design.family, design.hypothesis
+    family = design.family
     counted = family.statistic
-    if design.two_arm:
-        sign = "-" if h.better == "higher" else "+"
-        claim = (f"Pr({family.parameter} treatment - {family.parameter} control "
-                 f"{'>' if h.better == 'higher' else '<'} {sign if h.shift else ''}"
-                 f"{abs(h.shift):g} | data)").replace("  ", " ")
-    else:
-        claim = (f"Pr({family.parameter} {'>' if h.better == 'higher' else '<'} "
-                 f"{h.benchmark:g} | data)")
+    claim = claim_text(design)
     lines = [f"Decision rule of {design.name}, in {counted}; posterior = {claim}.",
              "Efficacy is checked first. At the final analysis a study that does not reach "
              "the success bound fails."]
@@ -170,6 +330,8 @@ def committee_table(design: Design, frame: pd.DataFrame) -> str:
             e, f = first["efficacy_rule"], first["futility_rule"]
             if e == NEVER:
                 lines.append(f"  {stop}: never")
+            elif BEYOND in e:
+                lines.append(f"  {stop}: {with_unit(e, ' ' + counted)}; see the note below")
             else:
                 lines.append(f"  {stop} if {counted} {e}  (rule: {eff_words}; posterior "
                              f"{_probability(first['posterior_at_efficacy_bound'])} there, "
@@ -180,6 +342,8 @@ def committee_table(design: Design, frame: pd.DataFrame) -> str:
                 continue
             if f == NEVER:
                 lines.append(f"  {fail}: never")
+            elif BEYOND in f:
+                lines.append(f"  {fail}: {with_unit(f, ' ' + counted)}; see the note below")
             else:
                 extra = ""
                 if first["predictive_at_futility_bound"] == first[
@@ -202,4 +366,27 @@ def committee_table(design: Design, frame: pd.DataFrame) -> str:
             view["posterior there "] = part["posterior_at_futility_bound"].map(
                 _probability).to_numpy()
         lines += ["  " + line for line in view.to_string(index=False).splitlines()]
+    if _has_beyond(frame):
+        lines += ["", "Note: " + beyond_note(design)]
     return "\n".join(lines) + "\n"
+
+
+def _has_beyond(frame: pd.DataFrame) -> bool:
+    return any(frame[c].astype(str).str.contains(BEYOND, regex=False).any()
+               for c in ("efficacy_rule", "futility_rule") if c in frame)
+
+
+def beyond_note(design: Design) -> str:
+    """Why a bound can lie beyond the computed range, and what that costs."""
+    family = design.family
+    epsilon = float(getattr(family, "truncation_epsilon", 0.0))
+    share = epsilon / (design.looks.count * len(design.arms))
+    return (f"'{BEYOND}': the bound lies past the largest count computed, the one "
+            "stated ('none up to N': no count up to N stops the study that way; 'every "
+            "count up to N': every one does). The count lattice ends where more events "
+            f"have probability below {share:.2g} per look and arm under every scenario "
+            f"of the design (at most {epsilon:.2g} per scenario in all, the neglected "
+            "mass of run.json); to find a bound past that edge the rule was rebuilt on "
+            f"lattices serving up to {EXTENSIONS[-1]:g} times the largest rate the "
+            f"scenarios need (at most {MAX_POINTS:,} lattice points), and the bound lies "
+            "past them too. octrial decide gives the decision at any count.")
