@@ -27,11 +27,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-import fuzz_cases  # noqa: E402
+import fuzz_cases
 
-from octrial.design.load import parse_design  # noqa: E402
-from octrial.design.model import Source  # noqa: E402
-from octrial.errors import InputError  # noqa: E402
+from octrial.design.load import parse_design
+from octrial.design.model import Source
+from octrial.errors import InputError
 
 
 def loads(case: fuzz_cases.Case) -> str:
@@ -41,7 +41,7 @@ def loads(case: fuzz_cases.Case) -> str:
         parse_design(tomllib.loads(text), Source("design.toml", "", text))
     except InputError:
         return "refused"
-    except Exception as exc:  # noqa: BLE001 - any other exception is the finding
+    except Exception as exc:  # any other exception is the finding
         return f"{type(exc).__name__}: {exc}"
     return "ok"
 

@@ -1,0 +1,81 @@
+"""What a design costs to evaluate, estimated before anything is allocated, and the limits.
+
+A design file can ask for more than any computer holds: a lattice of 2^62 counts, a
+million looks, 10^7 replicates at each of 10^5 scenarios. Loading estimates the memory
+and the work of the engines from the design's sizes alone and refuses a design beyond
+the documented limits (docs/design-files.md, 'Limits') with a message that says what to
+reduce, instead of failing with a memory error or running for days.
+
+The estimates are rough on purpose (within a small factor of what the engines use,
+measured with ``/usr/bin/time -f %M`` on two-arm binary designs of 250 000 and 1 000 000
+lattice cells: about 300 bytes a cell with two looks); the limits sit far above every
+design met in practice and far below what would exhaust a machine.
+"""
+
+from __future__ import annotations
+
+import math
+
+from octrial.design.model import Design
+from octrial.endpoints.base import LatticeFamily
+from octrial.errors import Problem
+
+MEMORY_LIMIT = 2 * 2**30
+"""Largest estimated working memory of the exact lattice engine and the decision tables
+(bytes)."""
+
+LATTICE_WORK_LIMIT = 1e13
+"""Largest estimated number of operations of the exact lattice engine (scenarios x looks
+x lattice cells x largest per-arm lattice size); about an hour at the measured rate of a
+few 10^9 a second."""
+
+STUDIES_LIMIT = 1e9
+"""Most simulated studies in a run (replicates x scenarios) when the design simulates."""
+
+BYTES_PER_CELL_LOOK = 32
+"""Estimated bytes per lattice cell and look (decision tables, distributions, masks)."""
+
+BYTES_PER_CELL = 192
+"""Estimated bytes per lattice cell independent of the looks (posterior tables)."""
+
+
+def lattice_sizes(design: Design) -> tuple[int, ...] | None:
+    """Per-arm lattice sizes at the last look, or None for a family without a lattice."""
+    family = design.family
+    if not isinstance(family, LatticeFamily):
+        return None
+    return tuple(int(family.lattice_size(design, j, design.looks.per_arm[-1][j]))
+                 for j in range(len(design.arms)))
+
+
+def problems(design: Design) -> list[Problem]:
+    """Every limit ``design`` exceeds, each naming what to reduce."""
+    found = []
+    looks, scenarios = design.looks.count, len(design.scenarios)
+    sizes = lattice_sizes(design)
+    if sizes is not None:
+        cells = math.prod(sizes)
+        largest = max(sizes)
+        memory = (cells * (BYTES_PER_CELL_LOOK * looks + BYTES_PER_CELL)
+                  + 2 * 8 * largest * largest)
+        if memory > MEMORY_LIMIT:
+            found.append(Problem(
+                "looks.n", f"a design whose count lattice fits the memory limit of "
+                f"{MEMORY_LIMIT / 2**30:g} GiB (reduce looks.n, the number of looks or, for "
+                "counts, the largest true rate or the exposure)",
+                f"an estimated {memory / 2**30:.3g} GiB ({' x '.join(map(str, sizes))} "
+                f"lattice points, {looks} looks)"))
+        work = float(scenarios) * looks * cells * largest
+        if work > LATTICE_WORK_LIMIT:
+            found.append(Problem(
+                "scenarios", f"at most {LATTICE_WORK_LIMIT:.0e} lattice operations (scenarios "
+                "x looks x lattice points x largest per-arm lattice; reduce the scenarios, "
+                "the looks or looks.n)", f"an estimated {work:.3g}"))
+    if design.simulation.method != "exact":
+        studies = float(design.simulation.replicates) * scenarios
+        if studies > STUDIES_LIMIT:
+            found.append(Problem(
+                "simulation.replicates", f"at most {STUDIES_LIMIT:.0e} simulated studies in "
+                "all (replicates x scenarios; reduce simulation.replicates or the scenarios)",
+                f"{design.simulation.replicates} x {scenarios} = {studies:.3g}"))
+    return found
