@@ -44,12 +44,14 @@ find nothing more), except when ``simulation.replicates`` is the key mutated."""
 
 LONG = "x" * 5000
 VALUES: tuple[Any, ...] = (
-    1e308, -1e308, 1e-300, -1e-300, 0, -1, 1, 0.5, 2**62, 2**63 - 1, -(2**62),
+    1e308, -1e308, 1e-300, -1e-300, 1e12, -1e12, 1e-12, 0, -1, 1, 0.5, 2**62, 2**63 - 1,
+    -(2**62),
     float("inf"), float("nan"), "nan", "inf", "", LONG, "0.5", True, False,
     {}, {"x": 1}, [], [1e308], [0], list(range(2000)), "none",
 )
-"""Replacement values: extreme magnitudes, zero and one, wrong types (string, bool,
-table, list) and a huge list."""
+"""Replacement values: extreme magnitudes, the largest and smallest a design file allows
+(docs/design-files.md, 'Limits'), zero and one, wrong types (string, bool, table, list)
+and a huge list."""
 
 
 @dataclass(frozen=True)

@@ -39,13 +39,20 @@ BYTES_PER_CELL = 192
 """Estimated bytes per lattice cell independent of the looks (posterior tables)."""
 
 
-def lattice_sizes(design: Design) -> tuple[int, ...] | None:
-    """Per-arm lattice sizes at the last look, or None for a family without a lattice."""
+def lattice_sizes(design: Design) -> tuple[float, ...] | None:
+    """Per-arm lattice sizes at the last look (inf when too large to compute), or None
+    for a family without a lattice."""
     family = design.family
     if not isinstance(family, LatticeFamily):
         return None
-    return tuple(int(family.lattice_size(design, j, design.looks.per_arm[-1][j]))
-                 for j in range(len(design.arms)))
+    sizes = []
+    for j in range(len(design.arms)):
+        try:
+            size = float(family.lattice_size(design, j, design.looks.per_arm[-1][j]))
+        except (ArithmeticError, ValueError):  # a quantile of a count beyond floats
+            size = math.inf
+        sizes.append(size if math.isfinite(size) else math.inf)
+    return tuple(sizes)
 
 
 def problems(design: Design) -> list[Problem]:
@@ -63,8 +70,8 @@ def problems(design: Design) -> list[Problem]:
                 "looks.n", f"a design whose count lattice fits the memory limit of "
                 f"{MEMORY_LIMIT / 2**30:g} GiB (reduce looks.n, the number of looks or, for "
                 "counts, the largest true rate or the exposure)",
-                f"an estimated {memory / 2**30:.3g} GiB ({' x '.join(map(str, sizes))} "
-                f"lattice points, {looks} looks)"))
+                f"an estimated {memory / 2**30:.3g} GiB "
+                f"({' x '.join(f'{s:.0f}' for s in sizes)} lattice points, {looks} looks)"))
         work = float(scenarios) * looks * cells * largest
         if work > LATTICE_WORK_LIMIT:
             found.append(Problem(
