@@ -18,7 +18,7 @@ import math
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
-from octrial.errors import Problem
+from octrial.errors import InputError, Problem
 
 MEMORY_LIMIT = 2 * 2**30
 """Largest estimated working memory of the exact lattice engine and the decision tables
@@ -55,6 +55,29 @@ def lattice_sizes(design: Design) -> tuple[float, ...] | None:
     return tuple(sizes)
 
 
+def lattice_memory(design: Design) -> float:
+    """Estimated working memory (bytes) of ``design``'s decision tables and exact engine
+    (0 without a lattice)."""
+    sizes = lattice_sizes(design)
+    if sizes is None:
+        return 0.0
+    largest = max(sizes)
+    return (math.prod(sizes) * (BYTES_PER_CELL_LOOK * design.looks.count + BYTES_PER_CELL)
+            + 2 * 8 * largest * largest)
+
+
+def require_lattice_fits(design: Design, source: str, key: str, reduce: str) -> None:
+    """Raise an :class:`~octrial.errors.InputError` at ``source: key`` when ``design``'s
+    lattice (for example one extended to hold observed counts) exceeds the memory limit;
+    ``reduce`` says what to reduce."""
+    memory = lattice_memory(design)
+    if memory > MEMORY_LIMIT:
+        raise InputError(source, [Problem(
+            key, f"values whose count lattice fits the memory limit of "
+            f"{MEMORY_LIMIT / 2**30:g} GiB ({reduce})",
+            f"an estimated {memory / 2**30:.3g} GiB")])
+
+
 def problems(design: Design) -> list[Problem]:
     """Every limit ``design`` exceeds, each naming what to reduce."""
     found = []
@@ -63,8 +86,7 @@ def problems(design: Design) -> list[Problem]:
     if sizes is not None:
         cells = math.prod(sizes)
         largest = max(sizes)
-        memory = (cells * (BYTES_PER_CELL_LOOK * looks + BYTES_PER_CELL)
-                  + 2 * 8 * largest * largest)
+        memory = lattice_memory(design)
         if memory > MEMORY_LIMIT:
             found.append(Problem(
                 "looks.n", f"a design whose count lattice fits the memory limit of "

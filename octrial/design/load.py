@@ -38,8 +38,6 @@ NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
 NAME_LENGTH = 100
 """Longest design name: it names the output folder, and file systems limit a folder name
 to 255 bytes."""
-TITLE_LENGTH = 1000
-"""Longest title (it heads the report)."""
 MAX_REPLICATES = 10_000_000
 """Most simulated studies per scenario a design file may ask for (as ``octrial run
 --max-replicates`` allows by default)."""
@@ -88,9 +86,6 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
                expected=f"{SCHEMA} (the only schema so far)")
     name = _read_name(top, source)
     title = top.string("title", required=False, default="") or ""
-    if len(title) > TITLE_LENGTH:
-        top.fail("title", f"a title of at most {TITLE_LENGTH} characters",
-                 Phrase(f"{len(title)} characters"))
 
     family, endpoint, better = _read_endpoint(top)
     arms_table = top.table("arms")
