@@ -66,6 +66,14 @@ DESIGN_CASES: list[tuple[str, dict[str, Any], dict[str, Any], str, str]] = [
      "arms.treatment.prior.a", "magnitude"),
     ("beta prior b = 1e-300", ONE_ARM, {"arms__treatment__prior__b": 1e-300},
      "arms.treatment.prior.b", "magnitude"),
+    ("beta prior a = 1e12", ONE_ARM, {"arms__treatment__prior__a": 1e12},
+     "arms.treatment.prior.a", "at most 1e+06"),
+    # the predictive lattice from a prior mean of 10^6 events per subject: memory error
+    ("gamma prior far above the scenarios", COUNT_ONE_ARM,
+     {"arms__treatment__prior__shape": 1e6, "looks__futility_predictive": 0.05},
+     "looks.n", "a prior mean far above the scenarios"),
+    ("gamma prior shape 1e12", COUNT_ONE_ARM, {"arms__treatment__prior__shape": 1e12},
+     "arms.treatment.prior.shape", "at most 1e+06"),
     # 2^62 studies per scenario: a memory error or a run of years
     ("replicates 2^62", ONE_ARM, {"simulation": {"replicates": 2**62}},
      "simulation.replicates", "from 1 to 10000000"),

@@ -16,6 +16,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.errors import InputError, Problem
@@ -55,6 +57,33 @@ def lattice_sizes(design: Design) -> tuple[float, ...] | None:
     return tuple(sizes)
 
 
+def predictive_sizes(design: Design, sizes: tuple[float, ...]) -> tuple[float, ...]:
+    """Estimated final-look lattice points the predictive probabilities of a truncating
+    family need (``sizes`` when the rule has none): from each arm's highest interim
+    count, twice the predictive mean of the remaining events plus ten of its Poisson sds.
+    A prior far above the scenarios (gamma shape 10^6, rate 1) reaches far beyond them."""
+    looks = design.looks
+    family = design.family
+    if not family.truncates or all(p is None for p in looks.futility_predictive):
+        return sizes
+    out = []
+    for j, size in enumerate(sizes):
+        reach = size
+        n_end = looks.per_arm[-1][j]
+        for k in range(looks.count - 1):
+            n_k = looks.per_arm[k][j]
+            try:
+                edge = family.lattice_size(design, j, n_k) - 1
+                post = family.posterior(design, j, n_k, np.array([edge]))
+                mean = float(np.ravel(post.mean())[0]) * design.endpoint.exposure * (
+                    n_end - n_k)
+            except (ArithmeticError, ValueError, AttributeError):
+                mean = math.inf
+            reach = max(reach, edge + 2 * mean + 10 * math.sqrt(mean) + 10)
+        out.append(reach if math.isfinite(reach) else math.inf)
+    return tuple(out)
+
+
 def lattice_memory(design: Design) -> float:
     """Estimated working memory (bytes) of ``design``'s decision tables and exact engine
     (0 without a lattice)."""
@@ -62,8 +91,17 @@ def lattice_memory(design: Design) -> float:
     if sizes is None:
         return 0.0
     largest = max(sizes)
-    return (math.prod(sizes) * (BYTES_PER_CELL_LOOK * design.looks.count + BYTES_PER_CELL)
-            + 2 * 8 * largest * largest)
+    memory = (math.prod(sizes) * (BYTES_PER_CELL_LOOK * design.looks.count + BYTES_PER_CELL)
+              + 2 * 8 * largest * largest)
+    if any(math.isinf(s) for s in sizes):
+        return math.inf
+    reach = predictive_sizes(design, sizes)
+    if reach != sizes:
+        # predictive tables (interim points x final points, with temporaries) and the
+        # final success region on the larger lattice
+        memory += sum(48 * s * r for s, r in zip(sizes, reach, strict=True))
+        memory += 32 * math.prod(reach)
+    return memory
 
 
 def require_lattice_fits(design: Design, source: str, key: str, reduce: str) -> None:
@@ -91,7 +129,8 @@ def problems(design: Design) -> list[Problem]:
             found.append(Problem(
                 "looks.n", f"a design whose count lattice fits the memory limit of "
                 f"{MEMORY_LIMIT / 2**30:g} GiB (reduce looks.n, the number of looks or, for "
-                "counts, the largest true rate or the exposure)",
+                "counts, the largest true rate, the exposure or a prior mean far above the "
+                "scenarios)",
                 f"an estimated {memory / 2**30:.3g} GiB "
                 f"({' x '.join(f'{s:.0f}' for s in sizes)} lattice points, {looks} looks)"))
         work = float(scenarios) * looks * cells * largest

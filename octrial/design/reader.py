@@ -27,6 +27,12 @@ SMALLEST = 1e-12
 number overflow."""
 
 
+PRIOR_SIZE = 1e6
+"""Largest shape parameter or prior sample size (a prior, or historical data, worth at
+most a million subjects): beyond it a prior's variance is lost to rounding and its
+effective sample size divides by zero."""
+
+
 def in_range(value: float) -> bool:
     """Whether ``value`` is 0 or of magnitude in [SMALLEST, LARGEST]."""
     return value == 0 or SMALLEST <= abs(value) <= LARGEST
