@@ -72,12 +72,14 @@ def predictive_sizes(design: Design, sizes: tuple[float, ...]) -> tuple[float, .
         n_end = looks.per_arm[-1][j]
         for k in range(looks.count - 1):
             n_k = looks.per_arm[k][j]
+            edge = family.lattice_size(design, j, n_k) - 1
+            post = family.posterior(design, j, n_k, np.array([edge]))
+            if not hasattr(post, "mean"):
+                continue  # a grid posterior: a prior with light tails on the log rate
             try:
-                edge = family.lattice_size(design, j, n_k) - 1
-                post = family.posterior(design, j, n_k, np.array([edge]))
                 mean = float(np.ravel(post.mean())[0]) * design.endpoint.exposure * (
                     n_end - n_k)
-            except (ArithmeticError, ValueError, AttributeError):
+            except (ArithmeticError, ValueError):
                 mean = math.inf
             reach = max(reach, edge + 2 * mean + 10 * math.sqrt(mean) + 10)
         out.append(reach if math.isfinite(reach) else math.inf)
