@@ -12,6 +12,7 @@ from __future__ import annotations
 import subprocess
 import sys
 import textwrap
+import tomllib
 from pathlib import Path
 from typing import Any
 
@@ -34,6 +35,9 @@ COUNT_TWO_ARM: dict[str, Any] = changed(
     arms={"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 1}},
           "control": {"prior": {"distribution": "gamma", "shape": 1, "rate": 1}}},
     scenarios={"control": [1.0]})
+
+SCORE: dict[str, Any] = tomllib.loads(
+    (DESIGNS / "two-arm-continuous-score.toml").read_text(encoding="utf-8"))
 
 # (label, base design, changes, key named, words of the expectation)
 DESIGN_CASES: list[tuple[str, dict[str, Any], dict[str, Any], str, str]] = [
@@ -92,6 +96,9 @@ DESIGN_CASES: list[tuple[str, dict[str, Any], dict[str, Any], str, str]] = [
      "endpoint.exposure", "magnitude"),
     ("exposure 1e12", COUNT_ONE_ARM, {"endpoint__exposure": 1e12},
      "looks.n", "memory limit"),
+    # the exact normal engine's grid spans the scenarios in standard errors: 3.7 PiB
+    ("normal sd 1e-12", SCORE, {"endpoint__sd": 1e-12},
+     "scenarios", "fits the exact normal engine's grid"),
 ]
 
 
@@ -129,6 +136,14 @@ def test_byte_order_mark_is_read(tmp_path) -> None:
     path = tmp_path / "single-arm-response.toml"
     path.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
     assert load_design(path) == load_design(DESIGNS / "single-arm-response.toml")
+
+
+def test_prior_far_from_zero_runs(tmp_path) -> None:
+    """A normal prior mean of 1e12 (sd 6): its posterior variance was lost to rounding and
+    the FDA effective sample size divided by zero; now that summary is left empty."""
+    path = write(tmp_path, changed(SCORE, hypothesis__prior__mean=1e12))
+    result = run_cli(["run", str(path), "--out", str(tmp_path / "out"), "--quiet"])
+    assert result.exit_code == 0, result.output
 
 
 def test_merely_out_of_range_pairs_are_still_left_out() -> None:

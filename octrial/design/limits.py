@@ -40,6 +40,10 @@ BYTES_PER_CELL_LOOK = 32
 BYTES_PER_CELL = 192
 """Estimated bytes per lattice cell independent of the looks (posterior tables)."""
 
+BYTES_PER_NODE = 64
+"""Estimated bytes per scenario and grid point of the exact normal engine (densities,
+errors and their powers)."""
+
 
 def lattice_sizes(design: Design) -> tuple[float, ...] | None:
     """Per-arm lattice sizes at the last look (inf when too large to compute), or None
@@ -118,6 +122,21 @@ def require_lattice_fits(design: Design, source: str, key: str, reduce: str) -> 
             f"an estimated {memory / 2**30:.3g} GiB")])
 
 
+def normal_grid_nodes(design: Design) -> float | None:
+    """Estimated grid points of the exact normal engine at the first look (known sd), or
+    None: the scenarios' spread in standard errors of the first look plus the engine's
+    range either side, at its finer number of points per standard error."""
+    from octrial.engines.exact_normal import POINTS_PER_SD, RANGE_SD
+
+    family = design.family
+    if family.name != "normal" or not design.endpoint.known_sd:
+        return None
+    info = family.information(design, design.looks.per_arm[0])
+    values = [row[0] - (row[1] if len(row) > 1 else 0.0) for row in design.scenarios.values]
+    spread = (max(values) - min(values)) * math.sqrt(info)
+    return 2 * POINTS_PER_SD * (spread + 2 * RANGE_SD)
+
+
 def problems(design: Design) -> list[Problem]:
     """Every limit ``design`` exceeds, each naming what to reduce."""
     found = []
@@ -141,6 +160,16 @@ def problems(design: Design) -> list[Problem]:
                 "scenarios", f"at most {LATTICE_WORK_LIMIT:.0e} lattice operations (scenarios "
                 "x looks x lattice points x largest per-arm lattice; reduce the scenarios, "
                 "the looks or looks.n)", f"an estimated {work:.3g}"))
+    nodes = normal_grid_nodes(design)
+    if nodes is not None and design.simulation.method != "monte-carlo":
+        memory = BYTES_PER_NODE * scenarios * nodes
+        if memory > MEMORY_LIMIT:
+            found.append(Problem(
+                "scenarios", f"scenarios whose spread in standard errors fits the exact "
+                f"normal engine's grid in the memory limit of {MEMORY_LIMIT / 2**30:g} GiB "
+                "(reduce the spread of the scenarios or the number of scenarios, check "
+                "endpoint.sd, or set simulation.method = 'monte-carlo')",
+                f"an estimated {memory / 2**30:.3g} GiB ({nodes:.3g} grid points)"))
     if design.simulation.method != "exact":
         studies = float(design.simulation.replicates) * scenarios
         if studies > STUDIES_LIMIT:
