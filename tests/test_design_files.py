@@ -88,7 +88,7 @@ BAD = [
     ({"endpoint__type": "binry"}, "endpoint.type", "did you mean 'binary'"),
     ({"endpoint__better": None}, "endpoint.better", "missing"),
     ({"simulation": {"method": "montecarlo"}}, "simulation.method", "did you mean"),
-    ({"simulation": {"replicates": 0}}, "simulation.replicates", ">= 1"),
+    ({"simulation": {"replicates": 0}}, "simulation.replicates", "from 1 to 10000000"),
     ({"name": "has space"}, "name", "letters, digits"),
 ]
 

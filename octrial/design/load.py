@@ -13,6 +13,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
+from octrial.design import limits
 from octrial.design.model import (
     CONTROL,
     METHODS,
@@ -34,6 +35,12 @@ SCHEMA = 1
 TOP_KEYS = ("schema", "name", "title", "endpoint", "hypothesis", "arms", "looks", "scenarios",
             "simulation")
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
+NAME_LENGTH = 100
+"""Longest design name: it names the output folder, and file systems limit a folder name
+to 255 bytes."""
+MAX_REPLICATES = 10_000_000
+"""Most simulated studies per scenario a design file may ask for (as ``octrial run
+--max-replicates`` allows by default)."""
 INTERIM_ONLY = ("futility", "futility_predictive")
 GRID_POINTS = Simulation.grid_points
 
@@ -61,7 +68,8 @@ def load_design(path: str | Path) -> Design:
                                               "no such file")])
     raw = path.read_bytes()
     try:
-        text = raw.decode("utf-8")
+        # utf-8-sig: editors on some systems start UTF-8 files with a byte-order mark
+        text = raw.decode("utf-8-sig")
         data = tomllib.loads(text)
     except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
         raise DesignError(str(path), [Problem("", "a valid UTF-8 TOML file", str(exc))]) from None
@@ -101,15 +109,21 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
 
     if problems:
         raise DesignError(source.path, problems)
-    return Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios, simulation,
-                  source)
+    design = Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios,
+                    simulation, source)
+    # only a design valid in every other respect can be sized
+    too_big = limits.problems(design)
+    if too_big:
+        raise DesignError(source.path, too_big)
+    return design
 
 
 def _read_name(top: Table, source: Source) -> str:
     default = Path(source.path).stem if source.path else "design"
     name = top.string("name", required=False, default=default) or default
-    if not NAME_PATTERN.fullmatch(name):
-        top.fail("name", "letters, digits, '.', '_' or '-' (it names the output folder)", name)
+    if not NAME_PATTERN.fullmatch(name) or len(name) > NAME_LENGTH:
+        top.fail("name", f"at most {NAME_LENGTH} letters, digits, '.', '_' or '-', starting "
+                 "with a letter or digit (it names the output folder)", name)
     return name
 
 
@@ -208,13 +222,19 @@ def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...]
     """Per-arm cumulative sample sizes from totals and allocation weights."""
     weights = [a.allocation for a in arms]
     total = sum(weights)
+    # shares first: n x weight may overflow when a weight is large
+    shares = [w / total for w in weights]
+    ratio = ":".join(f"{w:g}" for w in weights)
     per_arm = []
     for k, n_k in enumerate(n):
-        sizes = [n_k * w / total for w in weights]
+        sizes = [n_k * share for share in shares]
         if any(abs(s - round(s)) > 1e-9 for s in sizes):
-            ratio = ":".join(f"{w:g}" for w in weights)
             table.problems.add(f"looks.n[{k + 1}]", f"a total that allocation {ratio} splits "
                                "into whole per-arm sample sizes", n_k)
+            return None
+        if any(round(s) < 1 for s in sizes):
+            table.problems.add(f"looks.n[{k + 1}]", f"a total that allocation {ratio} splits "
+                               "into at least one subject per arm", n_k)
             return None
         per_arm.append(tuple(round(s) for s in sizes))
     return tuple(per_arm)
@@ -315,8 +335,9 @@ def _read_simulation(top: Table) -> Simulation:
     table.allow("method", "replicates", "seed", "interval_level", "grid_points")
     method = table.string("method", METHODS, required=False, default="auto")
     replicates = table.number("replicates", required=False, default=10_000, integer=True,
-                              check=lambda v: v >= 1, expected="a whole number >= 1")
-    seed = table.number("seed", required=False, integer=True,
+                              check=lambda v: 1 <= v <= MAX_REPLICATES,
+                              expected=f"a whole number from 1 to {MAX_REPLICATES}")
+    seed = table.number("seed", required=False, integer=True, bounded=False,
                         check=lambda v: 0 <= v < 2**63, expected="a whole number >= 0")
     level = table.number("interval_level", required=False, default=0.95,
                          check=lambda v: 0 < v < 1, expected="a level in (0, 1)")

@@ -17,6 +17,26 @@ from octrial.errors import Problem, show
 NONE_WORD = "none"
 """The word that marks 'no threshold at this look' inside a per-look list."""
 
+LARGEST = 1e12
+"""Largest magnitude of a number in a design file (the seed excepted): beyond it sums,
+products and powers of the numbers overflow or lose every digit (docs/design-files.md,
+'Limits')."""
+
+SMALLEST = 1e-12
+"""Smallest magnitude of a non-zero number in a design file: below it divisions by the
+number overflow."""
+
+
+PRIOR_SIZE = 1e6
+"""Largest shape parameter or prior sample size (a prior, or historical data, worth at
+most a million subjects): beyond it a prior's variance is lost to rounding and its
+effective sample size divides by zero."""
+
+
+def in_range(value: float) -> bool:
+    """Whether ``value`` is 0 or of magnitude in [SMALLEST, LARGEST]."""
+    return value == 0 or SMALLEST <= abs(value) <= LARGEST
+
 
 def suggest(word: str, valid: Iterable[str]) -> str:
     """Return a 'did you mean' hint for ``word`` among ``valid`` keys, or ``''``."""
@@ -116,21 +136,27 @@ class Table:
     def number(
         self, name: str, *, required: bool = True, default: float | None = None,
         check: Callable[[float], bool] | None = None, expected: str = "a number",
-        integer: bool = False,
+        integer: bool = False, bounded: bool = True,
     ) -> float | None:
-        """A number satisfying ``check`` (described by ``expected``)."""
+        """A number satisfying ``check`` (described by ``expected``); unless ``bounded``
+        is false, also 0 or of magnitude in [SMALLEST, LARGEST]."""
         value = self.raw(name, expected, required)
         if value is None:
             return default
-        return self._number(self.key(name), value, check, expected, integer)
+        return self._number(self.key(name), value, check, expected, integer, bounded)
 
     def _number(
         self, key: str, value: Any, check: Callable[[float], bool] | None, expected: str,
-        integer: bool,
+        integer: bool, bounded: bool = True,
     ) -> float | None:
-        ok = is_number(value) and math.isfinite(value)
+        # TOML integers are unbounded: compare before any conversion to float overflows
+        ok = is_number(value) and (isinstance(value, int) or math.isfinite(value))
+        if ok and bounded and not in_range(value):
+            self.problems.add(key, f"{expected}, 0 or of magnitude from {SMALLEST:g} to "
+                              f"{LARGEST:g}", value)
+            return None
         if ok and integer:
-            ok = float(value).is_integer()
+            ok = isinstance(value, int) or float(value).is_integer()
         if ok and check is not None:
             ok = check(value)
         if not ok:

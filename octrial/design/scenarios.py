@@ -5,7 +5,8 @@ included). One arm: ``treatment``. Two arms: ``control`` with either ``treatment
 full control x treatment grid) or a shift of the control value on the scale of one of the
 family's comparisons: ``effect`` (treatment = control + effect), ``ratio`` (treatment =
 control x ratio) or ``odds_ratio``; grid points outside the parameter's range are left
-out and counted.
+out and counted. A shift that no control value can make valid (a ratio or odds ratio
+<= 0) is an error, not a row left out.
 """
 
 from __future__ import annotations
@@ -18,6 +19,13 @@ from octrial.endpoints.base import SCENARIO_AXES, Family
 
 DECIMALS = 12
 """Generated values are rounded to this many decimals, so 0.1 + 2 x 0.1 prints as 0.3."""
+
+MAX_SCENARIOS = 100_000
+"""Most scenarios a design may have (values of a range, and rows of the grid of two
+arms' values); docs/design-files.md, 'Limits'."""
+
+POSITIVE_SHIFTS = ("ratio", "odds_ratio")
+"""Shifts that are ratios: only values > 0 mean anything."""
 
 
 def read_values(table: Table, key: str) -> list[float] | None:
@@ -36,14 +44,19 @@ def read_values(table: Table, key: str) -> list[float] | None:
         if stop < start:
             rng.fail("to", f"a number >= from ({start:g})", stop)
             return None
-        count = math.floor((stop - start) / step + 1e-9) + 1
-        if count > 100_000:
-            rng.fail("step", "a step giving at most 100000 values", step)
+        span = (stop - start) / step
+        # (to - from) / step overflows to inf for extreme ends: count that as too many
+        if not span < MAX_SCENARIOS:
+            rng.fail("step", f"a step giving at most {MAX_SCENARIOS} values", step)
             return None
+        count = math.floor(span + 1e-9) + 1
         return [round(start + i * step, DECIMALS) for i in range(count)]
     if isinstance(raw, list):
         if not raw:
             table.fail(key, "a non-empty list of numbers", Phrase("an empty list"))
+            return None
+        if len(raw) > MAX_SCENARIOS:
+            table.fail(key, f"at most {MAX_SCENARIOS} values", Phrase(f"{len(raw)} values"))
             return None
         values = table.numbers(key)
         return None if values is None or any(v is None for v in values) else list(values)
@@ -59,6 +72,15 @@ def _check(table: Table, key: str, values: list[float], family: Family) -> bool:
             table.problems.add(f"{table.key(key)}[{i + 1}]", problem, v)
             ok = False
     return ok
+
+
+def _grid_fits(table: Table, key: str, controls: int, others: int) -> bool:
+    """Whether the control x ``key`` grid has at most MAX_SCENARIOS rows (recorded if not)."""
+    if controls * others <= MAX_SCENARIOS:
+        return True
+    table.fail(key, f"at most {MAX_SCENARIOS} scenarios in all (reduce the control or "
+               f"{key} values)", Phrase(f"{controls} x {others} = {controls * others}"))
+    return False
 
 
 def read_scenarios(table: Table, family: Family, two_arm: bool) -> Scenarios | None:
@@ -84,12 +106,20 @@ def read_scenarios(table: Table, family: Family, two_arm: bool) -> Scenarios | N
         treatment = read_values(table, TREATMENT)
         if treatment is None or not _check(table, TREATMENT, treatment, family):
             return None
+        if not _grid_fits(table, TREATMENT, len(control), len(treatment)):
+            return None
         rows = [(t, c) for c in control for t in treatment]
         return Scenarios((TREATMENT, CONTROL), tuple(rows))
     (axis,) = given
     shifts = read_values(table, axis)
-    if shifts is None:
+    if shifts is None or not _grid_fits(table, axis, len(control), len(shifts)):
         return None
+    if axis in POSITIVE_SHIFTS:
+        bad = [(i, v) for i, v in enumerate(shifts) if not v > 0]
+        for i, v in bad:
+            table.problems.add(f"{table.key(axis)}[{i + 1}]", "a ratio > 0", v)
+        if bad:
+            return None
     rows, dropped = [], 0
     for c in control:
         for e in shifts:

@@ -26,7 +26,7 @@ import numpy as np
 from scipy import special, stats
 
 from octrial.design.model import Hypothesis
-from octrial.design.reader import Phrase, Problems, Table
+from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
@@ -436,4 +436,5 @@ def _log_p(t: np.ndarray) -> np.ndarray:
 
 
 def _shape(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: v > 0, expected="a shape parameter > 0")
+    return table.number(key, check=lambda v: 0 < v <= PRIOR_SIZE,
+                        expected=f"a shape parameter > 0 and at most {PRIOR_SIZE:g}")

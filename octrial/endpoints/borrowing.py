@@ -31,7 +31,7 @@ from typing import Any
 
 import numpy as np
 
-from octrial.design.reader import Phrase, Table
+from octrial.design.reader import PRIOR_SIZE, Phrase, Table
 
 METHODS = ("power", "robust-mixture")
 
@@ -139,11 +139,13 @@ def read_borrowing(table: Table, fields: dict[str, str]) -> dict | None:
 
 def _field(data: Table, key: str, kind: str, names: str) -> float | None:
     if kind == "count":
-        return data.number(key, integer=True, check=lambda v: v >= 0,
-                           expected=f"a whole number >= 0 (historical data need {names})")
+        return data.number(key, integer=True, check=lambda v: 0 <= v <= PRIOR_SIZE,
+                           expected=f"a whole number from 0 to {PRIOR_SIZE:.0f} (historical "
+                           f"data need {names})")
     if kind == "size":
-        return data.number(key, integer=True, check=lambda v: v >= 1,
-                           expected=f"a whole number >= 1 (historical data need {names})")
+        return data.number(key, integer=True, check=lambda v: 1 <= v <= PRIOR_SIZE,
+                           expected=f"a whole number from 1 to {PRIOR_SIZE:.0f} (historical "
+                           f"data need {names})")
     if kind == "positive":
         return data.number(key, check=lambda v: v > 0,
                            expected=f"a number > 0 (historical data need {names})")

@@ -32,7 +32,7 @@ from typing import Any
 import numpy as np
 from scipy import special, stats
 
-from octrial.design.reader import Phrase, Problems, Table
+from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
@@ -221,11 +221,11 @@ class CountFamily(GridModel, LatticeFamily):
         extra = ("historical", "borrowing")
         if kind == "gamma":
             table.allow("distribution", "shape", "rate", *extra)
-            a, b = _positive(table, "shape"), _positive(table, "rate")
+            a, b = _shape(table, "shape"), _positive(table, "rate")
             prior = None if a is None or b is None else GammaMixture.single(a, b)
         elif kind == "gamma-mixture":
             table.allow("distribution", "components", *extra)
-            found = read_components(table, ("shape", "rate"), (_positive, _positive))
+            found = read_components(table, ("shape", "rate"), (_shape, _positive))
             prior = None if found is None else GammaMixture(*found)
         elif kind == "log-normal":
             table.allow("distribution", "log_mean", "log_sd", *extra)
@@ -475,4 +475,9 @@ class CountFamily(GridModel, LatticeFamily):
 
 def _positive(table: Table, key: str) -> float | None:
     return table.number(key, check=lambda v: v > 0, expected="a number > 0")
+
+
+def _shape(table: Table, key: str) -> float | None:
+    return table.number(key, check=lambda v: 0 < v <= PRIOR_SIZE,
+                        expected=f"a number > 0 and at most {PRIOR_SIZE:g}")
 

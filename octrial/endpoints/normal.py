@@ -32,7 +32,7 @@ from typing import Any
 import numpy as np
 from scipy import integrate, special, stats
 
-from octrial.design.reader import Phrase, Problems, Table
+from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowing
 from octrial.endpoints.mixtures import describe, read_components
@@ -206,10 +206,12 @@ class NormalFamily(Family):
         elif kind == "normal-inverse-gamma":
             table.allow("distribution", "mean", "mean_n", "shape", "scale", *extra)
             values = (table.number("mean"),
-                      table.number("mean_n", check=lambda v: v > 0,
-                                   expected="a number > 0 (observations the prior mean is "
-                                            "worth)"),
-                      _positive(table, "shape"), _positive(table, "scale"))
+                      table.number("mean_n", check=lambda v: 0 < v <= PRIOR_SIZE,
+                                   expected=f"a number > 0 and at most {PRIOR_SIZE:g} "
+                                            "(observations the prior mean is worth)"),
+                      table.number("shape", check=lambda v: 0 < v <= PRIOR_SIZE,
+                                   expected=f"a number > 0 and at most {PRIOR_SIZE:g}"),
+                      _positive(table, "scale"))
             prior = None if None in values else NormalInverseGamma(*values)
         if kind is None:
             return None

@@ -22,12 +22,13 @@ from typing import Any
 
 
 def fda_summary(n: float, v_reference: float, v_prior: float) -> dict[str, Any]:
-    """FDA (2010) effective sample size n V1 / V2 - n with its ingredients."""
+    """FDA (2010) effective sample size n V1 / V2 - n with its ingredients (``ess`` None
+    when V2 is lost to rounding: a prior far from 0 in units of its own sd)."""
     return {
         "n": n,
         "v1_noninformative": v_reference,
         "v2_prior": v_prior,
-        "ess": n * v_reference / v_prior - n,
+        "ess": n * v_reference / v_prior - n if v_prior > 0 else None,
         "data": "expected under the prior (x = n x prior mean)",
     }
 

@@ -41,6 +41,7 @@ from typing import Any
 import numpy as np
 from scipy import interpolate, optimize
 
+from octrial.design import limits
 from octrial.design.model import Design
 from octrial.endpoints import grid_family
 from octrial.endpoints.count import GammaMixture, GammaPosterior, prob_ratio, update
@@ -186,7 +187,11 @@ class CountInterim(EndpointInterim):
                 for arm in design.arm_names
                 if not float(observed[arm].exposure / e).is_integer()])
         on = rescaled(design, q)
-        return Frame(covering(on, look, sizes, self.statistics(on, observed)), sizes)
+        covered = covering(on, look, sizes, self.statistics(on, observed))
+        # counts far beyond the design's scenarios extend the lattice: size it first
+        limits.require_lattice_fits(covered, "--data", "", "fewer events per exposure, or "
+                                    "an exposure that is a whole number of subjects")
+        return Frame(covered, sizes)
 
     def quantity(self, design: Design, n: float) -> str:
         return f"{n * design.endpoint.exposure:.6g}"

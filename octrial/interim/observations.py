@@ -17,7 +17,7 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 
 from octrial.design.model import Design
-from octrial.design.reader import Phrase, Problems, suggest
+from octrial.design.reader import LARGEST, SMALLEST, Phrase, Problems, in_range, suggest
 from octrial.errors import InputError, single
 
 OPTION = "--data"
@@ -73,11 +73,20 @@ class Syntax:
     parse: Callable[[str], object]
 
 
+def _in_range(*values: float) -> None:
+    """Numbers as large or small as the design file allows (0, or magnitude in
+    [SMALLEST, LARGEST]): beyond, the posterior's arithmetic overflows."""
+    if not all(in_range(v) for v in values):  # False for nan and inf; exact for big ints
+        raise ValueError(f"numbers that are 0 or of magnitude from {SMALLEST:g} to "
+                         f"{LARGEST:g}")
+
+
 def _binary(text: str) -> BinaryData:
     match = re.fullmatch(f"{WHOLE}/{WHOLE}", text)
     if match is None:
         raise ValueError("responses/subjects as two whole numbers")
     x, n = int(match.group(1)), int(match.group(2))
+    _in_range(x, n)
     if n == 0:
         raise ValueError("at least one subject (n >= 1)")
     if x > n:
@@ -92,7 +101,9 @@ def _count(text: str) -> CountData:
     exposure = float(match.group(2))
     if not math.isfinite(exposure) or exposure <= 0:
         raise ValueError("a positive, finite total exposure")
-    return CountData(int(match.group(1)), exposure)
+    events = int(match.group(1))
+    _in_range(events, exposure)
+    return CountData(events, exposure)
 
 
 def _normal(text: str) -> NormalData:
@@ -102,6 +113,7 @@ def _normal(text: str) -> NormalData:
     mean, sd, n = float(match.group(1)), float(match.group(2)), int(match.group(3))
     if not (math.isfinite(mean) and math.isfinite(sd)) or sd <= 0:
         raise ValueError("a finite mean and a standard deviation > 0")
+    _in_range(mean, sd, n)
     if n < 2:
         raise ValueError("at least two subjects (n >= 2; a sample sd needs two)")
     return NormalData(mean, sd, n)

@@ -113,6 +113,8 @@ QUANTILE_DEGREE = 48
 """Degree of the Chebyshev interpolant of W(theta) behind the table."""
 
 BISECTIONS = 200
+DOUBLINGS = 1100
+"""Most doublings of a bracket: from 1, 1100 doublings overflow to inf."""
 
 
 @numba.njit(cache=True)
@@ -146,9 +148,14 @@ def t_quantile(p, nu):
     if p >= 1.0:
         return np.inf
     lo, hi = -1.0, 1.0
-    while student_t_pair(lo, nu)[0] > p:
+    # bounded: 1100 doublings reach +-inf, where the loops stop for any nu (also nan)
+    for _ in range(DOUBLINGS):
+        if not student_t_pair(lo, nu)[0] > p:
+            break
         lo *= 2.0
-    while student_t_pair(hi, nu)[0] < p:
+    for _ in range(DOUBLINGS):
+        if not student_t_pair(hi, nu)[0] < p:
+            break
         hi *= 2.0
     for _ in range(BISECTIONS):
         mid = 0.5 * (lo + hi)
@@ -448,9 +455,13 @@ def quantile_table(nu_x: float, nu_y: float, gamma: float,
         def below(w: float) -> float:  # Pr(c T_x - s T_y <= w) - gamma
             return 1.0 - float(np.ravel(difference_sf(0.0, c, nu_x, 0.0, s, nu_y, w))[0]) - gamma
         lo, hi = -1.0, 1.0
-        while below(lo) > 0:
+        for _ in range(DOUBLINGS):  # bounded, as in t_quantile
+            if not below(lo) > 0:
+                break
             lo *= 2.0
-        while below(hi) < 0:
+        for _ in range(DOUBLINGS):
+            if not below(hi) < 0:
+                break
             hi *= 2.0
         return optimize.brentq(below, lo, hi, xtol=1e-14, rtol=1e-14)
 

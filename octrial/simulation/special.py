@@ -210,7 +210,25 @@ def gammainc_pair(a: float, x: float) -> tuple[float, float]:
 
 @numba.njit(cache=True)
 def digamma(x: float) -> float:
-    """psi(x) = d log Gamma(x) / dx for x > 0."""
+    """psi(x) = d log Gamma(x) / dx, as scipy.special.digamma: -inf at +0, +inf at -0,
+    nan at negative integers and -inf; negative non-integers by the reflection formula
+    psi(x) = psi(1 - x) - pi / tan(pi x) (Abramowitz & Stegun 6.3.7), so the upward
+    recurrence below runs at most 10 times for any argument."""
+    if x == 0.0:
+        return -math.inf if math.copysign(1.0, x) > 0 else math.inf
+    if x < 0.0:
+        if x == math.floor(x):  # poles (and -inf)
+            return math.nan
+        # tan has period pi: reduce to the nearest integer first (exact), as pi x loses
+        # the digits that matter near a pole
+        return digamma_positive(1.0 - x) - math.pi / math.tan(
+            math.pi * (x - math.floor(x + 0.5)))
+    return digamma_positive(x)
+
+
+@numba.njit(cache=True)
+def digamma_positive(x: float) -> float:
+    """psi(x) for x > 0 (or nan): recurrence up to 10, then the asymptotic series."""
     total = 0.0
     while x < 10.0:
         total -= 1.0 / x
