@@ -288,3 +288,18 @@ def test_run_json_carries_the_record(tmp_path) -> None:
         assert name in rec and f"{name}_error" in rec
     assert rec["prob_success"] == info["assurance"]["probability"]
     assert compute(build(ONE_ARM)).info["bayesian_operating_characteristics"] is None
+
+
+def test_report_section_shows_each_metric_with_its_error() -> None:
+    from types import SimpleNamespace
+
+    from octrial.reporting.tables import BAYESIAN_WORDS, bayesian_oc_table
+
+    design = build(ONE_ARM, arms__treatment__design_prior=BETA_37)
+    rec = compute(design).info["bayesian_operating_characteristics"]
+    table = bayesian_oc_table(SimpleNamespace(record={
+        "bayesian_operating_characteristics": rec}))
+    assert [r.cells[1].value for r in table.rows] == [rec[k] for k, _, _ in BAYESIAN_WORDS]
+    assert [r.cells[2].value for r in table.rows] == [rec[f"{k}_error"]
+                                                      for k, _, _ in BAYESIAN_WORDS]
+    assert bayesian_oc_table(SimpleNamespace(record={})) is None
