@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -39,7 +40,7 @@ from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.engines.exact_lattice import ExactLatticeEngine
-from octrial.engines.lattice_batch import IncrementTables, run_batch
+from octrial.engines.lattice_batch import BatchResult, IncrementTables, run_batch
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings, replicates_for
 from octrial.execution import Execution
 from octrial.execution.checkpoints import CheckpointStore, kept_seed
@@ -65,6 +66,9 @@ class Assessment:
         At the alternative.
     expected_n_null, expected_n_alternative : float or None
         Expected total sample size at the null reference point and at the alternative.
+    bayesian : dict or None
+        The Bayesian operating characteristics under the design prior (when the truths
+        carry design-prior nodes: Bayesian constraints).
     """
 
     prob_success: np.ndarray
@@ -75,6 +79,17 @@ class Assessment:
     power_se: float
     expected_n_null: float
     expected_n_alternative: float | None
+    bayesian: dict[str, float] | None = None
+
+
+def bayesian_at(truths: Truths, prob_success: np.ndarray) -> dict[str, Any] | None:
+    """The Bayesian operating characteristics from Pr(success) at every true value
+    (the last axis; ``None`` without design-prior nodes)."""
+    if truths.prior is None:
+        return None
+    from octrial.bayesian_oc import metrics_at
+
+    return metrics_at(truths.prior, prob_success[..., truths.prior_start:])
 
 
 def assessment(
@@ -96,6 +111,8 @@ def assessment(
         power_se=0.0 if alt is None else float(se[alt]),
         expected_n_null=float(expected_n[truths.reference]),
         expected_n_alternative=None if alt is None else float(expected_n[alt]),
+        bayesian=None if truths.prior is None else {
+            k: float(v) for k, v in bayesian_at(truths, prob_success).items()},
     )
 
 
@@ -273,17 +290,35 @@ def distinct(values: np.ndarray) -> np.ndarray:
 class LatticeEvaluator(Evaluator):
     """The lattice fast path (see module docstring)."""
 
+    CHUNK = 2000
+    """True values per batched programme (design-prior nodes can number thousands)."""
+
     def __init__(self, truths: Truths, design: Design) -> None:
         super().__init__(truths)
         self.cache = LatticeCache()
-        self.increments = IncrementTables(design, truths.values)
+        values = truths.values
+        self.chunks = [IncrementTables(design, values[i:i + self.CHUNK])
+                       for i in range(0, len(values), self.CHUNK)]
+
+    def _batch(self, design: Design, rule, keep_final: bool = False) -> BatchResult:
+        """:func:`run_batch` over every true value, a chunk at a time (memory)."""
+        parts = [run_batch(design, rule, inc, keep_final=keep_final) for inc in self.chunks]
+        if len(parts) == 1:
+            return parts[0]
+        return BatchResult(np.concatenate([p.efficacy for p in parts]),
+                           np.concatenate([p.futility for p in parts]),
+                           None if not keep_final else np.concatenate([p.reach for p in parts]),
+                           np.concatenate([p.neglected for p in parts]))
 
     def rule(self, design: Design):
         """The candidate's lattice rule, from the shared posterior tables."""
+        if self.truths.prior is not None and getattr(design.family, "truncates", False):
+            # a truncated lattice sized for the design-prior nodes too
+            return build_rule(design, self.cache, truths=self.truths.values)
         return build_rule(design, self.cache)
 
     def assess(self, design: Design) -> Assessment:
-        result = run_batch(design, self.rule(design), self.increments)
+        result = self._batch(design, self.rule(design))
         self.evaluations += 1
         stop = result.efficacy + result.futility
         expected_n = stop @ np.asarray(design.looks.n, dtype=float)
@@ -307,7 +342,7 @@ class LatticeEvaluator(Evaluator):
         if any(v is not None for v in looks.futility_predictive[:-1]):
             return None  # interim futility depends on the final threshold
         rule = self.rule(design)
-        result = run_batch(design, rule, self.increments, keep_final=True)
+        result = self._batch(design, rule, keep_final=True)
         self.evaluations += 1
         early = result.efficacy[:, :-1].sum(axis=1)
         n = np.asarray(looks.n, dtype=float)

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -43,6 +44,11 @@ class Truths:
         Row of the alternative.
     description : str
         The null grid in words, for summaries.
+    prior : PriorNodes or None
+        Nodes over the design prior (:mod:`octrial.bayesian_oc`) appended as the last
+        rows, for Bayesian constraints; ``None`` otherwise.
+    prior_start : int or None
+        Row of the first of them.
     """
 
     values: np.ndarray
@@ -50,6 +56,8 @@ class Truths:
     reference: int
     alternative: int | None
     description: str
+    prior: Any = None
+    prior_start: int | None = None
 
 
 def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> float:

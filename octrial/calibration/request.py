@@ -8,6 +8,7 @@ the option names as keys); the search code trusts the resulting :class:`Request`
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -28,6 +29,34 @@ CRITERIA = ("power", "optimal")
 SEARCHES = ("optimal", "minimax")
 RULES = ("counts", "posterior")
 MAX_NULL_POINTS = 2000
+CONSTRAINT = re.compile(r"^\s*([A-Za-z_0-9]+)\s*(<=|>=)\s*([^\s]+)\s*$")
+"""A Bayesian constraint as written on the command line: ``NAME<=VALUE`` or ``NAME>=VALUE``."""
+
+
+@dataclass(frozen=True)
+class Constraint:
+    """A constraint on one Bayesian operating characteristic (:mod:`octrial.bayesian_oc`).
+
+    Attributes
+    ----------
+    name : str
+        One of :data:`octrial.bayesian_oc.METRICS`.
+    op : {'<=', '>='}
+    value : float
+    """
+
+    name: str
+    op: str
+    value: float
+
+    def met(self, found: float) -> bool:
+        """Whether ``found`` satisfies the constraint (a missing value never does)."""
+        if not math.isfinite(found):
+            return False
+        return found <= self.value if self.op == "<=" else found >= self.value
+
+    def __str__(self) -> str:
+        return f"{self.name} {self.op} {self.value:g}"
 
 
 @dataclass(frozen=True)
@@ -36,8 +65,9 @@ class Request:
 
     Attributes
     ----------
-    alpha : float
-        Largest acceptable type I error over the null region.
+    alpha : float or None
+        Largest acceptable type I error over the null region (``None``: only the
+        Bayesian constraints bind).
     power : float or None
         Target power at ``alternative``.
     alternative : tuple of float or None
@@ -65,9 +95,14 @@ class Request:
         Points of the grid over the null region (each axis).
     method : str or None
         Engine method override.
+    constraints : tuple of Constraint
+        Bounds on Bayesian operating characteristics under the design prior
+        (``--criterion NAME<=VALUE``), met together with ``alpha`` when both are given.
+    relevant_effect : float or None
+        Bayesian power over effect >= this value beyond the null boundary.
     """
 
-    alpha: float
+    alpha: float | None
     power: float | None = None
     alternative: tuple[float, ...] | None = None
     vary: tuple[str, ...] = ("final",)
@@ -80,6 +115,8 @@ class Request:
     stages: int | None = None
     null_points: int = 50
     method: str | None = None
+    constraints: tuple[Constraint, ...] = ()
+    relevant_effect: float | None = None
 
     @property
     def calibrated(self) -> str | None:
@@ -138,7 +175,9 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
         ``alpha``, ``power``, ``alternative`` (sequence of numbers, or comma-separated
         text), ``vary`` (sequence or comma-separated text), ``n_range`` (``'MIN:MAX[:STEP]'``),
         ``looks``, ``choose``, ``criterion``, ``search``, ``rule``, ``stages``,
-        ``null_points``, ``method``.
+        ``null_points``, ``method``; ``criterion`` may also hold (a sequence of) Bayesian
+        constraints ``'NAME<=VALUE'`` (see :func:`parse_criteria`), with
+        ``relevant_effect``; ``alpha`` is then optional.
 
     Raises
     ------
@@ -147,14 +186,25 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     """
     problems = Problems()
     known = {"alpha", "power", "alternative", "vary", "n_range", "looks", "choose", "criterion",
-             "search", "rule", "stages", "null_points", "method"}
+             "search", "rule", "stages", "null_points", "method", "relevant_effect"}
     for key in settings:
         if key not in known:
             problems.add(key, "one of " + ", ".join(sorted(known)), Phrase("an unknown setting"))
+    pick, constraints = parse_criteria(problems, settings.get("criterion"))
+    settings = {**settings, "criterion": pick}
     alpha = _probability(problems, "--alpha", settings.get("alpha"), "a type I error")
-    if settings.get("alpha") is None:
-        problems.add("--alpha", "a type I error strictly between 0 and 1",
+    if settings.get("alpha") is None and not constraints:
+        problems.add("--alpha", "a type I error strictly between 0 and 1 (or Bayesian "
+                     "constraints with --criterion NAME<=VALUE)",
                      Phrase("nothing (the option is required)"))
+    relevant = settings.get("relevant_effect")
+    if relevant is not None and (not isinstance(relevant, int | float) or isinstance(
+            relevant, bool) or not math.isfinite(relevant) or relevant < 0):
+        problems.add("--relevant-effect", "a number >= 0 (effect beyond the null boundary)",
+                     relevant)
+        relevant = None
+    if constraints:
+        _constraints_fit(problems, design, settings)
     power = _probability(problems, "--power", settings.get("power"), "a target power")
     alternative = _alternative(problems, design, settings.get("alternative"))
 
@@ -199,7 +249,67 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
         search=search, rule=settings.get("rule") or (
             ("counts" if design.looks.uses_counts else "posterior") if search else None),
         stages=stages if stages is not None else (design.looks.count if search else None),
-        null_points=null_points, method=settings.get("method"))
+        null_points=null_points, method=settings.get("method"), constraints=constraints,
+        relevant_effect=None if relevant is None else float(relevant))
+
+
+def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Constraint, ...]]:
+    """Split ``--criterion`` values into the grid searches' pick rule ('power' or
+    'optimal', at most one) and Bayesian constraints ``NAME<=VALUE`` / ``NAME>=VALUE``
+    with NAME a Bayesian operating characteristic and VALUE in [0, 1]."""
+    from octrial.bayesian_oc import METRICS
+
+    if raw is None:
+        return None, ()
+    items = [raw] if isinstance(raw, str) else list(raw)
+    pick: str | None = None
+    found: list[Constraint] = []
+    expected = ("'power' or 'optimal' (how grid searches pick), or NAME<=VALUE / "
+                "NAME>=VALUE with NAME one of " + ", ".join(METRICS) + " and VALUE in [0, 1]")
+    for item in items:
+        text = str(item)
+        if text in CRITERIA:
+            if pick is not None and pick != text:
+                problems.add("--criterion", "at most one of 'power' and 'optimal'", text)
+            pick = text
+            continue
+        match = CONSTRAINT.match(text)
+        if match is None:
+            problems.add("--criterion", expected, text)
+            continue
+        name, op, value = match.groups()
+        if name not in METRICS:
+            problems.add("--criterion", "a Bayesian operating characteristic: one of "
+                         + ", ".join(METRICS), name)
+            continue
+        try:
+            number = float(value)
+        except ValueError:
+            number = math.nan
+        if not 0 <= number <= 1:
+            problems.add("--criterion", f"a probability in [0, 1] after {op}", text)
+            continue
+        found.append(Constraint(name, op, number))
+    return pick, tuple(dict.fromkeys(found))
+
+
+def _constraints_fit(problems: Problems, design: Design, settings: dict[str, Any]) -> None:
+    """Bayesian constraints need design priors and an exact engine to integrate."""
+    from octrial.bayesian_oc import exact_engine_applies
+    from octrial.design_prior import has_design_prior, on_effect
+
+    if not has_design_prior(design):
+        where = ("hypothesis.design_prior" if on_effect(design) else
+                 ", ".join(f"arms.{a}.design_prior" for a in design.arm_names))
+        problems.add("--criterion", f"a design with a design prior ({where}) for "
+                     "Bayesian constraints", Phrase("a design without one"))
+    elif settings.get("method") == "monte-carlo" or not exact_engine_applies(design):
+        problems.add("--criterion", "a design an exact engine evaluates (Bayesian "
+                     "constraints integrate its exact OC curve over the design prior)",
+                     Phrase(f"{design.family.name} endpoint evaluated by simulation"))
+    if settings.get("search") is not None:
+        problems.add("--criterion", "--vary (thresholds or n) for Bayesian constraints, not "
+                     "a stage search", Phrase(f"--search {settings['search']}"))
 
 
 def vary_needs_alternative(vary: tuple[str, ...]) -> bool:
