@@ -303,3 +303,61 @@ def test_report_section_shows_each_metric_with_its_error() -> None:
     assert [r.cells[2].value for r in table.rows] == [rec[f"{k}_error"]
                                                       for k, _, _ in BAYESIAN_WORDS]
     assert bayesian_oc_table(SimpleNamespace(record={})) is None
+
+
+# -- verify: claims about the whole design ---------------------------------------------------
+def write_claims(path, rows: list[str], arms=("treatment",)) -> str:
+    header = ",".join([*(f"true_{a}" for a in arms), "metric", "claimed", "replicates",
+                       "se", "note"])
+    path.write_text("\n".join([header, *rows]) + "\n")
+    return str(path)
+
+
+def test_verify_design_level_claims(tmp_path) -> None:
+    # octrial's own numbers, written to 4 decimals, are consistent; a number moved by
+    # 0.01 (far beyond rounding and numerical error) is flagged; Holm over all claims
+    from octrial.review.claims import read_claims
+    from octrial.review.verification import verify
+
+    design = build(ONE_ARM, arms__treatment__design_prior=BETA_37)
+    rec = record_of(design)
+    rows = [f",{name},{rec[name]:.4f},,," for name in METRICS]
+    rows.append(f",prob_null_given_success,{rec['prob_null_given_success'] + 0.01:.4f},,,")
+    rows.append("0.2,prob_success,0.5,,,")
+    claims = read_claims(write_claims(tmp_path / "c.csv", rows), design)
+    found = verify(design, claims)
+    table = found.table
+    assert list(table["verdict"][: len(METRICS)]) == ["consistent"] * len(METRICS)
+    assert list(table["verdict"][len(METRICS):]) == ["discrepant", "discrepant"]
+    assert found.info["claims_total"] == len(METRICS) + 2
+    assert table["line"].is_monotonic_increasing
+
+
+def test_verify_simulated_design_level_claim_within_its_se(tmp_path) -> None:
+    from octrial.review.claims import read_claims
+    from octrial.review.verification import verify
+
+    design = unknown_single_look(20_000)
+    rec = record_of(design)
+    value, se = rec["prob_null_given_success"], rec["prob_null_given_success_se"]
+    rows = [f",prob_null_given_success,{value:.5f},20000,{se:.6f},",
+            f",prob_null_given_success,{value + 12 * se:.5f},20000,{se:.6f},"]
+    claims = read_claims(write_claims(tmp_path / "c.csv", rows), design)
+    found = verify(design, claims, replicates=40_000, seed=3)
+    assert found.table["recomputed_se"].gt(0).all()
+    assert list(found.table["verdict"]) == ["consistent", "discrepant"]
+
+
+@pytest.mark.parametrize("design_prior, row, words", [
+    (None, ",prob_null_given_success,0.01,,,", "design prior"),
+    (BETA_37, "0.2,average_type1_error,0.01,,,", "empty true values"),
+])
+def test_bad_design_level_claims(tmp_path, design_prior, row, words) -> None:
+    from octrial.errors import InputError
+    from octrial.review.claims import read_claims
+
+    design = build(ONE_ARM, **({} if design_prior is None else
+                               {"arms__treatment__design_prior": design_prior}))
+    with pytest.raises(InputError) as caught:
+        read_claims(write_claims(tmp_path / "c.csv", [row]), design)
+    assert words in str(caught.value)
