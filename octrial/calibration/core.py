@@ -143,7 +143,7 @@ class _Search:
         self.simulation = simulation
         self.builder = Builder(design)
         self.truths = with_prior_nodes(design, request, null_truths(
-            design, request.null_points, request.alternative, extra))
+            design, request.null_points, request.alternative, extra, request.null_range))
         self.ev: Evaluator = evaluator_for(design, self.truths, request.method, simulation,
                                            execution, seed_store)
         self.log = Log(design, self.truths, request.alpha, request.power,
@@ -334,7 +334,8 @@ def calibrate(design: Design, source: str = "calibrate()", *,
                 choice = run.thresholds()
         finally:
             run.ev.finish()
-        refined = refine_worst(choice.design, run.truths, choice.assessment)
+        refined = refine_worst(choice.design, run.truths, choice.assessment,
+                               request.null_range)
         if refined is None or request.alpha is None or refined.type1 <= request.alpha:
             break
         # the grid missed a worse point between its nodes: add it and calibrate again
@@ -402,6 +403,15 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
                  "futility": r["futility_rule"]} for _, r in table.iterrows()]
     out["assurance"] = assurance_record(design, settings=run.simulation,
                                         execution=run.execution)
+    if request.null_range is not None:
+        arm = design.arm_names[1] if design.two_arm else design.arm_names[0]
+        low, high = request.null_range
+        out["null_range"] = {
+            "arm": arm, "low": low, "high": high,
+            "assumption": (f"The type I error is controlled only for {arm} values from "
+                           f"{low:g} to {high:g} in the null region (--null-range); outside "
+                           "that range it may be larger.")}
+        out["assumptions"] = [out["null_range"]["assumption"]]
     if request.constraints:
         out["criteria"] = [str(c) for c in request.constraints]
         out["relevant_effect"] = request.relevant_effect

@@ -56,6 +56,8 @@ def summary_lines(cal: Calibration) -> list[str]:
            + (f", power >= {s['power_target']:g} at {_where(s['alternative'])}"
               if s["power_target"] is not None else "")]
     out.append(f"  null region searched: {s['null_grid']}")
+    if s.get("null_range"):
+        out.append(f"  assumption: {s['null_range']['assumption']}")
     for line in chosen_lines(cal):
         out.append(f"  chosen: {line}")
     out.append(f"  looks: n = {', '.join(map(str, s['looks_n']))}")

@@ -36,11 +36,13 @@ class Refined:
     point: tuple[float, ...]
 
 
-def refine_worst(design: Design, truths: Truths, a: Assessment) -> Refined | None:
+def refine_worst(design: Design, truths: Truths, a: Assessment,
+                 span: tuple[float, float] | None = None) -> Refined | None:
     """Refine the worst null point of ``design`` along the null boundary line.
 
     Returns ``None`` for one arm and for endpoints without a lattice (nothing to refine
-    cheaply); otherwise the refined maximum (at least the grid's).
+    cheaply); otherwise the refined maximum (at least the grid's). ``span`` limits the
+    control values searched (``--null-range``).
     """
     if not design.two_arm or not isinstance(design.family, LatticeFamily):
         return None
@@ -54,6 +56,8 @@ def refine_worst(design: Design, truths: Truths, a: Assessment) -> Refined | Non
     controls, success = controls[order], success[order]
     lo, hi = design.family.parameter_range
     c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
+    if span is not None:
+        c_lo, c_hi = max(c_lo, span[0]), min(c_hi, span[1])
     rule = build_rule(design)
 
     def type1(c: float) -> float:

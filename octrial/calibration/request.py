@@ -100,6 +100,11 @@ class Request:
         (``--criterion NAME<=VALUE``), met together with ``alpha`` when both are given.
     relevant_effect : float or None
         Bayesian power over effect >= this value beyond the null boundary.
+    null_range : tuple of float or None
+        (low, high): the composite null region searched for the maximum type I error is
+        limited to these values of the treatment arm (one arm) or of the control arm on
+        the null boundary (two arms); an assumption the summary states. ``None``: the
+        whole null region.
     """
 
     alpha: float | None
@@ -117,6 +122,7 @@ class Request:
     method: str | None = None
     constraints: tuple[Constraint, ...] = ()
     relevant_effect: float | None = None
+    null_range: tuple[float, float] | None = None
 
     @property
     def calibrated(self) -> str | None:
@@ -186,7 +192,8 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     """
     problems = Problems()
     known = {"alpha", "power", "alternative", "vary", "n_range", "looks", "choose", "criterion",
-             "search", "rule", "stages", "null_points", "method", "relevant_effect"}
+             "search", "rule", "stages", "null_points", "method", "relevant_effect",
+             "null_range"}
     for key in settings:
         if key not in known:
             problems.add(key, "one of " + ", ".join(sorted(known)), Phrase("an unknown setting"))
@@ -205,6 +212,7 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
         relevant = None
     if constraints:
         _constraints_fit(problems, design, settings)
+    null_range = _null_range(problems, design, settings.get("null_range"))
     power = _probability(problems, "--power", settings.get("power"), "a target power")
     alternative = _alternative(problems, design, settings.get("alternative"))
 
@@ -250,7 +258,39 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
             ("counts" if design.looks.uses_counts else "posterior") if search else None),
         stages=stages if stages is not None else (design.looks.count if search else None),
         null_points=null_points, method=settings.get("method"), constraints=constraints,
-        relevant_effect=None if relevant is None else float(relevant))
+        relevant_effect=None if relevant is None else float(relevant),
+        null_range=null_range)
+
+
+def _null_range(problems: Problems, design: Design, raw: Any) -> tuple[float, float] | None:
+    """``'LOW:HIGH'`` or a (low, high) pair, meeting the null region of ``design``."""
+    if raw is None:
+        return None
+    arm = design.arm_names[1] if design.two_arm else design.arm_names[0]
+    expected = (f"LOW:HIGH, two numbers LOW < HIGH: the {arm} arm's true values the null "
+                "region is limited to")
+    parts = raw.split(":") if isinstance(raw, str) else raw
+    try:
+        low, high = (float(str(v).strip()) for v in parts)
+    except (TypeError, ValueError):
+        problems.add("--null-range", expected, raw)
+        return None
+    if not (math.isfinite(low) and math.isfinite(high) and low < high):
+        problems.add("--null-range", expected, raw)
+        return None
+    lo, hi = design.family.parameter_range
+    h = design.hypothesis
+    if not design.two_arm:
+        # the null side of the benchmark (boundary included)
+        lo, hi = (lo, h.benchmark) if h.sign > 0 else (h.benchmark, hi)
+        where = f"the null region ({design.family.parameter} {h.better} than "
+        where = where.replace(h.better, "no " + h.better) + f"{h.benchmark:g})"
+    else:
+        where = f"the range of the control {design.family.parameter} ({lo:g}, {hi:g})"
+    if high < lo or low > hi:
+        problems.add("--null-range", f"a range that meets {where}", raw)
+        return None
+    return low, high
 
 
 def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Constraint, ...]]:

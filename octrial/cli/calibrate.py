@@ -63,6 +63,12 @@ from octrial.provenance import now
                    "[default: as the design states its rule].")
 @click.option("--stages", type=int, default=None,
               help="Stage search: number of looks [default: the design's].")
+@click.option("--null-range", "null_range", default=None, metavar="LOW:HIGH",
+              help="Limit the null region searched for the maximum type I error to these "
+                   "true values of the treatment arm (one arm) or of the control arm on the "
+                   "null boundary (two arms), e.g. control drift within +-0.1 of a "
+                   "historical estimate; stated as an assumption [default: the whole null "
+                   "region].")
 @click.option("--null-points", "null_points", type=int, default=None,
               help="Points of the grid over the null region [default: 50].")
 @click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
