@@ -175,3 +175,40 @@ def test_bad_criteria_name_the_option(base, settings, key, words) -> None:
         calibrate(build(base), "command line", **settings)
     text = str(caught.value)
     assert key in text and words in text
+
+
+# -- a restricted null region (--null-range) -------------------------------------------------
+def test_null_range_limits_the_null_grid_and_is_stated() -> None:
+    from octrial.engines.exact_lattice import ExactLatticeEngine
+    from tests.helpers import TWO_ARM
+
+    design = build(TWO_ARM, looks__n=[30, 60], scenarios__control=[0.3])
+    whole = calibrate(design, alpha=0.05)
+    limited = calibrate(design, alpha=0.05, null_range="0.2:0.4")
+    nulls = limited.truths.values[: limited.truths.nulls]
+    assert nulls[:, 1].min() >= 0.2 - 1e-12 and nulls[:, 1].max() <= 0.4 + 1e-12
+    assert "--null-range" in limited.summary["null_range"]["assumption"]
+    # a smaller region can only allow a less (or equally) stringent threshold
+    assert limited.design.looks.efficacy[-1] <= whole.design.looks.efficacy[-1]
+    # brute force along the null line inside the range: every point meets alpha
+    controls = np.linspace(0.2, 0.4, 81)
+    success = ExactLatticeEngine.run(limited.design, np.column_stack([controls, controls]),
+                                     estimate=False).efficacy.sum(axis=1)
+    assert success.max() <= 0.05 + 1e-12
+
+
+def test_one_arm_null_range_grid() -> None:
+    found = calibrate(build(ONE_ARM), alpha=0.05, null_range="0.05:0.15")
+    nulls = found.truths.values[: found.truths.nulls, 0]
+    assert nulls.min() >= 0.05 - 1e-12 and nulls.max() <= 0.15 + 1e-12
+    # the benchmark (0.2) is outside: the worst point in the range is its top
+    assert found.summary["worst_null_point"]["treatment"] == pytest.approx(0.15)
+
+
+@pytest.mark.parametrize("value, words", [
+    ("0.4:0.2", "LOW < HIGH"), ("abc", "LOW:HIGH"), ("0.5:0.9", "meets the null region"),
+])
+def test_bad_null_range(value, words) -> None:
+    with pytest.raises(InputError) as caught:
+        calibrate(build(ONE_ARM), "command line", alpha=0.05, null_range=value)
+    assert "--null-range" in str(caught.value) and words in str(caught.value)
