@@ -361,3 +361,35 @@ def test_bad_design_level_claims(tmp_path, design_prior, row, words) -> None:
     with pytest.raises(InputError) as caught:
         read_claims(write_claims(tmp_path / "c.csv", [row]), design)
     assert words in str(caught.value)
+
+
+# -- check: sensitivity to the design prior --------------------------------------------------
+@pytest.mark.parametrize("better", ["higher", "lower"])
+def test_design_prior_sensitivity_moves_the_moments_as_documented(better) -> None:
+    # the variants' moments against scipy.stats.beta mean and sd; "as stated" is the run's
+    from octrial.checks.design_prior_sensitivity import run_design_prior_sensitivity
+
+    design = build(ONE_ARM, endpoint__better=better, arms__treatment__design_prior=BETA_37)
+    entry = run_design_prior_sensitivity(design, seed=1)
+    rows = {r["variant"]: r for r in entry["rows"]}
+    stated = record_of(design)
+    for name in METRICS:
+        assert rows["as stated"][name] == stated[name]
+    m, s = stats.beta(3, 7).mean(), stats.beta(3, 7).std()
+    toward = 1 if better == "higher" else -1
+    for name, mean, sd in (("sceptical", m - toward * s, s), ("optimistic", m + toward * s, s),
+                           ("vaguer", m, 2 * s)):
+        a, b = (float(v) for v in rows[name]["design_prior"].removeprefix("Beta(")
+                .rstrip(")").split(","))
+        # describe() rounds to 6 significant digits
+        assert stats.beta(a, b).mean() == pytest.approx(mean, rel=1e-5)
+        assert stats.beta(a, b).std() == pytest.approx(sd, rel=1e-4)
+    # a design prior moved toward the null lowers the assurance of a monotone rule
+    assert rows["sceptical"]["prob_success"] < rows["as stated"]["prob_success"] < rows[
+        "optimistic"]["prob_success"]
+
+
+def test_design_prior_sensitivity_not_applicable_without_design_prior() -> None:
+    from octrial.checks.design_prior_sensitivity import run_design_prior_sensitivity
+
+    assert "not_applicable" in run_design_prior_sensitivity(build(ONE_ARM))

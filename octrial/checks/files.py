@@ -3,7 +3,9 @@
 ``checks.json`` (every verdict and number), ``sbc.csv`` (every simulated study's CDF value
 or rank), ``sensitivity.csv`` (every simulated study's shrinkage and z-score per look),
 one PNG histogram per SBC quantity (``sbc-<quantity>-look<k>[-rank].png``),
-``prior-predictive.png``, ``sensitivity.png`` and ``tail-accuracy.png``.
+``prior-predictive.png``, ``sensitivity.png``, ``tail-accuracy.png`` and, with design
+priors, ``design-prior-sensitivity.csv`` (the Bayesian operating characteristics under
+alternative design priors).
 """
 
 from __future__ import annotations
@@ -22,8 +24,9 @@ from octrial.reporting import check_figures
 CHECKS_JSON = "checks.json"
 SBC_CSV = "sbc.csv"
 SENSITIVITY_CSV = "sensitivity.csv"
+DESIGN_PRIOR_CSV = "design-prior-sensitivity.csv"
 OWN_FILES = (SBC_CSV, SENSITIVITY_CSV, "prior-predictive.png", "sensitivity.png",
-             "tail-accuracy.png")
+             "tail-accuracy.png", DESIGN_PRIOR_CSV)
 """Files of an earlier check that a new one removes when it does not write them."""
 
 
@@ -75,6 +78,11 @@ def write_outputs(outcome: CheckOutcome, folder: Path) -> list[Path]:
         files["tail-accuracy.png"] = check_figures.png(check_figures.tail_figure(tail))
     if not outcome.sbc.empty:
         files[SBC_CSV] = csv_text(outcome.sbc)
+    rows = (record.get("design_prior_sensitivity") or {}).get("rows")
+    if rows:
+        import pandas as pd
+
+        files[DESIGN_PRIOR_CSV] = csv_text(pd.DataFrame(rows))
     files[CHECKS_JSON] = json_text(plain(record))
     written = [write_atomic(folder / name, data) for name, data in files.items()]
     for stale in [*folder.glob("sbc-*.png"), *(folder / n for n in OWN_FILES)]:
