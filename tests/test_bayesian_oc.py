@@ -393,3 +393,19 @@ def test_design_prior_sensitivity_not_applicable_without_design_prior() -> None:
     from octrial.checks.design_prior_sensitivity import run_design_prior_sensitivity
 
     assert "not_applicable" in run_design_prior_sensitivity(build(ONE_ARM))
+
+
+def test_report_table_of_the_design_prior_sensitivity() -> None:
+    from types import SimpleNamespace
+
+    from octrial.checks.design_prior_sensitivity import run_design_prior_sensitivity
+    from octrial.reporting.tables import BAYESIAN_WORDS, design_prior_sensitivity_table
+
+    design = build(ONE_ARM, arms__treatment__design_prior=BETA_37)
+    entry = run_design_prior_sensitivity(design)
+    table = design_prior_sensitivity_table(SimpleNamespace(checks={
+        "design_prior_sensitivity": entry}))
+    assert [r.cells[0].text for r in table.rows] == [r["variant"] for r in entry["rows"]]
+    for row, source in zip(table.rows, entry["rows"], strict=True):
+        assert [c.value for c in row.cells[2:]] == [source[k] for k, _, _ in BAYESIAN_WORDS]
+    assert design_prior_sensitivity_table(SimpleNamespace(checks=None)) is None

@@ -557,7 +557,9 @@ def build_tables(data: Any) -> Tables:
     return Tables(design=design, rule=[looks_table(data)], boundaries=boundary_tables(data),
                   oc=oc,
                   calibration=calibration_tables(data), checks=checks_tables(data),
-                  bayesian=[t for t in [bayesian_oc_table(data)] if t is not None])
+                  bayesian=[t for t in [bayesian_oc_table(data),
+                                        design_prior_sensitivity_table(data)]
+                            if t is not None])
 
 
 # -- Bayesian operating characteristics ------------------------------------------------------
@@ -613,3 +615,23 @@ def bayesian_oc_table(data: Any) -> Table | None:
     return Table("bayesian-operating-characteristics",
                  "Operating characteristics under the design prior", columns, rows,
                  tuple(notes))
+
+
+def design_prior_sensitivity_table(data: Any) -> Table | None:
+    """checks.json's ``design_prior_sensitivity``: every metric under each alternative
+    design prior (``octrial check``)."""
+    entry = (data.checks or {}).get("design_prior_sensitivity") or {}
+    rows_in = entry.get("rows")
+    if not rows_in:
+        return None
+    columns = (Column("variant", "design prior"), Column("prior", "distribution"),
+               *(Column(key, label, "probability") for key, label, _ in BAYESIAN_WORDS))
+    rows = tuple(_row([r.get("variant"), r.get("design_prior"),
+                       *(r.get(key) for key, _, _ in BAYESIAN_WORDS)], columns)
+                 for r in rows_in)
+    notes = (f"Written by octrial check; the design prior of {entry.get('varied')} varied. "
+             "Sceptical: each component's mean one standard deviation toward the null; "
+             "optimistic: one toward the alternative; vaguer: standard deviation doubled "
+             "(moments matched; see docs/methods.md).",)
+    return Table("design-prior-sensitivity", "Sensitivity to the design prior", columns,
+                 rows, notes)
