@@ -432,17 +432,10 @@ def simulate_split_batch(task: Any) -> dict[str, np.ndarray]:
     Returns counts ``[studies, successes]`` for the null, the alternative and the
     relevant region (a subset of the alternative).
     """
-    from octrial.simulation import GENERAL_KERNELS
-    from octrial.simulation.prior_studies import ASSURANCE_STREAM, PRIOR_DRAWS
+    from octrial.simulation.prior_studies import draw_prior_batch
 
     design, delta = task.design, task.delta
-    placeholder = tuple(0.0 for _ in design.arms)
-    simulator: Any = GENERAL_KERNELS[design.family.name](
-        design, placeholder, design.simulation.interval_level)
-    sequence = np.random.SeedSequence(task.seed, spawn_key=(ASSURANCE_STREAM, task.index))
-    rng = np.random.Generator(np.random.PCG64(sequence))
-    mean, sd = PRIOR_DRAWS[design.family.name](design, rng, task.size)
-    data = simulator.draw(rng, task.size, mean, sd)
+    simulator, mean, data = draw_prior_batch(design, task.seed, task.index, task.size)
     effect = effect_of(design, mean)
     null = effect <= NULL_TOLERANCE  # as the scenarios' is_null
     masks = {"null": null, "alternative": ~null, "relevant": ~null & (effect >= delta)}
