@@ -83,13 +83,25 @@ class Assessment:
 
 
 def bayesian_at(truths: Truths, prob_success: np.ndarray) -> dict[str, Any] | None:
-    """The Bayesian operating characteristics from Pr(success) at every true value
-    (the last axis; ``None`` without design-prior nodes)."""
+    """The Bayesian operating characteristics from Pr(success) at every true value (the
+    last axis; ``None`` without design-prior nodes). A sweep's rows hold, after the null
+    grid and the alternative, the three region integrals themselves (``WEIGHTED``
+    columns: Pr(null and S), Pr(alternative and S), Pr(relevant and S)) rather than one
+    value per node."""
     if truths.prior is None:
         return None
-    from octrial.bayesian_oc import metrics_at
+    from octrial.bayesian_oc import metrics, metrics_at
 
-    return metrics_at(truths.prior, prob_success[..., truths.prior_start:])
+    tail = prob_success[..., truths.prior_start:]
+    if tail.shape[-1] == WEIGHTED and len(truths.values) - truths.prior_start != WEIGHTED:
+        nodes = truths.prior
+        return metrics(tail[..., 0], tail[..., 1], tail[..., 2], nodes.prior_null,
+                       nodes.prior_alt, nodes.prior_relevant)
+    return metrics_at(truths.prior, tail)
+
+
+WEIGHTED = 3
+"""Region integrals a sweep keeps in place of the design-prior nodes."""
 
 
 def assessment(
@@ -300,14 +312,13 @@ class LatticeEvaluator(Evaluator):
         self.chunks = [IncrementTables(design, values[i:i + self.CHUNK])
                        for i in range(0, len(values), self.CHUNK)]
 
-    def _batch(self, design: Design, rule, keep_final: bool = False) -> BatchResult:
+    def _batch(self, design: Design, rule) -> BatchResult:
         """:func:`run_batch` over every true value, a chunk at a time (memory)."""
-        parts = [run_batch(design, rule, inc, keep_final=keep_final) for inc in self.chunks]
+        parts = [run_batch(design, rule, inc) for inc in self.chunks]
         if len(parts) == 1:
             return parts[0]
         return BatchResult(np.concatenate([p.efficacy for p in parts]),
-                           np.concatenate([p.futility for p in parts]),
-                           None if not keep_final else np.concatenate([p.reach for p in parts]),
+                           np.concatenate([p.futility for p in parts]), None,
                            np.concatenate([p.neglected for p in parts]))
 
     def rule(self, design: Design):
@@ -337,17 +348,50 @@ class LatticeEvaluator(Evaluator):
             return np.array([])
         return distinct(np.concatenate([t.ravel() for t in tables]))
 
+    def _final_reach(self, design: Design, rule) -> tuple[np.ndarray, ...]:
+        """Per true value: Pr(success before the last look), the expected size of the
+        interim looks, and the distribution of the counts reaching the final analysis.
+
+        Design-prior nodes are reduced chunk by chunk to their three weighted sums (the
+        region integrals, :data:`WEIGHTED` rows; see :func:`bayesian_at`), so that
+        thousands of nodes never hold a final lattice each."""
+        n = np.asarray(design.looks.n, dtype=float)
+        start = self.truths.prior_start
+        nodes = self.truths.prior
+        early, interim, reach = [], [], []
+        weighted: list[np.ndarray] | None = None
+        done = 0
+        for inc in self.chunks:
+            part = run_batch(design, rule, inc, keep_final=True)
+            e = part.efficacy[:, :-1].sum(axis=1)
+            i = (part.efficacy[:, :-1] + part.futility[:, :-1]) @ n[:-1]
+            r = part.reach.reshape(len(e), -1)
+            rows = np.arange(done, done + len(e))
+            done += len(e)
+            base = rows < start if start is not None else np.ones(len(e), dtype=bool)
+            early.append(e[base])
+            interim.append(i[base])
+            reach.append(r[base])
+            if not base.all():
+                at = rows[~base] - start
+                w = np.stack([nodes.w_null[at], nodes.w_alt[at], nodes.w_relevant[at]])
+                sums = [w @ e[~base], w @ i[~base], w @ r[~base]]
+                weighted = sums if weighted is None else [
+                    a + b for a, b in zip(weighted, sums, strict=True)]
+        if weighted is not None:
+            early.append(weighted[0])
+            interim.append(weighted[1])
+            reach.append(weighted[2])
+        return np.concatenate(early), np.concatenate(interim), np.vstack(reach)
+
     def sweep_final(self, design: Design) -> Sweep | None:
         looks = design.looks
         if any(v is not None for v in looks.futility_predictive[:-1]):
             return None  # interim futility depends on the final threshold
         rule = self.rule(design)
-        result = self._batch(design, rule, keep_final=True)
+        early, interim, reach = self._final_reach(design, rule)
         self.evaluations += 1
-        early = result.efficacy[:, :-1].sum(axis=1)
         n = np.asarray(looks.n, dtype=float)
-        interim = (result.efficacy[:, :-1] + result.futility[:, :-1]) @ n[:-1]
-        reach = result.reach.reshape(len(early), -1)
         expected_n = interim + n[-1] * reach.sum(axis=1)
         if looks.uses_counts:
             counts = np.arange(reach.shape[1])
