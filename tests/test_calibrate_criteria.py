@@ -212,3 +212,28 @@ def test_bad_null_range(value, words) -> None:
     with pytest.raises(InputError) as caught:
         calibrate(build(ONE_ARM), "command line", alpha=0.05, null_range=value)
     assert "--null-range" in str(caught.value) and words in str(caught.value)
+
+
+def test_two_arm_sweep_rows_equal_a_fresh_evaluation_of_each_candidate() -> None:
+    # the sweep keeps only the weighted sums of the design-prior nodes: every logged row
+    # must equal octrial's full quadrature of that candidate (independent node set)
+    from octrial.bayesian_oc import bayesian_record
+    from octrial.design_prior import assurance_record
+    from tests.helpers import TWO_ARM
+
+    priors = dict(arms__treatment__design_prior={"distribution": "beta", "a": 5, "b": 8},
+                  arms__control__design_prior={"distribution": "beta", "a": 3, "b": 7})
+    design = build(TWO_ARM, **priors)
+    found = calibrate(design, alpha=0.1, criterion=["prob_null_given_success<=0.02"])
+    table = found.candidates
+    rows = table[table["step"] == "threshold"].dropna(subset=["prob_success"])
+    picks = rows.iloc[np.linspace(0, len(rows) - 1, 4).astype(int)]
+    for _, row in picks.iterrows():
+        final = float(row["efficacy"].split()[-1])
+        candidate = build(TWO_ARM, **priors, looks__efficacy=[0.99, final])
+        rec = bayesian_record(candidate, assurance_record(candidate))
+        for name in ("prob_success", "average_type1_error", "prob_null_given_success",
+                     "prob_alternative_given_failure"):
+            assert row[name] == pytest.approx(rec[name], abs=1e-9), name
+    chosen = table[table["chosen"]].iloc[0]
+    assert chosen["prob_null_given_success"] <= 0.02 and chosen["type1_error"] <= 0.1
