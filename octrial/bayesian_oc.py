@@ -541,6 +541,8 @@ def bayesian_record(design: Design, assurance: dict[str, Any] | None = None,
     """
     if not has_design_prior(design):
         return None
+    if relevant_effect is None:
+        relevant_effect = design.hypothesis.relevant_effect
     delta = 0.0 if relevant_effect is None else float(relevant_effect)
     common: dict[str, Any] = {
         "null_region": null_definition(design) + " (the boundary counts as null)",

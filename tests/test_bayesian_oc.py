@@ -205,6 +205,21 @@ def test_normal_relevant_region_closed_form() -> None:
     assert rec["bayesian_power"] == pytest.approx(both / stats.norm.sf(delta, m_d, s_d),
                                                   abs=1e-7)
     assert rec["relevant_effect"] == delta
+    # the same from the design file's hypothesis.relevant_effect
+    keyed = build(NORMAL_ONE, looks__n=[n], looks__efficacy=[0.975], endpoint__sd=sd,
+                  hypothesis__relevant_effect=delta,
+                  arms__treatment__prior={"distribution": "normal", "mean": 0.2, "sd": 0.5},
+                  arms__treatment__design_prior={"distribution": "normal", "mean": m_d,
+                                                 "sd": s_d})
+    assert record_of(keyed)["bayesian_power"] == rec["bayesian_power"]
+
+
+def test_relevant_effect_key_rejects_a_negative_value() -> None:
+    from octrial.errors import InputError
+
+    with pytest.raises(InputError) as caught:
+        build(ONE_ARM, hypothesis__relevant_effect=-0.1)
+    assert "hypothesis.relevant_effect" in str(caught.value)
 
 
 def test_normal_identity_posterior_null_given_success() -> None:

@@ -258,7 +258,8 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
             ("counts" if design.looks.uses_counts else "posterior") if search else None),
         stages=stages if stages is not None else (design.looks.count if search else None),
         null_points=null_points, method=settings.get("method"), constraints=constraints,
-        relevant_effect=None if relevant is None else float(relevant),
+        relevant_effect=(design.hypothesis.relevant_effect if relevant is None
+                         else float(relevant)),
         null_range=null_range)
 
 
