@@ -424,3 +424,16 @@ def test_report_table_of_the_design_prior_sensitivity() -> None:
     for row, source in zip(table.rows, entry["rows"], strict=True):
         assert [c.value for c in row.cells[2:]] == [source[k] for k, _, _ in BAYESIAN_WORDS]
     assert design_prior_sensitivity_table(SimpleNamespace(checks=None)) is None
+
+
+def test_simulated_record_is_the_same_for_one_or_two_workers(tmp_path) -> None:
+    # reproducibility (one seed in, the same numbers out whatever --jobs): 3 batches
+    from octrial.bayesian_oc import simulated
+    from octrial.execution import Execution
+
+    design = unknown_single_look()
+    one = simulated(design, 120_000, 5)
+    two = simulated(design, 120_000, 5, execution=Execution(jobs=2,
+                                                            checkpoints=tmp_path / "p"))
+    assert one == two
+    assert one["counts"]["studies"] == 120_000
