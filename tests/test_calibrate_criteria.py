@@ -237,3 +237,33 @@ def test_two_arm_sweep_rows_equal_a_fresh_evaluation_of_each_candidate() -> None
             assert row[name] == pytest.approx(rec[name], abs=1e-9), name
     chosen = table[table["chosen"]].iloc[0]
     assert chosen["prob_null_given_success"] <= 0.02 and chosen["type1_error"] <= 0.1
+
+
+def test_sizing_with_a_bayesian_constraint() -> None:
+    # every N in the sizing curve carries the metrics; the chosen N is the smallest from
+    # which every larger N meets the constraint, checked against brute force per N
+    design = build(SINGLE)
+    found = calibrate(design, vary="n,final", n_range="10:30:5", power=0.5,
+                      alternative=[0.45], criterion=["prob_null_given_success<=0.03"])
+    curve = found.sizing
+    assert curve["prob_null_given_success"].notna().all()
+    chosen = int(curve.loc[curve["chosen"], "n"].iloc[0])
+    for _, row in curve.iterrows():
+        if row["n"] >= chosen:
+            assert row["prob_null_given_success"] <= 0.03 and row["passes"]
+    assert found.design.looks.n[-1] == chosen
+
+
+def test_null_range_assumption_reaches_the_report(tmp_path) -> None:
+    runner = CliRunner()
+    path = tmp_path / "d.toml"
+    path.write_text(dumps(changed(ONE_ARM)))
+    out = tmp_path / "run"
+    assert runner.invoke(main, ["run", str(path), "--out", str(out)]).exit_code == 0
+    result = runner.invoke(main, ["calibrate", str(path), "--alpha", "0.05", "--null-range",
+                                  "0.1:0.2", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "assumption" in result.output
+    assert runner.invoke(main, ["report", str(out)]).exit_code == 0
+    html = (out / "report.html").read_text()
+    assert "(--null-range); outside that range it may be larger" in html
