@@ -31,8 +31,8 @@ tanh-sinh quadrature (Takahasi & Mori 1974) with step halving until two levels a
 difference between the last two levels is the numerical error. Two arms with a design
 prior on each arm: tanh-sinh over the control arm's quantiles and, for each control
 node c, the treatment integral split at the boundary value t*(c) where the effect is 0;
-tanh-sinh in both, halving the step from 1/4 until two levels agree, their difference
-being the error. Errors of the ratios are propagated to first order. On a count lattice
+tanh-sinh in both, halving the step from 1/4 until two levels agree to 1e-9, their
+difference being the error. Errors of the ratios are propagated to first order. On a count lattice
 the probability of success is the exact predictive dynamic programme of
 :mod:`octrial.design_prior` (the quadrature's own total is checked against it).
 
@@ -78,8 +78,12 @@ a truncated count lattice must not be sized for rates at the 1 - 1e-300 quantile
 LOG_TAIL = math.log(TAIL)
 TENSOR_LEVELS = (-2, -1, 0, 1)
 """Tanh-sinh levels (steps 1/4 to 1/32 in t) per piece and arm over two arms' design
-priors, tried in turn until two successive ones agree to :data:`TOLERANCE` (their
+priors, tried in turn until two successive ones agree to :data:`TENSOR_TOLERANCE` (their
 difference is the error estimate)."""
+TENSOR_TOLERANCE = 1e-9
+"""Two arms: each level has four times the true values of the one before (a two-arm
+lattice programme for each), so the halving stops at 1e-9; the change is reported as the
+error (conservative: tanh-sinh roughly squares the error per level)."""
 CHUNK = 2000
 """True values per batched lattice programme (memory)."""
 AGREEMENT = 1e-7
@@ -398,7 +402,7 @@ def quadrature(design: Design, delta: float = 0.0,
             nodes = tensor_nodes(design, generating, level, delta)
             p = success(nodes.truths)
             sums = np.array([p @ nodes.w_null, p @ nodes.w_alt, p @ nodes.w_relevant])
-            if previous is not None and np.max(np.abs(sums - previous)) <= TOLERANCE:
+            if previous is not None and np.max(np.abs(sums - previous)) <= TENSOR_TOLERANCE:
                 break
             previous = sums
         change = np.abs(sums - previous)
@@ -530,6 +534,13 @@ def null_definition(design: Design) -> str:
     return f"{word} ({design.arm_names[0]} vs {design.arm_names[1]}) {side} {h.threshold:g}"
 
 
+def _strict(record: dict[str, Any]) -> dict[str, Any]:
+    """Non-finite numbers (a conditional probability given an impossible event) as
+    ``None``: run.json is strict JSON."""
+    return {k: None if isinstance(v, float) and not math.isfinite(v) else v
+            for k, v in record.items()}
+
+
 def bayesian_record(design: Design, assurance: dict[str, Any] | None = None,
                     relevant_effect: float | None = None,
                     execution: Execution | None = None) -> dict[str, Any] | None:
@@ -581,7 +592,7 @@ def bayesian_record(design: Design, assurance: dict[str, Any] | None = None,
             out["prob_alternative_and_success"] = values["prob_alternative_and_success"]
             out["prior_prob_alternative"] = found.nodes.prior_alt
             out["prior_prob_relevant"] = found.nodes.prior_relevant
-            return out
+            return _strict(out)
         if assurance is None or not assurance.get("replicates"):
             from octrial.simulation.prior_studies import prior_simulation_unsupported
 
@@ -596,7 +607,7 @@ def bayesian_record(design: Design, assurance: dict[str, Any] | None = None,
             out[name] = sim["values"][name]
             out[f"{name}_se"] = sim["se"][name]
         out["prob_alternative_and_success"] = sim["values"]["prob_alternative_and_success"]
-        return out
+        return _strict(out)
     except ValueError as exc:
         return {"unavailable": str(exc), **common}
 
@@ -604,7 +615,7 @@ def bayesian_record(design: Design, assurance: dict[str, Any] | None = None,
 def uncertainty(record: dict[str, Any], name: str) -> float:
     """The metric's standard error or numerical error from a record."""
     for suffix in ("_se", "_error"):
-        if f"{name}{suffix}" in record:
+        if record.get(f"{name}{suffix}") is not None:
             return float(record[f"{name}{suffix}"])
     return math.nan
 

@@ -437,3 +437,16 @@ def test_simulated_record_is_the_same_for_one_or_two_workers(tmp_path) -> None:
                                                             checkpoints=tmp_path / "p"))
     assert one == two
     assert one["counts"]["studies"] == 120_000
+
+
+def test_undefined_conditional_probability_is_null_in_strict_json() -> None:
+    # a rule that never succeeds (30 of 30 responses give Pr(rate > 0.999) = 1 - 0.999^31
+    # < 0.99): Pr(null | success) is undefined (0 / 0)
+    import json
+
+    design = build(ONE_ARM, arms__treatment__design_prior=BETA_37,
+                   hypothesis__benchmark=0.999)
+    rec = record_of(design)
+    assert rec["prob_success"] == pytest.approx(0, abs=1e-15)
+    assert rec["prob_null_given_success"] is None
+    json.dumps(rec, allow_nan=False)

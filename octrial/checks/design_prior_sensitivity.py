@@ -143,7 +143,7 @@ def sensitivity_verdict(entry: dict[str, Any]) -> str:
     rows = entry["rows"]
 
     def spread(name: str) -> str:
-        values = [r[name] for r in rows if r[name] is not None and math.isfinite(r[name])]
+        values = [r[name] for r in rows if r.get(name) is not None]
         return f"{min(values):.4g} to {max(values):.4g}" if values else "not defined"
 
     return (f"over {len(rows)} design priors ({', '.join(r['variant'] for r in rows)}): "

@@ -68,6 +68,8 @@ def bayesian_line(record: dict[str, Any] | None) -> str:
         return ""
 
     def show(name: str) -> str:
+        if record.get(name) is None:
+            return "not defined"
         se = record.get(f"{name}_se")
         return f"{record[name]:.4f}" + (f" (se {se:.4f})" if se is not None else "")
 

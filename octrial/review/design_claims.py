@@ -63,7 +63,8 @@ def design_rows(design: Design, claims: tuple[Claim, ...], record: dict[str, Any
     """verify.csv rows of design-level claims, before the Holm adjustment."""
     simulated = record["method"] == "simulation"
     claimed = np.array([c.claimed for c in claims])
-    recomputed = np.array([float(record[c.metric]) for c in claims])
+    recomputed = np.array([np.nan if record[c.metric] is None else float(record[c.metric])
+                           for c in claims])
     error = np.array([0.0 if simulated else uncertainty(record, c.metric) for c in claims])
     se_r = np.array([uncertainty(record, c.metric) if simulated else 0.0 for c in claims])
     reps = np.array([c.replicates for c in claims], dtype=float)
