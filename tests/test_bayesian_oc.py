@@ -450,3 +450,45 @@ def test_undefined_conditional_probability_is_null_in_strict_json() -> None:
     assert rec["prob_success"] == pytest.approx(0, abs=1e-15)
     assert rec["prob_null_given_success"] is None
     json.dumps(rec, allow_nan=False)
+
+
+@pytest.mark.parametrize("kind, margin", [("superiority", 0.2), ("non-inferiority", 0.25)])
+def test_count_ratio_null_mass_and_total_probability(kind, margin) -> None:
+    # lower is better (counts): the null is rate_T / rate_C >= threshold (1 - d for
+    # superiority, 1 + d for non-inferiority); its design-prior mass by scipy quad of
+    # f_C(c) Pr(rate_T >= threshold c); the law of total probability against the exact
+    # predictive programme
+    from tests.check_designs import COUNT_TWO
+
+    design = build(COUNT_TWO, hypothesis__kind=kind, hypothesis__margin=margin,
+                   arms__treatment__design_prior={"distribution": "gamma", "shape": 8,
+                                                  "rate": 10},
+                   arms__control__design_prior={"distribution": "gamma", "shape": 10,
+                                                "rate": 10})
+    rec = record_of(design)
+    threshold = 1 - margin if kind == "superiority" else 1 + margin
+    t, c = stats.gamma(8, scale=0.1), stats.gamma(10, scale=0.1)
+    q = integrate.quad(lambda u: c.pdf(u) * t.sf(threshold * u), 0, np.inf,
+                       epsabs=1e-13)[0]
+    assert rec["prior_prob_null"] == pytest.approx(q, abs=1e-9)
+    total = rec["prob_null_and_success"] + rec["prob_alternative_and_success"]
+    assert rec["prob_success"] == pytest.approx(total, abs=1e-8)
+
+
+def test_binary_odds_ratio_null_mass() -> None:
+    # odds ratio > 1 + d (superiority, higher better): the null is p_T <= the rate whose
+    # odds are (1 + d) times the control's; mass by scipy quad
+    design = build(TWO_ARM, hypothesis__comparison="odds-ratio", hypothesis__margin=0.5,
+                   arms__treatment__design_prior=BETA_37,
+                   arms__control__design_prior={"distribution": "beta", "a": 2.5, "b": 6.5})
+    rec = record_of(design)
+    t, c = stats.beta(3, 7), stats.beta(2.5, 6.5)
+
+    def boundary(u: float) -> float:
+        odds = 1.5 * u / (1 - u)
+        return odds / (1 + odds)
+
+    q = integrate.quad(lambda u: c.pdf(u) * t.cdf(boundary(u)), 0, 1, epsabs=1e-13)[0]
+    assert rec["prior_prob_null"] == pytest.approx(q, abs=1e-9)
+    total = rec["prob_null_and_success"] + rec["prob_alternative_and_success"]
+    assert rec["prob_success"] == pytest.approx(total, abs=1e-8)
