@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from octrial.bayesian_oc import bayesian_record
 from octrial.design.load import load_design
 from octrial.design.model import Design
 from octrial.design_prior import assurance_record
@@ -53,7 +54,7 @@ def _as_design(design: Design | str | Path) -> Design:
 def compute(
     design: Design | str | Path, method: str | None = None,
     settings: MonteCarloSettings | None = None, execution: Execution | None = None,
-    assurance: bool = True, **options: Any,
+    assurance: bool = True, relevant_effect: float | None = None, **options: Any,
 ) -> Evaluation:
     """Evaluate ``design`` at all its scenarios.
 
@@ -72,6 +73,11 @@ def compute(
     assurance : bool
         Compute the assurance under the design priors (``info['assurance']``); callers
         that do not report it (``octrial verify``) skip it, since it may be simulated.
+        With it come the Bayesian operating characteristics
+        (``info['bayesian_operating_characteristics']``, :mod:`octrial.bayesian_oc`).
+    relevant_effect : float, optional
+        Bayesian power over the clinically relevant region (effect >= this value beyond
+        the null boundary) rather than the whole alternative.
     **options
         Passed to the engine.
 
@@ -102,7 +108,10 @@ def compute(
         "type1": type1_summary(oc),
         "prior_probability_of_claim": design.family.prior_probability_of_claim(design),
         "prior_effective_sample_size": design.family.effective_sample_size(design),
-        "assurance": assurance_record(design, rule, settings, execution) if assurance else None,
+        "assurance": (found := assurance_record(design, rule, settings, execution)
+                      if assurance else None),
+        "bayesian_operating_characteristics": (
+            bayesian_record(design, found, relevant_effect, execution) if assurance else None),
         "scenarios_dropped": design.scenarios.dropped,
     }
     notes = list(dict.fromkeys(str(w.message) for w in caught

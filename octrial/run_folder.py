@@ -48,7 +48,7 @@ REPORT_FILES = ("report.html", "report.pdf", "report-tables")
 what the report would show, so that no report of older results sits beside new ones."""
 
 CHECK_FILES = ("checks.json", "sbc.csv", "sensitivity.csv", "prior-predictive.png",
-               "sensitivity.png", "tail-accuracy.png")
+               "sensitivity.png", "tail-accuracy.png", "design-prior-sensitivity.csv")
 """What ``octrial check`` writes (besides ``sbc-*.png``)."""
 
 CALIBRATION_FILES = ("calibration.json", "calibration.csv", "sizing.csv")

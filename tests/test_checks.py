@@ -432,7 +432,7 @@ def test_check_record_is_reproducible_and_json_ready() -> None:
     assert "verdicts" in json.loads(text)
     checks = {v["check"] for v in first.record["verdicts"]}
     assert checks == {"prior predictive", "simulation-based calibration", "sensitivity",
-                      "tail accuracy", "prior-data conflict"}
+                      "tail accuracy", "prior-data conflict", "design-prior sensitivity"}
 
 
 def test_flat_prior_uses_the_design_prior_where_it_can() -> None:

@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from octrial._version import __version__
+from octrial.bayesian_oc import METRICS, bayesian_record, calibration_nodes
 from octrial.calibration.evaluator import (
     Assessment,
     EngineEvaluator,
@@ -98,7 +99,26 @@ def _figures(design: Design, truths: Truths, a: Assessment) -> str:
     text = f"type I error {a.type1:.4g} at {_where(design, _point(design, truths, a.worst))}"
     if a.power is not None:
         text += f", power {a.power:.4g}"
+    if a.bayesian is not None:
+        text += ", " + ", ".join(f"{k} {a.bayesian[k]:.4g}" for k in METRICS
+                                 if k != "prior_prob_null")
     return text
+
+
+def with_prior_nodes(design: Design, request: Request, truths: Truths) -> Truths:
+    """The null grid (and alternative) with nodes over the design prior appended, when
+    the request has Bayesian constraints (see :mod:`octrial.bayesian_oc`)."""
+    if not request.constraints:
+        return truths
+    delta = request.relevant_effect or 0.0
+    try:
+        nodes = calibration_nodes(design, delta)
+    except ValueError as exc:
+        raise InputError("command line", [Problem(
+            "--criterion", "a design prior the quadrature can integrate over", str(exc))]
+        ) from exc
+    return dataclasses.replace(truths, values=np.vstack([truths.values, nodes.truths]),
+                               prior=nodes, prior_start=len(truths.values))
 
 
 def _describe(choice: Choice) -> str:
@@ -122,10 +142,12 @@ class _Search:
         self.execution = execution
         self.simulation = simulation
         self.builder = Builder(design)
-        self.truths = null_truths(design, request.null_points, request.alternative, extra)
+        self.truths = with_prior_nodes(design, request, null_truths(
+            design, request.null_points, request.alternative, extra, request.null_range))
         self.ev: Evaluator = evaluator_for(design, self.truths, request.method, simulation,
                                            execution, seed_store)
-        self.log = Log(design, self.truths, request.alpha, request.power)
+        self.log = Log(design, self.truths, request.alpha, request.power,
+                       request.constraints)
         self.tuner = Tuner(self.builder, self.ev, request, self.log)
         self.notes: list[str] = []
         self.curve: pd.DataFrame | None = None
@@ -134,12 +156,23 @@ class _Search:
     def fail(self, key: str, expected: str, got: str) -> InputError:
         return InputError(self.source, [Problem(key, expected, got)])
 
+    def constraints_text(self) -> str:
+        """The constraints a candidate must meet, in words."""
+        parts = [] if self.request.alpha is None else [
+            f"type I error <= {self.request.alpha:g}"]
+        return " and ".join(parts + [str(c) for c in self.request.constraints])
+
     # -- the three kinds of search ------------------------------------------------------------
     def thresholds(self) -> Choice:
         choice = self.tuner.tune(self.builder.looks)
         if choice is None:
             raise self.fail("--vary", "values that give a valid design",
                             "no valid candidate (see the design file's [looks])")
+        if not choice.meets_alpha and self.request.constraints:
+            raise self.fail("--criterion", "constraints the design can meet by its "
+                            f"{self.request.calibrated or 'rule'}",
+                            f"{self.constraints_text()} (best found: {_describe(choice)}, "
+                            f"{_figures(self.design, self.truths, choice.assessment)})")
         if not choice.meets_alpha:
             raise self.fail("--alpha", "a type I error the design can meet by its "
                             f"{self.request.calibrated or 'rule'}",
@@ -147,8 +180,7 @@ class _Search:
                             f"{_figures(self.design, self.truths, choice.assessment)})")
         if not choice.meets_power:
             raise self.fail("--power", f"a power the design reaches at N = "
-                            f"{choice.design.looks.n[-1]} with type I error <= "
-                            f"{self.request.alpha:g}",
+                            f"{choice.design.looks.n[-1]} with {self.constraints_text()}",
                             f"{self.request.power:g} (best found: {_describe(choice)}, "
                             f"{_figures(self.design, self.truths, choice.assessment)})")
         return choice
@@ -203,8 +235,8 @@ class _Search:
             rule = ("the smallest N that passes" if self.request.choose == "first" else
                     "the smallest N from which every larger N in the range passes")
             extra = (f"; N = {first} passes but not every larger N does" if first else "")
-            raise self.fail("--n-range", f"a range containing {rule}, with type I error <= "
-                            f"{self.request.alpha:g} and power >= {self.request.power:g}",
+            raise self.fail("--n-range", f"a range containing {rule}, with "
+                            f"{self.constraints_text()} and power >= {self.request.power:g}",
                             f"{lo}:{hi} (best found: {_describe(best)}, "
                             f"{_figures(self.design, self.truths, best.assessment)}{extra})")
         return choices[chosen_n]
@@ -231,8 +263,9 @@ def _check_against_engine(design: Design, truths: Truths, a: Assessment) -> None
     """The chosen design, recomputed by the exact engine (no caches, no batching)."""
     if not isinstance(design.family, LatticeFamily):
         return
-    outcome = ExactLatticeEngine.run(design, truths.values, estimate=False)
-    gap = float(np.max(np.abs(outcome.efficacy.sum(axis=1) - a.prob_success)))
+    rows = len(truths.values) if truths.prior_start is None else truths.prior_start
+    outcome = ExactLatticeEngine.run(design, truths.values[:rows], estimate=False)
+    gap = float(np.max(np.abs(outcome.efficacy.sum(axis=1) - a.prob_success[:rows])))
     if gap > AGREEMENT:
         raise AssertionError(f"calibration fast path and exact engine differ by {gap:g}")
 
@@ -259,7 +292,9 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     **settings
         See :func:`octrial.calibration.request.make_request`: ``alpha`` (required),
         ``power``, ``alternative``, ``vary``, ``n_range``, ``looks``, ``choose``,
-        ``criterion``, ``search``, ``rule``, ``stages``, ``null_points``, ``method``.
+        ``criterion``, ``search``, ``rule``, ``stages``, ``null_points``, ``method``;
+        Bayesian constraints as ``criterion=['prob_null_given_success<=0.05', ...]``
+        (then ``alpha`` is optional) and ``relevant_effect``.
 
     Returns
     -------
@@ -299,8 +334,9 @@ def calibrate(design: Design, source: str = "calibrate()", *,
                 choice = run.thresholds()
         finally:
             run.ev.finish()
-        refined = refine_worst(choice.design, run.truths, choice.assessment)
-        if refined is None or refined.type1 <= request.alpha:
+        refined = refine_worst(choice.design, run.truths, choice.assessment,
+                               request.null_range)
+        if refined is None or request.alpha is None or refined.type1 <= request.alpha:
             break
         # the grid missed a worse point between its nodes: add it and calibrate again
         where = ", ".join(f"{arm} = {v:.6g}" for arm, v in zip(design.arm_names,
@@ -367,6 +403,30 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
                  "futility": r["futility_rule"]} for _, r in table.iterrows()]
     out["assurance"] = assurance_record(design, settings=run.simulation,
                                         execution=run.execution)
+    if request.null_range is not None:
+        arm = design.arm_names[1] if design.two_arm else design.arm_names[0]
+        low, high = request.null_range
+        out["null_range"] = {
+            "arm": arm, "low": low, "high": high,
+            "assumption": (f"The type I error is controlled only for {arm} values from "
+                           f"{low:g} to {high:g} in the null region (--null-range); outside "
+                           "that range it may be larger.")}
+        out["assumptions"] = [out["null_range"]["assumption"]]
+    if request.constraints:
+        out["criteria"] = [str(c) for c in request.constraints]
+        out["relevant_effect"] = request.relevant_effect
+        out["bayesian_at_calibration_nodes"] = a.bayesian
+        out["calibration_nodes"] = truths.prior.description
+        found = out["bayesian_operating_characteristics"] = bayesian_record(
+            design, out["assurance"], request.relevant_effect, run.execution)
+        missed = [str(c) for c in request.constraints
+                  if found and c.name in found and not c.met(found[c.name])]
+        if missed:
+            # met on the calibration's nodes, missed by the full quadrature (a margin
+            # below the nodes' accuracy): say so rather than hide it
+            out["notes"] = [*out["notes"], "by the full quadrature the chosen design "
+                            "misses " + ", ".join(missed) + " (met on the calibration's "
+                            "quadrature nodes); choose a slightly stricter value"]
     if all(arm.prior is not None for arm in design.arms):
         out["prior_probability_of_claim"] = design.family.prior_probability_of_claim(design)
     else:

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -39,7 +40,7 @@ from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.engines.exact_lattice import ExactLatticeEngine
-from octrial.engines.lattice_batch import IncrementTables, run_batch
+from octrial.engines.lattice_batch import BatchResult, IncrementTables, run_batch
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings, replicates_for
 from octrial.execution import Execution
 from octrial.execution.checkpoints import CheckpointStore, kept_seed
@@ -66,6 +67,9 @@ class Assessment:
         At the alternative.
     expected_n_null, expected_n_alternative : float or None
         Expected total sample size at the null reference point and at the alternative.
+    bayesian : dict or None
+        The Bayesian operating characteristics under the design prior (when the truths
+        carry design-prior nodes: Bayesian constraints).
     """
 
     prob_success: np.ndarray
@@ -76,6 +80,29 @@ class Assessment:
     power_se: float
     expected_n_null: float
     expected_n_alternative: float | None
+    bayesian: dict[str, float] | None = None
+
+
+def bayesian_at(truths: Truths, prob_success: np.ndarray) -> dict[str, Any] | None:
+    """The Bayesian operating characteristics from Pr(success) at every true value (the
+    last axis; ``None`` without design-prior nodes). A sweep's rows hold, after the null
+    grid and the alternative, the three region integrals themselves (``WEIGHTED``
+    columns: Pr(null and S), Pr(alternative and S), Pr(relevant and S)) rather than one
+    value per node."""
+    if truths.prior is None:
+        return None
+    from octrial.bayesian_oc import metrics, metrics_at
+
+    tail = prob_success[..., truths.prior_start:]
+    if tail.shape[-1] == WEIGHTED and len(truths.values) - truths.prior_start != WEIGHTED:
+        nodes = truths.prior
+        return metrics(tail[..., 0], tail[..., 1], tail[..., 2], nodes.prior_null,
+                       nodes.prior_alt, nodes.prior_relevant)
+    return metrics_at(truths.prior, tail)
+
+
+WEIGHTED = 3
+"""Region integrals a sweep keeps in place of the design-prior nodes."""
 
 
 def assessment(
@@ -97,6 +124,8 @@ def assessment(
         power_se=0.0 if alt is None else float(se[alt]),
         expected_n_null=float(expected_n[truths.reference]),
         expected_n_alternative=None if alt is None else float(expected_n[alt]),
+        bayesian=None if truths.prior is None else {
+            k: float(v) for k, v in bayesian_at(truths, prob_success).items()},
     )
 
 
@@ -274,17 +303,34 @@ def distinct(values: np.ndarray) -> np.ndarray:
 class LatticeEvaluator(Evaluator):
     """The lattice fast path (see module docstring)."""
 
+    CHUNK = 2000
+    """True values per batched programme (design-prior nodes can number thousands)."""
+
     def __init__(self, truths: Truths, design: Design) -> None:
         super().__init__(truths)
         self.cache = LatticeCache()
-        self.increments = IncrementTables(design, truths.values)
+        values = truths.values
+        self.chunks = [IncrementTables(design, values[i:i + self.CHUNK])
+                       for i in range(0, len(values), self.CHUNK)]
+
+    def _batch(self, design: Design, rule) -> BatchResult:
+        """:func:`run_batch` over every true value, a chunk at a time (memory)."""
+        parts = [run_batch(design, rule, inc) for inc in self.chunks]
+        if len(parts) == 1:
+            return parts[0]
+        return BatchResult(np.concatenate([p.efficacy for p in parts]),
+                           np.concatenate([p.futility for p in parts]), None,
+                           np.concatenate([p.neglected for p in parts]))
 
     def rule(self, design: Design):
         """The candidate's lattice rule, from the shared posterior tables."""
+        if self.truths.prior is not None and getattr(design.family, "truncates", False):
+            # a truncated lattice sized for the design-prior nodes too
+            return build_rule(design, self.cache, truths=self.truths.values)
         return build_rule(design, self.cache)
 
     def assess(self, design: Design) -> Assessment:
-        result = run_batch(design, self.rule(design), self.increments)
+        result = self._batch(design, self.rule(design))
         self.evaluations += 1
         stop = result.efficacy + result.futility
         expected_n = stop @ np.asarray(design.looks.n, dtype=float)
@@ -303,17 +349,50 @@ class LatticeEvaluator(Evaluator):
             return np.array([])
         return distinct(np.concatenate([t.ravel() for t in tables]))
 
+    def _final_reach(self, design: Design, rule) -> tuple[np.ndarray, ...]:
+        """Per true value: Pr(success before the last look), the expected size of the
+        interim looks, and the distribution of the counts reaching the final analysis.
+
+        Design-prior nodes are reduced chunk by chunk to their three weighted sums (the
+        region integrals, :data:`WEIGHTED` rows; see :func:`bayesian_at`), so that
+        thousands of nodes never hold a final lattice each."""
+        n = np.asarray(design.looks.n, dtype=float)
+        start = self.truths.prior_start
+        nodes = self.truths.prior
+        early, interim, reach = [], [], []
+        weighted: list[np.ndarray] | None = None
+        done = 0
+        for inc in self.chunks:
+            part = run_batch(design, rule, inc, keep_final=True)
+            e = part.efficacy[:, :-1].sum(axis=1)
+            i = (part.efficacy[:, :-1] + part.futility[:, :-1]) @ n[:-1]
+            r = part.reach.reshape(len(e), -1)
+            rows = np.arange(done, done + len(e))
+            done += len(e)
+            base = rows < start if start is not None else np.ones(len(e), dtype=bool)
+            early.append(e[base])
+            interim.append(i[base])
+            reach.append(r[base])
+            if not base.all():
+                at = rows[~base] - start
+                w = np.stack([nodes.w_null[at], nodes.w_alt[at], nodes.w_relevant[at]])
+                sums = [w @ e[~base], w @ i[~base], w @ r[~base]]
+                weighted = sums if weighted is None else [
+                    a + b for a, b in zip(weighted, sums, strict=True)]
+        if weighted is not None:
+            early.append(weighted[0])
+            interim.append(weighted[1])
+            reach.append(weighted[2])
+        return np.concatenate(early), np.concatenate(interim), np.vstack(reach)
+
     def sweep_final(self, design: Design) -> Sweep | None:
         looks = design.looks
         if any(v is not None for v in looks.futility_predictive[:-1]):
             return None  # interim futility depends on the final threshold
         rule = self.rule(design)
-        result = run_batch(design, rule, self.increments, keep_final=True)
+        early, interim, reach = self._final_reach(design, rule)
         self.evaluations += 1
-        early = result.efficacy[:, :-1].sum(axis=1)
         n = np.asarray(looks.n, dtype=float)
-        interim = (result.efficacy[:, :-1] + result.futility[:, :-1]) @ n[:-1]
-        reach = result.reach.reshape(len(early), -1)
         expected_n = interim + n[-1] * reach.sum(axis=1)
         if looks.uses_counts:
             counts = np.arange(reach.shape[1])

@@ -52,10 +52,13 @@ def chosen_lines(cal: Calibration) -> list[str]:
 def summary_lines(cal: Calibration) -> list[str]:
     """The printed summary."""
     s = cal.summary
-    out = [f"{cal.original.name}: {s['task']} at alpha = {s['alpha']:g}"
+    limits = ([] if s["alpha"] is None else [f"alpha = {s['alpha']:g}"]) + s.get("criteria", [])
+    out = [f"{cal.original.name}: {s['task']} at {', '.join(limits)}"
            + (f", power >= {s['power_target']:g} at {_where(s['alternative'])}"
               if s["power_target"] is not None else "")]
     out.append(f"  null region searched: {s['null_grid']}")
+    if s.get("null_range"):
+        out.append(f"  assumption: {s['null_range']['assumption']}")
     for line in chosen_lines(cal):
         out.append(f"  chosen: {line}")
     out.append(f"  looks: n = {', '.join(map(str, s['looks_n']))}")
@@ -96,6 +99,12 @@ def summary_lines(cal: Calibration) -> list[str]:
                    f"{a['design_prior_probability_of_claim']:.4f}")
     if claim is not None:
         out.append(f"  prior probability of the claim (analysis prior): {claim:.4f}")
+    bayes = s.get("bayesian_operating_characteristics")
+    if bayes and "prob_success" in bayes:
+        from octrial.bayesian_oc import METRICS
+
+        out.append("  under the design prior: " + ", ".join(
+            f"{k} {bayes[k]:.4g}" for k in METRICS))
     out.append(f"  candidates examined: {s['candidates']} ({s['method']}; "
                f"{count(s['evaluations'], 'evaluation')})")
     if s.get("simulation"):

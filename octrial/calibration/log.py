@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.calibration.evaluator import Assessment
+from octrial.calibration.evaluator import Assessment, bayesian_at
 from octrial.calibration.nulls import Truths
 from octrial.design.model import Design, Looks
 
@@ -36,22 +36,56 @@ def rule_columns(looks: Looks, final: float | None = None) -> dict[str, Any]:
     return out
 
 
-class Log:
-    """Rows of ``calibration.csv``, one per candidate examined."""
+def _metric_names() -> tuple[str, ...]:
+    from octrial.bayesian_oc import METRICS
 
-    def __init__(self, design: Design, truths: Truths, alpha: float,
-                 power: float | None) -> None:
+    return METRICS
+
+
+class Log:
+    """Rows of ``calibration.csv``, one per candidate examined.
+
+    With Bayesian constraints every row also holds every Bayesian operating
+    characteristic of the candidate (columns named as in run.json) and
+    ``meets_criteria``; ``meets_alpha`` is then the frequentist bound alone (true when no
+    ``--alpha`` is given) and ``passes`` needs both.
+    """
+
+    def __init__(self, design: Design, truths: Truths, alpha: float | None,
+                 power: float | None, constraints: tuple = ()) -> None:
         self.design = design
         self.truths = truths
         self.alpha = alpha
         self.power = power
+        self.constraints = constraints
         self.rows: list[dict[str, Any]] = []
 
+    def criteria_met(self, bayesian: dict[str, Any] | None, i: int | None = None) -> bool:
+        """Whether every Bayesian constraint holds (``i``: one candidate of arrays)."""
+        if not self.constraints:
+            return True
+        if bayesian is None:
+            return False
+        return all(c.met(float(bayesian[c.name] if i is None else bayesian[c.name][i]))
+                   for c in self.constraints)
+
     def meets(self, a: Assessment) -> tuple[bool, bool]:
-        """(type I error <= alpha, power >= target) for an assessment."""
-        alpha_ok = a.type1 <= self.alpha
+        """(type I error <= alpha and every Bayesian constraint met, power >= target) for
+        an assessment."""
+        alpha_ok = (self.alpha is None or a.type1 <= self.alpha) and self.criteria_met(
+            a.bayesian)
         power_ok = self.power is None or (a.power is not None and a.power >= self.power)
         return alpha_ok, power_ok
+
+    def _bayesian_columns(self, bayesian: dict[str, Any] | None, i: int | None = None,
+                          ) -> dict[str, Any]:
+        if not self.constraints:
+            return {}
+        names = _metric_names()
+        if bayesian is None:
+            return {**{k: np.nan for k in names}, "meets_criteria": False}
+        return {**{k: float(bayesian[k] if i is None else bayesian[k][i]) for k in names},
+                "meets_criteria": self.criteria_met(bayesian, i)}
 
     def add(
         self, step: str, looks: Looks, a: Assessment | None, final: float | None = None,
@@ -66,9 +100,10 @@ class Log:
                         **{f"type1_at_{arm}": np.nan for arm in arms},
                         "power": np.nan, "power_se": np.nan, "expected_n_null": np.nan,
                         "expected_n_alternative": np.nan, "meets_alpha": False,
-                        "meets_power": False, "passes": False})
+                        "meets_power": False, "passes": False, **self._bayesian_columns(None)})
         else:
-            alpha_ok, power_ok = self.meets(a)
+            ok, power_ok = self.meets(a)
+            alpha_ok = self.alpha is None or a.type1 <= self.alpha
             worst = self.truths.values[a.worst]
             row.update({"type1_error": a.type1, "type1_error_se": a.type1_se,
                         **{f"type1_at_{arm}": float(worst[j]) for j, arm in enumerate(arms)},
@@ -78,7 +113,7 @@ class Log:
                         "expected_n_alternative": np.nan if a.expected_n_alternative is None
                         else a.expected_n_alternative,
                         "meets_alpha": alpha_ok, "meets_power": power_ok,
-                        "passes": alpha_ok and power_ok})
+                        "passes": ok and power_ok, **self._bayesian_columns(a.bayesian)})
         row["chosen"] = False
         row["note"] = note
         self.rows.append(row)
@@ -99,9 +134,11 @@ class Log:
         type1 = null[np.arange(len(values)), worst]
         alt = truths.alternative
         power = prob[:, alt] if alt is not None else np.full(len(values), np.nan)
-        alpha_ok = type1 <= self.alpha
+        alpha_ok = (np.ones(len(values), dtype=bool) if self.alpha is None
+                    else type1 <= self.alpha)
         power_ok = (np.ones(len(values), dtype=bool) if self.power is None
                     else power >= self.power)
+        bayesian = bayesian_at(truths, prob)
         arms = self.design.arm_names
         en_alt = np.nan if alt is None else float(expected_n[alt])
         for i, value in enumerate(values):
@@ -114,9 +151,19 @@ class Log:
                         "expected_n_null": float(expected_n[truths.reference]),
                         "expected_n_alternative": en_alt,
                         "meets_alpha": bool(alpha_ok[i]), "meets_power": bool(power_ok[i]),
-                        "passes": bool(alpha_ok[i] and power_ok[i]), "chosen": False,
+                        "passes": bool(alpha_ok[i] and power_ok[i]
+                                       and self.criteria_met(bayesian, i)),
+                        **self._bayesian_columns(bayesian, i), "chosen": False,
                         "note": ""})
             self.rows.append(row)
+
+    def acceptable(self, type1: np.ndarray, prob: np.ndarray) -> np.ndarray:
+        """Per candidate of a sweep (rows of ``prob``): alpha and every constraint met."""
+        ok = np.ones(len(type1), dtype=bool) if self.alpha is None else type1 <= self.alpha
+        if self.constraints:
+            bayesian = bayesian_at(self.truths, prob)
+            ok &= np.array([self.criteria_met(bayesian, i) for i in range(len(type1))])
+        return ok
 
     def choose(self, candidate: int) -> None:
         """Mark the chosen candidate."""

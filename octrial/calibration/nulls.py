@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -43,6 +44,11 @@ class Truths:
         Row of the alternative.
     description : str
         The null grid in words, for summaries.
+    prior : PriorNodes or None
+        Nodes over the design prior (:mod:`octrial.bayesian_oc`) appended as the last
+        rows, for Bayesian constraints; ``None`` otherwise.
+    prior_start : int or None
+        Row of the first of them.
     """
 
     values: np.ndarray
@@ -50,6 +56,8 @@ class Truths:
     reference: int
     alternative: int | None
     description: str
+    prior: Any = None
+    prior_start: int | None = None
 
 
 def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> float:
@@ -85,6 +93,7 @@ def control_range(design: Design) -> tuple[float, float]:
 def null_truths(
     design: Design, points: int = 50, alternative: tuple[float, ...] | None = None,
     extra: tuple[tuple[float, ...], ...] = (),
+    null_range: tuple[float, float] | None = None,
 ) -> Truths:
     """The null grid of ``design`` (see module docstring), with the alternative appended.
 
@@ -98,12 +107,35 @@ def null_truths(
         Appended as the last row.
     extra : tuple of tuple of float
         Further null points (worst points found by refinement).
+    null_range : (float, float), optional
+        Limit the null region to these treatment values (one arm) or control values (two
+        arms, along the null boundary); the design's own null scenarios outside it are
+        left out too.
     """
     family, h = design.family, design.hypothesis
     scenario = np.array(design.scenarios.values, dtype=float)
     own_nulls = [tuple(t) for t in scenario if family.is_null(h, tuple(t))]
     own_nulls += [tuple(round(v, DECIMALS) for v in t) for t in extra]
-    if not design.two_arm:
+    if null_range is not None:
+        axis = 1 if design.two_arm else 0
+        own_nulls = [t for t in own_nulls
+                     if null_range[0] - 1e-12 <= t[axis] <= null_range[1] + 1e-12]
+    if not design.two_arm and null_range is not None:
+        b = float(h.benchmark)
+        worse = -h.sign
+        near = min(null_range[1], b) if worse < 0 else max(null_range[0], b)
+        far = null_range[0] if worse < 0 else null_range[1]
+        lo_p, hi_p = design.family.parameter_range
+        far = min(max(far, lo_p), hi_p)
+        steps = max(points - 1, 1)
+        grid = [(round(near + (far - near) * i / steps, DECIMALS),) for i in range(points)]
+        grid = [g for g in grid if family.true_value_problem(g[0]) is None] or [(near,)]
+        rows = sorted(set(grid) | set(own_nulls), key=lambda t: -worse * t[0])
+        reference = rows.index((b,)) if (b,) in rows else 0
+        text = (f"{len(rows)} points, {design.arm_names[0]} from {min(r[0] for r in rows):.6g}"
+                f" to {max(r[0] for r in rows):.6g} (benchmark {b:g}; null region limited "
+                f"to {null_range[0]:g}..{null_range[1]:g})")
+    elif not design.two_arm:
         b = float(h.benchmark)
         worse = -h.sign
         span = _span(design, scenario[:, 0], b, worse)
@@ -117,8 +149,11 @@ def null_truths(
     else:
         offset = h.sign * h.shift  # treatment = control + offset on the null boundary
         c_lo, c_hi = control_range(design)
+        if null_range is not None:
+            c_lo, c_hi = max(c_lo, null_range[0]), min(c_hi, null_range[1])
         wanted = [c_lo + (c_hi - c_lo) * (i + 0.5) / points for i in range(points)]
-        if alternative is not None:
+        if alternative is not None and (null_range is None or null_range[0] <= alternative[1]
+                                        <= null_range[1]):
             wanted.append(alternative[1])
         grid = []
         for c in wanted:
@@ -133,7 +168,10 @@ def null_truths(
         text = (f"{len(rows)} points on the null boundary ({design.arm_names[0]} = "
                 f"{design.arm_names[1]} {'+' if offset >= 0 else '-'} {abs(offset):g}), "
                 f"{design.arm_names[1]} from {min(r[1] for r in rows):.6g} to "
-                f"{max(r[1] for r in rows):.6g}, plus the design's null scenarios")
+                f"{max(r[1] for r in rows):.6g}, plus the design's null scenarios"
+                + ("" if null_range is None else
+                   f" (null region limited to {design.arm_names[1]} in "
+                   f"{null_range[0]:g}..{null_range[1]:g})"))
     values = np.array(rows, dtype=float)
     alt_row = None
     if alternative is not None:

@@ -36,11 +36,13 @@ class Refined:
     point: tuple[float, ...]
 
 
-def refine_worst(design: Design, truths: Truths, a: Assessment) -> Refined | None:
+def refine_worst(design: Design, truths: Truths, a: Assessment,
+                 span: tuple[float, float] | None = None) -> Refined | None:
     """Refine the worst null point of ``design`` along the null boundary line.
 
     Returns ``None`` for one arm and for endpoints without a lattice (nothing to refine
-    cheaply); otherwise the refined maximum (at least the grid's).
+    cheaply); otherwise the refined maximum (at least the grid's). ``span`` limits the
+    control values searched (``--null-range``).
     """
     if not design.two_arm or not isinstance(design.family, LatticeFamily):
         return None
@@ -55,6 +57,8 @@ def refine_worst(design: Design, truths: Truths, a: Assessment) -> Refined | Non
     # the range the grid searched, finite even where the parameter's is not (a count
     # rate): a worst point at the grid's edge is refined up to that edge, not beyond
     c_lo, c_hi = control_range(design)
+    if span is not None:
+        c_lo, c_hi = max(c_lo, span[0]), min(c_hi, span[1])
     rule = build_rule(design)
 
     def type1(c: float) -> float:

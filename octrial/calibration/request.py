@@ -8,6 +8,7 @@ the option names as keys); the search code trusts the resulting :class:`Request`
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -28,6 +29,34 @@ CRITERIA = ("power", "optimal")
 SEARCHES = ("optimal", "minimax")
 RULES = ("counts", "posterior")
 MAX_NULL_POINTS = 2000
+CONSTRAINT = re.compile(r"^\s*([A-Za-z_0-9]+)\s*(<=|>=)\s*([^\s]+)\s*$")
+"""A Bayesian constraint as written on the command line: ``NAME<=VALUE`` or ``NAME>=VALUE``."""
+
+
+@dataclass(frozen=True)
+class Constraint:
+    """A constraint on one Bayesian operating characteristic (:mod:`octrial.bayesian_oc`).
+
+    Attributes
+    ----------
+    name : str
+        One of :data:`octrial.bayesian_oc.METRICS`.
+    op : {'<=', '>='}
+    value : float
+    """
+
+    name: str
+    op: str
+    value: float
+
+    def met(self, found: float) -> bool:
+        """Whether ``found`` satisfies the constraint (a missing value never does)."""
+        if not math.isfinite(found):
+            return False
+        return found <= self.value if self.op == "<=" else found >= self.value
+
+    def __str__(self) -> str:
+        return f"{self.name} {self.op} {self.value:g}"
 
 
 @dataclass(frozen=True)
@@ -36,8 +65,9 @@ class Request:
 
     Attributes
     ----------
-    alpha : float
-        Largest acceptable type I error over the null region.
+    alpha : float or None
+        Largest acceptable type I error over the null region (``None``: only the
+        Bayesian constraints bind).
     power : float or None
         Target power at ``alternative``.
     alternative : tuple of float or None
@@ -65,9 +95,19 @@ class Request:
         Points of the grid over the null region (each axis).
     method : str or None
         Engine method override.
+    constraints : tuple of Constraint
+        Bounds on Bayesian operating characteristics under the design prior
+        (``--criterion NAME<=VALUE``), met together with ``alpha`` when both are given.
+    relevant_effect : float or None
+        Bayesian power over effect >= this value beyond the null boundary.
+    null_range : tuple of float or None
+        (low, high): the composite null region searched for the maximum type I error is
+        limited to these values of the treatment arm (one arm) or of the control arm on
+        the null boundary (two arms); an assumption the summary states. ``None``: the
+        whole null region.
     """
 
-    alpha: float
+    alpha: float | None
     power: float | None = None
     alternative: tuple[float, ...] | None = None
     vary: tuple[str, ...] = ("final",)
@@ -80,6 +120,9 @@ class Request:
     stages: int | None = None
     null_points: int = 50
     method: str | None = None
+    constraints: tuple[Constraint, ...] = ()
+    relevant_effect: float | None = None
+    null_range: tuple[float, float] | None = None
 
     @property
     def calibrated(self) -> str | None:
@@ -138,7 +181,9 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
         ``alpha``, ``power``, ``alternative`` (sequence of numbers, or comma-separated
         text), ``vary`` (sequence or comma-separated text), ``n_range`` (``'MIN:MAX[:STEP]'``),
         ``looks``, ``choose``, ``criterion``, ``search``, ``rule``, ``stages``,
-        ``null_points``, ``method``.
+        ``null_points``, ``method``; ``criterion`` may also hold (a sequence of) Bayesian
+        constraints ``'NAME<=VALUE'`` (see :func:`parse_criteria`), with
+        ``relevant_effect``; ``alpha`` is then optional.
 
     Raises
     ------
@@ -147,14 +192,27 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     """
     problems = Problems()
     known = {"alpha", "power", "alternative", "vary", "n_range", "looks", "choose", "criterion",
-             "search", "rule", "stages", "null_points", "method"}
+             "search", "rule", "stages", "null_points", "method", "relevant_effect",
+             "null_range"}
     for key in settings:
         if key not in known:
             problems.add(key, "one of " + ", ".join(sorted(known)), Phrase("an unknown setting"))
+    pick, constraints = parse_criteria(problems, settings.get("criterion"))
+    settings = {**settings, "criterion": pick}
     alpha = _probability(problems, "--alpha", settings.get("alpha"), "a type I error")
-    if settings.get("alpha") is None:
-        problems.add("--alpha", "a type I error strictly between 0 and 1",
+    if settings.get("alpha") is None and not constraints:
+        problems.add("--alpha", "a type I error strictly between 0 and 1 (or Bayesian "
+                     "constraints with --criterion NAME<=VALUE)",
                      Phrase("nothing (the option is required)"))
+    relevant = settings.get("relevant_effect")
+    if relevant is not None and (not isinstance(relevant, int | float) or isinstance(
+            relevant, bool) or not math.isfinite(relevant) or relevant < 0):
+        problems.add("--relevant-effect", "a number >= 0 (effect beyond the null boundary)",
+                     relevant)
+        relevant = None
+    if constraints:
+        _constraints_fit(problems, design, settings)
+    null_range = _null_range(problems, design, settings.get("null_range"))
     power = _probability(problems, "--power", settings.get("power"), "a target power")
     alternative = _alternative(problems, design, settings.get("alternative"))
 
@@ -199,7 +257,100 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
         search=search, rule=settings.get("rule") or (
             ("counts" if design.looks.uses_counts else "posterior") if search else None),
         stages=stages if stages is not None else (design.looks.count if search else None),
-        null_points=null_points, method=settings.get("method"))
+        null_points=null_points, method=settings.get("method"), constraints=constraints,
+        relevant_effect=(design.hypothesis.relevant_effect if relevant is None
+                         else float(relevant)),
+        null_range=null_range)
+
+
+def _null_range(problems: Problems, design: Design, raw: Any) -> tuple[float, float] | None:
+    """``'LOW:HIGH'`` or a (low, high) pair, meeting the null region of ``design``."""
+    if raw is None:
+        return None
+    arm = design.arm_names[1] if design.two_arm else design.arm_names[0]
+    expected = (f"LOW:HIGH, two numbers LOW < HIGH: the {arm} arm's true values the null "
+                "region is limited to")
+    parts = raw.split(":") if isinstance(raw, str) else raw
+    try:
+        low, high = (float(str(v).strip()) for v in parts)
+    except (TypeError, ValueError):
+        problems.add("--null-range", expected, raw)
+        return None
+    if not (math.isfinite(low) and math.isfinite(high) and low < high):
+        problems.add("--null-range", expected, raw)
+        return None
+    lo, hi = design.family.parameter_range
+    h = design.hypothesis
+    if not design.two_arm:
+        # the null side of the benchmark (boundary included)
+        lo, hi = (lo, h.benchmark) if h.sign > 0 else (h.benchmark, hi)
+        where = f"the null region ({design.family.parameter} {h.better} than "
+        where = where.replace(h.better, "no " + h.better) + f"{h.benchmark:g})"
+    else:
+        where = f"the range of the control {design.family.parameter} ({lo:g}, {hi:g})"
+    if high < lo or low > hi:
+        problems.add("--null-range", f"a range that meets {where}", raw)
+        return None
+    return low, high
+
+
+def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Constraint, ...]]:
+    """Split ``--criterion`` values into the grid searches' pick rule ('power' or
+    'optimal', at most one) and Bayesian constraints ``NAME<=VALUE`` / ``NAME>=VALUE``
+    with NAME a Bayesian operating characteristic and VALUE in [0, 1]."""
+    from octrial.bayesian_oc import METRICS
+
+    if raw is None:
+        return None, ()
+    items = [raw] if isinstance(raw, str) else list(raw)
+    pick: str | None = None
+    found: list[Constraint] = []
+    expected = ("'power' or 'optimal' (how grid searches pick), or NAME<=VALUE / "
+                "NAME>=VALUE with NAME one of " + ", ".join(METRICS) + " and VALUE in [0, 1]")
+    for item in items:
+        text = str(item)
+        if text in CRITERIA:
+            if pick is not None and pick != text:
+                problems.add("--criterion", "at most one of 'power' and 'optimal'", text)
+            pick = text
+            continue
+        match = CONSTRAINT.match(text)
+        if match is None:
+            problems.add("--criterion", expected, text)
+            continue
+        name, op, value = match.groups()
+        if name not in METRICS:
+            problems.add("--criterion", "a Bayesian operating characteristic: one of "
+                         + ", ".join(METRICS), name)
+            continue
+        try:
+            number = float(value)
+        except ValueError:
+            number = math.nan
+        if not 0 <= number <= 1:
+            problems.add("--criterion", f"a probability in [0, 1] after {op}", text)
+            continue
+        found.append(Constraint(name, op, number))
+    return pick, tuple(dict.fromkeys(found))
+
+
+def _constraints_fit(problems: Problems, design: Design, settings: dict[str, Any]) -> None:
+    """Bayesian constraints need design priors and an exact engine to integrate."""
+    from octrial.bayesian_oc import exact_engine_applies
+    from octrial.design_prior import has_design_prior, on_effect
+
+    if not has_design_prior(design):
+        where = ("hypothesis.design_prior" if on_effect(design) else
+                 ", ".join(f"arms.{a}.design_prior" for a in design.arm_names))
+        problems.add("--criterion", f"a design with a design prior ({where}) for "
+                     "Bayesian constraints", Phrase("a design without one"))
+    elif settings.get("method") == "monte-carlo" or not exact_engine_applies(design):
+        problems.add("--criterion", "a design an exact engine evaluates (Bayesian "
+                     "constraints integrate its exact OC curve over the design prior)",
+                     Phrase(f"{design.family.name} endpoint evaluated by simulation"))
+    if settings.get("search") is not None:
+        problems.add("--criterion", "--vary (thresholds or n) for Bayesian constraints, not "
+                     "a stage search", Phrase(f"--search {settings['search']}"))
 
 
 def vary_needs_alternative(vary: tuple[str, ...]) -> bool:

@@ -125,7 +125,9 @@ class Tuner:
     def _from_sweep(self, looks, base, turn, sweep, step) -> Choice:
         self.log.add_sweep(step, base.looks, sweep.values, sweep.prob_success, sweep.expected_n)
         type1 = sweep.prob_success[:, : self.ev.truths.nulls].max(axis=1)
-        feasible = np.flatnonzero(type1 <= self.request.alpha)
+        # every candidate is at hand: the least stringent meeting every constraint, even
+        # where a constraint (Pr(null | success)) is not monotone in the threshold
+        feasible = np.flatnonzero(self.log.acceptable(type1, sweep.prob_success))
         index = len(sweep.values) - 1 if feasible.size == 0 else int(feasible[0])
         return self._finish(looks, base, turn, sweep.values, index, step)
 
@@ -137,8 +139,15 @@ class Tuner:
                 design, a, _ = self._try(turn.apply(looks, base, float(values[i])), step)
                 cache[i] = (design, a)
             a = cache[i][1]
-            return a is not None and a.type1 <= self.request.alpha
+            return a is not None and self.log.meets(a)[0]
 
+        if not monotone(self.request):
+            # a constraint that need not be monotone in the threshold: every candidate
+            # from the least stringent until one meets them all
+            for i in range(len(values)):
+                if ok(i):
+                    return self._finish(looks, base, turn, values, i, step)
+            return self._finish(looks, base, turn, values, len(values) - 1, step)
         hi = len(values) - 1
         if not ok(hi):
             return self._finish(looks, base, turn, values, hi, step)
@@ -190,7 +199,7 @@ class Tuner:
 
         def ok(value: float) -> bool:
             a = self._try(turn.apply(looks, base, value), step)[1]
-            return a is not None and a.type1 <= self.request.alpha
+            return a is not None and self.log.meets(a)[0]
 
         if not ok(most):
             value = most
@@ -256,6 +265,17 @@ class Tuner:
             return max(passing, key=lambda c: (round(c.assessment.power or 0.0, 12),
                                                -c.assessment.expected_n_null))
         return best_failing(found)
+
+
+NOT_MONOTONE = ("prob_null_given_success", "prob_alternative_given_failure")
+"""Bayesian operating characteristics that need not move monotonically with a threshold
+(ratios of two monotone probabilities); the others do, as the probability of success
+does at every true value."""
+
+
+def monotone(request: Request) -> bool:
+    """Whether every constraint of ``request`` moves monotonically with a threshold."""
+    return not any(c.name in NOT_MONOTONE for c in request.constraints)
 
 
 def best_failing(found: list[Choice]) -> Choice:

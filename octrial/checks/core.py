@@ -17,6 +17,10 @@ import pandas as pd
 from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.checks.conflict import run_conflict
+from octrial.checks.design_prior_sensitivity import (
+    run_design_prior_sensitivity,
+    sensitivity_verdict,
+)
 from octrial.checks.model import model_for
 from octrial.checks.predictive import Predictive
 from octrial.checks.prior_predictive import run_prior_predictive
@@ -113,6 +117,9 @@ def check(design: Design | str | Path, settings: CheckSettings | None = None) ->
             record["tail_accuracy"] = run_tail_accuracy(model, settings)
         elif name == "conflict":
             record["conflict"] = run_conflict(design)
+        elif name == "design-prior":
+            record["design_prior_sensitivity"] = run_design_prior_sensitivity(
+                design, settings.seed)
         timings[name] = time.perf_counter() - tic
     record["timings_seconds"] = timings
     record["verdicts"] = verdicts(record)
@@ -187,4 +194,12 @@ def verdicts(record: dict[str, Any]) -> list[dict[str, Any]]:
                      f"{worst['drift']:+.4g} (the most), "
                      f"{min(r[final] for r in rows):.1%} at the least; "
                      f"{conflict['decision_note']}")
+    entry = record.get("design_prior_sensitivity")
+    if entry is not None:
+        if "not_applicable" in entry:
+            line("design-prior sensitivity", "design prior", "not applicable",
+                 entry["not_applicable"])
+        else:
+            line("design-prior sensitivity", entry["varied"], "report",
+                 sensitivity_verdict(entry))
     return out

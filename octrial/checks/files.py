@@ -3,9 +3,11 @@
 ``checks.json`` (every verdict and number), ``sbc.csv`` (every simulated study's CDF value
 or rank), ``sensitivity.csv`` (every simulated study's shrinkage and z-score per look),
 one PNG histogram per SBC quantity (``sbc-<quantity>-look<k>[-rank].png``),
-``prior-predictive.png``, ``sensitivity.png`` and ``tail-accuracy.png``. ``checks.json``
-records the SHA-256 of the others (``file_sha256``), so that a report can tell they are
-this check's (:mod:`octrial.run_folder`).
+``prior-predictive.png``, ``sensitivity.png``, ``tail-accuracy.png`` and, with design
+priors, ``design-prior-sensitivity.csv`` (the Bayesian operating characteristics under
+alternative design priors). ``checks.json`` records the SHA-256 of the others
+(``file_sha256``), so that a report can tell they are this check's
+(:mod:`octrial.run_folder`).
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from octrial.run_folder import REPORT_FILES, SEAL, is_check_file, seal, write_fo
 CHECKS_JSON = "checks.json"
 SBC_CSV = "sbc.csv"
 SENSITIVITY_CSV = "sensitivity.csv"
+DESIGN_PRIOR_CSV = "design-prior-sensitivity.csv"
 
 
 def plain(value: Any) -> Any:
@@ -77,6 +80,11 @@ def write_outputs(outcome: CheckOutcome, folder: Path) -> list[Path]:
         files["tail-accuracy.png"] = check_figures.png(check_figures.tail_figure(tail))
     if not outcome.sbc.empty:
         files[SBC_CSV] = csv_text(outcome.sbc)
+    rows = (record.get("design_prior_sensitivity") or {}).get("rows")
+    if rows:
+        import pandas as pd
+
+        files[DESIGN_PRIOR_CSV] = csv_text(pd.DataFrame(rows))
     record[SEAL] = seal(files)
     files[CHECKS_JSON] = json_text(plain(record))
     return write_folder(folder, files, drop=lambda name: (

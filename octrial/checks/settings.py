@@ -14,7 +14,8 @@ import numpy as np
 from octrial.design.reader import suggest
 from octrial.errors import InputError, Problem, show
 
-CHECKS = ("prior-predictive", "sbc", "sensitivity", "tail-accuracy", "conflict")
+CHECKS = ("prior-predictive", "sbc", "sensitivity", "tail-accuracy", "conflict",
+          "design-prior")
 """The checks ``octrial check`` runs, in order."""
 
 SEED_BITS = 63

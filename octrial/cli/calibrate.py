@@ -7,9 +7,10 @@ from pathlib import Path
 
 import click
 
+from octrial.bayesian_oc import METRICS
 from octrial.calibration import calibrate
 from octrial.calibration.files import calibrated_toml, record, summary_lines
-from octrial.calibration.request import CRITERIA, LOOK_RULES, RULES, SEARCHES, SIZING_RULES
+from octrial.calibration.request import LOOK_RULES, RULES, SEARCHES, SIZING_RULES
 from octrial.caution import CAUTION
 from octrial.cli.common import (
     SimulationOptions,
@@ -28,7 +29,8 @@ from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
 @click.command("calibrate", epilog=f"Caution: {CAUTION}")
 @design_argument
 @click.option("--alpha", type=float, default=None,
-              help="Largest type I error allowed anywhere in the null region (required).")
+              help="Largest type I error allowed anywhere in the null region (required "
+                   "unless --criterion gives Bayesian constraints).")
 @click.option("--power", type=float, default=None,
               help="Target power at --alternative (needed for sizing and searches).")
 @click.option("--alternative", default=None, metavar="VALUE[,VALUE]",
@@ -45,9 +47,15 @@ from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
 @click.option("--choose", type=click.Choice(SIZING_RULES), default=None,
               help="Sizing rule: the smallest N that passes, or (default) the smallest N "
                    "from which every larger N in the range passes.")
-@click.option("--criterion", type=click.Choice(CRITERIA), default=None,
-              help="Grid searches: largest power, or smallest expected N under the null "
-                   "(default when --power is given).")
+@click.option("--criterion", "criterion", multiple=True, metavar="RULE|NAME<=VALUE",
+              help="Repeatable. 'power' or 'optimal': how grid searches pick (largest "
+                   "power, or smallest expected N under the null, the default when --power "
+                   "is given). NAME<=VALUE or NAME>=VALUE: a constraint on a Bayesian "
+                   "operating characteristic under the design prior (" + ", ".join(METRICS)
+                   + "), met together with --alpha when both are given.")
+@click.option("--relevant-effect", "relevant_effect", type=float, default=None,
+              help="Bayesian power over the clinically relevant region: effect at least "
+                   "this far beyond the null boundary [default: the whole alternative].")
 @click.option("--search", type=click.Choice(SEARCHES), default=None,
               help="Stage search by Simon's criteria: optimal (smallest expected N under "
                    "the null) or minimax (smallest maximum N).")
@@ -56,6 +64,12 @@ from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
                    "[default: as the design states its rule].")
 @click.option("--stages", type=int, default=None,
               help="Stage search: number of looks [default: the design's].")
+@click.option("--null-range", "null_range", default=None, metavar="LOW:HIGH",
+              help="Limit the null region searched for the maximum type I error to these "
+                   "true values of the treatment arm (one arm) or of the control arm on the "
+                   "null boundary (two arms), e.g. control drift within +-0.1 of a "
+                   "historical estimate; stated as an assumption [default: the whole null "
+                   "region].")
 @click.option("--null-points", "null_points", type=int, default=None,
               help="Points of the grid over the null region [default: 50].")
 @click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
@@ -69,7 +83,10 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
     """Calibrate DESIGN: thresholds, sample size or a multi-stage search.
 
     Finds the least stringent threshold (--vary final or efficacy) whose type I error
-    is at most --alpha everywhere on a grid over the null region, optionally with futility
+    is at most --alpha everywhere on a grid over the null region (and that meets every
+    Bayesian constraint --criterion NAME<=VALUE under the design prior, e.g.
+    prob_null_given_success<=0.05; calibration.csv then shows every Bayesian operating
+    characteristic of every candidate), optionally with futility
     or eta searched on a grid; with --vary n, the maximum sample size meeting --alpha and
     --power (the whole saw-tooth curve is written); with --search, the optimal or minimax
     multi-stage design. Writes calibration.csv (every candidate examined), sizing.csv
@@ -87,7 +104,7 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
     """
     started = now()
     loaded = read_design(design)
-    settings = {k: v for k, v in options.items() if v is not None}
+    settings = {k: v for k, v in options.items() if v is not None and v != ()}
     folder = Path(out) if out else default_out(loaded)
     execution = simulation.execution(folder)
     with resumable(execution):

@@ -58,7 +58,26 @@ def assurance_line(info: dict[str, Any]) -> str:
                      f"{found['probability']:.4f}{se}, expected N {found['expected_n']:.2f}; "
                      f"Pr(claim true) under the design prior "
                      f"{found['design_prior_probability_of_claim']:.4f}.")
-    return " ".join(parts)
+    bayes = bayesian_line(info.get("bayesian_operating_characteristics"))
+    return " ".join(parts) + (f"\n{bayes}" if bayes else "")
+
+
+def bayesian_line(record: dict[str, Any] | None) -> str:
+    """One sentence on the Bayesian operating characteristics under the design prior."""
+    if not record or "prob_success" not in record:
+        return ""
+
+    def show(name: str) -> str:
+        if record.get(name) is None:
+            return "not defined"
+        se = record.get(f"{name}_se")
+        return f"{record[name]:.4f}" + (f" (se {se:.4f})" if se is not None else "")
+
+    return (f"Under the design prior ({record['method']}): Pr(null) {show('prior_prob_null')}, "
+            f"average type I error {show('average_type1_error')}, Bayesian power "
+            f"{show('bayesian_power')}, Pr(null | success) "
+            f"{show('prob_null_given_success')}, Pr(alternative | no success) "
+            f"{show('prob_alternative_given_failure')}.")
 
 
 def prior_size_lines(sizes: dict[str, Any] | None) -> list[str]:

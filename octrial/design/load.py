@@ -146,14 +146,17 @@ def _read_hypothesis(
     table = top.table("hypothesis")
     if table is None or family is None or better is None:
         return None
+    relevant = table.number("relevant_effect", required=False, check=lambda v: v >= 0,
+                            expected="a number >= 0 (the clinically relevant effect beyond "
+                                     "the null boundary, for Bayesian power)")
     if not two_arm:
-        table.allow("benchmark")
+        table.allow("benchmark", "relevant_effect")
         benchmark = table.number("benchmark")
         if benchmark is not None and (problem := family.true_value_problem(benchmark)):
             table.fail("benchmark", problem, benchmark)
-        return Hypothesis(better, benchmark=benchmark)
-    table.allow("comparison", "margin", "kind", *(("prior", "design_prior") if on_effect
-                                                  else ()))
+        return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)
+    table.allow("comparison", "margin", "kind", "relevant_effect",
+                *(("prior", "design_prior") if on_effect else ()))
     comparison = table.string("comparison", family.comparisons, required=False,
                               default=family.comparisons[0])
     kind = table.string("kind", ("superiority", "non-inferiority"), required=False,
@@ -164,7 +167,8 @@ def _read_hypothesis(
     prior, design_prior = (_read_prior(table, key, family) if on_effect else None
                            for key in ("prior", "design_prior"))
     hypothesis = Hypothesis(better, comparison=comparison, margin=margin or 0.0,
-                            kind=kind or "superiority", prior=prior, design_prior=design_prior)
+                            kind=kind or "superiority", prior=prior, design_prior=design_prior,
+                            relevant_effect=relevant)
     if comparison is not None and margin is not None and (
             problem := family.margin_problem(hypothesis)):
         table.fail("margin", problem, margin)

@@ -46,6 +46,10 @@ class Hypothesis:
     prior, design_prior : object or None
         Two arms, families whose prior is on the effect itself (normal endpoint with known
         sd): the analysis and design priors of the effect. ``None`` otherwise.
+    relevant_effect : float or None
+        The clinically relevant effect beyond the null boundary: Bayesian power under the
+        design prior is taken over effects at least this large (``None``: the whole
+        alternative).
     """
 
     better: str
@@ -55,6 +59,7 @@ class Hypothesis:
     kind: str = "superiority"
     prior: Any = None
     design_prior: Any = None
+    relevant_effect: float | None = None
 
     @property
     def sign(self) -> int:

@@ -45,6 +45,7 @@ SECTIONS = (
     ("design", "Design"),
     ("boundaries", "Decision boundaries"),
     ("operating-characteristics", "Operating characteristics"),
+    ("bayesian", "Operating characteristics under the design prior"),
     ("figures", "Figures"),
     ("calibration", "Calibration"),
     ("checks", "Workflow checks"),

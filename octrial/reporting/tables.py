@@ -531,11 +531,12 @@ class Tables:
     oc: list[Table] = field(default_factory=list)
     calibration: list[Table] = field(default_factory=list)
     checks: list[Table] = field(default_factory=list)
+    bayesian: list[Table] = field(default_factory=list)
 
     def all(self) -> list[Table]:
         """All tables in report order."""
-        return [*self.design, *self.rule, *self.boundaries, *self.oc, *self.calibration,
-                *self.checks]
+        return [*self.design, *self.rule, *self.boundaries, *self.oc, *self.bayesian,
+                *self.calibration, *self.checks]
 
 
 def build_tables(data: Any) -> Tables:
@@ -550,4 +551,82 @@ def build_tables(data: Any) -> Tables:
         design.append(sizes)
     return Tables(design=design, rule=[looks_table(data)], boundaries=boundary_tables(data),
                   oc=oc,
-                  calibration=calibration_tables(data), checks=checks_tables(data))
+                  calibration=calibration_tables(data), checks=checks_tables(data),
+                  bayesian=[t for t in [bayesian_oc_table(data),
+                                        design_prior_sensitivity_table(data)]
+                            if t is not None])
+
+
+# -- Bayesian operating characteristics ------------------------------------------------------
+BAYESIAN_WORDS = (
+    ("prob_success", "Probability of success (assurance)",
+     "How often the study succeeds when its true value is drawn from the design prior."),
+    ("prior_prob_null", "Prior probability of the null",
+     "How much of the design prior lies in the null region, before any data."),
+    ("average_type1_error", "Average type I error",
+     "How often the study succeeds when the treatment does not work, averaged over the "
+     "null part of the design prior."),
+    ("bayesian_power", "Bayesian power",
+     "How often the study succeeds when the treatment works, averaged over the "
+     "alternative (or clinically relevant) part of the design prior."),
+    ("prob_null_and_success", "Pr(null and success)",
+     "How often the study both succeeds and the treatment does not work."),
+    ("prob_alternative_and_failure", "Pr(alternative and no success)",
+     "How often the study fails although the treatment works."),
+    ("prob_null_given_success", "Pr(null | success)",
+     "Of the studies that succeed, the share whose claim is false: how often a success "
+     "is wrong."),
+    ("prob_alternative_given_failure", "Pr(alternative | no success)",
+     "Of the studies that do not succeed, the share whose treatment works: how often a "
+     "failure is wrong."),
+)
+
+
+def bayesian_oc_table(data: Any) -> Table | None:
+    """run.json's ``bayesian_operating_characteristics``, one row per metric with its
+    standard error or numerical error and a plain explanation."""
+    rec = data.record.get("bayesian_operating_characteristics")
+    if not isinstance(rec, dict) or "prob_success" not in rec:
+        return None
+    simulated = rec.get("method") == "simulation"
+    suffix = "_se" if simulated else "_error"
+    columns = (Column("metric", "metric"), Column("value", "value", "probability"),
+               Column("uncertainty", "Monte Carlo SE" if simulated else "numerical error",
+                      "number"),
+               Column("meaning", "in plain words"))
+    rows = tuple(_row([label, rec.get(key), rec.get(key + suffix), words], columns)
+                 for key, label, words in BAYESIAN_WORDS)
+    notes = [f"Method: {rec.get('method')}. Null region: {rec.get('null_region')}. "
+             f"Bayesian power is over {rec.get('power_region')}."]
+    if simulated:
+        notes.append(f"{rec.get('replicates')} studies, each with its true value drawn from "
+                     "the design prior (seed " f"{rec.get('seed')}); standard errors of "
+                     "conditional probabilities by the delta method.")
+    elif rec.get("nodes"):
+        notes.append(f"Quadrature: {rec['nodes']}; numerical errors from the change between "
+                     "the last two quadrature levels.")
+    if rec.get("warning"):
+        notes.append(f"Warning: {rec['warning']}.")
+    return Table("bayesian-operating-characteristics",
+                 "Operating characteristics under the design prior", columns, rows,
+                 tuple(notes))
+
+
+def design_prior_sensitivity_table(data: Any) -> Table | None:
+    """checks.json's ``design_prior_sensitivity``: every metric under each alternative
+    design prior (``octrial check``)."""
+    entry = (data.checks or {}).get("design_prior_sensitivity") or {}
+    rows_in = entry.get("rows")
+    if not rows_in:
+        return None
+    columns = (Column("variant", "design prior"), Column("prior", "distribution"),
+               *(Column(key, label, "probability") for key, label, _ in BAYESIAN_WORDS))
+    rows = tuple(_row([r.get("variant"), r.get("design_prior"),
+                       *(r.get(key) for key, _, _ in BAYESIAN_WORDS)], columns)
+                 for r in rows_in)
+    notes = (f"Written by octrial check; the design prior of {entry.get('varied')} varied. "
+             "Sceptical: each component's mean one standard deviation toward the null; "
+             "optimistic: one toward the alternative; vaguer: standard deviation doubled "
+             "(moments matched; see docs/methods.md).",)
+    return Table("design-prior-sensitivity", "Sensitivity to the design prior", columns,
+                 rows, notes)

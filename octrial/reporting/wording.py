@@ -355,4 +355,9 @@ def assumptions(data: Any) -> list[str]:
     if "exact" in engines:
         items.append("Exact results are exact up to the numerical tolerances stated in the "
                      "precision section.")
+    # calibration assumptions (--null-range) and the design prior behind Bayesian OCs
+    items += list((data.calibration_record or {}).get("assumptions") or [])
+    if "prob_success" in (data.record.get("bayesian_operating_characteristics") or {}):
+        items.append("The operating characteristics under the design prior hold only as far "
+                     "as the design prior describes the plausible true values.")
     return items

@@ -9,7 +9,10 @@ lines are skipped):
 ``metric``
     Which number is claimed: any probability column of ``oc.csv`` (``prob_success``,
     ``prob_stop_efficacy``, ``prob_stop_futility``, ``look<k>_stop_efficacy``,
-    ``look<k>_stop_futility``) or ``expected_n``.
+    ``look<k>_stop_futility``) or ``expected_n``; or, for a design with design priors,
+    a Bayesian operating characteristic of run.json (``prob_null_given_success``, ...;
+    :data:`octrial.bayesian_oc.METRICS`; ``prob_success`` with empty true values is the
+    assurance): one number per design, so its true-value fields stay empty.
 ``claimed``
     The claimed value as the sponsor wrote it. Its last stated decimal tells how it was
     rounded (``0.025`` is 0.025 +- 0.0005).
@@ -70,7 +73,8 @@ class Claim:
     line : int
         Line of the claims file (the header is line 1 unless comments precede it).
     truth : tuple of float
-        True value per arm, in the design's arm order.
+        True value per arm, in the design's arm order; empty for a design-level claim
+        (a Bayesian operating characteristic under the design prior).
     metric : str
         The ``oc.csv`` column claimed.
     claimed : float
@@ -154,6 +158,36 @@ def metrics(design: Design) -> tuple[str, ...]:
     looks = [f"look{k}_stop_{why}" for k in range(1, design.looks.count + 1)
              for why in ("efficacy", "futility")]
     return ("prob_success", "prob_stop_efficacy", "prob_stop_futility", *looks, "expected_n")
+
+
+def design_metrics(design: Design) -> tuple[str, ...]:
+    """Design-level metrics a claim may name (Bayesian operating characteristics under
+    the design prior; none without design priors)."""
+    from octrial.bayesian_oc import METRICS
+    from octrial.design_prior import has_design_prior
+
+    return METRICS if has_design_prior(design) else ()
+
+
+def _design_level(design: Design, cell: dict[str, str], columns: dict[str, int], metric: str,
+                  problems: Problems, where: Callable[[str], str]) -> bool:
+    """Whether a row claims a design-level metric (a Bayesian operating characteristic,
+    with every true-value field empty)."""
+    from octrial.bayesian_oc import METRICS
+
+    if metric not in METRICS:
+        return False
+    empty = not any(cell.get(c) for c in truth_columns(design) if c in columns)
+    if metric == "prob_success" and (not empty or not design_metrics(design)):
+        return False  # a scenario's probability of success
+    if not design_metrics(design):
+        problems.add(where("metric"), "a Bayesian operating characteristic only for a "
+                     "design with a design prior for every arm (or the effect)", metric)
+        return True
+    if not empty:
+        problems.add(where("true_*"), f"empty true values for {metric} (one number per "
+                     "design, averaged over the design prior)", Phrase("a scenario"))
+    return True
 
 
 def truth_columns(design: Design) -> tuple[str, ...]:
@@ -243,15 +277,19 @@ def _read_row(
 
     metric = cell["metric"]
     valid = metrics(design)
-    if metric not in valid:
+    truth: tuple[float, ...] | None = None
+    if _design_level(design, cell, columns, metric, problems, where):
+        valid = design_metrics(design)
+        truth = ()
+    elif metric not in valid:
         hint = suggest(metric, valid)
         if not hint and metric.lower() in ALIASES:
             hint = f"did you mean '{ALIASES[metric.lower()]}'?"
         problems.add(where("metric"), "a probability or expected-sample-size column of oc.csv "
                      f"for this {design.looks.count}-look design: " + ", ".join(valid), metric,
                      hint)
-
-    truth = _read_truth(design, cell, where, problems)
+    if truth != ():
+        truth = _read_truth(design, cell, where, problems)
 
     claimed = _number(cell["claimed"], where("claimed"), problems)
     if claimed is not None and metric in valid:

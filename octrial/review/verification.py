@@ -115,7 +115,7 @@ def _same(a: tuple[float, ...], b: tuple[float, ...]) -> bool:
     return all(abs(x - y) <= GRID_TOLERANCE for x, y in zip(a, b, strict=True))
 
 
-def verify(
+def _verify_scenarios(
     design: Design, claims: Claims, *, alpha: float = DEFAULT_ALPHA,
     tolerance: float = DEFAULT_TOLERANCE, replicates: int | None = None,
     seed: int | None = None, target_se: float | None = None,
@@ -238,3 +238,45 @@ def verify(
         "scenarios_added": [dict(zip(design.arm_names, t, strict=True)) for t in added],
     }
     return Verification(design, claims, table, added, info)
+
+
+def verify(
+    design: Design, claims: Claims, *, alpha: float = DEFAULT_ALPHA,
+    tolerance: float = DEFAULT_TOLERANCE, replicates: int | None = None,
+    seed: int | None = None, target_se: float | None = None,
+    max_replicates: int | None = None, execution: Execution | None = None,
+) -> Verification:
+    """Recompute every claimed number of ``claims`` and judge it (parameters as for the
+    scenario claims, :func:`_verify_scenarios`); claims about the whole design (Bayesian
+    operating characteristics under the design prior) through
+    :mod:`octrial.review.design_claims`, Holm-adjusted together with the others."""
+    from octrial.review import design_claims
+
+    scenario, design_level = design_claims.split(claims)
+    options = dict(alpha=alpha, tolerance=tolerance, replicates=replicates, seed=seed,
+                   target_se=target_se, max_replicates=max_replicates, execution=execution)
+    if not design_level:
+        return _verify_scenarios(design, claims, **options)
+    found = _verify_scenarios(design, scenario, **options) if scenario.claims else None
+    try:
+        record = design_claims.recompute(design, design_level, replicates, seed, execution)
+    except ValueError as exc:
+        raise single(claims.path, f"line {design_level[0].line}, column metric",
+                     "a metric octrial can recompute for this design", design_level[0].metric,
+                     str(exc)) from exc
+    extra = design_claims.design_rows(design, design_level, record, tolerance)
+    table = design_claims.combined(None if found is None else found.table, extra, alpha,
+                                   CONSISTENT, DISCREPANT)
+    info = dict(found.info) if found is not None else {
+        "engine": record["method"], "replicates": None, "seed": None, "seed_drawn": None,
+        "scenarios_resumed": 0, "alpha": alpha, "adjustment": "Holm (1979)",
+        "tolerance": tolerance, "numerical_error": {}, "scenarios": 0,
+        "scenarios_added": []}
+    info.update({
+        "claims_total": len(table),
+        "consistent": int((table["verdict"] == CONSISTENT).sum()),
+        "discrepant": int((table["verdict"] == DISCREPANT).sum()),
+        "design_level_claims": len(design_level),
+        "bayesian_operating_characteristics": record,
+    })
+    return Verification(design, claims, table, () if found is None else found.added, info)

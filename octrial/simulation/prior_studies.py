@@ -76,16 +76,22 @@ class PriorBatch:
         return tally_problems(arrays, self.design.looks.count, self.size)
 
 
-def simulate_prior_batch(task: PriorBatch) -> dict[str, np.ndarray]:
-    """The tally of one batch, as arrays (runs in a worker)."""
-    design = task.design
+def draw_prior_batch(design: Design, seed: int, index: int, size: int) -> tuple[Any, ...]:
+    """Batch ``index`` of studies under the design prior: the kernel, every study's true
+    means and its data (the stream of the module docstring)."""
     placeholder = tuple(0.0 for _ in design.arms)
     simulator: Any = GENERAL_KERNELS[design.family.name](
         design, placeholder, design.simulation.interval_level)
-    sequence = np.random.SeedSequence(task.seed, spawn_key=(ASSURANCE_STREAM, task.index))
+    sequence = np.random.SeedSequence(seed, spawn_key=(ASSURANCE_STREAM, index))
     rng = np.random.Generator(np.random.PCG64(sequence))
-    mean, sd = PRIOR_DRAWS[design.family.name](design, rng, task.size)
-    return simulator.run(simulator.draw(rng, task.size, mean, sd), task.size, False).to_arrays()
+    mean, sd = PRIOR_DRAWS[design.family.name](design, rng, size)
+    return simulator, mean, simulator.draw(rng, size, mean, sd)
+
+
+def simulate_prior_batch(task: PriorBatch) -> dict[str, np.ndarray]:
+    """The tally of one batch, as arrays (runs in a worker)."""
+    simulator, _, data = draw_prior_batch(task.design, task.seed, task.index, task.size)
+    return simulator.run(data, task.size, False).to_arrays()
 
 
 def simulate_under_design_prior(
