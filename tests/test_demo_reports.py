@@ -25,7 +25,7 @@ from octrial.output import csv_text
 from tests.helpers import DESIGNS, ROOT
 
 REGENERATE = "stale committed report: run `bash reports/regenerate.sh` and commit"
-NUMBERS = ("type1", "assurance", "prior_probability_of_claim")
+NUMBERS = ("type1", "assurance", "prior_probability_of_claim", "bayesian_operating_characteristics")
 
 
 def as_text(csv: str) -> pd.DataFrame:

@@ -54,6 +54,32 @@ class SplitBatch:
     size: int
     delta: float
 
+    def identity(self) -> dict[str, Any]:
+        """What this batch's checkpoint records."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
+                "scenario": "design prior by region", "batch": self.index,
+                "kernel": "general", "delta": self.delta}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this batch's saved counts: each region's
+        ``[studies, successes]`` whole, with 0 <= successes <= studies; null and
+        alternative studies adding up to the batch; the relevant region inside the
+        alternative."""
+        found = []
+        for name in CLASSES:
+            value = arrays.get(name)
+            if value is None or np.shape(value) != (2,) or not np.all(np.isfinite(value)):
+                found.append(f"{name}: expected two counts")
+                continue
+            m, won = (float(v) for v in value)
+            if m != int(m) or won != int(won) or not 0 <= won <= m <= self.size:
+                found.append(f"{name}: counts {m:g}, {won:g} out of range")
+        if not found:
+            null, alt, rel = (arrays[n] for n in ("null", "alternative", "relevant"))
+            if null[0] + alt[0] != self.size or rel[0] > alt[0] or rel[1] > alt[1]:
+                found.append("region counts do not add up to the batch")
+        return found
+
 
 def simulated(design: Design, replicates: int, seed: int, delta: float = 0.0,
               execution: Execution | None = None) -> dict[str, Any]:
