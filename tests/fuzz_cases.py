@@ -47,7 +47,7 @@ VALUES: tuple[Any, ...] = (
     1e308, -1e308, 1e-300, -1e-300, 1e12, -1e12, 1e-12, 0, -1, 1, 0.5, 2**62, 2**63 - 1,
     -(2**62),
     float("inf"), float("nan"), "nan", "inf", "", LONG, "0.5", True, False,
-    {}, {"x": 1}, [], [1e308], [0], list(range(2000)), "none",
+    {}, {"x": 1}, [], [1e308], [0], list(range(2000)), list(range(1, 2001)), "none",
 )
 """Replacement values: extreme magnitudes, the largest and smallest a design file allows
 (docs/design-files.md, 'Limits'), zero and one, wrong types (string, bool, table, list)
