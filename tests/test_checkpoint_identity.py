@@ -299,3 +299,24 @@ def test_checkpoints_that_cannot_be_saved_do_not_stop_the_run(tmp_path) -> None:
     assert result.output.count("cannot save checkpoints") == 1
     assert "Traceback" not in result.output and "error:" in result.output
     assert blocker.read_text() == "a file"
+
+
+def test_bayesian_region_counts_are_range_checked() -> None:
+    """A batch of the simulated Bayesian operating characteristics: its own counts pass,
+    and counts that cannot come from the batch (more successes than studies, regions that
+    do not add up to the batch, the relevant region outside the alternative) are named.
+    Reference: the batch's definition (null and alternative partition its studies)."""
+    from octrial.bayesian_oc.simulation import SplitBatch, simulate_split_batch
+
+    design = octrial.load_design(DESIGNS / "single-arm-mean-change.toml")
+    task = SplitBatch(design, seed=11, index=0, size=400, delta=0.0)
+    arrays = simulate_split_batch(task)
+    assert task.problems(arrays) == []
+    assert task.identity()["design_sha256"] == design.source.sha256
+    too_many = {**arrays, "null": np.array([arrays["null"][0], arrays["null"][0] + 1])}
+    assert task.problems(too_many)
+    short = {**arrays, "alternative": arrays["alternative"] - np.array([1, 0])}
+    assert any("add up" in p for p in task.problems(short))
+    outside = {**arrays, "relevant": np.array([arrays["alternative"][0] + 1, 0])}
+    assert task.problems(outside)
+    assert task.problems({k: v for k, v in arrays.items() if k != "null"})
