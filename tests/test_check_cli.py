@@ -154,7 +154,8 @@ def _single_arm_with_prior(a: float, b: float) -> dict:
     (("--bins", "1"), "--bins: expected a whole number from 2 to --simulations / 5"),
     # issue 12: the option and the valid values in plain words, not a Python tuple
     (("--only", "sbc,everything"), "--only: expected one or more of prior-predictive, sbc, "
-     "sensitivity, tail-accuracy, conflict and design-prior, separated by commas; got 'everything'"),
+     "sensitivity, tail-accuracy, conflict and design-prior, separated by commas; "
+     "got 'everything'"),
     (("--only", "sbc,sensitivty"), "got 'sensitivty' (did you mean 'sensitivity'?)"),
     (("--only", ","), "--only: expected one or more of"),
     (("--outcome-range", "0:x"), "--outcome-range"),
