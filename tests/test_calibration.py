@@ -425,3 +425,37 @@ def test_count_refinement_with_the_worst_point_at_the_top_of_the_grid(ratios) ->
     assert result.summary["type1_error_refined"] == pytest.approx(success.max(), abs=1e-7)
     assert result.summary["worst_null_point_refined"]["control"] == pytest.approx(1.2, abs=1e-6)
     assert result.summary["type1_error_refined"] <= 0.05
+
+
+@pytest.mark.parametrize("comparison, better, kind, margin", [
+    ("ratio", "lower", "superiority", 0.2),
+    ("ratio", "lower", "non-inferiority", 0.25),
+    ("odds-ratio", "higher", "superiority", 0.25),
+])
+def test_two_arm_null_line_of_ratios_lies_on_the_ratio_boundary(comparison, better, kind,
+                                                              margin) -> None:
+    """A ratio margin is relative: the null boundary is treatment = control x threshold
+    (odds: odds_T = odds_C x threshold), not treatment = control + offset, which put
+    alternative points into the 'null' grid (found by a new user; definition of the
+    ratio and odds ratio, checked by hand here)."""
+    from tests.test_count_engine import TWO_ARM as COUNT_TWO_ARM
+
+    if comparison == "ratio":
+        design = build(COUNT_TWO_ARM, endpoint__better=better,
+                       hypothesis={"comparison": comparison, "kind": kind, "margin": margin},
+                       scenarios={"control": [0.3, 1.0], "ratio": [0.5, 1.0]})
+    else:
+        design = build(TWO_ARM, endpoint__better=better,
+                       hypothesis={"comparison": comparison, "kind": kind, "margin": margin},
+                       scenarios={"control": [0.3], "odds_ratio": [1.0, 2.0]})
+    truths = null_truths(design, 20)
+    values = truths.values[: truths.nulls]
+    assert len(values) > 10
+    threshold = design.hypothesis.threshold
+    for t, c in values:
+        assert design.family.is_null(design.hypothesis, (t, c))
+    line = [(t, c) for t, c in values
+            if not any(np.isclose([t, c], s).all() for s in design.scenarios.values)]
+    for t, c in line:
+        measure = t / c if comparison == "ratio" else (t / (1 - t)) / (c / (1 - c))
+        assert measure == pytest.approx(threshold, rel=1e-9)

@@ -24,6 +24,7 @@ import numpy as np
 
 from octrial.design.model import Design
 from octrial.design.scenarios import DECIMALS
+from octrial.endpoints.base import SCENARIO_AXES
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,6 +71,13 @@ def _span(design: Design, axis: np.ndarray, start: float, direction: int) -> flo
     return max(reach, default=0.0)
 
 
+def on_boundary(design: Design, control: float) -> float:
+    """The treatment value on the two-arm null boundary at ``control``: the effect measure
+    (difference, ratio or odds ratio) equal to the claim's threshold."""
+    h = design.hypothesis
+    return float(SCENARIO_AXES[h.comparison or "difference"][1](control, h.threshold))
+
+
 def control_range(design: Design) -> tuple[float, float]:
     """The control values searched on a two-arm null boundary line (finite).
 
@@ -79,9 +87,11 @@ def control_range(design: Design) -> tuple[float, float]:
     grid points stays inside it.
     """
     h = design.hypothesis
-    offset = h.sign * h.shift
     lo, hi = design.family.parameter_range
-    c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
+    c_lo, c_hi = lo, hi
+    if h.comparison in (None, "difference"):  # treatment = control + offset stays in range
+        offset = h.sign * h.shift
+        c_lo, c_hi = max(lo, lo - offset), min(hi, hi - offset)
     controls = np.array(design.scenarios.values, dtype=float)[:, 1]
     if not math.isfinite(c_lo):
         c_lo = float(controls.min())
@@ -157,16 +167,21 @@ def null_truths(
             wanted.append(alternative[1])
         grid = []
         for c in wanted:
-            t = (round(c + offset, DECIMALS), round(c, DECIMALS))
+            t = (round(on_boundary(design, c), DECIMALS), round(c, DECIMALS))
             if all(family.true_value_problem(v) is None for v in t):
                 grid.append(t)
         rows = sorted(set(grid) | set(own_nulls), key=lambda t: (t[1], t[0]))
         reference = 0
         if alternative is not None:
-            ref = (round(alternative[1] + offset, DECIMALS), round(alternative[1], DECIMALS))
+            ref = (round(on_boundary(design, alternative[1]), DECIMALS),
+                   round(alternative[1], DECIMALS))
             reference = rows.index(ref) if ref in rows else 0
-        text = (f"{len(rows)} points on the null boundary ({design.arm_names[0]} = "
-                f"{design.arm_names[1]} {'+' if offset >= 0 else '-'} {abs(offset):g}), "
+        line = (f"{design.arm_names[0]} = {design.arm_names[1]} "
+                f"{'+' if offset >= 0 else '-'} {abs(offset):g}"
+                if h.comparison in (None, "difference") else
+                f"{h.comparison} {design.arm_names[0]} : {design.arm_names[1]} = "
+                f"{h.threshold:g}")
+        text = (f"{len(rows)} points on the null boundary ({line}), "
                 f"{design.arm_names[1]} from {min(r[1] for r in rows):.6g} to "
                 f"{max(r[1] for r in rows):.6g}, plus the design's null scenarios"
                 + ("" if null_range is None else

@@ -17,7 +17,7 @@ import numpy as np
 from scipy import optimize
 
 from octrial.calibration.evaluator import Assessment
-from octrial.calibration.nulls import Truths, control_range
+from octrial.calibration.nulls import Truths, control_range, on_boundary
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import stopping_probabilities
@@ -46,10 +46,9 @@ def refine_worst(design: Design, truths: Truths, a: Assessment,
     """
     if not design.two_arm or not isinstance(design.family, LatticeFamily):
         return None
-    h = design.hypothesis
-    offset = h.sign * h.shift
     values = truths.values[: truths.nulls]
-    on_line = np.abs(values[:, 0] - values[:, 1] - offset) < 1e-9
+    on_line = np.array([abs(t - on_boundary(design, c)) < 1e-9 for t, c in values[:, :2]],
+                       dtype=bool)
     controls = values[on_line, 1]
     success = a.prob_success[: truths.nulls][on_line]
     order = np.argsort(controls)
@@ -62,7 +61,7 @@ def refine_worst(design: Design, truths: Truths, a: Assessment,
     rule = build_rule(design)
 
     def type1(c: float) -> float:
-        eff, _, _ = stopping_probabilities(design, rule, (c + offset, c))
+        eff, _, _ = stopping_probabilities(design, rule, (on_boundary(design, c), c))
         return float(eff.sum())
 
     peaks = [i for i in range(len(controls))
@@ -81,5 +80,5 @@ def refine_worst(design: Design, truths: Truths, a: Assessment,
         value = -float(found.fun)
         if value > best.type1:
             c = float(found.x)
-            best = Refined(value, (c + offset, c))
+            best = Refined(value, (on_boundary(design, c), c))
     return best
