@@ -1,0 +1,144 @@
+"""The stop rule, written once: efficacy first, futility below, predictive futility at
+interim looks, and the final look fails without efficacy.
+
+At look ``k`` a study with posterior probability of benefit ``b``
+
+1. stops for efficacy (succeeds at the final look) when ``b >= efficacy[k] - tol``;
+2. otherwise fails at the final look;
+3. otherwise stops for futility at an interim look when ``b < futility[k] - tol``;
+4. otherwise, at an interim look with a predictive threshold, stops for futility when the
+   predictive probability of final success ``pp < futility_predictive[k] - tol``;
+5. otherwise continues.
+
+A threshold that is absent is ``nan`` in the arrays. ``tol`` is
+:data:`DECISION_TOLERANCE`: a probability within it of a threshold reaches it, so that a
+threshold equal to a computed posterior probability (as calibration produces) is met
+despite rounding in the last bit.
+
+The same rule appears in three forms, kept in step by ``tests/test_stop_rule.py``:
+:meth:`Rule.decide` (one study, Python: interim decisions), :meth:`Rule.decide_many`
+(arrays: decision tables on the lattice, boundary tables) and the numba functions
+:func:`look_decision` / :func:`predictive_decision` that every simulation kernel calls
+with :meth:`Rule.arrays`. The predictive step is separate because the predictive
+probability is expensive: kernels compute it only when :func:`wants_predictive` says the
+look has a predictive threshold and steps 1-3 left the study running.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numba import njit
+
+DECISION_TOLERANCE = 1e-12
+"""A probability within this of a threshold counts as reaching it (module docstring)."""
+
+CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
+"""Decision codes. At the final look EFFICACY means success and FUTILITY failure."""
+
+
+def _array(values: tuple[float | None, ...]) -> np.ndarray:
+    return np.array([math.nan if v is None else float(v) for v in values], dtype=float)
+
+
+@dataclass(frozen=True, eq=False)
+class Rule:
+    """Per-look probability thresholds of a design (``nan`` where a look has none).
+
+    Parameters
+    ----------
+    efficacy, futility, futility_predictive : numpy.ndarray
+        One value per look; the last efficacy value is the final success threshold and the
+        last futility values are ignored (the final look fails without efficacy).
+    tolerance : float
+        See :data:`DECISION_TOLERANCE`.
+    """
+
+    efficacy: np.ndarray
+    futility: np.ndarray
+    futility_predictive: np.ndarray
+    tolerance: float = DECISION_TOLERANCE
+
+    @classmethod
+    def of(cls, looks: Any) -> Rule:
+        """The rule of a design's ``looks`` (:class:`~octrial.design.model.Looks`)."""
+        return cls(_array(looks.efficacy), _array(looks.futility),
+                   _array(looks.futility_predictive))
+
+    @property
+    def last(self) -> int:
+        """Index of the final look."""
+        return len(self.efficacy) - 1
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+        """``(efficacy, futility, futility_predictive, tolerance)`` for the numba kernels."""
+        return self.efficacy, self.futility, self.futility_predictive, self.tolerance
+
+    def has_predictive(self, k: int) -> bool:
+        """Whether look ``k`` is an interim look with a predictive futility threshold."""
+        return bool(wants_predictive(self.futility_predictive, k, self.last))
+
+    def decide(self, k: int, benefit: float, predictive: float | None = None) -> int:
+        """The decision at look ``k`` for one study (``predictive`` read only when the
+        look has a predictive threshold and the benefit alone left the study running)."""
+        code = look_decision(self.efficacy, self.futility, k, self.last, benefit,
+                             self.tolerance)
+        if code == CONTINUE and predictive is not None and self.has_predictive(k):
+            code = predictive_decision(self.futility_predictive, k, predictive,
+                                       self.tolerance)
+        return int(code)
+
+    def decide_many(self, k: int, benefit: np.ndarray,
+                    predictive: np.ndarray | None = None) -> np.ndarray:
+        """:meth:`decide` over arrays of any shape (``predictive`` broadcast with
+        ``benefit``); returns int8 codes."""
+        b = np.asarray(benefit, dtype=float)
+        tol = self.tolerance
+        codes = np.full(b.shape, CONTINUE, dtype=np.int8)
+        e = self.efficacy[k]
+        efficacy = b >= e - tol if not math.isnan(e) else np.zeros(b.shape, dtype=bool)
+        if k == self.last:
+            codes[:] = FUTILITY
+            codes[efficacy] = EFFICACY
+            return codes
+        f = self.futility[k]
+        futile = b < f - tol if not math.isnan(f) else np.zeros(b.shape, dtype=bool)
+        if predictive is not None and self.has_predictive(k):
+            pp = np.broadcast_to(np.asarray(predictive, dtype=float), b.shape)
+            futile = futile | (pp < self.futility_predictive[k] - tol)
+        codes[futile] = FUTILITY
+        codes[efficacy] = EFFICACY
+        return codes
+
+
+@njit(cache=True)
+def look_decision(efficacy: np.ndarray, futility: np.ndarray, k: int, last: int,
+                  b: float, tol: float) -> int:
+    """Steps 1-3 of the rule (module docstring) in numba: EFFICACY, FUTILITY or
+    CONTINUE from the posterior probability of benefit ``b`` at look ``k``."""
+    if not math.isnan(efficacy[k]) and b >= efficacy[k] - tol:
+        return EFFICACY
+    if k == last:
+        return FUTILITY
+    if not math.isnan(futility[k]) and b < futility[k] - tol:
+        return FUTILITY
+    return CONTINUE
+
+
+@njit(cache=True)
+def wants_predictive(futility_predictive: np.ndarray, k: int, last: int) -> bool:
+    """Whether look ``k`` is an interim look with a predictive futility threshold."""
+    return k < last and not math.isnan(futility_predictive[k])
+
+
+@njit(cache=True)
+def predictive_decision(futility_predictive: np.ndarray, k: int, pp: float,
+                        tol: float) -> int:
+    """Step 4 of the rule in numba: FUTILITY when the predictive probability of final
+    success ``pp`` is below look ``k``'s threshold, else CONTINUE."""
+    if pp < futility_predictive[k] - tol:
+        return FUTILITY
+    return CONTINUE
