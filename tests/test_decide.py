@@ -13,9 +13,10 @@ from scipy import integrate, stats
 
 from octrial.cli import main
 from octrial.design.load import load_design
+from octrial.endpoints import FAMILIES
 from octrial.errors import InputError
-from octrial.interim import SYNTAX, assess, decide
-from octrial.interim.observations import BinaryData, CountData, NormalData
+from octrial.interim import assess, decide
+from octrial.interim.observations import BINARY, COUNT, NORMAL, BinaryData, CountData, NormalData
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -267,14 +268,15 @@ def test_two_arm_missing_arm_is_named() -> None:
 
 
 def test_data_syntax_of_every_endpoint() -> None:
-    # count and normal parsers are in place for their families (branch 'endpoints')
-    assert SYNTAX["binary"].parse(" 12 / 30 ") == BinaryData(12, 30)
-    assert SYNTAX["count"].parse("14/52.5") == CountData(14, 52.5)
-    assert SYNTAX["normal"].parse("-1.5,2.25e0,40") == NormalData(-1.5, 2.25, 40)
+    syntax = {name: family.interim().syntax for name, family in FAMILIES.items()}
+    assert syntax["binary"] is BINARY and syntax["count"] is COUNT and syntax["normal"] is NORMAL
+    assert syntax["binary"].parse(" 12 / 30 ") == BinaryData(12, 30)
+    assert syntax["count"].parse("14/52.5") == CountData(14, 52.5)
+    assert syntax["normal"].parse("-1.5,2.25e0,40") == NormalData(-1.5, 2.25, 40)
     for endpoint, text in [("count", "14/0"), ("count", "1.5/3"), ("normal", "1,-2,10"),
                            ("normal", "1,2"), ("normal", "1,2,0"), ("binary", "1/2/3")]:
         with pytest.raises(ValueError):
-            SYNTAX[endpoint].parse(text)
+            syntax[endpoint].parse(text)
 
 
 def test_help_carries_the_caution(runner) -> None:

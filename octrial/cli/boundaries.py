@@ -10,37 +10,29 @@ import click
 from octrial.caution import CAUTION
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
 from octrial.design.model import Design
-from octrial.endpoints.base import LatticeFamily
 from octrial.errors import single
 from octrial.output import csv_text, write_atomic
-from octrial.rules.boundaries import boundary_table, committee_table
-from octrial.rules.lattice import build_rule
 
 
 def boundaries_for(design: Design, sds: tuple[float, ...] = ()) -> tuple[object, str]:
     """The boundary table and its committee text for ``design``.
 
-    Lattice endpoints give counts; another family may provide ``boundary_table(design)``
-    and ``committee_table(design, table)`` (for example sample-mean and z bounds; with an
-    unknown sd, bounds on the sample mean at the sample sds ``sds``).
+    The family tabulates its rule (lattice endpoints in counts; normal endpoints as
+    sample-mean and z bounds or, with an unknown sd, bounds on the sample mean at the
+    sample sds ``sds``).
     """
     family = design.family
-    if isinstance(family, LatticeFamily):
-        table = boundary_table(design, build_rule(design))
-        return table, committee_table(design, table)
-    own = getattr(family, "boundary_table", None)
-    text = getattr(family, "committee_table", None)
-    if own is None or text is None:
+    if sds and not family.bounds_depend_on_sd(design):
+        raise single("command line", "--sd", "a design with a normal endpoint of unknown sd "
+                     "(its bounds on the mean depend on the sample sd)",
+                     ",".join(f"{s:g}" for s in sds))
+    table = family.boundary_table(design, sds or None)
+    if table is None:
         raise single(design.source.path or design.name, "endpoint.type",
                      "an endpoint with a decision-boundary table in this version (binary, "
                      "count, normal with a known sd)",
                      family.name)
-    if sds and not (family.name == "normal" and not design.endpoint.known_sd):
-        raise single("command line", "--sd", "a design with a normal endpoint of unknown sd "
-                     "(its bounds on the mean depend on the sample sd)",
-                     ",".join(f"{s:g}" for s in sds))
-    table = own(design, sds) if sds else own(design)
-    return table, text(design, table)
+    return table, family.committee_table(design, table)
 
 
 def _positive_numbers(raw: str | None, option: str) -> tuple[float, ...]:

@@ -6,11 +6,13 @@ import click
 
 from octrial.caution import CAUTION
 from octrial.cli.common import design_argument, read_design, reports_input_errors
-from octrial.interim import SYNTAX, Decision, decide
+from octrial.endpoints import FAMILIES
+from octrial.interim import Decision, decide
 from octrial.interim.decision import DEFAULT_LEVEL, DEFAULT_SEED
 from octrial.output import json_text
 
-FORMS = "; ".join(f"{endpoint}: ARM={syntax.form}" for endpoint, syntax in SYNTAX.items())
+FORMS = "; ".join(f"{name}: ARM={support.syntax.form}" for name, family in FAMILIES.items()
+                  if (support := family.interim()) is not None)
 
 
 @click.command("decide", epilog=f"Caution: {CAUTION}")

@@ -15,12 +15,16 @@ from __future__ import annotations
 import math
 from abc import ABC, abstractmethod
 from collections.abc import Callable
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
 from octrial.design.model import Hypothesis
 from octrial.design.reader import Problems, Table
+
+if TYPE_CHECKING:
+    from octrial.checks.model import CheckModel
+    from octrial.interim.base import EndpointInterim
 
 NULL_TOLERANCE = 1e-9
 """Scenarios within this distance of the null boundary count as null (values written as
@@ -77,6 +81,65 @@ class Family(ABC):
     parameter_range: ClassVar[tuple[float, float]] = (-math.inf, math.inf)
     difference_margin_below_one: ClassVar[bool] = True
     """Whether a margin on the difference scale must lie below 1 (parameters in (0, 1))."""
+    lattice: ClassVar[bool] = False
+    """Whether each arm's sufficient statistic is a count on a lattice
+    (:class:`LatticeFamily`): decision tables, the exact lattice engine, count rules."""
+    truncates: ClassVar[bool] = False
+    """Whether the lattice truncates an unbounded statistic (counts); the exact engine then
+    reports the probability mass it neglects (see :attr:`truncation_epsilon`)."""
+    truncation_epsilon: ClassVar[float] = 0.0
+    """Largest neglected mass beyond a truncated lattice, per arm and look."""
+    statistic: ClassVar[str] = "sample mean"
+    """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
+
+    # -- wording for reports ---------------------------------------------------------
+    unit: ClassVar[str] = "parameter units"
+    """The unit of the per-arm parameter, for axis labels (``'proportion'``)."""
+    data_model: ClassVar[str] = ""
+    """The data model in one sentence, for the report's assumptions."""
+    prior_size_note: ClassVar[str] = ("Effective sample size as computed by the endpoint "
+                                      "family (see docs/methods.md).")
+    """How the effective sample sizes of :meth:`effective_sample_size` were computed."""
+
+    def assumptions(self, design: Any) -> tuple[str, ...]:
+        """Sentences about the data model behind every number (the report's
+        assumptions); by default :attr:`data_model`."""
+        return (self.data_model,) if self.data_model else ()
+
+    # -- the family's parts in other layers (reached from here: one registry) --------
+    def interim(self) -> EndpointInterim | None:
+        """Interim decisions on real data (``octrial decide``): the data syntax,
+        posterior summaries and checks (:class:`~octrial.interim.base.EndpointInterim`);
+        ``None`` when the family has none."""
+        return None
+
+    def check_model(self, design: Any) -> CheckModel | None:
+        """What the workflow checks (``octrial check``) need from the family
+        (:class:`~octrial.checks.model.CheckModel`) for ``design``; ``None`` when the
+        family has none."""
+        return None
+
+    def design_prior_draws(
+        self, design: Any, rng: np.random.Generator, size: int,
+    ) -> tuple[np.ndarray, np.ndarray] | None:
+        """True (mean, sd) per study and arm drawn from the design prior, for simulating
+        assurance with the family's simulator; ``None`` when the family cannot."""
+        return None
+
+    def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
+        """``octrial boundaries``: the rule per look as bounds a committee applies by hand
+        (a pandas table; ``None`` when the family cannot tabulate its rule). ``sds``: the
+        sample sds at which bounds are given when :meth:`bounds_depend_on_sd`."""
+        return None
+
+    def committee_table(self, design: Any, table: Any) -> str | None:
+        """The committee's text for :meth:`boundary_table`'s ``table``."""
+        return None
+
+    def bounds_depend_on_sd(self, design: Any) -> bool:
+        """Whether the bounds depend on the observed sample sd (so that a table is given
+        at chosen sample sds)."""
+        return False
 
     # -- design-file reading ---------------------------------------------------------
     @abstractmethod
@@ -196,13 +259,23 @@ class LatticeFamily(Family):
         engine then reports the probability mass it neglects.
     """
 
-    statistic: ClassVar[str]
-    truncates: ClassVar[bool] = False
+    lattice: ClassVar[bool] = True
 
     def decision_rule(self, design: Any, truths: np.ndarray | None = None) -> Any:
         from octrial.rules.lattice import build_rule
 
         return build_rule(design, truths=truths)
+
+    def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
+        from octrial.rules.boundaries import boundary_table
+        from octrial.rules.lattice import build_rule
+
+        return boundary_table(design, build_rule(design))
+
+    def committee_table(self, design: Any, table: Any) -> str | None:
+        from octrial.rules.boundaries import committee_table
+
+        return committee_table(design, table)
 
     def lattice_reach(self, design: Any) -> tuple[float, ...] | None:
         """Per arm, the largest true value the lattice must serve (truncating families);

@@ -20,7 +20,7 @@ Formulas (see docs/methods.md for the derivations and references):
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import special, stats
@@ -35,6 +35,9 @@ from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
+
+if TYPE_CHECKING:
+    from octrial.interim.base import EndpointInterim
 
 TAIL = 1e-15
 """Prior quantile that bounds the grid's range."""
@@ -223,10 +226,22 @@ class BinaryFamily(GridModel, LatticeFamily):
     name = "binary"
     parameter = "rate"
     statistic = "responses"
+    unit = "proportion"
+    data_model = ("Each subject's outcome is a response or not, with the arm's true response "
+                  "rate, independently of every other subject (binomial model).")
+    prior_size_note = ("Effective sample size of a beta prior: a + b, in subjects; of a "
+                       "mixture, the weight-averaged a + b (common practice; Morita, Thall & "
+                       "Müller 2008 give a general definition).")
     comparisons = ("difference", "odds-ratio")
     default_better = None
     parameter_range = (0.0, 1.0)
     grid_scale = "logit rate"
+
+    # -- the family's parts in other layers -----------------------------------------
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.binary import BinaryInterim
+
+        return BinaryInterim()
 
     def read_endpoint(self, table: Table) -> BinaryEndpoint:
         table.allow("type", "better")

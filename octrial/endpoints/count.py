@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import special, stats
@@ -40,6 +40,9 @@ from octrial.endpoints.grid_family import GridModel
 from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.numerics import parameter_grid as pg
+
+if TYPE_CHECKING:
+    from octrial.interim.base import EndpointInterim
 
 TRUNCATION_EPSILON = 1e-10
 """Largest probability mass the truncated count lattice may neglect per scenario."""
@@ -192,6 +195,10 @@ class CountFamily(GridModel, LatticeFamily):
     name = "count"
     parameter = "rate"
     statistic = "events"
+    unit = "events per unit of exposure"
+    data_model = ("Each subject's number of events follows a Poisson distribution with mean "
+                  "equal to the arm's true rate times the subject's exposure, independently "
+                  "of other subjects (unless the design states a negative binomial model).")
     comparisons = ("ratio",)
     default_better = "lower"
     truncates = True
@@ -200,6 +207,12 @@ class CountFamily(GridModel, LatticeFamily):
     grid_scale = "log rate"
 
     # -- design-file reading ---------------------------------------------------------
+    # -- the family's parts in other layers -----------------------------------------
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.count import CountInterim
+
+        return CountInterim()
+
     def read_endpoint(self, table: Table) -> CountEndpoint:
         table.allow("type", "better", "exposure", "model", "dispersion")
         exposure = table.number("exposure", required=False, default=1.0,

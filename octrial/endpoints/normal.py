@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import integrate, special, stats
@@ -38,6 +38,9 @@ from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowin
 from octrial.endpoints.mixtures import describe, read_components
 from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.errors import single
+
+if TYPE_CHECKING:
+    from octrial.interim.base import EndpointInterim
 
 UNKNOWN = "unknown"
 HISTORICAL = {"mean": "number", "sd": "positive", "n": "size"}
@@ -165,11 +168,22 @@ class NormalFamily(Family):
 
     name = "normal"
     parameter = "mean"
+    unit = "units of the endpoint"
+    data_model = ("Each subject's outcome is normally distributed around the arm's true mean, "
+                  "independently of other subjects, with the standard deviation stated in the "
+                  "design (when the analysis treats the sd as unknown, the stated true sd "
+                  "generates every scenario's data and the analysis estimates it).")
     comparisons = ("difference",)
     default_better = None
     difference_margin_below_one = False
 
     # -- design-file reading ---------------------------------------------------------
+    # -- the family's parts in other layers -----------------------------------------
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.normal import NormalInterim
+
+        return NormalInterim()
+
     def read_endpoint(self, table: Table) -> NormalEndpoint:
         table.allow("type", "better", "sd", "true_sd")
         raw = table.raw("sd", f"the known sd (a number > 0) or '{UNKNOWN}'", required=True)
@@ -296,6 +310,9 @@ class NormalFamily(Family):
         if design.endpoint.known_sd or design.two_arm:
             return None
         return self.boundary_table(design)
+
+    def bounds_depend_on_sd(self, design: Any) -> bool:
+        return not design.endpoint.known_sd
 
     def committee_table(self, design: Any, table: Any) -> str:
         if not design.endpoint.known_sd:

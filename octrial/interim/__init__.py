@@ -14,8 +14,8 @@ The rule is evaluated by the same code as the boundary tables (:mod:`octrial.int
 so at the planned sample sizes the decision is the table's.
 """
 
-from octrial.interim.decision import ENDPOINTS, Assessment, Decision, assess, decide, rule_at
-from octrial.interim.observations import SYNTAX, parse_data
+from octrial.interim.decision import Assessment, Decision, assess, decide, rule_at
+from octrial.interim.observations import parse_data
 
-__all__ = ["ENDPOINTS", "SYNTAX", "Assessment", "Decision", "assess", "decide", "parse_data",
+__all__ = ["Assessment", "Decision", "assess", "decide", "parse_data",
            "rule_at"]

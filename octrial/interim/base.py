@@ -17,6 +17,7 @@ from typing import Any
 
 from octrial.design.model import Design
 from octrial.errors import Problem
+from octrial.interim.observations import Syntax
 from octrial.plurals import noun
 
 
@@ -54,6 +55,8 @@ class EndpointInterim(ABC):
     """Interim-look support for one endpoint type."""
 
     endpoint: str
+    syntax: Syntax
+    """How the endpoint's data are written (``ARM=x/n``)."""
 
     def frame(self, design: Design, observed: dict[str, Any], look: int) -> Frame:
         """The design whose rule at ``look`` (from 1) the observations are read on, and

@@ -17,7 +17,7 @@ from scipy import optimize
 from octrial.design.model import Design
 from octrial.endpoints.binary import BetaPosterior, prob_difference_exceeds, update
 from octrial.interim.base import EndpointInterim, PosteriorSummary
-from octrial.interim.observations import BinaryData
+from octrial.interim.observations import BINARY, BinaryData
 from octrial.interim.subjects import read_subjects
 
 XTOL = 1e-12
@@ -40,6 +40,7 @@ class BinaryInterim(EndpointInterim):
     """x/n per arm."""
 
     endpoint = "binary"
+    syntax = BINARY
 
     def sizes(self, design: Design, observed: dict[str, Any]) -> tuple[int, ...]:
         return tuple(observed[arm].n for arm in design.arm_names)

@@ -48,7 +48,7 @@ from octrial.endpoints.count import GammaMixture, GammaPosterior, prob_ratio, up
 from octrial.errors import InputError, Problem
 from octrial.interim import adequacy
 from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary, disagreement
-from octrial.interim.observations import CountData
+from octrial.interim.observations import COUNT, CountData
 from octrial.interim.rule import observed_design
 from octrial.interim.subjects import read_subjects
 from octrial.numerics.parameter_grid import Grid, GridPosterior
@@ -169,6 +169,7 @@ class CountInterim(EndpointInterim):
     """events/exposure per arm."""
 
     endpoint = "count"
+    syntax = COUNT
     size_word = "exposure"
 
     # -- sizes -----------------------------------------------------------------------

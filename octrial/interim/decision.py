@@ -17,13 +17,10 @@ from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.design.model import Design
 from octrial.design.thresholds import FUNCTIONS
-from octrial.endpoints.base import LatticeFamily
+from octrial.endpoints import FAMILIES
 from octrial.errors import InputError, Problem, single
 from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
-from octrial.interim.binary import BinaryInterim
-from octrial.interim.count import CountInterim
-from octrial.interim.normal import NormalInterim
-from octrial.interim.observations import OPTION, SYNTAX, parse_data
+from octrial.interim.observations import OPTION, parse_data
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -37,10 +34,6 @@ from octrial.interim.rule import (
     thresholds_at,
 )
 from octrial.rules.boundaries import with_unit
-
-ENDPOINTS: dict[str, EndpointInterim] = {
-    e.endpoint: e for e in (BinaryInterim(), CountInterim(), NormalInterim())}
-"""Interim-look support per endpoint type."""
 
 DEFAULT_LEVEL = 0.95
 DEFAULT_SEED = 20_261_201
@@ -134,11 +127,12 @@ class Decision:
 
 def endpoint_support(design: Design) -> EndpointInterim:
     """The interim support for ``design``'s endpoint, or a clear error."""
-    support = ENDPOINTS.get(design.endpoint.type)
+    support = design.family.interim()
     if support is None:
+        known = [name for name, family in FAMILIES.items() if family.interim() is not None]
         raise single(design.source.path or design.name, "endpoint.type",
                      "an endpoint with interim decisions in this version ("
-                     + ", ".join(ENDPOINTS) + ")", design.endpoint.type)
+                     + ", ".join(known) + ")", design.endpoint.type)
     return support
 
 
@@ -224,7 +218,7 @@ def rule_at(design: Design, look: int, observed: dict[str, Any],
     frame = support.frame(design, observed, look)
     _check_sizes(support, frame, look)
     on = frame.design
-    if isinstance(on.family, LatticeFamily):
+    if on.family.lattice:
         return frame, assess(on, look, frame.sizes, support.statistics(on, observed))
     return frame, support.assess_point(on, look, frame.sizes, observed, seed)
 
@@ -275,7 +269,7 @@ def decide(
     data = tuple(data)
     path = None if subjects is None else Path(subjects)
     if not data and path is None:
-        form = SYNTAX[design.endpoint.type].form
+        form = support.syntax.form
         raise InputError(OPTION, [Problem(
             "", f"the data so far: --data ARM={form} for each arm "
             f"({', '.join(design.arm_names)}), or a per-subject file (--subjects)",
@@ -400,7 +394,7 @@ def _planned_bounds(support: EndpointInterim, design: Design,
     if design.two_arm:
         return None
     planned = tuple(design.looks.per_arm[look - 1])
-    if isinstance(design.family, LatticeFamily):
+    if design.family.lattice:
         row = observed_look(design, look - 1, planned).boundaries[0]
         statistic = design.family.statistic
         return tuple(with_unit(rule, f" {statistic}")

@@ -49,7 +49,7 @@ from octrial.errors import InputError, Problem
 from octrial.interim import adequacy
 from octrial.interim.base import EndpointInterim, PosteriorSummary, disagreement
 from octrial.interim.count import arm_seed
-from octrial.interim.observations import NormalData
+from octrial.interim.observations import NORMAL, NormalData
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -102,6 +102,7 @@ class NormalInterim(EndpointInterim):
     """mean,sd,n per arm."""
 
     endpoint = "normal"
+    syntax = NORMAL
 
     def sizes(self, design: Design, observed: dict[str, Any]) -> tuple[int, ...]:
         return tuple(observed[arm].n for arm in design.arm_names)

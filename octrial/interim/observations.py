@@ -4,9 +4,10 @@
 * count: ``ARM=events/exposure`` — total events and total exposure;
 * normal: ``ARM=mean,sd,n`` — sample mean, sample standard deviation and size.
 
-Each syntax is one small parser registered in :data:`SYNTAX` under the endpoint type, so
-a new endpoint adds its own. Parsers raise :class:`ValueError` with the expected form; the
-caller turns that into an :class:`~octrial.errors.InputError` naming the option and arm.
+Each syntax is one small parser that the endpoint's interim support names
+(:attr:`~octrial.interim.base.EndpointInterim.syntax`), so a new endpoint adds its own.
+Parsers raise :class:`ValueError` with the expected form; the caller turns that into an
+:class:`~octrial.errors.InputError` naming the option and arm.
 """
 
 from __future__ import annotations
@@ -119,12 +120,23 @@ def _normal(text: str) -> NormalData:
     return NormalData(mean, sd, n)
 
 
-SYNTAX: dict[str, Syntax] = {
-    "binary": Syntax("x/n", "12/30", _binary),
-    "count": Syntax("events/exposure", "14/52.5", _count),
-    "normal": Syntax("mean,sd,n", "1.8,2.4,40", _normal),
-}
-"""Data syntax per endpoint type."""
+BINARY = Syntax("x/n", "12/30", _binary)
+COUNT = Syntax("events/exposure", "14/52.5", _count)
+NORMAL = Syntax("mean,sd,n", "1.8,2.4,40", _normal)
+"""The built-in syntaxes; each family's interim support names its own
+(:attr:`~octrial.interim.base.EndpointInterim.syntax`)."""
+
+
+def syntax_of(design: Design) -> Syntax:
+    """The data syntax of ``design``'s endpoint, or a clear error."""
+    support = design.family.interim()
+    if support is None:
+        from octrial.endpoints import FAMILIES
+
+        known = [name for name, family in FAMILIES.items() if family.interim() is not None]
+        raise single(OPTION, "", "an endpoint with a data syntax (" + ", ".join(known) + ")",
+                     design.endpoint.type)
+    return support.syntax
 
 
 def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
@@ -146,10 +158,7 @@ def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
     InputError
         Every malformed entry, unknown or repeated arm and missing arm.
     """
-    syntax = SYNTAX.get(design.endpoint.type)
-    if syntax is None:
-        raise single(OPTION, "", "an endpoint with a data syntax (" + ", ".join(SYNTAX) + ")",
-                     design.endpoint.type)
+    syntax = syntax_of(design)
     problems = Problems()
     arms = design.arm_names
     found: dict[str, object] = {}

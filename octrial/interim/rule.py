@@ -24,7 +24,6 @@ import numpy as np
 
 from octrial.design.model import Design, Looks
 from octrial.design.thresholds import FUNCTIONS, evaluate_spec
-from octrial.endpoints.base import LatticeFamily
 from octrial.rules.boundaries import boundary_table
 from octrial.rules.lattice import DECISION_TOLERANCE, LatticeRule, build_rule, predictive_success
 
@@ -152,7 +151,7 @@ class ObservedLook:
 def observed_look(design: Design, k: int, n_arms: tuple[int, ...]) -> ObservedLook:
     """Tables of look ``k`` (from 0) at per-arm sizes ``n_arms``, cached."""
     family = design.family
-    if not isinstance(family, LatticeFamily):
+    if not family.lattice:
         raise TypeError(f"{family.name} endpoints have no lattice rule")
     reduced = observed_design(design, k, n_arms)
     rule = build_rule(reduced)

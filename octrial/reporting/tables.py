@@ -182,7 +182,7 @@ def boundary_tables(data: Any) -> list[Table]:
     if frame is None:
         return []
     design = data.design
-    statistic = getattr(design.family, "statistic", "sample mean")
+    statistic = design.family.statistic
     one_arm = {"look", "n", "efficacy_rule", "futility_rule"}
     control = f"control_{statistic}"
     two_arm = {"look", "n_treatment", "n_control", control, "efficacy_rule", "futility_rule"}
@@ -224,7 +224,7 @@ def _one_arm_boundaries(data: Any, frame: pd.DataFrame, statistic: str) -> Table
     for _, r in frame.iterrows():
         values = [_rule(r[c.key]) if c.key.endswith("_rule") else r[c.key] for c in columns]
         rows.append(_row(values, columns, ("final",) if int(r["look"]) == last else ()))
-    if data.design.family.name == "normal":
+    if not data.design.family.lattice:  # bounds on the sample mean
         notes: tuple[str, ...] = (
             "Stop for efficacy when the sample mean meets the efficacy rule; stop for "
             "futility when it meets the futility rule ('never': no sample mean does). At "

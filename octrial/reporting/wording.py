@@ -1,9 +1,8 @@
 """The design in words: hypotheses, the posterior probability the rule uses, the rule at
 each look, sample-size range, borrowing and the assumptions every number depends on.
 
-Endpoint families may refine the wording by defining ``unit`` (the parameter's unit) and
-``assumptions`` (a tuple of sentences about the data model); otherwise the tables below
-are used, keyed by ``endpoint.type``.
+The family's own words (its parameter, statistic, unit, data model and the note on
+effective sample sizes) come from the family object (:class:`~octrial.endpoints.base.Family`).
 """
 
 from __future__ import annotations
@@ -16,44 +15,23 @@ import pandas as pd
 from octrial.design.model import Design
 from octrial.reporting.formats import probability, truth
 
-UNITS = {
-    "binary": "proportion",
-    "count": "events per unit of exposure",
-    "normal": "units of the endpoint",
-}
-"""The unit of each family's parameter, for axis labels."""
-
-DATA_MODEL = {
-    "binary": "Each subject's outcome is a response or not, with the arm's true response "
-              "rate, independently of every other subject (binomial model).",
-    "count": "Each subject's number of events follows a Poisson distribution with mean equal "
-             "to the arm's true rate times the subject's exposure, independently of other "
-             "subjects (unless the design states a negative binomial model).",
-    "normal": "Each subject's outcome is normally distributed around the arm's true mean, "
-              "independently of other subjects, with the standard deviation stated in the "
-              "design (when the analysis treats the sd as unknown, the stated true sd "
-              "generates every scenario's data and the analysis estimates it).",
-}
-"""The data model behind each endpoint family, in one sentence."""
-
 BETTER = {"higher": ">", "lower": "<"}
 WORSE = {"higher": "≤", "lower": "≥"}
 
 
 def parameter(design: Design) -> str:
     """Plain name of the per-arm parameter (for example 'rate')."""
-    return str(getattr(design.family, "parameter", "parameter"))
+    return design.family.parameter
 
 
 def statistic(design: Design) -> str:
     """Plain name of the counted statistic of a lattice endpoint ('responses', 'events')."""
-    return str(getattr(design.family, "statistic", "responses"))
+    return design.family.statistic
 
 
 def unit(design: Design) -> str:
     """The parameter's unit."""
-    return str(getattr(design.family, "unit", None) or UNITS.get(design.family.name,
-                                                                   "parameter units"))
+    return design.family.unit
 
 
 def _is_difference(design: Design) -> bool:
@@ -222,17 +200,9 @@ def _describe(prior: Any) -> str:
     return describe() if callable(describe) else str(prior)
 
 
-ESS_NOTE = {
-    "binary": "Effective sample size of a beta prior: a + b, in subjects; of a mixture, the "
-              "weight-averaged a + b (common practice; Morita, Thall & Müller 2008 give a "
-              "general definition).",
-}
-
-
 def ess_note(design: Design) -> str:
     """How the effective sample sizes were computed."""
-    return ESS_NOTE.get(design.family.name, "Effective sample size as computed by the "
-                        "endpoint family (see docs/methods.md).")
+    return design.family.prior_size_note
 
 
 def sample_size_range(design: Design, boundaries: pd.DataFrame | None) -> tuple[int, int]:
@@ -323,9 +293,8 @@ def type1_sentence(data: Any) -> str:
 def assumptions(data: Any) -> list[str]:
     """Every assumption the report's numbers depend on."""
     design = data.design
-    model = getattr(design.family, "assumptions", None)
-    items = list(model) if model else [DATA_MODEL.get(
-        design.family.name, "The data model of the endpoint stated in the design file.")]
+    items = list(design.family.assumptions(design)) or [
+        "The data model of the endpoint stated in the design file."]
     per_arm = ", ".join(" / ".join(str(v) for v in n) for n in design.looks.per_arm)
     items += [
         "The true parameter values are those of each scenario and do not change during the "
