@@ -17,7 +17,6 @@ from octrial.bayesian_oc.nodes import (
 )
 from octrial.design.model import Design
 from octrial.design_prior import design_prior_design, on_effect
-from octrial.endpoints.base import LatticeFamily
 from octrial.engines import choose
 from octrial.errors import InputError
 from octrial.numerics import tanh_sinh
@@ -40,7 +39,7 @@ CHUNK = 2000
 def success_function(design: Design) -> Callable[[np.ndarray], np.ndarray]:
     """Pr(success | truth) at many true values by the design's exact engine (the batched
     lattice programme on a count lattice)."""
-    if isinstance(design.family, LatticeFamily):
+    if design.family.lattice:
         from octrial.engines.lattice_batch import IncrementTables, run_batch
         from octrial.rules.lattice import build_rule
 

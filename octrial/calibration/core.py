@@ -39,7 +39,6 @@ from octrial.calibration.tuning import Choice, Tuner, best_failing
 from octrial.calibration.variants import Builder, allocation_unit, looks_at
 from octrial.design.model import Design
 from octrial.design_prior import assurance_record
-from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.monte_carlo import MonteCarloSettings
 from octrial.errors import InputError, Problem
@@ -261,7 +260,7 @@ class _Search:
 
 def _check_against_engine(design: Design, truths: Truths, a: Assessment) -> None:
     """The chosen design, recomputed by the exact engine (no caches, no batching)."""
-    if not isinstance(design.family, LatticeFamily):
+    if not design.family.lattice:
         return
     rows = len(truths.values) if truths.prior_start is None else truths.prior_start
     outcome = ExactLatticeEngine.run(design, truths.values[:rows], estimate=False)
@@ -395,7 +394,7 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
                          "stages": request.stages, "range": list(request.n_range)}
     if run.sizing is not None:
         out["sizing"] = run.sizing
-    if isinstance(design.family, LatticeFamily):
+    if design.family.lattice:
         table = boundary_table(design, build_rule(design))
         if not design.two_arm:
             out["boundaries"] = [

@@ -19,7 +19,6 @@ from scipy import optimize
 from octrial.calibration.evaluator import Assessment
 from octrial.calibration.nulls import Truths, control_range, on_boundary
 from octrial.design.model import Design
-from octrial.endpoints.base import LatticeFamily
 from octrial.engines.exact_lattice import stopping_probabilities
 from octrial.rules.lattice import build_rule
 
@@ -44,7 +43,7 @@ def refine_worst(design: Design, truths: Truths, a: Assessment,
     cheaply); otherwise the refined maximum (at least the grid's). ``span`` limits the
     control values searched (``--null-range``).
     """
-    if not design.two_arm or not isinstance(design.family, LatticeFamily):
+    if not design.two_arm or not design.family.lattice:
         return None
     values = truths.values[: truths.nulls]
     on_line = np.array([abs(t - on_boundary(design, c)) < 1e-9 for t, c in values[:, :2]],

@@ -87,7 +87,7 @@ def run_conflict(design: Design) -> dict[str, Any]:
         vague = variant(design, j, None)
         informative = variant(design, j, {"method": "power", "a0": record.a0})
         baseline = vague if baseline is None else variant(baseline, j, None)
-        if isinstance(design.family, LatticeFamily):
+        if design.family.lattice:
             table = _lattice_conflict(design, j, informative, vague)
         elif getattr(design.endpoint, "known_sd", False):
             table = _normal_conflict(design, j, informative, vague)

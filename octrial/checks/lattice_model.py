@@ -37,8 +37,6 @@ from octrial.endpoints.count import GammaMixture, GammaPosterior
 from octrial.plurals import noun, series
 from octrial.simulation import binary as binary_kernel
 
-TO_GRID = {"binary": special.logit, "count": np.log}
-FROM_GRID = {"binary": special.expit, "count": np.exp}
 ROW_BATCH = 64
 """Studies per batch when a grid difference is integrated (bounds memory)."""
 
@@ -55,12 +53,30 @@ class LatticeData:
 
 
 class LatticeModel(CheckModel):
-    """Binary and count designs (see module docstring)."""
+    """What binary and count designs share (see module docstring); :class:`BinaryModel`
+    and :class:`CountModel` add what differs."""
+
+    word: str
+    """The per-arm parameter in words ('response rate')."""
+    conjugate: str
+    """The conjugate prior's name ('beta')."""
+    grid_name: str
+    """Name and label of the two-arm target on the grid engine's scale."""
+    grid_label: str
+
+    @staticmethod
+    def to_grid(value: np.ndarray) -> np.ndarray:
+        """The rate on the grid engine's scale (logit or log)."""
+        raise NotImplementedError
+
+    @staticmethod
+    def from_grid(theta: np.ndarray) -> np.ndarray:
+        """The inverse of :meth:`to_grid`."""
+        raise NotImplementedError
 
     def __init__(self, design: Design) -> None:
         super().__init__(design)
         self.family = design.family
-        self.kind = self.family.name
         self.on_grid = self.family.on_grid(design) if self._has_priors(design) else False
 
     @staticmethod
@@ -74,15 +90,12 @@ class LatticeModel(CheckModel):
 
     def quantities(self) -> tuple[Quantity, ...]:
         arms = self.design.arms
-        per_arm = tuple(Quantity(f"rate_{a.name}", f"{self._word()} ({a.name})",
+        per_arm = tuple(Quantity(f"rate_{a.name}", f"{self.word} ({a.name})",
                                  len(arms) == 1, *self._arm_computation(j))
                         for j, a in enumerate(arms))
         if len(arms) == 1:
             return per_arm
         return (self._target_quantity(), *per_arm)
-
-    def _word(self) -> str:
-        return "response rate" if self.kind == "binary" else "event rate"
 
     def _arm_computation(self, arm: int) -> tuple[str, bool]:
         prior = self.design.arms[arm].prior
@@ -91,28 +104,21 @@ class LatticeModel(CheckModel):
             return (f"grid engine ({points} points on the {self.family.grid_scale} scale; "
                     "end-corrected CDF at the nodes, Hermite between them)", False)
         single = prior is not None and len(prior.weights) == 1
-        kind = "beta" if self.kind == "binary" else "gamma"
+        kind = self.conjugate
         if single:
             return f"conjugate {kind} update (closed form)", True
         return f"{kind}-mixture update (posterior weights from marginal likelihoods)", False
 
     def _target_quantity(self) -> Quantity:
         if self.on_grid:
-            name = "log_odds_ratio" if self.kind == "binary" else "log_rate_ratio"
-            label = ("log odds ratio, treatment to control" if self.kind == "binary"
-                     else "log rate ratio, treatment to control")
             points = self.design.simulation.grid_points
-            return Quantity(name, label, True, f"grid engine ({points} points): outer "
-                            "trapezoidal sum over the control grid", False)
-        if self.kind == "binary":
-            return Quantity("difference", "rate_T − rate_C", True,
-                            "tanh-sinh quadrature of Pr(p_T − p_C > d) (the engines' "
-                            "two-arm quadrature)", False)
-        mixtures = any(len(a.prior.weights) > 1 for a in self.design.arms)
-        return Quantity("log_rate_ratio", "log rate ratio, treatment to control", True,
-                        "Beta identity for the rate ratio" + (
-                            ", summed over mixture components" if mixtures else ""),
-                        not mixtures)
+            return Quantity(self.grid_name, self.grid_label, True, f"grid engine ({points} "
+                            "points): outer trapezoidal sum over the control grid", False)
+        return self._conjugate_target()
+
+    def _conjugate_target(self) -> Quantity:
+        """The two-arm target with conjugate priors."""
+        raise NotImplementedError
 
     def true_value(self, quantity: Quantity, truths: np.ndarray) -> np.ndarray:
         if quantity.name.startswith("rate_"):
@@ -120,8 +126,7 @@ class LatticeModel(CheckModel):
         t, c = truths[:, 0], truths[:, 1]
         if quantity.name == "difference":
             return t - c
-        to = TO_GRID[self.kind]
-        return to(t) - to(c)
+        return self.to_grid(t) - self.to_grid(c)
 
     # -- priors ----------------------------------------------------------------------
     def cannot_draw(self, source: str) -> str | None:
@@ -169,14 +174,17 @@ class LatticeModel(CheckModel):
         return LatticeData(stats)
 
     def _increment(self, rng: np.random.Generator, truth: np.ndarray, n: int) -> np.ndarray:
-        if self.kind == "binary":
-            return rng.binomial(n, truth)
-        e = self.design.endpoint
-        mean = truth * e.exposure * n
-        if e.model == "poisson":
-            return rng.poisson(mean)
-        size = n / e.dispersion  # the sum of n subjects' counts (see CountFamily)
-        return rng.negative_binomial(size, size / (size + mean))
+        """The statistic of ``n`` new subjects per study."""
+        raise NotImplementedError
+
+    def _arm_predictive(self, design: Design, j: int, name: str, post: Any, n: int,
+                        exposure: float) -> Predictive:
+        """Arm ``j``'s prior predictive outcome at the final look."""
+        raise NotImplementedError
+
+    def _plausible_one_arm(self) -> tuple[float, float, str] | None:
+        """The default plausible range of one arm's observed rate."""
+        raise NotImplementedError
 
     def posterior(self, data: LatticeData, look: int) -> LatticePosteriors:
         posts, rows = [], []
@@ -206,23 +214,10 @@ class LatticeModel(CheckModel):
         for j, arm in enumerate(design.arms):
             n = design.looks.per_arm[-1][j]
             post = family.posterior(design, j, 0, np.zeros(1))
-            if self.kind == "binary":
-                pmf = family.predictive_pmf(design, post, n, n + 1)[0]
-                out.append(Predictive.from_pmf(
-                    f"responses_{arm.name}", f"responses among {n} subjects ({arm.name})",
-                    np.arange(n + 1), pmf, extremes=(0.0, float(n))))
-            else:
-                start = int(4 * n * exposure * max(_prior_mean(design, j), 1e-3)) + 16
-                pmf = truncated_support(
-                    lambda size, d=design, p=post, n=n: family.predictive_pmf(d, p, n, size)[0],
-                    start)
-                out.append(Predictive.from_pmf(
-                    f"events_{arm.name}",
-                    f"events in {n * exposure:g} units of exposure ({arm.name})",
-                    np.arange(pmf.size), pmf))
+            out.append(self._arm_predictive(design, j, arm.name, post, n, exposure))
         sizes = [design.looks.per_arm[-1][j] * exposure for j in range(len(design.arms))]
         if len(out) == 1:
-            word = "response" if self.kind == "binary" else "event"
+            word = self.word.removesuffix(" rate")
             only = out[0]
             out.append(Predictive.from_pmf(f"observed_{word}_rate", f"observed {word} rate",
                                            only.values / sizes[0], only.weights, effect=True))
@@ -257,14 +252,83 @@ class LatticeModel(CheckModel):
     def plausible_effect(self) -> tuple[float, float, str] | None:
         h = self.design.hypothesis
         if not self.design.two_arm:
-            if self.kind == "binary":
-                return None
-            return (h.benchmark / 10, h.benchmark * 10,
-                    "an observed event rate within a factor 10 of the benchmark")
+            return self._plausible_one_arm()
         if h.comparison == "difference":
             return (-0.5, 0.5, "an observed difference in response rates within ±0.5")
         return (math.log(0.1), math.log(10.0),
                 "an observed ratio within a factor 10 of no effect (log scale ±2.30)")
+
+
+class BinaryModel(LatticeModel):
+    """Binary designs: binomial responses, beta-mixture or logit-normal priors."""
+
+    word = "response rate"
+    conjugate = "beta"
+    grid_name = "log_odds_ratio"
+    grid_label = "log odds ratio, treatment to control"
+    to_grid = staticmethod(special.logit)
+    from_grid = staticmethod(special.expit)
+
+    def _conjugate_target(self) -> Quantity:
+        return Quantity("difference", "rate_T − rate_C", True,
+                        "tanh-sinh quadrature of Pr(p_T − p_C > d) (the engines' "
+                        "two-arm quadrature)", False)
+
+    def _increment(self, rng: np.random.Generator, truth: np.ndarray, n: int) -> np.ndarray:
+        return rng.binomial(n, truth)
+
+    def _arm_predictive(self, design: Design, j: int, name: str, post: Any, n: int,
+                        exposure: float) -> Predictive:
+        pmf = self.family.predictive_pmf(design, post, n, n + 1)[0]
+        return Predictive.from_pmf(
+            f"responses_{name}", f"responses among {n} subjects ({name})",
+            np.arange(n + 1), pmf, extremes=(0.0, float(n)))
+
+    def _plausible_one_arm(self) -> tuple[float, float, str] | None:
+        return None
+
+
+class CountModel(LatticeModel):
+    """Count designs: Poisson or negative binomial events, gamma-mixture or log-normal
+    priors."""
+
+    word = "event rate"
+    conjugate = "gamma"
+    grid_name = "log_rate_ratio"
+    grid_label = "log rate ratio, treatment to control"
+    to_grid = staticmethod(np.log)
+    from_grid = staticmethod(np.exp)
+
+    def _conjugate_target(self) -> Quantity:
+        mixtures = any(len(a.prior.weights) > 1 for a in self.design.arms)
+        return Quantity("log_rate_ratio", "log rate ratio, treatment to control", True,
+                        "Beta identity for the rate ratio" + (
+                            ", summed over mixture components" if mixtures else ""),
+                        not mixtures)
+
+    def _increment(self, rng: np.random.Generator, truth: np.ndarray, n: int) -> np.ndarray:
+        e = self.design.endpoint
+        mean = truth * e.exposure * n
+        if e.model == "poisson":
+            return rng.poisson(mean)
+        size = n / e.dispersion  # the sum of n subjects' counts (see CountFamily)
+        return rng.negative_binomial(size, size / (size + mean))
+
+    def _arm_predictive(self, design: Design, j: int, name: str, post: Any, n: int,
+                        exposure: float) -> Predictive:
+        family = self.family
+        start = int(4 * n * exposure * max(_prior_mean(design, j), 1e-3)) + 16
+        pmf = truncated_support(
+            lambda size, d=design, p=post, n=n: family.predictive_pmf(d, p, n, size)[0],
+            start)
+        return Predictive.from_pmf(
+            f"events_{name}", f"events in {n * exposure:g} units of exposure ({name})",
+            np.arange(pmf.size), pmf)
+
+    def _plausible_one_arm(self) -> tuple[float, float, str] | None:
+        h = self.design.hypothesis
+        return (h.benchmark / 10, h.benchmark * 10,
+                "an observed event rate within a factor 10 of the benchmark")
 
 
 def _prior_mean(design: Design, arm: int) -> float:
@@ -299,7 +363,7 @@ class LatticePosteriors(Posteriors):
     def _arm_moments(self, j: int) -> tuple[np.ndarray, np.ndarray]:
         post, rows = self.posts[j], self.rows[j]
         if self.model.on_grid:
-            value = FROM_GRID[self.model.kind](post.grid.nodes)
+            value = self.model.from_grid(post.grid.nodes)
             mean = post.weights @ value
             second = post.weights @ value**2
             return mean[rows], np.clip(second - mean**2, 0, None)[rows]
@@ -338,12 +402,11 @@ class LatticePosteriors(Posteriors):
     def cdf(self, quantity: Quantity, values: np.ndarray) -> np.ndarray:
         values = np.broadcast_to(np.asarray(values, dtype=float), (len(self),))
         j = self._arm(quantity)
-        kind = self.model.kind
         if j is not None:
             low, high = self.model.family.parameter_range
             if self.model.on_grid:
                 inside = (values > low) & (values < high)
-                theta = TO_GRID[kind](np.where(inside, values, 0.5))
+                theta = self.model.to_grid(np.where(inside, values, 0.5))
                 value = grid_values.cdf_at(self.posts[j], self.rows[j], theta)
                 return np.where(inside, value, np.where(values <= low, 0.0, 1.0))
             inside = np.clip(values, low, min(high, np.finfo(float).max))
@@ -385,16 +448,15 @@ class LatticePosteriors(Posteriors):
     # -- draws -----------------------------------------------------------------------
     def _arm_draws(self, j: int, rng: np.random.Generator, draws: int,
                    grid_scale: bool) -> np.ndarray:
-        kind = self.model.kind
         if self.model.on_grid:
             theta = grid_values.draw(self.posts[j], self.rows[j], rng, draws)
-            return theta if grid_scale else FROM_GRID[kind](theta)
+            return theta if grid_scale else self.model.from_grid(theta)
         post = self._conjugate_rows(j)
         pick = _pick(post.weights, rng, draws)
         a = np.take_along_axis(post.a, pick, axis=1)
         b = np.take_along_axis(post.b, pick, axis=1)
         value = rng.beta(a, b) if isinstance(post, BetaPosterior) else rng.gamma(a, 1.0 / b)
-        return TO_GRID[kind](value) if grid_scale else value
+        return self.model.to_grid(value) if grid_scale else value
 
     def draw(self, quantity: Quantity, rng: np.random.Generator, draws: int) -> np.ndarray:
         j = self._arm(quantity)

@@ -14,14 +14,14 @@ with a known truth. A :class:`CheckModel` supplies, for one design:
   engine), as a :class:`Posteriors` value: CDF at given values, mean, variance, draws;
 * prior predictive distributions of the outcome at the final look.
 
-Families register a model class in :data:`MODELS` (see DEVELOPERS.md, "Adding the
+A family gives its model through
+:meth:`~octrial.endpoints.base.Family.check_model` (see DEVELOPERS.md, "Adding the
 workflow checks for an endpoint").
 """
 
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
-from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -158,28 +158,10 @@ class CheckModel(ABC):
         return None
 
 
-MODELS: dict[str, Callable[[Design], CheckModel]] = {}
-"""Check models by ``endpoint.type``."""
-
-
-def register(name: str, factory: Callable[[Design], CheckModel]) -> None:
-    """Register the check model of an endpoint family."""
-    MODELS[name] = factory
-
-
 def model_for(design: Design) -> CheckModel:
-    """The check model of ``design``'s endpoint family."""
-    _register_builtin()
-    name = design.family.name
-    if name not in MODELS:
-        raise ValueError(f"no workflow checks for {name} endpoints")
-    return MODELS[name](design)
-
-
-def _register_builtin() -> None:
-    from octrial.checks import lattice_model, normal_model
-
-    for name, factory in (("binary", lattice_model.LatticeModel),
-                          ("count", lattice_model.LatticeModel),
-                          ("normal", normal_model.normal_model)):
-        MODELS.setdefault(name, factory)
+    """The check model of ``design``'s endpoint family
+    (:meth:`~octrial.endpoints.base.Family.check_model`)."""
+    model = design.family.check_model(design)
+    if model is None:
+        raise ValueError(f"no workflow checks for {design.family.name} endpoints")
+    return model

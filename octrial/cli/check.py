@@ -84,7 +84,7 @@ def check_command(design: str, out: str | None, simulations: int, bins: int, dra
         outcome_range=_range("--outcome-range", outcome_range),
         plausible=_range("--plausible", plausible), checks=_checks(only))
     loaded = read_design(design)
-    if settings.outcome_range is not None and loaded.family.name != "normal":
+    if settings.outcome_range is not None and not loaded.family.outcome_range_needed:
         raise single("--outcome-range", "", "a normal endpoint (binary and count outcomes "
                      "have their own range)", f"a {loaded.family.name} endpoint")
     folder = default_out(loaded) if out is None else Path(out)

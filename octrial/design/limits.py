@@ -19,7 +19,6 @@ import math
 import numpy as np
 
 from octrial.design.model import Design
-from octrial.endpoints.base import LatticeFamily
 from octrial.errors import InputError, Problem
 
 MEMORY_LIMIT = 2 * 2**30
@@ -49,7 +48,7 @@ def lattice_sizes(design: Design) -> tuple[float, ...] | None:
     """Per-arm lattice sizes at the last look (inf when too large to compute), or None
     for a family without a lattice."""
     family = design.family
-    if not isinstance(family, LatticeFamily):
+    if not family.lattice:
         return None
     sizes = []
     for j in range(len(design.arms)):
@@ -126,10 +125,10 @@ def normal_grid_nodes(design: Design) -> float | None:
     """Estimated grid points of the exact normal engine at the first look (known sd), or
     None: the scenarios' spread in standard errors of the first look plus the engine's
     range either side, at its finer number of points per standard error."""
-    from octrial.engines.exact_normal import POINTS_PER_SD, RANGE_SD
+    from octrial.engines.exact_normal import POINTS_PER_SD, RANGE_SD, NormalRecursionEngine
 
     family = design.family
-    if family.name != "normal" or not design.endpoint.known_sd:
+    if NormalRecursionEngine.unsupported(design):
         return None
     info = family.information(design, design.looks.per_arm[0])
     values = [row[0] - (row[1] if len(row) > 1 else 0.0) for row in design.scenarios.values]

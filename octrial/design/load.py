@@ -28,7 +28,7 @@ from octrial.design.model import (
 from octrial.design.reader import NONE_WORD, Phrase, Problems, Table
 from octrial.design.scenarios import read_scenarios
 from octrial.design.thresholds import read_threshold
-from octrial.endpoints import FAMILIES, Family, LatticeFamily
+from octrial.endpoints import FAMILIES, Family
 from octrial.errors import DesignError, Problem
 
 SCHEMA = 1
@@ -298,7 +298,7 @@ def _read_count_rule(
         table.fail("efficacy_count", "a one-arm design (count rules compare one arm's "
                    "responses with fixed numbers)", Phrase("a two-arm design"))
         return None
-    if family is not None and not isinstance(family, LatticeFamily):
+    if family is not None and not family.lattice:
         table.fail("efficacy_count", "an endpoint whose data are counts (binary or count) "
                    "for a rule stated in counts", Phrase(f"a {family.name} endpoint"))
         return None

@@ -89,6 +89,10 @@ class Family(ABC):
     reports the probability mass it neglects (see :attr:`truncation_epsilon`)."""
     truncation_epsilon: ClassVar[float] = 0.0
     """Largest neglected mass beyond a truncated lattice, per arm and look."""
+    outcome_range_needed: ClassVar[bool] = False
+    """Whether the prior predictive check needs a range of plausible outcomes from the user
+    (an unbounded outcome: ``octrial check --outcome-range``); bounded outcomes have their
+    own."""
     statistic: ClassVar[str] = "sample mean"
     """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
 
@@ -119,12 +123,16 @@ class Family(ABC):
         family has none."""
         return None
 
+    draws_design_prior: ClassVar[bool] = False
+    """Whether :meth:`design_prior_draws` is implemented."""
+
     def design_prior_draws(
         self, design: Any, rng: np.random.Generator, size: int,
-    ) -> tuple[np.ndarray, np.ndarray] | None:
+    ) -> tuple[np.ndarray, np.ndarray]:
         """True (mean, sd) per study and arm drawn from the design prior, for simulating
-        assurance with the family's simulator; ``None`` when the family cannot."""
-        return None
+        assurance with the family's simulator (when :attr:`draws_design_prior`)."""
+        raise NotImplementedError(f"no simulation from the design prior for {self.name} "
+                                  "endpoints")
 
     def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
         """``octrial boundaries``: the rule per look as bounds a committee applies by hand

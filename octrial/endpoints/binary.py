@@ -37,6 +37,7 @@ from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
 
 if TYPE_CHECKING:
+    from octrial.checks.model import CheckModel
     from octrial.interim.base import EndpointInterim
 
 TAIL = 1e-15
@@ -242,6 +243,11 @@ class BinaryFamily(GridModel, LatticeFamily):
         from octrial.interim.binary import BinaryInterim
 
         return BinaryInterim()
+
+    def check_model(self, design: Any) -> CheckModel:
+        from octrial.checks.lattice_model import BinaryModel
+
+        return BinaryModel(design)
 
     def read_endpoint(self, table: Table) -> BinaryEndpoint:
         table.allow("type", "better")

@@ -42,6 +42,7 @@ from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.numerics import parameter_grid as pg
 
 if TYPE_CHECKING:
+    from octrial.checks.model import CheckModel
     from octrial.interim.base import EndpointInterim
 
 TRUNCATION_EPSILON = 1e-10
@@ -212,6 +213,11 @@ class CountFamily(GridModel, LatticeFamily):
         from octrial.interim.count import CountInterim
 
         return CountInterim()
+
+    def check_model(self, design: Any) -> CheckModel:
+        from octrial.checks.lattice_model import CountModel
+
+        return CountModel(design)
 
     def read_endpoint(self, table: Table) -> CountEndpoint:
         table.allow("type", "better", "exposure", "model", "dispersion")

@@ -40,6 +40,7 @@ from octrial.endpoints.prior_size import arm_summary, fda_summary
 from octrial.errors import single
 
 if TYPE_CHECKING:
+    from octrial.checks.model import CheckModel
     from octrial.interim.base import EndpointInterim
 
 UNKNOWN = "unknown"
@@ -169,6 +170,7 @@ class NormalFamily(Family):
     name = "normal"
     parameter = "mean"
     unit = "units of the endpoint"
+    outcome_range_needed = True
     data_model = ("Each subject's outcome is normally distributed around the arm's true mean, "
                   "independently of other subjects, with the standard deviation stated in the "
                   "design (when the analysis treats the sd as unknown, the stated true sd "
@@ -183,6 +185,20 @@ class NormalFamily(Family):
         from octrial.interim.normal import NormalInterim
 
         return NormalInterim()
+
+    def check_model(self, design: Any) -> CheckModel:
+        from octrial.checks.normal_model import normal_model
+
+        return normal_model(design)
+
+    draws_design_prior = True
+
+    def design_prior_draws(
+        self, design: Any, rng: np.random.Generator, size: int,
+    ) -> tuple[np.ndarray, np.ndarray]:
+        from octrial.simulation.normal import design_prior_draws
+
+        return design_prior_draws(design, rng, size)
 
     def read_endpoint(self, table: Table) -> NormalEndpoint:
         table.allow("type", "better", "sd", "true_sd")

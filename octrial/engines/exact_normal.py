@@ -44,7 +44,7 @@ import numpy as np
 from scipy import special
 
 from octrial.design.model import Design
-from octrial.endpoints.normal import update
+from octrial.endpoints.normal import NormalFamily, update
 from octrial.engines.outcome import Estimation, Outcome
 from octrial.rules.normal import NormalLook, NormalRule, benefit_score, build_normal_rule
 
@@ -291,12 +291,12 @@ class NormalRecursionEngine:
 
     @staticmethod
     def serves(family: Any) -> bool:
-        return family.name == "normal"
+        return isinstance(family, NormalFamily)
 
     @staticmethod
     def unsupported(design: Design) -> str | None:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
-        if design.family.name != "normal":
+        if not isinstance(design.family, NormalFamily):
             return f"{design.family.name} endpoints are not normal"
         if not design.endpoint.known_sd:
             return ("a normal endpoint with unknown sd needs the Monte Carlo engine (the "

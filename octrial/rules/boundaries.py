@@ -232,7 +232,7 @@ def boundary_table(design: Design, rule: LatticeRule) -> pd.DataFrame:
     truncated lattice, a bound past its edge is looked for on larger lattices.
     """
     higher = design.hypothesis.better == "higher"
-    truncated = bool(getattr(design.family, "truncates", False))
+    truncated = design.family.truncates
     extensions = _Extensions(design, rule)
     rows = []
     for k, table in enumerate(rule.looks):
@@ -379,7 +379,7 @@ def _has_beyond(frame: pd.DataFrame) -> bool:
 def beyond_note(design: Design) -> str:
     """Why a bound can lie beyond the computed range, and what that costs."""
     family = design.family
-    epsilon = float(getattr(family, "truncation_epsilon", 0.0))
+    epsilon = family.truncation_epsilon
     share = epsilon / (design.looks.count * len(design.arms))
     return (f"'{BEYOND}': the bound lies past the largest count computed, the one "
             "stated ('none up to N': no count up to N stops the study that way; 'every "

@@ -51,7 +51,7 @@ def lattice_estimates(design: Design, rule: LatticeRule | None = None) -> Lattic
     ``rule``, the tables follow its lattice (a truncated lattice may have been sized for
     other truths than the design's scenarios)."""
     family = design.family
-    if not isinstance(family, LatticeFamily) or any(a.prior is None for a in design.arms):
+    if not family.lattice or any(a.prior is None for a in design.arms):
         return None
     means, posteriors = [], []
     for k, n_k in enumerate(design.looks.per_arm):

@@ -197,7 +197,7 @@ def build_rule(
         is sized for them as well as for the design's own scenarios.
     """
     family = design.family
-    if not isinstance(family, LatticeFamily):
+    if not family.lattice:
         raise TypeError(f"{family.name} endpoints have no lattice rule")
     cache = LatticeCache() if cache is None else cache
     design = serving(design, truths)

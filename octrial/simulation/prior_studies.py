@@ -18,7 +18,6 @@ studies only. The batches are independent tasks for :func:`octrial.execution.run
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -34,23 +33,10 @@ ASSURANCE_STREAM = 2**32 - 1
 BATCH_SIZE = 50_000
 
 
-def _normal_draws(design: Design, rng: np.random.Generator, replicates: int) -> Any:
-    from octrial.simulation.normal import design_prior_draws
-
-    return design_prior_draws(design, rng, replicates)
-
-
-PRIOR_DRAWS: dict[str, Callable[..., tuple[np.ndarray, np.ndarray]]] = {
-    "normal": _normal_draws,
-}
-"""Per family: ``(design, rng, replicates) -> (mean, sd)`` true values per study and arm,
-for simulators whose ``draw(rng, replicates, mean, sd)`` accepts per-study truths."""
-
-
 def prior_simulation_unsupported(design: Design) -> str | None:
     """Why assurance cannot be simulated for ``design``, or ``None``."""
     name = design.family.name
-    if name not in PRIOR_DRAWS:
+    if not design.family.draws_design_prior:
         return f"no simulation from the design prior for {name} endpoints"
     from octrial.simulation import general_unsupported
 
@@ -84,7 +70,7 @@ def draw_prior_batch(design: Design, seed: int, index: int, size: int) -> tuple[
         design, placeholder, design.simulation.interval_level)
     sequence = np.random.SeedSequence(seed, spawn_key=(ASSURANCE_STREAM, index))
     rng = np.random.Generator(np.random.PCG64(sequence))
-    mean, sd = PRIOR_DRAWS[design.family.name](design, rng, size)
+    mean, sd = design.family.design_prior_draws(design, rng, size)
     return simulator, mean, simulator.draw(rng, size, mean, sd)
 
 
