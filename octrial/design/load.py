@@ -13,7 +13,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from octrial.design import limits
+import octrial.design.limits as limits
 from octrial.design.model import (
     CONTROL,
     METHODS,

@@ -25,9 +25,9 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from scipy import special, stats
 
+import octrial.endpoints.grid_family as grid_family
 from octrial.design.model import Hypothesis
 from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
-from octrial.endpoints import grid_family
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
