@@ -8,7 +8,7 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import integrate, special, stats
 
 from octrial.design.load import load_design
 from octrial.endpoints import unknown_sd
@@ -372,3 +372,76 @@ def test_unknown_sd_two_arms_against_quadrature() -> None:
     assert 0 < se < 0.003 and 0 < result.assessment.predictive < 1
     assert result.as_dict()["predictive_probability_se"] == se
 
+
+
+# -- binary endpoints with logit-normal priors (grid posteriors) ----------------------
+
+def _logit_normal_posterior(mean: float, sd: float, x: int, n: int):
+    """Posterior density of the rate under a logit-normal prior, by scipy.integrate.quad
+    (normalised), and its CDF (the reference for the grid summaries)."""
+    from scipy import integrate, stats
+
+    def density(p: float) -> float:
+        return (stats.norm.pdf(special.logit(p), mean, sd) / (p * (1 - p))
+                * stats.binom.pmf(x, n, p))
+
+    total = integrate.quad(density, 0, 1, limit=400, epsabs=1e-300)[0]
+
+    def cdf(p: float) -> float:
+        return integrate.quad(density, 0, p, limit=400, epsabs=1e-300)[0] / total
+
+    mean_rate = integrate.quad(lambda p: p * density(p), 0, 1, limit=400,
+                               epsabs=1e-300)[0] / total
+    return density, total, cdf, mean_rate
+
+
+def test_logit_normal_one_arm_summaries_against_quadrature() -> None:
+    # Source: scipy.integrate.quad of the logit-normal prior x binomial likelihood; the
+    # credible limits must have the stated tail masses under that posterior.
+    from tests.helpers import ONE_ARM, build
+
+    prior = {"distribution": "logit-normal", "logit_mean": -1.2, "logit_sd": 0.8}
+    design = build(ONE_ARM, looks__n=[20, 40], looks__efficacy=[0.99, 0.95],
+                   hypothesis__benchmark=0.25, arms__treatment__prior=prior)
+    result = decide(design, 1, ["treatment=9/20"], level=0.9)
+    (summary,) = result.as_dict()["posterior"]["summaries"]
+    _, _, cdf, mean_rate = _logit_normal_posterior(-1.2, 0.8, 9, 20)
+    assert summary["mean"] == pytest.approx(mean_rate, abs=1e-7)
+    assert cdf(summary["lower"]) == pytest.approx(0.05, abs=1e-7)
+    assert cdf(summary["upper"]) == pytest.approx(0.95, abs=1e-7)
+
+
+def test_logit_normal_two_arm_summaries_against_quadrature() -> None:
+    # Source: scipy.integrate.quad over the control rate of its posterior density times
+    # the treatment posterior's CDF at the rate giving the odds ratio of the bound, each
+    # posterior from quad of logit-normal prior x binomial likelihood. (Two-arm
+    # logit-normal designs are compared on the odds-ratio scale only.)
+    from scipy import integrate
+
+    from tests.helpers import TWO_ARM, build
+
+    priors = {"treatment": {"prior": {"distribution": "logit-normal", "logit_mean": -0.5,
+                                      "logit_sd": 1.0}},
+              "control": {"prior": {"distribution": "logit-normal", "logit_mean": -1.0,
+                                    "logit_sd": 0.7}}}
+    design = build(TWO_ARM, arms=priors, hypothesis__comparison="odds-ratio",
+                   scenarios={"control": [0.3], "odds_ratio": [1.0, 2.0]},
+                   looks__n=[60, 120], looks__efficacy=[0.99, 0.95])
+    result = decide(design, 1, ["treatment=9/20", "control=5/20"], level=0.9)
+    summaries = result.as_dict()["posterior"]["summaries"]
+    assert len(summaries) == 3
+    _, _, cdf_t, mean_t = _logit_normal_posterior(-0.5, 1.0, 9, 20)
+    f_c, z_c, _, mean_c = _logit_normal_posterior(-1.0, 0.7, 5, 20)
+    assert summaries[0]["mean"] == pytest.approx(mean_t, abs=1e-7)
+    assert summaries[1]["mean"] == pytest.approx(mean_c, abs=1e-7)
+
+    def joint_cdf(bound: float) -> float:
+        def rate_t(c: float) -> float:
+            odds = bound * c / (1 - c)
+            return odds / (1 + odds)
+        return integrate.quad(lambda c: f_c(c) / z_c * cdf_t(rate_t(c)), 0, 1,
+                              limit=200)[0]
+
+    effect = summaries[2]
+    assert joint_cdf(effect["lower"]) == pytest.approx(0.05, abs=2e-6)
+    assert joint_cdf(effect["upper"]) == pytest.approx(0.95, abs=2e-6)
