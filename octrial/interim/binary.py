@@ -22,7 +22,7 @@ from scipy import optimize, special
 
 import octrial.endpoints.grid_family as grid_family
 from octrial.design.model import Design
-from octrial.endpoints.binary import BetaPosterior, prob_difference_exceeds, update
+from octrial.endpoints.binary import BetaPosterior, LogitNormal, prob_difference_exceeds, update
 from octrial.interim.base import EndpointInterim, PosteriorSummary
 from octrial.interim.observations import BINARY, BinaryData
 from octrial.interim.subjects import read_subjects
@@ -93,7 +93,7 @@ class BinaryInterim(EndpointInterim):
         self, design: Design, observed: dict[str, Any], level: float,
     ) -> tuple[PosteriorSummary, ...]:
         tail = (1.0 - level) / 2.0
-        if design.family.on_grid(design):
+        if any(isinstance(arm.prior, LogitNormal) for arm in design.arms):
             return self._grid_summaries(design, observed, (tail, 1.0 - tail))
         posts = self.posteriors(design, observed)
         out = [PosteriorSummary(f"rate ({arm})", float(post.mean()[0]),
