@@ -349,6 +349,37 @@ SEALED_BY = {"oc.csv": "run.json", "boundaries.csv": "run.json",
 """Every input a report reads besides the records, and the record whose seal covers it."""
 
 
+def seal_conflicts(folder: Path, files: Mapping[str, str | bytes]) -> list[Problem]:
+    """What writing ``files`` (name -> contents) into ``folder`` would do to its seals.
+
+    A file that a record in the folder seals may be written again only with the same
+    bytes; a file that the folder's record would have to list (``SEALED_BY``) but does
+    not may not be added. Each conflict is a problem naming the file; none means the
+    folder's seals still hold after the write.
+    """
+    problems: list[Problem] = []
+    records = {name: read_record(folder / name) for name in set(SEALED_BY.values())
+               if (folder / name).is_file()}
+    for file, data in files.items():
+        new = digest(data)
+        owner = SEALED_BY.get(file)
+        sealed = {name: record[SEAL][file] for name, record in records.items()
+                  if isinstance(record.get(SEAL), dict) and file in record[SEAL]}
+        for name, expected in sealed.items():
+            if expected != new:
+                problems.append(Problem(
+                    str(file), f"the table {name} seals (SHA-256 {expected})",
+                    f"a different table (SHA-256 {new})",
+                    f"writing it would break the seal of {name}; write it to another "
+                    "folder"))
+        if not sealed and owner in records:
+            problems.append(Problem(
+                str(file), f"a file {owner} lists", f"a file {owner} does not list",
+                f"writing it would make the report refuse the folder of {owner}; write it "
+                "to another folder"))
+    return problems
+
+
 def check_sealed(folder: Path, records: Mapping[str, dict[str, Any] | None],
                  design_sha256: str) -> None:
     """Refuse a folder whose files are not exactly what its records sealed.

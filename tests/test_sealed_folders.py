@@ -340,3 +340,29 @@ def test_a_mount_point_is_written_in_place(tmpfs) -> None:
     assert record["design"]["sha256"] == sha256(EVENTS)
     result = invoke("report", tmpfs, "--out", tmpfs.parent / "report.html", "--quiet")
     assert result.exit_code == 0, result.output
+
+
+# -- octrial boundaries into a run folder --------------------------------------------
+
+def test_boundaries_into_the_run_folder_keep_its_seal(tmp_path: Path) -> None:
+    # the same design's table is the run's, byte for byte: written again, the seal holds
+    folder = tmp_path / "run"
+    assert invoke("run", RESPONSE, "--out", folder, "--quiet").exit_code == 0
+    sealed = json.loads((folder / "run.json").read_text())["file_sha256"]["boundaries.csv"]
+    result = invoke("boundaries", RESPONSE, "--out", folder, "--quiet")
+    assert result.exit_code == 0, result.output
+    assert hashlib.sha256((folder / "boundaries.csv").read_bytes()).hexdigest() == sealed
+    assert invoke("report", folder, "--quiet").exit_code == 0
+
+
+def test_boundaries_that_would_break_a_seal_are_refused(tmp_path: Path) -> None:
+    # another design's table in this run's folder: exit 2 naming the file, nothing written
+    folder = tmp_path / "run"
+    assert invoke("run", RESPONSE, "--out", folder, "--quiet").exit_code == 0
+    before = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}
+    result = invoke("boundaries", EVENTS, "--out", folder, "--quiet")
+    assert result.exit_code == 2
+    assert "boundaries.csv" in result.output and "run.json" in result.output
+    assert "--out" in result.output
+    assert {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()} == before
+    assert invoke("report", folder, "--quiet").exit_code == 0

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from pathlib import Path
 
@@ -10,8 +11,9 @@ import click
 from octrial.caution import CAUTION
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
 from octrial.design.model import Design
-from octrial.errors import single
+from octrial.errors import InputError, single
 from octrial.output import csv_text, write_atomic
+from octrial.run_folder import seal_conflicts
 
 
 def boundaries_for(design: Design, sds: tuple[float, ...] = ()) -> tuple[object, str]:
@@ -74,8 +76,12 @@ def boundaries_command(design: str, out: str | None, sds: str | None, quiet: boo
     loaded = read_design(design)
     table, text = boundaries_for(loaded, _positive_numbers(sds, "--sd"))
     folder = Path(out) if out else default_out(loaded)
-    written = [write_atomic(folder / "boundaries.csv", csv_text(table)),
-               write_atomic(folder / "boundaries.txt", f"{text}\nCaution: {CAUTION}\n")]
+    files = {"boundaries.csv": csv_text(table),
+             "boundaries.txt": f"{text}\nCaution: {CAUTION}\n"}
+    if problems := seal_conflicts(folder, files):
+        raise InputError(str(folder), [dataclasses.replace(p, hint=p.hint + " (--out)")
+                                       for p in problems])
+    written = [write_atomic(folder / name, data) for name, data in files.items()]
     if quiet:
         return
     click.echo(text, nl=False)
