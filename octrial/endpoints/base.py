@@ -24,6 +24,7 @@ from octrial.design.reader import Problems, Table
 
 if TYPE_CHECKING:
     from octrial.checks.model import CheckModel
+    from octrial.endpoints.schema import PriorSchema
     from octrial.interim.base import EndpointInterim
 
 NULL_TOLERANCE = 1e-9
@@ -154,9 +155,17 @@ class Family(ABC):
     def read_endpoint(self, table: Table) -> Any:
         """Read the ``[endpoint]`` table (its ``type`` already read) into a frozen value."""
 
-    @abstractmethod
+    prior_schema: ClassVar[PriorSchema]
+    """The prior distributions the family accepts, as a table of constraints on their keys
+    (:mod:`octrial.endpoints.schema`): :meth:`read_prior` reads through it and the tests
+    derive their bad inputs from it."""
+
     def read_prior(self, table: Table) -> Any:
-        """Read an analysis prior table into a frozen value, recording problems."""
+        """Read an analysis prior table into a frozen value, recording problems (by default
+        through :attr:`prior_schema`; families with borrowing add its keys)."""
+        from octrial.endpoints.schema import read_distribution
+
+        return read_distribution(table, self.prior_schema)[1]
 
     @abstractmethod
     def true_value_problem(self, value: float) -> str | None:

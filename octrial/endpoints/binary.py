@@ -31,8 +31,17 @@ from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
-from octrial.endpoints.mixtures import describe, read_components
+from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
+from octrial.endpoints.schema import (
+    Components,
+    Distribution,
+    Number,
+    PriorSchema,
+    positive,
+    prior_size,
+    read_distribution,
+)
 from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
 
@@ -42,6 +51,11 @@ if TYPE_CHECKING:
 
 TAIL = 1e-15
 """Prior quantile that bounds the grid's range."""
+
+
+def beta_shape(key: str) -> Number:
+    """A beta shape parameter (a prior worth at most PRIOR_SIZE subjects)."""
+    return prior_size(key, f"a shape parameter > 0 and at most {PRIOR_SIZE:g}")
 
 
 @dataclass(frozen=True)
@@ -249,29 +263,24 @@ class BinaryFamily(GridModel, LatticeFamily):
 
         return BinaryModel(design)
 
+    prior_schema = PriorSchema({
+        "beta": Distribution((beta_shape("a"), beta_shape("b")),
+                             lambda v: BetaMixture.single(v["a"], v["b"])),
+        "beta-mixture": Distribution((Components(beta_shape("a"), beta_shape("b")),),
+                                     lambda v: BetaMixture(*v["components"])),
+        "logit-normal": Distribution(
+            (Number("logit_mean", "a number (mean of logit rate)", example=-1.0),
+             positive("logit_sd", "a number > 0 (sd of logit rate)")),
+            lambda v: LogitNormal(v["logit_mean"], v["logit_sd"])),
+    })
+
     def read_endpoint(self, table: Table) -> BinaryEndpoint:
         table.allow("type", "better")
         return BinaryEndpoint()
 
     def read_prior(self, table: Table) -> BetaMixture | LogitNormal | None:
-        kind = table.string("distribution", ("beta", "beta-mixture", "logit-normal"))
-        extra = ("historical", "borrowing")
-        if kind == "beta":
-            table.allow("distribution", "a", "b", *extra)
-            a = _shape(table, "a")
-            b = _shape(table, "b")
-            prior = None if a is None or b is None else BetaMixture.single(a, b)
-        elif kind == "beta-mixture":
-            table.allow("distribution", "components", *extra)
-            found = read_components(table, ("a", "b"), (_shape, _shape))
-            prior = None if found is None else BetaMixture(*found)
-        elif kind == "logit-normal":
-            table.allow("distribution", "logit_mean", "logit_sd", *extra)
-            mean = table.number("logit_mean", expected="a number (mean of logit rate)")
-            sd = table.number("logit_sd", check=lambda v: v > 0,
-                              expected="a number > 0 (sd of logit rate)")
-            prior = None if mean is None or sd is None else LogitNormal(mean, sd)
-        else:
+        kind, prior = read_distribution(table, self.prior_schema)
+        if kind is None:
             return None
         spec = read_borrowing(table, {"responses": "count", "n": "size"})
         if spec is None or prior is None:
@@ -452,10 +461,3 @@ class BinaryFamily(GridModel, LatticeFamily):
 def _log_p(t: np.ndarray) -> np.ndarray:
     """log expit(t), accurate in both tails."""
     return -np.logaddexp(0.0, -t)
-
-
-
-
-def _shape(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: 0 < v <= PRIOR_SIZE,
-                        expected=f"a shape parameter > 0 and at most {PRIOR_SIZE:g}")

@@ -33,12 +33,21 @@ import numpy as np
 from scipy import special, stats
 
 import octrial.endpoints.grid_family as grid_family
-from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
+from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
-from octrial.endpoints.mixtures import describe, read_components
+from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
+from octrial.endpoints.schema import (
+    Components,
+    Distribution,
+    Number,
+    PriorSchema,
+    positive,
+    prior_size,
+    read_distribution,
+)
 from octrial.numerics import parameter_grid as pg
 
 if TYPE_CHECKING:
@@ -219,6 +228,17 @@ class CountFamily(GridModel, LatticeFamily):
 
         return CountModel(design)
 
+    prior_schema = PriorSchema({
+        "gamma": Distribution((prior_size("shape"), positive("rate")),
+                              lambda v: GammaMixture.single(v["shape"], v["rate"])),
+        "gamma-mixture": Distribution((Components(prior_size("shape"), positive("rate")),),
+                                      lambda v: GammaMixture(*v["components"])),
+        "log-normal": Distribution(
+            (Number("log_mean", "a number (mean of the log rate)", example=0.0),
+             positive("log_sd", "a number > 0 (sd of the log rate)")),
+            lambda v: LogNormalRate(v["log_mean"], v["log_sd"])),
+    })
+
     def read_endpoint(self, table: Table) -> CountEndpoint:
         table.allow("type", "better", "exposure", "model", "dispersion")
         exposure = table.number("exposure", required=False, default=1.0,
@@ -236,23 +256,8 @@ class CountFamily(GridModel, LatticeFamily):
         return CountEndpoint("count", exposure or 1.0, model or "poisson", dispersion)
 
     def read_prior(self, table: Table) -> GammaMixture | LogNormalRate | None:
-        kind = table.string("distribution", ("gamma", "gamma-mixture", "log-normal"))
-        extra = ("historical", "borrowing")
-        if kind == "gamma":
-            table.allow("distribution", "shape", "rate", *extra)
-            a, b = _shape(table, "shape"), _positive(table, "rate")
-            prior = None if a is None or b is None else GammaMixture.single(a, b)
-        elif kind == "gamma-mixture":
-            table.allow("distribution", "components", *extra)
-            found = read_components(table, ("shape", "rate"), (_shape, _positive))
-            prior = None if found is None else GammaMixture(*found)
-        elif kind == "log-normal":
-            table.allow("distribution", "log_mean", "log_sd", *extra)
-            mean = table.number("log_mean", expected="a number (mean of the log rate)")
-            sd = table.number("log_sd", check=lambda v: v > 0,
-                              expected="a number > 0 (sd of the log rate)")
-            prior = None if mean is None or sd is None else LogNormalRate(mean, sd)
-        else:
+        kind, prior = read_distribution(table, self.prior_schema)
+        if kind is None:
             return None
         spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
         if spec is None or prior is None:
@@ -490,13 +495,3 @@ class CountFamily(GridModel, LatticeFamily):
     def grid_predictive_table(self, design: Any, theta: np.ndarray, m: int,
                               size: int) -> np.ndarray:
         return self.increment_pmf(design, np.exp(theta), m, size)
-
-
-def _positive(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: v > 0, expected="a number > 0")
-
-
-def _shape(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: 0 < v <= PRIOR_SIZE,
-                        expected=f"a number > 0 and at most {PRIOR_SIZE:g}")
-

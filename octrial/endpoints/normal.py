@@ -35,8 +35,17 @@ from scipy import integrate, special, stats
 from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowing
-from octrial.endpoints.mixtures import describe, read_components
+from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
+from octrial.endpoints.schema import (
+    Components,
+    Distribution,
+    Number,
+    PriorSchema,
+    positive,
+    prior_size,
+    read_distribution,
+)
 from octrial.errors import single
 
 if TYPE_CHECKING:
@@ -45,6 +54,11 @@ if TYPE_CHECKING:
 
 UNKNOWN = "unknown"
 HISTORICAL = {"mean": "number", "sd": "positive", "n": "size"}
+
+
+def prior_sd(key: str) -> Number:
+    """A prior standard deviation."""
+    return positive(key, "a standard deviation > 0")
 
 
 @dataclass(frozen=True)
@@ -200,6 +214,20 @@ class NormalFamily(Family):
 
         return design_prior_draws(design, rng, size)
 
+    prior_schema = PriorSchema({
+        "normal": Distribution((Number("mean", example=0.0), prior_sd("sd")),
+                               lambda v: NormalMixture((1.0,), (v["mean"],), (v["sd"],))),
+        "normal-mixture": Distribution((Components(Number("mean", example=0.0), prior_sd("sd")),),
+                                       lambda v: NormalMixture(*v["components"])),
+        "flat": Distribution((), lambda v: Flat()),
+        "normal-inverse-gamma": Distribution(
+            (Number("mean", example=0.0),
+             prior_size("mean_n", f"a number > 0 and at most {PRIOR_SIZE:g} (observations "
+                        "the prior mean is worth)"),
+             prior_size("shape"), positive("scale")),
+            lambda v: NormalInverseGamma(v["mean"], v["mean_n"], v["shape"], v["scale"])),
+    })
+
     def read_endpoint(self, table: Table) -> NormalEndpoint:
         table.allow("type", "better", "sd", "true_sd")
         raw = table.raw("sd", f"the known sd (a number > 0) or '{UNKNOWN}'", required=True)
@@ -218,31 +246,7 @@ class NormalFamily(Family):
         return NormalEndpoint()
 
     def read_prior(self, table: Table) -> Any:
-        kind = table.string("distribution", ("normal", "normal-mixture", "flat",
-                                             "normal-inverse-gamma"))
-        extra = ("historical", "borrowing")
-        prior: Any = None
-        if kind == "normal":
-            table.allow("distribution", "mean", "sd", *extra)
-            mean, sd = table.number("mean"), _sd(table, "sd")
-            prior = None if mean is None or sd is None else NormalMixture((1.0,), (mean,), (sd,))
-        elif kind == "normal-mixture":
-            table.allow("distribution", "components", *extra)
-            found = read_components(table, ("mean", "sd"), (_number, _sd))
-            prior = None if found is None else NormalMixture(*found)
-        elif kind == "flat":
-            table.allow("distribution", *extra)
-            prior = Flat()
-        elif kind == "normal-inverse-gamma":
-            table.allow("distribution", "mean", "mean_n", "shape", "scale", *extra)
-            values = (table.number("mean"),
-                      table.number("mean_n", check=lambda v: 0 < v <= PRIOR_SIZE,
-                                   expected=f"a number > 0 and at most {PRIOR_SIZE:g} "
-                                            "(observations the prior mean is worth)"),
-                      table.number("shape", check=lambda v: 0 < v <= PRIOR_SIZE,
-                                   expected=f"a number > 0 and at most {PRIOR_SIZE:g}"),
-                      _positive(table, "scale"))
-            prior = None if None in values else NormalInverseGamma(*values)
+        kind, prior = read_distribution(table, self.prior_schema)
         if kind is None:
             return None
         spec = read_borrowing(table, HISTORICAL)
@@ -454,16 +458,3 @@ def _borrow(table: Table, prior: Any, spec: dict) -> Any:
     parts = [p for p in parts if p[0] > 0]
     w, m, s = (tuple(float(v) for v in col) for col in zip(*parts, strict=True))
     return NormalMixture(w, m, s, record)
-
-
-def _sd(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: v > 0, expected="a standard deviation > 0")
-
-
-def _number(table: Table, key: str) -> float | None:
-    return table.number(key)
-
-
-def _positive(table: Table, key: str) -> float | None:
-    return table.number(key, check=lambda v: v > 0, expected="a number > 0")
-
