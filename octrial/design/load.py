@@ -95,7 +95,7 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
     arms = _read_arms(arms_table, family, on_effect)
     looks = _read_looks(top, arms, two_arm, family)
-    if looks is not None and not looks.uses_counts and arms:
+    if looks is not None and not looks.uses_counts and arms and arms_table is not None:
         _require_priors(top, arms_table, arms, on_effect)
     scenarios_table = top.table("scenarios")
     scenarios = None
@@ -109,6 +109,8 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
 
     if problems:
         raise DesignError(source.path, problems)
+    # every required table was read: a missing one is a problem above
+    assert hypothesis is not None and looks is not None and scenarios is not None
     design = Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios,
                     simulation, source)
     # only a design valid in every other respect can be sized
@@ -252,9 +254,11 @@ def _read_looks(
         return None
     table.allow("n", "efficacy", "futility", "futility_predictive", "efficacy_count",
                 "futility_count")
-    n = table.numbers("n", integer=True, check=lambda v: v > 0, expected="a whole number > 0")
-    if n is None or any(v is None for v in n):
+    read = table.numbers("n", integer=True, check=lambda v: v > 0,
+                         expected="a whole number > 0")
+    if read is None or any(v is None for v in read):
         return None
+    n = [int(v) for v in read if v is not None]
     if any(b <= a for a, b in itertools.pairwise(n)):
         table.fail("n", "strictly increasing cumulative sample sizes", n)
         return None

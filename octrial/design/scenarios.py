@@ -34,7 +34,7 @@ def read_values(table: Table, key: str) -> list[float] | None:
     if raw is None:
         return None
     if isinstance(raw, dict):
-        rng = table.table(key)
+        rng = Table(raw, table.key(key), table.problems)
         rng.allow("from", "to", "step")
         start = rng.number("from")
         stop = rng.number("to")
@@ -59,7 +59,10 @@ def read_values(table: Table, key: str) -> list[float] | None:
             table.fail(key, f"at most {MAX_SCENARIOS} values", Phrase(f"{len(raw)} values"))
             return None
         values = table.numbers(key)
-        return None if values is None or any(v is None for v in values) else list(values)
+        if values is None:
+            return None
+        found = [v for v in values if v is not None]
+        return found if len(found) == len(values) else None
     table.fail(key, "a list of numbers or a table { from, to, step }", raw)
     return None
 

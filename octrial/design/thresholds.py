@@ -43,7 +43,9 @@ def evaluate_spec(spec: ThresholdSpec, information: tuple[float, ...]) -> list[f
     if spec.form == "list":
         return list(spec.values)
     f = FUNCTIONS[spec.form]
-    return [f(spec.lam, spec.eta, t) for t in information]
+    lam, eta = spec.lam, spec.eta
+    assert lam is not None and eta is not None  # a function form has both (read_threshold)
+    return [f(lam, eta, t) for t in information]
 
 
 def read_threshold(
@@ -95,7 +97,7 @@ def read_threshold(
             entries = [*entries, None]
         spec = ThresholdSpec("list", tuple(entries))
     elif isinstance(raw, dict):
-        table = looks.table(key)
+        table = Table(raw, looks.key(key), looks.problems)
         table.allow("function", "lambda", "eta")
         name = table.string("function", required=False, default="1 - lambda * t^eta")
         form = _canonical(name) if name is not None else None

@@ -166,7 +166,7 @@ def _edit(original: str, data: dict[str, Any], section: str) -> str:
     old = tomllib.loads(original)
     lines = original.splitlines()
     headers = [i for i, line in enumerate(lines) if HEADER.match(line)]
-    names = [HEADER.match(lines[i]).group(1).replace(" ", "") for i in headers]
+    names = [m.group(1).replace(" ", "") for i in headers if (m := HEADER.match(lines[i]))]
     if section not in names or not isinstance(old.get(section), dict):
         raise _CannotEdit
     if set(old) != set(data) or any(old[k] != data[k] for k in old
@@ -201,7 +201,10 @@ def _plan(
             if new is None:
                 edits.append((first, last, []))
                 continue
-            indent = STATEMENT.match(lines[first]).group(1)
+            statement = STATEMENT.match(lines[first])
+            if statement is None:
+                raise _CannotEdit
+            indent = statement.group(1)
             note = f"  # calibrated; was {value_text(old[key])}"
             edits.append((first, last, [f"{indent}{key_text(key)} = {value_text(new)}{note}"]))
         elif new is not None:

@@ -190,6 +190,7 @@ class Family(ABC):
         expected. Ratios need a positive threshold 1 + sign x shift; differences of rates
         need a margin below 1."""
         margin = hypothesis.margin
+        assert hypothesis.comparison is not None  # asked of two-arm designs only
         if COMPARISONS[hypothesis.comparison][1] == 1.0:
             if hypothesis.threshold <= 0:
                 return "a margin in [0, 1) (the ratio it implies must stay above 0)"
@@ -211,7 +212,9 @@ class Family(ABC):
         effect 1). Positive means benefit beyond the null.
         """
         if len(truth) == 1:
+            assert hypothesis.benchmark is not None  # one arm: load.py requires it
             return hypothesis.sign * (truth[0] - hypothesis.benchmark)
+        assert hypothesis.comparison is not None  # two arms: load.py sets it
         measure = self.measure(hypothesis.comparison, truth[0], truth[1])
         neutral = COMPARISONS[hypothesis.comparison][1]
         return hypothesis.sign * (measure - neutral) - hypothesis.shift

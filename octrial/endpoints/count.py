@@ -308,6 +308,7 @@ class CountFamily(GridModel, LatticeFamily):
         mean = self.lattice_reach(design)[arm] * e.exposure * n
         if e.model == "poisson":
             return int(stats.poisson.isf(share, mean)) + 1
+        assert e.dispersion is not None  # negative binomial (load.py)
         size = n / e.dispersion
         return int(stats.nbinom.isf(share, size, size / (size + mean))) + 1
 
@@ -347,6 +348,7 @@ class CountFamily(GridModel, LatticeFamily):
         if e.model == "poisson":
             log_p = special.xlogy(x, mean) - mean - special.gammaln(x + 1)
         else:
+            assert e.dispersion is not None  # negative binomial (load.py)
             r = n / e.dispersion
             log_p = (special.gammaln(x + r) - special.gammaln(r) - special.gammaln(x + 1)
                      + r * np.log(r / (r + mean)) + special.xlogy(x, mean / (r + mean)))
@@ -477,6 +479,7 @@ class CountFamily(GridModel, LatticeFamily):
         if e.model == "poisson":
             t = n * e.exposure
             return lambda theta: s * theta[None, :] - t * np.exp(theta)[None, :]
+        assert e.dispersion is not None  # negative binomial (load.py)
         k = 1.0 / e.dispersion
 
         def negative_binomial(theta: np.ndarray) -> np.ndarray:

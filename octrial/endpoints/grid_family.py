@@ -26,7 +26,7 @@ import math
 import warnings
 from abc import abstractmethod
 from collections.abc import Callable
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 
@@ -51,6 +51,9 @@ class GridModel:
 
     theta is the parameter on the unbounded scale (logit rate, log rate).
     """
+
+    truncates: ClassVar[bool]
+    """As :attr:`octrial.endpoints.base.Family.truncates`."""
 
     @abstractmethod
     def to_theta(self, value: float) -> float:
@@ -144,7 +147,7 @@ def _benefit_on(design: Any, posts: tuple[GridPosterior, ...]) -> np.ndarray:
 def benefit(design: Any, posts: tuple[GridPosterior, ...]) -> tuple[np.ndarray, float]:
     """Posterior probability of benefit and its measured error (see module docstring)."""
     value = _benefit_on(design, posts)
-    finer = _benefit_on(design, tuple(p.finer for p in posts))
+    finer = _benefit_on(design, tuple(p.refined for p in posts))
     error = SAFETY * float(np.max(np.abs(value - finer))) + sum(p.edge_mass() for p in posts)
     return value, min(error, 1.0)
 
@@ -185,7 +188,7 @@ def predictive_error(design: Any, post: GridPosterior, m: int, size: int) -> flo
     """Total-variation difference between the predictive pmfs on the grid and on the
     finer grid, plus the mass the range leaves out."""
     coarse = predictive(design, post, m, size)
-    fine = predictive(design, post.finer, m, size)
+    fine = predictive(design, post.refined, m, size)
     return min(SAFETY * float(np.max(np.abs(coarse - fine).sum(axis=1))) + post.edge_mass(), 1.0)
 
 

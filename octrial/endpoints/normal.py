@@ -456,5 +456,5 @@ def _borrow(table: Table, prior: Any, spec: dict) -> Any:
         informative.weights, informative.mean, informative.sd, strict=True)] + [
         (w_vague * w, m, s) for w, m, s in zip(prior.weights, prior.mean, prior.sd, strict=True)]
     parts = [p for p in parts if p[0] > 0]
-    w, m, s = (tuple(float(v) for v in col) for col in zip(*parts, strict=True))
-    return NormalMixture(w, m, s, record)
+    weights, means, sds = (tuple(float(v) for v in col) for col in zip(*parts, strict=True))
+    return NormalMixture(weights, means, sds, record)

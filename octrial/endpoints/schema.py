@@ -110,9 +110,8 @@ def read_distribution(table: Table, schema: PriorSchema) -> tuple[str | None, An
     values: dict[str, Any] = {}
     for c in distribution.keys:
         if isinstance(c, Components):
-            values[c.key] = read_components(
-                table, (c.first.key, c.second.key),
-                (lambda t, k, n=c.first: n.read(t, k), lambda t, k, n=c.second: n.read(t, k)))
+            values[c.key] = read_components(table, (c.first.key, c.second.key),
+                                            (c.first.read, c.second.read))
         else:
             values[c.key] = c.read(table)
     if any(v is None for v in values.values()):

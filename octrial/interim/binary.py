@@ -117,7 +117,7 @@ class BinaryInterim(EndpointInterim):
         for arm, post in zip(design.arm_names, posts, strict=True):
             nodes = post.grid.nodes
             lo, hi = float(nodes[0]), float(nodes[-1])
-            logits = [_root(lambda t, p=post: float(_grid_cdf(p, [t])[0]), q, lo, hi)
+            logits = [_root(lambda t, p=post: float(_grid_cdf(p, np.array([t]))[0]), q, lo, hi)
                       for q in qs]
             out.append(PosteriorSummary(
                 f"rate ({arm})", float(post.weights[0] @ special.expit(nodes)),

@@ -156,6 +156,7 @@ def assess(design: Design, look: int, sizes: tuple[int, ...],
         decision, reason = count_decision(th, stats[0], design.hypothesis.better == "higher",
                                           last, design.family.statistic)
     else:
+        assert benefit is not None  # a probability rule has a benefit table
         decision, reason = probability_decision(th, benefit, predictive, last,
                                                 support.statement(design))
     expected = (SUCCESS if last else STOP_EFFICACY) if table.efficacy[stats] else (
@@ -285,6 +286,7 @@ def decide(
             problems = support.disagreements(design, path, from_file, observed)
             if problems:
                 raise InputError(OPTION, problems)
+    assert observed is not None  # from the data or the per-subject file (checked above)
     frame, assessment = rule_at(design, look, observed, seed)
     on = frame.design
     planned = on.looks.per_arm[look - 1]
@@ -300,7 +302,7 @@ def decide(
         warnings.append("The design states its rule in counts and has no analysis prior: "
                         "no posterior or predictive probability is computed.")
     checks: tuple[Any, ...] = ()
-    if path is not None:
+    if path is not None and per_subject is not None:
         checks, notes = support.check_subjects(design, path, per_subject, seed)
         warnings.extend(notes)
         flagged = [f"{c.statistic}" + (f" ({c.arm})" if design.two_arm else "")
@@ -396,9 +398,8 @@ def _planned_bounds(support: EndpointInterim, design: Design,
     planned = tuple(design.looks.per_arm[look - 1])
     if design.family.lattice:
         row = observed_look(design, look - 1, planned).boundaries[0]
-        statistic = design.family.statistic
-        return tuple(with_unit(rule, f" {statistic}")
-                     for rule in (row["efficacy_rule"], row["futility_rule"]))
+        unit = f" {design.family.statistic}"
+        return with_unit(row["efficacy_rule"], unit), with_unit(row["futility_rule"], unit)
     return support.bound_rules(design, look, planned)
 
 

@@ -198,11 +198,13 @@ class NormalInterim(EndpointInterim):
         h = design.hypothesis
         posts = [reflect(p, h.sign) for p in self.posteriors(design, observed)]
         final = thresholds_at(design, design.looks.count - 1, design.looks.n[-1]).efficacy
+        assert final is not None  # the final look always has a success threshold (load.py)
         gamma = final - DECISION_TOLERANCE
         future = tuple(top - n for top, n in zip(design.looks.per_arm[-1], sizes,
                                                   strict=True))
         se = None
         if not design.two_arm:
+            assert h.benchmark is not None  # one arm (load.py)
             claim = h.sign * h.benchmark
             b = unknown_sd.benefit_one_arm(posts[0], claim)
             pp = None if last else unknown_sd.predictive_one_arm(posts[0], future[0], claim,
@@ -211,7 +213,8 @@ class NormalInterim(EndpointInterim):
             b = unknown_sd.benefit_two_arms(posts[0], posts[1], h.shift)
             pp = None
             if not last:
-                pp, se = unknown_sd.predictive_two_arms(posts[0], posts[1], future, h.shift,
+                pp, se = unknown_sd.predictive_two_arms(posts[0], posts[1],
+                                                        (future[0], future[1]), h.shift,
                                                         gamma, seed)
         th = thresholds_at(design, k, sum(sizes))
         decision, reason = probability_decision(th, b, pp, last, self.statement(design))
@@ -235,12 +238,12 @@ class NormalInterim(EndpointInterim):
                                      mixture_quantile(post, 1.0 - tail)),)
         posts = self.posteriors(design, observed)
         out = []
-        for arm, post in zip(design.arm_names, posts, strict=True):
-            t = post.distribution()
-            mean = post.mean if post.df > 1 else None  # no mean below 1 df
-            out.append(PosteriorSummary(f"mean ({arm})", mean, float(t.ppf(tail)),
+        for arm, student in zip(design.arm_names, posts, strict=True):
+            t = student.distribution()
+            centre = student.mean if student.df > 1 else None  # no mean below 1 df
+            out.append(PosteriorSummary(f"mean ({arm})", centre, float(t.ppf(tail)),
                                         float(t.ppf(1.0 - tail))))
-            out.append(sd_summary(arm, post, tail))
+            out.append(sd_summary(arm, student, tail))
         if design.two_arm:
             treatment, control = posts
 

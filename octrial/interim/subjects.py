@@ -85,7 +85,9 @@ def read_subjects(
     if problems:
         raise InputError(table.path, problems)
     column = {name: i for i, name in enumerate(table.header)}
-    data: dict[str, dict[str, list[float]]] = {a: {outcome: [], "exposure": []} for a in arms}
+    # exposure is None per row when the design's exposure applies (no column)
+    data: dict[str, dict[str, list[float | None]]] = {a: {outcome: [], "exposure": []}
+                                                      for a in arms}
     seen: dict[str, int] = {}
     for line, fields in table.rows:
         if len(fields) != len(table.header):

@@ -115,6 +115,13 @@ class GridPosterior:
         return self.density.shape[0]
 
     @property
+    def refined(self) -> GridPosterior:
+        """The posterior on the finer grid (computed unless ``with_finer=False``)."""
+        if self.finer is None:
+            raise ValueError("this grid posterior was computed without its finer grid")
+        return self.finer
+
+    @property
     def weights(self) -> np.ndarray:
         """Trapezoidal weights h f(node): expectations are ``weights @ g(nodes)``."""
         return self.density * self.grid.step
