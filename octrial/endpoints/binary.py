@@ -26,6 +26,7 @@ import numpy as np
 from scipy import special, stats
 
 import octrial.endpoints.grid_family as grid_family
+import octrial.endpoints.schema as schema
 from octrial.design.model import Hypothesis
 from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints.base import LatticeFamily
@@ -33,15 +34,6 @@ from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowin
 from octrial.endpoints.grid_family import GridModel
 from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
-from octrial.endpoints.schema import (
-    Components,
-    Distribution,
-    Number,
-    PriorSchema,
-    positive,
-    prior_size,
-    read_distribution,
-)
 from octrial.numerics import parameter_grid as pg
 from octrial.numerics import tanh_sinh
 
@@ -53,9 +45,9 @@ TAIL = 1e-15
 """Prior quantile that bounds the grid's range."""
 
 
-def beta_shape(key: str) -> Number:
+def beta_shape(key: str) -> schema.Number:
     """A beta shape parameter (a prior worth at most PRIOR_SIZE subjects)."""
-    return prior_size(key, f"a shape parameter > 0 and at most {PRIOR_SIZE:g}")
+    return schema.prior_size(key, f"a shape parameter > 0 and at most {PRIOR_SIZE:g}")
 
 
 @dataclass(frozen=True)
@@ -263,14 +255,11 @@ class BinaryFamily(GridModel, LatticeFamily):
 
         return BinaryModel(design)
 
-    prior_schema = PriorSchema({
-        "beta": Distribution((beta_shape("a"), beta_shape("b")),
-                             lambda v: BetaMixture.single(v["a"], v["b"])),
-        "beta-mixture": Distribution((Components(beta_shape("a"), beta_shape("b")),),
-                                     lambda v: BetaMixture(*v["components"])),
-        "logit-normal": Distribution(
-            (Number("logit_mean", "a number (mean of logit rate)", example=-1.0),
-             positive("logit_sd", "a number > 0 (sd of logit rate)")),
+    prior_schema = schema.PriorSchema({
+        **schema.with_mixture("beta", beta_shape("a"), beta_shape("b"), BetaMixture),
+        "logit-normal": schema.Distribution(
+            (schema.Number("logit_mean", "a number (mean of logit rate)", example=-1.0),
+             schema.positive("logit_sd", "a number > 0 (sd of logit rate)")),
             lambda v: LogitNormal(v["logit_mean"], v["logit_sd"])),
     })
 
@@ -279,7 +268,7 @@ class BinaryFamily(GridModel, LatticeFamily):
         return BinaryEndpoint()
 
     def read_prior(self, table: Table) -> BetaMixture | LogitNormal | None:
-        kind, prior = read_distribution(table, self.prior_schema)
+        kind, prior = schema.read_distribution(table, self.prior_schema)
         if kind is None:
             return None
         spec = read_borrowing(table, {"responses": "count", "n": "size"})

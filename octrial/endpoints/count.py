@@ -33,21 +33,13 @@ import numpy as np
 from scipy import special, stats
 
 import octrial.endpoints.grid_family as grid_family
+import octrial.endpoints.schema as schema
 from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints.base import LatticeFamily
 from octrial.endpoints.borrowing import Borrowing, borrow_mixture, read_borrowing
 from octrial.endpoints.grid_family import GridModel
 from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
-from octrial.endpoints.schema import (
-    Components,
-    Distribution,
-    Number,
-    PriorSchema,
-    positive,
-    prior_size,
-    read_distribution,
-)
 from octrial.numerics import parameter_grid as pg
 
 if TYPE_CHECKING:
@@ -228,14 +220,12 @@ class CountFamily(GridModel, LatticeFamily):
 
         return CountModel(design)
 
-    prior_schema = PriorSchema({
-        "gamma": Distribution((prior_size("shape"), positive("rate")),
-                              lambda v: GammaMixture.single(v["shape"], v["rate"])),
-        "gamma-mixture": Distribution((Components(prior_size("shape"), positive("rate")),),
-                                      lambda v: GammaMixture(*v["components"])),
-        "log-normal": Distribution(
-            (Number("log_mean", "a number (mean of the log rate)", example=0.0),
-             positive("log_sd", "a number > 0 (sd of the log rate)")),
+    prior_schema = schema.PriorSchema({
+        **schema.with_mixture("gamma", schema.prior_size("shape"), schema.positive("rate"),
+                              GammaMixture),
+        "log-normal": schema.Distribution(
+            (schema.Number("log_mean", "a number (mean of the log rate)", example=0.0),
+             schema.positive("log_sd", "a number > 0 (sd of the log rate)")),
             lambda v: LogNormalRate(v["log_mean"], v["log_sd"])),
     })
 
@@ -256,7 +246,7 @@ class CountFamily(GridModel, LatticeFamily):
         return CountEndpoint("count", exposure or 1.0, model or "poisson", dispersion)
 
     def read_prior(self, table: Table) -> GammaMixture | LogNormalRate | None:
-        kind, prior = read_distribution(table, self.prior_schema)
+        kind, prior = schema.read_distribution(table, self.prior_schema)
         if kind is None:
             return None
         spec = read_borrowing(table, {"events": "count", "exposure": "positive"})

@@ -32,20 +32,12 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from scipy import integrate, special, stats
 
+import octrial.endpoints.schema as schema
 from octrial.design.reader import PRIOR_SIZE, Phrase, Problems, Table
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import Borrowing, make_borrowing, read_borrowing
 from octrial.endpoints.mixtures import describe
 from octrial.endpoints.prior_size import arm_summary, fda_summary
-from octrial.endpoints.schema import (
-    Components,
-    Distribution,
-    Number,
-    PriorSchema,
-    positive,
-    prior_size,
-    read_distribution,
-)
 from octrial.errors import single
 
 if TYPE_CHECKING:
@@ -56,9 +48,9 @@ UNKNOWN = "unknown"
 HISTORICAL = {"mean": "number", "sd": "positive", "n": "size"}
 
 
-def prior_sd(key: str) -> Number:
+def prior_sd(key: str) -> schema.Number:
     """A prior standard deviation."""
-    return positive(key, "a standard deviation > 0")
+    return schema.positive(key, "a standard deviation > 0")
 
 
 @dataclass(frozen=True)
@@ -214,17 +206,15 @@ class NormalFamily(Family):
 
         return design_prior_draws(design, rng, size)
 
-    prior_schema = PriorSchema({
-        "normal": Distribution((Number("mean", example=0.0), prior_sd("sd")),
-                               lambda v: NormalMixture((1.0,), (v["mean"],), (v["sd"],))),
-        "normal-mixture": Distribution((Components(Number("mean", example=0.0), prior_sd("sd")),),
-                                       lambda v: NormalMixture(*v["components"])),
-        "flat": Distribution((), lambda v: Flat()),
-        "normal-inverse-gamma": Distribution(
-            (Number("mean", example=0.0),
-             prior_size("mean_n", f"a number > 0 and at most {PRIOR_SIZE:g} (observations "
+    prior_schema = schema.PriorSchema({
+        **schema.with_mixture("normal", schema.Number("mean", example=0.0), prior_sd("sd"),
+                              NormalMixture),
+        "flat": schema.Distribution((), lambda v: Flat()),
+        "normal-inverse-gamma": schema.Distribution(
+            (schema.Number("mean", example=0.0),
+             schema.prior_size("mean_n", f"a number > 0 and at most {PRIOR_SIZE:g} (observations "
                         "the prior mean is worth)"),
-             prior_size("shape"), positive("scale")),
+             schema.prior_size("shape"), schema.positive("scale")),
             lambda v: NormalInverseGamma(v["mean"], v["mean_n"], v["shape"], v["scale"])),
     })
 
@@ -246,7 +236,7 @@ class NormalFamily(Family):
         return NormalEndpoint()
 
     def read_prior(self, table: Table) -> Any:
-        kind, prior = read_distribution(table, self.prior_schema)
+        kind, prior = schema.read_distribution(table, self.prior_schema)
         if kind is None:
             return None
         spec = read_borrowing(table, HISTORICAL)

@@ -90,6 +90,18 @@ class Distribution:
         return out
 
 
+def with_mixture(name: str, first: Number, second: Number,
+                 build: Callable[..., Any]) -> dict[str, Distribution]:
+    """``'<name>'`` and ``'<name>-mixture'``: a two-parameter prior and mixtures of it,
+    both made by ``build(weights, firsts, seconds)`` (one component for the plain one)."""
+    return {
+        name: Distribution((first, second), lambda v: build(
+            (1.0,), (float(v[first.key]),), (float(v[second.key]),))),
+        f"{name}-mixture": Distribution((Components(first, second),),
+                                        lambda v: build(*v["components"])),
+    }
+
+
 @dataclass(frozen=True)
 class PriorSchema:
     """Every distribution a family's prior tables accept, and the keys any of them may add
