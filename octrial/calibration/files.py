@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 from octrial._version import __version__
 from octrial.calibration.core import Calibration
 from octrial.caution import CAUTION
 from octrial.design.write import edited_text, value_text
+from octrial.output import csv_text, json_text
 from octrial.plurals import count
 from octrial.provenance import environment, now
+from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
 
 KNOB_WORDS = {
     "final": "final success threshold",
@@ -153,3 +156,22 @@ def record(cal: Calibration, *, started: str, command: list[str], files: list[st
         "environment": environment(),
         "caution": CAUTION,
     }
+
+
+def write_calibration(folder: str | Path, cal: Calibration, *, started: str,
+                      command: list[str]) -> list[Path]:
+    """Write the calibration's files into ``folder`` all at once, sealed in
+    calibration.json: calibration.csv, sizing.csv (when sized), ``<name>.calibrated.toml``
+    and calibration.json. An earlier ``sizing.csv`` and report are dropped. Returns the
+    paths written."""
+    toml_name = f"{cal.original.name}.calibrated.toml"
+    texts = {"calibration.csv": csv_text(cal.candidates)}
+    if cal.sizing is not None:
+        texts["sizing.csv"] = csv_text(cal.sizing)
+    texts[toml_name] = calibrated_toml(cal, command)
+    names = [*texts, "calibration.json"]
+    summary = record(cal, started=started, command=command, files=names)
+    summary[SEAL] = seal(texts)
+    texts["calibration.json"] = json_text(summary)
+    return write_folder(folder, texts, drop=lambda name: name in (
+        "sizing.csv", *REPORT_FILES)).written

@@ -9,7 +9,7 @@ import click
 
 from octrial.bayesian_oc import METRICS
 from octrial.calibration import calibrate
-from octrial.calibration.files import calibrated_toml, record, summary_lines
+from octrial.calibration.files import summary_lines, write_calibration
 from octrial.calibration.request import LOOK_RULES, RULES, SEARCHES, SIZING_RULES
 from octrial.caution import CAUTION
 from octrial.cli.common import (
@@ -21,9 +21,7 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
-from octrial.output import csv_text, json_text
 from octrial.provenance import now
-from octrial.run_folder import REPORT_FILES, SEAL, seal, write_folder
 
 
 @click.command("calibrate", epilog=f"Caution: {CAUTION}")
@@ -110,19 +108,8 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
     with resumable(execution):
         result = calibrate(loaded, "command line", simulation=simulation.settings(),
                            execution=execution, **settings)
-    command = ["octrial", *sys.argv[1:]]
-    toml_name = f"{loaded.name}.calibrated.toml"
-    texts = {"calibration.csv": csv_text(result.candidates)}
-    if result.sizing is not None:
-        texts["sizing.csv"] = csv_text(result.sizing)
-    texts[toml_name] = calibrated_toml(result, command)
-    names = [*texts, "calibration.json"]
-    summary = record(result, started=started, command=command, files=names)
-    summary[SEAL] = seal(texts)
-    texts["calibration.json"] = json_text(summary)
-    # all at once; a sizing.csv of an earlier calibration and an earlier report go
-    written = write_folder(folder, texts, drop=lambda name: name in (
-        "sizing.csv", *REPORT_FILES)).written
+    written = write_calibration(folder, result, started=started,
+                                command=["octrial", *sys.argv[1:]])
     execution.remove_checkpoints()
     if simulation.quiet:
         return

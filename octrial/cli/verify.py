@@ -8,7 +8,6 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.cli.common import (
     SimulationOptions,
@@ -19,12 +18,15 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
-from octrial.output import csv_text, json_text
 from octrial.plurals import count
-from octrial.provenance import environment, now
+from octrial.provenance import now
 from octrial.review import read_claims, verify
-from octrial.review.verification import DEFAULT_ALPHA, DEFAULT_TOLERANCE, Verification
-from octrial.run_folder import write_folder
+from octrial.review.verification import (
+    DEFAULT_ALPHA,
+    DEFAULT_TOLERANCE,
+    Verification,
+    write_verification,
+)
 
 EXIT_DISCREPANT = 1
 
@@ -74,9 +76,7 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
         result = verify(loaded, table, alpha=alpha, tolerance=tolerance,
                         replicates=replicates, seed=seed, target_se=simulation.target_se,
                         max_replicates=simulation.max_replicates, execution=execution)
-    record = _record(result, started, now())
-    written = write_folder(folder, {"verify.csv": csv_text(result.table),
-                                    "verify.json": json_text(record)}).written
+    written = write_verification(folder, result, started=started, command=sys.argv)
     execution.remove_checkpoints()
     if not simulation.quiet:
         click.echo(_summary(result))
@@ -84,22 +84,6 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
         click.echo(f"Caution: {CAUTION}", err=True)
     if result.discrepant:
         raise SystemExit(EXIT_DISCREPANT)
-
-
-def _record(result: Verification, started: str, finished: str) -> dict:
-    design = result.design
-    return {
-        "octrial_version": __version__,
-        "design": {"name": design.name, "path": design.source.path,
-                   "sha256": design.source.sha256},
-        "claims": {"path": result.claims.path, "sha256": result.claims.sha256},
-        "command": sys.argv,
-        "started": started,
-        "finished": finished,
-        **result.info,
-        "environment": environment(),
-        "caution": CAUTION,
-    }
 
 
 def _summary(result: Verification) -> str:

@@ -14,16 +14,21 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from octrial._version import __version__
+from octrial.caution import CAUTION
 from octrial.design.model import Design, Scenarios
 from octrial.engines import MonteCarloSettings, choose
 from octrial.errors import InputError, single
 from octrial.evaluation import compute
 from octrial.execution import Execution
+from octrial.output import csv_text, json_text
+from octrial.provenance import environment, now
 from octrial.review.claims import Claims, spreadsheet_safe
 from octrial.review.comparison import (
     EXPECTED_N,
@@ -32,6 +37,7 @@ from octrial.review.comparison import (
     z_scores,
 )
 from octrial.review.multiplicity import holm
+from octrial.run_folder import write_folder
 
 DEFAULT_ALPHA = 0.05
 """Family-wise error rate of the Holm-adjusted verdicts."""
@@ -280,3 +286,31 @@ def verify(
         "bayesian_operating_characteristics": record,
     })
     return Verification(design, claims, table, () if found is None else found.added, info)
+
+
+def verification_record(result: Verification, *, started: str, finished: str,
+                        command: list[str]) -> dict[str, Any]:
+    """verify.json: the design and claims files (with their SHA-256), the command, the
+    figures of :attr:`Verification.info`, the environment and the caution."""
+    design = result.design
+    return {
+        "octrial_version": __version__,
+        "design": {"name": design.name, "path": design.source.path,
+                   "sha256": design.source.sha256},
+        "claims": {"path": result.claims.path, "sha256": result.claims.sha256},
+        "command": command,
+        "started": started,
+        "finished": finished,
+        **result.info,
+        "environment": environment(),
+        "caution": CAUTION,
+    }
+
+
+def write_verification(folder: str | Path, result: Verification, *, started: str,
+                       command: list[str]) -> list[Path]:
+    """Write verify.csv and verify.json into ``folder`` all at once (keeping everything
+    else there); returns the paths written."""
+    record = verification_record(result, started=started, finished=now(), command=command)
+    return write_folder(folder, {"verify.csv": csv_text(result.table),
+                                 "verify.json": json_text(record)}).written
