@@ -87,13 +87,10 @@ def run_conflict(design: Design) -> dict[str, Any]:
         vague = variant(design, j, None)
         informative = variant(design, j, {"method": "power", "a0": record.a0})
         baseline = vague if baseline is None else variant(baseline, j, None)
-        if design.family.lattice:
-            table = _lattice_conflict(design, j, informative, vague)
-        elif getattr(design.endpoint, "known_sd", False):
-            table = _normal_conflict(design, j, informative, vague)
-        else:
-            return {"not_applicable": "prior-data conflict is not available for "
-                                      "normal-inverse-gamma priors (unknown sd) yet"}
+        table = design.family.prior_data_conflict(design, j, informative, vague)
+        if table is None:
+            return {"not_applicable": "prior-data conflict is not available for this "
+                                      f"prior ({design.arms[j].prior.describe()}) yet"}
         per_arm.append({
             "arm": design.arms[j].name, "method": record.method, "a0": record.a0,
             "vague_weight": record.vague_weight, "historical": record.data(),
@@ -133,8 +130,8 @@ def _vague_components(design: Design, vague: Design, arm: int) -> int:
     return len(vague.arms[arm].prior.weights)
 
 
-def _lattice_conflict(design: Design, arm: int, informative: Design,
-                      vague: Design) -> list[dict[str, Any]]:
+def lattice_conflict(design: Design, arm: int, informative: Design,
+                     vague: Design) -> list[dict[str, Any]]:
     family: LatticeFamily = design.family
     looks = design.looks.per_arm
     truths = sorted({row[arm] for row in design.scenarios.values})
@@ -159,8 +156,8 @@ def _lattice_conflict(design: Design, arm: int, informative: Design,
     return list(rows.values())
 
 
-def _normal_conflict(design: Design, arm: int, informative: Design,
-                     vague: Design) -> list[dict[str, Any]]:
+def normal_conflict(design: Design, arm: int, informative: Design,
+                    vague: Design) -> list[dict[str, Any]]:
     family = design.family
     sign = design.hypothesis.sign
     inf_prior = informative.arms[arm].prior

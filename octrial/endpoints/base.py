@@ -124,6 +124,13 @@ class Family(ABC):
         family has none."""
         return None
 
+    def prior_data_conflict(self, design: Any, arm: int, informative: Any,
+                            vague: Any) -> list[dict[str, Any]] | None:
+        """Prior-data conflict of borrowing arm ``arm`` per true value (``octrial check``,
+        :mod:`octrial.checks.conflict`), given the design with the informative prior
+        and without borrowing; ``None`` when the family's priors have no such check."""
+        return None
+
     draws_design_prior: ClassVar[bool] = False
     """Whether :meth:`design_prior_draws` is implemented."""
 
@@ -296,6 +303,12 @@ class LatticeFamily(Family):
         from octrial.rules.boundaries import committee_table
 
         return committee_table(design, table)
+
+    def prior_data_conflict(self, design: Any, arm: int, informative: Any,
+                            vague: Any) -> list[dict[str, Any]] | None:
+        from octrial.checks.conflict import lattice_conflict
+
+        return lattice_conflict(design, arm, informative, vague)
 
     def lattice_reach(self, design: Any) -> tuple[float, ...] | None:
         """Per arm, the largest true value the lattice must serve (truncating families);

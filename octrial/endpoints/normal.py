@@ -321,6 +321,14 @@ class NormalFamily(Family):
             return None
         return self.boundary_table(design)
 
+    def prior_data_conflict(self, design: Any, arm: int, informative: Any,
+                            vague: Any) -> list[dict[str, Any]] | None:
+        if not design.endpoint.known_sd:
+            return None  # normal-inverse-gamma priors: not yet
+        from octrial.checks.conflict import normal_conflict
+
+        return normal_conflict(design, arm, informative, vague)
+
     def bounds_depend_on_sd(self, design: Any) -> bool:
         return not design.endpoint.known_sd
 
