@@ -186,6 +186,11 @@ class LatticeModel(CheckModel):
         """The default plausible range of one arm's observed rate."""
         raise NotImplementedError
 
+    @staticmethod
+    def _exposure(design: Design) -> float:
+        """Exposure per subject (1 where the statistic counts subjects)."""
+        return 1.0
+
     def posterior(self, data: LatticeData, look: int) -> LatticePosteriors:
         posts, rows = [], []
         for j in range(len(self.design.arms)):
@@ -197,7 +202,7 @@ class LatticeModel(CheckModel):
 
     def typical_data(self) -> LatticeData:
         looks = self.design.looks
-        exposure = getattr(self.design.endpoint, "exposure", 1.0)
+        exposure = self._exposure(self.design)
         stats = []
         for j, arm in enumerate(self.design.arms):
             mean = (grid_family.mean_of(self.design, j, arm.prior) if self.on_grid
@@ -209,7 +214,7 @@ class LatticeModel(CheckModel):
     def predictive(self, source: str) -> list[Predictive]:
         design = self.design if source == ANALYSIS else design_prior_design(self.design)
         family = self.family
-        exposure = getattr(design.endpoint, "exposure", 1.0)
+        exposure = self._exposure(design)
         out = []
         for j, arm in enumerate(design.arms):
             n = design.looks.per_arm[-1][j]
@@ -324,6 +329,10 @@ class CountModel(LatticeModel):
         return Predictive.from_pmf(
             f"events_{name}", f"events in {n * exposure:g} units of exposure ({name})",
             np.arange(pmf.size), pmf)
+
+    @staticmethod
+    def _exposure(design: Design) -> float:
+        return float(design.endpoint.exposure)
 
     def _plausible_one_arm(self) -> tuple[float, float, str] | None:
         h = self.design.hypothesis
