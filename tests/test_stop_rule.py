@@ -1,4 +1,4 @@
-"""The stop rule's three forms (Python, arrays, numba) against a transcription of the
+"""The stop rule's three forms (Python, arrays, numba) against a restatement of the
 rule as the design-file reference states it (docs/design-files.md, [looks]: efficacy
 first, futility below, predictive futility at interim looks, the final look fails
 without efficacy), on random thresholds and probabilities that include exact ties."""
