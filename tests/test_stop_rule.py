@@ -15,6 +15,7 @@ from octrial.rules.stop import (
     DECISION_TOLERANCE,
     EFFICACY,
     FUTILITY,
+    CountRule,
     Rule,
     look_decision,
     predictive_decision,
@@ -84,3 +85,69 @@ def test_without_a_predictive_value_the_predictive_step_is_skipped():
     assert math.isnan(rule.futility[0])
     assert rule.decide(1, 0.95 - 1e-13) == EFFICACY
     assert rule.decide(1, 0.95 - 1e-11) == FUTILITY
+
+
+def test_a_callable_predictive_is_called_only_when_the_rule_needs_it():
+    looks = type("Looks", (), {"efficacy": (0.99, 0.95), "futility": (0.1, None),
+                               "futility_predictive": (0.5, None)})()
+    rule = Rule.of(looks)
+    calls = []
+
+    def pp():
+        calls.append(1)
+        return 0.2
+
+    assert rule.decide(0, 0.995, pp) == EFFICACY  # efficacy first: no predictive
+    assert rule.decide(0, 0.05, pp) == FUTILITY  # futile on the benefit alone
+    assert rule.decide(1, 0.5, pp) == FUTILITY  # final look: no predictive
+    assert calls == []
+    assert rule.decide(0, 0.5, pp) == FUTILITY
+    assert calls == [1]
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_one_look_is_the_look_of_a_full_rule(seed):
+    rng = np.random.default_rng(100 + seed)
+    eff, fut, pred = random_case(rng)
+    looks = type("Looks", (), {"efficacy": eff, "futility": fut,
+                               "futility_predictive": pred})()
+    rule = Rule.of(looks)
+    b, pp = rng.random(50), rng.random(50)
+    for k in range(len(eff)):
+        one = Rule.one_look(eff[k], fut[k], pred[k], final=k == rule.last)
+        assert np.array_equal(one.decide_many(0, b, pp), rule.decide_many(k, b, pp))
+
+
+def stated_count_rule(eff, fut, k, last, x, higher):
+    """The count rule as docs/design-files.md states it ([looks] efficacy_count,
+    futility_count): success at look k if x >= efficacy_count_k (<= when lower is
+    better), futility if x <= futility_count_k (>= when lower is better), efficacy
+    first, failure at the last look without success."""
+    reaches = eff[k] is not None and (x >= eff[k] if higher else x <= eff[k])
+    if reaches:
+        return EFFICACY
+    if k == last:
+        return FUTILITY
+    if fut[k] is not None and (x <= fut[k] if higher else x >= fut[k]):
+        return FUTILITY
+    return CONTINUE
+
+
+@pytest.mark.parametrize("seed", range(20))
+def test_count_rule_agrees_with_the_stated_count_rule(seed):
+    rng = np.random.default_rng(200 + seed)
+    looks = int(rng.integers(1, 5))
+    higher = bool(seed % 2)
+    eff = [None if rng.random() < 0.3 else int(rng.integers(0, 30)) for _ in range(looks)]
+    fut = [None if rng.random() < 0.3 else int(rng.integers(0, 30)) for _ in range(looks)]
+    rule = CountRule.of(type("Looks", (), {"efficacy_count": eff, "futility_count": fut})(),
+                        higher)
+    x = np.arange(40)  # every count, so every tie with a bound is included
+    for k in range(looks):
+        expected = np.array([stated_count_rule(eff, fut, k, rule.last, xi, higher)
+                             for xi in x])
+        assert np.array_equal(rule.decide_many(k, x), expected)
+        assert np.array_equal([rule.decide(k, int(xi)) for xi in x], expected)
+        e, f, _, tol = rule.rule.arrays()
+        compiled = [look_decision(e, f, k, rule.last, float(rule.sign * xi), tol) for xi in x]
+        assert np.array_equal(compiled, expected)

@@ -15,6 +15,12 @@ A threshold that is absent is ``nan`` in the arrays. ``tol`` is
 threshold equal to a computed posterior probability (as calibration produces) is met
 despite rounding in the last bit.
 
+A rule stated in counts (``efficacy_count`` / ``futility_count``: one arm, success at look
+``k`` if the count ``x >= a_k``, futility if ``x <= r_k``, the inequalities reversed when
+lower is better) is the same rule on the signed count ``sign * x`` with thresholds
+``sign * a_k`` and ``sign * r_k + 1`` and no tolerance (for integers ``x <= r`` is
+``x < r + 1``): :class:`CountRule`.
+
 The same rule appears in three forms, kept in step by ``tests/test_stop_rule.py``:
 :meth:`Rule.decide` (one study, Python: interim decisions), :meth:`Rule.decide_many`
 (arrays: decision tables on the lattice, boundary tables) and the numba functions
@@ -27,6 +33,7 @@ look has a predictive threshold and steps 1-3 left the study running.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -68,6 +75,16 @@ class Rule:
         return cls(_array(looks.efficacy), _array(looks.futility),
                    _array(looks.futility_predictive))
 
+    @classmethod
+    def one_look(cls, efficacy: float | None, futility: float | None = None,
+                 futility_predictive: float | None = None, *, final: bool) -> Rule:
+        """The rule of one look, as look 0 (an interim look is followed by a final look
+        with no thresholds, which only makes look 0 an interim one)."""
+        looks = [(efficacy, futility, futility_predictive)]
+        if not final:
+            looks.append((None, None, None))
+        return cls(*(_array(values) for values in zip(*looks, strict=True)))
+
     @property
     def last(self) -> int:
         """Index of the final look."""
@@ -81,14 +98,16 @@ class Rule:
         """Whether look ``k`` is an interim look with a predictive futility threshold."""
         return bool(wants_predictive(self.futility_predictive, k, self.last))
 
-    def decide(self, k: int, benefit: float, predictive: float | None = None) -> int:
+    def decide(self, k: int, benefit: float,
+               predictive: float | Callable[[], float] | None = None) -> int:
         """The decision at look ``k`` for one study (``predictive`` read only when the
-        look has a predictive threshold and the benefit alone left the study running)."""
+        look has a predictive threshold and the benefit alone left the study running;
+        a callable is called only then, as the kernels compute it only then)."""
         code = look_decision(self.efficacy, self.futility, k, self.last, benefit,
                              self.tolerance)
         if code == CONTINUE and predictive is not None and self.has_predictive(k):
-            code = predictive_decision(self.futility_predictive, k, predictive,
-                                       self.tolerance)
+            pp = predictive() if callable(predictive) else predictive
+            code = predictive_decision(self.futility_predictive, k, pp, self.tolerance)
         return int(code)
 
     def decide_many(self, k: int, benefit: np.ndarray,
@@ -112,6 +131,53 @@ class Rule:
         codes[futile] = FUTILITY
         codes[efficacy] = EFFICACY
         return codes
+
+
+@dataclass(frozen=True, eq=False)
+class CountRule:
+    """A rule stated in counts, as a :class:`Rule` on the signed count (module
+    docstring).
+
+    Parameters
+    ----------
+    rule : Rule
+        Thresholds on ``sign * count`` (no predictive thresholds, no tolerance).
+    sign : int
+        +1 when higher counts are better, -1 when lower are.
+    """
+
+    rule: Rule
+    sign: int
+
+    @classmethod
+    def of(cls, looks: Any, higher: bool) -> CountRule:
+        """The count rule of a design's ``looks`` (``efficacy_count``,
+        ``futility_count``); ``higher``: whether higher counts are better."""
+        return cls.from_bounds(looks.efficacy_count, looks.futility_count, higher)
+
+    @classmethod
+    def from_bounds(cls, efficacy: tuple[int | None, ...], futility: tuple[int | None, ...],
+                    higher: bool) -> CountRule:
+        """The rule of per-look count bounds (``None``: no bound at that look)."""
+        sign = 1 if higher else -1
+        signed = tuple(None if a is None else sign * a for a in efficacy)
+        # x <= r (higher) or x >= r (lower) is, on the signed integer count, < sign r + 1
+        below = tuple(None if r is None else sign * r + 1 for r in futility)
+        rule = Rule(_array(signed), _array(below), np.full(len(signed), math.nan), 0.0)
+        return cls(rule, sign)
+
+    @property
+    def last(self) -> int:
+        """Index of the final look."""
+        return self.rule.last
+
+    def decide(self, k: int, count: int) -> int:
+        """The decision at look ``k`` for one study with ``count`` responses (events)."""
+        return self.rule.decide(k, float(self.sign * count))
+
+    def decide_many(self, k: int, counts: np.ndarray) -> np.ndarray:
+        """:meth:`decide` over an array of counts; returns int8 codes."""
+        return self.rule.decide_many(k, self.sign * np.asarray(counts, dtype=float))
 
 
 @njit(cache=True)
