@@ -18,8 +18,11 @@ from octrial.rules.stop import (
     CountRule,
     Rule,
     look_decision,
+    look_decision_at,
     predictive_decision,
+    predictive_decision_at,
     wants_predictive,
+    wants_predictive_at,
 )
 
 
@@ -73,6 +76,10 @@ def test_three_forms_agree_with_the_stated_rule(seed):
             if code == CONTINUE and wants_predictive(g, k, last):
                 code = predictive_decision(g, k, pi, tol)
             compiled.append(code)
+            per_look = look_decision_at(e[k], f[k], k == last, bi, tol)
+            if per_look == CONTINUE and wants_predictive_at(g[k], k == last):
+                per_look = predictive_decision_at(g[k], pi, tol)
+            assert per_look == code
         assert np.array_equal(np.array(compiled), expected)
 
 

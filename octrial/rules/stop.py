@@ -24,10 +24,13 @@ lower is better) is the same rule on the signed count ``sign * x`` with threshol
 The same rule appears in three forms, kept in step by ``tests/test_stop_rule.py``:
 :meth:`Rule.decide` (one study, Python: interim decisions), :meth:`Rule.decide_many`
 (arrays: decision tables on the lattice, boundary tables) and the numba functions
-:func:`look_decision` / :func:`predictive_decision` that every simulation kernel calls
-with :meth:`Rule.arrays`. The predictive step is separate because the predictive
-probability is expensive: kernels compute it only when :func:`wants_predictive` says the
-look has a predictive threshold and steps 1-3 left the study running.
+:func:`look_decision` / :func:`predictive_decision` on the arrays of
+:meth:`Rule.arrays`. The predictive step is separate because the predictive probability
+is expensive: kernels compute it only when :func:`wants_predictive` says the look has a
+predictive threshold and steps 1-3 left the study running. Kernels' inner loops call the
+per-look forms :func:`look_decision_at`, :func:`wants_predictive_at` and
+:func:`predictive_decision_at` on one look's thresholds as floats (``efficacy[k]``...);
+the array forms call them in turn, so the compiled comparisons are written once.
 """
 
 from __future__ import annotations
@@ -185,19 +188,13 @@ def look_decision(efficacy: np.ndarray, futility: np.ndarray, k: int, last: int,
                   b: float, tol: float) -> int:
     """Steps 1-3 of the rule (module docstring) in numba: EFFICACY, FUTILITY or
     CONTINUE from the posterior probability of benefit ``b`` at look ``k``."""
-    if not math.isnan(efficacy[k]) and b >= efficacy[k] - tol:
-        return EFFICACY
-    if k == last:
-        return FUTILITY
-    if not math.isnan(futility[k]) and b < futility[k] - tol:
-        return FUTILITY
-    return CONTINUE
+    return look_decision_at(efficacy[k], futility[k], k == last, b, tol)
 
 
 @njit(cache=True)
 def wants_predictive(futility_predictive: np.ndarray, k: int, last: int) -> bool:
     """Whether look ``k`` is an interim look with a predictive futility threshold."""
-    return k < last and not math.isnan(futility_predictive[k])
+    return wants_predictive_at(futility_predictive[k], k == last)
 
 
 @njit(cache=True)
@@ -205,6 +202,36 @@ def predictive_decision(futility_predictive: np.ndarray, k: int, pp: float,
                         tol: float) -> int:
     """Step 4 of the rule in numba: FUTILITY when the predictive probability of final
     success ``pp`` is below look ``k``'s threshold, else CONTINUE."""
-    if pp < futility_predictive[k] - tol:
+    return predictive_decision_at(futility_predictive[k], pp, tol)
+
+
+# The same three on one look's thresholds, for kernels' inner loops: an array argument
+# costs reference counting on every call (about 15% of the known-sd kernel, measured with
+# tests/benchmarks/bench_monte_carlo.py), a float nothing.
+
+@njit(cache=True)
+def look_decision_at(efficacy: float, futility: float, final: bool, b: float,
+                     tol: float) -> int:
+    """:func:`look_decision` on one look's ``efficacy`` and ``futility`` thresholds
+    (``nan``: none); ``final``: whether the look is the last."""
+    if not math.isnan(efficacy) and b >= efficacy - tol:
+        return EFFICACY
+    if final:
+        return FUTILITY
+    if not math.isnan(futility) and b < futility - tol:
+        return FUTILITY
+    return CONTINUE
+
+
+@njit(cache=True)
+def wants_predictive_at(futility_predictive: float, final: bool) -> bool:
+    """:func:`wants_predictive` on one look's predictive threshold (``nan``: none)."""
+    return not final and not math.isnan(futility_predictive)
+
+
+@njit(cache=True)
+def predictive_decision_at(futility_predictive: float, pp: float, tol: float) -> int:
+    """:func:`predictive_decision` on one look's predictive threshold."""
+    if pp < futility_predictive - tol:
         return FUTILITY
     return CONTINUE

@@ -32,7 +32,7 @@ found here by bisection on this module's own B, not taken from
 
 **Decisions** are the stop rule of :mod:`octrial.rules.stop`, by its numba twins on the
 thresholds of :meth:`~octrial.rules.stop.Rule.arrays`; PP is computed only when
-:func:`~octrial.rules.stop.wants_predictive` asks for it.
+:func:`~octrial.rules.stop.wants_predictive_at` asks for it.
 
 **Unknown sd**: :mod:`octrial.simulation.normal_unknown`.
 """
@@ -52,9 +52,9 @@ from octrial.rules.stop import (
     DECISION_TOLERANCE,
     EFFICACY,
     Rule,
-    look_decision,
-    predictive_decision,
-    wants_predictive,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
 )
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.estimates import add_estimate
@@ -203,8 +203,8 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 b = normal_sf((claim - big_m) * math.sqrt(big_p))
             else:
                 b = benefit(s, info[k], claim, weights, prior_means, precisions, w, m, p)
-            code = look_decision(efficacy, futility, k, last, b, tol)
-            if code == CONTINUE and wants_predictive(predictive_threshold, k, last):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 d = info[last] - info[k]
                 if not single:
                     pp = predictive(s, d, final_upper, w, m, p)
@@ -213,7 +213,7 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 else:
                     pp = normal_sf((final_upper - s - big_m * d)
                                    / math.sqrt(d + d * d / big_p))
-                code = predictive_decision(predictive_threshold, k, pp, tol)
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
             if code == CONTINUE:
                 continue
             if code == EFFICACY:

@@ -78,7 +78,7 @@ the scipy Monte Carlo reference of ``octrial decide``
 
 **Decisions** are the stop rule of :mod:`octrial.rules.stop`, by its numba twins on the
 thresholds of :meth:`~octrial.rules.stop.Rule.arrays` (PP only when
-:func:`~octrial.rules.stop.wants_predictive` asks for it), as in
+:func:`~octrial.rules.stop.wants_predictive_at` asks for it), as in
 :mod:`octrial.simulation.normal`.
 """
 
@@ -99,9 +99,9 @@ from octrial.rules.stop import (
     DECISION_TOLERANCE,
     EFFICACY,
     Rule,
-    look_decision,
-    predictive_decision,
-    wants_predictive,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
 )
 from octrial.simulation import student_t
 from octrial.simulation.base import Simulator, Tally
@@ -312,10 +312,10 @@ def one_arm_studies(means, squares, sizes, n, prior, sign, benchmark, efficacy, 
             scale = math.sqrt(bn / (an * kn))
             d = sign * (mean - benchmark)
             b = student_t_pair(d / scale, 2.0 * an)[0]
-            code = look_decision(efficacy, futility, k, last, b, tol)
-            if code == CONTINUE and wants_predictive(predictive_threshold, k, last):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 pp = predictive(d, bn, constants[k], nodes[k], weights[k])
-                code = predictive_decision(predictive_threshold, k, pp, tol)
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
             if code == CONTINUE:
                 continue
             (stops_efficacy if code == EFFICACY else stops_futility)[k] += 1
@@ -364,13 +364,13 @@ def two_arm_studies(means, squares, sizes, n, priors, sign, shift, efficacy, fut
                 loc[x_arm], scale[x_arm], nu[x_arm], 2 * k + x_arm,
                 loc[y_arm], scale[y_arm], nu[y_arm], 2 * k + y_arm, shift,
                 nodes, weights, start)
-            code = look_decision(efficacy, futility, k, last, b, tol)
-            if code == CONTINUE and wants_predictive(predictive_threshold, k, last):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 oriented_means[0], oriented_means[1] = loc[x_arm], loc[y_arm]
                 oriented_b[0], oriented_b[1] = b_post[x_arm], b_post[y_arm]
                 pp = two_arm_predictive(oriented_means, oriented_b, shift, pp_constants[k],
                                         pp_points[k], pp_table)
-                code = predictive_decision(predictive_threshold, k, pp, tol)
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
             if code == CONTINUE:
                 continue
             (stops_efficacy if code == EFFICACY else stops_futility)[k] += 1
