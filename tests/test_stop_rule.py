@@ -158,3 +158,45 @@ def test_count_rule_agrees_with_the_stated_count_rule(seed):
         e, f, _, tol = rule.rule.arrays()
         compiled = [look_decision(e, f, k, rule.last, float(rule.sign * xi), tol) for xi in x]
         assert np.array_equal(compiled, expected)
+
+
+WORDS = {EFFICACY: "stop for efficacy", FUTILITY: "stop for futility", CONTINUE: "continue"}
+FINAL_WORDS = {EFFICACY: "success", FUTILITY: "failure"}
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_interim_decisions_agree_with_the_stated_rules(seed):
+    """``octrial decide``'s readings (interim/rule.py) against the transcriptions above."""
+    from octrial.interim.rule import Thresholds, count_decision, probability_decision
+
+    rng = np.random.default_rng(300 + seed)
+    eff, fut, pred = random_case(rng)
+    last = len(eff) - 1
+    if eff[last] is None:
+        eff[last] = 0.95  # a design always has a final success threshold
+    grid = np.round(np.linspace(0, 1, 21), 2)
+    b = np.concatenate([grid, grid - 1e-13, grid - 1e-11])
+    pp = rng.permutation(np.concatenate([grid, grid - 1e-11, grid + 1e-13]))
+    for k in range(len(eff)):
+        final = k == last
+        th = Thresholds(eff[k], None if final else fut[k], None if final else pred[k])
+        words = FINAL_WORDS if final else WORDS
+        for bi, pi in zip(b, pp, strict=True):
+            decision, reason = probability_decision(th, float(bi), float(pi), final)
+            assert decision == words[stated_rule(eff, fut, pred, k, last, bi, pi)]
+            # a futility stop names every futility threshold crossed
+            both = (not final and fut[k] is not None and pred[k] is not None
+                    and bi < fut[k] - DECISION_TOLERANCE and pi < pred[k] - DECISION_TOLERANCE)
+            assert (";" in reason) == both or decision != "stop for futility"
+
+    higher = bool(seed % 2)
+    a = [None if rng.random() < 0.3 else int(rng.integers(0, 30)) for _ in eff]
+    r = [None if rng.random() < 0.3 else int(rng.integers(0, 30)) for _ in eff]
+    a[last], r[last] = int(rng.integers(0, 30)), None
+    for k in range(len(eff)):
+        final = k == last
+        words = FINAL_WORDS if final else WORDS
+        th = Thresholds(efficacy_count=a[k], futility_count=r[k])
+        for x in range(40):
+            decision, _ = count_decision(th, x, higher, final, "responses")
+            assert decision == words[stated_count_rule(a, r, k, last, x, higher)]
