@@ -26,7 +26,8 @@ from octrial.endpoints.base import LatticeFamily
 from octrial.rules.stop import DECISION_TOLERANCE, EFFICACY, FUTILITY, CountRule, Rule
 
 __all__ = ["DECISION_TOLERANCE", "LatticeCache", "LatticeRule", "LookTable", "build_rule",
-           "predictive_pmfs", "predictive_success", "serving", "success_from_pmfs"]
+           "predictive_pmfs", "predictive_success", "serving", "stop_rule",
+           "success_from_pmfs"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -212,12 +213,13 @@ def build_rule(
         for k in range(looks.count)]
     error = cache.error if with_prior else 0.0
 
-    final_codes = _codes(design, k_last, benefits[k_last])
+    rule = stop_rule(design)
+    final_codes = _codes(rule, design, k_last, benefits[k_last])
     grid = with_prior and family.on_grid(design)
     predictive_error = 0.0
     reach_success = final_codes == EFFICACY
     if any(t is not None for t in looks.futility_predictive):
-        reach_success = _success_for_predictive(design, cache, reach_success)
+        reach_success = _success_for_predictive(design, cache, rule, reach_success)
         error = max(error, cache.error)
     tables = []
     for k in range(looks.count):
@@ -235,7 +237,8 @@ def build_rule(
             if np.any(slack > 0):
                 near = np.abs(predictive - threshold) < slack
                 uncertain = near if uncertain is None else uncertain | near
-        codes = final_codes if k == k_last else _codes(design, k, benefits[k], predictive)
+        codes = (final_codes if k == k_last
+                 else _codes(rule, design, k, benefits[k], predictive))
         if uncertain is not None and not uncertain.any():
             uncertain = None
         tables.append(LookTable(k + 1, looks.per_arm[k], benefits[k], predictive,
@@ -279,7 +282,7 @@ def _predictive_slack(
 
 
 def _success_for_predictive(
-    design: Design, cache: LatticeCache, final_success: np.ndarray,
+    design: Design, cache: LatticeCache, rule: Rule | CountRule, final_success: np.ndarray,
 ) -> np.ndarray:
     """The final success region on a lattice large enough for predictive probabilities.
 
@@ -294,18 +297,24 @@ def _success_for_predictive(
     if sizes == final_success.shape:
         return final_success
     benefit = cache.benefit(design, design.looks.per_arm[-1], sizes)
-    return _codes(design, design.looks.count - 1, benefit) == EFFICACY
+    return _codes(rule, design, design.looks.count - 1, benefit) == EFFICACY
 
 
-def _codes(design: Design, k: int, benefit: np.ndarray | None,
-           predictive: np.ndarray | None = None) -> np.ndarray:
-    """The stop rule's decision codes at every lattice point of look ``k``."""
+def stop_rule(design: Design) -> Rule | CountRule:
+    """The design's stop rule: probability thresholds, or count bounds."""
     looks = design.looks
     if looks.uses_counts:
-        size = design.family.lattice_size(design, 0, looks.per_arm[k][0])
-        rule = CountRule.of(looks, design.hypothesis.better == "higher")
+        return CountRule.of(looks, design.hypothesis.better == "higher")
+    return Rule.of(looks)
+
+
+def _codes(rule: Rule | CountRule, design: Design, k: int, benefit: np.ndarray | None,
+           predictive: np.ndarray | None = None) -> np.ndarray:
+    """The stop rule's decision codes at every lattice point of look ``k``."""
+    if isinstance(rule, CountRule):
+        size = design.family.lattice_size(design, 0, design.looks.per_arm[k][0])
         return rule.decide_many(k, np.arange(size))
-    return Rule.of(looks).decide_many(k, benefit, predictive)
+    return rule.decide_many(k, benefit, predictive)
 
 
 def predictive_pmfs(
