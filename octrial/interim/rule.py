@@ -230,8 +230,8 @@ def count_decision(
     decision is :meth:`CountRule.decide <octrial.rules.stop.CountRule.decide>`."""
     a, r = thresholds.efficacy_count, thresholds.futility_count
     reach, fall = (">=", "<=") if higher else ("<=", ">=")
-    bounds = ((a,), (r,)) if last else ((a, None), (r, None))
-    decision = CountRule.from_bounds(*bounds, higher).decide(0, count)
+    after: tuple[None, ...] = () if last else (None,)  # look 0, then a final look
+    decision = CountRule.from_bounds((a, *after), (r, *after), higher).decide(0, count)
     if last:
         if decision == EFFICACY:
             return SUCCESS, f"{count} {statistic} reach the final success bound ({reach} {a})"

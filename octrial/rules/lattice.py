@@ -314,6 +314,7 @@ def _codes(rule: Rule | CountRule, design: Design, k: int, benefit: np.ndarray |
     if isinstance(rule, CountRule):
         size = design.family.lattice_size(design, 0, design.looks.per_arm[k][0])
         return rule.decide_many(k, np.arange(size))
+    assert benefit is not None, "a probability rule needs analysis priors (load checks)"
     return rule.decide_many(k, benefit, predictive)
 
 

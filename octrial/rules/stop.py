@@ -83,10 +83,9 @@ class Rule:
                  futility_predictive: float | None = None, *, final: bool) -> Rule:
         """The rule of one look, as look 0 (an interim look is followed by a final look
         with no thresholds, which only makes look 0 an interim one)."""
-        looks = [(efficacy, futility, futility_predictive)]
-        if not final:
-            looks.append((None, None, None))
-        return cls(*(_array(values) for values in zip(*looks, strict=True)))
+        after: tuple[None, ...] = () if final else (None,)
+        return cls(_array((efficacy, *after)), _array((futility, *after)),
+                   _array((futility_predictive, *after)))
 
     @property
     def last(self) -> int:
