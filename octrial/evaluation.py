@@ -22,7 +22,7 @@ from octrial.engines import MonteCarloSettings, choose
 from octrial.errors import NumericalWarning
 from octrial.execution import Execution
 from octrial.results import oc_table, type1_summary
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import DECISION_TOLERANCE
 
 
 @dataclass(frozen=True, eq=False)

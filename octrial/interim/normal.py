@@ -62,8 +62,8 @@ from octrial.interim.rule import (
     thresholds_at,
 )
 from octrial.interim.subjects import read_subjects
-from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.rules.normal import NormalRule, benefit, build_normal_rule, predictive
+from octrial.rules.stop import DECISION_TOLERANCE
 
 SD_CHECK = 0.05
 """Two-sided p-value of the chi-square test of the observed sd below which a known-sd

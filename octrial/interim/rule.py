@@ -6,7 +6,8 @@ sizes now, and the planned maximum at the end (one look when k is the last). Its
 come from :func:`octrial.rules.lattice.build_rule`, so the posterior and predictive
 probabilities are computed by exactly the code behind the boundary table; at the planned
 sizes they are the same numbers. The decision is then read with the rule's own comparison
-(:data:`~octrial.rules.lattice.DECISION_TOLERANCE`, efficacy first).
+(:class:`~octrial.rules.stop.Rule` and :class:`~octrial.rules.stop.CountRule`: the stop
+rule every kernel and table applies, efficacy first).
 
 When the observed sizes differ from the plan, probability thresholds are applied as
 written, except thresholds given as a function of the information fraction, which are
@@ -25,7 +26,8 @@ import numpy as np
 from octrial.design.model import Design, Looks
 from octrial.design.thresholds import FUNCTIONS, evaluate_spec
 from octrial.rules.boundaries import boundary_table
-from octrial.rules.lattice import DECISION_TOLERANCE, LatticeRule, build_rule, predictive_success
+from octrial.rules.lattice import LatticeRule, build_rule, predictive_success
+from octrial.rules.stop import EFFICACY, FUTILITY, CountRule, Rule, predictive_decision
 
 CONTINUE = "continue"
 STOP_EFFICACY = "stop for efficacy"
@@ -174,27 +176,30 @@ def probability_decision(
 ) -> tuple[str, str]:
     """The decision of a probability rule, and why (efficacy checked first).
 
-    Uses the same comparison as the boundary tables: a probability within
-    :data:`DECISION_TOLERANCE` of a threshold reaches it.
+    The decision is :meth:`Rule.decide <octrial.rules.stop.Rule.decide>`, the comparison
+    of the boundary tables and the kernels: a probability within
+    :data:`~octrial.rules.stop.DECISION_TOLERANCE` of a threshold reaches it. When both
+    futility thresholds are crossed, the reason names both.
     """
-    tol = DECISION_TOLERANCE
-    e = thresholds.efficacy
+    e, f, g = thresholds.efficacy, thresholds.futility, thresholds.futility_predictive
+    rule = Rule.one_look(e, f, g, final=last)
+    decision = rule.decide(0, benefit, predictive)
     if last:
-        if benefit >= e - tol:
+        if decision == EFFICACY:
             return SUCCESS, f"{statement} = {benefit:.4f} reaches the final success threshold {e:g}"
         return FAILURE, f"{statement} = {benefit:.4f} is below the final success threshold {e:g}"
-    if e is not None and benefit >= e - tol:
+    if decision == EFFICACY:
         return STOP_EFFICACY, f"{statement} = {benefit:.4f} reaches the efficacy threshold {e:g}"
+    if decision != FUTILITY:
+        return CONTINUE, _no_threshold(thresholds, benefit, predictive, statement)
     why = []
-    f, g = thresholds.futility, thresholds.futility_predictive
-    if f is not None and benefit < f - tol:
+    if rule.decide(0, benefit) == FUTILITY:
         why.append(f"{statement} = {benefit:.4f} is below the futility threshold {f:g}")
-    if g is not None and predictive is not None and predictive < g - tol:
+    if predictive is not None and rule.has_predictive(0) and predictive_decision(
+            rule.futility_predictive, 0, predictive, rule.tolerance) == FUTILITY:
         why.append(f"the predictive probability of final success = {predictive:.4f} is below "
                    f"the futility threshold {g:g}")
-    if why:
-        return STOP_FUTILITY, "; ".join(why)
-    return CONTINUE, _no_threshold(thresholds, benefit, predictive, statement)
+    return STOP_FUTILITY, "; ".join(why)
 
 
 def _no_threshold(thresholds: Thresholds, benefit: float, predictive: float | None,
@@ -220,16 +225,18 @@ def _no_threshold(thresholds: Thresholds, benefit: float, predictive: float | No
 def count_decision(
     thresholds: Thresholds, count: int, higher: bool, last: bool, statistic: str,
 ) -> tuple[str, str]:
-    """The decision of a rule stated in counts, and why (efficacy checked first)."""
+    """The decision of a rule stated in counts, and why (efficacy checked first); the
+    decision is :meth:`CountRule.decide <octrial.rules.stop.CountRule.decide>`."""
     a, r = thresholds.efficacy_count, thresholds.futility_count
     reach, fall = (">=", "<=") if higher else ("<=", ">=")
-    hit = a is not None and (count >= a if higher else count <= a)
+    after: tuple[None, ...] = () if last else (None,)  # look 0, then a final look
+    decision = CountRule.from_bounds((a, *after), (r, *after), higher).decide(0, count)
     if last:
-        if hit:
+        if decision == EFFICACY:
             return SUCCESS, f"{count} {statistic} reach the final success bound ({reach} {a})"
         return FAILURE, f"{count} {statistic} miss the final success bound ({reach} {a})"
-    if hit:
+    if decision == EFFICACY:
         return STOP_EFFICACY, f"{count} {statistic} reach the efficacy bound ({reach} {a})"
-    if r is not None and (count <= r if higher else count >= r):
+    if decision == FUTILITY:
         return STOP_FUTILITY, f"{count} {statistic} fall in the futility region ({fall} {r})"
     return CONTINUE, f"{count} {statistic} reach no stopping bound"

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from octrial.reporting.formats import probability
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import DECISION_TOLERANCE
 
 TARGET_SE = 0.0005
 """Standard error at which a type I error near 0.025 is stated to about +-0.001 (used

@@ -5,9 +5,12 @@ so the rule becomes, per look, a boolean mask over the lattice (one axis per arm
 the study stops for efficacy and where it stops for futility. The exact engine, the Monte
 Carlo fast path, the boundary table and the interim decision all read these masks.
 
-Efficacy is checked first: a point that meets the efficacy threshold never counts as
-futile. The last look's efficacy threshold is the final success threshold; every other
-point at the last look is a failure.
+The masks are the stop rule of :mod:`octrial.rules.stop` (:meth:`Rule.decide_many
+<octrial.rules.stop.Rule.decide_many>`, or :class:`~octrial.rules.stop.CountRule` for a
+rule stated in counts) read at every lattice point: efficacy is checked first, so a point
+that meets the efficacy threshold never counts as futile; the last look's efficacy
+threshold is the final success threshold, and every other point at the last look is a
+failure.
 """
 
 from __future__ import annotations
@@ -20,11 +23,11 @@ import pandas as pd
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
+from octrial.rules.stop import DECISION_TOLERANCE, EFFICACY, FUTILITY, CountRule, Rule
 
-DECISION_TOLERANCE = 1e-12
-"""A probability within this of a threshold counts as reaching it, so that a threshold
-equal to a computed posterior probability (as calibration produces) is met despite
-rounding in the last bit."""
+__all__ = ["DECISION_TOLERANCE", "LatticeCache", "LatticeRule", "LookTable", "build_rule",
+           "predictive_pmfs", "predictive_success", "serving", "stop_rule",
+           "success_from_pmfs"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -210,40 +213,36 @@ def build_rule(
         for k in range(looks.count)]
     error = cache.error if with_prior else 0.0
 
-    final_success = _efficacy(design, k_last, benefits[k_last])
+    rule = stop_rule(design)
+    final_codes = _codes(rule, design, k_last, benefits[k_last])
     grid = with_prior and family.on_grid(design)
     predictive_error = 0.0
-    reach_success = final_success
+    reach_success = final_codes == EFFICACY
     if any(t is not None for t in looks.futility_predictive):
-        reach_success = _success_for_predictive(design, cache, final_success)
+        reach_success = _success_for_predictive(design, cache, rule, reach_success)
         error = max(error, cache.error)
     tables = []
     for k in range(looks.count):
-        efficacy = final_success if k == k_last else _efficacy(design, k, benefits[k])
         predictive = None
         uncertain = _near(design, k, benefits[k], error) if grid else None
-        if k == k_last:
-            futility = ~efficacy
-        else:
-            futility = _futility(design, k, benefits[k], efficacy.shape)
-            threshold = looks.futility_predictive[k]
-            if threshold is not None:
-                pmfs = cache.predictive(design, looks.per_arm[k], looks.per_arm[-1],
-                                        reach_success.shape)
-                predictive = success_from_pmfs(pmfs, reach_success)
-                futility |= predictive < threshold - DECISION_TOLERANCE
-                slack, err = _predictive_slack(design, family,
-                                               cache.posteriors(design, looks.per_arm[k]), k,
-                                               pmfs, reach_success.shape)
-                predictive_error = max(predictive_error, err)
-                if np.any(slack > 0):
-                    near = np.abs(predictive - threshold) < slack
-                    uncertain = near if uncertain is None else uncertain | near
-            futility &= ~efficacy
+        threshold = None if k == k_last else looks.futility_predictive[k]
+        if threshold is not None:
+            pmfs = cache.predictive(design, looks.per_arm[k], looks.per_arm[-1],
+                                    reach_success.shape)
+            predictive = success_from_pmfs(pmfs, reach_success)
+            slack, err = _predictive_slack(design, family,
+                                           cache.posteriors(design, looks.per_arm[k]), k,
+                                           pmfs, reach_success.shape)
+            predictive_error = max(predictive_error, err)
+            if np.any(slack > 0):
+                near = np.abs(predictive - threshold) < slack
+                uncertain = near if uncertain is None else uncertain | near
+        codes = (final_codes if k == k_last
+                 else _codes(rule, design, k, benefits[k], predictive))
         if uncertain is not None and not uncertain.any():
             uncertain = None
-        tables.append(LookTable(k + 1, looks.per_arm[k], benefits[k], predictive, efficacy,
-                                futility, uncertain))
+        tables.append(LookTable(k + 1, looks.per_arm[k], benefits[k], predictive,
+                                codes == EFFICACY, codes == FUTILITY, uncertain))
     settings = family.rule_info(design, max(error, predictive_error)) if with_prior else {}
     return LatticeRule(tuple(tables), error, family.lattice_reach(design), settings)
 
@@ -283,7 +282,7 @@ def _predictive_slack(
 
 
 def _success_for_predictive(
-    design: Design, cache: LatticeCache, final_success: np.ndarray,
+    design: Design, cache: LatticeCache, rule: Rule | CountRule, final_success: np.ndarray,
 ) -> np.ndarray:
     """The final success region on a lattice large enough for predictive probabilities.
 
@@ -298,38 +297,25 @@ def _success_for_predictive(
     if sizes == final_success.shape:
         return final_success
     benefit = cache.benefit(design, design.looks.per_arm[-1], sizes)
-    return _efficacy(design, design.looks.count - 1, benefit)
+    return _codes(rule, design, design.looks.count - 1, benefit) == EFFICACY
 
 
-def _efficacy(design: Design, k: int, benefit: np.ndarray | None) -> np.ndarray:
+def stop_rule(design: Design) -> Rule | CountRule:
+    """The design's stop rule: probability thresholds, or count bounds."""
     looks = design.looks
     if looks.uses_counts:
-        size = design.family.lattice_size(design, 0, looks.per_arm[k][0])
-        bound = looks.efficacy_count[k]
-        x = np.arange(size)
-        if bound is None:
-            return np.zeros(size, dtype=bool)
-        return x >= bound if design.hypothesis.better == "higher" else x <= bound
-    threshold = looks.efficacy[k]
-    if threshold is None:
-        return np.zeros(benefit.shape, dtype=bool)
-    return benefit >= threshold - DECISION_TOLERANCE
+        return CountRule.of(looks, design.hypothesis.better == "higher")
+    return Rule.of(looks)
 
 
-def _futility(
-    design: Design, k: int, benefit: np.ndarray | None, shape: tuple[int, ...],
-) -> np.ndarray:
-    looks = design.looks
-    if looks.uses_counts:
-        bound = looks.futility_count[k]
-        x = np.arange(shape[0])
-        if bound is None:
-            return np.zeros(shape, dtype=bool)
-        return x <= bound if design.hypothesis.better == "higher" else x >= bound
-    threshold = looks.futility[k]
-    if threshold is None:
-        return np.zeros(shape, dtype=bool)
-    return benefit < threshold - DECISION_TOLERANCE
+def _codes(rule: Rule | CountRule, design: Design, k: int, benefit: np.ndarray | None,
+           predictive: np.ndarray | None = None) -> np.ndarray:
+    """The stop rule's decision codes at every lattice point of look ``k``."""
+    if isinstance(rule, CountRule):
+        size = design.family.lattice_size(design, 0, design.looks.per_arm[k][0])
+        return rule.decide_many(k, np.arange(size))
+    assert benefit is not None, "a probability rule needs analysis priors (load checks)"
+    return rule.decide_many(k, benefit, predictive)
 
 
 def predictive_pmfs(

@@ -26,7 +26,7 @@ from scipy import optimize, special
 
 from octrial.design.model import Design
 from octrial.endpoints.normal import benefit_components, update
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import DECISION_TOLERANCE
 
 ROOT_TOLERANCE = 1e-12
 """Relative tolerance of the bounds on the score (Brent's method)."""

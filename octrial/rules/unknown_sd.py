@@ -8,10 +8,10 @@ efficacy (success at the final analysis) and for futility.
 
 The decisions are those the Monte Carlo kernel simulates
 (:mod:`octrial.simulation.normal_unknown`: the Student t posterior; the predictive
-probability by its Gauss-Jacobi rule; thresholds lowered by the decision tolerance;
-efficacy checked first), so the table is the rule behind the reported operating
-characteristics; ``octrial decide`` computes the same probabilities with scipy
-quadrature (they agree to 1e-7 in the predictive probability and 1e-12 in B). Over a
+probability by its Gauss-Jacobi rule; the stop rule of :mod:`octrial.rules.stop`), so
+the table is the rule behind the reported operating characteristics; ``octrial decide``
+computes the same probabilities with scipy quadrature (they agree to 1e-7 in the
+predictive probability and 1e-12 in B). Over a
 grid of :data:`GRID_POINTS` sample means spanning :data:`SPAN` standard errors s / sqrt(n)
 either side of the benchmark (and the prior mean) every decision is computed, and every
 change between neighbouring grid points is located by bisection on the decision itself
@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from octrial.design.model import Design
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
 
 SD_MULTIPLES = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)
 """Sample sds of the table, as multiples of ``endpoint.true_sd``."""
@@ -44,8 +44,6 @@ SPAN = 12.0
 
 BISECTIONS = 60
 """Halvings that locate each change of decision."""
-
-EFFICACY, CONTINUE, FUTILITY = 1, 0, -1
 
 
 def sds_of(design: Design, sds: tuple[float, ...] | None = None) -> tuple[float, ...]:
@@ -68,9 +66,7 @@ def _deciders(design: Design, k: int, sd: float) -> tuple[Callable[[float], int]
     h = design.hypothesis
     sign = h.sign
     n = looks.per_arm[k][0]
-    last = k == looks.count - 1
-    efficacy, futility = looks.efficacy[k], looks.futility[k]
-    predictive_threshold = None if last else looks.futility_predictive[k]
+    rule = Rule.of(looks)
     constants, nodes, weights = kernel.predictive_rules(design)
 
     def state(mean: float) -> tuple[float, float, float]:
@@ -89,17 +85,8 @@ def _deciders(design: Design, k: int, sd: float) -> tuple[Callable[[float], int]
 
     def decision(mean: float) -> int:
         d, b_n, b = state(mean)
-        if efficacy is not None and b >= efficacy - DECISION_TOLERANCE:
-            return EFFICACY
-        if last:
-            return FUTILITY
-        if futility is not None and b < futility - DECISION_TOLERANCE:
-            return FUTILITY
-        if predictive_threshold is not None and kernel.predictive(
-                d, b_n, constants[k], nodes[k], weights[k]) < (
-                predictive_threshold - DECISION_TOLERANCE):
-            return FUTILITY
-        return CONTINUE
+        return rule.decide(k, b, lambda: float(kernel.predictive(
+            d, b_n, constants[k], nodes[k], weights[k])))
 
     return decision, benefit, predictive
 

@@ -30,6 +30,10 @@ final threshold; B is increasing in S, so success at the end is S_K >= u_K). u_K
 found here by bisection on this module's own B, not taken from
 :mod:`octrial.rules.normal`, so the two are independent checks of each other.
 
+**Decisions** are the stop rule of :mod:`octrial.rules.stop`, by its numba twins on the
+thresholds of :meth:`~octrial.rules.stop.Rule.arrays`; PP is computed only when
+:func:`~octrial.rules.stop.wants_predictive_at` asks for it.
+
 **Unknown sd**: :mod:`octrial.simulation.normal_unknown`.
 """
 
@@ -43,7 +47,15 @@ import numpy as np
 
 from octrial.design.model import Design
 from octrial.endpoints.normal import benefit_components
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import (
+    CONTINUE,
+    DECISION_TOLERANCE,
+    EFFICACY,
+    Rule,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.estimates import add_estimate
 from octrial.simulation.special import normal_sf, normalise_log_weights
@@ -191,9 +203,8 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 b = normal_sf((claim - big_m) * math.sqrt(big_p))
             else:
                 b = benefit(s, info[k], claim, weights, prior_means, precisions, w, m, p)
-            eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
-            fut = not math.isnan(futility[k]) and b < futility[k] - tol
-            if k < last and not eff and not fut and not math.isnan(predictive_threshold[k]):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 d = info[last] - info[k]
                 if not single:
                     pp = predictive(s, d, final_upper, w, m, p)
@@ -202,12 +213,10 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 else:
                     pp = normal_sf((final_upper - s - big_m * d)
                                    / math.sqrt(d + d * d / big_p))
-                fut = pp < predictive_threshold[k] - tol
-            if k == last:
-                fut = not eff
-            if not (eff or fut):
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
+            if code == CONTINUE:
                 continue
-            if eff:
+            if code == EFFICACY:
                 stops_efficacy[k] += 1
             else:
                 stops_futility[k] += 1
@@ -226,11 +235,6 @@ def known_sd_studies(means, sizes, n, info, sign, claim, weights, prior_means, p
                 covered += add_estimate(sign * mean - truth, cdf, tail, sums)
             break
     return covered
-
-
-def thresholds(values: tuple[float | None, ...]) -> np.ndarray:
-    """Per-look thresholds with NaN where a look has none."""
-    return np.array([np.nan if v is None else v for v in values], dtype=float)
 
 
 def design_prior_draws(design: Design, rng: np.random.Generator,
@@ -301,11 +305,11 @@ class NormalSimulator(Simulator):
         final_upper = score_bound(final - DECISION_TOLERANCE, info[-1], claim, weights, means,
                                   precisions) if final is not None else math.inf
         self.final_upper = final_upper
+        efficacy, futility, predictive_threshold, self.tolerance = Rule.of(looks).arrays()
         self.arguments: tuple[Any, ...] = (
             self.sizes.astype(float), np.array(looks.per_arm, dtype=float), info,
             float(h.sign), claim, weights, means, precisions,
-            thresholds(looks.efficacy), thresholds(looks.futility),
-            thresholds(looks.futility_predictive), final_upper,
+            efficacy, futility, predictive_threshold, final_upper,
         )
         self.target = float(family.target_value(h, tuple(truth)))
         self.tail = (1.0 - level) / 2.0
@@ -328,7 +332,7 @@ class NormalSimulator(Simulator):
         futility = np.zeros(self.looks, dtype=np.int64)
         sums = np.zeros(3)
         covered = known_sd_studies(data[0], *self.arguments, estimate, self.target, self.tail,
-                                   DECISION_TOLERANCE, efficacy, futility, sums)
+                                   self.tolerance, efficacy, futility, sums)
         if not estimate:
             return Tally(replicates, efficacy, futility)
         return Tally(replicates, efficacy, futility, sums, int(covered))

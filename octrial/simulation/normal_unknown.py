@@ -75,6 +75,11 @@ the futility threshold may be decided either way, a share reported by nothing si
 is small beside the Monte Carlo error of the operating characteristics. Checked against
 the scipy Monte Carlo reference of ``octrial decide``
 (:func:`octrial.endpoints.unknown_sd.predictive_two_arms`).
+
+**Decisions** are the stop rule of :mod:`octrial.rules.stop`, by its numba twins on the
+thresholds of :meth:`~octrial.rules.stop.Rule.arrays` (PP only when
+:func:`~octrial.rules.stop.wants_predictive_at` asks for it), as in
+:mod:`octrial.simulation.normal`.
 """
 
 from __future__ import annotations
@@ -89,11 +94,19 @@ from numpy.polynomial import Chebyshev
 from scipy import linalg, optimize, stats
 
 from octrial.design.model import Design
-from octrial.rules.lattice import DECISION_TOLERANCE
+from octrial.rules.stop import (
+    CONTINUE,
+    DECISION_TOLERANCE,
+    EFFICACY,
+    Rule,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
 from octrial.simulation import student_t
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.estimates import add_estimate
-from octrial.simulation.normal import draw_increments, increment_sizes, thresholds
+from octrial.simulation.normal import draw_increments, increment_sizes
 from octrial.simulation.special import student_t_pair
 
 PREDICTIVE_NODES = 16
@@ -299,16 +312,13 @@ def one_arm_studies(means, squares, sizes, n, prior, sign, benchmark, efficacy, 
             scale = math.sqrt(bn / (an * kn))
             d = sign * (mean - benchmark)
             b = student_t_pair(d / scale, 2.0 * an)[0]
-            eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
-            fut = not math.isnan(futility[k]) and b < futility[k] - tol
-            if k < last and not eff and not fut and not math.isnan(predictive_threshold[k]):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 pp = predictive(d, bn, constants[k], nodes[k], weights[k])
-                fut = pp < predictive_threshold[k] - tol
-            if k == last:
-                fut = not eff
-            if not (eff or fut):
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
+            if code == CONTINUE:
                 continue
-            (stops_efficacy if eff else stops_futility)[k] += 1
+            (stops_efficacy if code == EFFICACY else stops_futility)[k] += 1
             if has_estimate:
                 cdf = student_t_pair((truth - mean) / scale, 2.0 * an)[0]
                 covered += add_estimate(mean - truth, cdf, tail, sums)
@@ -354,19 +364,16 @@ def two_arm_studies(means, squares, sizes, n, priors, sign, shift, efficacy, fut
                 loc[x_arm], scale[x_arm], nu[x_arm], 2 * k + x_arm,
                 loc[y_arm], scale[y_arm], nu[y_arm], 2 * k + y_arm, shift,
                 nodes, weights, start)
-            eff = not math.isnan(efficacy[k]) and b >= efficacy[k] - tol
-            fut = not math.isnan(futility[k]) and b < futility[k] - tol
-            if k < last and not eff and not fut and not math.isnan(predictive_threshold[k]):
+            code = look_decision_at(efficacy[k], futility[k], k == last, b, tol)
+            if code == CONTINUE and wants_predictive_at(predictive_threshold[k], k == last):
                 oriented_means[0], oriented_means[1] = loc[x_arm], loc[y_arm]
                 oriented_b[0], oriented_b[1] = b_post[x_arm], b_post[y_arm]
                 pp = two_arm_predictive(oriented_means, oriented_b, shift, pp_constants[k],
                                         pp_points[k], pp_table)
-                fut = pp < predictive_threshold[k] - tol
-            if k == last:
-                fut = not eff
-            if not (eff or fut):
+                code = predictive_decision_at(predictive_threshold[k], pp, tol)
+            if code == CONTINUE:
                 continue
-            (stops_efficacy if eff else stops_futility)[k] += 1
+            (stops_efficacy if code == EFFICACY else stops_futility)[k] += 1
             if has_estimate:
                 cdf = 1.0 - student_t.prob_difference_exceeds(
                     loc[0], scale[0], nu[0], 2 * k, loc[1], scale[1], nu[1], 2 * k + 1,
@@ -517,21 +524,20 @@ class UnknownSdSimulator(Simulator):
         self.tail = (1.0 - level) / 2.0
         priors = np.array([[a.prior.mean, a.prior.mean_n, a.prior.shape, a.prior.scale]
                            for a in design.arms])
-        rule = (thresholds(looks.efficacy), thresholds(looks.futility))
+        *rule, self.tolerance = Rule.of(looks).arrays()
         if self.two_arm:
             n = np.array(looks.per_arm, dtype=float)
             nus = [2 * (priors[j, 2] + n[k, j] / 2) for k in range(looks.count)
                    for j in range(2)]
             self.arguments: tuple[Any, ...] = (
                 self.sizes.astype(float), n, priors, float(h.sign), float(h.shift), *rule,
-                thresholds(looks.futility_predictive), *two_arm_predictive_rules(design))
+                *two_arm_predictive_rules(design))
             self.quadrature = student_t.rules(nus)
         else:
             n = np.array([per[0] for per in looks.per_arm], dtype=float)
             self.arguments = (
                 self.sizes[:, 0].astype(float), n, priors[0], float(h.sign),
-                float(h.benchmark), *rule, thresholds(looks.futility_predictive),
-                *predictive_rules(design))
+                float(h.benchmark), *rule, *predictive_rules(design))
 
     def draw(self, rng: np.random.Generator, replicates: int, mean: np.ndarray | None = None,
              sd: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
@@ -551,7 +557,7 @@ class UnknownSdSimulator(Simulator):
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         sums = np.zeros(3)
-        common = (estimate, self.target, self.tail, DECISION_TOLERANCE)
+        common = (estimate, self.target, self.tail, self.tolerance)
         if self.two_arm:
             covered = two_arm_studies(means, squares, *self.arguments, *common,
                                       *self.quadrature, efficacy, futility, sums)
