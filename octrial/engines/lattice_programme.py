@@ -107,10 +107,9 @@ def run_programme(looks: Sequence[Look], arms: int, step: Step, *,
         caller whose stopping points form one run may sum a slice instead, which keeps
         its summation order.
     """
-    batch = scenarios is not None
     summed = tally or _gathered
-
-    lead = (scenarios,) if batch else ()
+    lead: tuple[int, ...] = () if scenarios is None else (scenarios,)
+    batch = bool(lead)
     axes = tuple(range(1, arms + 1)) if batch else None
     k_looks = len(looks)
     efficacy, futility = np.zeros((*lead, k_looks)), np.zeros((*lead, k_looks))
