@@ -49,9 +49,10 @@ import numpy as np
 from octrial._version import __version__
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
-from octrial.engines import choose
+from octrial.engines import choose, engine_for
+from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.engines.lattice_programme import add_state_increment, run_programme
 from octrial.engines.monte_carlo import adjusted_se
-from octrial.errors import InputError
 from octrial.execution import Execution
 from octrial.execution.checkpoints import kept_seed
 from octrial.numerics import tanh_sinh
@@ -189,7 +190,8 @@ def assurance(
     family = design.family
     generating = design_prior_design(design)
     claim = float(family.prior_probability_of_claim(generating))
-    lattice = isinstance(family, LatticeFamily)
+    exact = engine_for(design, "exact")
+    lattice = exact is ExactLatticeEngine
     if method == "exact" or (method == "auto" and lattice):
         if not lattice:
             raise ValueError(f"no exact assurance for {family.name} endpoints")
@@ -198,7 +200,7 @@ def assurance(
             rule = build_rule(design, truths=reach)
         eff, fut = _predictive_programme(design, generating, rule)
         method_used = "exact"
-    elif method == "simulation" or (method == "auto" and not _exact_engine(design)):
+    elif method == "simulation" or (method == "auto" and exact is None):
         return _simulated(design, settings, claim, execution)
     else:
         eff, fut = _quadrature(design, generating)
@@ -206,14 +208,6 @@ def assurance(
     n = np.asarray(design.looks.n, dtype=float)
     return Assurance(float(eff.sum()), float((eff + fut) @ n), tuple(map(float, eff)),
                      tuple(map(float, fut)), method_used, claim)
-
-
-def _exact_engine(design: Design) -> bool:
-    try:
-        choose(design, "exact")
-    except InputError:
-        return False
-    return True
 
 
 def _simulated(design: Design, settings: Any, claim: float,
@@ -258,24 +252,16 @@ def _predictive_programme(
     design: Design, generating: Design, rule: LatticeRule,
 ) -> tuple[np.ndarray, np.ndarray]:
     family: LatticeFamily = design.family
-    arms = len(design.arms)
-    k_looks = len(rule.looks)
-    eff, fut = np.zeros(k_looks), np.zeros(k_looks)
-    dist = np.ones((1,) * arms)
-    previous = (0,) * arms
-    for k, table in enumerate(rule.looks):
-        for j in range(arms):
-            old = dist.shape[j]
-            post = family.posterior(generating, j, previous[j], np.arange(old))
-            # increments up to the lattice's size (counts are not bounded by subjects)
-            pmf = family.predictive_pmf(generating, post, table.n[j] - previous[j],
-                                        table.shape[j])
-            dist = _advance(dist, pmf, j, table.shape[j])
-        eff[k] = dist[table.efficacy].sum()
-        fut[k] = dist[table.futility].sum()
-        dist = np.where(table.efficacy | table.futility, 0.0, dist)
-        previous = table.n
-    return eff, fut
+
+    def step(dist: np.ndarray, arm: int, before: int, after: int, size: int) -> np.ndarray:
+        # the design prior's predictive pmf from every count so far, with increments up
+        # to the lattice's size (counts are not bounded by subjects)
+        post = family.posterior(generating, arm, before, np.arange(dist.shape[arm]))
+        pmf = family.predictive_pmf(generating, post, after - before, size)
+        return add_state_increment(dist, pmf, arm, size)
+
+    found = run_programme(rule.looks, len(design.arms), step, track_uncertain=False)
+    return found.efficacy, found.futility
 
 
 def _reach(design: Design) -> np.ndarray | None:
@@ -291,19 +277,6 @@ def _reach(design: Design) -> np.ndarray | None:
             return None
         tops.append(max(float(dist.isf(REACH_TAIL)) for _, dist in components))
     return np.array([tops])
-
-
-def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:
-    """out[x + y] += dist[x] pmf[x, y] along ``axis`` (state-dependent increments)."""
-    moved = np.moveaxis(dist, axis, 0)
-    out = np.zeros((size, *moved.shape[1:]))
-    width = pmf.shape[1]
-    extra = (None,) * (moved.ndim - 1)
-    for y in range(width):
-        stop = min(moved.shape[0] + y, size)
-        if stop > y:
-            out[y:stop] += moved[: stop - y] * pmf[: stop - y, y][(slice(None), *extra)]
-    return np.moveaxis(out, 0, axis)
 
 
 def _nodes(family: Any, prior: Any) -> tuple[np.ndarray, np.ndarray]:

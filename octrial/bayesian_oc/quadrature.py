@@ -17,8 +17,8 @@ from octrial.bayesian_oc.nodes import (
 )
 from octrial.design.model import Design
 from octrial.design_prior import design_prior_design, on_effect
-from octrial.engines import choose
-from octrial.errors import InputError
+from octrial.engines import choose, engine_for
+from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.numerics import tanh_sinh
 
 TOLERANCE = 1e-10
@@ -39,7 +39,8 @@ CHUNK = 2000
 def success_function(design: Design) -> Callable[[np.ndarray], np.ndarray]:
     """Pr(success | truth) at many true values by the design's exact engine (the batched
     lattice programme on a count lattice)."""
-    if design.family.lattice:
+    engine = choose(design, "exact")
+    if engine is ExactLatticeEngine:
         from octrial.engines.lattice_batch import IncrementTables, run_batch
         from octrial.rules.lattice import build_rule
 
@@ -50,7 +51,6 @@ def success_function(design: Design) -> Callable[[np.ndarray], np.ndarray]:
             return np.concatenate(out) if out else np.zeros(0)
 
         return lattice
-    engine = choose(design, "exact")
 
     def exact(truths: np.ndarray) -> np.ndarray:
         return engine.run(design, truths, estimate=False).efficacy.sum(axis=1)
@@ -60,11 +60,7 @@ def success_function(design: Design) -> Callable[[np.ndarray], np.ndarray]:
 
 def exact_engine_applies(design: Design) -> bool:
     """Whether an exact engine gives Pr(success | truth) for ``design``."""
-    try:
-        choose(design, "exact")
-    except InputError:
-        return False
-    return True
+    return engine_for(design, "exact") is not None
 
 
 # -- quadrature ----------------------------------------------------------------------------------

@@ -39,6 +39,7 @@ from octrial.calibration.tuning import Choice, Tuner, best_failing
 from octrial.calibration.variants import Builder, allocation_unit, looks_at
 from octrial.design.model import Design
 from octrial.design_prior import assurance_record
+from octrial.engines import engine_for
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.monte_carlo import MonteCarloSettings
 from octrial.errors import InputError, Problem
@@ -260,7 +261,7 @@ class _Search:
 
 def _check_against_engine(design: Design, truths: Truths, a: Assessment) -> None:
     """The chosen design, recomputed by the exact engine (no caches, no batching)."""
-    if not design.family.lattice:
+    if engine_for(design, "exact") is not ExactLatticeEngine:
         return
     rows = len(truths.values) if truths.prior_start is None else truths.prior_start
     outcome = ExactLatticeEngine.run(design, truths.values[:rows], estimate=False)

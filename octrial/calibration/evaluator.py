@@ -37,8 +37,7 @@ import numpy as np
 
 from octrial.calibration.nulls import Truths
 from octrial.design.model import Design
-from octrial.endpoints.base import LatticeFamily
-from octrial.engines import choose
+from octrial.engines import choose, engine_for
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.lattice_batch import BatchResult, IncrementTables, run_batch
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings, replicates_for
@@ -424,12 +423,6 @@ def evaluator_for(design: Design, truths: Truths, method: str | None = None,
                   seed_store: CheckpointStore | None = None) -> Evaluator:
     """The fast lattice evaluator when the exact lattice engine applies, else the engine's
     (``settings``, ``execution`` and ``seed_store`` as for :class:`EngineEvaluator`)."""
-    if method in (None, "auto", "exact") and isinstance(design.family, LatticeFamily) and (
-            ExactLatticeEngine.unsupported(design) is None):
-        try:
-            engine = choose(design, method)
-        except ValueError:
-            engine = None
-        if engine is ExactLatticeEngine:
-            return LatticeEvaluator(truths, design)
+    if method in (None, "auto", "exact") and engine_for(design, method) is ExactLatticeEngine:
+        return LatticeEvaluator(truths, design)
     return EngineEvaluator(truths, method, settings, execution, seed_store)

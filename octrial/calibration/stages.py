@@ -42,6 +42,7 @@ from octrial.calibration.tuning import Choice
 from octrial.calibration.variants import Builder, allocation_unit, entries, looks_at
 from octrial.design.model import Looks
 from octrial.design.thresholds import evaluate_spec
+from octrial.engines.lattice_programme import run_programme
 from octrial.rules.lattice import DECISION_TOLERANCE, LatticeCache
 
 
@@ -63,6 +64,38 @@ class Stage:
     power: float
     en0: float
     en1: float
+
+
+@dataclass(frozen=True, eq=False)
+class _Look:
+    """One look of a searched design on the good-count lattice 0..n (for the lattice
+    programme)."""
+
+    n: tuple[int]
+    efficacy: np.ndarray
+    futility: np.ndarray
+    uncertain: None = None
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        return self.efficacy.shape
+
+
+def _look(n: int, first_efficacy: int | None, last_futility: int) -> _Look:
+    """Efficacy from ``first_efficacy`` on (None: none), futility up to ``last_futility``
+    (-1: none)."""
+    points = np.arange(n + 1)
+    return _Look((n,), points >= (n + 1 if first_efficacy is None else first_efficacy),
+                  points <= last_futility)
+
+
+def _run_sum(dist: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """Mass on a run of good counts, summed over a slice (the order this search always
+    used; a gathered copy sums in another order and moves last bits)."""
+    where = np.flatnonzero(mask)
+    if where.size == 0:
+        return np.zeros(dist.shape[0])
+    return dist[:, where[0]: where[-1] + 1].sum(axis=1)
 
 
 class StageSearch:
@@ -258,24 +291,24 @@ class StageSearch:
 
     def _evaluate(self, sizes, futility, eff_bounds, final_ok) -> Stage | None:
         """One futility vector: the recursion over looks with two true values."""
-        dist = np.ones((2, 1))
-        previous = 0
+        looks = [_look(n_k, a, r)
+                 for n_k, r, a in zip(sizes[:-1], futility, eff_bounds, strict=True)]
+        looks.append(_look(sizes[-1], None, -1))
+
+        def step(dist: np.ndarray, arm: int, before: int, after: int,
+                 size: int) -> np.ndarray:
+            pmf = self._pmf(after - before)
+            return np.stack([np.convolve(dist[i], pmf[i]) for i in range(2)])
+
+        found = run_programme(looks, 1, step, scenarios=2, keep_final=True,
+                              tally=_run_sum)
         early_eff = np.zeros(2)
         en = np.zeros(2)
-        for n_k, r, a in zip(sizes[:-1], futility, eff_bounds, strict=True):
-            pmf = self._pmf(n_k - previous)
-            dist = np.stack([np.convolve(dist[i], pmf[i]) for i in range(2)])
-            stop_fut = dist[:, : r + 1].sum(axis=1) if r >= 0 else np.zeros(2)
-            stop_eff = dist[:, a:].sum(axis=1) if a is not None else np.zeros(2)
-            early_eff += stop_eff
-            en += n_k * (stop_fut + stop_eff)
-            if r >= 0:
-                dist[:, : r + 1] = 0.0
-            if a is not None:
-                dist[:, a:] = 0.0
-            previous = n_k
-        pmf = self._pmf(sizes[-1] - previous)
-        reach = np.stack([np.convolve(dist[i], pmf[i]) for i in range(2)])
+        for k, n_k in enumerate(sizes[:-1]):
+            early_eff += found.efficacy[:, k]
+            en += n_k * (found.futility[:, k] + found.efficacy[:, k])
+        reach = found.reach
+        assert reach is not None
         en += sizes[-1] * reach.sum(axis=1)
         tail = np.cumsum(reach[:, ::-1], axis=1)[:, ::-1]  # tail[:, s] = Pr(reach, g >= s)
         success = early_eff[:, None] + tail

@@ -2,7 +2,8 @@
 
 An engine is a class with ``name``, ``unsupported(design) -> str | None`` and
 ``run(design, truths, ...) -> Outcome``. :func:`choose` picks one for a design and a
-requested method; ``auto`` takes the first exact engine that applies.
+requested method; ``auto`` takes the first exact engine that applies. Every caller asks
+:func:`choose` (or :func:`engine_for`) rather than deciding by the endpoint family.
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.exact_normal import NormalRecursionEngine
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
 from octrial.engines.outcome import Outcome
-from octrial.errors import single
+from octrial.errors import InputError, single
 
 ENGINES: dict[str, tuple[Any, ...]] = {
     "exact": (ExactLatticeEngine, NormalRecursionEngine),
@@ -50,4 +51,14 @@ def choose(design: Design, method: str | None = None) -> Any:
                  method, "; ".join(reasons))
 
 
-__all__ = ["ENGINES", "MonteCarloSettings", "Outcome", "choose"]
+def engine_for(design: Design, method: str | None = None) -> Any | None:
+    """The engine :func:`choose` picks for ``design`` under ``method``, or ``None`` when
+    no engine of that method can evaluate it (callers that only ask whether one applies,
+    or whether it is the lattice engine, ask here rather than re-deciding)."""
+    try:
+        return choose(design, method)
+    except InputError:
+        return None
+
+
+__all__ = ["ENGINES", "MonteCarloSettings", "Outcome", "choose", "engine_for"]

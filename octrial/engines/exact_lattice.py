@@ -1,11 +1,9 @@
 """Exact operating characteristics on the sufficient-statistic lattice.
 
-Dynamic programming over the distribution of each arm's count on studies still running:
-at each look, convolve with the distribution of the new subjects' count (per arm; the two
-arms' increments are independent, so the two-dimensional convolution separates into one
-convolution per axis), then move the mass on the look's efficacy and futility points into
-the stopping probabilities. No Monte Carlo error: the only numerical error is that of the
-posterior probabilities behind the rule, reported with the result.
+The lattice dynamic programme (:mod:`octrial.engines.lattice_programme`) at one true
+value at a time, with the new subjects' count drawn from the family's increment pmf. No
+Monte Carlo error: the only numerical error is that of the posterior probabilities behind
+the rule, reported with the result.
 
 The same stopping distribution gives the bias and RMSE of the posterior mean and the
 coverage of the credible interval at the stopping look as exact expectations.
@@ -16,28 +14,13 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from scipy import linalg
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
+from octrial.engines.lattice_programme import add_increment, run_programme
 from octrial.engines.outcome import Estimation, Outcome
 from octrial.rules.estimates import LatticeEstimates, coverage_tables, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule
-
-
-def _shift_matrix(pmf: np.ndarray, old: int, new: int) -> np.ndarray:
-    """M[i, x] = pmf[i - x]: maps a distribution over ``old`` points to ``new`` points."""
-    column = np.zeros(new)
-    column[: min(new, pmf.size)] = pmf[:new]
-    row = np.zeros(old)
-    row[0] = column[0]
-    return linalg.toeplitz(column, row)
-
-
-def _advance(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:
-    """Add an independent increment with ``pmf`` along ``axis``, keeping ``size`` points."""
-    matrix = _shift_matrix(pmf, dist.shape[axis], size)
-    return np.moveaxis(np.tensordot(matrix, dist, axes=([1], [axis])), 0, axis)
 
 
 def stopped_mass(
@@ -59,29 +42,16 @@ def stopped_mass(
         of every stopping probability.
     """
     family: LatticeFamily = design.family
-    k_looks = len(rule.looks)
-    efficacy, futility = np.zeros(k_looks), np.zeros(k_looks)
-    mass = []
-    dist = np.ones((1,) * len(truth))
-    previous = (0,) * len(truth)
-    neglected = uncertain = 0.0
-    for k, table in enumerate(rule.looks):
-        before = dist.sum() if family.truncates else 0.0
-        for j, theta in enumerate(truth):
-            increment = table.n[j] - previous[j]
-            pmf = family.increment_pmf(design, theta, increment, table.shape[j])
-            dist = _advance(dist, pmf, j, table.shape[j])
-        if family.truncates:
-            neglected += max(before - dist.sum(), 0.0)
-        if table.uncertain is not None:
-            uncertain += dist[table.uncertain].sum()
-        efficacy[k] = dist[table.efficacy].sum()
-        futility[k] = dist[table.futility].sum()
-        stops = table.efficacy | table.futility
-        mass.append(np.where(stops, dist, 0.0))
-        dist = np.where(stops, 0.0, dist)
-        previous = table.n
-    return mass, efficacy, futility, neglected, uncertain
+
+    def step(dist: np.ndarray, arm: int, before: int, after: int, size: int) -> np.ndarray:
+        pmf = family.increment_pmf(design, truth[arm], after - before, size)
+        return add_increment(dist, pmf, arm, size)
+
+    found = run_programme(rule.looks, len(truth), step, truncates=family.truncates,
+                          keep_mass=True)
+    assert found.mass is not None
+    return (found.mass, found.efficacy, found.futility, float(found.neglected),
+            float(found.uncertain))
 
 
 def stopping_probabilities(

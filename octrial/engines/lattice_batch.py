@@ -1,9 +1,7 @@
 """Exact dynamic programming on the count lattice for many true values at once.
 
-The same recursion as :mod:`octrial.engines.exact_lattice` (carry the distribution of
-each arm's count on studies still running, convolve with the new subjects' count at each
-look, move the mass on the look's efficacy and futility points into the stopping
-probabilities), with every scenario carried together as the first axis of one array.
+The lattice dynamic programme (:mod:`octrial.engines.lattice_programme`) with every
+scenario carried together as the first axis of one array.
 Calibration evaluates thousands of candidate rules at the same true values, so it uses
 this form; it can also keep the distribution of the counts on studies that reach the
 final analysis, from which the probability of success under every candidate final
@@ -18,6 +16,7 @@ import numpy as np
 
 from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
+from octrial.engines.lattice_programme import add_increments, run_programme
 from octrial.rules.lattice import LatticeRule
 
 
@@ -75,28 +74,6 @@ class IncrementTables:
         return self._tables[key]
 
 
-def _convolve(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:
-    """Add an independent increment with per-scenario ``pmf`` along lattice ``axis``.
-
-    ``dist`` has the scenarios on axis 0 and the lattice on the others; ``pmf`` has shape
-    (scenarios, m + 1). Points beyond ``size`` are dropped (truncated lattices).
-    """
-    moved = np.moveaxis(dist, axis, -1)
-    old, width = moved.shape[-1], pmf.shape[1]
-    shape = (pmf.shape[0],) + (1,) * (moved.ndim - 2) + (width,)
-    weights = pmf.reshape(shape)
-    out = np.zeros((*moved.shape[:-1], size))
-    if old <= width:
-        for x in range(min(old, size)):
-            stop = min(x + width, size)
-            out[..., x:stop] += moved[..., x : x + 1] * weights[..., : stop - x]
-    else:
-        for y in range(min(width, size)):
-            stop = min(y + old, size)
-            out[..., y:stop] += moved[..., : stop - y] * weights[..., y : y + 1]
-    return np.moveaxis(out, -1, axis)
-
-
 def run_batch(
     design: Design, rule: LatticeRule, increments: IncrementTables, *, keep_final: bool = False,
 ) -> BatchResult:
@@ -118,24 +95,12 @@ def run_batch(
     """
     family: LatticeFamily = design.family
     scenarios, arms = increments.truths.shape
-    efficacy = np.zeros((scenarios, len(rule.looks)))
-    futility = np.zeros((scenarios, len(rule.looks)))
-    neglected = np.zeros(scenarios)
-    dist = np.ones((scenarios,) + (1,) * arms)
-    previous = (0,) * arms
-    reach = None
-    lattice_axes = tuple(range(1, arms + 1))
-    for k, table in enumerate(rule.looks):
-        before = dist.sum(axis=lattice_axes) if family.truncates else None
-        for j in range(arms):
-            pmf = increments.get(j, table.n[j] - previous[j], table.shape[j])
-            dist = _convolve(dist, pmf, j + 1, table.shape[j])
-        if before is not None:
-            neglected += np.clip(before - dist.sum(axis=lattice_axes), 0.0, None)
-        if k == len(rule.looks) - 1 and keep_final:
-            reach = dist.copy()
-        efficacy[:, k] = dist[:, table.efficacy].sum(axis=1)
-        futility[:, k] = dist[:, table.futility].sum(axis=1)
-        dist = np.where((table.efficacy | table.futility)[None], 0.0, dist)
-        previous = table.n
-    return BatchResult(efficacy, futility, reach, neglected)
+
+    def step(dist: np.ndarray, arm: int, before: int, after: int, size: int) -> np.ndarray:
+        return add_increments(dist, increments.get(arm, after - before, size), arm + 1, size)
+
+    found = run_programme(rule.looks, arms, step, scenarios=scenarios,
+                          truncates=family.truncates, keep_final=keep_final,
+                          track_uncertain=False)
+    neglected = found.neglected if family.truncates else np.zeros(scenarios)
+    return BatchResult(found.efficacy, found.futility, found.reach, np.asarray(neglected))
