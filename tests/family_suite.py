@@ -267,3 +267,61 @@ CHECKS: list[Callable[[Any, Any], None]] = [
     check_loop_against_exact, check_sbc,
 ]
 """The checks taking (family, design); :func:`check_bad_inputs` takes the design data."""
+
+
+def check_two_arm_benefit_against_quadrature(family: Any, design: Any) -> None:
+    """Two arms with a prior per arm: the posterior probability of benefit against the
+    nested integral of the two posteriors (prior x likelihood, each normalised) over the
+    region where the effect (:meth:`Family.effect`) is positive: the outer integral over
+    the control parameter by ``scipy.integrate.quad``, the inner one as the treatment
+    posterior's distribution function (``scipy.integrate.cumulative_simpson`` on 200 001
+    points) at the boundary found by ``scipy.optimize.brentq``; at the median data of the
+    first look at the last scenario, to 1e-6."""
+    from scipy import optimize
+
+    assert design.two_arm
+    if family.prior_on_effect(design.endpoint, True):
+        pytest.skip(f"{family.name}: the prior is on the effect, not per arm")
+    h = design.hypothesis
+    truth, n = design.scenarios.values[-1], design.looks.per_arm[0]
+    xs, ranges, parts = [], [], []
+    for j, arm in enumerate(design.arms):
+        parts.append(family.prior_components(arm.prior))
+        lo = max(min(d.ppf(1e-12) for _, d in parts[j]), family.parameter_range[0])
+        hi = min(max(d.isf(1e-12) for _, d in parts[j]), family.parameter_range[1])
+        ranges.append((lo, hi))
+        xs.append(float(family.increment_distribution(design, j, truth[j], n[j]).ppf(0.5)))
+
+    def density(j: int, theta: Any) -> Any:
+        dist = family.increment_distribution(design, j, theta, n[j])
+        like = dist.pmf(xs[j]) if _is_discrete(dist) else dist.pdf(xs[j])
+        return sum(w * d.pdf(theta) for w, d in parts[j]) * like
+
+    (lo_t, hi_t), (lo_c, hi_c) = ranges
+    grid = np.linspace(lo_t, hi_t, 200_001)
+    cdf = integrate.cumulative_simpson(density(0, grid), x=grid, initial=0.0)
+    cdf /= cdf[-1]
+    z_c = integrate.quad(lambda c: float(density(1, c)), lo_c, hi_c, epsabs=0,
+                         epsrel=1e-11, limit=400)[0]
+
+    def treatment_share(theta_c: float) -> float:
+        def effect(theta_t: float) -> float:
+            return family.effect(h, (theta_t, theta_c))
+
+        start = lo_t + 1e-12 * (hi_t - lo_t)
+        ends = effect(start), effect(hi_t)
+        if (ends[0] > 0) == (ends[1] > 0):
+            return 1.0 if ends[0] > 0 else 0.0
+        below = float(np.interp(optimize.brentq(effect, start, hi_t, xtol=1e-14), grid, cdf))
+        return 1.0 - below if ends[1] > 0 else below
+
+    expected = integrate.quad(lambda c: float(density(1, c)) * treatment_share(c), lo_c,
+                              hi_c, epsabs=1e-11, epsrel=1e-9, limit=200)[0] / z_c
+    value = float(family.benefit_at(design, tuple(np.array([x]) for x in xs), n)[0])
+    assert value == pytest.approx(expected, abs=1e-6), (family.name, xs, value, expected)
+
+
+TWO_ARM_CHECKS: list[Callable[[Any, Any], None]] = [
+    check_sampler, check_two_arm_benefit_against_quadrature,
+]
+"""The checks for a family's two-arm design, where it has one."""

@@ -66,6 +66,39 @@ SUITE_DESIGNS: dict[str, dict[str, Any]] = {
 """One small one-arm design per family (with predictive futility where the family offers
 a predictive probability)."""
 
+TWO_ARM_DESIGNS: dict[str, dict[str, Any]] = {
+    "binary": {
+        "schema": 1, "name": "suite-binary-two-arm",
+        "endpoint": {"type": "binary", "better": "higher"},
+        "hypothesis": {"comparison": "difference", "margin": 0.05,
+                       "kind": "non-inferiority"},
+        "arms": {"treatment": {"prior": {"distribution": "beta", "a": 1, "b": 1}},
+                 "control": {"prior": {"distribution": "beta-mixture", "components": [
+                     {"weight": 0.5, "a": 3, "b": 7}, {"weight": 0.5, "a": 1, "b": 1}]}}},
+        "looks": {"n": [30, 60], "efficacy": [0.99, 0.975], "futility": 0.1},
+        "scenarios": {"control": [0.3], "effect": [0.0, 0.2]},
+    },
+    "count": {
+        "schema": 1, "name": "suite-count-two-arm",
+        "endpoint": {"type": "count", "exposure": 1.0, "better": "lower"},
+        "hypothesis": {"comparison": "ratio", "margin": 0.1, "kind": "superiority"},
+        "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 1}},
+                 "control": {"prior": {"distribution": "gamma", "shape": 2, "rate": 1.5}}},
+        "looks": {"n": [20, 40], "efficacy": [0.99, 0.975], "futility": 0.1},
+        "scenarios": {"control": [1.0], "ratio": [1.0, 0.6]},
+    },
+    TOY: {
+        "schema": 1, "name": "suite-toy-two-arm",
+        "endpoint": {"type": TOY, "better": "lower"},
+        "hypothesis": {"comparison": "ratio", "margin": 0.0},
+        "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 2, "rate": 4}},
+                 "control": {"prior": {"distribution": "gamma", "shape": 1, "rate": 1}}},
+        "looks": {"n": [20, 40], "efficacy": [0.995, 0.975], "futility": 0.1},
+        "scenarios": {"control": [0.5], "ratio": [1.0, 0.5]},
+    },
+}
+"""Two-arm designs for the two-arm checks (families with a prior per arm)."""
+
 BAD_INPUTS: dict[str, list[tuple[str, Any, str]]] = {
     "binary": [("scenarios__treatment", [1.5], "scenarios.treatment"),
                ("arms__treatment__prior__a", -1, "arms.treatment.prior")],
@@ -109,6 +142,13 @@ def test_every_family_has_a_suite_design() -> None:
 def test_family_passes_check(family_name: str, check: Any) -> None:
     design = build(SUITE_DESIGNS[family_name])
     check(FAMILIES[family_name], design)
+
+
+@pytest.mark.parametrize("check", family_suite.TWO_ARM_CHECKS, ids=lambda c: c.__name__)
+def test_two_arm_family_passes_check(family_name: str, check: Any) -> None:
+    if family_name not in TWO_ARM_DESIGNS:
+        pytest.skip(f"no two-arm suite design for {family_name} (prior on the effect)")
+    check(FAMILIES[family_name], build(TWO_ARM_DESIGNS[family_name]))
 
 
 def test_family_refuses_bad_input(family_name: str) -> None:
