@@ -226,3 +226,21 @@ def test_toy_family_refuses_predictive_futility(toy_family: ToyExponentialFamily
     design = _toy_design(text)
     with pytest.raises(InputError, match="no predictive probability"):
         __import__("octrial").evaluate(design)
+
+
+def test_toy_family_runs_from_the_command_line(toy_family: ToyExponentialFamily,
+                                               tmp_path: Any) -> None:
+    # `octrial run` on a toy design file writes oc.csv equal to the library's numbers.
+    import pandas as pd
+    from click.testing import CliRunner
+
+    import octrial
+    from octrial.cli import main
+
+    path = tmp_path / "toy.toml"
+    path.write_text(TOY_TOML)
+    result = CliRunner().invoke(main, ["run", str(path), "--out", str(tmp_path / "out")])
+    assert result.exit_code == 0, result.output
+    written = pd.read_csv(tmp_path / "out" / "oc.csv")
+    expected = octrial.evaluate(_toy_design())
+    np.testing.assert_allclose(written["prob_success"], expected["prob_success"], rtol=1e-12)
