@@ -71,9 +71,9 @@ EXTRA_DESIGNS = {
 }
 
 LOOP_DESIGNS = ["one-arm-lower-predictive", "one-arm-mixture-predictive", "two-arm",
-                "demo-event-rate", "count-one-arm-predictive",
-                "two-arm-non-inferiority-predictive", "count-two-arm",
-                "count-negative-binomial"]
+                "two-arm-2-to-1", "one-arm-logit-normal", "demo-event-rate",
+                "count-one-arm-predictive", "two-arm-non-inferiority-predictive",
+                "count-two-arm", "count-negative-binomial"]
 
 
 @pytest.mark.parametrize("name", LOOP_DESIGNS)
