@@ -244,3 +244,19 @@ def test_toy_family_runs_from_the_command_line(toy_family: ToyExponentialFamily,
     written = pd.read_csv(tmp_path / "out" / "oc.csv")
     expected = octrial.evaluate(_toy_design())
     np.testing.assert_allclose(written["prob_success"], expected["prob_success"], rtol=1e-12)
+
+
+def test_default_sampler_draws_from_the_increment_distribution() -> None:
+    # A family that writes only increment_distribution gets Family.draw_statistics
+    # (scipy's rvs with the batch generator); the suite's sampler check holds for it.
+    from octrial.endpoints.base import Family
+
+    class PlainToy(ToyExponentialFamily):
+        draw_statistics = Family.draw_statistics
+
+    family = PlainToy()
+    design = build(SUITE_DESIGNS["binary"])  # any design: the toy reads only its arms
+    draws = family.draw_statistics(design, 0, 0.5, 10, np.random.default_rng(1), 3000)
+    from scipy import stats
+
+    assert stats.kstest(draws, stats.gamma(10, scale=2.0).cdf).pvalue > 1e-3
