@@ -134,7 +134,7 @@ def quad_difference(a_t, b_t, a_c, b_c, d):
     (2.3, 48.7, 1.3, 49.7, -0.1),
 ])
 def test_numba_difference_probability_against_quad(a_t, b_t, a_c, b_c, d) -> None:
-    from octrial.simulation.binary import prob_difference_exceeds, quadrature_nodes
+    from octrial.simulation.beta_difference import prob_difference_exceeds, quadrature_nodes
 
     one = np.ones(1)
     value = prob_difference_exceeds(one, np.array([a_t]), np.array([b_t]), one,
@@ -149,7 +149,7 @@ def test_numba_difference_probability_matches_the_lattice_quadrature() -> None:
     # Random posteriors (mixtures included) against the vectorised quadrature that builds
     # the decision tables (itself checked against quad and closed forms).
     from octrial.endpoints.binary import BetaMixture, prob_difference_exceeds, update
-    from octrial.simulation import binary
+    from octrial.simulation import beta_difference as binary
 
     nodes = binary.quadrature_nodes()
     rng = np.random.default_rng(0)

@@ -8,7 +8,7 @@ arms is computed as the engines compute it:
 
 * binary, difference of rates: the tanh-sinh quadrature of Pr(p_T - p_C > d) that the
   general simulation kernel evaluates per study
-  (:func:`octrial.simulation.binary.prob_difference_exceeds`);
+  (:func:`octrial.simulation.beta_difference.prob_difference_exceeds`);
 * count, rate ratio (conjugate): the Beta identity summed over mixture components
   (:func:`octrial.endpoints.count.prob_ratio`), on the log rate ratio;
 * grid posteriors (odds ratio of rates, log-normal priors, negative binomial counts):
@@ -35,7 +35,7 @@ from octrial.endpoints import grid_family
 from octrial.endpoints.binary import BetaMixture, BetaPosterior, LogitNormal
 from octrial.endpoints.count import GammaMixture, GammaPosterior
 from octrial.plurals import noun, series
-from octrial.simulation import binary as binary_kernel
+from octrial.simulation import beta_difference
 
 ROW_BATCH = 64
 """Studies per batch when a grid difference is integrated (bounds memory)."""
@@ -434,15 +434,15 @@ class LatticePosteriors(Posteriors):
 
     def _difference_cdf(self, values: np.ndarray) -> np.ndarray:
         t, c = self._conjugate_rows(0), self._conjugate_rows(1)
-        nodes = binary_kernel.quadrature_nodes()
+        nodes = beta_difference.quadrature_nodes()
         out = np.empty(values.size)
         for i, d in enumerate(values):
             if not -1.0 < d < 1.0:
                 out[i] = 0.0 if d <= -1.0 else 1.0
                 continue
-            out[i] = 1.0 - binary_kernel.prob_difference_exceeds(
+            out[i] = 1.0 - beta_difference.prob_difference_exceeds(
                 t.weights[i], t.a[i], t.b[i], c.weights[i], c.a[i], c.b[i], float(d),
-                *nodes, binary_kernel.QUADRATURE_TOLERANCE)
+                *nodes, beta_difference.QUADRATURE_TOLERANCE)
         return out
 
     def _ratio_cdf(self, values: np.ndarray) -> np.ndarray:

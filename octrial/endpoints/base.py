@@ -269,6 +269,84 @@ class Family(ABC):
         """
         return None
 
+    # == simulation by the generic study loop =======================================
+    # Statistics are per-arm sums over subjects (responses, events, outcome totals), so
+    # a study's statistic after a look is its previous statistic plus the increment.
+    def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
+        """The distribution of the statistic of ``n`` new subjects of arm ``arm`` at the
+        true value ``truth``, as a frozen scipy distribution (``truth`` may be an array:
+        one distribution per value, by scipy's broadcasting).
+
+        The generic study loop draws from it; the common test suite checks it against
+        the family's sampler. Families without one cannot be simulated by the loop.
+        """
+        raise NotImplementedError(f"{self.name} endpoints have no increment distribution")
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        """The statistic of ``n`` new subjects of arm ``arm`` at ``truth`` for ``size``
+        studies, with random numbers from ``rng`` only.
+
+        By default drawn from :meth:`increment_distribution`; a family overrides this
+        where a faster exact sampler exists.
+        """
+        dist = self.increment_distribution(design, arm, truth, n)
+        return np.asarray(dist.rvs(size=size, random_state=rng))
+
+    def benefit_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                   n: tuple[int, ...]) -> np.ndarray:
+        """Posterior probability of benefit per study, from each arm's accumulated
+        statistic (one array per arm, one value per study) after per-arm sizes ``n``."""
+        raise NotImplementedError(f"{self.name} endpoints have no posterior probability "
+                                  "of benefit per study")
+
+    def predictive_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                      n: tuple[int, ...]) -> np.ndarray:
+        """Predictive probability of success at the final look per study (arguments as
+        :meth:`benefit_at`). Optional: a family without it cannot simulate designs with
+        predictive futility (:meth:`simulation_unsupported` says so)."""
+        raise NotImplementedError(f"{self.name} endpoints have no predictive probability")
+
+    def offers_predictive(self) -> bool:
+        """Whether the family implements :meth:`predictive_at`."""
+        return type(self).predictive_at is not Family.predictive_at
+
+    def estimate_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                    n: tuple[int, ...], value: float,
+                    ) -> tuple[np.ndarray, np.ndarray] | None:
+        """Per study: the posterior mean of the target parameter
+        (:meth:`target_value`) and the posterior Pr(target <= ``value``); ``None`` when
+        the family (or the design, without analysis priors) offers no estimates, and
+        then simulations report no bias, RMSE or coverage."""
+        return None
+
+    def simulation_unsupported(self, design: Any) -> str | None:
+        """Why :meth:`simulator` cannot simulate ``design``, or ``None`` when it can."""
+        looks = design.looks
+        if looks.uses_counts:
+            return ("a rule stated in counts is simulated with decision tables (kernel "
+                    "'table'), not per study")
+        if type(self).increment_distribution is Family.increment_distribution and (
+                type(self).draw_statistics is Family.draw_statistics):
+            return f"{self.name} endpoints have no sampler for simulated studies"
+        if type(self).benefit_at is Family.benefit_at:
+            return (f"{self.name} endpoints have no posterior probability of benefit per "
+                    "simulated study")
+        if any(v is not None for v in looks.futility_predictive) and (
+                not self.offers_predictive()):
+            return (f"{self.name} endpoints offer no predictive probability of success, "
+                    "so a design with predictive futility (looks.futility_predictive) "
+                    "cannot be simulated")
+        return None
+
+    def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
+        """A :class:`~octrial.simulation.base.Simulator` of ``design`` at ``truth``
+        (credible intervals at ``level``); by default the generic study loop of
+        :mod:`octrial.simulation.generic`."""
+        from octrial.simulation.generic import StudyLoop
+
+        return StudyLoop(design, truth, level)
+
 
 class LatticeFamily(Family):
     """A family whose per-arm sufficient statistic is a count 0, 1, 2, ...
@@ -377,3 +455,55 @@ class LatticeFamily(Family):
     ) -> np.ndarray | None:
         """Posterior Pr(target <= ``value``) on the lattice, shaped like :meth:`benefit`."""
         return None
+
+    # == simulation by the generic study loop, on the lattice ========================
+    # Probabilities are evaluated on the lattice points 0 .. max(statistic) and looked up
+    # per study: the same maths as the decision tables, at the points studies reach.
+    def _posteriors_up_to(self, design: Any, statistics: tuple[np.ndarray, ...],
+                          n: tuple[int, ...]) -> tuple[Any, ...]:
+        return tuple(self.posterior(design, j, n[j], np.arange(int(np.max(x, initial=0)) + 1))
+                     for j, x in enumerate(statistics))
+
+    @staticmethod
+    def _look_up(table: np.ndarray, statistics: tuple[np.ndarray, ...]) -> np.ndarray:
+        return table[tuple(np.asarray(x, dtype=np.int64) for x in statistics)]
+
+    def benefit_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                   n: tuple[int, ...]) -> np.ndarray:
+        table, _ = self.benefit(design, self._posteriors_up_to(design, statistics, n))
+        return self._look_up(table, statistics)
+
+    def predictive_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                      n: tuple[int, ...]) -> np.ndarray:
+        """PP(x) = sum_y Pr(Y = y | x) 1[final success at x + y] (Lee & Liu 2008), the
+        final success region evaluated on a lattice reaching past every study's count by
+        the predictive lattice the family asks for."""
+        from octrial.rules.lattice import success_from_pmfs
+        from octrial.rules.stop import EFFICACY, Rule
+
+        final = design.looks.per_arm[-1]
+        rule = Rule.of(design.looks)
+        sizes = tuple(
+            max(self.predictive_lattice_size(design, j),
+                int(np.max(x, initial=0)) + self.lattice_size(design, j, final[j] - n[j]))
+            for j, x in enumerate(statistics))
+        final_posts = tuple(self.posterior(design, j, final[j], np.arange(size))
+                            for j, size in enumerate(sizes))
+        success = rule.decide_many(rule.last, self.benefit(design, final_posts)[0]) == EFFICACY
+        posts = self._posteriors_up_to(design, statistics, n)
+        pmfs = [self.predictive_pmf(design, post, final[j] - n[j], sizes[j])
+                for j, post in enumerate(posts)]
+        return self._look_up(success_from_pmfs(pmfs, success), statistics)
+
+    def estimate_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                    n: tuple[int, ...], value: float,
+                    ) -> tuple[np.ndarray, np.ndarray] | None:
+        if any(arm.prior is None for arm in design.arms) and not self.prior_on_effect(
+                design.endpoint, design.two_arm):
+            return None
+        posts = self._posteriors_up_to(design, statistics, n)
+        mean = self.target_mean(design, posts)
+        cdf = self.target_cdf(design, posts, value)
+        if mean is None or cdf is None:
+            return None
+        return self._look_up(mean, statistics), self._look_up(cdf, statistics)

@@ -446,6 +446,15 @@ class BinaryFamily(GridModel, LatticeFamily):
         log_choose = special.gammaln(m + 1) - special.gammaln(y + 1) - special.gammaln(m - y + 1)
         return np.where(y <= m, np.exp(log_choose + y * _log_p(t) + (m - y) * _log_p(-t)), 0.0)
 
+    # == simulation by the generic study loop =======================================
+    def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
+        """Responses of ``n`` new subjects: Binomial(n, rate)."""
+        return stats.binom(n, truth)
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        return rng.binomial(n, truth, size)
+
 
 def _log_p(t: np.ndarray) -> np.ndarray:
     """log expit(t), accurate in both tails."""

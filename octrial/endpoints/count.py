@@ -488,3 +488,27 @@ class CountFamily(GridModel, LatticeFamily):
     def grid_predictive_table(self, design: Any, theta: np.ndarray, m: int,
                               size: int) -> np.ndarray:
         return self.increment_pmf(design, np.exp(theta), m, size)
+
+    # == simulation by the generic study loop =======================================
+    def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
+        """Events of ``n`` new subjects: Poisson(rate x exposure x n), or for negative
+        binomial counts NB with size n / dispersion and the same mean (as
+        :meth:`increment_pmf`)."""
+        e: CountEndpoint = design.endpoint
+        mean = np.asarray(truth, dtype=float) * e.exposure * n
+        if e.model == "poisson":
+            return stats.poisson(mean)
+        r = n / e.dispersion
+        return stats.nbinom(r, r / (r + mean))
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        e: CountEndpoint = design.endpoint
+        mean = truth * e.exposure * n
+        if n == 0:
+            return np.zeros(size, dtype=np.int64)
+        if e.model == "poisson":
+            return rng.poisson(mean, size)
+        r = n / e.dispersion
+        return rng.negative_binomial(r, r / (r + mean), size)
+

@@ -411,6 +411,55 @@ class NormalFamily(Family):
                                         nig.borrowing)
         return out
 
+    # == simulation =================================================================
+    # Known and unknown sd keep their numba kernels (simulation.normal and
+    # simulation.normal_unknown); the protocol methods below serve known-sd designs,
+    # with the statistic of an arm the sum of its outcomes.
+    def simulation_unsupported(self, design: Any) -> str | None:
+        from octrial.simulation.normal import unsupported
+
+        return unsupported(design)
+
+    def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
+        from octrial.simulation.normal import NormalSimulator
+
+        return NormalSimulator(design, truth, level)
+
+    def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
+        """Sum of ``n`` new outcomes with a known sd: Normal(n mean, sd sqrt(n))."""
+        sd = design.endpoint.sd if design.endpoint.known_sd else design.endpoint.true_sd
+        return stats.norm(n * np.asarray(truth, dtype=float), sd * math.sqrt(n))
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        sd = design.endpoint.sd if design.endpoint.known_sd else design.endpoint.true_sd
+        return rng.normal(n * truth, sd * math.sqrt(n), size)
+
+    def _posterior_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                      n: tuple[int, ...]) -> NormalPosterior:
+        if not design.endpoint.known_sd:
+            raise NotImplementedError("per-study posteriors here need a known sd")
+        sign = design.hypothesis.sign
+        means = [np.asarray(x, dtype=float) / m for x, m in zip(statistics, n, strict=True)]
+        estimate = means[0] if len(means) == 1 else means[0] - means[1]
+        information = self.information(design, n)
+        return update(self.analysis_prior(design), sign, information,
+                      sign * information * estimate)
+
+    def benefit_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                   n: tuple[int, ...]) -> np.ndarray:
+        return self._posterior_at(design, statistics, n).sf(self.claim_value(design))
+
+    def estimate_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                    n: tuple[int, ...], value: float,
+                    ) -> tuple[np.ndarray, np.ndarray] | None:
+        """Target = sign x eta (the mean, or the difference in means)."""
+        post = self._posterior_at(design, statistics, n)
+        sign = design.hypothesis.sign
+        mean = sign * np.sum(post.weights * post.mean, axis=1)
+        below = post.sf(-value) if sign < 0 else 1.0 - post.sf(value)
+        return mean, below
+
 
 def _borrow(table: Table, prior: Any, spec: dict) -> Any:
     """Power prior or robust mixture from historical { mean, sd, n }."""

@@ -4,8 +4,8 @@ Policy lives here; the numbers come from a :class:`~octrial.simulation.base.Simu
 
 * **Kernels.** Lattice families use the table kernel (decision tables on the count
   lattice, increments from inverse-CDF tables); ``kernel='general'`` evaluates posterior
-  and predictive probabilities per study instead (families register one in
-  :data:`octrial.simulation.GENERAL_KERNELS`).
+  and predictive probabilities per study instead, with the simulator the family gives
+  (:meth:`~octrial.endpoints.base.Family.simulator`; by default the generic study loop).
 * **Randomness.** One seed in. Scenario i's batch b is simulated with
   ``Generator(PCG64(SeedSequence(seed, spawn_key=(i, b))))``, the child that
   ``SeedSequence(seed).spawn(...)[i].spawn(...)[b]`` gives, built directly so that any
@@ -38,7 +38,6 @@ from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import SEED_BITS, CheckpointStore, kept_seed
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule, serving
-from octrial.simulation import GENERAL_KERNELS, general_unsupported
 from octrial.simulation.base import Simulator, Tally, tally_problems
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
 
@@ -144,7 +143,7 @@ def make_simulator(task: ScenarioTask) -> Simulator:
     level = design.simulation.interval_level
     if task.plan is not None:
         return LatticeSimulator(design, task.plan, task.truth, task.estimates, level)
-    return GENERAL_KERNELS[design.family.name](design, task.truth, level)
+    return design.family.simulator(design, task.truth, level)
 
 
 def simulate_scenario(task: ScenarioTask) -> dict[str, np.ndarray]:
@@ -182,7 +181,7 @@ class MonteCarloEngine:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
         if isinstance(design.family, LatticeFamily):
             return None
-        return general_unsupported(design)
+        return design.family.simulation_unsupported(design)
 
     @staticmethod
     def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
@@ -226,7 +225,7 @@ def _kernel(design: Design, wanted: str) -> str:
         return "table" if isinstance(design.family, LatticeFamily) else "general"
     if wanted == "table" and not isinstance(design.family, LatticeFamily):
         raise ValueError(f"{design.family.name} endpoints have no decision tables")
-    if wanted == "general" and (reason := general_unsupported(design)):
+    if wanted == "general" and (reason := design.family.simulation_unsupported(design)):
         raise ValueError(reason)
     return wanted
 

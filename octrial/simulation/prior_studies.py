@@ -26,7 +26,6 @@ import numpy as np
 from octrial.design.model import Design
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import CheckpointStore
-from octrial.simulation import GENERAL_KERNELS
 from octrial.simulation.base import Tally, tally_problems
 
 ASSURANCE_STREAM = 2**32 - 1
@@ -38,9 +37,7 @@ def prior_simulation_unsupported(design: Design) -> str | None:
     name = design.family.name
     if not design.family.draws_design_prior:
         return f"no simulation from the design prior for {name} endpoints"
-    from octrial.simulation import general_unsupported
-
-    return general_unsupported(design)
+    return design.family.simulation_unsupported(design)
 
 
 @dataclass(frozen=True, eq=False)
@@ -66,8 +63,8 @@ def draw_prior_batch(design: Design, seed: int, index: int, size: int) -> tuple[
     """Batch ``index`` of studies under the design prior: the kernel, every study's true
     means and its data (the stream of the module docstring)."""
     placeholder = tuple(0.0 for _ in design.arms)
-    simulator: Any = GENERAL_KERNELS[design.family.name](
-        design, placeholder, design.simulation.interval_level)
+    simulator: Any = design.family.simulator(design, placeholder,
+                                             design.simulation.interval_level)
     sequence = np.random.SeedSequence(seed, spawn_key=(ASSURANCE_STREAM, index))
     rng = np.random.Generator(np.random.PCG64(sequence))
     mean, sd = design.family.design_prior_draws(design, rng, size)

@@ -1,4 +1,6 @@
-"""The general kernel for count endpoints: gamma-Poisson posteriors evaluated per study.
+"""Test reference: the former general numba kernel for count endpoints (gamma-Poisson
+posteriors evaluated per study); the library uses the generic study loop
+(:mod:`octrial.simulation.generic`).
 
 Where the table kernel looks decisions up on the (truncated) event-count lattice, this
 kernel computes them for each simulated study as the analysis would, with the formulas
@@ -35,7 +37,6 @@ import numpy as np
 from octrial.design.model import Design
 from octrial.rules.lattice import DECISION_TOLERANCE
 from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.binary import NONE, _counts, _thresholds
 from octrial.simulation.draws import DrawTables, draw
 from octrial.simulation.estimates import add_estimate
 from octrial.simulation.special import (
@@ -44,6 +45,7 @@ from octrial.simulation.special import (
     gammainc_pair,
     normalise_log_weights,
 )
+from tests.references.binary_kernel import NONE, _counts, _thresholds
 
 
 def unsupported(design: Design) -> str | None:
