@@ -25,7 +25,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure as MplFigure
 
-from octrial.reporting import wording
+import octrial.reporting.wording as wording
 from octrial.reporting.formats import probability, truth
 
 WIDTH = 6.6

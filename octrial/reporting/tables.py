@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.reporting import wording
+import octrial.reporting.wording as wording
 from octrial.reporting.formats import FORMATS, number
 from octrial.rules.boundaries import BEYOND, beyond_note
 
