@@ -70,8 +70,8 @@ class CheckSettings:
 
     def __post_init__(self) -> None:
         def ordered(pair: tuple[float, float] | None) -> bool:
-            return pair is None or (len(pair) == 2 and np.isfinite(pair).all()
-                                    and pair[0] < pair[1])
+            return pair is None or bool(len(pair) == 2 and np.isfinite(pair).all()
+                                        and pair[0] < pair[1])
 
         checks = [
             ("simulations", self.simulations >= 20, "a whole number >= 20"),

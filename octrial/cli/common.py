@@ -113,7 +113,8 @@ class SimulationOptions:
 
     def settings(self, **given: Any) -> MonteCarloSettings:
         """Simulation settings with the target standard error and cap (and ``given``)."""
-        cap = {} if self.max_replicates is None else {"max_replicates": self.max_replicates}
+        cap: dict[str, Any] = ({} if self.max_replicates is None
+                               else {"max_replicates": self.max_replicates})
         return MonteCarloSettings(target_se=self.target_se, **cap, **given)
 
     def execution(self, folder: Path) -> Execution:

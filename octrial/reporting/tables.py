@@ -306,7 +306,7 @@ def simulated(data: Any) -> bool:
 
 
 def _classes(data: Any, r: pd.Series) -> tuple[str, ...]:
-    classes = ("null",) if bool(r["is_null"]) else ()
+    classes: tuple[str, ...] = ("null",) if bool(r["is_null"]) else ()
     t1 = data.type1
     if t1 is not None and int(r["scenario"]) == int(t1["scenario"]):
         classes += ("worst",)
