@@ -136,8 +136,10 @@ class _Search:
                  extra: tuple[tuple[float, ...], ...] = (),
                  simulation: MonteCarloSettings | None = None,
                  execution: Execution | None = None,
-                 seed_store: CheckpointStore | None = None) -> None:
+                 seed_store: CheckpointStore | None = None,
+                 source: str = "calibrate()") -> None:
         self.design = design
+        self.source = source
         self.request = request
         self.execution = execution
         self.simulation = simulation
@@ -187,7 +189,7 @@ class _Search:
         return choice
 
     def sizes(self) -> Choice:
-        lo, hi, step = self.request.n_range
+        lo, hi, step = self.request.sizing_range
         unit = allocation_unit(self.design)
         rows, choices = [], {}
         for n_max in range(lo, hi + 1, step):
@@ -249,7 +251,7 @@ class _Search:
         chosen, best, notes = search(self.builder, self.request, self.log, self.ev)
         self.notes += notes
         if chosen is None:
-            lo, hi, _ = self.request.n_range
+            lo, hi, _ = self.request.sizing_range
             got = f"{lo}:{hi}"
             if best is not None:
                 got += (f" (best found: {_describe(best)}, "
@@ -323,8 +325,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     extra: tuple[tuple[float, ...], ...] = ()
     history: list[str] = []
     for _ in range(REFINE_ROUNDS):
-        run = _Search(design, request, extra, simulation, execution, seed_store)
-        run.source = source
+        run = _Search(design, request, extra, simulation, execution, seed_store, source)
         run.notes += history
         try:
             if request.search:
@@ -340,6 +341,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
         if refined is None or request.alpha is None or refined.type1 <= request.alpha:
             break
         # the grid missed a worse point between its nodes: add it and calibrate again
+        missed = refined.type1
         where = ", ".join(f"{arm} = {v:.6g}" for arm, v in zip(design.arm_names,
                                                                 refined.point, strict=True))
         history.append(f"between grid points the type I error reached {refined.type1:.6g} "
@@ -348,7 +350,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
         extra = (*extra, refined.point)
     else:
         raise run.fail("null_points", "a null grid on which the calibration holds between "
-                       "grid points", f"{request.null_points} (type I error {refined.type1:.6g} "
+                       "grid points", f"{request.null_points} (type I error {missed:.6g} "
                        f"> alpha at {where} after {REFINE_ROUNDS} rounds; use more "
                        "points)")
     run.log.choose(choice.row)
@@ -393,7 +395,7 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
     }
     if request.search:
         out["search"] = {"criterion": request.search, "rule": request.rule,
-                         "stages": request.stages, "range": list(request.n_range)}
+                         "stages": request.stages, "range": list(request.sizing_range)}
     if run.sizing is not None:
         out["sizing"] = run.sizing
     if isinstance(design.family, LatticeFamily):

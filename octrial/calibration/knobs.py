@@ -239,6 +239,14 @@ def knob(name: str) -> Knob:
     }[name]
 
 
+def grid_knob(name: str) -> Grid | Eta:
+    """The knob for a value searched over a grid (one of ``request.GRID``)."""
+    found = knob(name)
+    if not isinstance(found, Grid | Eta):
+        raise ValueError(f"{name!r} is not searched over a grid")
+    return found
+
+
 def shortest_between(chosen: float, other: float, closed_other: bool = False) -> float:
     """The value with fewest decimals between ``chosen`` (included) and ``other`` (excluded
     unless ``closed_other``), kept 1e-10 away from an excluded end; ``chosen`` if none.

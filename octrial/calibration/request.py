@@ -136,6 +136,13 @@ class Request:
         return tuple(v for v in self.vary if v in GRID)
 
     @property
+    def sizing_range(self) -> tuple[int, int, int]:
+        """``n_range``, which :func:`make_request` requires for sizing and stage searches."""
+        if self.n_range is None:
+            raise ValueError("no n_range: sizing and stage searches need one")
+        return self.n_range
+
+    @property
     def sizes(self) -> bool:
         """Whether the maximum sample size varies."""
         return "n" in self.vary
