@@ -81,12 +81,12 @@ def run_conflict(design: Design) -> dict[str, Any]:
                                   "borrowing (load it with octrial.load_design)"}
     started = time.perf_counter()
     per_arm = []
-    baseline = None
+    baseline = design  # becomes the design with no arm borrowing
     for j in arms:
         record = design.arms[j].prior.borrowing
         vague = variant(design, j, None)
         informative = variant(design, j, {"method": "power", "a0": record.a0})
-        baseline = vague if baseline is None else variant(baseline, j, None)
+        baseline = vague if baseline is design else variant(baseline, j, None)
         if isinstance(design.family, LatticeFamily):
             table = _lattice_conflict(design, j, informative, vague)
         elif getattr(design.endpoint, "known_sd", False):

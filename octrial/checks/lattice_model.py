@@ -26,7 +26,7 @@ import numpy as np
 from scipy import special
 
 from octrial.checks import grid_values
-from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity
+from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity, benchmark
 from octrial.checks.predictive import Predictive, pair_effect, truncated_support
 from octrial.design.model import Design
 from octrial.design_prior import design_prior_design
@@ -259,7 +259,7 @@ class LatticeModel(CheckModel):
         if not self.design.two_arm:
             if self.kind == "binary":
                 return None
-            return (h.benchmark / 10, h.benchmark * 10,
+            return (benchmark(self.design) / 10, benchmark(self.design) * 10,
                     "an observed event rate within a factor 10 of the benchmark")
         if h.comparison == "difference":
             return (-0.5, 0.5, "an observed difference in response rates within ±0.5")
@@ -368,7 +368,8 @@ class LatticePosteriors(Posteriors):
             if not -1.0 < d < 1.0:
                 out[i] = 0.0 if d <= -1.0 else 1.0
                 continue
-            out[i] = 1.0 - binary_kernel.prob_difference_exceeds(
+            # numba's Dispatcher type does not carry the compiled function's parameters
+            out[i] = 1.0 - binary_kernel.prob_difference_exceeds(  # type: ignore[call-arg]
                 t.weights[i], t.a[i], t.b[i], c.weights[i], c.a[i], c.b[i], float(d),
                 *nodes, binary_kernel.QUADRATURE_TOLERANCE)
         return out

@@ -120,7 +120,10 @@ def _checks_problems(names: tuple[str, ...]) -> list[Problem]:
             for name in names if name not in CHECKS]
 
 
-def generator(seed: int, stream: str) -> np.random.Generator:
-    """The random generator of one check (see :data:`STREAMS`)."""
+def generator(seed: int | None, stream: str) -> np.random.Generator:
+    """The random generator of one check (see :data:`STREAMS`), from the settled seed
+    (:meth:`CheckSettings.with_seed`; without one the checks could not be repeated)."""
+    if seed is None:
+        raise ValueError("a check's random stream needs a settled seed (with_seed)")
     sequence = np.random.SeedSequence(seed, spawn_key=(STREAMS[stream],))
     return np.random.Generator(np.random.PCG64(sequence))
