@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 from scipy import special
 
-from octrial.checks import grid_values
+import octrial.checks.grid_values as grid_values
 from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity, benchmark
 from octrial.checks.predictive import Predictive, pair_effect, truncated_support
 from octrial.design.model import Design

@@ -185,7 +185,8 @@ def model_for(design: Design) -> CheckModel:
 
 
 def _register_builtin() -> None:
-    from octrial.checks import lattice_model, normal_model
+    import octrial.checks.lattice_model as lattice_model
+    import octrial.checks.normal_model as normal_model
 
     for name, factory in (("binary", lattice_model.LatticeModel),
                           ("count", lattice_model.LatticeModel),

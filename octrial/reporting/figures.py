@@ -536,7 +536,7 @@ def prior_predictive(data: Any, facts: PlotFacts) -> Figure | None:
 
 def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
     """Simulation-based calibration histograms (checks.json written by ``octrial check``)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     sbc = _check_record(data, "sbc")
     entries = sbc.get("quantities") or []
@@ -558,7 +558,7 @@ def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
 
 def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
     """Posterior z-score against shrinkage per look (sensitivity.csv and checks.json)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     record = _check_record(data, "sensitivity")
     points = getattr(data, "sensitivity", None)
@@ -577,7 +577,7 @@ def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
 
 def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
     """Monte Carlo error of posterior quantiles against the number of draws (checks.json)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     record = _check_record(data, "tail_accuracy")
     if "table" not in record:

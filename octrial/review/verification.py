@@ -251,7 +251,7 @@ def verify(
     scenario claims, :func:`_verify_scenarios`); claims about the whole design (Bayesian
     operating characteristics under the design prior) through
     :mod:`octrial.review.design_claims`, Holm-adjusted together with the others."""
-    from octrial.review import design_claims
+    import octrial.review.design_claims as design_claims
 
     scenario, design_level = design_claims.split(claims)
     options: dict[str, Any] = dict(
