@@ -17,8 +17,9 @@ from octrial._version import __version__
 from octrial.calibration import Calibration, calibrate
 from octrial.design import Design, load_design
 from octrial.design_prior import Assurance, assurance
-from octrial.errors import DesignError, InputError
+from octrial.errors import DesignError, InputError, SettingsError
 from octrial.evaluation import Evaluation, compute, evaluate
 
 __all__ = ["Assurance", "Calibration", "Design", "DesignError", "Evaluation", "InputError",
-           "__version__", "assurance", "calibrate", "compute", "evaluate", "load_design"]
+           "SettingsError", "__version__", "assurance", "calibrate", "compute", "evaluate",
+           "load_design"]

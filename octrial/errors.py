@@ -65,6 +65,17 @@ class DesignError(InputError):
     """A design file that cannot be used as written."""
 
 
+class SettingsError(InputError):
+    """Bad settings of a library call (calibration, checks, execution).
+
+    Each problem's key is the setting's own name, the keyword argument of the call (for
+    example ``null_range``), and the wording names other settings in backquotes
+    (```simulations` / 5``). The library knows nothing of the command line; the command
+    line, which takes these settings as options, names its options instead
+    (:func:`octrial.cli.common.reports_input_errors`).
+    """
+
+
 class NumericalWarning(UserWarning):
     """A computation ran but its numerical error is larger than it should be (for
     example a parameter grid too coarse for the prior); the message gives the measured

@@ -21,12 +21,14 @@ def write_atomic(path: Path, data: str | bytes) -> Path:
     """Write ``data`` to ``path`` through a temporary file and a rename."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    mode = "wb" if isinstance(data, bytes) else "w"
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
-        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8",
-                                                               "newline": ""})) as handle:
-            handle.write(data)
+        if isinstance(data, bytes):
+            with os.fdopen(fd, "wb") as binary:
+                binary.write(data)
+        else:
+            with os.fdopen(fd, "w", encoding="utf-8", newline="") as text:
+                text.write(data)
         os.chmod(tmp, _default_mode())  # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except BaseException:

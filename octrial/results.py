@@ -89,13 +89,14 @@ def oc_table(design: Design, truths: np.ndarray, outcome: Outcome) -> pd.DataFra
     hypothesis = design.hypothesis
     if design.two_arm:
         columns["true_effect"] = np.round(truths[:, 0] - truths[:, 1], 12)
-        if hypothesis.comparison != "difference":
-            columns["true_" + hypothesis.comparison.replace("-", "_")] = np.round(
-                [family.measure(hypothesis.comparison, t, c) for t, c in truths], 12)
-    for j, arm in enumerate(design.arms):
-        borrowing = getattr(arm.prior, "borrowing", None)
+        comparison = hypothesis.comparison
+        if comparison is not None and comparison != "difference":
+            columns["true_" + comparison.replace("-", "_")] = np.round(
+                [family.measure(comparison, t, c) for t, c in truths], 12)
+    for j, spec in enumerate(design.arms):
+        borrowing = getattr(spec.prior, "borrowing", None)
         if borrowing is not None:
-            columns[f"drift_{arm.name}"] = np.round(truths[:, j] - borrowing.estimate, 12)
+            columns[f"drift_{spec.name}"] = np.round(truths[:, j] - borrowing.estimate, 12)
     columns["is_null"] = [family.is_null(design.hypothesis, tuple(t)) for t in truths]
     probabilities = {
         "prob_success": eff.sum(axis=1),

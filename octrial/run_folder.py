@@ -31,7 +31,7 @@ import tempfile
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
 from octrial.errors import InputError, Problem, show, single
 from octrial.output import json_text, write_atomic
@@ -294,7 +294,7 @@ def stale_dependents(folder: Path, design_sha256: str) -> set[str]:
     return stale
 
 
-def _readable(path: Path) -> dict[str, Any] | bool | None:
+def _readable(path: Path) -> dict[str, Any] | Literal[False] | None:
     """The record at ``path``; ``False`` when there is none, ``None`` when unreadable."""
     if not path.is_file():
         return False
@@ -331,7 +331,8 @@ def calibration_belongs(calibration: dict[str, Any], design_sha256: str) -> bool
     SHA-256: the run is of the design calibrated or of the calibrated design written."""
     if not design_sha256:
         return False
-    written = calibration.get(SEAL) if isinstance(calibration.get(SEAL), dict) else {}
+    seal = calibration.get(SEAL)
+    written = seal if isinstance(seal, dict) else {}
     tomls = {sha for name, sha in written.items() if str(name).endswith(".toml")}
     return design_sha256 == _design_sha(calibration) or design_sha256 in tomls
 

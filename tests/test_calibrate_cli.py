@@ -115,6 +115,10 @@ def test_bad_input_exits_2_and_writes_nothing(runner, tmp_path) -> None:
          "command line: --alternative: expected a point outside the null"),
         (["--alpha", "0.05", "--power", "0.99", "--alternative", "0.3", "--vary", "n",
           "--n-range", "20:30"], "command line: --n-range: expected a range containing"),
+        # the library names settings (`vary`, `search`); the command line its options
+        (["--alpha", "0.05", "--power", "0.8", "--alternative", "0.4", "--search", "optimal",
+          "--vary", "final", "--n-range", "20:30"],
+         "command line: --vary: expected no --vary with --search"),
     ]:
         result = runner.invoke(main, ["calibrate", str(DEMO), *args, "--out", str(out)])
         assert result.exit_code == 2, result.output

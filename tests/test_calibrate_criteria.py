@@ -158,23 +158,23 @@ def test_calibrated_design_meets_its_constraints_through_octrial_run(tmp_path,
 
 
 @pytest.mark.parametrize("base, settings, key, words", [
-    (ONE_ARM, {"criterion": ["average_type1_error<=0.02"]}, "--criterion",
+    (ONE_ARM, {"criterion": ["average_type1_error<=0.02"]}, "criterion",
      "design prior"),
-    (SINGLE, {"criterion": ["type1<=0.02"]}, "--criterion", "prob_null_given_success"),
-    (SINGLE, {"criterion": ["average_type1_error<=1.5"]}, "--criterion", "[0, 1]"),
-    (SINGLE, {"criterion": ["average_type1_error=0.1"]}, "--criterion", "NAME<=VALUE"),
-    (SINGLE, {"criterion": ["power"]}, "--alpha", "required"),
+    (SINGLE, {"criterion": ["type1<=0.02"]}, "criterion", "prob_null_given_success"),
+    (SINGLE, {"criterion": ["average_type1_error<=1.5"]}, "criterion", "[0, 1]"),
+    (SINGLE, {"criterion": ["average_type1_error=0.1"]}, "criterion", "NAME<=VALUE"),
+    (SINGLE, {"criterion": ["power"]}, "alpha", "required"),
     (SINGLE, {"criterion": ["average_type1_error<=0.1"], "relevant_effect": -1},
-     "--relevant-effect", ">= 0"),
+     "relevant_effect", ">= 0"),
     (changed(UNKNOWN_ONE, arms__treatment__design_prior=UNKNOWN_ONE["arms"]["treatment"][
-        "prior"]), {"criterion": ["average_type1_error<=0.1"]}, "--criterion",
+        "prior"]), {"criterion": ["average_type1_error<=0.1"]}, "criterion",
      "exact engine"),
 ])
-def test_bad_criteria_name_the_option(base, settings, key, words) -> None:
+def test_bad_criteria_name_the_setting(base, settings, key, words) -> None:
     with pytest.raises(InputError) as caught:
         calibrate(build(base), "command line", **settings)
     text = str(caught.value)
-    assert key in text and words in text
+    assert f"command line: {key}: expected" in text and words in text and "--" not in text
 
 
 # -- a restricted null region (--null-range) -------------------------------------------------
@@ -211,7 +211,8 @@ def test_one_arm_null_range_grid() -> None:
 def test_bad_null_range(value, words) -> None:
     with pytest.raises(InputError) as caught:
         calibrate(build(ONE_ARM), "command line", alpha=0.05, null_range=value)
-    assert "--null-range" in str(caught.value) and words in str(caught.value)
+    assert "command line: null_range: expected" in str(caught.value)
+    assert words in str(caught.value)
 
 
 def test_two_arm_sweep_rows_equal_a_fresh_evaluation_of_each_candidate() -> None:

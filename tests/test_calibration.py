@@ -315,25 +315,27 @@ def test_shortest_between() -> None:
 # -- bad input (issue 5 check) -------------------------------------------------------------
 
 BAD = [
-    (dict(alpha=1.5), "--alpha", "strictly between 0 and 1"),
-    (dict(alpha=0.0), "--alpha", "strictly between 0 and 1"),
-    (dict(alpha=0.05, power=1.0, alternative=[0.4]), "--power", "strictly between 0 and 1"),
-    (dict(alpha=0.05, power=0.8, alternative=[0.15]), "--alternative", "outside the null"),
-    (dict(alpha=0.05, power=0.8, alternative=[0.2]), "--alternative", "outside the null"),
-    (dict(alpha=0.05, power=0.8, alternative=[0.4, 0.3]), "--alternative", "1 number"),
-    (dict(alpha=0.05, vary="n"), "--power", "target power"),
-    (dict(alpha=0.05, vary="speed"), "--vary", "names from"),
-    (dict(alpha=0.05, power=0.8, alternative=[0.4], vary="n", n_range="50:10"), "--n-range",
+    (dict(alpha=1.5), "alpha", "strictly between 0 and 1"),
+    (dict(alpha=0.0), "alpha", "strictly between 0 and 1"),
+    (dict(alpha=0.05, power=1.0, alternative=[0.4]), "power", "strictly between 0 and 1"),
+    (dict(alpha=0.05, power=0.8, alternative=[0.15]), "alternative", "outside the null"),
+    (dict(alpha=0.05, power=0.8, alternative=[0.2]), "alternative", "outside the null"),
+    (dict(alpha=0.05, power=0.8, alternative=[0.4, 0.3]), "alternative", "1 number"),
+    (dict(alpha=0.05, vary="n"), "power", "target power"),
+    (dict(alpha=0.05, vary="speed"), "vary", "names from"),
+    (dict(alpha=0.05, power=0.8, alternative=[0.4], vary="n", n_range="50:10"), "n_range",
      "MIN:MAX"),
-    (dict(alpha=0.05, vary="eta"), "--vary", "function of the information fraction"),
-    (dict(alpha=0.05, search="optimal", power=0.8, alternative=[0.4]), "--n-range",
+    (dict(alpha=0.05, vary="eta"), "vary", "function of the information fraction"),
+    (dict(alpha=0.05, search="optimal", power=0.8, alternative=[0.4]), "n_range",
      "range of maximum sample sizes"),
 ]
 
 
 @pytest.mark.parametrize(("settings", "key", "words"), BAD,
                          ids=[f"{b[1]}-{i}" for i, b in enumerate(BAD)])
-def test_bad_settings_name_the_option(settings, key, words) -> None:
+def test_bad_settings_name_the_setting(settings, key, words) -> None:
+    # the library names its settings (the keyword arguments); the command line maps them
+    # to its options (tests/test_calibrate_cli.py)
     design = build(ONE_ARM)
     with pytest.raises(InputError) as caught:
         calibrate(design, "command line", **settings)
@@ -343,7 +345,7 @@ def test_bad_settings_name_the_option(settings, key, words) -> None:
 
 def test_two_arm_alternative_inside_the_null() -> None:
     design = build(TWO_ARM, hypothesis__margin=0.1)
-    with pytest.raises(InputError, match="--alternative: expected a point outside the null"):
+    with pytest.raises(InputError, match="alternative: expected a point outside the null"):
         calibrate(design, alpha=0.05, power=0.8, alternative=[0.35, 0.3])
 
 
@@ -353,7 +355,7 @@ def test_infeasible_range_says_so_with_the_best_found() -> None:
         calibrate(design, alpha=0.05, power=0.9, alternative=[0.4], vary="n,final",
                   n_range="10:25")
     message = str(caught.value)
-    assert "--n-range: expected a range containing" in message
+    assert "calibrate(): n_range: expected a range containing" in message
     assert "best found: N = " in message and "power" in message
 
 
@@ -361,7 +363,8 @@ def test_infeasible_alpha_with_interim_efficacy_says_so() -> None:
     """An interim efficacy stop that alone exceeds alpha cannot be fixed by the final
     threshold."""
     design = build(ONE_ARM, looks__n=[10, 30], looks__efficacy=[0.6, 0.95], looks__futility=None)
-    with pytest.raises(InputError, match="--alpha: expected a type I error the design can meet"):
+    with pytest.raises(InputError,
+                       match=r"calibrate\(\): alpha: expected a type I error the design can"):
         calibrate(design, alpha=0.01)
 
 

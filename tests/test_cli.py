@@ -144,3 +144,23 @@ def test_written_files_have_ordinary_permissions(runner, tmp_path) -> None:
     os.umask(umask)
     mode = stat.S_IMODE((tmp_path / "oc.csv").stat().st_mode)
     assert mode == 0o666 & ~umask
+
+
+def test_settings_errors_name_the_options_of_the_command() -> None:
+    """Library errors key settings by name (null_range) and mention others in backquotes;
+    the command line shows its options instead (issue 13: library errors name no option)."""
+    from octrial.cli.common import in_option_names
+    from octrial.errors import Problem, SettingsError
+
+    error = SettingsError("command line", [
+        Problem("null_range", "LOW:HIGH", "'x'"),
+        Problem("vary", "no `vary` with `search`", "`search` optimal", "see `band`"),
+    ])
+    assert "--" not in str(error)
+    shown = str(in_option_names(error, {"null_range": "--null-range", "vary": "--vary",
+                                        "search": "--search"}))
+    assert shown.splitlines() == [
+        "command line: --null-range: expected LOW:HIGH; got 'x'",
+        "command line: --vary: expected no --vary with --search; got --search optimal "
+        "(see band)",
+    ]

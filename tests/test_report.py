@@ -370,6 +370,8 @@ def test_missing_chromium_is_exit_2_and_writes_nothing(runs, tmp_path) -> None:
                     env={"OCTRIAL_CHROMIUM": str(tmp_path / "no-such-browser")})
     assert result.exit_code == 2
     assert "headless Chromium" in result.output and "apt-get install chromium" in result.output
+    # the library names its setting (pdf); the command line its option
+    assert "--pdf: expected" in result.output and "leave out --pdf" in result.output
     assert list(tmp_path.iterdir()) == []
 
 

@@ -42,7 +42,7 @@ from octrial.design_prior import assurance_record
 from octrial.engines import engine_for
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.monte_carlo import MonteCarloSettings
-from octrial.errors import InputError, Problem
+from octrial.errors import Problem, SettingsError
 from octrial.execution import Execution
 from octrial.execution.checkpoints import CheckpointStore
 from octrial.rules.boundaries import boundary_table
@@ -114,8 +114,8 @@ def with_prior_nodes(design: Design, request: Request, truths: Truths) -> Truths
     try:
         nodes = calibration_nodes(design, delta)
     except ValueError as exc:
-        raise InputError("command line", [Problem(
-            "--criterion", "a design prior the quadrature can integrate over", str(exc))]
+        raise SettingsError("command line", [Problem(
+            "criterion", "a design prior the quadrature can integrate over", str(exc))]
         ) from exc
     return dataclasses.replace(truths, values=np.vstack([truths.values, nodes.truths]),
                                prior=nodes, prior_start=len(truths.values))
@@ -136,8 +136,10 @@ class _Search:
                  extra: tuple[tuple[float, ...], ...] = (),
                  simulation: MonteCarloSettings | None = None,
                  execution: Execution | None = None,
-                 seed_store: CheckpointStore | None = None) -> None:
+                 seed_store: CheckpointStore | None = None,
+                 source: str = "calibrate()") -> None:
         self.design = design
+        self.source = source
         self.request = request
         self.execution = execution
         self.simulation = simulation
@@ -153,8 +155,9 @@ class _Search:
         self.curve: pd.DataFrame | None = None
         self.sizing: dict[str, Any] | None = None
 
-    def fail(self, key: str, expected: str, got: str) -> InputError:
-        return InputError(self.source, [Problem(key, expected, got)])
+    def fail(self, key: str, expected: str, got: str) -> SettingsError:
+        """A setting (by its name) that this design cannot meet."""
+        return SettingsError(self.source, [Problem(key, expected, got)])
 
     def constraints_text(self) -> str:
         """The constraints a candidate must meet, in words."""
@@ -166,27 +169,27 @@ class _Search:
     def thresholds(self) -> Choice:
         choice = self.tuner.tune(self.builder.looks)
         if choice is None:
-            raise self.fail("--vary", "values that give a valid design",
+            raise self.fail("vary", "values that give a valid design",
                             "no valid candidate (see the design file's [looks])")
         if not choice.meets_alpha and self.request.constraints:
-            raise self.fail("--criterion", "constraints the design can meet by its "
+            raise self.fail("criterion", "constraints the design can meet by its "
                             f"{self.request.calibrated or 'rule'}",
                             f"{self.constraints_text()} (best found: {_describe(choice)}, "
                             f"{_figures(self.design, self.truths, choice.assessment)})")
         if not choice.meets_alpha:
-            raise self.fail("--alpha", "a type I error the design can meet by its "
+            raise self.fail("alpha", "a type I error the design can meet by its "
                             f"{self.request.calibrated or 'rule'}",
                             f"{self.request.alpha:g} (best found: {_describe(choice)}, "
                             f"{_figures(self.design, self.truths, choice.assessment)})")
         if not choice.meets_power:
-            raise self.fail("--power", f"a power the design reaches at N = "
+            raise self.fail("power", f"a power the design reaches at N = "
                             f"{choice.design.looks.n[-1]} with {self.constraints_text()}",
                             f"{self.request.power:g} (best found: {_describe(choice)}, "
                             f"{_figures(self.design, self.truths, choice.assessment)})")
         return choice
 
     def sizes(self) -> Choice:
-        lo, hi, step = self.request.n_range
+        lo, hi, step = self.request.sizing_range
         unit = allocation_unit(self.design)
         rows, choices = [], {}
         for n_max in range(lo, hi + 1, step):
@@ -208,7 +211,7 @@ class _Search:
             row["note"] = ""
             rows.append(row)
         if not choices:
-            raise self.fail("--n-range", "a range with at least one valid design",
+            raise self.fail("n_range", "a range with at least one valid design",
                             f"{lo}:{hi}:{step} (allocation unit {unit})")
         passing = [n for n, c in choices.items() if c.passes]
         first = min(passing) if passing else None
@@ -235,7 +238,7 @@ class _Search:
             rule = ("the smallest N that passes" if self.request.choose == "first" else
                     "the smallest N from which every larger N in the range passes")
             extra = (f"; N = {first} passes but not every larger N does" if first else "")
-            raise self.fail("--n-range", f"a range containing {rule}, with "
+            raise self.fail("n_range", f"a range containing {rule}, with "
                             f"{self.constraints_text()} and power >= {self.request.power:g}",
                             f"{lo}:{hi} (best found: {_describe(best)}, "
                             f"{_figures(self.design, self.truths, best.assessment)}{extra})")
@@ -243,17 +246,17 @@ class _Search:
 
     def stages(self) -> Choice:
         if not isinstance(self.ev, LatticeEvaluator):
-            raise self.fail("--search", "a design the exact lattice engine evaluates",
+            raise self.fail("search", "a design the exact lattice engine evaluates",
                             f"{self.design.family.name} endpoint")
         chosen, best, notes = search(self.builder, self.request, self.log, self.ev)
         self.notes += notes
         if chosen is None:
-            lo, hi, _ = self.request.n_range
+            lo, hi, _ = self.request.sizing_range
             got = f"{lo}:{hi}"
             if best is not None:
                 got += (f" (best found: {_describe(best)}, "
                         f"{_figures(self.design, self.truths, best.assessment)})")
-            raise self.fail("--n-range", f"a range containing a {self.request.stages}-stage "
+            raise self.fail("n_range", f"a range containing a {self.request.stages}-stage "
                             f"design with type I error <= {self.request.alpha:g} and power >= "
                             f"{self.request.power:g}", got)
         return chosen
@@ -302,9 +305,9 @@ def calibrate(design: Design, source: str = "calibrate()", *,
 
     Raises
     ------
-    InputError
+    SettingsError
         For invalid settings, and when no candidate meets the constraints (the message
-        gives the best found).
+        gives the best found); keyed by the settings' names (``n_range``, ``alpha``...).
 
     Examples
     --------
@@ -322,8 +325,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     extra: tuple[tuple[float, ...], ...] = ()
     history: list[str] = []
     for _ in range(REFINE_ROUNDS):
-        run = _Search(design, request, extra, simulation, execution, seed_store)
-        run.source = source
+        run = _Search(design, request, extra, simulation, execution, seed_store, source)
         run.notes += history
         try:
             if request.search:
@@ -339,6 +341,7 @@ def calibrate(design: Design, source: str = "calibrate()", *,
         if refined is None or request.alpha is None or refined.type1 <= request.alpha:
             break
         # the grid missed a worse point between its nodes: add it and calibrate again
+        missed = refined.type1
         where = ", ".join(f"{arm} = {v:.6g}" for arm, v in zip(design.arm_names,
                                                                 refined.point, strict=True))
         history.append(f"between grid points the type I error reached {refined.type1:.6g} "
@@ -346,8 +349,8 @@ def calibrate(design: Design, source: str = "calibrate()", *,
                        "calibration repeated")
         extra = (*extra, refined.point)
     else:
-        raise run.fail("--null-points", "a null grid on which the calibration holds between "
-                       "grid points", f"{request.null_points} (type I error {refined.type1:.6g} "
+        raise run.fail("null_points", "a null grid on which the calibration holds between "
+                       "grid points", f"{request.null_points} (type I error {missed:.6g} "
                        f"> alpha at {where} after {REFINE_ROUNDS} rounds; use more "
                        "points)")
     run.log.choose(choice.row)
@@ -392,7 +395,7 @@ def _summary(run: _Search, choice: Choice, refined: Refined | None) -> dict[str,
     }
     if request.search:
         out["search"] = {"criterion": request.search, "rule": request.rule,
-                         "stages": request.stages, "range": list(request.n_range)}
+                         "stages": request.stages, "range": list(request.sizing_range)}
     if run.sizing is not None:
         out["sizing"] = run.sizing
     if design.family.lattice:

@@ -11,6 +11,7 @@ knob gives a continuous range (for bisection) or a fixed grid.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -37,6 +38,25 @@ ETA_GRID = (0.25, 0.5, 0.75, 1.0, 1.25, 1.5, 2.0, 2.5, 3.0)
 
 def _spec(design: Design, key: str) -> ThresholdSpec | None:
     return dict(design.looks.specs).get(key)
+
+
+@dataclass(frozen=True)
+class _Function:
+    """A threshold written as a function of the information fraction t."""
+
+    form: str
+    lam: float
+    eta: float
+
+
+def _function(design: Design, key: str) -> _Function | None:
+    """The threshold ``key`` as a function of t; ``None`` for a constant or a list (the
+    design loader gives every function its lambda and eta)."""
+    spec = _spec(design, key)
+    if spec is None or spec.form in ("constant", "list") or spec.lam is None \
+            or spec.eta is None:
+        return None
+    return _Function(spec.form, spec.lam, spec.eta)
 
 
 class Knob:
@@ -67,7 +87,7 @@ class Knob:
 
 
 def _lambda_candidates(
-    ev: Evaluator, design: Design, spec: ThresholdSpec, looks: list[int], lam_max: float,
+    ev: Evaluator, design: Design, spec: _Function, looks: list[int], lam_max: float,
 ) -> np.ndarray | None:
     """Values of lambda at which some look's threshold crosses a lattice probability."""
     inverse, sign = INVERSES[spec.form]
@@ -85,7 +105,7 @@ def _lambda_candidates(
     return lam[::-1] if sign < 0 else lam
 
 
-def _lambda_max(spec: ThresholdSpec, design: Design) -> float:
+def _lambda_max(spec: _Function, design: Design) -> float:
     """Largest lambda that keeps every look's threshold within [0, 1]."""
     return min(1.0 / t**spec.eta for t in design.looks.information)
 
@@ -110,7 +130,7 @@ class Final(Knob):
 
     def apply(self, looks: dict[str, Any], design: Design, value: float) -> dict[str, Any]:
         out = dict(looks)
-        if design.looks.uses_counts:
+        if design.looks.efficacy_count is not None:  # a rule in counts (Looks.uses_counts)
             counts = list(design.looks.efficacy_count)
             counts[-1] = int(value)
             out["efficacy_count"] = entries(counts)
@@ -138,14 +158,13 @@ class Common(Knob):
         return [i for i in indices if values[i] is not None]
 
     def is_function(self, design: Design) -> bool:
-        spec = _spec(design, self.key)
-        return spec is not None and spec.form not in ("constant", "list")
+        return _function(design, self.key) is not None
 
     def candidates(self, ev: Evaluator, design: Design) -> np.ndarray | None:
-        spec = _spec(design, self.key)
-        if self.is_function(design):
-            return _lambda_candidates(ev, design, spec, self.looks_with(design),
-                                      _lambda_max(spec, design))
+        function = _function(design, self.key)
+        if function is not None:
+            return _lambda_candidates(ev, design, function, self.looks_with(design),
+                                      _lambda_max(function, design))
         values = ev.distinct_values(design, self.looks_with(design))
         if values is None:
             return None
@@ -154,19 +173,20 @@ class Common(Knob):
         return values if values[-1] >= 1.0 - 2e-12 else np.append(values, 1.0)
 
     def span(self, design: Design) -> tuple[float, float]:
-        if self.is_function(design):
-            spec = _spec(design, self.key)
-            lam_max = _lambda_max(spec, design)
-            sign = INVERSES[spec.form][1]
+        function = _function(design, self.key)
+        if function is not None:
+            lam_max = _lambda_max(function, design)
+            sign = INVERSES[function.form][1]
             return (lam_max, 0.0) if sign < 0 else (0.0, lam_max)
         return 0.0, 1.0
 
     def apply(self, looks: dict[str, Any], design: Design, value: float) -> dict[str, Any]:
         out = dict(looks)
         spec = _spec(design, self.key)
-        if self.is_function(design):
-            out[self.key] = {"function": spec.form, "lambda": float(value),
-                             "eta": float(spec.eta)}
+        function = _function(design, self.key)
+        if function is not None:
+            out[self.key] = {"function": function.form, "lambda": float(value),
+                             "eta": float(function.eta)}
         elif spec is None or spec.form == "constant":
             out[self.key] = float(value)
         else:
@@ -199,8 +219,11 @@ class Eta(Knob):
 
     def apply(self, looks: dict[str, Any], design: Design, value: float) -> dict[str, Any]:
         out = dict(looks)
-        spec = _spec(design, "efficacy")
-        out["efficacy"] = {"function": spec.form, "lambda": float(spec.lam), "eta": float(value)}
+        function = _function(design, "efficacy")
+        if function is None:  # the request admits eta only for a function (request.py)
+            raise ValueError("eta varies only for an efficacy threshold written as a function")
+        out["efficacy"] = {"function": function.form, "lambda": float(function.lam),
+                           "eta": float(value)}
         return out
 
 
@@ -214,6 +237,14 @@ def knob(name: str) -> Knob:
                                     PREDICTIVE_GRID),
         "eta": Eta(),
     }[name]
+
+
+def grid_knob(name: str) -> Grid | Eta:
+    """The knob for a value searched over a grid (one of ``request.GRID``)."""
+    found = knob(name)
+    if not isinstance(found, Grid | Eta):
+        raise ValueError(f"{name!r} is not searched over a grid")
+    return found
 
 
 def shortest_between(chosen: float, other: float, closed_other: bool = False) -> float:

@@ -100,6 +100,14 @@ def control_range(design: Design) -> tuple[float, float]:
     return c_lo, c_hi
 
 
+def _benchmark(design: Design) -> float:
+    """The one-arm null boundary (the design loader requires one for a one-arm design)."""
+    benchmark = design.hypothesis.benchmark
+    if benchmark is None:
+        raise ValueError("a one-arm design without a benchmark")
+    return float(benchmark)
+
+
 def null_truths(
     design: Design, points: int = 50, alternative: tuple[float, ...] | None = None,
     extra: tuple[tuple[float, ...], ...] = (),
@@ -130,8 +138,9 @@ def null_truths(
         axis = 1 if design.two_arm else 0
         own_nulls = [t for t in own_nulls
                      if null_range[0] - 1e-12 <= t[axis] <= null_range[1] + 1e-12]
+    grid: list[tuple[float, ...]]
     if not design.two_arm and null_range is not None:
-        b = float(h.benchmark)
+        b = _benchmark(design)
         worse = -h.sign
         near = min(null_range[1], b) if worse < 0 else max(null_range[0], b)
         far = null_range[0] if worse < 0 else null_range[1]
@@ -146,7 +155,7 @@ def null_truths(
                 f" to {max(r[0] for r in rows):.6g} (benchmark {b:g}; null region limited "
                 f"to {null_range[0]:g}..{null_range[1]:g})")
     elif not design.two_arm:
-        b = float(h.benchmark)
+        b = _benchmark(design)
         worse = -h.sign
         span = _span(design, scenario[:, 0], b, worse)
         grid = [(round(b + worse * span * i / points, DECIMALS),) for i in range(points)]

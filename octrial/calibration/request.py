@@ -1,8 +1,9 @@
 """What a calibration is asked to do, checked once.
 
 :func:`make_request` validates every setting against the design and reports every
-problem at once, each as ``SOURCE: KEY: expected ...; got ...`` (the command line uses
-the option names as keys); the search code trusts the resulting :class:`Request`.
+problem at once, each as ``SOURCE: KEY: expected ...; got ...`` (a
+:class:`~octrial.errors.SettingsError`: the keys are the settings' names, and the command
+line names its options instead); the search code trusts the resulting :class:`Request`.
 """
 
 from __future__ import annotations
@@ -14,10 +15,10 @@ from typing import Any
 
 from octrial.design.model import Design
 from octrial.design.reader import Phrase, Problems
-from octrial.errors import InputError, show
+from octrial.errors import SettingsError, show
 
 VARY = ("final", "efficacy", "futility", "futility-predictive", "eta", "n")
-"""What ``--vary`` may name. ``final`` and ``efficacy`` are calibrated to alpha (at most
+"""What ``vary`` may name. ``final`` and ``efficacy`` are calibrated to alpha (at most
 one of them); ``futility``, ``futility-predictive`` and ``eta`` are searched over a grid;
 ``n`` is the maximum sample size."""
 
@@ -97,7 +98,7 @@ class Request:
         Engine method override.
     constraints : tuple of Constraint
         Bounds on Bayesian operating characteristics under the design prior
-        (``--criterion NAME<=VALUE``), met together with ``alpha`` when both are given.
+        (``criterion='NAME<=VALUE'``), met together with ``alpha`` when both are given.
     relevant_effect : float or None
         Bayesian power over effect >= this value beyond the null boundary.
     null_range : tuple of float or None
@@ -135,6 +136,13 @@ class Request:
         return tuple(v for v in self.vary if v in GRID)
 
     @property
+    def sizing_range(self) -> tuple[int, int, int]:
+        """``n_range``, which :func:`make_request` requires for sizing and stage searches."""
+        if self.n_range is None:
+            raise ValueError("no n_range: sizing and stage searches need one")
+        return self.n_range
+
+    @property
     def sizes(self) -> bool:
         """Whether the maximum sample size varies."""
         return "n" in self.vary
@@ -159,12 +167,12 @@ def _parse_range(problems: Problems, value: Any) -> tuple[int, int, int] | None:
     try:
         numbers = [int(str(p).strip()) for p in parts]
     except (TypeError, ValueError):
-        problems.add("--n-range", expected, value)
+        problems.add("n_range", expected, value)
         return None
     if len(numbers) == 2:
         numbers.append(1)
     if len(numbers) != 3 or not 1 <= numbers[0] <= numbers[1] or numbers[2] < 1:
-        problems.add("--n-range", expected, value)
+        problems.add("n_range", expected, value)
         return None
     return numbers[0], numbers[1], numbers[2]
 
@@ -187,8 +195,8 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
 
     Raises
     ------
-    InputError
-        Listing every problem.
+    SettingsError
+        Listing every problem, keyed by the settings' names.
     """
     problems = Problems()
     known = {"alpha", "power", "alternative", "vary", "n_range", "looks", "choose", "criterion",
@@ -199,21 +207,21 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
             problems.add(key, "one of " + ", ".join(sorted(known)), Phrase("an unknown setting"))
     pick, constraints = parse_criteria(problems, settings.get("criterion"))
     settings = {**settings, "criterion": pick}
-    alpha = _probability(problems, "--alpha", settings.get("alpha"), "a type I error")
+    alpha = _probability(problems, "alpha", settings.get("alpha"), "a type I error")
     if settings.get("alpha") is None and not constraints:
-        problems.add("--alpha", "a type I error strictly between 0 and 1 (or Bayesian "
-                     "constraints with --criterion NAME<=VALUE)",
+        problems.add("alpha", "a type I error strictly between 0 and 1 (or Bayesian "
+                     "constraints with `criterion` NAME<=VALUE)",
                      Phrase("nothing (the option is required)"))
     relevant = settings.get("relevant_effect")
     if relevant is not None and (not isinstance(relevant, int | float) or isinstance(
             relevant, bool) or not math.isfinite(relevant) or relevant < 0):
-        problems.add("--relevant-effect", "a number >= 0 (effect beyond the null boundary)",
+        problems.add("relevant_effect", "a number >= 0 (effect beyond the null boundary)",
                      relevant)
         relevant = None
     if constraints:
         _constraints_fit(problems, design, settings)
     null_range = _null_range(problems, design, settings.get("null_range"))
-    power = _probability(problems, "--power", settings.get("power"), "a target power")
+    power = _probability(problems, "power", settings.get("power"), "a target power")
     alternative = _alternative(problems, design, settings.get("alternative"))
 
     search = settings.get("search")
@@ -223,7 +231,7 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     for key, allowed in choices.items():
         value = settings.get(key)
         if value is not None and value not in allowed:
-            problems.add(f"--{key}", "one of " + ", ".join(allowed), value)
+            problems.add(key, "one of " + ", ".join(allowed), value)
 
     n_range = None
     if settings.get("n_range") is not None:
@@ -231,25 +239,25 @@ def make_request(design: Design, source: str = "command line", **settings: Any) 
     null_points = settings.get("null_points")
     null_points = 50 if null_points is None else null_points
     if not isinstance(null_points, int) or not 1 <= null_points <= MAX_NULL_POINTS:
-        problems.add("--null-points", f"a whole number from 1 to {MAX_NULL_POINTS}", null_points)
+        problems.add("null_points", f"a whole number from 1 to {MAX_NULL_POINTS}", null_points)
     stages = settings.get("stages")
     if stages is not None and (not isinstance(stages, int) or not 2 <= stages <= 10):
-        problems.add("--stages", "a whole number of looks from 2 to 10", stages)
+        problems.add("stages", "a whole number of looks from 2 to 10", stages)
 
     needs_power = search is not None or "n" in vary
     if needs_power and power is None and settings.get("power") is None:
-        what = "a stage search" if search else "sizing (--vary n)"
-        problems.add("--power", f"a target power for {what}", Phrase("nothing"))
+        what = "a stage search" if search else "sizing (`vary` n)"
+        problems.add("power", f"a target power for {what}", Phrase("nothing"))
     if (power is not None or search or vary_needs_alternative(vary)) and alternative is None \
             and settings.get("alternative") is None:
-        problems.add("--alternative", "the true value(s) at which power is computed "
+        problems.add("alternative", "the true value(s) at which power is computed "
                      f"({', '.join(design.arm_names)})", Phrase("nothing"))
     if (search or "n" in vary) and n_range is None and settings.get("n_range") is None:
-        problems.add("--n-range", "a range of maximum sample sizes MIN:MAX[:STEP]",
+        problems.add("n_range", "a range of maximum sample sizes MIN:MAX[:STEP]",
                      Phrase("nothing"))
     _design_fits(problems, design, vary, search, settings.get("rule"))
     if problems:
-        raise InputError(source, problems)
+        raise SettingsError(source, problems)
     return Request(
         alpha=alpha, power=power, alternative=alternative, vary=vary, n_range=n_range,
         looks=settings.get("looks") or "fractions", choose=settings.get("choose") or "stable",
@@ -274,10 +282,10 @@ def _null_range(problems: Problems, design: Design, raw: Any) -> tuple[float, fl
     try:
         low, high = (float(str(v).strip()) for v in parts)
     except (TypeError, ValueError):
-        problems.add("--null-range", expected, raw)
+        problems.add("null_range", expected, raw)
         return None
     if not (math.isfinite(low) and math.isfinite(high) and low < high):
-        problems.add("--null-range", expected, raw)
+        problems.add("null_range", expected, raw)
         return None
     lo, hi = design.family.parameter_range
     h = design.hypothesis
@@ -289,13 +297,13 @@ def _null_range(problems: Problems, design: Design, raw: Any) -> tuple[float, fl
     else:
         where = f"the range of the control {design.family.parameter} ({lo:g}, {hi:g})"
     if high < lo or low > hi:
-        problems.add("--null-range", f"a range that meets {where}", raw)
+        problems.add("null_range", f"a range that meets {where}", raw)
         return None
     return low, high
 
 
 def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Constraint, ...]]:
-    """Split ``--criterion`` values into the grid searches' pick rule ('power' or
+    """Split ``criterion`` values into the grid searches' pick rule ('power' or
     'optimal', at most one) and Bayesian constraints ``NAME<=VALUE`` / ``NAME>=VALUE``
     with NAME a Bayesian operating characteristic and VALUE in [0, 1]."""
     from octrial.bayesian_oc import METRICS
@@ -311,16 +319,16 @@ def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Cons
         text = str(item)
         if text in CRITERIA:
             if pick is not None and pick != text:
-                problems.add("--criterion", "at most one of 'power' and 'optimal'", text)
+                problems.add("criterion", "at most one of 'power' and 'optimal'", text)
             pick = text
             continue
         match = CONSTRAINT.match(text)
         if match is None:
-            problems.add("--criterion", expected, text)
+            problems.add("criterion", expected, text)
             continue
         name, op, value = match.groups()
         if name not in METRICS:
-            problems.add("--criterion", "a Bayesian operating characteristic: one of "
+            problems.add("criterion", "a Bayesian operating characteristic: one of "
                          + ", ".join(METRICS), name)
             continue
         try:
@@ -328,7 +336,7 @@ def parse_criteria(problems: Problems, raw: Any) -> tuple[str | None, tuple[Cons
         except ValueError:
             number = math.nan
         if not 0 <= number <= 1:
-            problems.add("--criterion", f"a probability in [0, 1] after {op}", text)
+            problems.add("criterion", f"a probability in [0, 1] after {op}", text)
             continue
         found.append(Constraint(name, op, number))
     return pick, tuple(dict.fromkeys(found))
@@ -342,15 +350,15 @@ def _constraints_fit(problems: Problems, design: Design, settings: dict[str, Any
     if not has_design_prior(design):
         where = ("hypothesis.design_prior" if on_effect(design) else
                  ", ".join(f"arms.{a}.design_prior" for a in design.arm_names))
-        problems.add("--criterion", f"a design with a design prior ({where}) for "
+        problems.add("criterion", f"a design with a design prior ({where}) for "
                      "Bayesian constraints", Phrase("a design without one"))
     elif settings.get("method") == "monte-carlo" or not exact_engine_applies(design):
-        problems.add("--criterion", "a design an exact engine evaluates (Bayesian "
+        problems.add("criterion", "a design an exact engine evaluates (Bayesian "
                      "constraints integrate its exact OC curve over the design prior)",
                      Phrase(f"{design.family.name} endpoint evaluated by simulation"))
     if settings.get("search") is not None:
-        problems.add("--criterion", "--vary (thresholds or n) for Bayesian constraints, not "
-                     "a stage search", Phrase(f"--search {settings['search']}"))
+        problems.add("criterion", "`vary` (thresholds or n) for Bayesian constraints, not "
+                     "a stage search", Phrase(f"`search` {settings['search']}"))
 
 
 def vary_needs_alternative(vary: tuple[str, ...]) -> bool:
@@ -361,7 +369,7 @@ def vary_needs_alternative(vary: tuple[str, ...]) -> bool:
 def _vary(problems: Problems, raw: Any, search: str | None) -> tuple[str, ...]:
     if search is not None:
         if raw:
-            problems.add("--vary", "no --vary with --search (a stage search chooses the looks "
+            problems.add("vary", "no `vary` with `search` (a stage search chooses the looks "
                          "and thresholds itself)", raw)
         return ()
     if raw is None or raw == "" or raw == ():
@@ -371,10 +379,10 @@ def _vary(problems: Problems, raw: Any, search: str | None) -> tuple[str, ...]:
     items = [i.strip() for i in items if i.strip()]
     bad = [i for i in items if i not in VARY]
     if bad:
-        problems.add("--vary", "names from " + ", ".join(VARY), ",".join(bad))
+        problems.add("vary", "names from " + ", ".join(VARY), ",".join(bad))
         return ("final",)
     if {"final", "efficacy"} <= set(items):
-        problems.add("--vary", "at most one of 'final' and 'efficacy' (efficacy includes the "
+        problems.add("vary", "at most one of 'final' and 'efficacy' (efficacy includes the "
                      "final threshold)", ",".join(items))
     if "eta" in items and "efficacy" not in items:
         items.append("efficacy")
@@ -391,16 +399,16 @@ def _alternative(problems: Problems, design: Design, raw: Any) -> tuple[float, .
     try:
         values = [float(v) for v in (raw.split(",") if isinstance(raw, str) else raw)]
     except (TypeError, ValueError):
-        problems.add("--alternative", expected, raw)
+        problems.add("alternative", expected, raw)
         return None
     if len(values) != len(design.arms):
-        problems.add("--alternative", expected, raw)
+        problems.add("alternative", expected, raw)
         return None
     family = design.family
     for arm, value in zip(design.arm_names, values, strict=True):
         problem = family.true_value_problem(value)
         if problem:
-            problems.add("--alternative", f"{problem} for {arm}", value)
+            problems.add("alternative", f"{problem} for {arm}", value)
             return None
     if family.is_null(design.hypothesis, tuple(values)):
         h = design.hypothesis
@@ -408,7 +416,7 @@ def _alternative(problems: Problems, design: Design, raw: Any) -> tuple[float, .
             where = f"a true effect beyond {h.shift:g} in the {h.better} direction"
         else:
             where = f"a {family.parameter} {h.better} than the benchmark {h.benchmark:g}"
-        problems.add("--alternative", f"a point outside the null region ({where})",
+        problems.add("alternative", f"a point outside the null region ({where})",
                      Phrase(f"{show(raw)} (inside the null)"))
         return None
     return tuple(values)
@@ -421,19 +429,19 @@ def _design_fits(
     looks = design.looks
     if looks.uses_counts and any(v in ("efficacy", "futility", "futility-predictive", "eta")
                                  for v in vary):
-        problems.add("--vary", "'final' or 'n' for a rule stated in counts (probability "
+        problems.add("vary", "'final' or 'n' for a rule stated in counts (probability "
                      "thresholds need a prior)", ",".join(vary))
     if looks.uses_counts and "n" in vary:
-        problems.add("--vary", "no 'n' for a rule stated in counts (count bounds do not "
-                     "carry over to another N; use --search)", ",".join(vary))
+        problems.add("vary", "no 'n' for a rule stated in counts (count bounds do not "
+                     "carry over to another N; use `search`)", ",".join(vary))
     if "eta" in vary:
         spec = dict(looks.specs).get("efficacy")
         if spec is None or spec.form in ("constant", "list"):
-            problems.add("--vary", "'eta' only when looks.efficacy is a function of the "
+            problems.add("vary", "'eta' only when looks.efficacy is a function of the "
                          "information fraction", "eta")
     if search is not None:
         if design.two_arm:
-            problems.add("--search", "a one-arm design (stage searches compare one arm's "
+            problems.add("search", "a one-arm design (stage searches compare one arm's "
                          "responses with a benchmark)", Phrase("a two-arm design"))
         if rule == "posterior" and any(a.prior is None for a in design.arms):
-            problems.add("--rule", "'counts' for a design without an analysis prior", rule)
+            problems.add("rule", "'counts' for a design without an analysis prior", rule)

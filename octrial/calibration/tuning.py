@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from octrial.calibration.evaluator import Assessment, Evaluator, LatticeEvaluator
-from octrial.calibration.knobs import Knob, knob, shortest_between
+from octrial.calibration.knobs import Knob, grid_knob, knob, shortest_between
 from octrial.calibration.log import Log
 from octrial.calibration.request import Request
 from octrial.calibration.variants import Builder
@@ -122,7 +122,7 @@ class Tuner:
                 return self._from_sweep(looks, base, turn, sweep, step)
         return self._bisect(looks, base, turn, values, step)
 
-    def _from_sweep(self, looks, base, turn, sweep, step) -> Choice:
+    def _from_sweep(self, looks, base, turn, sweep, step) -> Choice | None:
         self.log.add_sweep(step, base.looks, sweep.values, sweep.prob_success, sweep.expected_n)
         type1 = sweep.prob_success[:, : self.ev.truths.nulls].max(axis=1)
         # every candidate is at hand: the least stringent meeting every constraint, even
@@ -164,6 +164,8 @@ class Tuner:
 
     def _finish(self, looks, base, turn: Knob, values, index: int, step: str) -> Choice | None:
         """Write the chosen candidate, as a short decimal when one gives the same rule."""
+        value: float  # a count (int) for a rule stated in counts
+        exact: float
         if base.looks.uses_counts and turn.name == "final":
             value = exact = int(values[index])
             equivalent = None
@@ -189,7 +191,7 @@ class Tuner:
     def _chosen(self, looks: dict[str, Any], step: str,
                 values: dict[str, dict[str, Any]]) -> Choice | None:
         design, a, row = self._try(looks, step)
-        if design is None:
+        if design is None or a is None:  # both None together: not a valid design
             return None
         alpha_ok, power_ok = self.log.meets(a)
         return Choice(looks, design, a, row, alpha_ok, power_ok, values)
@@ -229,7 +231,7 @@ class Tuner:
         name = self.request.calibrated
         if name is None:
             return self.fixed(looks, step)
-        grids = [knob(g) for g in self.request.grid]
+        grids = [grid_knob(g) for g in self.request.grid]
         if not grids:
             return self.calibrate(looks, name, step)
         base = self.builder.build(looks)

@@ -81,12 +81,12 @@ def run_conflict(design: Design) -> dict[str, Any]:
                                   "borrowing (load it with octrial.load_design)"}
     started = time.perf_counter()
     per_arm = []
-    baseline = None
+    baseline = design  # becomes the design with no arm borrowing
     for j in arms:
         record = design.arms[j].prior.borrowing
         vague = variant(design, j, None)
         informative = variant(design, j, {"method": "power", "a0": record.a0})
-        baseline = vague if baseline is None else variant(baseline, j, None)
+        baseline = vague if baseline is design else variant(baseline, j, None)
         table = design.family.prior_data_conflict(design, j, informative, vague)
         if table is None:
             return {"not_applicable": "prior-data conflict is not available for this "

@@ -105,14 +105,15 @@ def check(design: Design | str | Path, settings: CheckSettings | None = None) ->
     for name in settings.checks:
         tic = time.perf_counter()
         if name == "prior-predictive":
-            found = run_prior_predictive(model, settings)
-            record["prior_predictive"], predictive = found.record, found.distributions
+            prior_predictive = run_prior_predictive(model, settings)
+            record["prior_predictive"] = prior_predictive.record
+            predictive = prior_predictive.distributions
         elif name == "sbc":
-            found = run_sbc(model, settings)
-            record["sbc"], sbc_values = found.record, found.values
+            sbc = run_sbc(model, settings)
+            record["sbc"], sbc_values = sbc.record, sbc.values
         elif name == "sensitivity":
-            found = run_sensitivity(model, settings)
-            record["sensitivity"], sensitivity_points = found.record, found.points
+            sensitivity = run_sensitivity(model, settings)
+            record["sensitivity"], sensitivity_points = sensitivity.record, sensitivity.points
         elif name == "tail-accuracy":
             record["tail_accuracy"] = run_tail_accuracy(model, settings)
         elif name == "conflict":

@@ -19,9 +19,9 @@ from typing import Any
 
 import numpy as np
 
+import octrial.reporting.check_figures as check_figures
 from octrial.checks.core import CheckOutcome
 from octrial.output import csv_text, json_text
-from octrial.reporting import check_figures
 from octrial.run_folder import REPORT_FILES, SEAL, is_check_file, seal, write_folder
 
 CHECKS_JSON = "checks.json"

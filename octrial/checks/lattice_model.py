@@ -25,8 +25,8 @@ from typing import Any
 import numpy as np
 from scipy import special
 
-from octrial.checks import grid_values
-from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity
+import octrial.checks.grid_values as grid_values
+from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity, benchmark
 from octrial.checks.predictive import Predictive, pair_effect, truncated_support
 from octrial.design.model import Design
 from octrial.design_prior import design_prior_design
@@ -335,8 +335,8 @@ class CountModel(LatticeModel):
         return float(design.endpoint.exposure)
 
     def _plausible_one_arm(self) -> tuple[float, float, str] | None:
-        h = self.design.hypothesis
-        return (h.benchmark / 10, h.benchmark * 10,
+        rate = benchmark(self.design)
+        return (rate / 10, rate * 10,
                 "an observed event rate within a factor 10 of the benchmark")
 
 
@@ -440,7 +440,8 @@ class LatticePosteriors(Posteriors):
             if not -1.0 < d < 1.0:
                 out[i] = 0.0 if d <= -1.0 else 1.0
                 continue
-            out[i] = 1.0 - beta_difference.prob_difference_exceeds(
+            # numba's Dispatcher type does not carry the compiled function's parameters
+            out[i] = 1.0 - beta_difference.prob_difference_exceeds(  # type: ignore[call-arg]
                 t.weights[i], t.a[i], t.b[i], c.weights[i], c.a[i], c.b[i], float(d),
                 *nodes, beta_difference.QUADRATURE_TOLERANCE)
         return out

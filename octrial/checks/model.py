@@ -158,6 +158,14 @@ class CheckModel(ABC):
         return None
 
 
+def benchmark(design: Design) -> float:
+    """The null boundary of a one-arm design (the design loader requires one)."""
+    value = design.hypothesis.benchmark
+    if value is None:
+        raise ValueError("a one-arm design without a benchmark")
+    return value
+
+
 def model_for(design: Design) -> CheckModel:
     """The check model of ``design``'s endpoint family
     (:meth:`~octrial.endpoints.base.Family.check_model`)."""

@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity
+from octrial.checks.model import ANALYSIS, CheckModel, Posteriors, Quantity, benchmark
 from octrial.checks.predictive import Predictive
 from octrial.design.model import Design
 from octrial.endpoints import unknown_sd
@@ -140,7 +140,7 @@ class KnownSdModel(CheckModel):
         prior = self._prior(ANALYSIS)
         if isinstance(prior, Flat):
             h = self.design.hypothesis
-            eta = h.shift if self.design.two_arm else self.sign * h.benchmark
+            eta = h.shift if self.design.two_arm else self.sign * benchmark(self.design)
         else:
             eta = self.sign * prior.prior_mean
         info = self.information[-1]
@@ -367,7 +367,7 @@ class UnknownSdModel(CheckModel):
         sd = math.sqrt(float(np.mean([n.b / (n.a - 1.0) for n in nigs])))
         two = self.design.two_arm
         what = "difference in means" if two else "mean"
-        centre = 0.0 if two else self.design.hypothesis.benchmark
+        centre = 0.0 if two else benchmark(self.design)
         reference = "no effect" if two else "the benchmark"
         return (centre - sd, centre + sd, f"an observed {what} within one subject-level sd "
                                           f"(the prior's expected sd, {sd:.4g}) of {reference}")
@@ -380,6 +380,8 @@ def _difference_of(first: Predictive, second: Predictive) -> Predictive:
     grid = np.linspace(lo, hi, 2 * first.values.size + 1)
     u = second.values
     du = u[1] - u[0]
+    if first.components is None:  # the convolution needs the first as a mixture
+        raise ValueError(f"{first.name}: no mixture components to convolve")
     f1 = first.components[0][1]
     density = np.array([np.sum(f1.pdf(x + u) * second.weights) * du for x in grid])
     return Predictive.from_density("observed_difference", "observed difference in means, "

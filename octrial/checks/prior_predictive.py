@@ -29,7 +29,7 @@ import time
 from dataclasses import dataclass
 from typing import Any
 
-from octrial.checks.model import ANALYSIS, DESIGN, CheckModel
+from octrial.checks.model import ANALYSIS, DESIGN, CheckModel, benchmark
 from octrial.checks.predictive import Predictive
 from octrial.checks.settings import CheckSettings
 
@@ -53,7 +53,7 @@ def claim_side(model: CheckModel) -> tuple[float, bool]:
     h = d.hypothesis
     higher = h.better == "higher"
     if not d.two_arm:
-        return h.benchmark, higher
+        return benchmark(d), higher
     if h.comparison == "difference":
         return h.sign * h.shift, higher
     return math.log(h.threshold), higher

@@ -67,7 +67,8 @@ def run_sensitivity(model: CheckModel, settings: CheckSettings) -> SensitivityRe
     q = model.target()
     truth = model.true_value(q, truths)
     prior_variance = float(np.asarray(model.prior().variance(q))[0])
-    rows, frames = [], []
+    rows: list[dict[str, Any]] = []
+    frames: list[pd.DataFrame] = []
     looks = model.design.looks
     for k in range(looks.count):
         post = model.posterior(data, k)

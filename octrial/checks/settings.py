@@ -1,7 +1,8 @@
 """The settings of ``octrial check``, checked once.
 
 Every setting is validated in :class:`CheckSettings` and reported the same way as any
-other bad input (:class:`~octrial.errors.InputError`, option names as keys).
+other bad input (a :class:`~octrial.errors.SettingsError`, the settings' names as keys; the
+command line names its options instead).
 """
 
 from __future__ import annotations
@@ -12,19 +13,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from octrial.design.reader import suggest
-from octrial.errors import InputError, Problem, show
+from octrial.errors import Problem, SettingsError, show
 
 CHECKS = ("prior-predictive", "sbc", "sensitivity", "tail-accuracy", "conflict",
           "design-prior")
 """The checks ``octrial check`` runs, in order."""
 
 SEED_BITS = 63
-
-OPTIONS = {"simulations": "--simulations", "bins": "--bins", "draws": "--draws",
-           "alpha": "--alpha", "seed": "--seed", "outcome_range": "--outcome-range",
-           "plausible": "--plausible", "checks": "--only"}
-"""The command-line option of each setting, named in messages (``band`` and ``repeats``
-have none: they keep their own names)."""
 
 STREAMS = {"sbc": 1, "sensitivity": 2, "tail-accuracy": 3, "sbc-null": 4}
 """Each check's random stream: ``SeedSequence(seed, spawn_key=(stream,))``."""
@@ -75,13 +70,13 @@ class CheckSettings:
 
     def __post_init__(self) -> None:
         def ordered(pair: tuple[float, float] | None) -> bool:
-            return pair is None or (len(pair) == 2 and np.isfinite(pair).all()
-                                    and pair[0] < pair[1])
+            return pair is None or bool(len(pair) == 2 and np.isfinite(pair).all()
+                                        and pair[0] < pair[1])
 
         checks = [
             ("simulations", self.simulations >= 20, "a whole number >= 20"),
             ("bins", 2 <= self.bins <= self.simulations // 5,
-             "a whole number from 2 to --simulations / 5 (at least 5 studies per bin)"),
+             "a whole number from 2 to `simulations` / 5 (at least 5 studies per bin)"),
             ("draws", self.draws >= 1, "a whole number >= 1"),
             ("alpha", 0 < self.alpha < 1, "a level in (0, 1)"),
             ("band", 0 < self.band < 1, "a level in (0, 1)"),
@@ -91,11 +86,11 @@ class CheckSettings:
             ("outcome_range", ordered(self.outcome_range), "LOW:HIGH with LOW < HIGH"),
             ("plausible", ordered(self.plausible), "LOW:HIGH with LOW < HIGH"),
         ]
-        problems = [Problem(OPTIONS.get(name, name), expected, _found(getattr(self, name)))
+        problems = [Problem(name, expected, _found(getattr(self, name)))
                     for name, ok, expected in checks if not ok]
         problems += _checks_problems(self.checks)
         if problems:
-            raise InputError("octrial check", problems)
+            raise SettingsError("octrial check", problems)
 
     def with_seed(self, design_seed: int | None) -> CheckSettings:
         """These settings with the seed settled: this one, else the design's, else drawn."""
@@ -116,16 +111,19 @@ def _found(value: object) -> str:
 
 
 def _checks_problems(names: tuple[str, ...]) -> list[Problem]:
-    """What is wrong with the checks asked for (``--only``), in plain words."""
+    """What is wrong with the checks asked for (``checks``), in plain words."""
     expected = ("one or more of " + ", ".join(CHECKS[:-1]) + f" and {CHECKS[-1]}, "
                 "separated by commas")
     if not names:
-        return [Problem(OPTIONS["checks"], expected, "no check")]
-    return [Problem(OPTIONS["checks"], expected, show(name), suggest(name, CHECKS))
+        return [Problem("checks", expected, "no check")]
+    return [Problem("checks", expected, show(name), suggest(name, CHECKS))
             for name in names if name not in CHECKS]
 
 
-def generator(seed: int, stream: str) -> np.random.Generator:
-    """The random generator of one check (see :data:`STREAMS`)."""
+def generator(seed: int | None, stream: str) -> np.random.Generator:
+    """The random generator of one check (see :data:`STREAMS`), from the settled seed
+    (:meth:`CheckSettings.with_seed`; without one the checks could not be repeated)."""
+    if seed is None:
+        raise ValueError("a check's random stream needs a settled seed (with_seed)")
     sequence = np.random.SeedSequence(seed, spawn_key=(STREAMS[stream],))
     return np.random.Generator(np.random.PCG64(sequence))

@@ -81,14 +81,12 @@ def run_tail_accuracy(model: CheckModel, settings: CheckSettings) -> dict[str, A
                          "mc_se_observed": observed, "mc_se_formula": asymptotic,
                          "ratio": ratio, "ratio_low": low, "ratio_high": high,
                          "mc_se_over_posterior_sd": observed / sd})
-    needed = []
-    median_need = None
-    for i, level in enumerate(LEVELS):
-        need = level * (1 - level) / (density[i] * TARGET * sd) ** 2
-        if level == 0.5:
-            median_need = need
-        needed.append({"quantile": level, "exact": exact[i], "density": density[i],
-                       "draws_for_se_1pct_of_sd": math.ceil(need)})
+    needs = [level * (1 - level) / (density[i] * TARGET * sd) ** 2
+             for i, level in enumerate(LEVELS)]
+    median_need = needs[LEVELS.index(0.5)]
+    needed: list[dict[str, Any]] = [
+        {"quantile": level, "exact": exact[i], "density": density[i],
+         "draws_for_se_1pct_of_sd": math.ceil(needs[i])} for i, level in enumerate(LEVELS)]
     for row in needed:
         row["relative_to_median"] = row["draws_for_se_1pct_of_sd"] / median_need
     n = model.design.looks.per_arm[-1]

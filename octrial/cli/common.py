@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import re
 import warnings
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 from typing import Any
 
@@ -22,7 +23,7 @@ import click
 from octrial.design.load import load_design
 from octrial.design.model import Design
 from octrial.engines import MonteCarloSettings
-from octrial.errors import InputError
+from octrial.errors import InputError, SettingsError
 from octrial.execution import Execution
 from octrial.execution.backends import BACKENDS
 from octrial.execution.checkpoints import PARTIAL, CheckpointWarning
@@ -31,19 +32,57 @@ EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
 
 
+OPTION_OF_SETTING = {"checks": "only"}
+"""Library settings whose command-line option has another name (``octrial check --only``
+sets ``checks``); every other setting is the option of the same name."""
+
+_SETTING_MENTION = re.compile(r"`([a-z_]+)`")
+
+
 def reports_input_errors(command: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn :class:`~octrial.errors.InputError` into messages on stderr and exit code 2."""
+    """Turn :class:`~octrial.errors.InputError` into messages on stderr and exit code 2;
+    a :class:`~octrial.errors.SettingsError` names the command's options, not the
+    library's settings."""
 
     @functools.wraps(command)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         try:
             return command(*args, **kwargs)
         except InputError as exc:
+            if isinstance(exc, SettingsError):
+                exc = in_option_names(exc, _options(click.get_current_context(silent=True)))
             for line in str(exc).splitlines():
                 click.echo(f"error: {line}", err=True)
             raise SystemExit(EXIT_BAD_INPUT) from None
 
     return wrapper
+
+
+def in_option_names(error: SettingsError, options: dict[str, str]) -> InputError:
+    """``error`` with each setting (a key, or a name in backquotes in the wording) replaced
+    by its option in ``options`` (setting name to option, e.g. ``null_range`` to
+    ``--null-range``); a setting without an option keeps its name."""
+
+    def name(setting: str) -> str:
+        return options.get(setting, setting)
+
+    def words(text: str) -> str:
+        return _SETTING_MENTION.sub(lambda found: name(found.group(1)), text)
+
+    return InputError(error.source, [
+        replace(p, key=name(p.key), expected=words(p.expected), got=words(p.got),
+                hint=words(p.hint)) for p in error.problems])
+
+
+def _options(context: click.Context | None) -> dict[str, str]:
+    """Setting name to option (``--null-range``) for the command being run."""
+    if context is None:
+        return {}
+    flags = {param.name: max(param.opts, key=len) for param in context.command.params
+             if isinstance(param, click.Option) and param.name}
+    named = {setting: flags[option] for setting, option in OPTION_OF_SETTING.items()
+             if option in flags}
+    return {**flags, **named}
 
 
 def read_design(path: str) -> Design:
@@ -74,7 +113,8 @@ class SimulationOptions:
 
     def settings(self, **given: Any) -> MonteCarloSettings:
         """Simulation settings with the target standard error and cap (and ``given``)."""
-        cap = {} if self.max_replicates is None else {"max_replicates": self.max_replicates}
+        cap: dict[str, Any] = ({} if self.max_replicates is None
+                               else {"max_replicates": self.max_replicates})
         return MonteCarloSettings(target_se=self.target_se, **cap, **given)
 
     def execution(self, folder: Path) -> Execution:

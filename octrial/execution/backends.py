@@ -12,7 +12,7 @@ import logging
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
-from octrial.errors import InputError, Problem
+from octrial.errors import Problem, SettingsError
 
 BACKENDS = ("joblib", "dask")
 
@@ -23,15 +23,15 @@ def dask_client(scheduler: str | None, workers: int) -> contextlib.AbstractConte
 
     Raises
     ------
-    InputError
+    SettingsError
         When dask.distributed is not installed (the optional ``dask`` extra).
     """
     try:
         from dask.distributed import Client, LocalCluster
     except ImportError:
-        raise InputError("--backend dask", [Problem(
-            "", "dask.distributed installed (the optional extra: pip install 'octrial[dask]')",
-            "no module dask.distributed")]) from None
+        raise SettingsError("execution", [Problem(
+            "backend", "dask.distributed installed for 'dask' (the optional extra: "
+            "pip install 'octrial[dask]')", "no module dask.distributed")]) from None
     if scheduler:
         return Client(scheduler)
 

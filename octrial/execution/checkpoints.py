@@ -111,7 +111,8 @@ class CheckpointStore:
         """Save one task's arrays with its identity (see :meth:`_write`)."""
         buffer = io.BytesIO()
         label = json.dumps(self.identity(index, task), sort_keys=True, default=str)
-        np.savez(buffer, **arrays, **{IDENTITY: np.array(label)})
+        # numpy's stub lets **kwds reach the flag allow_pickle; every key here names an array
+        np.savez(buffer, **arrays, **{IDENTITY: np.array(label)})  # type: ignore[arg-type]
         self._write(self._path(index), buffer.getvalue())
 
     def _write(self, path: Path, data: str | bytes) -> None:

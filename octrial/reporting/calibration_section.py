@@ -12,7 +12,7 @@ no table shows is listed in words under "Further entries", never as a Python rep
 from __future__ import annotations
 
 import re
-from typing import Any
+from typing import Any, TypeGuard
 
 import pandas as pd
 
@@ -115,7 +115,7 @@ def _point(point: Any) -> str:
     return _words(point)
 
 
-def _numeric(value: Any) -> bool:
+def _numeric(value: Any) -> TypeGuard[float]:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
@@ -144,7 +144,7 @@ def _search_table(record: dict[str, Any]) -> Table | None:
     if isinstance(search, dict):
         words = {"optimal": "optimal (smallest expected N under the null)",
                  "minimax": "minimax (smallest maximum N)"}
-        criterion = search.get("criterion")
+        criterion = str(search.get("criterion"))
         pairs.append(("stage search", f"{words.get(criterion, criterion)}, rule in "
                       f"{search.get('rule') or 'the design’s terms'}, "
                       f"{search.get('stages') or 'the design’s'} looks"))

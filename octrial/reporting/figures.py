@@ -16,22 +16,25 @@ import base64
 import io
 from collections.abc import Callable
 from dataclasses import dataclass, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from matplotlib import cycler
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure as MplFigure
+from matplotlib.rcsetup import cycler
 
-from octrial.reporting import wording
+import octrial.reporting.wording as wording
 from octrial.reporting.formats import probability, truth
+
+if TYPE_CHECKING:
+    from matplotlib.typing import RcKeyType
 
 WIDTH = 6.6
 """Figure width in inches: the printed text width of an A4 or Letter page."""
 
-STYLE = {
+STYLE: dict[RcKeyType, Any] = {
     "font.size": 8.5, "axes.titlesize": 9, "axes.labelsize": 8.5, "legend.fontsize": 7.5,
     "xtick.labelsize": 8, "ytick.labelsize": 8, "axes.spines.top": False,
     "axes.spines.right": False, "axes.grid": True, "grid.color": "0.88",
@@ -202,8 +205,11 @@ def fit_text(fig: MplFigure) -> None:
     narrower at a time, and the layout redone until every text fits.
     """
     for _ in range(FIT_ROUNDS):
-        fig.canvas.draw()
-        renderer = fig.canvas.get_renderer()
+        canvas = fig.canvas
+        if not isinstance(canvas, FigureCanvasAgg):  # text extents need Agg's renderer
+            raise TypeError("fit_text needs a figure on an Agg canvas (as _new makes)")
+        canvas.draw()
+        renderer = canvas.get_renderer()
         wrapped = False
         for ax in fig.axes:
             spec = ax.get_subplotspec()
@@ -530,7 +536,7 @@ def prior_predictive(data: Any, facts: PlotFacts) -> Figure | None:
 
 def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
     """Simulation-based calibration histograms (checks.json written by ``octrial check``)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     sbc = _check_record(data, "sbc")
     entries = sbc.get("quantities") or []
@@ -552,7 +558,7 @@ def sbc_histograms(data: Any, facts: PlotFacts) -> Figure | None:
 
 def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
     """Posterior z-score against shrinkage per look (sensitivity.csv and checks.json)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     record = _check_record(data, "sensitivity")
     points = getattr(data, "sensitivity", None)
@@ -571,7 +577,7 @@ def sensitivity_scatter(data: Any, facts: PlotFacts) -> Figure | None:
 
 def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
     """Monte Carlo error of posterior quantiles against the number of draws (checks.json)."""
-    from octrial.reporting import check_figures
+    import octrial.reporting.check_figures as check_figures
 
     record = _check_record(data, "tail_accuracy")
     if "table" not in record:

@@ -10,6 +10,7 @@ digits.
 from __future__ import annotations
 
 import math
+from typing import TypeGuard
 
 PROBABILITY_DECIMALS = 4
 SIZE_DECIMALS = 1
@@ -21,6 +22,11 @@ def _missing(value: object) -> bool:
     return value is None or (isinstance(value, float) and math.isnan(value))
 
 
+def _present(value: float | None) -> TypeGuard[float]:
+    """Whether ``value`` is a number to show (not None, not NaN)."""
+    return not _missing(value)
+
+
 def probability(value: float | None) -> str:
     """A probability with four decimals, ``<0.0001``/``>0.9999`` near the ends.
 
@@ -29,7 +35,7 @@ def probability(value: float | None) -> str:
     >>> probability(0.046692), probability(2e-8), probability(0.0), probability(1 - 1e-9)
     ('0.0467', '<0.0001', '0', '>0.9999')
     """
-    if _missing(value):
+    if not _present(value):
         return MISSING
     v = float(value)
     if v == 0.0 or v == 1.0:
@@ -43,17 +49,17 @@ def probability(value: float | None) -> str:
 
 def size(value: float | None) -> str:
     """A sample size (expected value or sd) with one decimal."""
-    return MISSING if _missing(value) else f"{float(value):.{SIZE_DECIMALS}f}"
+    return f"{float(value):.{SIZE_DECIMALS}f}" if _present(value) else MISSING
 
 
 def count(value: float | None) -> str:
     """A whole number."""
-    return MISSING if _missing(value) else f"{int(value)}"
+    return f"{int(value)}" if _present(value) else MISSING
 
 
 def truth(value: float | None) -> str:
     """A true parameter value or threshold: up to six significant digits."""
-    if _missing(value):
+    if not _present(value):
         return MISSING
     text = f"{float(value):.6g}"
     return "0" if text == "-0" else text
@@ -61,7 +67,7 @@ def truth(value: float | None) -> str:
 
 def fraction(value: float | None) -> str:
     """A fraction such as the information fraction: three significant digits."""
-    return MISSING if _missing(value) else f"{float(value):.3g}"
+    return f"{float(value):.3g}" if _present(value) else MISSING
 
 
 def number(value: object) -> str:

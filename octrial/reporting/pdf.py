@@ -14,7 +14,7 @@ import subprocess
 import tempfile
 from pathlib import Path
 
-from octrial.errors import single
+from octrial.errors import Problem, SettingsError
 from octrial.output import _default_mode
 
 CANDIDATES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
@@ -43,13 +43,14 @@ def find_chromium() -> str | None:
 
 
 def require_chromium() -> str:
-    """The Chromium executable, or an :class:`~octrial.errors.InputError` saying how to
-    install one."""
+    """The Chromium executable, or a :class:`~octrial.errors.SettingsError` (on the
+    setting ``pdf``) saying how to install one."""
     path = find_chromium()
     if path is None:
-        raise single("--pdf", "", "headless Chromium to print the PDF", "no Chromium found",
-                     "install it (Debian/Ubuntu: apt-get install chromium) or set "
-                     "OCTRIAL_CHROMIUM to its path; or leave out --pdf")
+        raise SettingsError("report", [Problem(
+            "pdf", "headless Chromium to print the PDF", "no Chromium found",
+            "install it (Debian/Ubuntu: apt-get install chromium) or set OCTRIAL_CHROMIUM "
+            "to its path; or leave out `pdf`")])
     return path
 
 

@@ -16,10 +16,11 @@ from typing import Any
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 from markupsafe import Markup, escape
 
+import octrial.reporting.precision as precision
+import octrial.reporting.wording as wording
 from octrial._version import __version__
 from octrial.caution import CAUTION
 from octrial.provenance import display_command, now
-from octrial.reporting import precision, wording
 from octrial.reporting.figures import Figure, build_figures
 from octrial.reporting.formats import probability, truth
 from octrial.reporting.tables import Tables, build_tables

@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.reporting import wording
+import octrial.reporting.wording as wording
 from octrial.reporting.formats import FORMATS, number
 from octrial.rules.boundaries import BEYOND, beyond_note
 
@@ -306,7 +306,7 @@ def simulated(data: Any) -> bool:
 
 
 def _classes(data: Any, r: pd.Series) -> tuple[str, ...]:
-    classes = ("null",) if bool(r["is_null"]) else ()
+    classes: tuple[str, ...] = ("null",) if bool(r["is_null"]) else ()
     t1 = data.type1
     if t1 is not None and int(r["scenario"]) == int(t1["scenario"]):
         classes += ("worst",)

@@ -114,8 +114,9 @@ def look_rules(design: Design) -> list[dict[str, Any]]:
             "per_arm": " / ".join(str(v) for v in looks.per_arm[k]),
             "information": looks.information[k],
         }
-        if looks.uses_counts:
-            e, f = looks.efficacy_count[k], looks.futility_count[k]
+        if looks.efficacy_count is not None:  # a rule stated in counts (Looks.uses_counts)
+            e = looks.efficacy_count[k]
+            f = None if looks.futility_count is None else looks.futility_count[k]
             ge, le = ("≥", "≤") if design.hypothesis.better == "higher" else ("≤", "≥")
             counted = statistic(design)
             row["efficacy"] = "–" if e is None else f"{counted} {ge} {e}"
@@ -221,7 +222,8 @@ def sample_size_range(design: Design, boundaries: pd.DataFrame | None) -> tuple[
                 return looks.n[k], looks.n[-1]
             continue
         stops = (looks.efficacy[k], looks.futility[k], looks.futility_predictive[k])
-        counts = (looks.efficacy_count[k], looks.futility_count[k]) if looks.uses_counts else ()
+        counts = tuple(bounds[k] for bounds in (looks.efficacy_count, looks.futility_count)
+                       if bounds is not None)
         if any(v is not None for v in (*stops, *counts)):
             return looks.n[k], looks.n[-1]
     return looks.n[-1], looks.n[-1]

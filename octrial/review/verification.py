@@ -165,7 +165,7 @@ def _verify_scenarios(
     if method == "monte-carlo":
         largest = max((c.replicates for c in rows), default=0)
         count = replicates or max(MIN_REPLICATES, REPLICATE_FACTOR * largest)
-        cap = {} if max_replicates is None else {"max_replicates": max_replicates}
+        cap: dict[str, Any] = {} if max_replicates is None else {"max_replicates": max_replicates}
         settings = MonteCarloSettings(replicates=count, seed=seed, target_se=target_se, **cap)
     evaluated = dataclasses.replace(
         design, scenarios=Scenarios(design.scenarios.arms, tuple(truths)),
@@ -223,8 +223,9 @@ def _verify_scenarios(
     simulated = method == "monte-carlo"
     info = {
         "engine": evaluation.info["engine"],
-        "replicates": (settings.replicates if simulated and target_se is None else
-                       None if simulated else 0),
+        # a fixed number per scenario; None when simulated to a target standard error
+        "replicates": (0 if settings is None else
+                       settings.replicates if target_se is None else None),
         "seed": evaluation.info["seed"] if simulated else None,
         "seed_drawn": evaluation.info["seed_drawn"] if simulated else None,
         **({"target_se": target_se, "max_replicates": evaluation.info["max_replicates"],
@@ -256,11 +257,12 @@ def verify(
     scenario claims, :func:`_verify_scenarios`); claims about the whole design (Bayesian
     operating characteristics under the design prior) through
     :mod:`octrial.review.design_claims`, Holm-adjusted together with the others."""
-    from octrial.review import design_claims
+    import octrial.review.design_claims as design_claims
 
     scenario, design_level = design_claims.split(claims)
-    options = dict(alpha=alpha, tolerance=tolerance, replicates=replicates, seed=seed,
-                   target_se=target_se, max_replicates=max_replicates, execution=execution)
+    options: dict[str, Any] = dict(
+        alpha=alpha, tolerance=tolerance, replicates=replicates, seed=seed,
+        target_se=target_se, max_replicates=max_replicates, execution=execution)
     if not design_level:
         return _verify_scenarios(design, claims, **options)
     found = _verify_scenarios(design, scenario, **options) if scenario.claims else None
