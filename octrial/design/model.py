@@ -10,6 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+from octrial.conduct.model import Conduct
+
 METHODS = ("auto", "exact", "monte-carlo")
 """Values of ``simulation.method``."""
 
@@ -150,6 +152,13 @@ class Looks:
         (reversed when lower is better).
     specs : tuple of (str, ThresholdSpec)
         How each threshold was written, for reports and for writing the design back.
+    trigger : str
+        What each look waits for: ``"complete"`` (``n`` subjects with an observed
+        outcome, the meaning without ``[conduct]``), ``"enrolled"`` (subjects enrolled),
+        ``"events"`` (time-to-event endpoints) or ``"time"`` (calendar time).
+    at : tuple of float
+        The trigger's target at each look (enrolled subjects, events or times); empty for
+        ``"complete"``, where ``n`` is the target.
     """
 
     n: tuple[int, ...]
@@ -160,6 +169,8 @@ class Looks:
     efficacy_count: tuple[int | None, ...] | None = None
     futility_count: tuple[int | None, ...] | None = None
     specs: tuple[tuple[str, ThresholdSpec], ...] = ()
+    trigger: str = "complete"
+    at: tuple[float, ...] = ()
 
     @property
     def count(self) -> int:
@@ -216,6 +227,9 @@ class Design:
     scenarios: Scenarios
     simulation: Simulation
     source: Source = field(compare=False, repr=False, default=Source("", "", ""))
+    conduct: Conduct | None = None
+    """How the study runs in calendar time (``[conduct]``); ``None``: outcomes known at
+    enrolment, nobody lost."""
 
     @property
     def family(self) -> Any:
