@@ -260,3 +260,20 @@ def test_default_sampler_draws_from_the_increment_distribution() -> None:
     from scipy import stats
 
     assert stats.kstest(draws, stats.gamma(10, scale=2.0).cdf).pvalue > 1e-3
+
+
+def test_toy_family_without_workflow_checks_is_refused_plainly(
+        toy_family: ToyExponentialFamily, tmp_path: Any) -> None:
+    # `octrial check` on a family that offers no check model: exit 2 naming the design
+    # file and endpoint.type, not a traceback.
+    from click.testing import CliRunner
+
+    from octrial.cli import main
+
+    path = tmp_path / "toy.toml"
+    path.write_text(TOY_TOML)
+    result = CliRunner().invoke(main, ["check", str(path), "--out", str(tmp_path / "c")])
+    assert result.exit_code == 2, result.output
+    assert "endpoint.type" in result.output and "workflow checks" in result.output
+    assert "workflow checks (binary, count, normal); got 'toy-exponential'" in result.output
+    assert not (tmp_path / "c").exists()
