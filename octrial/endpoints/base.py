@@ -41,14 +41,17 @@ def _from_odds_ratio(c: float, ratio: float) -> float:
     return odds / (1.0 + odds)
 
 
-COMPARISONS: dict[str, tuple[Callable[[float, float], float], float]] = {
+Measure = Callable[[Any, Any], Any]
+"""A function of (treatment, control), or (control, value), on floats or arrays alike."""
+
+COMPARISONS: dict[str, tuple[Measure, float]] = {
     "difference": (lambda t, c: t - c, 0.0),
     "ratio": (lambda t, c: t / c, 1.0),
     "odds-ratio": (_odds_ratio, 1.0),
 }
 """Two-arm effect measures: the measure of (treatment, control) and its no-effect value."""
 
-SCENARIO_AXES: dict[str, tuple[str, Callable[[float, float], float]]] = {
+SCENARIO_AXES: dict[str, tuple[str, Measure]] = {
     "difference": ("effect", lambda c, e: c + e),
     "ratio": ("ratio", lambda c, r: c * r),
     "odds-ratio": ("odds_ratio", _from_odds_ratio),
