@@ -114,7 +114,7 @@ class ScenarioTask:
         else:
             wrong = tally_problems(arrays, self.design.looks.count,
                                    at_most=settings.max_replicates)
-            if np.shape(arrays.get("target_met")) != ():
+            if "target_met" not in arrays or np.shape(arrays["target_met"]) != ():
                 wrong.append("no target_met")
             r = int(arrays["replicates"]) if not wrong else 0
             if r and r % settings.batch_size and r != settings.max_replicates:
@@ -143,28 +143,32 @@ def make_simulator(task: ScenarioTask) -> Simulator:
     level = design.simulation.interval_level
     if task.plan is not None:
         return LatticeSimulator(design, task.plan, task.truth, task.estimates, level)
-    return design.family.simulator(design, task.truth, level)
+    simulator: Simulator = design.family.simulator(design, task.truth, level)
+    return simulator
 
 
 def simulate_scenario(task: ScenarioTask) -> dict[str, np.ndarray]:
     """Simulate one scenario batch by batch (runs in a worker)."""
     settings = task.settings
+    seed = settings.seed
+    assert seed is not None  # the engine settles the seed before any task runs
     simulator = make_simulator(task)
     tally: Tally | None = None
     batch = 0
     while True:
         done = 0 if tally is None else tally.replicates
-        if settings.target_se is None:
+        if settings.replicates is not None and settings.target_se is None:
             size = min(settings.batch_size, settings.replicates - done)
         else:
             size = min(settings.batch_size, settings.max_replicates - done)
         if size <= 0:
             break
-        part = simulator.simulate(batch_generator(settings.seed, task.index, batch), size)
+        part = simulator.simulate(batch_generator(seed, task.index, batch), size)
         tally = part if tally is None else tally + part
         batch += 1
         if settings.target_se is not None and adjusted_se(tally) <= settings.target_se:
             break
+    assert tally is not None  # every scenario simulates at least one study
     arrays = tally.to_arrays()
     if settings.target_se is not None:
         arrays["target_met"] = np.array(adjusted_se(tally) <= settings.target_se)
@@ -181,7 +185,8 @@ class MonteCarloEngine:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
         if isinstance(design.family, LatticeFamily):
             return None
-        return design.family.simulation_unsupported(design)
+        reason: str | None = design.family.simulation_unsupported(design)
+        return reason
 
     @staticmethod
     def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
