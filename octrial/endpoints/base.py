@@ -406,8 +406,9 @@ class LatticeFamily(Family):
         """
 
     @abstractmethod
-    def increment_pmf(self, design: Any, truth: float, n: int, size: int) -> np.ndarray:
-        """Pr(statistic of ``n`` new subjects = 0 .. size-1) at the true value ``truth``."""
+    def increment_pmf(self, design: Any, truth: Any, n: int, size: int) -> np.ndarray:
+        """Pr(statistic of ``n`` new subjects = 0 .. size-1) at the true value ``truth`` (a
+        float; families that broadcast take an array of true values, one row each)."""
 
     @abstractmethod
     def posterior(self, design: Any, arm: int, n: int, stats: np.ndarray) -> Any:
