@@ -212,7 +212,8 @@ class Family(ABC):
     # -- hypotheses ------------------------------------------------------------------
     def measure(self, comparison: str, treatment: float, control: float) -> float:
         """The two-arm effect measure ('difference', 'ratio', 'odds-ratio')."""
-        return COMPARISONS[comparison][0](treatment, control)
+        value: float = COMPARISONS[comparison][0](treatment, control)
+        return value
 
     def effect(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
         """The effect that the hypothesis is about, in the better direction.
