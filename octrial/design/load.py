@@ -6,6 +6,7 @@ one :class:`~octrial.errors.DesignError`; nothing downstream re-validates.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import itertools
 import re
@@ -14,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import octrial.design.limits as limits
+from octrial.conduct.reader import read_conduct
 from octrial.design.model import (
     CONTROL,
     METHODS,
@@ -33,7 +35,7 @@ from octrial.errors import DesignError, Problem
 
 SCHEMA = 1
 TOP_KEYS = ("schema", "name", "title", "endpoint", "hypothesis", "arms", "looks", "scenarios",
-            "simulation")
+            "simulation", "conduct")
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
 NAME_LENGTH = 100
 """Longest design name: it names the output folder, and file systems limit a folder name
@@ -102,17 +104,25 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     if scenarios_table is not None and family is not None:
         scenarios = read_scenarios(scenarios_table, family, two_arm)
     simulation = _read_simulation(top)
+    conduct = read_conduct(top)
+    if family is not None and top.has("conduct") and not family.event_driven:
+        top.fail("conduct", "no [conduct] table: calendar-time conduct (accrual, outcome lag, "
+                 f"dropout) is built for time-to-event endpoints only so far, not for "
+                 f"{family.name} endpoints", Phrase("a [conduct] table"))
+    if family is not None and family.event_driven and not top.has("conduct"):
+        top.fail("conduct", f"a [conduct] table ({family.name} studies run in calendar "
+                 "time: enrolment_rate, max_enrolment)", Phrase("nothing (the table is missing)"))
     if family is not None:
         family.check_design({"endpoint": endpoint, "hypothesis": hypothesis, "arms": arms,
-                             "looks": looks, "simulation": simulation, "two_arm": two_arm},
-                            problems)
+                             "looks": looks, "simulation": simulation, "two_arm": two_arm,
+                             "conduct": conduct, "scenarios": scenarios}, problems)
 
     if problems:
         raise DesignError(source.path, problems)
     # every required table was read: a missing one is a problem above
     assert hypothesis is not None and looks is not None and scenarios is not None
     design = Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios,
-                    simulation, source)
+                    simulation, source, conduct)
     # only a design valid in every other respect can be sized
     too_big = limits.problems(design)
     if too_big:
@@ -152,10 +162,8 @@ def _read_hypothesis(
                             expected="a number >= 0 (the clinically relevant effect beyond "
                                      "the null boundary, for Bayesian power)")
     if not two_arm:
-        table.allow("benchmark", "relevant_effect")
-        benchmark = table.number("benchmark")
-        if benchmark is not None and (problem := family.true_value_problem(benchmark)):
-            table.fail("benchmark", problem, benchmark)
+        table.allow(*family.benchmark_keys, "relevant_effect")
+        benchmark = family.read_benchmark(table)
         return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)
     table.allow("comparison", "margin", "kind", "relevant_effect",
                 *(("prior", "design_prior") if on_effect else ()))
@@ -252,17 +260,31 @@ def _read_looks(
     table = top.table("looks")
     if table is None:
         return None
-    table.allow("n", "efficacy", "futility", "futility_predictive", "efficacy_count",
+    size = "events" if family is not None and family.event_driven else "n"
+    table.allow(size, "efficacy", "futility", "futility_predictive", "efficacy_count",
                 "futility_count")
-    read = table.numbers("n", integer=True, check=lambda v: v > 0,
+    read = table.numbers(size, integer=True, check=lambda v: v > 0,
                          expected="a whole number > 0")
     if read is None or any(v is None for v in read):
         return None
     n = [int(v) for v in read if v is not None]
     if any(b <= a for a, b in itertools.pairwise(n)):
-        table.fail("n", "strictly increasing cumulative sample sizes", n)
+        table.fail(size, "strictly increasing cumulative "
+                   + ("event counts" if size == "events" else "sample sizes"), n)
         return None
-    per_arm = _split(table, n, arms) if arms else None
+    if size == "events":
+        # events are counted over all arms; per arm, the share allocation gives when
+        # hazards are equal (for the information fraction and reports only)
+        weights = [a.allocation for a in arms]
+        per_arm = tuple(tuple(round(n_k * w / sum(weights)) for w in weights)
+                        for n_k in n) if arms else None
+        if table.has("efficacy_count") or table.has("futility_count"):
+            table.fail("efficacy_count" if table.has("efficacy_count") else "futility_count",
+                       "posterior probability thresholds (efficacy, futility) for looks at "
+                       "event counts", Phrase("a rule stated in counts"))
+            return None
+    else:
+        per_arm = _split(table, n, arms) if arms else None
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):
@@ -286,8 +308,11 @@ def _read_looks(
                        f"({e:.6g}) at look {k + 1}", Phrase(f"{f:.6g}"))
     if per_arm is None:
         return None
-    return Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
-                 tuple(values["futility_predictive"]), specs=tuple(specs))
+    looks = Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
+                  tuple(values["futility_predictive"]), specs=tuple(specs))
+    if size == "events":
+        looks = dataclasses.replace(looks, trigger="events", at=tuple(float(v) for v in n))
+    return looks
 
 
 def _read_count_rule(

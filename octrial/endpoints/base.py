@@ -97,6 +97,9 @@ class Family(ABC):
     """Whether the prior predictive check needs a range of plausible outcomes from the user
     (an unbounded outcome: ``octrial check --outcome-range``); bounded outcomes have their
     own."""
+    event_driven: ClassVar[bool] = False
+    """Whether studies run in calendar time with looks at event counts (``[looks] events``
+    and a required ``[conduct]`` table: time-to-event endpoints)."""
     statistic: ClassVar[str] = "sample mean"
     """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
 
@@ -176,6 +179,17 @@ class Family(ABC):
         from octrial.endpoints.schema import read_distribution
 
         return read_distribution(table, self.prior_schema)[1]
+
+    benchmark_keys: ClassVar[tuple[str, ...]] = ("benchmark",)
+    """The ``[hypothesis]`` keys that state a one-arm benchmark."""
+
+    def read_benchmark(self, table: Table) -> float | None:
+        """One arm: the benchmark (the null boundary of the parameter) from
+        ``[hypothesis]``; by default the key ``benchmark``."""
+        benchmark = table.number("benchmark")
+        if benchmark is not None and (problem := self.true_value_problem(benchmark)):
+            table.fail("benchmark", problem, benchmark)
+        return benchmark
 
     @abstractmethod
     def true_value_problem(self, value: float) -> str | None:

@@ -39,6 +39,7 @@ from octrial.execution.checkpoints import SEED_BITS, CheckpointStore, kept_seed
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule, serving
 from octrial.simulation.base import Simulator, Tally, tally_problems
+from octrial.simulation.calendar import calendar_columns
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
 
 KERNELS = ("auto", "table", "general")
@@ -282,6 +283,9 @@ def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[st
         "studies_clipped": int(sum(t.clipped for t in tallies)),
     }
     extra: dict[str, np.ndarray] = {}
+    if tallies and tallies[0].calendar is not None:
+        extra.update(calendar_columns(design, np.array([t.calendar for t in tallies]),
+                                      replicates))
     if settings.target_se is not None:
         met = np.array([bool(res["target_met"]) for res in results])
         extra["target_se_met"] = met
