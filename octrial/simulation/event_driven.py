@@ -131,6 +131,44 @@ def enrolment_times(unit: np.ndarray, kind: int, rates: np.ndarray, starts: np.n
         out[i] = starts[p] + (total - at_start) / rates[p]
 
 
+@numba.njit(cache=True, inline="always")
+def follow_up(unit_event: float, unit_loss: float, hazard: float,
+              dropout: float) -> tuple[float, bool]:
+    """One subject's follow-up from standard exponentials: (time to the event or the loss,
+    whichever comes first; whether it is the event). No loss when ``dropout`` is 0."""
+    t_event = unit_event / hazard
+    t_loss = unit_loss / dropout if dropout > 0.0 else np.inf
+    if t_event <= t_loss:
+        return t_event, True
+    return t_loss, False
+
+
+@numba.njit(cache=True)
+def arm_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
+                   arm_of: np.ndarray, tau: float, events: np.ndarray,
+                   exposure: np.ndarray) -> int:
+    """Each arm's events and exposure at the analysis at calendar time ``tau`` (written
+    into ``events`` and ``exposure``; administrative censoring at ``tau``); returns the
+    subjects enrolled by then."""
+    events[:] = 0.0
+    exposure[:] = 0.0
+    entered = 0
+    for i in range(enrolled.size):
+        if enrolled[i] > tau:
+            continue
+        entered += 1
+        j = arm_of[i]
+        # compared in calendar time, as the event times were sorted, so that the event
+        # at tau itself counts
+        if enrolled[i] + follow[i] <= tau:
+            exposure[j] += follow[i]
+            if seen[i]:
+                events[j] += 1.0
+        else:
+            exposure[j] += tau - enrolled[i]
+    return entered
+
+
 @numba.njit(cache=True)
 def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: np.ndarray,
                b: np.ndarray, claim: float, lower: bool) -> float:
@@ -202,13 +240,11 @@ def event_driven_studies(
         for i in range(m):
             j = pattern[i % pattern.size]
             arm_of[i] = j
-            t_event = unit_events[s, i] / hazards[j]
-            t_loss = unit_losses[s, i] / dropout if dropout > 0.0 else np.inf
-            seen[i] = t_event <= t_loss
-            follow[i] = t_event if seen[i] else t_loss
+            follow[i], seen[i] = follow_up(unit_events[s, i], unit_losses[s, i], hazards[j],
+                                           dropout)
             resolved = max(resolved, enrolled[i] + follow[i])
             if seen[i]:
-                event_times[count] = enrolled[i] + t_event
+                event_times[count] = enrolled[i] + follow[i]
                 count += 1
         ordered = np.sort(event_times[:count])
         for k in range(looks):
@@ -218,22 +254,7 @@ def event_driven_studies(
             else:  # the events run out: the analysis when every follow-up has ended
                 tau = resolved
                 final = True
-            events[:] = 0.0
-            exposure[:] = 0.0
-            entered = 0
-            for i in range(m):
-                if enrolled[i] > tau:
-                    continue
-                entered += 1
-                j = arm_of[i]
-                # compared in calendar time, as the event times were sorted, so that the
-                # event at tau itself counts
-                if enrolled[i] + follow[i] <= tau:
-                    exposure[j] += follow[i]
-                    if seen[i]:
-                        events[j] += 1.0
-                else:
-                    exposure[j] += tau - enrolled[i]
+            entered = arm_statistics(enrolled, follow, seen, arm_of, tau, events, exposure)
             benefit = benefit_at(events, exposure, log_w, a, b, claim, lower)
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
