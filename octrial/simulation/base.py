@@ -16,6 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from octrial.simulation.calendar_tally import CalendarTally, calendar_problems
+
 
 @dataclass(frozen=True, eq=False)
 class Tally:
@@ -36,6 +38,9 @@ class Tally:
         true value.
     clipped : int
         Studies whose statistic ran past a truncated lattice (0 for bounded statistics).
+    calendar : CalendarTally or None
+        Duration, enrolment and look-time totals of designs with a ``[conduct]`` table
+        (``None`` without one).
     """
 
     replicates: int
@@ -44,6 +49,7 @@ class Tally:
     error_sums: np.ndarray | None = None
     covered: int | None = None
     clipped: int = 0
+    calendar: CalendarTally | None = None
 
     def __add__(self, other: Tally) -> Tally:
         def both(a, b):
@@ -51,7 +57,8 @@ class Tally:
 
         return Tally(self.replicates + other.replicates, self.efficacy + other.efficacy,
                      self.futility + other.futility, both(self.error_sums, other.error_sums),
-                     both(self.covered, other.covered), self.clipped + other.clipped)
+                     both(self.covered, other.covered), self.clipped + other.clipped,
+                     both(self.calendar, other.calendar))
 
     def probabilities(self) -> np.ndarray:
         """Every estimated probability: per-look efficacy and futility, early stops,
@@ -71,6 +78,8 @@ class Tally:
         if self.error_sums is not None:
             out["error_sums"] = self.error_sums
             out["covered"] = np.array(self.covered)
+        if self.calendar is not None:
+            out |= self.calendar.to_arrays()
         return out
 
     @classmethod
@@ -80,7 +89,8 @@ class Tally:
         return cls(int(arrays["replicates"]), np.asarray(arrays["efficacy"], dtype=np.int64),
                    np.asarray(arrays["futility"], dtype=np.int64),
                    None if sums is None else np.asarray(sums, dtype=float),
-                   None if sums is None else int(arrays["covered"]), int(arrays["clipped"]))
+                   None if sums is None else int(arrays["covered"]), int(arrays["clipped"]),
+                   CalendarTally.from_arrays(arrays))
 
 
 def tally_problems(arrays: dict[str, np.ndarray], looks: int, replicates: int | None = None,
@@ -125,7 +135,7 @@ def tally_problems(arrays: dict[str, np.ndarray], looks: int, replicates: int | 
     sums = arrays.get("error_sums")
     if sums is not None and not (np.all(np.isfinite(sums)) and sums[1] >= 0 and sums[2] >= 0):
         wrong.append("error sums not finite, or negative sums of squares")
-    return wrong
+    return wrong + calendar_problems(arrays, looks, r)
 
 
 class Simulator(ABC):
