@@ -6,6 +6,7 @@ one :class:`~octrial.errors.DesignError`; nothing downstream re-validates.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import itertools
 import re
@@ -14,6 +15,9 @@ from pathlib import Path
 from typing import Any
 
 import octrial.design.limits as limits
+from octrial.conduct.model import Conduct
+from octrial.conduct.reader import check_complete_targets, planned_counts, read_conduct
+from octrial.conduct.timing import allocation_block, arm_counts
 from octrial.design.model import (
     CONTROL,
     METHODS,
@@ -33,7 +37,7 @@ from octrial.errors import DesignError, Problem
 
 SCHEMA = 1
 TOP_KEYS = ("schema", "name", "title", "endpoint", "hypothesis", "arms", "looks", "scenarios",
-            "simulation")
+            "simulation", "conduct")
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
 NAME_LENGTH = 100
 """Longest design name: it names the output folder, and file systems limit a folder name
@@ -43,6 +47,8 @@ MAX_REPLICATES = 10_000_000
 --max-replicates`` allows by default)."""
 INTERIM_ONLY = ("futility", "futility_predictive")
 GRID_POINTS = Simulation.grid_points
+TRIGGERS = {"n": "complete", "enrolled": "enrolled", "time": "time", "events": "events"}
+"""The ``[looks]`` key that sets when each look happens, and its :attr:`Looks.trigger`."""
 
 
 def load_design(path: str | Path) -> Design:
@@ -94,7 +100,8 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
         endpoint, two_arm)
     hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
     arms = _read_arms(arms_table, family, on_effect)
-    looks = _read_looks(top, arms, two_arm, family)
+    conduct = read_conduct(top)
+    looks = _read_looks(top, arms, two_arm, family, conduct)
     if looks is not None and not looks.uses_counts and arms and arms_table is not None:
         _require_priors(top, arms_table, arms, on_effect)
     scenarios_table = top.table("scenarios")
@@ -112,7 +119,7 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     # every required table was read: a missing one is a problem above
     assert hypothesis is not None and looks is not None and scenarios is not None
     design = Design(name, title, endpoint, hypothesis, tuple(arms), looks, scenarios,
-                    simulation, source)
+                    simulation, source, conduct)
     # only a design valid in every other respect can be sized
     too_big = limits.problems(design)
     if too_big:
@@ -248,25 +255,43 @@ def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...]
 
 def _read_looks(
     top: Table, arms: list[Arm], two_arm: bool, family: Family | None,
+    conduct: Conduct | None = None,
 ) -> Looks | None:
     table = top.table("looks")
     if table is None:
         return None
-    table.allow("n", "efficacy", "futility", "futility_predictive", "efficacy_count",
+    table.allow(*TRIGGERS, "efficacy", "futility", "futility_predictive", "efficacy_count",
                 "futility_count")
-    read = table.numbers("n", integer=True, check=lambda v: v > 0,
-                         expected="a whole number > 0")
-    if read is None or any(v is None for v in read):
+    given = [key for key in TRIGGERS if table.has(key)]
+    if len(given) > 1:
+        table.fail(given[1], "one of n, enrolled, time or events (when each look happens)",
+                   Phrase(f"{given[0]} and {given[1]}"))
         return None
-    n = [int(v) for v in read if v is not None]
-    if any(b <= a for a, b in itertools.pairwise(n)):
-        table.fail("n", "strictly increasing cumulative sample sizes", n)
-        return None
-    per_arm = _split(table, n, arms) if arms else None
+    key = given[0] if given else "n"
+    trigger = TRIGGERS[key]
+    if trigger != "complete":
+        timing = _read_trigger(table, key, arms, family, conduct, top.has("conduct"))
+        if timing is None:
+            return None
+        n, per_arm, at = timing
+    else:
+        read = table.numbers("n", integer=True, check=lambda v: v > 0,
+                             expected="a whole number > 0")
+        if read is None or any(v is None for v in read):
+            return None
+        n = [int(v) for v in read if v is not None]
+        if any(b <= a for a, b in itertools.pairwise(n)):
+            table.fail("n", "strictly increasing cumulative sample sizes", n)
+            return None
+        if conduct is not None:
+            check_complete_targets(table, conduct, n)
+        per_arm = _split(table, n, arms) if arms else None
+        at = ()
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):
-        return _read_count_rule(table, n, per_arm, two_arm, family)
+        looks = _read_count_rule(table, n, per_arm, two_arm, family)
+        return None if looks is None else dataclasses.replace(looks, trigger=trigger, at=at)
 
     specs, values = [], {}
     for key in ("efficacy", *INTERIM_ONLY):
@@ -287,7 +312,47 @@ def _read_looks(
     if per_arm is None:
         return None
     return Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
-                 tuple(values["futility_predictive"]), specs=tuple(specs))
+                 tuple(values["futility_predictive"]), specs=tuple(specs), trigger=trigger,
+                 at=at)
+
+
+def _read_trigger(
+    table: Table, key: str, arms: list[Arm], family: Family | None, conduct: Conduct | None,
+    written: bool,
+) -> tuple[list[int], tuple[tuple[int, ...], ...], tuple[float, ...]] | None:
+    """Looks by enrolled subjects, calendar time or events: the targets and each look's
+    planned subjects with an outcome (per arm)."""
+    if key == "events" and family is not None and not family.event_driven:
+        table.fail("events", "n, enrolled or time (looks by events need a time-to-event "
+                   "endpoint)", Phrase(f"a {family.name} endpoint"))
+        return None
+    if conduct is None:
+        if not written:  # a [conduct] table with problems has them recorded already
+            table.fail(key, "a [conduct] table with the accrual (looks by enrolled "
+                       "subjects, events or calendar time happen in calendar time)",
+                       Phrase("no [conduct] table"))
+        return None
+    whole = key != "time"
+    read = table.numbers(key, integer=whole, check=lambda v: v > 0,
+                         expected="a whole number > 0" if whole else "a time > 0")
+    if read is None or any(v is None for v in read):
+        return None
+    at = tuple(float(v) for v in read if v is not None)
+    if any(b <= a for a, b in itertools.pairwise(at)):
+        table.fail(key, "strictly increasing targets", list(at))
+        return None
+    if not arms:
+        return None
+    weights = [a.allocation for a in arms]
+    if key == "events":
+        # the family reads events itself; the plan here only sizes the final analysis
+        full = tuple(int(v) for v in arm_counts(conduct.max_enrolment,
+                                                allocation_block(weights)))
+        return [int(v) for v in at], (full,) * len(at), at
+    complete = planned_counts(table, conduct, TRIGGERS[key], at, weights)
+    if complete is None:
+        return None
+    return [sum(c) for c in complete], complete, at
 
 
 def _read_count_rule(

@@ -131,6 +131,8 @@ class Family(ABC):
         and without borrowing; ``None`` when the family's priors have no such check."""
         return None
 
+    event_driven: ClassVar[bool] = False
+    """Whether looks may be triggered by events (``looks.events``; time-to-event)."""
     draws_design_prior: ClassVar[bool] = False
     """Whether :meth:`design_prior_draws` is implemented."""
 
