@@ -221,6 +221,12 @@ class MonteCarloEngine:
 
 
 def _kernel(design: Design, wanted: str) -> str:
+    if design.conduct is not None:
+        # calendar time: counts per look vary between studies, so no decision tables
+        if wanted == "table":
+            raise ValueError("a design with [conduct] is simulated study by study (kernel "
+                             "'general'), not with decision tables")
+        wanted = "general"
     if wanted == "auto":
         return "table" if isinstance(design.family, LatticeFamily) else "general"
     if wanted == "table" and not isinstance(design.family, LatticeFamily):
@@ -276,7 +282,7 @@ def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[st
         "scenarios_resumed": resumed,
         "studies_clipped": int(sum(t.clipped for t in tallies)),
     }
-    extra: dict[str, np.ndarray] = {}
+    extra: dict[str, np.ndarray] = calendar_columns(design, tallies)
     if settings.target_se is not None:
         met = np.array([bool(res["target_met"]) for res in results])
         extra["target_se_met"] = met
@@ -285,6 +291,18 @@ def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[st
         info["scenarios_short_of_target"] = [int(i) + 1 for i in np.flatnonzero(~met)]
     return Outcome(efficacy, futility, replicates, "monte-carlo", extra=extra, info=info,
                    estimation=estimation)
+
+
+def calendar_columns(design: Design, tallies: list[Tally]) -> dict[str, np.ndarray]:
+    """The calendar columns of oc.csv (duration, enrolment, analysed subjects, look
+    times; docs/output-files.md), one value per scenario; none without ``[conduct]``."""
+    if design.conduct is None or not tallies or tallies[0].calendar is None:
+        return {}
+    pipeline = design.conduct.analyse_pipeline
+    events = design.looks.trigger == "events" or design.family.event_driven
+    rows = [t.calendar.columns(t.replicates, pipeline, events) for t in tallies
+            if t.calendar is not None]
+    return {name: np.array([row[name] for row in rows]) for name in rows[0]}
 
 
 def replicates_for(se: float, p: float = 0.5) -> int:
