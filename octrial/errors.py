@@ -87,6 +87,13 @@ def single(source: str, key: str, expected: str, got: object, hint: str = "") ->
     return InputError(source, [Problem(key, expected, show(got), hint)])
 
 
+def bad_setting(setting: str, key: str, expected: str, got: object,
+                hint: str = "") -> SettingsError:
+    """Build a :class:`SettingsError` with one problem in the setting ``setting`` (a
+    keyword argument of a library call; the command line names its option instead)."""
+    return SettingsError(setting, [Problem(key, expected, show(got), hint)])
+
+
 def show(value: object) -> str:
     """Render a found value for a message: strings quoted, lists as their items (no
     Python brackets or reprs), long values shortened."""

@@ -12,8 +12,17 @@ import pytest
 
 from octrial.conduct.model import Accrual, Conduct
 from octrial.conduct.timing import allocation_block, arm_counts, look_timing
+from octrial.design.load import load_design
 from octrial.simulation.base import Tally, tally_problems
-from octrial.simulation.calendar_tally import DURATION_BINS, CalendarTally
+from octrial.simulation.calendar import (
+    calendar_columns,
+    calendar_size,
+    duration_edges,
+    record_studies,
+    record_study,
+)
+
+DEMO = "designs/delayed-response.toml"
 
 
 def test_even_accrual_look_times_match_closed_form():
@@ -54,36 +63,51 @@ def test_blocks_match_the_design_split():
     assert np.all(counts.sum(axis=1) == np.arange(11))
 
 
-def _calendar(rng, studies, horizon=50.0):
-    duration = rng.uniform(0, 40, studies)
-    times = np.where(rng.random((studies, 2)) < 0.7, rng.uniform(0, 30, (studies, 2)), np.nan)
-    return CalendarTally.of_studies(horizon, duration, rng.integers(1, 9, studies),
-                                    rng.integers(1, 9, studies), times, reversed_=2)
-
-
-def test_calendar_tally_adds_and_round_trips():
+def test_batch_record_equals_study_by_study():
+    """record_studies (a batch) adds what record_study (one study at a time) adds."""
     rng = np.random.default_rng(1)
-    a, b = _calendar(rng, 300), _calendar(rng, 200)
-    total = a + b
-    assert total.duration_bins.sum() == 500 and total.reversed == 4
-    tally = Tally(500, np.array([100, 100]), np.array([0, 300]), calendar=total)
-    arrays = tally.to_arrays()
-    assert tally_problems(arrays, 2, 500) == []
-    back = Tally.from_arrays(arrays)
-    assert back.calendar is not None
-    assert np.array_equal(back.calendar.duration_bins, total.duration_bins)
-    broken = dict(arrays, calendar_duration_bins=np.zeros(DURATION_BINS, dtype=np.int64))
-    assert tally_problems(broken, 2, 500)
+    design = load_design(DEMO)
+    edges = duration_edges(design)
+    studies, looks = 300, design.looks.count
+    duration = rng.uniform(1, 40, studies)
+    enrolled = rng.integers(1, 160, studies).astype(float)
+    times = np.sort(rng.uniform(0, 30, (studies, looks)), axis=1)
+    stop = rng.integers(0, looks, studies)
+    times[np.arange(looks)[None, :] > stop[:, None]] = np.nan
+    batch = np.zeros(calendar_size(looks))
+    record_studies(batch, edges, duration, enrolled, enrolled, times)
+    one = np.zeros(calendar_size(looks))
+    for s_ in range(studies):
+        for k in range(stop[s_] + 1):
+            ended = k == stop[s_]
+            record_study(one, edges, k, duration[s_] if ended else times[s_, k],
+                         enrolled[s_], 0.0, ended)
+    # sums agree to rounding (numpy sums pairwise); look counts and histogram exactly
+    assert np.allclose(batch[:6], one[:6], rtol=1e-12)
+    head = calendar_size(0)
+    assert np.array_equal(batch[head:head + 3 * looks:3], one[head:head + 3 * looks:3])
+    assert np.array_equal(batch[calendar_size(looks) - (batch.size - head
+                                                        - 3 * looks):],
+                          one[calendar_size(looks) - (one.size - head - 3 * looks):])
+    tally = Tally(studies, np.array([0, studies]), np.array([0, 0]), calendar=batch)
+    assert tally_problems(tally.to_arrays(), looks, studies) == []
+    back = Tally.from_arrays(tally.to_arrays())
+    assert back.calendar is not None and np.array_equal(back.calendar, batch)
 
 
-def test_duration_quantiles_within_a_bin():
+def test_duration_quantiles_and_means_against_numpy():
     rng = np.random.default_rng(2)
-    duration = rng.uniform(0, 40, 20_000)
-    tally = CalendarTally.of_studies(50.0, duration, duration, duration,
-                                     np.zeros((20_000, 1)))
-    for q in (0.1, 0.5, 0.9):
-        assert tally.duration_quantile(q) == pytest.approx(np.quantile(duration, q),
-                                                           abs=50.0 / DURATION_BINS)
-    columns = tally.columns(20_000, pipeline=False, events=False)
-    assert columns["expected_duration"] == pytest.approx(duration.mean())
-    assert columns["expected_duration_se"] == pytest.approx(duration.std(ddof=1) / 20_000**0.5)
+    design = load_design(DEMO)
+    duration = rng.uniform(5, 40, 20_000)
+    calendar = np.zeros(calendar_size(design.looks.count))
+    record_studies(calendar, duration_edges(design), duration, duration, duration,
+                   np.full((20_000, design.looks.count), np.nan))
+    columns = calendar_columns(design, calendar[None, :], np.array([20_000]))
+    for q in (10, 50, 90):
+        # log-spaced bins: at most 0.7% of the value (simulation/calendar.py)
+        assert columns[f"duration_q{q}"][0] == pytest.approx(np.quantile(duration, q / 100),
+                                                             rel=0.007)
+    assert columns["expected_duration"][0] == pytest.approx(duration.mean())
+    assert columns["expected_duration_se"][0] == pytest.approx(
+        duration.std() / 20_000**0.5)
+    assert "look1_events" not in columns and "prob_efficacy_reversed" in columns

@@ -282,3 +282,22 @@ def test_data_syntax_of_every_endpoint() -> None:
 def test_help_carries_the_caution(runner) -> None:
     for command in ("decide", "verify"):
         assert "regulatory" in runner.invoke(main, [command, "--help"]).output
+
+
+def test_library_errors_name_settings_and_the_command_line_its_options() -> None:
+    """The library knows nothing of the command line (issue 13): ``decide`` names its own
+    keyword arguments; ``octrial decide`` names its options for the same mistakes."""
+    from octrial.errors import SettingsError
+    from octrial.interim.decision import decide
+
+    design = load_design(SINGLE)
+    for kwargs, setting in (({"look": 0, "data": ["treatment=3/15"]}, "look"),
+                            ({"look": 1, "data": ["treatment=3-15"]}, "data"),
+                            ({"look": 1, "data": []}, "data")):
+        with pytest.raises(SettingsError) as caught:
+            decide(design, **kwargs)
+        assert caught.value.source == setting
+        assert "--" not in str(caught.value)
+    result = CliRunner().invoke(main, ["decide", str(SINGLE), "--look", "1"])
+    assert result.exit_code == 2
+    assert "--data: " in result.output and "--subjects" in result.output

@@ -54,6 +54,17 @@ SUITE_DESIGNS: dict[str, dict[str, Any]] = {
         "looks": {"n": [10, 25], "efficacy": [0.995, 0.975], "futility": [0.1]},
         "scenarios": {"treatment": [0.0, 0.4]},
     },
+    "time-to-event": {
+        "schema": 1, "name": "suite-time-to-event",
+        "endpoint": {"type": "time-to-event"},
+        "hypothesis": {"benchmark_median": 12.0},
+        "arms": {"treatment": {"prior": {"distribution": "gamma-mixture", "components": [
+            {"weight": 0.7, "shape": 2.0, "rate": 40.0},
+            {"weight": 0.3, "shape": 0.5, "rate": 5.0}]}}},
+        "conduct": {"enrolment_rate": 4, "max_enrolment": 80},
+        "looks": {"events": [10, 25, 40], "efficacy": [0.995, 0.98, 0.95], "futility": 0.1},
+        "scenarios": {"treatment": [0.0578, 0.035]},
+    },
     TOY: {
         "schema": 1, "name": "suite-toy",
         "endpoint": {"type": TOY, "better": "lower"},
@@ -87,6 +98,18 @@ TWO_ARM_DESIGNS: dict[str, dict[str, Any]] = {
         "looks": {"n": [20, 40], "efficacy": [0.99, 0.975], "futility": 0.1},
         "scenarios": {"control": [1.0], "ratio": [1.0, 0.6]},
     },
+    "time-to-event": {
+        "schema": 1, "name": "suite-time-to-event-two-arm",
+        "endpoint": {"type": "time-to-event"},
+        "hypothesis": {"comparison": "ratio", "margin": 0.0},
+        "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 20}},
+                 "control": {"prior": {"distribution": "gamma-mixture", "components": [
+                     {"weight": 0.5, "shape": 3, "rate": 60},
+                     {"weight": 0.5, "shape": 1, "rate": 20}]}}},
+        "conduct": {"enrolment_rate": 10, "max_enrolment": 200},
+        "looks": {"events": [40, 80], "efficacy": [0.995, 0.975], "futility": 0.1},
+        "scenarios": {"control": [0.05], "ratio": [1.0, 0.6]},
+    },
     TOY: {
         "schema": 1, "name": "suite-toy-two-arm",
         "endpoint": {"type": TOY, "better": "lower"},
@@ -107,6 +130,10 @@ BAD_INPUTS: dict[str, list[tuple[str, Any, str]]] = {
               ("scenarios__treatment", [-0.5], "scenarios.treatment")],
     "normal": [("endpoint__sd", -1, "endpoint.sd"),
                ("arms__treatment__prior__components", [], "arms.treatment.prior")],
+    "time-to-event": [("conduct__enrolment_rate", 0, "conduct.enrolment_rate"),
+                      ("conduct__max_enrolment", 30, "looks.events"),
+                      ("hypothesis__benchmark_survival", 0.8, "hypothesis.benchmark"),
+                      ("scenarios__treatment", [0.0], "scenarios.treatment")],
     TOY: [("arms__treatment__prior__shape", 0, "arms.treatment.prior.shape"),
           ("scenarios__treatment", [0.0], "scenarios.treatment")],
 }
@@ -260,3 +287,20 @@ def test_default_sampler_draws_from_the_increment_distribution() -> None:
     from scipy import stats
 
     assert stats.kstest(draws, stats.gamma(10, scale=2.0).cdf).pvalue > 1e-3
+
+
+def test_toy_family_without_workflow_checks_is_refused_plainly(
+        toy_family: ToyExponentialFamily, tmp_path: Any) -> None:
+    # `octrial check` on a family that offers no check model: exit 2 naming the design
+    # file and endpoint.type, not a traceback.
+    from click.testing import CliRunner
+
+    from octrial.cli import main
+
+    path = tmp_path / "toy.toml"
+    path.write_text(TOY_TOML)
+    result = CliRunner().invoke(main, ["check", str(path), "--out", str(tmp_path / "c")])
+    assert result.exit_code == 2, result.output
+    assert "endpoint.type" in result.output and "workflow checks" in result.output
+    assert "workflow checks (binary, count, normal); got 'toy-exponential'" in result.output
+    assert not (tmp_path / "c").exists()

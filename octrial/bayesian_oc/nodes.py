@@ -34,14 +34,14 @@ def boundary_value(design: Design, effect: float, control: np.ndarray | None = N
     if on_effect(design):
         return np.asarray(h.sign * (h.shift + effect), dtype=float)
     if not design.two_arm:
-        return np.asarray(h.benchmark + h.sign * effect, dtype=float)
-    measure = COMPARISONS[h.comparison][1] + h.sign * (h.shift + effect)
+        return np.asarray(h.null_value + h.sign * effect, dtype=float)
+    measure = COMPARISONS[h.measure][1] + h.sign * (h.shift + effect)
     lo, hi = design.family.parameter_range
     c = np.asarray(control, dtype=float)
-    if COMPARISONS[h.comparison][1] == 1.0 and measure <= 0:
+    if COMPARISONS[h.measure][1] == 1.0 and measure <= 0:
         return np.full(c.shape, lo)  # a ratio cannot reach a non-positive value
     with np.errstate(all="ignore"):
-        t = SCENARIO_AXES[h.comparison][1](c, measure)
+        t = SCENARIO_AXES[h.measure][1](c, measure)
     return np.clip(np.nan_to_num(t, nan=hi, posinf=hi, neginf=lo), lo, hi)
 
 
@@ -53,9 +53,9 @@ def effect_of(design: Design, values: np.ndarray) -> np.ndarray:
     if on_effect(design):
         return h.sign * v[:, 0] - h.shift
     if v.shape[1] == 1:
-        return h.sign * (v[:, 0] - h.benchmark)
-    return h.sign * (COMPARISONS[h.comparison][0](v[:, 0], v[:, 1])
-                     - COMPARISONS[h.comparison][1]) - h.shift
+        return h.sign * (v[:, 0] - h.null_value)
+    return h.sign * (COMPARISONS[h.measure][0](v[:, 0], v[:, 1])
+                     - COMPARISONS[h.measure][1]) - h.shift
 
 
 # -- nodes with region weights -----------------------------------------------------------------
@@ -158,7 +158,7 @@ def one_dimensional_nodes(design: Design, generating: Design, nodes: tanh_sinh.N
             weights.append(weight * wt)
             middles.append(np.full(theta.size, middle))
     theta = np.concatenate(thetas)
-    weight = np.concatenate(weights)
+    node_weight = np.concatenate(weights)
     truths = _as_truths(design, theta)
     null, alt, relevant = _classify(design, _as_truths(design, np.concatenate(middles)), delta)
     for weight_k, dist in _components(design, prior):
@@ -168,7 +168,8 @@ def one_dimensional_nodes(design: Design, generating: Design, nodes: tanh_sinh.N
         sign = design.hypothesis.sign
         masses += weight_k * np.array([low0 if sign > 0 else up0, up0 if sign > 0 else low0,
                                        up_d if sign > 0 else low_d])
-    return PriorNodes(truths, weight * null, weight * alt, weight * relevant, *masses,
+    return PriorNodes(truths, node_weight * null, node_weight * alt, node_weight * relevant,
+                      masses[0], masses[1], masses[2],
                       description=f"tanh-sinh over the design prior's quantiles, "
                                   f"{theta.size} nodes, split at the null boundary")
 
@@ -206,7 +207,8 @@ def tensor_nodes(design: Design, generating: Design, level: int, delta: float) -
     lo, hi = design.family.parameter_range
     truths = np.clip(truths, np.nextafter(lo, hi), np.nextafter(hi, lo))
     null, alt, relevant = _classify(design, np.vstack(middles), delta)
-    return PriorNodes(truths, weight * null, weight * alt, weight * relevant, *masses,
+    return PriorNodes(truths, weight * null, weight * alt, weight * relevant,
+                      masses[0], masses[1], masses[2],
                       description=f"tanh-sinh over both arms' design prior quantiles, "
                                   f"{x.size} nodes per arm and piece ({len(truths)} true "
                                   "values), treatment split at the null boundary for each "

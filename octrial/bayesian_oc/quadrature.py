@@ -98,9 +98,10 @@ def quadrature(design: Design, delta: float = 0.0,
                 break
             previous = sums
         change = np.abs(sums - previous)
-    values = {k: float(v) for k, v in metrics(*sums, nodes.prior_null, nodes.prior_alt,
-                                              nodes.prior_relevant).items()}
-    errors = propagated_errors(values, *map(float, change), nodes)
+    values = {k: float(v) for k, v in metrics(sums[0], sums[1], sums[2], nodes.prior_null,
+                                              nodes.prior_alt, nodes.prior_relevant).items()}
+    errors = propagated_errors(values, float(change[0]), float(change[1]), float(change[2]),
+                               nodes)
     return Quadrature(nodes, values, errors)
 
 

@@ -97,7 +97,7 @@ def simulated(design: Design, replicates: int, seed: int, delta: float = 0.0,
             "seed": seed, "delta": delta, "batch_size": BATCH_SIZE, "octrial": __version__})
     results, _ = run_grid(simulate_split_batch, tasks, execution or Execution(), store,
                           unit="batches of Bayesian operating characteristics")
-    counts = {name: sum(r[name] for r in results) for name in CLASSES}
+    counts: dict[str, Any] = {name: sum(r[name] for r in results) for name in CLASSES}
     r_total = replicates
     n_null, s_null = (int(v) for v in counts["null"])
     n_alt, s_alt = (int(v) for v in counts["alternative"])

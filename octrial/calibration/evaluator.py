@@ -92,8 +92,10 @@ def bayesian_at(truths: Truths, prob_success: np.ndarray) -> dict[str, Any] | No
         return None
     from octrial.bayesian_oc import metrics, metrics_at
 
-    tail = prob_success[..., truths.prior_start:]
-    if tail.shape[-1] == WEIGHTED and len(truths.values) - truths.prior_start != WEIGHTED:
+    start = truths.prior_start
+    assert start is not None  # set with the prior's nodes
+    tail = prob_success[..., start:]
+    if tail.shape[-1] == WEIGHTED and len(truths.values) - start != WEIGHTED:
         nodes = truths.prior
         return metrics(tail[..., 0], tail[..., 1], tail[..., 2], nodes.prior_null,
                        nodes.prior_alt, nodes.prior_relevant)
@@ -116,6 +118,7 @@ def assessment(
     null = prob_success[: truths.nulls]
     worst = int(np.argmax(null))
     alt = truths.alternative
+    bayesian = bayesian_at(truths, prob_success)
     return Assessment(
         prob_success=prob_success, type1=float(null[worst]), type1_se=float(se[worst]),
         worst=worst,
@@ -123,8 +126,7 @@ def assessment(
         power_se=0.0 if alt is None else float(se[alt]),
         expected_n_null=float(expected_n[truths.reference]),
         expected_n_alternative=None if alt is None else float(expected_n[alt]),
-        bayesian=None if truths.prior is None else {
-            k: float(v) for k, v in bayesian_at(truths, prob_success).items()},
+        bayesian=None if bayesian is None else {k: float(v) for k, v in bayesian.items()},
     )
 
 
@@ -342,11 +344,12 @@ class LatticeEvaluator(Evaluator):
 
     def distinct_values(self, design: Design, looks: list[int]) -> np.ndarray | None:
         tables = [self.benefit(design, k) for k in looks]
-        if any(t is None for t in tables):
+        present = [t for t in tables if t is not None]
+        if len(present) < len(tables):
             return None
-        if not tables:
+        if not present:
             return np.array([])
-        return distinct(np.concatenate([t.ravel() for t in tables]))
+        return distinct(np.concatenate([t.ravel() for t in present]))
 
     def _final_reach(self, design: Design, rule) -> tuple[np.ndarray, ...]:
         """Per true value: Pr(success before the last look), the expected size of the
@@ -363,6 +366,7 @@ class LatticeEvaluator(Evaluator):
         done = 0
         for inc in self.chunks:
             part = run_batch(design, rule, inc, keep_final=True)
+            assert part.reach is not None  # kept (keep_final)
             e = part.efficacy[:, :-1].sum(axis=1)
             i = (part.efficacy[:, :-1] + part.futility[:, :-1]) @ n[:-1]
             r = part.reach.reshape(len(e), -1)
@@ -373,6 +377,7 @@ class LatticeEvaluator(Evaluator):
             interim.append(i[base])
             reach.append(r[base])
             if not base.all():
+                assert start is not None and nodes is not None  # only nodes are not base
                 at = rows[~base] - start
                 w = np.stack([nodes.w_null[at], nodes.w_alt[at], nodes.w_relevant[at]])
                 sums = [w @ e[~base], w @ i[~base], w @ r[~base]]

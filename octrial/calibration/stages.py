@@ -106,9 +106,15 @@ class StageSearch:
         self.design = builder.design
         self.request = request
         self.log = log
+        if (request.alpha is None or request.power is None or request.alternative is None
+                or request.n_range is None or request.stages is None):
+            raise ValueError("a stage search needs alpha, power, alternative, n_range and "
+                             "stages (the request checks them)")
+        self.alpha, self.power = request.alpha, request.power
+        self.n_range, self.stages = request.n_range, request.stages
         h = self.design.hypothesis
         self.higher = h.better == "higher"
-        p0 = float(h.benchmark)
+        p0 = h.null_value
         p1 = float(request.alternative[0])
         self.p = np.array([p0, p1]) if self.higher else np.array([1 - p0, 1 - p1])
         self.cache = LatticeCache()
@@ -155,8 +161,8 @@ class StageSearch:
     # -- the search ------------------------------------------------------------------------
     def run(self) -> tuple[Stage | None, list[Stage]]:
         """Search the whole range; returns the best design and the per-(N, looks) bests."""
-        lo, hi, step = self.request.n_range
-        k = self.request.stages
+        lo, hi, step = self.n_range
+        k = self.stages
         if self.design.looks.futility_predictive[:-1] != (None,) * (self.design.looks.count - 1):
             self._note("the design's predictive futility rule is not part of the search "
                        "(the searched rules use posterior futility)")
@@ -174,8 +180,8 @@ class StageSearch:
                     self._log(found)
         if not bests:
             return None, bests
-        passing = [s for s in bests if s.type1 <= self.request.alpha
-                   and s.power >= self.request.power]
+        passing = [s for s in bests if s.type1 <= self.alpha
+                   and s.power >= self.power]
         if not passing:
             return None, bests
         if self.request.search == "minimax":
@@ -214,8 +220,8 @@ class StageSearch:
                     candidates.append(stage)
         if not candidates:
             return None
-        passing = [s for s in candidates if s.power >= self.request.power
-                   and s.type1 <= self.request.alpha]
+        passing = [s for s in candidates if s.power >= self.power
+                   and s.type1 <= self.alpha]
         if passing:
             return min(passing, key=lambda s: (round(s.en0, 10), -s.power))
         return max(candidates, key=lambda s: s.power)
@@ -251,7 +257,7 @@ class StageSearch:
             return []
         success = early[:, None, None] + tails[:, r1 + 1, :]       # (2, r1, s)
         ok = final_ok[None, :] & (np.arange(n_max + 1)[None, :] >= r1[:, None] + 2)
-        meets = ok & (success[0] <= self.request.alpha)
+        meets = ok & (success[0] <= self.alpha)
         any_ok = ok.any(axis=1)
         first = np.argmax(meets, axis=1)
         last = ok.shape[1] - 1 - np.argmax(ok[:, ::-1], axis=1)
@@ -315,7 +321,7 @@ class StageSearch:
         lowest = futility[-1] + 2
         ok = final_ok.copy()
         ok[: max(lowest, 0)] = False
-        meets = ok & (success[0] <= self.request.alpha)
+        meets = ok & (success[0] <= self.alpha)
         if not meets.any():
             s = int(np.flatnonzero(ok)[-1]) if ok.any() else None
             if s is None:
@@ -344,7 +350,7 @@ class StageSearch:
                           (*fut, None))
         a = Assessment(np.array([]), stage.type1, 0.0, self.log.truths.reference, stage.power,
                        0.0, stage.en0, stage.en1)
-        passes = stage.type1 <= self.request.alpha and stage.power >= self.request.power
+        passes = stage.type1 <= self.alpha and stage.power >= self.power
         self.log.add("search", looks, a, note="" if passes else "the best at these looks fails")
 
     # -- back to a design ------------------------------------------------------------------
@@ -392,7 +398,7 @@ def search(builder: Builder, request: Request, log: Log, evaluator: Evaluator) -
     best, bests = runner.run()
     target = best
     if target is None and bests:
-        meeting = [s for s in bests if s.type1 <= request.alpha]
+        meeting = [s for s in bests if s.type1 <= runner.alpha]
         target = max(meeting or bests, key=lambda s: s.power)
     if target is None:
         return None, None, runner.notes
@@ -401,6 +407,7 @@ def search(builder: Builder, request: Request, log: Log, evaluator: Evaluator) -
     if isinstance(design, str):
         raise AssertionError(f"searched design is not valid: {design}")
     a = evaluator.assess(design)
+    assert a.power is not None  # the request has an alternative (StageSearch checks it)
     if abs(a.prob_success[evaluator.truths.reference] - target.type1) > 1e-9 or (
             abs(a.power - target.power) > 1e-9):
         raise AssertionError("stage search and exact engine disagree on the chosen design")

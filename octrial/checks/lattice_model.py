@@ -301,8 +301,16 @@ class CountModel(LatticeModel):
     conjugate = "gamma"
     grid_name = "log_rate_ratio"
     grid_label = "log rate ratio, treatment to control"
-    to_grid = staticmethod(np.log)
-    from_grid = staticmethod(np.exp)
+
+    @staticmethod
+    def to_grid(value: np.ndarray) -> np.ndarray:
+        """The log rate ratio's scale: log."""
+        return np.log(value)
+
+    @staticmethod
+    def from_grid(theta: np.ndarray) -> np.ndarray:
+        """The inverse of :meth:`to_grid`."""
+        return np.exp(theta)
 
     def _conjugate_target(self) -> Quantity:
         mixtures = any(len(a.prior.weights) > 1 for a in self.design.arms)

@@ -29,6 +29,7 @@ import numpy as np
 
 from octrial.checks.predictive import Predictive
 from octrial.design.model import Design
+from octrial.errors import single
 
 ANALYSIS = "analysis"
 DESIGN = "design"
@@ -171,5 +172,11 @@ def model_for(design: Design) -> CheckModel:
     (:meth:`~octrial.endpoints.base.Family.check_model`)."""
     model = design.family.check_model(design)
     if model is None:
-        raise ValueError(f"no workflow checks for {design.family.name} endpoints")
+        from octrial.endpoints import FAMILIES, Family
+
+        offered = [name for name, family in FAMILIES.items()
+                   if type(family).check_model is not Family.check_model]
+        raise single(design.source.path or design.name, "endpoint.type",
+                     "an endpoint with workflow checks (" + ", ".join(offered) + ")",
+                     design.endpoint.type)
     return model

@@ -59,9 +59,9 @@ def reports_input_errors(command: Callable[..., Any]) -> Callable[..., Any]:
 
 
 def in_option_names(error: SettingsError, options: dict[str, str]) -> InputError:
-    """``error`` with each setting (a key, or a name in backquotes in the wording) replaced
-    by its option in ``options`` (setting name to option, e.g. ``null_range`` to
-    ``--null-range``); a setting without an option keeps its name."""
+    """``error`` with each setting (its source, a key, or a name in backquotes in the
+    wording) replaced by its option in ``options`` (setting name to option, e.g.
+    ``null_range`` to ``--null-range``); a setting without an option keeps its name."""
 
     def name(setting: str) -> str:
         return options.get(setting, setting)
@@ -69,7 +69,7 @@ def in_option_names(error: SettingsError, options: dict[str, str]) -> InputError
     def words(text: str) -> str:
         return _SETTING_MENTION.sub(lambda found: name(found.group(1)), text)
 
-    return InputError(error.source, [
+    return InputError(name(error.source), [
         replace(p, key=name(p.key), expected=words(p.expected), got=words(p.got),
                 hint=words(p.hint)) for p in error.problems])
 

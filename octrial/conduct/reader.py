@@ -1,9 +1,25 @@
-"""Read a design's ``[conduct]`` table and what its looks see in calendar time.
+"""Reading the ``[conduct]`` table of a design file into :class:`~octrial.conduct.model.Conduct`.
 
-:func:`read_conduct` turns the table into a :class:`~octrial.conduct.model.Conduct`;
-:func:`planned_counts` gives each look's planned subjects with an outcome for looks
-triggered by enrolment or calendar time, and records the problems that make a look
-unreachable or empty. Key names and meanings: docs/design-files.md, ``[conduct]``.
+Keys (docs/design-files.md, ``[conduct]``)::
+
+    time_unit = "month"            # a word for labels; every time below is in this unit
+    enrolment_rate = 8             # subjects per time unit, all arms together; or a list,
+    period_starts = [0, 3]         #   one rate per period starting at these times (ramp-up)
+    enrolment_times = [...]        # or: a fixed list of enrolment times (deterministic)
+    arrivals = "poisson"           # "poisson" (random) or "even" (deterministic) at the rates
+    max_enrolment = 300            # subjects enrolled at most
+    outcome_lag = 6                # time from enrolment to the outcome (not time-to-event)
+    dropout_hazard = 0.01          # loss to follow-up per time unit; or
+    dropout_proportion = 0.1       #   the proportion lost ...
+    dropout_by = 12                #   ... by this time after enrolment
+    analyse_pipeline = false       # after a stop, wait for the pipeline's outcomes
+
+:func:`planned_counts` gives each look's planned subjects with an outcome for looks by
+enrolled subjects or calendar time, and :func:`check_complete_targets` checks looks by
+subjects with an outcome against the maximum enrolment.
+
+Every problem is recorded against its key (file, key, expected, got); the caller raises
+them together with the rest of the design's problems (exit code 2 on the command line).
 """
 
 from __future__ import annotations
@@ -12,111 +28,123 @@ import itertools
 import math
 from collections.abc import Sequence
 
-from octrial.conduct.model import ARRIVALS, Accrual, Conduct
+from octrial.conduct.model import Accrual, Conduct
 from octrial.conduct.timing import allocation_block, arm_counts, look_timing
 from octrial.design.reader import Phrase, Table
 
-KEYS = ("time_unit", "arrivals", "rate", "rates", "period_starts", "enrolment_times",
-        "max_enrolment", "lag", "dropout_hazard", "dropout_lost", "dropout_by",
+KEYS = ("time_unit", "enrolment_rate", "period_starts", "enrolment_times", "arrivals",
+        "max_enrolment", "outcome_lag", "dropout_hazard", "dropout_proportion", "dropout_by",
         "analyse_pipeline")
+MOST_SUBJECTS = 1_000_000
+"""Largest maximum enrolment a design may state (each simulated study holds every subject)."""
 
 
 def read_conduct(top: Table) -> Conduct | None:
-    """The ``[conduct]`` table of a design (``None`` when the design has none or it is
-    unusable; problems are recorded in ``top.problems``)."""
-    table = top.table("conduct", required=False)
+    """The ``[conduct]`` table of ``top``, or ``None`` when the design has none (or it has
+    problems, which are recorded)."""
+    if not top.has("conduct"):
+        return None
+    table = top.table("conduct")
     if table is None:
         return None
     table.allow(*KEYS)
-    count_before = len(table.problems)
     unit = table.string("time_unit", required=False, default="month") or "month"
-    accrual = _read_accrual(table)
-    given = len(accrual.times) if accrual is not None and accrual.arrivals == "fixed" else None
-    enrolment = table.number("max_enrolment", required=given is None, default=given,
-                             integer=True, check=lambda v: v >= 1,
-                             expected="a whole number >= 1 (subjects enrolled at most)")
-    if (accrual is not None and enrolment is not None and given is not None
-            and given < enrolment):
-        table.fail("enrolment_times", f"at least max_enrolment ({int(enrolment)}) times",
-                   Phrase(f"{given} times"))
-    lag = table.number("lag", required=False, default=0.0, check=lambda v: v >= 0,
-                       expected="a time >= 0 from enrolment to the outcome")
-    hazard = _read_dropout(table)
-    pipeline = table.raw("analyse_pipeline", "true or false", required=False)
-    if pipeline is not None and not isinstance(pipeline, bool):
-        table.fail("analyse_pipeline", "true or false", pipeline)
-    if len(table.problems) > count_before or accrual is None or enrolment is None:
+    most = table.number("max_enrolment", integer=True,
+                        check=lambda v: 1 <= v <= MOST_SUBJECTS,
+                        expected=f"a whole number of subjects from 1 to {MOST_SUBJECTS:,}")
+    accrual = _read_accrual(table, None if most is None else int(most))
+    lag = table.number("outcome_lag", required=False, default=0.0, check=lambda v: v >= 0,
+                       expected=f"a time >= 0 (in {unit}s) from enrolment to the outcome")
+    hazard = _read_dropout(table, unit)
+    pipeline = _read_flag(table, "analyse_pipeline")
+    if accrual is None or most is None or lag is None or hazard is None or pipeline is None:
         return None
-    return Conduct(accrual, int(enrolment), float(lag or 0.0), hazard, bool(pipeline), unit)
+    return Conduct(accrual, int(most), float(lag), hazard, pipeline, unit)
 
 
-def _read_accrual(table: Table) -> Accrual | None:
-    fixed = table.has("enrolment_times")
-    arrivals = table.string("arrivals", ARRIVALS, required=False,
-                            default="fixed" if fixed else "poisson")
-    if arrivals is None:
+def _read_accrual(table: Table, most: int | None) -> Accrual | None:
+    has_rate, has_times = table.has("enrolment_rate"), table.has("enrolment_times")
+    if has_rate == has_times:
+        table.fail("enrolment_rate", "either enrolment_rate (with optional period_starts) or "
+                   "enrolment_times, not both", Phrase("both" if has_rate else "neither"))
         return None
-    if arrivals == "fixed" or fixed:
-        if arrivals != "fixed":
-            table.fail("arrivals", "'fixed' (or nothing) with enrolment_times", arrivals)
-        for key in ("rate", "rates", "period_starts"):
+    if has_times:
+        for key in ("period_starts", "arrivals"):
             if table.has(key):
-                table.fail(key, "no rates with fixed enrolment_times", table.data[key])
+                table.fail(key, "no such key with enrolment_times (the times are fixed)",
+                           table.data[key])
         times = table.numbers("enrolment_times", check=lambda v: v >= 0,
                               expected="a time >= 0")
         if times is None or any(t is None for t in times):
             return None
-        values = [float(t) for t in times if t is not None]
-        if any(b < a for a, b in itertools.pairwise(values)):
-            table.fail("enrolment_times", "non-decreasing enrolment times", values)
+        fixed = [float(t) for t in times if t is not None]
+        if any(b < a for a, b in itertools.pairwise(fixed)):
+            table.fail("enrolment_times", "non-decreasing enrolment times", fixed)
             return None
-        return Accrual(times=tuple(values), arrivals="fixed")
-    positive = {"check": lambda v: v > 0, "expected": "a rate > 0 (subjects per time unit)"}
-    if table.has("rate") == table.has("rates"):
-        table.fail("rate", "either rate (one rate) or rates with period_starts",
-                   Phrase("both" if table.has("rate") else "neither"))
+        if most is not None and len(fixed) < most:
+            table.fail("enrolment_times", f"at least max_enrolment ({most}) times",
+                       Phrase(f"{len(fixed)} times"))
+            return None
+        return Accrual(times=tuple(fixed), arrivals="fixed")
+    arrivals = table.string("arrivals", ("poisson", "even"), required=False,
+                            default="poisson") or "poisson"
+    raw = table.data["enrolment_rate"]
+    expected = "an enrolment rate > 0 (subjects per time unit)"
+    if isinstance(raw, list):
+        rates = table.numbers("enrolment_rate", check=lambda v: v > 0, expected=expected)
+        if rates is None or any(r is None for r in rates):
+            return None
+        starts = table.numbers("period_starts", check=lambda v: v >= 0,
+                               expected="a time >= 0", length=len(rates))
+        if starts is None or any(s is None for s in starts):
+            return None
+        begin = [float(s) for s in starts if s is not None]
+        if begin[0] != 0 or any(b <= a for a, b in itertools.pairwise(begin)):
+            table.fail("period_starts", "strictly increasing period starts, the first 0",
+                       begin)
+            return None
+        return Accrual(tuple(float(r) for r in rates if r is not None), tuple(begin),
+                       arrivals=arrivals)
+    if table.has("period_starts"):
+        table.fail("period_starts", "period starts only with a list of enrolment rates",
+                   table.data["period_starts"])
+    rate = table.number("enrolment_rate", check=lambda v: v > 0, expected=expected)
+    if rate is None:
         return None
-    if table.has("rate"):
-        if table.has("period_starts"):
-            table.fail("period_starts", "period_starts only with rates",
-                       table.data["period_starts"])
-        rate = table.number("rate", **positive)
-        return None if rate is None else Accrual(rates=(rate,), arrivals=arrivals)
-    rates = table.numbers("rates", **positive)
-    starts = table.numbers("period_starts", check=lambda v: v >= 0, expected="a time >= 0")
-    if rates is None or starts is None or None in rates or None in starts:
-        return None
-    rate_values = tuple(float(r) for r in rates if r is not None)
-    start_values = tuple(float(s) for s in starts if s is not None)
-    if len(start_values) != len(rate_values):
-        table.fail("period_starts", f"one start per rate ({len(rate_values)})",
-                   Phrase(f"{len(start_values)} starts"))
-        return None
-    if start_values[0] != 0 or any(b <= a for a, b in itertools.pairwise(start_values)):
-        table.fail("period_starts", "strictly increasing period starts, the first 0",
-                   list(start_values))
-        return None
-    return Accrual(rates=rate_values, starts=start_values, arrivals=arrivals)
+    return Accrual((float(rate),), (0.0,), arrivals=arrivals)
 
 
-def _read_dropout(table: Table) -> float:
+def _read_dropout(table: Table, unit: str) -> float | None:
     if table.has("dropout_hazard"):
-        for key in ("dropout_lost", "dropout_by"):
+        for key in ("dropout_proportion", "dropout_by"):
             if table.has(key):
-                table.fail(key, "either dropout_hazard or dropout_lost with dropout_by",
+                table.fail(key, "either dropout_hazard or dropout_proportion with dropout_by",
                            table.data[key])
         hazard = table.number("dropout_hazard", check=lambda v: v >= 0,
-                              expected="a hazard >= 0 (losses per subject per time unit)")
-        return hazard or 0.0
-    if not (table.has("dropout_lost") or table.has("dropout_by")):
+                              expected=f"a hazard >= 0 (losses per subject-{unit})")
+        return None if hazard is None else float(hazard)
+    if not table.has("dropout_proportion"):
+        if table.has("dropout_by"):
+            table.fail("dropout_by", "dropout_by only with dropout_proportion",
+                       table.data["dropout_by"])
         return 0.0
-    lost = table.number("dropout_lost", check=lambda v: 0 <= v < 1,
-                        expected="a proportion in [0, 1) lost by dropout_by")
-    by = table.number("dropout_by", check=lambda v: v > 0, expected="a time > 0")
-    if lost is None or by is None:
-        return 0.0
-    # exponential loss: 1 - exp(-hazard x by) = lost
-    return -math.log1p(-lost) / by
+    share = table.number("dropout_proportion", check=lambda v: 0 <= v < 1,
+                         expected="a proportion in [0, 1) lost to follow-up")
+    by = table.number("dropout_by", check=lambda v: v > 0,
+                      expected=f"a time > 0 (in {unit}s after enrolment) by which "
+                               "dropout_proportion are lost")
+    if share is None or by is None:
+        return None
+    # an exponential time to loss with Pr(lost by `by`) = share
+    return -math.log1p(-share) / by
+
+
+def _read_flag(table: Table, key: str) -> bool | None:
+    value = table.data.get(key, False)
+    if not isinstance(value, bool):
+        table.fail(key, "true or false", value)
+        return None
+    return value
 
 
 def last_outcome(conduct: Conduct) -> float:
@@ -173,8 +201,8 @@ def planned_counts(table: Table, conduct: Conduct, trigger: str, targets: Sequen
         block = allocation_block(weights)
         complete = tuple(tuple(int(v) for v in arm_counts(c, block)) for c in totals)
     if min(complete[0]) < 1:
-        table.problems.add("conduct.lag", "a lag that lets every arm have an outcome by the "
-                           f"first look ({key}[1] = {targets[0]:g})", conduct.lag,
+        table.problems.add("conduct.outcome_lag", "a lag that lets every arm have an "
+                           f"outcome by the first look ({key}[1] = {targets[0]:g})", conduct.lag,
                            "no outcome can be observed by then; move the first look later")
         return None
     for k, (a, b) in enumerate(itertools.pairwise(totals)):

@@ -4,7 +4,7 @@ Under even or fixed arrivals and no dropout (:attr:`Conduct.deterministic`), sub
 is enrolled at a known time and its outcome is observed ``lag`` later, so every look's
 calendar time and counts are fixed in advance (as long as the study has not stopped).
 The exact engines use these counts; the Monte Carlo simulator of
-:mod:`octrial.simulation.calendar` draws them study by study instead.
+:mod:`octrial.simulation.calendar_studies` draws them study by study instead.
 
 Subjects are assigned to arms in fixed blocks (:func:`arm_counts`), the same rule the
 simulator uses, so the two agree subject for subject.

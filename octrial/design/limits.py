@@ -19,7 +19,7 @@ import math
 import numpy as np
 
 from octrial.design.model import Design
-from octrial.errors import InputError, Problem
+from octrial.errors import Problem, SettingsError
 
 MEMORY_LIMIT = 2 * 2**30
 """Largest estimated working memory of the exact lattice engine and the decision tables
@@ -109,13 +109,13 @@ def lattice_memory(design: Design) -> float:
     return memory
 
 
-def require_lattice_fits(design: Design, source: str, key: str, reduce: str) -> None:
-    """Raise an :class:`~octrial.errors.InputError` at ``source: key`` when ``design``'s
+def require_lattice_fits(design: Design, setting: str, key: str, reduce: str) -> None:
+    """Raise a :class:`~octrial.errors.SettingsError` at ``setting: key`` when ``design``'s
     lattice (for example one extended to hold observed counts) exceeds the memory limit;
     ``reduce`` says what to reduce."""
     memory = lattice_memory(design)
     if memory > MEMORY_LIMIT:
-        raise InputError(source, [Problem(
+        raise SettingsError(setting, [Problem(
             key, f"values whose count lattice fits the memory limit of "
             f"{MEMORY_LIMIT / 2**30:g} GiB ({reduce})",
             f"an estimated {memory / 2**30:.3g} GiB")])

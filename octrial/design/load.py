@@ -17,7 +17,6 @@ from typing import Any
 import octrial.design.limits as limits
 from octrial.conduct.model import Conduct
 from octrial.conduct.reader import check_complete_targets, planned_counts, read_conduct
-from octrial.conduct.timing import allocation_block, arm_counts
 from octrial.design.model import (
     CONTROL,
     METHODS,
@@ -109,10 +108,13 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     if scenarios_table is not None and family is not None:
         scenarios = read_scenarios(scenarios_table, family, two_arm)
     simulation = _read_simulation(top)
+    if family is not None and family.event_driven and not top.has("conduct"):
+        top.fail("conduct", f"a [conduct] table ({family.name} studies run in calendar "
+                 "time: enrolment_rate, max_enrolment)", Phrase("nothing (the table is missing)"))
     if family is not None:
         family.check_design({"endpoint": endpoint, "hypothesis": hypothesis, "arms": arms,
-                             "looks": looks, "simulation": simulation, "two_arm": two_arm},
-                            problems)
+                             "looks": looks, "simulation": simulation, "two_arm": two_arm,
+                             "conduct": conduct, "scenarios": scenarios}, problems)
 
     if problems:
         raise DesignError(source.path, problems)
@@ -159,10 +161,8 @@ def _read_hypothesis(
                             expected="a number >= 0 (the clinically relevant effect beyond "
                                      "the null boundary, for Bayesian power)")
     if not two_arm:
-        table.allow("benchmark", "relevant_effect")
-        benchmark = table.number("benchmark")
-        if benchmark is not None and (problem := family.true_value_problem(benchmark)):
-            table.fail("benchmark", problem, benchmark)
+        table.allow(*family.benchmark_keys, "relevant_effect")
+        benchmark = family.read_benchmark(table)
         return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)
     table.allow("comparison", "margin", "kind", "relevant_effect",
                 *(("prior", "design_prior") if on_effect else ()))
@@ -262,31 +262,52 @@ def _read_looks(
         return None
     table.allow(*TRIGGERS, "efficacy", "futility", "futility_predictive", "efficacy_count",
                 "futility_count")
+    event_driven = family is not None and family.event_driven
     given = [key for key in TRIGGERS if table.has(key)]
     if len(given) > 1:
         table.fail(given[1], "one of n, enrolled, time or events (when each look happens)",
                    Phrase(f"{given[0]} and {given[1]}"))
         return None
-    key = given[0] if given else "n"
+    key = given[0] if given else ("events" if event_driven else "n")
+    if event_driven and key != "events":
+        table.fail(key, "events (time-to-event looks happen at event counts)",
+                   table.data[key])
+        return None
     trigger = TRIGGERS[key]
-    if trigger != "complete":
+    at: tuple[float, ...] = ()
+    if trigger in ("enrolled", "time") or (trigger == "events" and not event_driven):
         timing = _read_trigger(table, key, arms, family, conduct, top.has("conduct"))
         if timing is None:
             return None
         n, per_arm, at = timing
     else:
-        read = table.numbers("n", integer=True, check=lambda v: v > 0,
+        size = key
+        read = table.numbers(size, integer=True, check=lambda v: v > 0,
                              expected="a whole number > 0")
         if read is None or any(v is None for v in read):
             return None
         n = [int(v) for v in read if v is not None]
         if any(b <= a for a, b in itertools.pairwise(n)):
-            table.fail("n", "strictly increasing cumulative sample sizes", n)
+            table.fail(size, "strictly increasing cumulative "
+                       + ("event counts" if size == "events" else "sample sizes"), n)
             return None
-        if conduct is not None:
-            check_complete_targets(table, conduct, n)
-        per_arm = _split(table, n, arms) if arms else None
-        at = ()
+        if size == "events":
+            # events are counted over all arms; per arm, the share allocation gives when
+            # hazards are equal (for the information fraction and reports only)
+            weights = [a.allocation for a in arms]
+            per_arm = tuple(tuple(round(n_k * w / sum(weights)) for w in weights)
+                            for n_k in n) if arms else None
+            at = tuple(float(v) for v in n)
+            if table.has("efficacy_count") or table.has("futility_count"):
+                table.fail("efficacy_count" if table.has("efficacy_count") else
+                           "futility_count", "posterior probability thresholds (efficacy, "
+                           "futility) for looks at event counts",
+                           Phrase("a rule stated in counts"))
+                return None
+        else:
+            if conduct is not None:
+                check_complete_targets(table, conduct, n)
+            per_arm = _split(table, n, arms) if arms else None
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):
@@ -344,11 +365,6 @@ def _read_trigger(
     if not arms:
         return None
     weights = [a.allocation for a in arms]
-    if key == "events":
-        # the family reads events itself; the plan here only sizes the final analysis
-        full = tuple(int(v) for v in arm_counts(conduct.max_enrolment,
-                                                allocation_block(weights)))
-        return [int(v) for v in at], (full,) * len(at), at
     complete = planned_counts(table, conduct, TRIGGERS[key], at, weights)
     if complete is None:
         return None

@@ -78,6 +78,20 @@ class Hypothesis:
         return self.margin if self.kind == "superiority" else -self.margin
 
     @property
+    def null_value(self) -> float:
+        """One arm: the benchmark (the loader requires one for one-arm designs)."""
+        if self.benchmark is None:
+            raise ValueError("a two-arm hypothesis has no benchmark")
+        return self.benchmark
+
+    @property
+    def measure(self) -> str:
+        """Two arms: the comparison (the loader sets the family's default)."""
+        if self.comparison is None:
+            raise ValueError("a one-arm hypothesis has no comparison")
+        return self.comparison
+
+    @property
     def neutral(self) -> float:
         """The no-effect value of the comparison: 0 for a difference, 1 for a ratio."""
         return 0.0 if self.comparison in (None, "difference") else 1.0

@@ -41,14 +41,17 @@ def _from_odds_ratio(c: float, ratio: float) -> float:
     return odds / (1.0 + odds)
 
 
-COMPARISONS: dict[str, tuple[Callable[[float, float], float], float]] = {
+Measure = Callable[[Any, Any], Any]
+"""A function of (treatment, control), or (control, value), on floats or arrays alike."""
+
+COMPARISONS: dict[str, tuple[Measure, float]] = {
     "difference": (lambda t, c: t - c, 0.0),
     "ratio": (lambda t, c: t / c, 1.0),
     "odds-ratio": (_odds_ratio, 1.0),
 }
 """Two-arm effect measures: the measure of (treatment, control) and its no-effect value."""
 
-SCENARIO_AXES: dict[str, tuple[str, Callable[[float, float], float]]] = {
+SCENARIO_AXES: dict[str, tuple[str, Measure]] = {
     "difference": ("effect", lambda c, e: c + e),
     "ratio": ("ratio", lambda c, r: c * r),
     "odds-ratio": ("odds_ratio", _from_odds_ratio),
@@ -94,6 +97,9 @@ class Family(ABC):
     """Whether the prior predictive check needs a range of plausible outcomes from the user
     (an unbounded outcome: ``octrial check --outcome-range``); bounded outcomes have their
     own."""
+    event_driven: ClassVar[bool] = False
+    """Whether studies run in calendar time with looks at event counts (``[looks] events``
+    and a required ``[conduct]`` table: time-to-event endpoints)."""
     statistic: ClassVar[str] = "sample mean"
     """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
 
@@ -131,8 +137,6 @@ class Family(ABC):
         and without borrowing; ``None`` when the family's priors have no such check."""
         return None
 
-    event_driven: ClassVar[bool] = False
-    """Whether looks may be triggered by events (``looks.events``; time-to-event)."""
     draws_design_prior: ClassVar[bool] = False
     """Whether :meth:`design_prior_draws` is implemented."""
 
@@ -176,6 +180,17 @@ class Family(ABC):
 
         return read_distribution(table, self.prior_schema)[1]
 
+    benchmark_keys: ClassVar[tuple[str, ...]] = ("benchmark",)
+    """The ``[hypothesis]`` keys that state a one-arm benchmark."""
+
+    def read_benchmark(self, table: Table) -> float | None:
+        """One arm: the benchmark (the null boundary of the parameter) from
+        ``[hypothesis]``; by default the key ``benchmark``."""
+        benchmark = table.number("benchmark")
+        if benchmark is not None and (problem := self.true_value_problem(benchmark)):
+            table.fail("benchmark", problem, benchmark)
+        return benchmark
+
     @abstractmethod
     def true_value_problem(self, value: float) -> str | None:
         """``None`` when ``value`` is a possible true parameter, else what is expected."""
@@ -211,7 +226,8 @@ class Family(ABC):
     # -- hypotheses ------------------------------------------------------------------
     def measure(self, comparison: str, treatment: float, control: float) -> float:
         """The two-arm effect measure ('difference', 'ratio', 'odds-ratio')."""
-        return COMPARISONS[comparison][0](treatment, control)
+        value: float = COMPARISONS[comparison][0](treatment, control)
+        return value
 
     def effect(self, hypothesis: Hypothesis, truth: tuple[float, ...]) -> float:
         """The effect that the hypothesis is about, in the better direction.
@@ -345,9 +361,9 @@ class Family(ABC):
         """A :class:`~octrial.simulation.base.Simulator` of ``design`` at ``truth``
         (credible intervals at ``level``); by default the generic study loop of
         :mod:`octrial.simulation.generic`, or, for a design with ``[conduct]``, the
-        calendar-time studies of :mod:`octrial.simulation.calendar`."""
+        calendar-time studies of :mod:`octrial.simulation.calendar_studies`."""
         if design.conduct is not None:
-            from octrial.simulation.calendar import CalendarStudies
+            from octrial.simulation.calendar_studies import CalendarStudies
 
             return CalendarStudies(design, truth, level)
         from octrial.simulation.generic import StudyLoop
@@ -410,8 +426,9 @@ class LatticeFamily(Family):
         """
 
     @abstractmethod
-    def increment_pmf(self, design: Any, truth: float, n: int, size: int) -> np.ndarray:
-        """Pr(statistic of ``n`` new subjects = 0 .. size-1) at the true value ``truth``."""
+    def increment_pmf(self, design: Any, truth: Any, n: int, size: int) -> np.ndarray:
+        """Pr(statistic of ``n`` new subjects = 0 .. size-1) at the true value ``truth`` (a
+        float; families that broadcast take an array of true values, one row each)."""
 
     @abstractmethod
     def posterior(self, design: Any, arm: int, n: int, stats: np.ndarray) -> Any:

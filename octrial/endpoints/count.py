@@ -498,6 +498,7 @@ class CountFamily(GridModel, LatticeFamily):
         mean = np.asarray(truth, dtype=float) * e.exposure * n
         if e.model == "poisson":
             return stats.poisson(mean)
+        assert e.dispersion is not None  # negative binomial (load.py)
         r = n / e.dispersion
         return stats.nbinom(r, r / (r + mean))
 
@@ -509,6 +510,7 @@ class CountFamily(GridModel, LatticeFamily):
             return np.zeros(size, dtype=np.int64)
         if e.model == "poisson":
             return rng.poisson(mean, size)
+        assert e.dispersion is not None  # negative binomial (load.py)
         r = n / e.dispersion
         return rng.negative_binomial(r, r / (r + mean), size)
 

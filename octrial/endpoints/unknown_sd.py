@@ -69,6 +69,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import integrate, special, stats
@@ -122,10 +123,12 @@ class StudentPosterior:
         return stats.t(self.df, self.mean, self.t_scale)
 
 
-def update(mean: float, mean_n: float, shape: float, scale: float, *, n: int,
-           ybar: float, sd: float) -> StudentPosterior:
+def update(mean: Any, mean_n: float, shape: float, scale: Any, *, n: int,
+           ybar: Any, sd: Any) -> StudentPosterior:
     """Posterior after ``n`` values with mean ``ybar`` and sample sd ``sd`` (n - 1
     divisor), from the prior (mean, mean_n, shape, scale); all on the benefit scale.
+    ``mean``, ``scale``, ``ybar`` and ``sd`` may be arrays of many studies (the
+    posterior's fields are then arrays too).
 
     Examples
     --------

@@ -121,7 +121,8 @@ def continuations(rule: NormalRule, eta: np.ndarray, points_per_sd: int) -> Iter
     for group in _groups(eta, info[-1]):
         e = eta[group]
         ref = 0.5 * (e.min() + e.max())
-        nodes = weights = density = None
+        # set at look 0 before the later looks read them
+        nodes = weights = density = np.empty(0)
         for k in range(len(looks) - 1):
             # grid of the continuation interval at look k
             sd_k = math.sqrt(info[k])
@@ -146,13 +147,15 @@ def _kernel(to: np.ndarray, start: np.ndarray, drift: float, d: float) -> np.nda
     """Transition density of the score from ``start`` to ``to`` over information d."""
     sd = math.sqrt(d)
     z = (to[:, None] - start[None, :] - drift * d) / sd
-    return np.exp(-0.5 * z**2) / (sd * math.sqrt(2 * math.pi))
+    density: np.ndarray = np.exp(-0.5 * z**2) / (sd * math.sqrt(2 * math.pi))
+    return density
 
 
 def _tilt(eta: np.ndarray, ref: float, nodes: np.ndarray, information: float) -> np.ndarray:
     """Likelihood ratio of a path ending at ``nodes`` between drifts eta and ref."""
-    return np.exp((eta - ref)[:, None] * nodes[None, :]
-                  - 0.5 * (eta**2 - ref**2)[:, None] * information)
+    ratio: np.ndarray = np.exp((eta - ref)[:, None] * nodes[None, :]
+                               - 0.5 * (eta**2 - ref**2)[:, None] * information)
+    return ratio
 
 
 def recursion(
@@ -271,13 +274,15 @@ def estimation(
         def density_at(q: np.ndarray, c: Continuation = c, e: np.ndarray = e,
                        j: int = j, d: float = d) -> np.ndarray:
             reference = _kernel(q, c.nodes, c.reference, d) @ c.reference_mass
-            return _tilt(e, c.reference, q, info[j]) * reference[None, :]
+            tilted: np.ndarray = _tilt(e, c.reference, q, info[j]) * reference[None, :]
+            return tilted
 
         def coverage_mass(a: np.ndarray, b: np.ndarray, c: Continuation = c,
                           e: np.ndarray = e, d: float = d) -> np.ndarray:
             mean_next = c.nodes[None, :] + e[:, None] * d
-            return np.sum(c.mass * _interval_mass(a[:, None], b[:, None], mean_next,
-                                                  math.sqrt(d)), axis=1)
+            mass: np.ndarray = np.sum(c.mass * _interval_mass(a[:, None], b[:, None],
+                                                              mean_next, math.sqrt(d)), axis=1)
+            return mass
 
         add(j, c.group, density_at, coverage_mass)
     moments[:, 0] *= rule.sign

@@ -152,7 +152,8 @@ def run_programme(looks: Sequence[Look], arms: int, step: Step, *,
 
 def _gathered(dist: np.ndarray, mask: np.ndarray) -> np.ndarray:
     """Per-scenario mass on the points of ``mask``."""
-    return dist[:, mask].sum(axis=1)
+    mass: np.ndarray = dist[:, mask].sum(axis=1)
+    return mass
 
 
 # -- steps -------------------------------------------------------------------------------
@@ -162,7 +163,8 @@ def shift_matrix(pmf: np.ndarray, old: int, new: int) -> np.ndarray:
     column[: min(new, pmf.size)] = pmf[:new]
     row = np.zeros(old)
     row[0] = column[0]
-    return linalg.toeplitz(column, row)
+    matrix: np.ndarray = linalg.toeplitz(column, row)
+    return matrix
 
 
 def add_increment(dist: np.ndarray, pmf: np.ndarray, axis: int, size: int) -> np.ndarray:

@@ -39,6 +39,7 @@ from octrial.execution.checkpoints import SEED_BITS, CheckpointStore, kept_seed
 from octrial.rules.estimates import LatticeEstimates, lattice_estimates
 from octrial.rules.lattice import LatticeRule, build_rule, serving
 from octrial.simulation.base import Simulator, Tally, tally_problems
+from octrial.simulation.calendar import calendar_columns
 from octrial.simulation.lattice import LatticePlan, LatticeSimulator, lattice_plan
 
 KERNELS = ("auto", "table", "general")
@@ -114,7 +115,7 @@ class ScenarioTask:
         else:
             wrong = tally_problems(arrays, self.design.looks.count,
                                    at_most=settings.max_replicates)
-            if np.shape(arrays.get("target_met")) != ():
+            if "target_met" not in arrays or np.shape(arrays["target_met"]) != ():
                 wrong.append("no target_met")
             r = int(arrays["replicates"]) if not wrong else 0
             if r and r % settings.batch_size and r != settings.max_replicates:
@@ -143,28 +144,32 @@ def make_simulator(task: ScenarioTask) -> Simulator:
     level = design.simulation.interval_level
     if task.plan is not None:
         return LatticeSimulator(design, task.plan, task.truth, task.estimates, level)
-    return design.family.simulator(design, task.truth, level)
+    simulator: Simulator = design.family.simulator(design, task.truth, level)
+    return simulator
 
 
 def simulate_scenario(task: ScenarioTask) -> dict[str, np.ndarray]:
     """Simulate one scenario batch by batch (runs in a worker)."""
     settings = task.settings
+    seed = settings.seed
+    assert seed is not None  # the engine settles the seed before any task runs
     simulator = make_simulator(task)
     tally: Tally | None = None
     batch = 0
     while True:
         done = 0 if tally is None else tally.replicates
-        if settings.target_se is None:
+        if settings.replicates is not None and settings.target_se is None:
             size = min(settings.batch_size, settings.replicates - done)
         else:
             size = min(settings.batch_size, settings.max_replicates - done)
         if size <= 0:
             break
-        part = simulator.simulate(batch_generator(settings.seed, task.index, batch), size)
+        part = simulator.simulate(batch_generator(seed, task.index, batch), size)
         tally = part if tally is None else tally + part
         batch += 1
         if settings.target_se is not None and adjusted_se(tally) <= settings.target_se:
             break
+    assert tally is not None  # every scenario simulates at least one study
     arrays = tally.to_arrays()
     if settings.target_se is not None:
         arrays["target_met"] = np.array(adjusted_se(tally) <= settings.target_se)
@@ -181,7 +186,8 @@ class MonteCarloEngine:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
         if isinstance(design.family, LatticeFamily):
             return None
-        return design.family.simulation_unsupported(design)
+        reason: str | None = design.family.simulation_unsupported(design)
+        return reason
 
     @staticmethod
     def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
@@ -282,7 +288,10 @@ def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[st
         "scenarios_resumed": resumed,
         "studies_clipped": int(sum(t.clipped for t in tallies)),
     }
-    extra: dict[str, np.ndarray] = calendar_columns(design, tallies)
+    extra: dict[str, np.ndarray] = {}
+    if tallies and tallies[0].calendar is not None:
+        extra.update(calendar_columns(design, np.array([t.calendar for t in tallies]),
+                                      replicates))
     if settings.target_se is not None:
         met = np.array([bool(res["target_met"]) for res in results])
         extra["target_se_met"] = met
@@ -291,18 +300,6 @@ def _outcome(design: Design, settings: MonteCarloSettings, results: list[dict[st
         info["scenarios_short_of_target"] = [int(i) + 1 for i in np.flatnonzero(~met)]
     return Outcome(efficacy, futility, replicates, "monte-carlo", extra=extra, info=info,
                    estimation=estimation)
-
-
-def calendar_columns(design: Design, tallies: list[Tally]) -> dict[str, np.ndarray]:
-    """The calendar columns of oc.csv (duration, enrolment, analysed subjects, look
-    times; docs/output-files.md), one value per scenario; none without ``[conduct]``."""
-    if design.conduct is None or not tallies or tallies[0].calendar is None:
-        return {}
-    pipeline = design.conduct.analyse_pipeline
-    events = design.looks.trigger == "events" or design.family.event_driven
-    rows = [t.calendar.columns(t.replicates, pipeline, events) for t in tallies
-            if t.calendar is not None]
-    return {name: np.array([row[name] for row in rows]) for name in rows[0]}
 
 
 def replicates_for(se: float, p: float = 0.5) -> int:

@@ -45,10 +45,10 @@ from octrial.design import limits
 from octrial.design.model import Design
 from octrial.endpoints import grid_family
 from octrial.endpoints.count import GammaMixture, GammaPosterior, prob_ratio, update
-from octrial.errors import InputError, Problem
+from octrial.errors import Problem, SettingsError
 from octrial.interim import adequacy
 from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary, disagreement
-from octrial.interim.observations import COUNT, CountData
+from octrial.interim.observations import COUNT, SETTING, CountData
 from octrial.interim.rule import observed_design
 from octrial.interim.subjects import read_subjects
 from octrial.numerics.parameter_grid import Grid, GridPosterior
@@ -181,7 +181,7 @@ class CountInterim(EndpointInterim):
         q, sizes, _ = units(design, observed)
         if q != 1 and design.endpoint.model == "negative-binomial":
             e = design.endpoint.exposure
-            raise InputError("--data", [Problem(
+            raise SettingsError(SETTING, [Problem(
                 arm, f"a whole number of subjects' exposure (a multiple of {e:g}: the "
                 "negative binomial model depends on the number of subjects)",
                 f"{observed[arm].exposure:g}")
@@ -190,7 +190,7 @@ class CountInterim(EndpointInterim):
         on = rescaled(design, q)
         covered = covering(on, look, sizes, self.statistics(on, observed))
         # counts far beyond the design's scenarios extend the lattice: size it first
-        limits.require_lattice_fits(covered, "--data", "", "fewer events per exposure, or "
+        limits.require_lattice_fits(covered, SETTING, "", "fewer events per exposure, or "
                                     "an exposure that is a whole number of subjects")
         return Frame(covered, sizes)
 

@@ -18,9 +18,9 @@ from octrial.caution import CAUTION
 from octrial.design.model import Design
 from octrial.design.thresholds import FUNCTIONS
 from octrial.endpoints import FAMILIES
-from octrial.errors import InputError, Problem, single
+from octrial.errors import Problem, SettingsError, bad_setting, single
 from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
-from octrial.interim.observations import OPTION, parse_data
+from octrial.interim.observations import SETTING, parse_data
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -203,9 +203,9 @@ def _check_sizes(support: EndpointInterim, frame: Frame, look: int) -> None:
                                 f"{look + 1} plans ({support.quantity(design, looks.n[look])})"
                                 f" for an analysis at look {look}",
                                 f"{support.quantity(design, sum(sizes))} in total",
-                                f"use --look {look + 1} or later"))
+                                f"use `look` {look + 1} or later"))
     if problems:
-        raise InputError("--data", problems)
+        raise SettingsError(SETTING, problems)
 
 
 def rule_at(design: Design, look: int, observed: dict[str, Any],
@@ -263,17 +263,17 @@ def decide(
     """
     looks = design.looks
     if not 1 <= look <= looks.count:
-        raise single("--look", "", f"a look between 1 and {looks.count}", look)
+        raise bad_setting("look", "", f"a look between 1 and {looks.count}", look)
     if not 0 < level < 1:
-        raise single("--level", "", "a credible level between 0 and 1 (exclusive)", level)
+        raise bad_setting("level", "", "a credible level between 0 and 1 (exclusive)", level)
     support = endpoint_support(design)
     data = tuple(data)
     path = None if subjects is None else Path(subjects)
     if not data and path is None:
         form = support.syntax.form
-        raise InputError(OPTION, [Problem(
-            "", f"the data so far: --data ARM={form} for each arm "
-            f"({', '.join(design.arm_names)}), or a per-subject file (--subjects)",
+        raise SettingsError(SETTING, [Problem(
+            "", f"the data so far: `data` ARM={form} for each arm "
+            f"({', '.join(design.arm_names)}), or a per-subject file (`subjects`)",
             "neither")])
     observed = parse_data(design, data) if data else None
     per_subject = None
@@ -285,7 +285,7 @@ def decide(
         else:
             problems = support.disagreements(design, path, from_file, observed)
             if problems:
-                raise InputError(OPTION, problems)
+                raise SettingsError(SETTING, problems)
     assert observed is not None  # from the data or the per-subject file (checked above)
     frame, assessment = rule_at(design, look, observed, seed)
     on = frame.design

@@ -7,7 +7,7 @@
 Each syntax is one small parser that the endpoint's interim support names
 (:attr:`~octrial.interim.base.EndpointInterim.syntax`), so a new endpoint adds its own.
 Parsers raise :class:`ValueError` with the expected form; the caller turns that into an
-:class:`~octrial.errors.InputError` naming the option and arm.
+:class:`~octrial.errors.SettingsError` naming the setting (``data``) and arm.
 """
 
 from __future__ import annotations
@@ -19,9 +19,10 @@ from dataclasses import dataclass
 
 from octrial.design.model import Design
 from octrial.design.reader import LARGEST, SMALLEST, Phrase, Problems, in_range, suggest
-from octrial.errors import InputError, single
+from octrial.errors import SettingsError, bad_setting
 
-OPTION = "--data"
+SETTING = "data"
+"""The setting (``decide``'s keyword argument) that holds the data of each arm."""
 
 WHOLE = r"\s*(\d+)\s*"
 DECIMAL = r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*"
@@ -134,7 +135,7 @@ def syntax_of(design: Design) -> Syntax:
         from octrial.endpoints import FAMILIES
 
         known = [name for name, family in FAMILIES.items() if family.interim() is not None]
-        raise single(OPTION, "", "an endpoint with a data syntax (" + ", ".join(known) + ")",
+        raise bad_setting(SETTING, "", "an endpoint with a data syntax (" + ", ".join(known) + ")",
                      design.endpoint.type)
     return support.syntax
 
@@ -185,5 +186,5 @@ def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
             problems.add(arm, f"the {arm} arm's data as {arm}={syntax.form}",
                          Phrase("nothing"))
     if problems:
-        raise InputError(OPTION, problems)
+        raise SettingsError(SETTING, problems)
     return {arm: found[arm] for arm in arms}

@@ -89,15 +89,18 @@ def thresholds_at(design: Design, k: int, n_total: int) -> Thresholds:
     """The thresholds of look ``k`` (from 0) when ``n_total`` subjects have been observed."""
     looks = design.looks
     last = k == looks.count - 1
-    if looks.uses_counts:
+    if looks.efficacy_count is not None:  # the rule is stated in counts
         return Thresholds(efficacy_count=looks.efficacy_count[k],
-                          futility_count=looks.futility_count[k])
+                          futility_count=None if looks.futility_count is None
+                          else looks.futility_count[k])
     values = {kind: getattr(looks, kind)[k] for kind in KINDS}
     if not last:
         information = (n_total / looks.n[-1],)
         for kind, spec in looks.specs:
             if spec.form in FUNCTIONS and values[kind] is not None:
-                values[kind] = float(np.clip(evaluate_spec(spec, information)[0], 0.0, 1.0))
+                value = evaluate_spec(spec, information)[0]
+                assert value is not None  # a function of information has a value at every look
+                values[kind] = float(np.clip(value, 0.0, 1.0))
     return Thresholds(**values)
 
 

@@ -131,9 +131,10 @@ def _applies(design: Design, k: int) -> tuple[bool, bool]:
     """Whether look ``k`` has an efficacy rule and a futility rule at all."""
     looks = design.looks
     last = k == looks.count - 1
-    if looks.uses_counts:
+    if looks.efficacy_count is not None:  # the rule is stated in counts
         efficacy = looks.efficacy_count[k] is not None
-        futility = efficacy if last else looks.futility_count[k] is not None
+        futility = efficacy if last else (looks.futility_count is not None
+                                          and looks.futility_count[k] is not None)
         return efficacy, futility
     efficacy = looks.efficacy[k] is not None
     if last:
@@ -173,7 +174,8 @@ class _Extensions:
 
 
 def _resolve(
-    row: dict[str, object], extensions: _Extensions, k: int, axis: slice | int,
+    row: dict[str, object], extensions: _Extensions, k: int,
+    axis: slice | int | tuple[slice, int],
     higher: bool, applies: tuple[bool, bool], prefix: tuple[int, ...],
     table: LookTable,
 ) -> None:
@@ -238,7 +240,7 @@ def boundary_table(design: Design, rule: LatticeRule) -> pd.DataFrame:
     for k, table in enumerate(rule.looks):
         applies = _applies(design, k) if truncated else (False, False)
         if not design.two_arm:
-            row = {"look": table.look, "n": table.n[0]}
+            row: dict[str, object] = {"look": table.look, "n": table.n[0]}
             row.update(_row(table, table.efficacy, table.futility, higher))
             _resolve(row, extensions, k, slice(None), higher, applies, (), table)
             row.update(_thresholds(design, k))

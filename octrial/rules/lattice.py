@@ -224,7 +224,8 @@ def build_rule(
     tables = []
     for k in range(looks.count):
         predictive = None
-        uncertain = _near(design, k, benefits[k], error) if grid else None
+        benefit = benefits[k]
+        uncertain = _near(design, k, benefit, error) if grid and benefit is not None else None
         threshold = None if k == k_last else looks.futility_predictive[k]
         if threshold is not None:
             pmfs = cache.predictive(design, looks.per_arm[k], looks.per_arm[-1],

@@ -106,7 +106,7 @@ def committee_text(design: Design, table: pd.DataFrame) -> str:
     else:
         name = "mean"
         claim = f"Pr(mean {'>' if higher else '<'} {h.benchmark:g} | data)"
-        null = h.benchmark
+        null = h.null_value
         error = f"{sd:g} / sqrt(n)"
     z = (f"({name} - {null:g}) / standard error" if higher
          else f"({null:g} - {name}) / standard error")
@@ -258,7 +258,7 @@ def benefit_score(prior: Any, sign: int, information: float, claim: float,
 
 def _predictive_root(prior: Any, sign: int, info_now: float, info_end: float,
                      final_upper: float, threshold: float) -> float:
-    t = _target(threshold)
+    t = threshold - DECISION_TOLERANCE
     if t <= 0:
         return -math.inf
     if not math.isfinite(final_upper):

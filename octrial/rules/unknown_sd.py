@@ -164,8 +164,8 @@ def boundary_table(design: Design, sds: tuple[float, ...] | None = None) -> pd.D
         last = k == looks.count - 1
         for sd in sds_of(design, sds):
             decision, benefit, predictive = _deciders(design, k, sd)
-            half = SPAN * sd / math.sqrt(n) + abs(prior.mean - h.benchmark)
-            sets = stopping_sets(decision, float(h.benchmark), half)
+            half = SPAN * sd / math.sqrt(n) + abs(prior.mean - h.null_value)
+            sets = stopping_sets(decision, h.null_value, half)
             eff_bound = _inner(sets[EFFICACY], sets[CONTINUE] or sets[FUTILITY])
             fut_bound = _inner(sets[FUTILITY], sets[CONTINUE] or sets[EFFICACY])
             row: dict[str, Any] = {

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from octrial.simulation.calendar_tally import CalendarTally, calendar_problems
+from octrial.simulation.calendar import calendar_size
 
 
 @dataclass(frozen=True, eq=False)
@@ -38,9 +38,9 @@ class Tally:
         true value.
     clipped : int
         Studies whose statistic ran past a truncated lattice (0 for bounded statistics).
-    calendar : CalendarTally or None
-        Duration, enrolment and look-time totals of designs with a ``[conduct]`` table
-        (``None`` without one).
+    calendar : ndarray of float, or None
+        Calendar-time totals of studies that run in calendar time
+        (:mod:`octrial.simulation.calendar`); ``None`` otherwise.
     """
 
     replicates: int
@@ -49,7 +49,7 @@ class Tally:
     error_sums: np.ndarray | None = None
     covered: int | None = None
     clipped: int = 0
-    calendar: CalendarTally | None = None
+    calendar: np.ndarray | None = None
 
     def __add__(self, other: Tally) -> Tally:
         def both(a, b):
@@ -79,7 +79,7 @@ class Tally:
             out["error_sums"] = self.error_sums
             out["covered"] = np.array(self.covered)
         if self.calendar is not None:
-            out |= self.calendar.to_arrays()
+            out["calendar"] = self.calendar
         return out
 
     @classmethod
@@ -90,7 +90,8 @@ class Tally:
                    np.asarray(arrays["futility"], dtype=np.int64),
                    None if sums is None else np.asarray(sums, dtype=float),
                    None if sums is None else int(arrays["covered"]), int(arrays["clipped"]),
-                   CalendarTally.from_arrays(arrays))
+                   None if "calendar" not in arrays else np.asarray(arrays["calendar"],
+                                                                    dtype=float))
 
 
 def tally_problems(arrays: dict[str, np.ndarray], looks: int, replicates: int | None = None,
@@ -135,7 +136,12 @@ def tally_problems(arrays: dict[str, np.ndarray], looks: int, replicates: int | 
     sums = arrays.get("error_sums")
     if sums is not None and not (np.all(np.isfinite(sums)) and sums[1] >= 0 and sums[2] >= 0):
         wrong.append("error sums not finite, or negative sums of squares")
-    return wrong + calendar_problems(arrays, looks, r)
+    calendar = arrays.get("calendar")
+    if calendar is not None and not (np.shape(calendar) == (calendar_size(looks),)
+                                     and np.all(np.isfinite(calendar))
+                                     and np.all(np.asarray(calendar) >= 0)):
+        wrong.append("calendar totals not a finite non-negative vector")
+    return wrong
 
 
 class Simulator(ABC):

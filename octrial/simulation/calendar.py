@@ -1,320 +1,138 @@
-"""Studies in calendar time: binary, count and normal designs with a ``[conduct]`` table.
+"""Calendar-time totals of simulated studies, and the oc.csv columns made from them.
 
-Per study the simulator draws every subject's enrolment time (:mod:`octrial.conduct.arrivals`)
-and, with dropout, the time each subject would be lost; a subject's outcome is observed
-``lag`` after enrolment unless the subject was lost before. Subjects are assigned to arms
-in fixed blocks (:func:`octrial.conduct.timing.arm_counts`). Each look happens when its
-trigger is met (``looks.n`` subjects with an outcome, ``looks.enrolled`` subjects enrolled,
-or the calendar time ``looks.time``); a ``looks.n`` target that dropout makes unreachable
-is met when the last outcome is observed. At a look the decision uses the subjects with
-an outcome, through the family's protocol (:meth:`~octrial.endpoints.base.Family.draw_statistics`,
-``benefit_at``, ``predictive_at``), called once per group of studies with equal counts.
+A simulator of studies that run in calendar time (``[conduct]``) adds, per study, its
+duration, subjects enrolled and analysed, and for each look it reaches the look's time and
+events, into one float vector (:attr:`octrial.simulation.base.Tally.calendar`), so that
+batches add up exactly and a checkpoint saves it as one array. Layout:
 
-A stop stops enrolment. With ``analyse_pipeline`` the outcomes of subjects enrolled
-but not yet observed at a stop for efficacy are drawn and analysed with the final
-threshold; when that analysis fails, the stop counts as reversed. Every stop still counts
-at the look where it happened (the per-look efficacy and futility columns are the
-decisions taken at the looks). The duration of a study that analyses its pipeline ends
-at the last pipeline outcome; otherwise at the look where the study ended.
+* ``[0:6]``: sums of duration, duration^2, enrolled, enrolled^2, analysed, analysed^2
+  (at the end of each study: its final analysis);
+* ``[6]``: studies that stopped for efficacy at an interim look and whose final analysis
+  including the pipeline missed the final success threshold (``analyse_pipeline``);
+* ``[7 + 3k : 10 + 3k]``: look k: studies reaching it, sum of its times, sum of its events;
+* the rest: a histogram of the durations on :data:`BINS` log-spaced bins between 1/1000
+  and 1000 times the time the design needs to enrol every subject (the quantiles'
+  resolution: 0.7% of the value; durations outside go to the end bins).
 
-The predictive probability at an interim look assumes the final look's planned counts
-(``looks.per_arm[-1]``, see :func:`octrial.conduct.reader.planned_counts`) and ignores
-the pipeline; a study already past the planned final counts uses the final threshold
-on its current data instead.
+The columns (:func:`calendar_columns`; names fixed in docs/output-files.md):
+``expected_duration(_se)``, ``duration_q10/q50/q90``, ``expected_enrolled(_se)``,
+``expected_analysed(_se)``, ``look<k>_time``, ``look<k>_events`` (time-to-event) and
+``prob_efficacy_reversed(_se)`` (with ``analyse_pipeline``).
 
-Random numbers come from the batch's generator only: enrolment gaps (Poisson arrivals)
-and dropout times first, then, look by look and arm by arm, the statistics. With even
-or fixed arrivals and no dropout nothing is drawn for the calendar, and every study shares
-one timeline; with lag 0 and looks by ``n`` the statistics are then drawn exactly as
-the generic study loop draws them, so the numbers equal those of
-:class:`~octrial.simulation.generic.StudyLoop`.
+Simulators fill it study by study (:func:`record_study`, in numba loops) or a batch at
+a time (:func:`record_studies`); both add the same totals.
 """
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
+import numba
 import numpy as np
 
-from octrial.conduct import arrivals
-from octrial.conduct.reader import last_outcome
-from octrial.conduct.timing import SLACK, allocation_block, arm_counts
-from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
-from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.calendar_tally import CalendarTally
-
-CELLS = 2_000_000
-"""Most study-by-subject cells held at once under random conduct (memory bound)."""
+BINS = 2000
+SPAN = 1000.0
+HEAD = 7
+REVERSED = 6
 
 
-def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
-    """Studies with equal per-arm counts: (counts, indices) per distinct row, in
-    ascending order of the rows."""
-    if counts.shape[0] == 0:
-        return []
-    rows, inverse = np.unique(counts, axis=0, return_inverse=True)
-    inverse = inverse.reshape(-1)
-    return [(tuple(int(v) for v in row), np.flatnonzero(inverse == g))
-            for g, row in enumerate(rows)]
+def calendar_size(looks: int) -> int:
+    """Length of the calendar vector of a ``looks``-look design."""
+    return HEAD + 3 * looks + BINS
 
 
-class CalendarStudies(Simulator):
-    """Studies of a design with ``[conduct]`` at the true values ``truth``.
+def duration_edges(design: Any) -> np.ndarray:
+    """The histogram's bin edges for ``design`` (module docstring)."""
+    conduct = design.conduct
+    scale = conduct.accrual.time_of(conduct.max_enrolment) if conduct is not None else 1.0
+    scale = scale if scale > 0 else 1.0
+    return scale * np.logspace(-np.log10(SPAN), np.log10(SPAN), BINS + 1)
 
-    Parameters
-    ----------
-    design : Design
-        A design with ``conduct`` whose family the generic study loop can simulate.
-    truth : tuple of float
-        One true parameter value per arm.
-    level : float
-        Credible level of the intervals whose coverage is counted.
-    """
 
-    kernel = "general"
+@numba.njit(cache=True)
+def record_study(calendar: np.ndarray, edges: np.ndarray, k: int, time: float,
+                 enrolled: float, events: float, ended: bool) -> None:
+    """Add one study's look ``k`` (at ``time``, with ``events`` so far) and, when the
+    study ``ended`` there, its duration and sizes."""
+    base = HEAD + 3 * k
+    calendar[base] += 1.0
+    calendar[base + 1] += time
+    calendar[base + 2] += events
+    if not ended:
+        return
+    calendar[0] += time
+    calendar[1] += time * time
+    calendar[2] += enrolled
+    calendar[3] += enrolled * enrolled
+    calendar[4] += enrolled
+    calendar[5] += enrolled * enrolled
+    bins = edges.size - 1  # the histogram is the vector's last part
+    at = int(np.searchsorted(edges, time, side="right")) - 1
+    at = min(max(at, 0), bins - 1)
+    calendar[calendar.size - bins + at] += 1.0
 
-    def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
-        reason = design.family.simulation_unsupported(design)
-        if reason:
-            raise ValueError(reason)
-        if design.looks.trigger == "events":
-            raise ValueError("looks by events need a time-to-event simulator")
-        self.design = design
-        self.conduct = design.conduct
-        self.truth = tuple(float(t) for t in truth)
-        self.rule = Rule.of(design.looks)
-        self.looks = design.looks.count
-        self.tail = (1.0 - level) / 2.0
-        self.target = float(design.family.target_value(design.hypothesis, self.truth))
-        block = allocation_block([a.allocation for a in design.arms])
-        m = self.conduct.max_enrolment
-        # arm of each subject in enrolment order
-        self.arm_of = np.argmax(np.diff(arm_counts(np.arange(m + 1), block), axis=0), axis=1)
-        self.horizon = self._horizon()
 
-    def _horizon(self) -> float:
-        """An upper bound of the duration for the histogram (exact for deterministic
-        accrual; under Poisson arrivals 8 standard deviations past the expected last
-        enrolment at the slowest rate)."""
-        conduct, looks = self.conduct, self.design.looks
-        end = last_outcome(conduct)
-        if not conduct.accrual.deterministic:
-            end += 8.0 * math.sqrt(conduct.max_enrolment) / min(conduct.accrual.rates)
-        if looks.trigger == "time":
-            end = max(end, max(looks.at))
-        return float(end) * (1.0 + 1e-6)
+def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray,
+                   enrolled: np.ndarray, analysed: np.ndarray, look_times: np.ndarray,
+                   reversed_: int = 0) -> None:
+    """Add a batch of studies: per study its duration, subjects enrolled and analysed,
+    and each look's time (shape ``(studies, looks)``, NaN where the study ended before
+    the look); ``reversed_`` efficacy stops the pipeline reversed. Events stay 0."""
+    duration = np.asarray(duration, dtype=float)
+    enrolled = np.asarray(enrolled, dtype=float)
+    analysed = np.asarray(analysed, dtype=float)
+    calendar[:6] += (duration.sum(), (duration * duration).sum(), enrolled.sum(),
+                     (enrolled * enrolled).sum(), analysed.sum(), (analysed * analysed).sum())
+    calendar[REVERSED] += reversed_
+    reached = ~np.isnan(look_times)
+    looks = look_times.shape[1]
+    calendar[HEAD:HEAD + 3 * looks:3] += reached.sum(axis=0)
+    calendar[HEAD + 1:HEAD + 3 * looks:3] += np.where(reached, look_times, 0.0).sum(axis=0)
+    bins = edges.size - 1
+    at = np.clip(np.searchsorted(edges, duration, side="right") - 1, 0, bins - 1)
+    calendar[calendar.size - bins:] += np.bincount(at, minlength=bins)
 
-    def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
-        """Simulate ``replicates`` studies with random numbers from ``rng`` only."""
-        conduct = self.conduct
-        if conduct.deterministic:
-            return self._chunk(rng, replicates)
-        size = max(1, CELLS // conduct.max_enrolment)
-        tally: Tally | None = None
-        for start in range(0, replicates, size):
-            part = self._chunk(rng, min(size, replicates - start))
-            tally = part if tally is None else tally + part
-        assert tally is not None
-        return tally
 
-    # -- one chunk of studies -------------------------------------------------------
-    def _timeline(self, rng: np.random.Generator, studies: int) -> tuple[np.ndarray, np.ndarray]:
-        """Enrolment and outcome times (``inf``: lost before the outcome); one shared
-        row under deterministic conduct."""
-        conduct = self.conduct
-        m = conduct.max_enrolment
-        gaps = (None if conduct.accrual.deterministic
-                else rng.standard_exponential((studies, m)))
-        enrol = arrivals.enrolment_times(conduct.accrual, gaps, studies, m)
-        observed = enrol + conduct.lag
-        if conduct.dropout_hazard > 0:
-            lost = arrivals.dropout_times(rng.standard_exponential((studies, m)),
-                                          conduct.dropout_hazard)
-            observed = np.where(lost < conduct.lag, np.inf, np.broadcast_to(observed,
-                                                                           lost.shape))
-        return enrol, observed
+def calendar_columns(design: Any, calendars: np.ndarray,
+                     replicates: np.ndarray) -> dict[str, np.ndarray]:
+    """The oc.csv columns of the calendar totals (one row per scenario)."""
+    looks = design.looks.count
+    r = replicates.astype(float)
+    edges = duration_edges(design)
+    out: dict[str, np.ndarray] = {}
+    for name, first in (("duration", 0), ("enrolled", 2), ("analysed", 4)):
+        mean = calendars[:, first] / r
+        variance = np.maximum(calendars[:, first + 1] / r - mean**2, 0.0)
+        out[f"expected_{name}"] = mean
+        out[f"expected_{name}_se"] = np.sqrt(variance / r)
+        if name == "duration":
+            hist = calendars[:, HEAD + 3 * looks:]
+            for q in (10, 50, 90):
+                out[f"duration_q{q}"] = np.array([_quantile(row, edges, q / 100)
+                                                   for row in hist])
+    for k in range(looks):
+        reached = calendars[:, HEAD + 3 * k]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[f"look{k + 1}_time"] = np.where(
+                reached > 0, calendars[:, HEAD + 3 * k + 1] / reached, np.nan)
+            if design.family.event_driven:
+                out[f"look{k + 1}_events"] = np.where(
+                    reached > 0, calendars[:, HEAD + 3 * k + 2] / reached, np.nan)
+    if design.conduct is not None and design.conduct.analyse_pipeline:
+        p = calendars[:, REVERSED] / r
+        out["prob_efficacy_reversed"] = p
+        out["prob_efficacy_reversed_se"] = np.sqrt(p * (1.0 - p) / r)
+    return out
 
-    def _look_time(self, k: int, enrol: np.ndarray, observed: np.ndarray) -> np.ndarray:
-        looks = self.design.looks
-        rows = enrol.shape[0]
-        if looks.trigger == "time":
-            return np.full(rows, looks.at[k])
-        if looks.trigger == "enrolled":
-            return enrol[:, int(looks.at[k]) - 1].copy()
-        n = looks.n[k]
-        ordered = observed if self.conduct.dropout_hazard == 0 else np.sort(observed, axis=1)
-        t = ordered[:, n - 1].copy()
-        # a target dropout made unreachable: the look waits for the last outcome
-        last = np.where(np.isfinite(ordered), ordered, -np.inf).max(axis=1)
-        return np.where(np.isfinite(t), t, last)
 
-    def _counts(self, times: np.ndarray, t: np.ndarray) -> np.ndarray:
-        """Per row and arm: subjects with times at or before ``t``."""
-        limit = (t + SLACK * np.maximum(1.0, np.abs(t)))[:, None]
-        arms = len(self.design.arms)
-        before = times <= limit
-        return np.stack([before[:, self.arm_of == j].sum(axis=1) for j in range(arms)],
-                        axis=1).astype(np.int64)
-
-    def _draw(self, rng: np.random.Generator, statistics: list[np.ndarray],
-              increments: np.ndarray) -> None:
-        """Add each arm's statistic of its new subjects, grouped by equal increments."""
-        family, design = self.design.family, self.design
-        for j in range(len(statistics)):
-            values = increments[:, j]
-            distinct = np.unique(values)
-            if distinct.size == 1:
-                if distinct[0] > 0:
-                    statistics[j] = statistics[j] + family.draw_statistics(
-                        design, j, self.truth[j], int(distinct[0]), rng, values.size)
-                continue
-            added = np.zeros(values.size)
-            for v in distinct:
-                if v > 0:
-                    where = values == v
-                    added[where] = family.draw_statistics(design, j, self.truth[j], int(v),
-                                                          rng, int(where.sum()))
-            statistics[j] = statistics[j] + added
-
-    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
-        """Decision codes at look ``k`` from the data of subjects with an outcome."""
-        design, family, rule = self.design, self.design.family, self.rule
-        final = design.looks.per_arm[-1]
-        codes = np.full(counts.shape[0], CONTINUE if k < rule.last else FUTILITY,
-                        dtype=np.int64)
-        for n, where in _groups(counts):
-            if min(n) < 1:
-                continue  # an arm without outcomes: no decision possible
-            now = tuple(x[where] for x in statistics)
-            benefit = family.benefit_at(design, now, n)
-            here = rule.decide_many(k, benefit)
-            if rule.has_predictive(k) and np.any(here == CONTINUE):
-                open_ = here == CONTINUE
-                predictive = np.ones(where.size)
-                if all(a <= b for a, b in zip(n, final, strict=True)):
-                    predictive[open_] = family.predictive_at(
-                        design, tuple(x[open_] for x in now), n)
-                else:
-                    passed = rule.decide_many(rule.last, benefit[open_]) == EFFICACY
-                    predictive[open_] = passed.astype(float)
-                here = rule.decide_many(k, benefit, predictive)
-            codes[where] = here
-        return codes
-
-    def _final_success(self, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
-        success = np.zeros(counts.shape[0], dtype=bool)
-        for n, where in _groups(counts):
-            if min(n) < 1:
-                continue
-            benefit = self.design.family.benefit_at(
-                self.design, tuple(x[where] for x in statistics), n)
-            success[where] = self.rule.decide_many(self.rule.last, benefit) == EFFICACY
-        return success
-
-    def _estimate(self, statistics: list[np.ndarray], counts: np.ndarray,
-                  sums: np.ndarray) -> int | None:
-        """Add the estimation sums of stopping studies; their covered count (``None``:
-        the family offers no estimate)."""
-        covered = 0
-        for n, where in _groups(counts):
-            if min(n) < 1:
-                continue
-            found = self.design.family.estimate_at(
-                self.design, tuple(x[where] for x in statistics), n, self.target)
-            if found is None:
-                return None
-            error = found[0] - self.target
-            squared = error * error
-            sums += (error.sum(), squared.sum(), (squared * squared).sum())
-            covered += int(np.count_nonzero((self.tail <= found[1])
-                                            & (found[1] <= 1.0 - self.tail)))
-        return covered
-
-    def _chunk(self, rng: np.random.Generator, studies: int) -> Tally:
-        conduct, design = self.conduct, self.design
-        arms = len(design.arms)
-        shared = conduct.deterministic
-        enrol, observed = self._timeline(rng, studies)
-        m = conduct.max_enrolment
-        enrol_all = np.broadcast_to(enrol, (studies, m))
-        observed_all = np.broadcast_to(observed, (studies, m))
-        efficacy = np.zeros(self.looks, dtype=np.int64)
-        futility = np.zeros(self.looks, dtype=np.int64)
-        sums, covered, estimated = np.zeros(3), 0, True
-        duration = np.zeros(studies)
-        enrolled = np.zeros(studies)
-        analysed = np.zeros(studies)
-        look_times = np.full((studies, self.looks), np.nan)
-        reversed_ = 0
-        running = np.arange(studies)
-        statistics: list[np.ndarray] = [np.zeros(studies) for _ in range(arms)]
-        before = np.zeros((studies, arms), dtype=np.int64)
-        for k in range(self.looks):
-            if running.size == 0:
-                break
-            if shared:
-                rows_e, rows_o = enrol, observed
-            else:
-                rows_e, rows_o = enrol_all[running], observed_all[running]
-            t = self._look_time(k, rows_e, rows_o)
-            complete = self._counts(rows_o, t)
-            in_study = self._counts(rows_e, t).sum(axis=1)
-            if shared:
-                t = np.broadcast_to(t, running.shape)
-                complete = np.broadcast_to(complete, (running.size, arms))
-                in_study = np.broadcast_to(in_study, running.shape)
-            self._draw(rng, statistics, complete - before)
-            before = np.array(complete)
-            codes = self._decide(k, statistics, before)
-            stops = codes != CONTINUE
-            efficacy[k] = int(np.count_nonzero(codes == EFFICACY))
-            futility[k] = int(np.count_nonzero(codes == FUTILITY))
-            look_times[running, k] = t
-            ended = running[stops]
-            duration[ended] = t[stops]
-            enrolled[ended] = in_study[stops]
-            analysed[ended] = before[stops].sum(axis=1)
-            if estimated and np.any(stops):
-                found = self._estimate([x[stops] for x in statistics], before[stops], sums)
-                if found is None:
-                    estimated = False
-                else:
-                    covered += found
-            if conduct.analyse_pipeline and k < self.rule.last and np.any(codes == EFFICACY):
-                reversed_ += self._pipeline(rng, k, codes == EFFICACY, running, t, statistics,
-                                            before, rows_e, rows_o, duration, analysed, shared)
-            keep = ~stops
-            running = running[keep]
-            statistics = [x[keep] for x in statistics]
-            before = before[keep]
-        calendar = CalendarTally.of_studies(self.horizon, duration, enrolled, analysed,
-                                            look_times, reversed_=reversed_)
-        if not estimated:
-            return Tally(studies, efficacy, futility, calendar=calendar)
-        return Tally(studies, efficacy, futility, sums, covered, calendar=calendar)
-
-    def _pipeline(self, rng: np.random.Generator, k: int, chosen: np.ndarray,
-                  running: np.ndarray, t: np.ndarray, statistics: list[np.ndarray],
-                  counts: np.ndarray, rows_e: np.ndarray, rows_o: np.ndarray,
-                  duration: np.ndarray, analysed: np.ndarray, shared: bool) -> int:
-        """Analyse the pipeline of studies stopped for efficacy at look ``k``: their
-        final analysis, duration and subjects analysed; returns how many reversed."""
-        t_c = np.asarray(t[chosen])
-        e, o = (rows_e, rows_o) if shared else (rows_e[chosen], rows_o[chosen])
-        t_rows = t_c[:1] if shared else t_c
-        waiting = e <= (t_rows + SLACK * np.maximum(1.0, np.abs(t_rows)))[:, None]
-        seen = waiting & np.isfinite(o)
-        final_counts = np.stack([seen[:, self.arm_of == j].sum(axis=1)
-                                 for j in range(counts.shape[1])], axis=1).astype(np.int64)
-        last = np.where(seen, o, -np.inf).max(axis=1)
-        if shared:
-            final_counts = np.broadcast_to(final_counts, (t_c.size, counts.shape[1]))
-            last = np.broadcast_to(last, t_c.shape)
-        stats = [x[chosen] for x in statistics]
-        self._draw(rng, stats, final_counts - counts[chosen])
-        success = self._final_success(stats, np.asarray(final_counts))
-        ids = running[chosen]
-        duration[ids] = np.maximum(t_c, last)
-        analysed[ids] = final_counts.sum(axis=1)
-        return int(np.count_nonzero(~success))
+def _quantile(counts: np.ndarray, edges: np.ndarray, q: float) -> float:
+    """The q-quantile of a histogram, log-linear within its bin."""
+    total = counts.sum()
+    if total <= 0:
+        return float("nan")
+    cumulative = np.cumsum(counts) / total
+    at = int(np.searchsorted(cumulative, q, side="left"))
+    below = cumulative[at - 1] if at > 0 else 0.0
+    share = (q - below) / (cumulative[at] - below) if cumulative[at] > below else 0.5
+    lo, hi = np.log(edges[at]), np.log(edges[at + 1])
+    return float(np.exp(lo + share * (hi - lo)))

@@ -283,7 +283,9 @@ class NormalSimulator(Simulator):
 
     kernel = "general"
 
-    def __new__(cls, design: Design, truth: tuple[float, ...], level: float) -> Simulator:
+    # returns the unknown-sd simulator, a sibling class, for unknown-sd designs
+    def __new__(  # type: ignore[misc]
+            cls, design: Design, truth: tuple[float, ...], level: float) -> Simulator:
         if cls is NormalSimulator and not design.endpoint.known_sd:
             from octrial.simulation.normal_unknown import UnknownSdSimulator
 
@@ -331,8 +333,10 @@ class NormalSimulator(Simulator):
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         sums = np.zeros(3)
-        covered = known_sd_studies(data[0], *self.arguments, estimate, self.target, self.tail,
-                                   self.tolerance, efficacy, futility, sums)
+        # numba's Dispatcher type does not carry the compiled function's parameters
+        covered = known_sd_studies(  # type: ignore[call-arg]
+            data[0], *self.arguments, estimate, self.target, self.tail, self.tolerance,
+            efficacy, futility, sums)
         if not estimate:
             return Tally(replicates, efficacy, futility)
         return Tally(replicates, efficacy, futility, sums, int(covered))

@@ -445,7 +445,9 @@ def two_arm_predictive_rules(
             if m > 1:
                 draws[k, :, 2 * i] = stats.beta.ppf(uniform[:, 2 * i], (m - 1) / 2, a_now)
             draws[k, :, 2 * i + 1] = stats.t.ppf(uniform[:, 2 * i + 1], 2 * half)
-    gamma = looks.efficacy[-1] - DECISION_TOLERANCE
+    final = looks.efficacy[-1]
+    assert final is not None  # the last look always has an efficacy threshold (load.py)
+    gamma = final - DECISION_TOLERANCE
     return constants, draws, quantile_table(2 * a_end[0], 2 * a_end[1], gamma)
 
 
@@ -537,7 +539,7 @@ class UnknownSdSimulator(Simulator):
             n = np.array([per[0] for per in looks.per_arm], dtype=float)
             self.arguments = (
                 self.sizes[:, 0].astype(float), n, priors[0], float(h.sign),
-                float(h.benchmark), *rule, *predictive_rules(design))
+                h.null_value, *rule, *predictive_rules(design))
 
     def draw(self, rng: np.random.Generator, replicates: int, mean: np.ndarray | None = None,
              sd: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
@@ -545,7 +547,9 @@ class UnknownSdSimulator(Simulator):
         :meth:`octrial.simulation.normal.NormalSimulator.draw`."""
         mean = self.truth if mean is None else mean
         sd = self.sd if sd is None else sd
-        return draw_increments(rng, replicates, self.sizes, mean, sd, True)
+        means, squares = draw_increments(rng, replicates, self.sizes, mean, sd, True)
+        assert squares is not None  # asked for
+        return means, squares
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         return self.run(self.draw(rng, replicates), replicates, True)
@@ -558,12 +562,15 @@ class UnknownSdSimulator(Simulator):
         futility = np.zeros(self.looks, dtype=np.int64)
         sums = np.zeros(3)
         common = (estimate, self.target, self.tail, self.tolerance)
+        # numba's Dispatcher type does not carry the compiled functions' parameters
         if self.two_arm:
-            covered = two_arm_studies(means, squares, *self.arguments, *common,
-                                      *self.quadrature, efficacy, futility, sums)
+            covered = two_arm_studies(  # type: ignore[call-arg]
+                means, squares, *self.arguments, *common, *self.quadrature, efficacy,
+                futility, sums)
         else:
-            covered = one_arm_studies(means[:, :, 0], squares[:, :, 0], *self.arguments,
-                                      *common, efficacy, futility, sums)
+            covered = one_arm_studies(  # type: ignore[call-arg]
+                means[:, :, 0], squares[:, :, 0], *self.arguments, *common, efficacy,
+                futility, sums)
         if not estimate:
             return Tally(replicates, efficacy, futility)
         return Tally(replicates, efficacy, futility, sums, int(covered))

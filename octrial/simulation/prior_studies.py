@@ -112,7 +112,9 @@ def simulate_under_design_prior(
             checked += 1
             if target_se is not None and adjusted_se(total) <= target_se:
                 return total
+        assert total is not None  # at least one batch ran
         if checked >= cap:
             return total
+        assert target_se is not None  # without a target every batch ran above
         needed = total.replicates * (adjusted_se(total) / target_se) ** 2
         batches = min(cap, max(batches + 1, -(-math.ceil(needed) // batch_size)))
