@@ -184,6 +184,10 @@ class MonteCarloEngine:
     @staticmethod
     def unsupported(design: Design) -> str | None:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
+        if design.conduct is not None and not design.family.event_driven:
+            from octrial.simulation.calendar_studies import calendar_unsupported
+
+            return calendar_unsupported(design)
         if isinstance(design.family, LatticeFamily):
             return None
         reason: str | None = design.family.simulation_unsupported(design)

@@ -38,6 +38,7 @@ import numpy as np
 
 from octrial.conduct import arrivals
 from octrial.conduct.timing import SLACK, allocation_block, arm_counts
+from octrial.endpoints.base import Family
 from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import calendar_size, duration_edges, record_studies
@@ -57,6 +58,21 @@ def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
             for g, row in enumerate(rows)]
 
 
+def calendar_unsupported(design: Any) -> str | None:
+    """Why :class:`CalendarStudies` cannot simulate ``design``, or ``None``."""
+    family, looks = design.family, design.looks
+    if looks.uses_counts:
+        return ("a rule stated in counts is not simulated in calendar time yet; state it "
+                "as probability thresholds")
+    if type(family).benefit_at is Family.benefit_at:
+        return f"{family.name} endpoints have no posterior probability per simulated study"
+    if any(v is not None for v in looks.futility_predictive) and not family.offers_predictive():
+        return (f"{family.name} endpoints offer no predictive probability per simulated "
+                "study, so a design with [conduct] and looks.futility_predictive cannot be "
+                "simulated")
+    return None
+
+
 class CalendarStudies(Simulator):
     """Studies of a design with ``[conduct]`` at the true values ``truth``.
 
@@ -73,7 +89,7 @@ class CalendarStudies(Simulator):
     kernel = "general"
 
     def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
-        reason = design.family.simulation_unsupported(design)
+        reason = calendar_unsupported(design)
         if reason:
             raise ValueError(reason)
         if design.looks.trigger == "events":
