@@ -275,6 +275,7 @@ def _read_looks(
         return None
     trigger = TRIGGERS[key]
     at: tuple[float, ...] = ()
+    per_arm: tuple[tuple[int, ...], ...] | None
     if trigger in ("enrolled", "time") or (trigger == "events" and not event_driven):
         timing = _read_trigger(table, key, arms, family, conduct, top.has("conduct"))
         if timing is None:
