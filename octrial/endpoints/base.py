@@ -100,6 +100,8 @@ class Family(ABC):
     event_driven: ClassVar[bool] = False
     """Whether studies run in calendar time with looks at event counts (``[looks] events``
     and a required ``[conduct]`` table: time-to-event endpoints)."""
+    look_unit: ClassVar[str] = "subjects"
+    """What ``[looks]`` counts, for reports (``'events'`` for event-driven looks)."""
     statistic: ClassVar[str] = "sample mean"
     """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
 

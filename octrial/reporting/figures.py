@@ -75,6 +75,8 @@ class PlotFacts:
         Where the null boundary lies on the horizontal axis.
     looks : tuple of int
         Total sample size at each look.
+    look_unit : str
+        What the looks count (subjects, or events).
     alpha : float or None
         Stated type I error level (drawn as the alpha line).
     max_type1 : float or None
@@ -98,6 +100,7 @@ class PlotFacts:
     max_type1: float | None
     power_target: float | None = None
     alternative_at: float | None = None
+    look_unit: str = "subjects"
     chosen_n: int | None = None
 
 
@@ -142,7 +145,8 @@ def _plot_facts(data: Any) -> PlotFacts:
     p, u = wording.parameter(design), wording.unit(design)
     h = design.hypothesis
     t1 = data.type1
-    common = {"looks": tuple(design.looks.n), "alpha": data.alpha,
+    common = {"looks": tuple(design.looks.n), "look_unit": design.family.look_unit,
+              "alpha": data.alpha,
               "max_type1": None if t1 is None else float(t1["max_type1_error"]),
               **_calibration_facts(data)}
     if not design.two_arm:
@@ -435,7 +439,7 @@ def expected_sample_size(data: Any, facts: PlotFacts) -> Figure:
                        label=f"null boundary ({truth(facts.null_at)})")
         ax.set_ylim(0, facts.looks[-1] * 1.05)
         ax.set_xlabel(facts.x_label)
-        ax.set_ylabel("expected total sample size (subjects)")
+        ax.set_ylabel(f"expected total sample size ({facts.look_unit})")
         ax.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
     caption = ("Expected total sample size E[N] against the true value; the dashed "
                "horizontal lines are the planned looks.")

@@ -292,6 +292,33 @@ def type1_sentence(data: Any) -> str:
     return text
 
 
+def conduct_assumptions(design: Any) -> list[str]:
+    """The assumptions of calendar-time conduct (``[conduct]``), in place of the
+    outcome-at-enrolment and looks-at-sample-size ones."""
+    c = design.conduct
+    unit = c.time_unit
+    accrual = c.accrual
+    if accrual.arrivals == "fixed":
+        entry = "at the stated fixed enrolment times"
+    else:
+        rates = ", ".join(f"{r:g} per {unit} from {unit} {s:g}" for r, s in
+                          zip(accrual.rates, accrual.starts, strict=True))
+        entry = ("as a Poisson process" if accrual.arrivals == "poisson" else
+                 "evenly") + f" at {rates}"
+    loss = (f"an exponential time to loss to follow-up with hazard {c.dropout_hazard:g} per "
+            f"{unit}, independent of the outcome (non-informative censoring)"
+            if c.dropout_hazard > 0 else "no loss to follow-up")
+    blocks = ":".join(f"{a.allocation:g}" for a in design.arms)
+    return [
+        f"Subjects enter {entry}, up to {c.max_enrolment} in total, allocated in fixed "
+        f"blocks ({blocks}); each has {loss}, and follow-up is censored at each analysis.",
+        f"Looks happen when the study has seen exactly the planned numbers of "
+        f"{design.family.look_unit} ({', '.join(str(n) for n in design.looks.n)}); if "
+        f"fewer can ever be seen, the analysis happens when every subject's follow-up has "
+        "ended and is the final one. A stop ends enrolment.",
+    ]
+
+
 def assumptions(data: Any) -> list[str]:
     """Every assumption the report's numbers depend on."""
     design = data.design
@@ -312,6 +339,8 @@ def assumptions(data: Any) -> list[str]:
         "The type I error is evaluated at the null scenarios of the grid only; the composite "
         "null region between grid points is not searched here.",
     ]
+    if design.conduct is not None:
+        items[1:3] = conduct_assumptions(design)
     covered = null_boundary_covered(design, data.oc)
     if covered is False:
         items.append("The grid has no scenario on the null boundary; for a monotone rule the "
