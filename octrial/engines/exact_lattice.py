@@ -21,7 +21,7 @@ from octrial.engines.lattice_programme import add_increment, run_programme
 from octrial.engines.outcome import Estimation, Outcome
 from octrial.engines.pipeline import calendar_extra, exact_unsupported, reversed_efficacy, timing
 from octrial.rules.estimates import LatticeEstimates, coverage_tables, lattice_estimates
-from octrial.rules.lattice import LatticeRule, build_rule
+from octrial.rules.lattice import LatticeCache, LatticeRule, build_rule
 
 
 def stopped_mass(
@@ -119,12 +119,13 @@ class ExactLatticeEngine:
         efficacy, futility, neglected, uncertain, moments, coverage = [], [], [], [], [], []
         plan = timing(design) if design.conduct is not None else None
         reversed_ = []
+        finals = LatticeCache()  # final-threshold tables at the pipeline's sizes, shared
         for t in truths:
             mass, eff, fut, lost, unsure = stopped_mass(design, rule, tuple(t))
             if plan is not None and design.conduct is not None and design.conduct.analyse_pipeline:
                 reversed_.append(sum(
                     reversed_efficacy(design, tuple(t), np.where(table.efficacy, m, 0.0),
-                                      plan.complete[k], plan.enrolled[k])
+                                      plan.complete[k], plan.enrolled[k], finals)
                     for k, (m, table) in enumerate(zip(mass[:-1], rule.looks[:-1],
                                                        strict=True))))
             efficacy.append(eff)
@@ -141,6 +142,8 @@ class ExactLatticeEngine:
         }
         if rule.reach is not None:
             info["truncation_epsilon"] = design.family.truncation_epsilon
+        if reversed_:
+            info["pipeline_quadrature_error_bound"] = finals.error
         if uncertain and max(uncertain) > 0:
             info["max_uncertain_mass"] = float(max(uncertain))
         estimation = None
