@@ -59,7 +59,8 @@ def test_zero_lag_equals_the_engine_without_conduct(name):
     b = ExactLatticeEngine.run(timed, truths)
     assert np.array_equal(a.efficacy, b.efficacy)
     assert np.array_equal(a.futility, b.futility)
-    assert a.info == b.info
+    # run.json gains only the error bound of the pipeline's final analysis
+    assert a.info == {k: v for k, v in b.info.items() if k != "pipeline_quadrature_error_bound"}
     assert np.array_equal(a.estimation.error_moments, b.estimation.error_moments)
     assert np.array_equal(a.estimation.coverage, b.estimation.coverage)
     assert a.extra == {}
