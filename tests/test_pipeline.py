@@ -322,3 +322,34 @@ def test_exact_only_for_deterministic_conduct():
     timed = dataclasses.replace(normal, conduct=Conduct(Accrual(rates=(5.0,), arrivals="even"),
                                                         normal.looks.n[-1], 1.0))
     assert choose(timed, "auto").name == "monte-carlo"
+
+
+# -- exact against the library's calendar simulator -------------------------------------
+def test_exact_against_calendar_simulation_looks_by_time_two_to_one():
+    # 2:1 allocation, looks by calendar time; source of the check: the Monte Carlo engine
+    # of simulation/calendar_studies.py (its own timeline, drawn study by study)
+    from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
+
+    design = build(TWO_ARM, arms__treatment__allocation=2,
+                   conduct={**EVEN, "max_enrolment": 60, "outcome_lag": 2.5,
+                            "analyse_pipeline": True},
+                   looks={"time": [8.0, 17.5], "efficacy": [0.95, 0.9], "futility": 0.2,
+                          "futility_predictive": 0.1},
+                   scenarios={"control": [0.3], "effect": [0.0, 0.3]})
+    truths = np.array([[0.3, 0.3], [0.6, 0.3]])
+    exact = ExactLatticeEngine.run(design, truths)
+    r = 40_000
+    mc = MonteCarloEngine.run(design, truths,
+                              settings=MonteCarloSettings(replicates=r, seed=17))
+    for got, want in ((mc.efficacy, exact.efficacy), (mc.futility, exact.futility)):
+        se = np.sqrt(want * (1 - want) / r)
+        assert np.all(np.abs(got - want) <= Z * se + 1e-12)
+    p = exact.extra["prob_efficacy_reversed"]
+    assert np.all(p > 0)
+    assert np.all(np.abs(mc.extra["prob_efficacy_reversed"] - p)
+                  <= Z * np.sqrt(p * (1 - p) / r))
+    for name in ("duration", "enrolled", "analysed"):
+        got, se = mc.extra[f"expected_{name}"], mc.extra[f"expected_{name}_se"]
+        assert np.all(np.abs(got - exact.extra[f"expected_{name}"]) <= Z * se + 1e-12), name
+    for k in (1, 2):
+        assert np.allclose(mc.extra[f"look{k}_time"], exact.extra[f"look{k}_time"])
