@@ -58,7 +58,8 @@ def final_success(design: Design, n: tuple[int, ...], sizes: tuple[int, ...],
     cache = LatticeCache() if cache is None else cache
     benefit = cache.benefit(design, n, sizes)
     rule = Rule.of(design.looks)
-    return rule.decide_many(rule.last, benefit) == EFFICACY
+    success: np.ndarray = rule.decide_many(rule.last, benefit) == EFFICACY
+    return success
 
 
 def _remaining_pmf(design: Design, arm: int, x: int, n: int, pipeline: int, future: int,
@@ -69,7 +70,7 @@ def _remaining_pmf(design: Design, arm: int, x: int, n: int, pipeline: int, futu
     post = family.posterior(design, arm, n, np.array([x]))
     first = _padded(family.predictive_pmf(design, post, pipeline, size)[0], size)
     out = np.zeros(size)
-    for y in np.flatnonzero(first > 0):
+    for y in (int(v) for v in np.flatnonzero(first > 0)):
         if future == 0:
             out[y] += first[y]
             continue
