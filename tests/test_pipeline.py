@@ -353,3 +353,19 @@ def test_exact_against_calendar_simulation_looks_by_time_two_to_one():
         assert np.all(np.abs(got - exact.extra[f"expected_{name}"]) <= Z * se + 1e-12), name
     for k in (1, 2):
         assert np.allclose(mc.extra[f"look{k}_time"], exact.extra[f"look{k}_time"])
+
+
+def test_count_rule_in_calendar_time_without_pipeline_analysis():
+    # a rule stated in counts decides at the looks' outcome counts; only the pipeline's
+    # final analysis needs a probability threshold. Source: the engine without [conduct]
+    # (looks by n: the same counts) and the closed form of the look times n_k / 4 + lag.
+    data = {**ONE_ARM, "looks": {"n": [10, 20], "efficacy_count": ["none", 7],
+                                 "futility_count": [1, "none"]}}
+    plain = build(data)
+    timed = _timed(data, lag=2.0, max_enrolment=20, pipeline=False)
+    truths = np.array([[0.2], [0.4]])
+    a, b = ExactLatticeEngine.run(plain, truths), ExactLatticeEngine.run(timed, truths)
+    assert np.array_equal(a.efficacy, b.efficacy) and np.array_equal(a.futility, b.futility)
+    assert b.extra["look1_time"][0] == 10 / 4 + 2.0
+    refused = _timed(data, lag=2.0, max_enrolment=20, pipeline=True)
+    assert "counts" in ExactLatticeEngine.unsupported(refused)

@@ -231,7 +231,7 @@ def exact_unsupported(design: Any) -> str | None:
                 "(exact needs even or fixed arrivals and no dropout)")
     if design.looks.trigger == "events":
         return "looks by events need a time-to-event engine"
-    if design.looks.uses_counts:
-        return ("a rule stated in counts has no final threshold at the pipeline's sizes; "
-                "state it as probability thresholds")
+    if design.looks.uses_counts and conduct.analyse_pipeline:
+        return ("a rule stated in counts has no final threshold at the pipeline's sizes "
+                "(analyse_pipeline); state it as probability thresholds")
     return None
