@@ -197,3 +197,15 @@ def test_proportion_lost_matches_the_closed_form():
     assert abs(lost - want) <= Z * np.sqrt(want * (1 - want) / n)
     assert Conduct(Accrual(rates=(1.0,)), 10, lag=lag,
                    dropout_hazard=hazard).lost_before_outcome == pytest.approx(want)
+
+
+def test_auto_method_simulates_designs_in_calendar_time():
+    # no exact engine models [conduct] yet: 'auto' simulates, 'exact' is refused plainly
+    from octrial.engines import choose
+    from octrial.errors import InputError
+
+    design = load_design("designs/delayed-response.toml")
+    assert choose(design, "auto") is MonteCarloEngine
+    with pytest.raises(InputError, match="calendar-time conduct"):
+        choose(design, "exact")
+    assert choose(dataclasses.replace(design, conduct=None), "auto") is ExactLatticeEngine
