@@ -209,3 +209,27 @@ def test_auto_method_simulates_designs_in_calendar_time():
     with pytest.raises(InputError, match="calendar-time conduct"):
         choose(design, "exact")
     assert choose(dataclasses.replace(design, conduct=None), "auto") is ExactLatticeEngine
+
+
+def test_interrupted_run_resumes_with_its_calendar_totals(tmp_path):
+    # the calendar vector is saved with each finished scenario and restored on resuming
+    design = load_design("designs/delayed-response.toml")
+    truths = np.array([[0.3, 0.3], [0.5, 0.3]])
+    settings = MonteCarloSettings(replicates=2000, seed=4, batch_size=1000)
+    whole = MonteCarloEngine.run(design, truths, settings=settings)
+
+    class Stop(Exception):
+        pass
+
+    def interrupt(index: int) -> None:
+        raise Stop
+
+    partial = tmp_path / ".partial"
+    with pytest.raises(Stop):
+        MonteCarloEngine.run(design, truths, settings=settings, execution=Execution(
+            checkpoints=partial, on_saved=interrupt))
+    resumed = MonteCarloEngine.run(design, truths, settings=settings,
+                                   execution=Execution(checkpoints=partial))
+    assert resumed.info["scenarios_resumed"] == 1
+    for name, values in whole.extra.items():
+        assert np.array_equal(values, resumed.extra[name], equal_nan=True), name
