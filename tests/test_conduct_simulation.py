@@ -197,3 +197,49 @@ def test_proportion_lost_matches_the_closed_form():
     assert abs(lost - want) <= Z * np.sqrt(want * (1 - want) / n)
     assert Conduct(Accrual(rates=(1.0,)), 10, lag=lag,
                    dropout_hazard=hazard).lost_before_outcome == pytest.approx(want)
+
+
+def test_auto_method_simulates_designs_in_calendar_time():
+    # only the lattice engine models [conduct] (deterministic timing, tests/test_pipeline.py):
+    # random timing is simulated under 'auto', and 'exact' is refused plainly
+    from octrial.engines import choose
+    from octrial.errors import InputError
+
+    design = load_design("designs/delayed-response.toml")
+    assert choose(design, "auto") is ExactLatticeEngine
+    random = dataclasses.replace(design, conduct=dataclasses.replace(
+        design.conduct, accrual=Accrual(rates=(8.0,))))
+    assert choose(random, "auto") is MonteCarloEngine
+    with pytest.raises(InputError, match="Poisson arrivals"):
+        choose(random, "exact")
+    assert choose(dataclasses.replace(design, conduct=None), "auto") is ExactLatticeEngine
+    normal = load_design("designs/two-arm-continuous-score.toml")
+    normal = dataclasses.replace(normal, conduct=design.conduct, looks=dataclasses.replace(
+        normal.looks, futility_predictive=(None,) * normal.looks.count))
+    assert choose(normal, "auto") is MonteCarloEngine
+    with pytest.raises(InputError, match="calendar-time conduct"):
+        choose(normal, "exact")
+
+
+def test_interrupted_run_resumes_with_its_calendar_totals(tmp_path):
+    # the calendar vector is saved with each finished scenario and restored on resuming
+    design = load_design("designs/delayed-response.toml")
+    truths = np.array([[0.3, 0.3], [0.5, 0.3]])
+    settings = MonteCarloSettings(replicates=2000, seed=4, batch_size=1000)
+    whole = MonteCarloEngine.run(design, truths, settings=settings)
+
+    class Stop(Exception):
+        pass
+
+    def interrupt(index: int) -> None:
+        raise Stop
+
+    partial = tmp_path / ".partial"
+    with pytest.raises(Stop):
+        MonteCarloEngine.run(design, truths, settings=settings, execution=Execution(
+            checkpoints=partial, on_saved=interrupt))
+    resumed = MonteCarloEngine.run(design, truths, settings=settings,
+                                   execution=Execution(checkpoints=partial))
+    assert resumed.info["scenarios_resumed"] == 1
+    for name, values in whole.extra.items():
+        assert np.array_equal(values, resumed.extra[name], equal_nan=True), name

@@ -90,6 +90,8 @@ class ExactLatticeEngine:
     """The exact engine for endpoints with a lattice sufficient statistic."""
 
     name = "exact"
+    conduct_aware = True
+    """Models calendar time: under deterministic [conduct] (see :func:`unsupported`)."""
 
     @staticmethod
     def serves(family: object) -> bool:

@@ -307,9 +307,6 @@ class NormalRecursionEngine:
             return ("a normal endpoint with unknown sd needs the Monte Carlo engine (the "
                     "posterior of the mean is Student t and the sufficient statistic is "
                     "two-dimensional)")
-        if design.conduct is not None:
-            return ("a design in calendar time ([conduct]) needs the Monte Carlo engine for "
-                    "normal endpoints (pipeline subjects and calendar columns)")
         return None
 
     @staticmethod
