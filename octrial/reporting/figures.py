@@ -447,6 +447,55 @@ def expected_sample_size(data: Any, facts: PlotFacts) -> Figure:
                   "Line chart of the expected sample size against the true value.")
 
 
+def duration_and_enrolment(data: Any, facts: PlotFacts) -> Figure | None:
+    """Designs in calendar time: the study's duration (median, 10% to 90% range and mean)
+    and the subjects enrolled and analysed, against the true value."""
+    import matplotlib
+
+    oc = data.oc
+    if "expected_duration" not in oc.columns:
+        return None
+    unit = data.design.conduct.time_unit if data.design.conduct is not None else "time unit"
+    fig, axes = _new(3.2, ncols=2)
+    left, right = axes[0, 0], axes[0, 1]
+    with matplotlib.rc_context(STYLE):
+        for i, (label, part) in enumerate(_groups(oc, facts)):
+            style, marker, grey = LINES[i % len(LINES)]
+            x = part[facts.x].to_numpy(float)
+            median = part["duration_q50"].to_numpy(float)
+            spread = np.vstack([median - part["duration_q10"].to_numpy(float),
+                                part["duration_q90"].to_numpy(float) - median])
+            left.errorbar(x, median, yerr=np.clip(spread, 0, None), fmt="none", ecolor=grey,
+                          elinewidth=0.9, capsize=2)
+            left.plot(x, part["expected_duration"].to_numpy(float), linestyle=style,
+                      marker=marker, color=grey, markersize=4, linewidth=1.2,
+                      label=label or "mean")
+            right.plot(x, part["expected_enrolled"].to_numpy(float), linestyle=style,
+                       marker=marker, color=grey, markersize=4, linewidth=1.2,
+                       label=f"enrolled {label}".strip())
+            right.plot(x, part["expected_analysed"].to_numpy(float), linestyle=style,
+                       marker=marker, color=grey, markersize=4, linewidth=1.2,
+                       markerfacecolor="white",
+                       label=f"analysed {label}".strip())
+        for ax in (left, right):
+            if facts.null_at is not None:
+                ax.axvline(facts.null_at, color="0.3", linestyle=(0, (1, 1.5)),
+                           linewidth=0.9)
+            ax.set_xlabel(facts.x_label)
+            ax.set_ylim(0, ax.get_ylim()[1] * 1.08)
+        left.set_ylabel(f"study duration ({unit}s)")
+        right.set_ylabel("expected subjects")
+        left.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
+        right.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
+    caption = ("Left: the study's duration from the first enrolment to the final analysis "
+               "(line: mean; bars: 10% to 90% of the simulated studies, from the median). "
+               "Right: expected subjects enrolled when enrolment stops (filled) and "
+               "subjects in the final analysis (open).")
+    return Figure("duration", "Duration and enrolment", caption, encode(fig),
+                  "Line charts of the study duration and of the subjects enrolled and "
+                  "analysed against the true value.")
+
+
 SIZE_COLUMNS = ("max_n", "n_max", "n", "N", "sample_size")
 ERROR_COLUMNS = ("max_type1_error", "type1_error", "type1", "alpha_attained")
 POWER_COLUMNS = ("power",)
@@ -597,8 +646,8 @@ def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
 
 
 FIGURES: tuple[Callable[[Any, PlotFacts], Figure | None], ...] = (
-    power_curve, stopping, expected_sample_size, sawtooth, prior_predictive, sbc_histograms,
-    sensitivity_scatter, tail_accuracy,
+    power_curve, stopping, expected_sample_size, duration_and_enrolment, sawtooth,
+    prior_predictive, sbc_histograms, sensitivity_scatter, tail_accuracy,
 )
 """Figure builders in report order. Figures named ``checks-...`` are shown in the
 workflow-checks section."""
