@@ -459,14 +459,14 @@ def piece_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
                      events: np.ndarray, exposure: np.ndarray) -> int:
     """Each arm's events and exposure in each analysis piece (rows: arms, columns:
     pieces of ``starts``) at the analysis at calendar time ``tau``; returns the subjects
-    enrolled by then."""
+    enrolled by then (``enrolled`` non-decreasing, as enrolment times are)."""
     events[:] = 0.0
     exposure[:] = 0.0
     pieces = starts.size
     entered = 0
     for i in range(enrolled.size):
         if enrolled[i] > tau:
-            continue
+            break  # enrolment times are non-decreasing
         entered += 1
         j = arm_of[i]
         # compared in calendar time, as the event times were, so the event at tau counts
