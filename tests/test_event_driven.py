@@ -342,3 +342,22 @@ def test_bad_setup_names_the_attribute(change: dict, name: str) -> None:
         setup(**change)
 
 
+
+
+@pytest.mark.parametrize("case", ["spread", "ties", "clustered", "zeros"])
+def test_look_times_are_the_order_statistics_of_numpy_sort(case: str) -> None:
+    """The bucket pass and selection that find each look's event time return exactly the
+    values of ``numpy.sort`` at the look's ranks (ties, clusters in one bucket, all
+    zero)."""
+    rng = np.random.default_rng(11)
+    count = 400
+    values = {"spread": rng.exponential(10.0, count),
+              "ties": rng.integers(0, 7, count).astype(float),
+              "clustered": np.concatenate([rng.uniform(0, 1e-9, count - 3), [5.0, 9.0, 50.0]]),
+              "zeros": np.zeros(count)}[case]
+    ranks = np.array([0, 99, 199, 200, 299, 398, 399])
+    out = np.empty(ranks.size)
+    buffer = values.copy()
+    ed.ranked_times(buffer, count, ranks, float(values.max()),
+                    np.zeros(ed.BUCKETS + 1, dtype=np.int64), np.empty(count), out)
+    assert np.array_equal(out, np.sort(values)[ranks])

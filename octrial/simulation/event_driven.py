@@ -24,9 +24,11 @@ simulate`, drawn inside the kernel study by study in a fixed order (the study's
 enrolment gaps, then per subject in enrolment order its event time and its loss time), so
 a batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
 
-Speed: every subject is simulated (about 3 standard exponentials per subject and one sort
-of the event times per study); ``tests/benchmarks/bench_event_driven.py`` measures it
-against a vectorised numpy version and a plain Python loop.
+Speed: every subject is simulated (about 3 standard exponentials per subject, which are
+most of the time; the looks' event times by a bucket pass, not a sort; arithmetic rather
+than branches over the subjects); ``tests/benchmarks/bench_event_driven.py`` measures it
+against a vectorised numpy version and a plain Python loop. docs/methods.md says why the
+gamma shortcut of one arm's exposure is a check here rather than the simulator.
 """
 
 from __future__ import annotations
@@ -473,9 +475,10 @@ def piece_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
         ended = enrolled[i] + follow[i] <= tau
         f = follow[i] if ended else tau - enrolled[i]
         if pieces == 1:
+            # arithmetic rather than branches: whether a subject has ended is a coin
+            # toss the processor cannot predict
             exposure[j, 0] += f
-            if ended and seen[i]:
-                events[j, 0] += 1.0
+            events[j, 0] += 1.0 * (ended & seen[i])
             continue
         for p in range(pieces):
             if f <= starts[p]:
@@ -516,6 +519,40 @@ def select_rank(values: np.ndarray, lo: int, hi: int, k: int) -> float:
     return values[k]
 
 
+BUCKETS = 256
+"""Buckets of the event times' distribution pass (:func:`ranked_times`)."""
+
+
+@numba.njit(cache=True)
+def ranked_times(values: np.ndarray, count: int, ranks: np.ndarray, top: float,
+                 tally: np.ndarray, scattered: np.ndarray, out: np.ndarray) -> None:
+    """The values of the 0-based ``ranks`` (increasing, each below ``count``) of
+    ``values[:count]`` (all in [0, ``top``]), into ``out``: a distribution pass into
+    equal-width buckets (the bucket index is non-decreasing in the value, so the order
+    between buckets is exact), then a selection inside the bucket holding each rank (a
+    few values). The same numbers as a sort, in two linear passes where a selection on
+    the whole array spends most of its time on mispredicted branches."""
+    buckets = tally.size - 1
+    scale = buckets / top if top > 0.0 else 0.0
+    tally[:] = 0
+    for i in range(count):
+        tally[min(int(values[i] * scale), buckets - 1) + 1] += 1
+    for b in range(buckets):  # tally[b] becomes the start of bucket b
+        tally[b + 1] += tally[b]
+    for i in range(count):
+        b = min(int(values[i] * scale), buckets - 1)
+        scattered[tally[b]] = values[i]
+        tally[b] += 1
+    # now tally[b] is the end of bucket b (the start of bucket b + 1)
+    b = 0
+    for k in range(ranks.size):
+        r = ranks[k]
+        while tally[b] <= r:
+            b += 1
+        start = tally[b - 1] if b > 0 else 0
+        out[k] = select_rank(scattered, start, tally[b], r)
+
+
 @numba.njit(cache=True)
 def patient_level_studies(
     rng: Any, studies: int, m: int, kind: int, rates: np.ndarray, starts: np.ndarray,
@@ -536,6 +573,12 @@ def patient_level_studies(
     follow = np.empty(m)
     seen = np.empty(m, dtype=np.bool_)
     event_times = np.empty(m)
+    scattered = np.empty(m)
+    tally = np.zeros(BUCKETS + 1, dtype=np.int64)
+    ranks = np.empty(looks, dtype=np.int64)
+    for k in range(looks):
+        ranks[k] = int(targets[k]) - 1 if trigger == 0 else 0
+    taus = np.empty(looks)
     events = np.zeros((arms, pieces))
     exposure = np.zeros((arms, pieces))
     d = np.zeros(arms)
@@ -545,22 +588,23 @@ def patient_level_studies(
                                  hazard_starts, dropout, gaps, enrolled, arm_of, follow,
                                  seen)
         count = 0
-        below = 0
+        reached = 0  # looks whose event target is reached
         if trigger == 0:
+            top = 0.0
             for i in range(m):
                 if seen[i]:
                     event_times[count] = enrolled[i] + follow[i]
+                    top = max(top, event_times[count])
                     count += 1
+            while reached < looks and targets[reached] <= count:
+                reached += 1
+            ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
         for k in range(looks):
             final = k == looks - 1
             if trigger == 1:
                 tau = targets[k]
-            elif targets[k] <= count:
-                # looks in increasing order: the ranks below the last look's are all
-                # before it, so each selection runs on what is left above
-                rank = int(targets[k]) - 1
-                tau = select_rank(event_times, below, count, rank)
-                below = rank
+            elif k < reached:
+                tau = taus[k]
             else:  # the events run out: the analysis when every follow-up has ended
                 tau = resolved
                 final = True
