@@ -191,9 +191,10 @@ def decisions_with_scipy(s: ed.EventDrivenSetup, subj: dict[str, np.ndarray]
         reached = s.trigger == "time" or target <= calendar.size
         tau = (target if s.trigger == "time" else calendar[int(target) - 1]) if reached \
             else resolved
-        events, exposure, _ = statistics_at(subj, tau, s.arms)
-        a = [s.prior_a[j][0][0] + events[j, 0] for j in range(s.arms)]
-        b = [s.prior_b[j][0][0] + exposure[j, 0] for j in range(s.arms)]
+        events, exposure, _ = statistics_at(subj, tau, s.arms, s.analysis_starts)
+        p = s.decision_piece
+        a = [s.prior_a[j][p][0] + events[j, p] for j in range(s.arms)]
+        b = [s.prior_b[j][p][0] + exposure[j, p] for j in range(s.arms)]
         if s.arms == 1:
             below = stats.gamma(a[0], scale=1.0 / b[0]).cdf(s.claim)
         else:
@@ -210,16 +211,23 @@ def decisions_with_scipy(s: ed.EventDrivenSetup, subj: dict[str, np.ndarray]
     raise AssertionError("the final look always decides")
 
 
-@pytest.mark.parametrize("arms", [1, 2])
-def test_kernel_decisions_equal_scipy_study_by_study(arms: int) -> None:
+@pytest.mark.parametrize("case", ["one arm", "two arms", "delayed effect"])
+def test_kernel_decisions_equal_scipy_study_by_study(case: str) -> None:
     """Each simulated study's stopping look and decision equal a Python recomputation
     with scipy's gamma cdf (one arm) and quadrature (two arms) on the same subjects (the
-    kernel draws one study's subjects exactly as :meth:`subjects` does)."""
-    if arms == 1:
+    kernel draws one study's subjects exactly as :meth:`subjects` does). The delayed
+    effect: piecewise true hazards and a two-piece analysis deciding on the hazard ratio
+    after 6 months."""
+    if case == "one arm":
         s = setup(hazards=((LAMBDA_C,),), claim=1.1 * LAMBDA_C, prior_a=(((1.0,),),),
                   prior_b=(((12.0,),),), efficacy=(0.99, 0.95, 0.9))
-    else:
+    elif case == "two arms":
         s = setup(claim=0.9)
+    else:
+        s = setup(claim=0.9, hazard_starts=(0.0, 6.0),
+                  hazards=((LAMBDA_C, 0.6 * LAMBDA_C), (LAMBDA_C, LAMBDA_C)),
+                  analysis_starts=(0.0, 6.0), decision_piece=1,
+                  prior_a=(((0.5,), (0.1,)),) * 2, prior_b=(((6.0,), (2.0,)),) * 2)
     sim = ed.PatientLevelSimulator(s)
     seen_codes = set()
     for seed in range(40):
