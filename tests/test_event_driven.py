@@ -21,6 +21,7 @@ from scipy import integrate, stats
 from octrial.conduct.model import Accrual
 from octrial.rules.stop import CONTINUE, EFFICACY, Rule
 from octrial.simulation import event_driven as ed
+from octrial.simulation.calendar import HEAD
 from tests.event_driven_reference import numpy_studies
 
 LAMBDA_C = math.log(2.0) / 12.0  # control median 12 months
@@ -301,10 +302,9 @@ def test_two_arm_three_look_rates_agree_with_a_numpy_implementation() -> None:
             se = math.sqrt(max(x * (1 - x), y * (1 - y), 1.0 / n) * 2.0 / n)
             assert abs(x - y) < 4 * se
     assert tally.efficacy.sum() > 0.2 * n  # the design has power (not a trivial check)
-    cal = tally.calendar
-    reached_1 = cal[6]
-    assert reached_1 == n
-    assert cal[7] / n == pytest.approx(time_sum[0] / n, rel=0.01)
+    cal = tally.calendar  # look k at HEAD + 3k: studies reaching it, sum of its times
+    assert cal[HEAD] == n
+    assert cal[HEAD + 1] / n == pytest.approx(time_sum[0] / n, rel=0.01)
 
 
 def test_calendar_looks_happen_at_their_times() -> None:
@@ -316,8 +316,8 @@ def test_calendar_looks_happen_at_their_times() -> None:
     tally = ed.PatientLevelSimulator(s).simulate(np.random.default_rng(9), n)
     cal = tally.calendar
     for k, t in enumerate(s.targets):
-        if cal[6 + 3 * k] > 0:
-            assert cal[7 + 3 * k] / cal[6 + 3 * k] == pytest.approx(t)
+        if cal[HEAD + 3 * k] > 0:
+            assert cal[HEAD + 1 + 3 * k] / cal[HEAD + 3 * k] == pytest.approx(t)
     enrolled_at_6 = [statistics_at(sub, 6.0, 2)[2] for sub in
                      (ed.PatientLevelSimulator(s).subjects(np.random.default_rng(100 + i))
                       for i in range(800))]
