@@ -151,6 +151,8 @@ DATA_VALUES: dict[str, tuple[str, ...]] = {
                "0,1,1", "0,1,4611686018427387904", "nan,1,20", "0,1," + "9" * 400, "0,1,20,",
                "", "1e400,1,20",
                "0,1,2", "1e-300,1e-300,2"),
+    # no interim decisions for time-to-event designs yet: each must be refused plainly
+    "time-to-event": ("10/500", "1e308/1", "", "x"),
 }
 """``--data`` values per endpoint type (one arm's part after ``ARM=``)."""
 
@@ -161,7 +163,8 @@ def decide_cases() -> Iterator[Case]:
         data = tomllib.loads(design.read_text(encoding="utf-8"))
         kind = data["endpoint"]["type"]
         arms = list(data["arms"])
-        good = {"binary": "5/20", "count": "20/20", "normal": "3,10,20"}[kind]
+        good = {"binary": "5/20", "count": "20/20", "normal": "3,10,20",
+                "time-to-event": "10/500"}[kind]
         text = design.read_text(encoding="utf-8")
         for arm in arms:
             for value in DATA_VALUES[kind]:

@@ -115,7 +115,8 @@ def test_maximum_type1_error_is_stated_and_marked(runs, demo) -> None:
     assert worst[0].cells["prob_success"].value == null["prob_success"].max()
     verdict = text(page.find(".//section[@id='operating-characteristics']/p"))
     stated = re.search(r"grid: ([0-9.<>]+)", verdict).group(1)
-    assert abs(formats.parse(stated) - null["prob_success"].max()) <= 0.5e-4
+    # half a unit of the fourth decimal, and the binary floating point of a half-way value
+    assert abs(formats.parse(stated) - null["prob_success"].max()) <= 0.5e-4 + 1e-12
 
 
 def test_one_arm_boundaries_equal_boundaries_csv(runs) -> None:

@@ -292,14 +292,17 @@ def test_bad_conduct_exits_2_naming_the_key(change: dict, key: str, tmp_path: An
     assert not (tmp_path / "out").exists()
 
 
-def test_conduct_on_other_endpoints_is_refused_plainly(tmp_path: Any) -> None:
+def test_looks_by_events_on_other_endpoints_are_refused_plainly(tmp_path: Any) -> None:
+    # [conduct] serves every endpoint (tests/test_conduct_input.py); events only these
     from tests.helpers import ONE_ARM as BINARY
 
+    looks = {k: v for k, v in BINARY["looks"].items() if k != "n"}
     path = tmp_path / "design.toml"
-    path.write_text(_toml({**BINARY, "conduct": {"enrolment_rate": 5, "max_enrolment": 30}}))
+    path.write_text(_toml({**BINARY, "looks": {**looks, "events": [10, 20, 30]},
+                           "conduct": {"enrolment_rate": 5, "max_enrolment": 30}}))
     result = CliRunner().invoke(main, ["run", str(path)])
     assert result.exit_code == 2
-    assert "conduct" in result.output and "time-to-event endpoints only" in result.output
+    assert "looks.events" in result.output and "time-to-event" in result.output
 
 
 def build_data(data: dict[str, Any], replicates: int) -> dict[str, Any]:

@@ -14,6 +14,10 @@ Keys (docs/design-files.md, ``[conduct]``)::
     dropout_by = 12                #   ... by this time after enrolment
     analyse_pipeline = false       # after a stop, wait for the pipeline's outcomes
 
+:func:`planned_counts` gives each look's planned subjects with an outcome for looks by
+enrolled subjects or calendar time, and :func:`check_complete_targets` checks looks by
+subjects with an outcome against the maximum enrolment.
+
 Every problem is recorded against its key (file, key, expected, got); the caller raises
 them together with the rest of the design's problems (exit code 2 on the command line).
 """
@@ -22,8 +26,10 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections.abc import Sequence
 
 from octrial.conduct.model import Accrual, Conduct
+from octrial.conduct.timing import allocation_block, arm_counts, look_timing
 from octrial.design.reader import Phrase, Table
 
 KEYS = ("time_unit", "enrolment_rate", "period_starts", "enrolment_times", "arrivals",
@@ -139,3 +145,69 @@ def _read_flag(table: Table, key: str) -> bool | None:
         table.fail(key, "true or false", value)
         return None
     return value
+
+
+def last_outcome(conduct: Conduct) -> float:
+    """When the last subject's outcome is observed (expected, under Poisson arrivals)."""
+    return conduct.accrual.time_of(conduct.max_enrolment) + conduct.lag
+
+
+def check_complete_targets(table: Table, conduct: Conduct, n: Sequence[int]) -> None:
+    """Looks by subjects with an outcome (``looks.n``): each must be reachable with
+    ``max_enrolment`` subjects of whom the expected share ``1 - lost`` has an outcome."""
+    reachable = conduct.max_enrolment * (1.0 - conduct.lost_before_outcome)
+    for k, n_k in enumerate(n):
+        if n_k > reachable + 1e-9:
+            table.problems.add(f"looks.n[{k + 1}]", f"at most {math.floor(reachable + 1e-9)} "
+                               f"subjects with an outcome (max_enrolment "
+                               f"{conduct.max_enrolment} less the expected dropout)", n_k)
+            return
+
+
+def planned_counts(table: Table, conduct: Conduct, trigger: str, targets: Sequence[float],
+                   weights: Sequence[float]) -> tuple[tuple[int, ...], ...] | None:
+    """Planned subjects with an outcome per look and arm for looks by enrolled subjects
+    or calendar time.
+
+    Deterministic conduct gives the exact counts (:func:`look_timing`). Under Poisson
+    arrivals or dropout the counts are random; the plan is then the expected schedule
+    (enrolment at the expected rate, a share ``1 - lost`` of outcomes observed), rounded
+    down: it sets the information fractions of the thresholds and the final sample size
+    the predictive probability assumes. Records a problem and returns ``None`` when a
+    look cannot be reached, sees no outcome in some arm, or sees no new outcome.
+    """
+    key = f"looks.{trigger}"
+    last = last_outcome(conduct)
+    for k, target in enumerate(targets):
+        if trigger == "enrolled" and target > conduct.max_enrolment:
+            table.problems.add(f"{key}[{k + 1}]", f"at most max_enrolment "
+                               f"({conduct.max_enrolment}) subjects enrolled", target)
+            return None
+        if trigger == "time" and target > last + 1e-9:
+            table.problems.add(f"{key}[{k + 1}]", f"a time at or before the last outcome "
+                               f"({last:.6g} {conduct.time_unit}s: last enrolment plus lag"
+                               f"{', expected' if not conduct.accrual.deterministic else ''})",
+                               target)
+            return None
+    if conduct.deterministic:
+        complete = look_timing(conduct, trigger, targets, weights).complete
+        totals = [sum(c) for c in complete]
+    else:
+        kept = 1.0 - conduct.lost_before_outcome
+        times = [conduct.accrual.time_of(int(t)) if trigger == "enrolled" else float(t)
+                 for t in targets]
+        totals = [math.floor(kept * min(conduct.max_enrolment, conduct.accrual.expected_count(
+            t - conduct.lag)) + 1e-9) if t >= conduct.lag else 0 for t in times]
+        block = allocation_block(weights)
+        complete = tuple(tuple(int(v) for v in arm_counts(c, block)) for c in totals)
+    if min(complete[0]) < 1:
+        table.problems.add("conduct.outcome_lag", "a lag that lets every arm have an "
+                           f"outcome by the first look ({key}[1] = {targets[0]:g})", conduct.lag,
+                           "no outcome can be observed by then; move the first look later")
+        return None
+    for k, (a, b) in enumerate(itertools.pairwise(totals)):
+        if b <= a:
+            table.problems.add(f"{key}[{k + 2}]", "a look with new outcomes since the "
+                               f"previous look ({a} planned outcomes at both)", targets[k + 1])
+            return None
+    return complete

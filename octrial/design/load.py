@@ -15,7 +15,8 @@ from pathlib import Path
 from typing import Any
 
 import octrial.design.limits as limits
-from octrial.conduct.reader import read_conduct
+from octrial.conduct.model import Conduct
+from octrial.conduct.reader import check_complete_targets, planned_counts, read_conduct
 from octrial.design.model import (
     CONTROL,
     METHODS,
@@ -45,6 +46,8 @@ MAX_REPLICATES = 10_000_000
 --max-replicates`` allows by default)."""
 INTERIM_ONLY = ("futility", "futility_predictive")
 GRID_POINTS = Simulation.grid_points
+TRIGGERS = {"n": "complete", "enrolled": "enrolled", "time": "time", "events": "events"}
+"""The ``[looks]`` key that sets when each look happens, and its :attr:`Looks.trigger`."""
 
 
 def load_design(path: str | Path) -> Design:
@@ -96,7 +99,8 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
         endpoint, two_arm)
     hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
     arms = _read_arms(arms_table, family, on_effect)
-    looks = _read_looks(top, arms, two_arm, family)
+    conduct = read_conduct(top)
+    looks = _read_looks(top, arms, two_arm, family, conduct)
     if looks is not None and not looks.uses_counts and arms and arms_table is not None:
         _require_priors(top, arms_table, arms, on_effect)
     scenarios_table = top.table("scenarios")
@@ -104,11 +108,6 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     if scenarios_table is not None and family is not None:
         scenarios = read_scenarios(scenarios_table, family, two_arm)
     simulation = _read_simulation(top)
-    conduct = read_conduct(top)
-    if family is not None and top.has("conduct") and not family.event_driven:
-        top.fail("conduct", "no [conduct] table: calendar-time conduct (accrual, outcome lag, "
-                 f"dropout) is built for time-to-event endpoints only so far, not for "
-                 f"{family.name} endpoints", Phrase("a [conduct] table"))
     if family is not None and family.event_driven and not top.has("conduct"):
         top.fail("conduct", f"a [conduct] table ({family.name} studies run in calendar "
                  "time: enrolment_rate, max_enrolment)", Phrase("nothing (the table is missing)"))
@@ -256,39 +255,65 @@ def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...]
 
 def _read_looks(
     top: Table, arms: list[Arm], two_arm: bool, family: Family | None,
+    conduct: Conduct | None = None,
 ) -> Looks | None:
     table = top.table("looks")
     if table is None:
         return None
-    size = "events" if family is not None and family.event_driven else "n"
-    table.allow(size, "efficacy", "futility", "futility_predictive", "efficacy_count",
+    table.allow(*TRIGGERS, "efficacy", "futility", "futility_predictive", "efficacy_count",
                 "futility_count")
-    read = table.numbers(size, integer=True, check=lambda v: v > 0,
-                         expected="a whole number > 0")
-    if read is None or any(v is None for v in read):
+    event_driven = family is not None and family.event_driven
+    given = [key for key in TRIGGERS if table.has(key)]
+    if len(given) > 1:
+        table.fail(given[1], "one of n, enrolled, time or events (when each look happens)",
+                   Phrase(f"{given[0]} and {given[1]}"))
         return None
-    n = [int(v) for v in read if v is not None]
-    if any(b <= a for a, b in itertools.pairwise(n)):
-        table.fail(size, "strictly increasing cumulative "
-                   + ("event counts" if size == "events" else "sample sizes"), n)
+    key = given[0] if given else ("events" if event_driven else "n")
+    if event_driven and key != "events":
+        table.fail(key, "events (time-to-event looks happen at event counts)",
+                   table.data[key])
         return None
-    if size == "events":
-        # events are counted over all arms; per arm, the share allocation gives when
-        # hazards are equal (for the information fraction and reports only)
-        weights = [a.allocation for a in arms]
-        per_arm = tuple(tuple(round(n_k * w / sum(weights)) for w in weights)
-                        for n_k in n) if arms else None
-        if table.has("efficacy_count") or table.has("futility_count"):
-            table.fail("efficacy_count" if table.has("efficacy_count") else "futility_count",
-                       "posterior probability thresholds (efficacy, futility) for looks at "
-                       "event counts", Phrase("a rule stated in counts"))
+    trigger = TRIGGERS[key]
+    at: tuple[float, ...] = ()
+    per_arm: tuple[tuple[int, ...], ...] | None
+    if trigger in ("enrolled", "time") or (trigger == "events" and not event_driven):
+        timing = _read_trigger(table, key, arms, family, conduct, top.has("conduct"))
+        if timing is None:
             return None
+        n, per_arm, at = timing
     else:
-        per_arm = _split(table, n, arms) if arms else None
+        size = key
+        read = table.numbers(size, integer=True, check=lambda v: v > 0,
+                             expected="a whole number > 0")
+        if read is None or any(v is None for v in read):
+            return None
+        n = [int(v) for v in read if v is not None]
+        if any(b <= a for a, b in itertools.pairwise(n)):
+            table.fail(size, "strictly increasing cumulative "
+                       + ("event counts" if size == "events" else "sample sizes"), n)
+            return None
+        if size == "events":
+            # events are counted over all arms; per arm, the share allocation gives when
+            # hazards are equal (for the information fraction and reports only)
+            weights = [a.allocation for a in arms]
+            per_arm = tuple(tuple(round(n_k * w / sum(weights)) for w in weights)
+                            for n_k in n) if arms else None
+            at = tuple(float(v) for v in n)
+            if table.has("efficacy_count") or table.has("futility_count"):
+                table.fail("efficacy_count" if table.has("efficacy_count") else
+                           "futility_count", "posterior probability thresholds (efficacy, "
+                           "futility) for looks at event counts",
+                           Phrase("a rule stated in counts"))
+                return None
+        else:
+            if conduct is not None:
+                check_complete_targets(table, conduct, n)
+            per_arm = _split(table, n, arms) if arms else None
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):
-        return _read_count_rule(table, n, per_arm, two_arm, family)
+        looks = _read_count_rule(table, n, per_arm, two_arm, family)
+        return None if looks is None else dataclasses.replace(looks, trigger=trigger, at=at)
 
     specs, values = [], {}
     for key in ("efficacy", *INTERIM_ONLY):
@@ -308,11 +333,43 @@ def _read_looks(
                        f"({e:.6g}) at look {k + 1}", Phrase(f"{f:.6g}"))
     if per_arm is None:
         return None
-    looks = Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
-                  tuple(values["futility_predictive"]), specs=tuple(specs))
-    if size == "events":
-        looks = dataclasses.replace(looks, trigger="events", at=tuple(float(v) for v in n))
-    return looks
+    return Looks(tuple(n), per_arm, tuple(efficacy), tuple(futility),
+                 tuple(values["futility_predictive"]), specs=tuple(specs), trigger=trigger,
+                 at=at)
+
+
+def _read_trigger(
+    table: Table, key: str, arms: list[Arm], family: Family | None, conduct: Conduct | None,
+    written: bool,
+) -> tuple[list[int], tuple[tuple[int, ...], ...], tuple[float, ...]] | None:
+    """Looks by enrolled subjects, calendar time or events: the targets and each look's
+    planned subjects with an outcome (per arm)."""
+    if key == "events" and family is not None and not family.event_driven:
+        table.fail("events", "n, enrolled or time (looks by events need a time-to-event "
+                   "endpoint)", Phrase(f"a {family.name} endpoint"))
+        return None
+    if conduct is None:
+        if not written:  # a [conduct] table with problems has them recorded already
+            table.fail(key, "a [conduct] table with the accrual (looks by enrolled "
+                       "subjects, events or calendar time happen in calendar time)",
+                       Phrase("no [conduct] table"))
+        return None
+    whole = key != "time"
+    read = table.numbers(key, integer=whole, check=lambda v: v > 0,
+                         expected="a whole number > 0" if whole else "a time > 0")
+    if read is None or any(v is None for v in read):
+        return None
+    at = tuple(float(v) for v in read if v is not None)
+    if any(b <= a for a, b in itertools.pairwise(at)):
+        table.fail(key, "strictly increasing targets", list(at))
+        return None
+    if not arms:
+        return None
+    weights = [a.allocation for a in arms]
+    complete = planned_counts(table, conduct, TRIGGERS[key], at, weights)
+    if complete is None:
+        return None
+    return [sum(c) for c in complete], complete, at
 
 
 def _read_count_rule(

@@ -100,6 +100,8 @@ class Family(ABC):
     event_driven: ClassVar[bool] = False
     """Whether studies run in calendar time with looks at event counts (``[looks] events``
     and a required ``[conduct]`` table: time-to-event endpoints)."""
+    look_unit: ClassVar[str] = "subjects"
+    """What ``[looks]`` counts, for reports (``'events'`` for event-driven looks)."""
     statistic: ClassVar[str] = "sample mean"
     """Plain name of the per-arm statistic the rule is read on (``'responses'``)."""
 
@@ -360,7 +362,12 @@ class Family(ABC):
     def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
         """A :class:`~octrial.simulation.base.Simulator` of ``design`` at ``truth``
         (credible intervals at ``level``); by default the generic study loop of
-        :mod:`octrial.simulation.generic`."""
+        :mod:`octrial.simulation.generic`, or, for a design with ``[conduct]``, the
+        calendar-time studies of :mod:`octrial.simulation.calendar_studies`."""
+        if design.conduct is not None:
+            from octrial.simulation.calendar_studies import CalendarStudies
+
+            return CalendarStudies(design, truth, level)
         from octrial.simulation.generic import StudyLoop
 
         return StudyLoop(design, truth, level)

@@ -421,6 +421,8 @@ class NormalFamily(Family):
         return unsupported(design)
 
     def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
+        if design.conduct is not None:  # calendar time: the protocol's study loop
+            return super().simulator(design, truth, level)
         from octrial.simulation.normal import NormalSimulator
 
         return NormalSimulator(design, truth, level)

@@ -70,6 +70,7 @@ class TimeToEventFamily(Family):
     default_better = "lower"
     parameter_range = (0.0, math.inf)
     event_driven = True
+    look_unit = "events"
     statistic = "events"
     unit = "events per subject-time unit"
     data_model = ("Each subject's time to the event is exponential (a constant hazard), "

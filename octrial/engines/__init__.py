@@ -39,6 +39,10 @@ def choose(design: Design, method: str | None = None) -> Any:
     for name in wanted:
         for engine in ENGINES.get(name, ()):
             reason = engine.unsupported(design)
+            if reason is None and design.conduct is not None and not getattr(
+                    engine, "conduct_aware", name != "exact"):
+                # an exact engine must say it models calendar time (lag, pipeline, dropout)
+                reason = "it does not model calendar-time conduct ([conduct]) yet"
             if reason is None:
                 return engine
             if getattr(engine, "serves", lambda _: True)(design.family):

@@ -184,6 +184,10 @@ class MonteCarloEngine:
     @staticmethod
     def unsupported(design: Design) -> str | None:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
+        if design.conduct is not None and not design.family.event_driven:
+            from octrial.simulation.calendar_studies import calendar_unsupported
+
+            return calendar_unsupported(design)
         if isinstance(design.family, LatticeFamily):
             return None
         reason: str | None = design.family.simulation_unsupported(design)
@@ -227,6 +231,12 @@ class MonteCarloEngine:
 
 
 def _kernel(design: Design, wanted: str) -> str:
+    if design.conduct is not None:
+        # calendar time: counts per look vary between studies, so no decision tables
+        if wanted == "table":
+            raise ValueError("a design with [conduct] is simulated study by study (kernel "
+                             "'general'), not with decision tables")
+        wanted = "general"
     if wanted == "auto":
         return "table" if isinstance(design.family, LatticeFamily) else "general"
     if wanted == "table" and not isinstance(design.family, LatticeFamily):

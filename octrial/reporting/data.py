@@ -194,9 +194,11 @@ def _stated_alpha(record: dict[str, Any]) -> float | None:
 
 
 def read_table(path: Path) -> pd.DataFrame:
-    """Read a CSV table written by octrial (17 significant digits read back exactly)."""
+    """Read a CSV table written by octrial (17 significant digits read back exactly:
+    pandas' default float parser before version 3 can be one unit in the last place off,
+    so the round-trip parser is asked for)."""
     try:
-        return pd.read_csv(path)
+        return pd.read_csv(path, float_precision="round_trip")
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise single(str(path), "", "a CSV table", str(exc).strip()) from None
 

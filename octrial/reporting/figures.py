@@ -75,6 +75,8 @@ class PlotFacts:
         Where the null boundary lies on the horizontal axis.
     looks : tuple of int
         Total sample size at each look.
+    look_unit : str
+        What the looks count (subjects, or events).
     alpha : float or None
         Stated type I error level (drawn as the alpha line).
     max_type1 : float or None
@@ -98,6 +100,7 @@ class PlotFacts:
     max_type1: float | None
     power_target: float | None = None
     alternative_at: float | None = None
+    look_unit: str = "subjects"
     chosen_n: int | None = None
 
 
@@ -142,7 +145,8 @@ def _plot_facts(data: Any) -> PlotFacts:
     p, u = wording.parameter(design), wording.unit(design)
     h = design.hypothesis
     t1 = data.type1
-    common = {"looks": tuple(design.looks.n), "alpha": data.alpha,
+    common = {"looks": tuple(design.looks.n), "look_unit": design.family.look_unit,
+              "alpha": data.alpha,
               "max_type1": None if t1 is None else float(t1["max_type1_error"]),
               **_calibration_facts(data)}
     if not design.two_arm:
@@ -435,12 +439,61 @@ def expected_sample_size(data: Any, facts: PlotFacts) -> Figure:
                        label=f"null boundary ({truth(facts.null_at)})")
         ax.set_ylim(0, facts.looks[-1] * 1.05)
         ax.set_xlabel(facts.x_label)
-        ax.set_ylabel("expected total sample size (subjects)")
+        ax.set_ylabel(f"expected total sample size ({facts.look_unit})")
         ax.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
     caption = ("Expected total sample size E[N] against the true value; the dashed "
                "horizontal lines are the planned looks.")
     return Figure("expected-n", "Expected sample size", caption, encode(fig),
                   "Line chart of the expected sample size against the true value.")
+
+
+def duration_and_enrolment(data: Any, facts: PlotFacts) -> Figure | None:
+    """Designs in calendar time: the study's duration (median, 10% to 90% range and mean)
+    and the subjects enrolled and analysed, against the true value."""
+    import matplotlib
+
+    oc = data.oc
+    if "expected_duration" not in oc.columns:
+        return None
+    unit = data.design.conduct.time_unit if data.design.conduct is not None else "time unit"
+    fig, axes = _new(3.2, ncols=2)
+    left, right = axes[0, 0], axes[0, 1]
+    with matplotlib.rc_context(STYLE):
+        for i, (label, part) in enumerate(_groups(oc, facts)):
+            style, marker, grey = LINES[i % len(LINES)]
+            x = part[facts.x].to_numpy(float)
+            median = part["duration_q50"].to_numpy(float)
+            spread = np.vstack([median - part["duration_q10"].to_numpy(float),
+                                part["duration_q90"].to_numpy(float) - median])
+            left.errorbar(x, median, yerr=np.clip(spread, 0, None), fmt="none", ecolor=grey,
+                          elinewidth=0.9, capsize=2)
+            left.plot(x, part["expected_duration"].to_numpy(float), linestyle=style,
+                      marker=marker, color=grey, markersize=4, linewidth=1.2,
+                      label=label or "mean")
+            right.plot(x, part["expected_enrolled"].to_numpy(float), linestyle=style,
+                       marker=marker, color=grey, markersize=4, linewidth=1.2,
+                       label=f"enrolled {label}".strip())
+            right.plot(x, part["expected_analysed"].to_numpy(float), linestyle=style,
+                       marker=marker, color=grey, markersize=4, linewidth=1.2,
+                       markerfacecolor="white",
+                       label=f"analysed {label}".strip())
+        for ax in (left, right):
+            if facts.null_at is not None:
+                ax.axvline(facts.null_at, color="0.3", linestyle=(0, (1, 1.5)),
+                           linewidth=0.9)
+            ax.set_xlabel(facts.x_label)
+            ax.set_ylim(0, ax.get_ylim()[1] * 1.08)
+        left.set_ylabel(f"study duration ({unit}s)")
+        right.set_ylabel("expected subjects")
+        left.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
+        right.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
+    caption = ("Left: the study's duration from the first enrolment to the final analysis "
+               "(line: mean; bars: 10% to 90% of the simulated studies, from the median). "
+               "Right: expected subjects enrolled when enrolment stops (filled) and "
+               "subjects in the final analysis (open).")
+    return Figure("duration", "Duration and enrolment", caption, encode(fig),
+                  "Line charts of the study duration and of the subjects enrolled and "
+                  "analysed against the true value.")
 
 
 SIZE_COLUMNS = ("max_n", "n_max", "n", "N", "sample_size")
@@ -593,8 +646,8 @@ def tail_accuracy(data: Any, facts: PlotFacts) -> Figure | None:
 
 
 FIGURES: tuple[Callable[[Any, PlotFacts], Figure | None], ...] = (
-    power_curve, stopping, expected_sample_size, sawtooth, prior_predictive, sbc_histograms,
-    sensitivity_scatter, tail_accuracy,
+    power_curve, stopping, expected_sample_size, duration_and_enrolment, sawtooth,
+    prior_predictive, sbc_histograms, sensitivity_scatter, tail_accuracy,
 )
 """Figure builders in report order. Figures named ``checks-...`` are shown in the
 workflow-checks section."""

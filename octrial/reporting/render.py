@@ -102,9 +102,10 @@ def _glance(data: Any) -> dict[str, str]:
         method = f"Monte Carlo, {int(reps.min()):,} replicates{share}"
     claim = data.record.get("prior_probability_of_claim")
     dropped = data.record.get("scenarios_dropped") or 0
+    unit = design.family.look_unit
     return {
         "type1": type1,
-        "sample_size": f"{low} to {high} subjects" if low != high else f"{high} subjects",
+        "sample_size": (f"{low} to {high} {unit}" if low != high else f"{high} {unit}"),
         "looks": f"{design.looks.count} (n = {', '.join(str(n) for n in design.looks.n)})",
         "scenarios": f"{len(oc)}" + (f" ({dropped} left out)" if dropped else ""),
         "method": method,
@@ -136,7 +137,8 @@ def _design(data: Any) -> dict[str, Any]:
         "benefit": wording.benefit_definition(design),
         "prior_claim": "not available (no analysis prior)" if claim is None else
         f"{probability(claim)} (Pr(H1) under the analysis priors alone)",
-        "sample_size": f"minimum {low}, maximum {high} subjects (total over arms)",
+        "sample_size": f"minimum {low}, maximum {high} {design.family.look_unit} "
+                       "(total over arms)",
         "borrowing": wording.borrowing(design),
         "effect_prior": wording.effect_prior(design),
         "scenarios": scenarios,

@@ -152,7 +152,8 @@ def looks_table(data: Any) -> Table:
     else:
         heads = ("efficacy: B ≥", "futility: B <", "futility: predictive <")
     columns = [Column("look", "look", "count"), Column("kind", "analysis"),
-               Column("n", "total n", "count"), Column("per_arm", f"n per arm ({per_arm})"),
+               Column("n", f"total {design.family.look_unit}", "count"),
+               Column("per_arm", f"{design.family.look_unit} per arm ({per_arm})"),
                Column("information", "information fraction", "fraction"),
                Column("efficacy", heads[0]), Column("futility", heads[1])]
     rules = wording.look_rules(design)

@@ -292,19 +292,77 @@ def type1_sentence(data: Any) -> str:
     return text
 
 
+def conduct_assumptions(design: Any) -> list[str]:
+    """The assumptions of calendar-time conduct (``[conduct]``), in place of the
+    outcome-at-enrolment and looks-at-sample-size ones."""
+    c = design.conduct
+    unit = c.time_unit
+    accrual = c.accrual
+    if accrual.arrivals == "fixed":
+        entry = "at the stated fixed enrolment times"
+    else:
+        rates = ", ".join(f"{r:g} per {unit} from {unit} {s:g}" for r, s in
+                          zip(accrual.rates, accrual.starts, strict=True))
+        entry = ("as a Poisson process" if accrual.arrivals == "poisson" else
+                 "evenly") + f" at {rates}"
+    loss = (f"an exponential time to loss to follow-up with hazard {c.dropout_hazard:g} per "
+            f"{unit}, independent of the outcome (non-informative censoring)"
+            if c.dropout_hazard > 0 else "no loss to follow-up")
+    blocks = ":".join(f"{a.allocation:g}" for a in design.arms)
+    if not design.family.event_driven:
+        return _delayed_outcome_assumptions(design, entry, blocks)
+    return [
+        f"Subjects enter {entry}, up to {c.max_enrolment} in total, allocated in fixed "
+        f"blocks ({blocks}); each has {loss}, and follow-up is censored at each analysis.",
+        f"Looks happen when the study has seen exactly the planned numbers of "
+        f"{design.family.look_unit} ({', '.join(str(n) for n in design.looks.n)}); if "
+        f"fewer can ever be seen, the analysis happens when every subject's follow-up has "
+        "ended and is the final one. A stop ends enrolment.",
+    ]
+
+
+def _delayed_outcome_assumptions(design: Any, entry: str, blocks: str) -> list[str]:
+    """Binary, count and normal endpoints in calendar time: lag, loss and look timing."""
+    c, looks = design.conduct, design.looks
+    unit = c.time_unit
+    loss = (f"an exponential time to loss with hazard {c.dropout_hazard:g} per {unit} "
+            f"(so {c.lost_before_outcome:.3g} of subjects are lost before their outcome, "
+            "which is then missing at random)" if c.dropout_hazard > 0 else
+            "no loss to follow-up")
+    when = {"complete": "the planned numbers of subjects with an outcome ("
+                        + ", ".join(str(n) for n in looks.n) + ")",
+            "enrolled": "the planned numbers of subjects enrolled ("
+                        + ", ".join(f"{a:g}" for a in looks.at) + ")",
+            "time": f"the planned calendar times ({', '.join(f'{a:g}' for a in looks.at)} "
+                    f"{unit}s)"}[looks.trigger]
+    pipeline = ("after a stop the outcomes of the subjects already enrolled are awaited "
+                "and analysed (the final analysis of a stop for efficacy uses the final "
+                "success threshold)" if c.analyse_pipeline else
+                "the subjects still waiting for their outcome at a stop are not analysed")
+    return [
+        f"Subjects enter {entry}, up to {c.max_enrolment} in total, allocated in fixed "
+        f"blocks ({blocks}); each outcome is observed {c.lag:g} {unit}s after enrolment; "
+        f"each subject has {loss}.",
+        f"Looks happen at {when} and use only the outcomes observed by then. A stop ends "
+        f"enrolment; {pipeline}.",
+    ]
+
+
 def assumptions(data: Any) -> list[str]:
     """Every assumption the report's numbers depend on."""
     design = data.design
     items = list(design.family.assumptions(design)) or [
         "The data model of the endpoint stated in the design file."]
     per_arm = ", ".join(" / ".join(str(v) for v in n) for n in design.looks.per_arm)
-    items += [
-        "The true parameter values are those of each scenario and do not change during the "
-        "study (no drift over time, no difference between centres or subgroups).",
+    timing = conduct_assumptions(design) if design.conduct is not None else [
         "Every subject's outcome is known at the look that counts the subject: no delayed "
         "outcomes, no drop-out, no missing data.",
         f"Looks happen at exactly the planned cumulative sample sizes ({per_arm} per arm, "
-        "treatment first); the allocation is met exactly at every look.",
+        "treatment first); the allocation is met exactly at every look."]
+    items += [
+        "The true parameter values are those of each scenario and do not change during the "
+        "study (no drift over time, no difference between centres or subgroups).",
+        *timing,
         "The decision rule is applied exactly as stated, efficacy before futility, and "
         "futility stopping is binding.",
         "The analysis priors are as stated in the design summary; results for other priors "

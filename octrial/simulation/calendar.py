@@ -7,14 +7,20 @@ batches add up exactly and a checkpoint saves it as one array. Layout:
 
 * ``[0:6]``: sums of duration, duration^2, enrolled, enrolled^2, analysed, analysed^2
   (at the end of each study: its final analysis);
-* ``[6 + 3k : 9 + 3k]``: look k: studies reaching it, sum of its times, sum of its events;
+* ``[6]``: studies that stopped for efficacy at an interim look and whose final analysis
+  including the pipeline missed the final success threshold (``analyse_pipeline``);
+* ``[7 + 3k : 10 + 3k]``: look k: studies reaching it, sum of its times, sum of its events;
 * the rest: a histogram of the durations on :data:`BINS` log-spaced bins between 1/1000
   and 1000 times the time the design needs to enrol every subject (the quantiles'
   resolution: 0.7% of the value; durations outside go to the end bins).
 
 The columns (:func:`calendar_columns`; names fixed in docs/output-files.md):
 ``expected_duration(_se)``, ``duration_q10/q50/q90``, ``expected_enrolled(_se)``,
-``expected_analysed(_se)``, ``look<k>_time`` and ``look<k>_events``.
+``expected_analysed(_se)``, ``look<k>_time``, ``look<k>_events`` (time-to-event) and
+``prob_efficacy_reversed(_se)`` (with ``analyse_pipeline``).
+
+Simulators fill it study by study (:func:`record_study`, in numba loops) or a batch at
+a time (:func:`record_studies`); both add the same totals.
 """
 
 from __future__ import annotations
@@ -26,7 +32,8 @@ import numpy as np
 
 BINS = 2000
 SPAN = 1000.0
-HEAD = 6
+HEAD = 7
+REVERSED = 6
 
 
 def calendar_size(looks: int) -> int:
@@ -65,6 +72,27 @@ def record_study(calendar: np.ndarray, edges: np.ndarray, k: int, time: float,
     calendar[calendar.size - bins + at] += 1.0
 
 
+def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray,
+                   enrolled: np.ndarray, analysed: np.ndarray, look_times: np.ndarray,
+                   reversed_: int = 0) -> None:
+    """Add a batch of studies: per study its duration, subjects enrolled and analysed,
+    and each look's time (shape ``(studies, looks)``, NaN where the study ended before
+    the look); ``reversed_`` efficacy stops the pipeline reversed. Events stay 0."""
+    duration = np.asarray(duration, dtype=float)
+    enrolled = np.asarray(enrolled, dtype=float)
+    analysed = np.asarray(analysed, dtype=float)
+    calendar[:6] += (duration.sum(), (duration * duration).sum(), enrolled.sum(),
+                     (enrolled * enrolled).sum(), analysed.sum(), (analysed * analysed).sum())
+    calendar[REVERSED] += reversed_
+    reached = ~np.isnan(look_times)
+    looks = look_times.shape[1]
+    calendar[HEAD:HEAD + 3 * looks:3] += reached.sum(axis=0)
+    calendar[HEAD + 1:HEAD + 3 * looks:3] += np.where(reached, look_times, 0.0).sum(axis=0)
+    bins = edges.size - 1
+    at = np.clip(np.searchsorted(edges, duration, side="right") - 1, 0, bins - 1)
+    calendar[calendar.size - bins:] += np.bincount(at, minlength=bins)
+
+
 def calendar_columns(design: Any, calendars: np.ndarray,
                      replicates: np.ndarray) -> dict[str, np.ndarray]:
     """The oc.csv columns of the calendar totals (one row per scenario)."""
@@ -87,8 +115,13 @@ def calendar_columns(design: Any, calendars: np.ndarray,
         with np.errstate(invalid="ignore", divide="ignore"):
             out[f"look{k + 1}_time"] = np.where(
                 reached > 0, calendars[:, HEAD + 3 * k + 1] / reached, np.nan)
-            out[f"look{k + 1}_events"] = np.where(
-                reached > 0, calendars[:, HEAD + 3 * k + 2] / reached, np.nan)
+            if design.family.event_driven:
+                out[f"look{k + 1}_events"] = np.where(
+                    reached > 0, calendars[:, HEAD + 3 * k + 2] / reached, np.nan)
+    if design.conduct is not None and design.conduct.analyse_pipeline:
+        p = calendars[:, REVERSED] / r
+        out["prob_efficacy_reversed"] = p
+        out["prob_efficacy_reversed_se"] = np.sqrt(p * (1.0 - p) / r)
     return out
 
 

@@ -1,0 +1,329 @@
+"""Studies in calendar time: binary, count and normal designs with a ``[conduct]`` table.
+
+Per study the simulator draws every subject's enrolment time (:mod:`octrial.conduct.arrivals`)
+and, with dropout, the time each subject would be lost; a subject's outcome is observed
+``lag`` after enrolment unless the subject was lost before. Subjects are assigned to arms
+in fixed blocks (:func:`octrial.conduct.timing.arm_counts`). Each look happens when its
+trigger is met (``looks.n`` subjects with an outcome, ``looks.enrolled`` subjects enrolled,
+or the calendar time ``looks.time``); a ``looks.n`` target that dropout makes unreachable
+is met when the last outcome is observed. At a look the decision uses the subjects with
+an outcome, through the family's protocol (:meth:`~octrial.endpoints.base.Family.draw_statistics`,
+``benefit_at``, ``predictive_at``), called once per group of studies with equal counts.
+
+A stop stops enrolment. With ``analyse_pipeline`` the outcomes of subjects enrolled
+but not yet observed at a stop for efficacy are drawn and analysed with the final
+threshold; when that analysis fails, the stop counts as reversed. Every stop still counts
+at the look where it happened (the per-look efficacy and futility columns are the
+decisions taken at the looks). The duration of a study that analyses its pipeline ends
+at the last pipeline outcome; otherwise at the look where the study ended.
+
+The predictive probability at an interim look assumes the final look's planned counts
+(``looks.per_arm[-1]``, see :func:`octrial.conduct.reader.planned_counts`) and ignores
+the pipeline; a study already past the planned final counts uses the final threshold
+on its current data instead.
+
+Random numbers come from the batch's generator only: enrolment gaps (Poisson arrivals)
+and dropout times first, then, look by look and arm by arm, the statistics. With even
+or fixed arrivals and no dropout nothing is drawn for the calendar, and every study shares
+one timeline; with lag 0 and looks by ``n`` the statistics are then drawn exactly as
+the generic study loop draws them, so the numbers equal those of
+:class:`~octrial.simulation.generic.StudyLoop`.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from octrial.conduct import arrivals
+from octrial.conduct.timing import SLACK, allocation_block, arm_counts
+from octrial.endpoints.base import Family
+from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
+from octrial.simulation.base import Simulator, Tally
+from octrial.simulation.calendar import calendar_size, duration_edges, record_studies
+
+CELLS = 2_000_000
+"""Most study-by-subject cells held at once under random conduct (memory bound)."""
+
+
+def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
+    """Studies with equal per-arm counts: (counts, indices) per distinct row, in
+    ascending order of the rows."""
+    if counts.shape[0] == 0:
+        return []
+    rows, inverse = np.unique(counts, axis=0, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    return [(tuple(int(v) for v in row), np.flatnonzero(inverse == g))
+            for g, row in enumerate(rows)]
+
+
+def calendar_unsupported(design: Any) -> str | None:
+    """Why :class:`CalendarStudies` cannot simulate ``design``, or ``None``."""
+    family, looks = design.family, design.looks
+    if looks.uses_counts:
+        return ("a rule stated in counts is not simulated in calendar time yet; state it "
+                "as probability thresholds")
+    if type(family).benefit_at is Family.benefit_at:
+        return f"{family.name} endpoints have no posterior probability per simulated study"
+    if any(v is not None for v in looks.futility_predictive) and not family.offers_predictive():
+        return (f"{family.name} endpoints offer no predictive probability per simulated "
+                "study, so a design with [conduct] and looks.futility_predictive cannot be "
+                "simulated")
+    return None
+
+
+class CalendarStudies(Simulator):
+    """Studies of a design with ``[conduct]`` at the true values ``truth``.
+
+    Parameters
+    ----------
+    design : Design
+        A design with ``conduct`` whose family the generic study loop can simulate.
+    truth : tuple of float
+        One true parameter value per arm.
+    level : float
+        Credible level of the intervals whose coverage is counted.
+    """
+
+    kernel = "general"
+
+    def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
+        reason = calendar_unsupported(design)
+        if reason:
+            raise ValueError(reason)
+        if design.looks.trigger == "events":
+            raise ValueError("looks by events need a time-to-event simulator")
+        self.design = design
+        self.conduct = design.conduct
+        self.truth = tuple(float(t) for t in truth)
+        self.rule = Rule.of(design.looks)
+        self.looks = design.looks.count
+        self.tail = (1.0 - level) / 2.0
+        self.target = float(design.family.target_value(design.hypothesis, self.truth))
+        block = allocation_block([a.allocation for a in design.arms])
+        m = self.conduct.max_enrolment
+        # arm of each subject in enrolment order
+        self.arm_of = np.argmax(np.diff(arm_counts(np.arange(m + 1), block), axis=0), axis=1)
+        self.edges = duration_edges(design)
+
+    def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
+        """Simulate ``replicates`` studies with random numbers from ``rng`` only."""
+        conduct = self.conduct
+        if conduct.deterministic:
+            return self._chunk(rng, replicates)
+        size = max(1, CELLS // conduct.max_enrolment)
+        tally: Tally | None = None
+        for start in range(0, replicates, size):
+            part = self._chunk(rng, min(size, replicates - start))
+            tally = part if tally is None else tally + part
+        assert tally is not None
+        return tally
+
+    # -- one chunk of studies -------------------------------------------------------
+    def _timeline(self, rng: np.random.Generator, studies: int) -> tuple[np.ndarray, np.ndarray]:
+        """Enrolment and outcome times (``inf``: lost before the outcome); one shared
+        row under deterministic conduct."""
+        conduct = self.conduct
+        m = conduct.max_enrolment
+        gaps = (None if conduct.accrual.deterministic
+                else rng.standard_exponential((studies, m)))
+        enrol = arrivals.enrolment_times(conduct.accrual, gaps, studies, m)
+        observed = enrol + conduct.lag
+        if conduct.dropout_hazard > 0:
+            lost = arrivals.dropout_times(rng.standard_exponential((studies, m)),
+                                          conduct.dropout_hazard)
+            observed = np.where(lost < conduct.lag, np.inf, np.broadcast_to(observed,
+                                                                           lost.shape))
+        return enrol, observed
+
+    def _look_time(self, k: int, enrol: np.ndarray, observed: np.ndarray) -> np.ndarray:
+        looks = self.design.looks
+        rows = enrol.shape[0]
+        if looks.trigger == "time":
+            return np.full(rows, looks.at[k])
+        if looks.trigger == "enrolled":
+            return enrol[:, int(looks.at[k]) - 1].copy()
+        n = looks.n[k]
+        ordered = observed if self.conduct.dropout_hazard == 0 else np.sort(observed, axis=1)
+        t = ordered[:, n - 1].copy()
+        # a target dropout made unreachable: the look waits for the last outcome
+        last = np.where(np.isfinite(ordered), ordered, -np.inf).max(axis=1)
+        return np.where(np.isfinite(t), t, last)
+
+    def _counts(self, times: np.ndarray, t: np.ndarray) -> np.ndarray:
+        """Per row and arm: subjects with times at or before ``t``."""
+        limit = (t + SLACK * np.maximum(1.0, np.abs(t)))[:, None]
+        arms = len(self.design.arms)
+        before = times <= limit
+        return np.stack([before[:, self.arm_of == j].sum(axis=1) for j in range(arms)],
+                        axis=1).astype(np.int64)
+
+    def _draw(self, rng: np.random.Generator, statistics: list[np.ndarray],
+              increments: np.ndarray) -> None:
+        """Add each arm's statistic of its new subjects, grouped by equal increments."""
+        family, design = self.design.family, self.design
+        for j in range(len(statistics)):
+            values = increments[:, j]
+            distinct = np.unique(values)
+            if distinct.size == 1:
+                if distinct[0] > 0:
+                    statistics[j] = statistics[j] + family.draw_statistics(
+                        design, j, self.truth[j], int(distinct[0]), rng, values.size)
+                continue
+            added = np.zeros(values.size)
+            for v in distinct:
+                if v > 0:
+                    where = values == v
+                    added[where] = family.draw_statistics(design, j, self.truth[j], int(v),
+                                                          rng, int(where.sum()))
+            statistics[j] = statistics[j] + added
+
+    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
+        """Decision codes at look ``k`` from the data of subjects with an outcome."""
+        design, family, rule = self.design, self.design.family, self.rule
+        final = design.looks.per_arm[-1]
+        codes = np.full(counts.shape[0], CONTINUE if k < rule.last else FUTILITY,
+                        dtype=np.int64)
+        for n, where in _groups(counts):
+            if min(n) < 1:
+                continue  # an arm without outcomes: no decision possible
+            now = tuple(x[where] for x in statistics)
+            benefit = family.benefit_at(design, now, n)
+            here = rule.decide_many(k, benefit)
+            if rule.has_predictive(k) and np.any(here == CONTINUE):
+                open_ = here == CONTINUE
+                predictive = np.ones(where.size)
+                if all(a <= b for a, b in zip(n, final, strict=True)):
+                    predictive[open_] = family.predictive_at(
+                        design, tuple(x[open_] for x in now), n)
+                else:
+                    passed = rule.decide_many(rule.last, benefit[open_]) == EFFICACY
+                    predictive[open_] = passed.astype(float)
+                here = rule.decide_many(k, benefit, predictive)
+            codes[where] = here
+        return codes
+
+    def _final_success(self, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
+        success = np.zeros(counts.shape[0], dtype=bool)
+        for n, where in _groups(counts):
+            if min(n) < 1:
+                continue
+            benefit = self.design.family.benefit_at(
+                self.design, tuple(x[where] for x in statistics), n)
+            success[where] = self.rule.decide_many(self.rule.last, benefit) == EFFICACY
+        return success
+
+    def _estimate(self, statistics: list[np.ndarray], counts: np.ndarray,
+                  sums: np.ndarray) -> int | None:
+        """Add the estimation sums of stopping studies; their covered count (``None``:
+        the family offers no estimate)."""
+        covered = 0
+        for n, where in _groups(counts):
+            if min(n) < 1:
+                continue
+            found = self.design.family.estimate_at(
+                self.design, tuple(x[where] for x in statistics), n, self.target)
+            if found is None:
+                return None
+            error = found[0] - self.target
+            squared = error * error
+            sums += (error.sum(), squared.sum(), (squared * squared).sum())
+            covered += int(np.count_nonzero((self.tail <= found[1])
+                                            & (found[1] <= 1.0 - self.tail)))
+        return covered
+
+    def _chunk(self, rng: np.random.Generator, studies: int) -> Tally:
+        conduct, design = self.conduct, self.design
+        arms = len(design.arms)
+        shared = conduct.deterministic
+        enrol, observed = self._timeline(rng, studies)
+        m = conduct.max_enrolment
+        enrol_all = np.broadcast_to(enrol, (studies, m))
+        observed_all = np.broadcast_to(observed, (studies, m))
+        efficacy = np.zeros(self.looks, dtype=np.int64)
+        futility = np.zeros(self.looks, dtype=np.int64)
+        sums, covered, estimated = np.zeros(3), 0, True
+        duration = np.zeros(studies)
+        enrolled = np.zeros(studies)
+        analysed = np.zeros(studies)
+        look_times = np.full((studies, self.looks), np.nan)
+        reversed_ = 0
+        running = np.arange(studies)
+        statistics: list[np.ndarray] = [np.zeros(studies) for _ in range(arms)]
+        before = np.zeros((studies, arms), dtype=np.int64)
+        for k in range(self.looks):
+            if running.size == 0:
+                break
+            if shared:
+                rows_e, rows_o = enrol, observed
+            else:
+                rows_e, rows_o = enrol_all[running], observed_all[running]
+            t = self._look_time(k, rows_e, rows_o)
+            complete = self._counts(rows_o, t)
+            in_study = self._counts(rows_e, t).sum(axis=1)
+            if shared:
+                t = np.broadcast_to(t, running.shape)
+                complete = np.broadcast_to(complete, (running.size, arms))
+                in_study = np.broadcast_to(in_study, running.shape)
+            self._draw(rng, statistics, complete - before)
+            before = np.array(complete)
+            codes = self._decide(k, statistics, before)
+            stops = codes != CONTINUE
+            efficacy[k] = int(np.count_nonzero(codes == EFFICACY))
+            futility[k] = int(np.count_nonzero(codes == FUTILITY))
+            look_times[running, k] = t
+            ended = running[stops]
+            duration[ended] = t[stops]
+            enrolled[ended] = in_study[stops]
+            analysed[ended] = before[stops].sum(axis=1)
+            if estimated and np.any(stops):
+                found = self._estimate([x[stops] for x in statistics], before[stops], sums)
+                if found is None:
+                    estimated = False
+                else:
+                    covered += found
+            if conduct.analyse_pipeline and k < self.rule.last and np.any(stops):
+                reversed_ += self._pipeline(rng, codes, running, t, statistics, before,
+                                            rows_e, rows_o, duration, analysed, shared)
+            keep = ~stops
+            running = running[keep]
+            statistics = [x[keep] for x in statistics]
+            before = before[keep]
+        calendar = np.zeros(calendar_size(self.looks))
+        record_studies(calendar, self.edges, duration, enrolled, analysed, look_times,
+                       reversed_)
+        if not estimated:
+            return Tally(studies, efficacy, futility, calendar=calendar)
+        return Tally(studies, efficacy, futility, sums, covered, calendar=calendar)
+
+    def _pipeline(self, rng: np.random.Generator, codes: np.ndarray, running: np.ndarray,
+                  t: np.ndarray, statistics: list[np.ndarray], counts: np.ndarray,
+                  rows_e: np.ndarray, rows_o: np.ndarray, duration: np.ndarray,
+                  analysed: np.ndarray, shared: bool) -> int:
+        """The pipeline of studies that stopped at an interim look: their duration ends
+        at the last pipeline outcome and their analysed subjects include it; the final
+        analysis of stops for efficacy is redone with it. Returns how many of those
+        stops the final analysis reverses."""
+        chosen = codes != CONTINUE
+        t_c = np.asarray(t[chosen])
+        e, o = (rows_e, rows_o) if shared else (rows_e[chosen], rows_o[chosen])
+        t_rows = t_c[:1] if shared else t_c
+        waiting = e <= (t_rows + SLACK * np.maximum(1.0, np.abs(t_rows)))[:, None]
+        seen = waiting & np.isfinite(o)
+        final_counts = np.stack([seen[:, self.arm_of == j].sum(axis=1)
+                                 for j in range(counts.shape[1])], axis=1).astype(np.int64)
+        last = np.where(seen, o, -np.inf).max(axis=1)
+        if shared:
+            final_counts = np.broadcast_to(final_counts, (t_c.size, counts.shape[1]))
+            last = np.broadcast_to(last, t_c.shape)
+        ids = running[chosen]
+        duration[ids] = np.maximum(t_c, last)
+        analysed[ids] = final_counts.sum(axis=1)
+        won = codes[chosen] == EFFICACY
+        if not np.any(won):
+            return 0
+        stats = [x[chosen][won] for x in statistics]
+        self._draw(rng, stats, np.asarray(final_counts)[won] - counts[chosen][won])
+        success = self._final_success(stats, np.asarray(final_counts)[won])
+        return int(np.count_nonzero(~success))
