@@ -369,3 +369,35 @@ def test_look_times_are_the_order_statistics_of_numpy_sort(case: str) -> None:
     ed.ranked_times(buffer, count, ranks, float(values.max()),
                     np.zeros(ed.BUCKETS + 1, dtype=np.int64), np.empty(count), out)
     assert np.array_equal(out, np.sort(values)[ranks])
+
+
+def test_setup_of_a_design_with_hazard_periods() -> None:
+    """A design's endpoint with hazard periods becomes piecewise true hazards (truth x
+    relative hazard per period), one analysis piece per period with the arm's prior, and
+    the design's thresholds, targets and conduct (identity of the mapping); one arm with
+    periods is refused plainly."""
+    from types import SimpleNamespace as NS
+
+    from octrial.conduct.model import Conduct
+
+    prior = NS(a=(0.5, 2.0), b=(6.0, 20.0), weights=(0.3, 0.7))
+    design = NS(
+        conduct=Conduct(Accrual(rates=(5.0, 20.0), starts=(0.0, 3.0)), 300,
+                        dropout_hazard=0.01),
+        arms=(NS(prior=prior, allocation=2.0), NS(prior=prior, allocation=1.0)),
+        hypothesis=NS(threshold=0.8, null_value=None, better="lower"),
+        looks=NS(trigger="events", at=(), n=(50, 100), efficacy=(0.99, 0.95),
+                 futility=(0.1, None)),
+        endpoint=NS(starts=(0.0, 6.0), relative_hazard=(1.0, 0.5)))
+    s = ed.setup_of_design(design, (0.04, 0.05))
+    assert s.hazards == ((0.04, 0.02), (0.05, 0.025))
+    assert s.hazard_starts == s.analysis_starts == (0.0, 6.0)
+    assert s.prior_a == (((0.5, 2.0), (0.5, 2.0)),) * 2
+    assert s.prior_weights == (((0.3, 0.7), (0.3, 0.7)),) * 2
+    assert (s.claim, s.targets, s.trigger, s.allocation) == (0.8, (50.0, 100.0), "events",
+                                                             (2.0, 1.0))
+    tally = ed.PatientLevelSimulator(s).simulate(np.random.default_rng(12), 200)
+    assert tally.efficacy.sum() + tally.futility.sum() == 200
+    one_arm = NS(**{**design.__dict__, "arms": design.arms[:1]})
+    with pytest.raises(ValueError, match="landmark"):
+        ed.setup_of_design(one_arm, (0.04,))

@@ -223,27 +223,45 @@ class EventDrivenSetup:
 
 
 def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
-    """The setup of a time-to-event design (:mod:`octrial.endpoints.time_to_event`:
-    exponential model, gamma-mixture priors, looks at event counts) at true hazards
-    ``truth`` (one per arm)."""
+    """The setup of a time-to-event design at true hazards ``truth`` (one per arm):
+    gamma-mixture priors, looks at event counts or calendar times. An endpoint with
+    hazard periods (``starts`` and ``relative_hazard``: each arm's hazard is its
+    ``truth`` times the period's relative hazard) is simulated piecewise, analysed per
+    period with the arm's prior on each, and decided on the first period's hazard ratio
+    (two arms); one arm with several periods decides on a landmark survival, which this
+    kernel does not compute (``ValueError``)."""
     conduct = design.conduct
     if conduct is None:
         raise ValueError("an event-driven design needs a [conduct] table")
     arms = design.arms
     h = design.hypothesis
     looks = design.looks
+    endpoint = design.endpoint
+    starts = tuple(float(x) for x in getattr(endpoint, "starts", (0.0,)))
+    shape = tuple(float(x) for x in getattr(endpoint, "relative_hazard", (1.0,)))
+    if len(starts) > 1 and len(arms) == 1:
+        raise ValueError("one arm with several hazard periods decides on a landmark "
+                         "survival, which the patient-level kernel does not compute")
+    benchmark = getattr(h, "benchmark", None)
+    claim = (benchmark if benchmark is not None else h.null_value) if len(arms) == 1 \
+        else h.threshold
     # looks at event counts are read into n; calendar-time looks carry their times in at
     trigger = "time" if looks.trigger == "time" else "events"
     targets = tuple(float(t) for t in (looks.at if looks.trigger in TRIGGERS and looks.at
                                        else looks.n))
+
+    def per_period(values: Any) -> tuple[tuple[float, ...], ...]:
+        return (tuple(float(x) for x in values),) * len(starts)
+
     return EventDrivenSetup(
-        hazards=tuple((float(t),) for t in truth),
-        claim=float(h.null_value if len(arms) == 1 else h.threshold),
-        efficacy=tuple(design.looks.efficacy), futility=tuple(design.looks.futility),
+        hazards=tuple(tuple(float(t) * r for r in shape) for t in truth),
+        claim=float(claim),
+        efficacy=tuple(looks.efficacy), futility=tuple(looks.futility),
         targets=targets, accrual=conduct.accrual, max_enrolment=conduct.max_enrolment,
-        prior_a=tuple((tuple(float(x) for x in arm.prior.a),) for arm in arms),
-        prior_b=tuple((tuple(float(x) for x in arm.prior.b),) for arm in arms),
-        prior_weights=tuple((tuple(float(x) for x in arm.prior.weights),) for arm in arms),
+        prior_a=tuple(per_period(arm.prior.a) for arm in arms),
+        prior_b=tuple(per_period(arm.prior.b) for arm in arms),
+        prior_weights=tuple(per_period(arm.prior.weights) for arm in arms),
+        hazard_starts=starts, analysis_starts=starts,
         lower_better=h.better == "lower", trigger=trigger,
         dropout_hazard=float(conduct.dropout_hazard),
         allocation=tuple(float(a.allocation) for a in arms))
