@@ -401,3 +401,44 @@ def test_setup_of_a_design_with_hazard_periods() -> None:
     one_arm = NS(**{**design.__dict__, "arms": design.arms[:1]})
     with pytest.raises(ValueError, match="landmark"):
         ed.setup_of_design(one_arm, (0.04,))
+
+
+def test_arms_with_different_mixtures_against_scipy() -> None:
+    """A robust mixture on the control hazard only (two components) and a single gamma
+    on the treatment: each study's decision equals Pr(HR < c) computed with scipy's
+    gamma distributions and quadrature, the control's mixture reweighted by its marginal
+    likelihood (the gamma-Poisson marginal, written out here)."""
+    from scipy import special
+
+    s = setup(claim=1.0, prior_a=(((0.5,),), ((2.0, 0.1),)),
+              prior_b=(((6.0,),), ((30.0, 1.0),)), prior_weights=(((1.0,),), ((0.8, 0.2),)))
+    sim = ed.PatientLevelSimulator(s)
+    ends = set()
+    for seed in range(25):
+        tally = sim.simulate(np.random.default_rng(seed), 1)
+        subj = sim.subjects(np.random.default_rng(seed))
+        calendar = np.sort((subj["enrolled"] + subj["follow"])[subj["seen"]])
+        for k, target in enumerate(s.targets):
+            events, exposure, _ = statistics_at(subj, calendar[int(target) - 1], 2)
+            (dt, dc), (et, ec) = events[:, 0], exposure[:, 0]
+            treated = stats.gamma(0.5 + dt, scale=1.0 / (6.0 + et))
+            log_m = [math.log(w) + a * math.log(b) + special.gammaln(a + dc)
+                     - special.gammaln(a) - (a + dc) * math.log(b + ec)
+                     for w, a, b in ((0.8, 2.0, 30.0), (0.2, 0.1, 1.0))]
+            weights = np.exp(np.array(log_m) - max(log_m))
+            weights /= weights.sum()
+            below = 0.0
+            for w, a, b in zip(weights, (2.0, 0.1), (30.0, 1.0), strict=True):
+                control = stats.gamma(a + dc, scale=1.0 / (b + ec))
+                below += w * integrate.quad(
+                    lambda lc, c=control, t=treated: c.pdf(lc) * t.cdf(lc), 0, np.inf,
+                    epsabs=1e-13, limit=400)[0]
+            code = Rule.of(dataclasses.make_dataclass(
+                "L", ["efficacy", "futility", "futility_predictive"])(
+                s.efficacy, s.futility, (None,) * 3)).decide(k, below)
+            if code != CONTINUE:
+                stops = tally.efficacy if code == EFFICACY else tally.futility
+                assert stops[k] == 1
+                ends.add((k, code))
+                break
+    assert len(ends) >= 2

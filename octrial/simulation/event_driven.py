@@ -171,12 +171,14 @@ class EventDrivenSetup:
                             ("prior_weights", self.prior_weights)):
             if value is None:
                 continue
-            if len(value) != self.arms or any(len(p) != pieces for p in value) or any(
-                    len(c) != len(self.prior_a[0][0]) or any(not x > 0 for x in c)
-                    for p in value for c in p):
+            # arms may have different numbers of mixture components (a robust mixture
+            # on the control only), each arm the same number in every piece
+            if len(value) != self.arms or any(
+                    len(arm) != pieces or any(len(c) != len(self.prior_a[j][0])
+                                              or any(not x > 0 for x in c) for c in arm)
+                    for j, arm in enumerate(value)):
                 wrong.append(f"{name}: expected positive values for {self.arms} arm(s) x "
-                             f"{pieces} piece(s) x {len(self.prior_a[0][0])} component(s),"
-                             f" got {value}")
+                             f"{pieces} piece(s) x each arm's components, got {value}")
         if not 0 <= self.decision_piece < pieces:
             wrong.append(f"decision_piece: expected 0 to {pieces - 1}, got "
                          f"{self.decision_piece}")
@@ -284,13 +286,20 @@ class PatientLevelSimulator(Simulator):
         self.hazards = np.asarray(s.hazards, dtype=float)
         self.hazard_starts = np.asarray(s.hazard_starts, dtype=float)
         self.analysis_starts = np.asarray(s.analysis_starts, dtype=float)
+        # the decision piece's prior, arms padded to the widest mixture with components
+        # of weight 0 (log weight -inf), which the posterior skips
         p = s.decision_piece
-        a = np.array([arm[p] for arm in s.prior_a], dtype=float)
-        self.a = a
-        self.b = np.array([arm[p] for arm in s.prior_b], dtype=float)
-        weights = (np.ones_like(a) if s.prior_weights is None else
-                   np.array([arm[p] for arm in s.prior_weights], dtype=float))
-        self.log_w = np.log(weights / weights.sum(axis=1, keepdims=True))
+        width = max(len(arm[p]) for arm in s.prior_a)
+        self.a = np.ones((s.arms, width))
+        self.b = np.ones((s.arms, width))
+        self.log_w = np.full((s.arms, width), -np.inf)
+        for j in range(s.arms):
+            size = len(s.prior_a[j][p])
+            weights = (np.ones(size) if s.prior_weights is None else
+                       np.asarray(s.prior_weights[j][p], dtype=float))
+            self.a[j, :size] = s.prior_a[j][p]
+            self.b[j, :size] = s.prior_b[j][p]
+            self.log_w[j, :size] = np.log(weights / weights.sum())
         self.targets = np.asarray(s.targets, dtype=float)
         self.efficacy = np.asarray(_nan(s.efficacy))
         self.futility = np.asarray(_nan(s.futility))
@@ -310,10 +319,10 @@ class PatientLevelSimulator(Simulator):
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
-        """One study's subjects, all ``max_enrolment`` of them (the random numbers of
-        one study of :meth:`simulate`): enrolment time, arm, time from enrolment to the
-        event or loss, whether it is the event, and the event time itself (``inf``
-        when lost first)."""
+        """One study's subjects, all ``max_enrolment`` of them, from the random numbers
+        one study of :meth:`simulate` draws: ``enrolled`` (calendar time), ``arm``,
+        ``follow`` (time from enrolment to the event or the loss, whichever is first)
+        and ``seen`` (whether it is the event)."""
         m = self.setup.max_enrolment
         out = {"enrolled": np.empty(m), "arm": np.empty(m, dtype=np.int64),
                "follow": np.empty(m), "seen": np.empty(m, dtype=np.bool_)}
