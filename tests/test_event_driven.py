@@ -344,6 +344,8 @@ def test_same_seed_same_numbers_whatever_the_batches() -> None:
     (dict(accrual=Accrual(rates=(0.0,))), "accrual.rates"),
     (dict(hazards=((0.1,), (-1.0,))), "hazards[1]"),
     (dict(decision_piece=2), "decision_piece"),
+    (dict(accrual=Accrual(times=(0.0, 2.0, 1.0) + (3.0,) * 147, arrivals="fixed")),
+     "accrual.times"),
 ])
 def test_bad_setup_names_the_attribute(change: dict, name: str) -> None:
     with pytest.raises(ValueError, match=re.escape(name)):

@@ -203,9 +203,10 @@ class EventDrivenSetup:
         if a.arrivals not in ARRIVALS:
             wrong.append(f"accrual.arrivals: expected one of {sorted(ARRIVALS)}, got "
                          f"{a.arrivals!r}")
-        elif a.arrivals == "fixed" and len(a.times) < self.max_enrolment:
-            wrong.append(f"accrual.times: expected at least {self.max_enrolment} times, "
-                         f"got {len(a.times)}")
+        elif a.arrivals == "fixed" and (len(a.times) < self.max_enrolment or any(
+                y < x for x, y in pairwise(a.times)) or min(a.times) < 0):
+            wrong.append(f"accrual.times: expected at least {self.max_enrolment} "
+                         f"non-negative non-decreasing times, got {a.times}")
         elif a.arrivals != "fixed" and (not a.rates or any(not r > 0 for r in a.rates)
                                         or len(a.rates) != len(a.starts)):
             wrong.append(f"accrual.rates: expected one positive rate per start, got "
