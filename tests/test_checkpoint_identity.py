@@ -24,6 +24,7 @@ import octrial
 from octrial.cli import main
 from octrial.design.write import dumps
 from octrial.engines import MonteCarloSettings
+from octrial.engines.monte_carlo import ScenarioTask
 from octrial.evaluation import compute
 from octrial.execution import Execution
 from octrial.execution.checkpoints import IDENTITY, PARTIAL, CheckpointWarning
@@ -283,6 +284,22 @@ def test_missing_arrays_are_named() -> None:
 
 def test_beyond_the_cap_is_named() -> None:
     assert tally_problems(GOOD, 3, at_most=50) == ["100 studies (expected 1 to 50)"]
+
+
+def test_a_target_run_checkpoint_without_target_met_is_named() -> None:
+    """Under a target standard error a saved scenario must say whether the target was
+    met; a missing ``target_met`` was once let through (np.shape(None) == (), found by
+    mypy), and the run then failed on the missing key (KeyError) instead of recomputing."""
+    design = octrial.load_design(DESIGN)
+    count = design.looks.count
+    efficacy, futility = np.zeros(count, dtype=np.int64), np.zeros(count, dtype=np.int64)
+    efficacy[-1], futility[-1] = 60, 40
+    arrays = Tally(100, efficacy, futility).to_arrays()
+    settings = MonteCarloSettings(seed=1, target_se=0.01, max_replicates=1000,
+                                  batch_size=100)
+    task = ScenarioTask(0, (0.3,), design, None, None, settings)
+    assert task.problems({**arrays, "target_met": np.array(False)}) == []
+    assert task.problems(arrays) == ["no target_met"]
 
 
 
