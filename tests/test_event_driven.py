@@ -286,11 +286,13 @@ def test_type_one_error_of_a_one_look_design_is_exact() -> None:
     assert abs(simulated - exact) < 4 * math.sqrt(exact * (1 - exact) / n)
 
 
-def test_two_arm_three_look_rates_agree_with_a_numpy_implementation() -> None:
+@pytest.mark.parametrize("ratio", [1.0, 0.75])
+def test_two_arm_three_look_rates_agree_with_a_numpy_implementation(ratio: float) -> None:
     """An independent vectorised numpy implementation (tests/event_driven_reference.py,
     scipy's betainc) with its own random numbers: per-look stopping probabilities and
-    mean look times within 4 SE (the largest of 12 comparisons)."""
-    s = setup()
+    the first look's mean time within 4 SE, at the null boundary (HR = 1 = the margin:
+    the type I error) and under the alternative."""
+    s = setup(hazards=((ratio * LAMBDA_C,), (LAMBDA_C,)))
     n = 20_000
     tally = ed.PatientLevelSimulator(s).simulate(np.random.default_rng(7), n)
     eff, fut, time_sum = numpy_studies(
@@ -301,7 +303,8 @@ def test_two_arm_three_look_rates_agree_with_a_numpy_implementation() -> None:
         for x, y in zip(mine / n, theirs / n, strict=True):
             se = math.sqrt(max(x * (1 - x), y * (1 - y), 1.0 / n) * 2.0 / n)
             assert abs(x - y) < 4 * se
-    assert tally.efficacy.sum() > 0.2 * n  # the design has power (not a trivial check)
+    # the compared probabilities are not all 0 or 1 (the check could fail)
+    assert tally.efficacy.sum() > (0.2 if ratio < 1 else 0.005) * n
     cal = tally.calendar  # look k at HEAD + 3k: studies reaching it, sum of its times
     assert cal[HEAD] == n
     assert cal[HEAD + 1] / n == pytest.approx(time_sum[0] / n, rel=0.01)
