@@ -36,8 +36,8 @@ def test_run_writes_the_contract_and_matches_the_api(runner, tmp_path, path) -> 
     # The CSV keeps 17 significant digits, so the numbers round-trip exactly (simulated
     # ones too: the design's seed fixes them).
     np.testing.assert_array_equal(oc[numeric].to_numpy(float), api[numeric].to_numpy(float))
-    if design.family.event_driven:
-        # subject-level simulation only; no boundary table yet
+    if design.conduct is not None:
+        # calendar time: simulated study by study (time-to-event: no boundary table yet)
         assert (oc["method"] == "monte-carlo").all()
         assert (oc["replicates"] == design.simulation.replicates).all()
         assert "expected_duration" in oc

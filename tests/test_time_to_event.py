@@ -300,7 +300,9 @@ def test_looks_by_events_on_other_endpoints_are_refused_plainly(tmp_path: Any) -
     path = tmp_path / "design.toml"
     path.write_text(_toml({**BINARY, "looks": {**looks, "events": [10, 20, 30]},
                            "conduct": {"enrolment_rate": 5, "max_enrolment": 30}}))
-    result = CliRunner().invoke(main, ["run", str(path)])
+    out = tmp_path / "out"
+    result = CliRunner().invoke(main, ["run", str(path), "--out", str(out)])
+    assert not out.exists()
     assert result.exit_code == 2
     assert "looks.events" in result.output and "time-to-event" in result.output
 

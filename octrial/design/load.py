@@ -264,15 +264,15 @@ def _read_looks(
                 "futility_count")
     event_driven = family is not None and family.event_driven
     given = [key for key in TRIGGERS if table.has(key)]
+    if event_driven and (others := [key for key in given if key != "events"]):
+        table.fail(others[0], "events (time-to-event looks happen at event counts)",
+                   table.data[others[0]])
+        return None
     if len(given) > 1:
         table.fail(given[1], "one of n, enrolled, time or events (when each look happens)",
                    Phrase(f"{given[0]} and {given[1]}"))
         return None
     key = given[0] if given else ("events" if event_driven else "n")
-    if event_driven and key != "events":
-        table.fail(key, "events (time-to-event looks happen at event counts)",
-                   table.data[key])
-        return None
     trigger = TRIGGERS[key]
     at: tuple[float, ...] = ()
     per_arm: tuple[tuple[int, ...], ...] | None
