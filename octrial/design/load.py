@@ -92,7 +92,7 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     two_arm = arms_table is not None and arms_table.has(CONTROL)
     on_effect = family is not None and endpoint is not None and family.prior_on_effect(
         endpoint, two_arm)
-    hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
+    hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect, endpoint)
     arms = _read_arms(arms_table, family, on_effect)
     looks = _read_looks(top, arms, two_arm, family)
     if looks is not None and not looks.uses_counts and arms and arms_table is not None:
@@ -144,6 +144,7 @@ def _read_endpoint(top: Table) -> tuple[Family | None, Any, str | None]:
 
 def _read_hypothesis(
     top: Table, family: Family | None, better: str | None, two_arm: bool, on_effect: bool,
+    endpoint: Any = None,
 ) -> Hypothesis | None:
     table = top.table("hypothesis")
     if table is None or family is None or better is None:
@@ -154,8 +155,11 @@ def _read_hypothesis(
     if not two_arm:
         table.allow("benchmark", "relevant_effect")
         benchmark = table.number("benchmark")
-        if benchmark is not None and (problem := family.true_value_problem(benchmark)):
-            table.fail("benchmark", problem, benchmark)
+        if benchmark is not None and endpoint is not None:
+            written = benchmark
+            benchmark, problem = family.read_benchmark(endpoint, written)
+            if problem:
+                table.fail("benchmark", problem, written)
         return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)
     table.allow("comparison", "margin", "kind", "relevant_effect",
                 *(("prior", "design_prior") if on_effect else ()))

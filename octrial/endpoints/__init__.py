@@ -12,9 +12,10 @@ from octrial.endpoints.base import Family, LatticeFamily
 from octrial.endpoints.binary import BinaryFamily
 from octrial.endpoints.count import CountFamily
 from octrial.endpoints.normal import NormalFamily
+from octrial.endpoints.time_to_event import TimeToEventFamily
 
 FAMILIES: dict[str, Family] = {family.name: family for family in (
-    BinaryFamily(), CountFamily(), NormalFamily())}
+    BinaryFamily(), CountFamily(), NormalFamily(), TimeToEventFamily())}
 """Every endpoint family, by its ``endpoint.type`` name."""
 
 

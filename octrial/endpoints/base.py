@@ -178,6 +178,12 @@ class Family(ABC):
     def true_value_problem(self, value: float) -> str | None:
         """``None`` when ``value`` is a possible true parameter, else what is expected."""
 
+    def read_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+        """The one-arm benchmark on the parameter's scale from the value written in
+        ``hypothesis.benchmark`` (families whose benchmark may be stated on another
+        scale convert it), and what is expected when the value is not valid."""
+        return value, self.true_value_problem(value)
+
     def prior_on_effect(self, endpoint: Any, two_arm: bool) -> bool:
         """Whether the analysis prior is on the two-arm effect (``hypothesis.prior``)
         rather than on each arm's parameter (``arms.<arm>.prior``)."""

@@ -1,0 +1,514 @@
+"""Time-to-event endpoint: exponential and piecewise-exponential hazards.
+
+Each arm's parameter is a hazard multiplier lambda: the hazard in period j is lambda r_j
+for the relative shape r (``[endpoint] periods`` and ``relative_hazard``; r_0 = 1, so with
+one period lambda is the hazard per time unit). The statistic of an arm is, per period,
+its events and its exposure (time at risk); the maths is in
+:mod:`octrial.endpoints.survival_maths`.
+
+* One arm: the benchmark is stated as a hazard, a median time or the survival at a
+  landmark time (``benchmark_scale``) and converted to a multiplier lambda0
+  (:func:`~octrial.endpoints.survival_maths.benchmark_multiplier`). One period: B =
+  Pr(h < lambda0 | data), a gamma cdf. Several periods: B = Pr(S(L) > S0(L) | data) at
+  the landmark L (the median itself for a median benchmark), the cdf of a sum of
+  independent gammas (Moschopoulos series); the claim is about survival at L, which is
+  what a benchmark stated at L means when the periods' hazards move separately.
+* Two arms on the hazard ratio HR = lambda_T / lambda_C: gamma priors per arm give the
+  beta form of the ratio (one period), or, with ``analysis = 'normal-log-hazard-ratio'``,
+  a normal prior on log HR (``hypothesis.prior``) and the usual normal approximation
+  (information D q / (1 + q)^2 from D events): the known-variance recursion of
+  :mod:`octrial.engines.exact_normal` then gives the operating characteristics with
+  looks at event counts (:class:`LogHazardRatioEngine`).
+* Without ``[conduct]`` every subject's event is observed (nobody is censored), so the
+  generic study loop simulates one-period designs from the total time on study,
+  Gamma(n, lambda); designs with censoring, accrual or event-driven looks need the
+  patient-level simulator (:mod:`octrial.simulation.event_driven`).
+
+Historical borrowing: ``historical = { events, exposure }`` with a power prior or a robust
+mixture, as for counts (one period; the historical data are pooled into every period's
+component otherwise: see docs/methods.md).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import itertools
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, ClassVar
+
+import numpy as np
+from scipy import special, stats
+
+import octrial.endpoints.schema as schema
+from octrial.design.reader import Phrase, Problems, Table
+from octrial.endpoints import survival_maths as sm
+from octrial.endpoints.base import Family
+from octrial.endpoints.borrowing import borrow_mixture, read_borrowing
+from octrial.endpoints.count import GammaMixture, update
+from octrial.endpoints.normal import NormalFamily, NormalMixture, benefit_components
+
+if TYPE_CHECKING:
+    from octrial.interim.base import EndpointInterim
+
+ANALYSES = ("gamma", "normal-log-hazard-ratio")
+"""Values of ``endpoint.analysis``: gamma priors per arm, or (two arms) a normal prior on
+the log hazard ratio with the normal approximation."""
+
+NOT_YET = ("time-to-event designs with a [conduct] table or looks at event counts or "
+           "calendar times need the patient-level simulator "
+           "(octrial/simulation/event_driven.py), which this version does not have yet")
+
+
+@dataclass(frozen=True)
+class TimeToEventEndpoint:
+    """``[endpoint]`` settings of a time-to-event endpoint.
+
+    Attributes
+    ----------
+    starts : tuple of float
+        Start of each hazard period (``periods``; the first is 0).
+    relative_hazard : tuple of float
+        The shape r_j of the hazard across periods (r_0 = 1).
+    benchmark_scale : {'hazard', 'median', 'survival'}
+    landmark : float or None
+        The time at which a survival benchmark is stated (needed for 'survival', and for
+        a 'hazard' benchmark with several periods).
+    analysis : {'gamma', 'normal-log-hazard-ratio'}
+    time_unit : str
+        The unit of every time and the inverse unit of every hazard (words only).
+    """
+
+    type: str = "time-to-event"
+    starts: tuple[float, ...] = (0.0,)
+    relative_hazard: tuple[float, ...] = (1.0,)
+    benchmark_scale: str = "hazard"
+    landmark: float | None = None
+    analysis: str = "gamma"
+    time_unit: str = "month"
+
+    @property
+    def periods(self) -> int:
+        return len(self.starts)
+
+    def landmark_time(self, multiplier: float) -> float:
+        """L: the landmark, or the median time at the benchmark multiplier."""
+        if self.benchmark_scale == "median":
+            return sm.median_time(self.starts, self.relative_hazard, multiplier)
+        assert self.landmark is not None  # read_endpoint requires it
+        return self.landmark
+
+
+def _increasing_from_zero(values: list[float]) -> bool:
+    return bool(values) and values[0] == 0 and all(
+        b > a for a, b in itertools.pairwise(values))
+
+
+class TimeToEventFamily(Family):
+    """Exponential / piecewise-exponential hazards with gamma priors."""
+
+    name = "time-to-event"
+    parameter = "hazard"
+    statistic = "events and exposure"
+    unit = "hazard (events per unit of time at risk)"
+    data_model = ("Each subject's time to the event has a hazard that is constant within "
+                  "each stated period (one period: an exponential time), equal to the arm's "
+                  "hazard multiplier times the period's relative hazard, independently of "
+                  "other subjects; censoring is independent of the event time.")
+    comparisons = ("ratio",)
+    default_better = "lower"
+    parameter_range = (0.0, math.inf)
+    event_driven: ClassVar[bool] = True
+    """Looks may wait for a number of events (engineer C's conduct layer reads it)."""
+
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.time_to_event import TimeToEventInterim
+
+        return TimeToEventInterim()
+
+    # -- design-file reading ---------------------------------------------------------
+    prior_schema = schema.PriorSchema({
+        **schema.with_mixture("gamma", schema.prior_size("shape"), schema.positive("rate"),
+                              GammaMixture),
+        **{k: NormalFamily.prior_schema.distributions[k] for k in ("normal",
+                                                                   "normal-mixture")},
+    })
+
+    def read_endpoint(self, table: Table) -> TimeToEventEndpoint:
+        table.allow("type", "better", "periods", "relative_hazard", "benchmark_scale",
+                    "landmark", "analysis", "time_unit")
+        starts = [0.0]
+        if table.has("periods"):
+            read = table.numbers("periods", check=lambda v: v >= 0,
+                                 expected="period start times >= 0")
+            if read is not None and all(v is not None for v in read):
+                values = [float(v) for v in read if v is not None]
+                if _increasing_from_zero(values):
+                    starts = values
+                else:
+                    table.fail("periods", "strictly increasing start times beginning at 0",
+                               values)
+        shape = [1.0] * len(starts)
+        if table.has("relative_hazard"):
+            read = table.numbers("relative_hazard", check=lambda v: v > 0,
+                                 expected="relative hazards > 0")
+            if read is not None and all(v is not None for v in read):
+                values = [float(v) for v in read if v is not None]
+                if len(values) != len(starts) or values[0] != 1.0:
+                    table.fail("relative_hazard", f"{len(starts)} relative hazards (one per "
+                               "period) starting with 1", values)
+                else:
+                    shape = values
+        elif len(starts) > 1:
+            table.fail("relative_hazard", "one relative hazard per period, starting with 1 "
+                       "(the shape of the hazard across periods)",
+                       Phrase("nothing (the key is missing)"))
+        scale = table.string("benchmark_scale", sm.BENCHMARK_SCALES, required=False,
+                             default="hazard") or "hazard"
+        landmark = table.number("landmark", required=scale == "survival",
+                                check=lambda v: v > 0, expected="a landmark time > 0")
+        analysis = table.string("analysis", ANALYSES, required=False,
+                                default="gamma") or "gamma"
+        unit = table.string("time_unit", None, required=False, default="month") or "month"
+        return TimeToEventEndpoint("time-to-event", tuple(starts), tuple(shape), scale,
+                                   landmark, analysis, unit)
+
+    def read_prior(self, table: Table) -> Any:
+        kind, prior = schema.read_distribution(table, self.prior_schema)
+        if kind is None:
+            return None
+        spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
+        if spec is None or prior is None:
+            return prior
+        if not isinstance(prior, GammaMixture):
+            table.fail("borrowing", "a gamma or gamma-mixture initial prior (borrowing on "
+                       "the hazard)", Phrase(f"a {kind} prior"))
+            return None
+        x0, t0 = spec["historical"]["events"], spec["historical"]["exposure"]
+        return borrow_mixture(prior, update, t0, x0, spec, x0 / t0)
+
+    def true_value_problem(self, value: float) -> str | None:
+        return None if value > 0 and math.isfinite(value) else "a hazard > 0"
+
+    def prior_on_effect(self, endpoint: Any, two_arm: bool) -> bool:
+        return two_arm and endpoint.analysis == "normal-log-hazard-ratio"
+
+    def check_design(self, parts: dict[str, Any], problems: Problems) -> None:
+        endpoint, hypothesis = parts["endpoint"], parts["hypothesis"]
+        if endpoint is None or hypothesis is None:
+            return
+        two_arm = parts["two_arm"]
+        if not two_arm:
+            if endpoint.periods > 1 and endpoint.benchmark_scale == "hazard" and (
+                    endpoint.landmark is None):
+                problems.add("endpoint.landmark", "a landmark time: with several periods "
+                             "the claim is about survival at a landmark",
+                             Phrase("nothing (the key is missing)"))
+        if endpoint.analysis == "normal-log-hazard-ratio" and not two_arm:
+            problems.add("endpoint.analysis", "'gamma' for a one-arm design (the normal "
+                         "approximation is on the log hazard ratio)", endpoint.analysis)
+        if two_arm and endpoint.analysis == "gamma" and endpoint.periods > 1:
+            problems.add("endpoint.analysis", "'normal-log-hazard-ratio' for two arms with "
+                         "several periods (the gamma ratio needs one period)", "gamma")
+        on_effect = self.prior_on_effect(endpoint, two_arm)
+        holders = [("hypothesis", hypothesis)] if on_effect else [
+            (f"arms.{a.name}", a) for a in parts["arms"]]
+        for where, holder in holders:
+            for key in ("prior", "design_prior"):
+                prior = getattr(holder, key)
+                if prior is None:
+                    continue
+                if on_effect and not isinstance(prior, NormalMixture):
+                    problems.add(f"{where}.{key}.distribution", "'normal' or "
+                                 "'normal-mixture' (a prior on the log hazard ratio)",
+                                 Phrase(f"a {type(prior).__name__} prior"))
+                if not on_effect and not isinstance(prior, GammaMixture):
+                    problems.add(f"{where}.{key}.distribution", "'gamma' or "
+                                 "'gamma-mixture' (a prior on the hazard)",
+                                 Phrase(f"a {type(prior).__name__} prior"))
+
+    # -- hypotheses ------------------------------------------------------------------
+    def read_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+        """The benchmark as a hazard multiplier lambda0, converted from a hazard, a
+        median or a survival probability at the landmark (``benchmark_scale``)."""
+        e: TimeToEventEndpoint = endpoint
+        if e.benchmark_scale == "survival":
+            if not 0 < value < 1:
+                return value, ("a survival probability in (0, 1) (endpoint.benchmark_scale "
+                               "= 'survival')")
+            if e.landmark is None:
+                return value, None  # the missing landmark is reported on its own key
+        elif not (value > 0 and math.isfinite(value)):
+            return value, ("a median time > 0" if e.benchmark_scale == "median"
+                           else "a hazard > 0")
+        return sm.benchmark_multiplier(e.benchmark_scale, value, e.starts,
+                                       e.relative_hazard, e.landmark), None
+
+    def target_value(self, hypothesis: Any, truth: tuple[float, ...]) -> float:
+        """One arm: the hazard multiplier. Two arms: the log hazard ratio."""
+        return truth[0] if len(truth) == 1 else math.log(truth[0] / truth[1])
+
+    # -- posteriors ------------------------------------------------------------------
+    @staticmethod
+    def posterior(prior: GammaMixture, events: np.ndarray, exposure: np.ndarray,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per study: (weights (m, C), shapes (m, C, J), rates (m, C, J)) after
+        ``events`` and ``exposure`` of shape (m, J) (periods J)."""
+        d = np.atleast_2d(np.asarray(events, dtype=float))
+        e = np.atleast_2d(np.asarray(exposure, dtype=float))
+        a0 = np.asarray(prior.a)[None, :, None]
+        b0 = np.asarray(prior.b)[None, :, None]
+        a, b = a0 + d[:, None, :], b0 + e[:, None, :]
+        log_w = np.log(np.asarray(prior.weights))[None, :] + np.sum(
+            a0 * np.log(b0) + special.gammaln(a) - special.gammaln(a0) - a * np.log(b), axis=2)
+        weights = np.exp(log_w - special.logsumexp(log_w, axis=1, keepdims=True))
+        return weights, a, b
+
+    def benefit_from(self, design: Any, events: tuple[np.ndarray, ...],
+                     exposure: tuple[np.ndarray, ...]) -> np.ndarray:
+        """Posterior probability of benefit per study from each arm's events and exposure
+        per period (arrays of shape (studies, periods)); the interface the patient-level
+        simulator and ``octrial decide`` call."""
+        h = design.hypothesis
+        e: TimeToEventEndpoint = design.endpoint
+        lower = h.better == "lower"
+        if self.prior_on_effect(e, design.two_arm):
+            return self._normal_benefit(design, events, exposure)
+        if not design.two_arm:
+            w, a, b = self.posterior(design.arms[0].prior, events[0], exposure[0])
+            lam0 = h.benchmark
+            if e.periods == 1:
+                below = np.sum(w * special.gammainc(a[..., 0], b[..., 0] * lam0), axis=1)
+                above = np.sum(w * special.gammaincc(a[..., 0], b[..., 0] * lam0), axis=1)
+                return below if lower else above
+            below = self._landmark_below(design, w, a, b, lam0)
+            return below if lower else 1.0 - below
+        (w_t, a_t, b_t), (w_c, a_c, b_c) = (
+            self.posterior(arm.prior, d, x) for arm, d, x in zip(design.arms, events,
+                                                                 exposure, strict=True))
+        out = np.zeros(w_t.shape[0])
+        for i in range(w_t.shape[1]):
+            for j in range(w_c.shape[1]):
+                k = h.threshold * b_t[:, i, 0] / b_c[:, j, 0]
+                p = (special.betainc(a_t[:, i, 0], a_c[:, j, 0], k / (1 + k)) if lower
+                     else special.betainc(a_c[:, j, 0], a_t[:, i, 0], 1 / (1 + k)))
+                out += w_t[:, i] * w_c[:, j] * p
+        return np.clip(out, 0.0, 1.0)
+
+    def _landmark_below(self, design: Any, w: np.ndarray, a: np.ndarray, b: np.ndarray,
+                        lam0: float) -> np.ndarray:
+        """Pr(Lambda(L) < lambda0 H0(L)) = Pr(S(L) > S0(L)), mixed over components."""
+        e: TimeToEventEndpoint = design.endpoint
+        landmark = e.landmark_time(lam0)
+        delta = sm.period_overlap(e.starts, landmark)
+        used = delta > 0
+        limit = lam0 * float(sm.base_cumulative_hazard(e.starts, e.relative_hazard, landmark))
+        out = np.zeros(w.shape[0])
+        for c in range(w.shape[1]):
+            cdf, _ = sm.gamma_sum_cdf(np.full(w.shape[0], limit), a[:, c, used],
+                                      b[:, c, used] / delta[used])
+            out += w[:, c] * cdf
+        return out
+
+    @staticmethod
+    def log_hazard_ratio_estimate(design: Any, events: tuple[np.ndarray, ...],
+                                  exposure: tuple[np.ndarray, ...],
+                                  ) -> tuple[np.ndarray, np.ndarray]:
+        """(log HR estimate, its information 1 / (1/d_T + 1/d_C)) per study: each arm's
+        multiplier estimated as d / sum_j r_j E_j (the maximum likelihood estimate under
+        the stated relative shape)."""
+        r = np.asarray(design.endpoint.relative_hazard)
+        logs, inverse = [], []
+        for d, x in zip(events, exposure, strict=True):
+            d_sum = np.atleast_2d(np.asarray(d, dtype=float)).sum(axis=1)
+            weighted = np.atleast_2d(np.asarray(x, dtype=float)) @ r
+            logs.append(np.log(d_sum / weighted))
+            inverse.append(1.0 / d_sum)
+        return logs[0] - logs[1], 1.0 / (inverse[0] + inverse[1])
+
+    def _normal_benefit(self, design: Any, events: tuple[np.ndarray, ...],
+                        exposure: tuple[np.ndarray, ...]) -> np.ndarray:
+        h = design.hypothesis
+        estimate, information = self.log_hazard_ratio_estimate(design, events, exposure)
+        w, m, p0 = benefit_components(h.prior, h.sign)
+        c = h.sign * math.log(h.threshold)
+        info = information[:, None]
+        score = h.sign * estimate[:, None] * info
+        precision = p0 + info
+        mean = (m * p0 + score) / precision
+        var = info + info**2 / np.where(p0 > 0, p0, np.inf)
+        log_w = np.log(w) + stats.norm.logpdf(score, info * m, np.sqrt(var))
+        weights = np.exp(log_w - special.logsumexp(log_w, axis=1, keepdims=True))
+        return np.sum(weights * special.ndtr((mean - c) * np.sqrt(precision)), axis=1)
+
+    def prior_probability_of_claim(self, design: Any) -> float | None:
+        h = design.hypothesis
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            w, m, p = benefit_components(h.prior, h.sign)
+            return float(np.sum(w * special.ndtr((m - h.sign * math.log(h.threshold))
+                                                  * np.sqrt(p))))
+        periods = design.endpoint.periods
+        zero = tuple(np.zeros((1, periods)) for _ in design.arms)
+        return float(self.benefit_from(design, zero, zero)[0])
+
+    def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
+        if isinstance(prior, GammaMixture):
+            return [(w, stats.gamma(a, scale=1.0 / b)) for w, a, b in zip(
+                prior.weights, prior.a, prior.b, strict=True)]
+        if isinstance(prior, NormalMixture):
+            return [(w, stats.norm(m, s)) for w, m, s in zip(prior.weights, prior.mean,
+                                                              prior.sd, strict=True)]
+        return None
+
+    # -- boundaries --------------------------------------------------------------------
+    def event_targets(self, design: Any) -> tuple[int, ...]:
+        """Total events at each look: ``looks.at`` for event-driven looks; without
+        censoring (no ``[conduct]``) every analysed subject has had the event, so the
+        looks' sample sizes."""
+        looks = design.looks
+        if looks.trigger == "events":
+            return tuple(int(v) for v in looks.at)
+        return tuple(looks.n)
+
+    def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
+        from octrial.endpoints.survival_bounds import boundary_table
+
+        return boundary_table(design)
+
+    def committee_table(self, design: Any, table: Any) -> str | None:
+        from octrial.endpoints.survival_bounds import committee_text
+
+        return committee_text(design, table)
+
+    # == simulation ================================================================
+    def simulation_unsupported(self, design: Any) -> str | None:
+        e: TimeToEventEndpoint = design.endpoint
+        if design.conduct is not None or design.looks.trigger in ("events", "time"):
+            try:
+                from octrial.simulation import event_driven  # noqa: F401
+            except ImportError:
+                return NOT_YET
+            return None
+        if e.periods > 1:
+            return ("a piecewise-exponential design is simulated subject by subject: add a "
+                    "[conduct] table (the patient-level simulator)")
+        if any(v is not None for v in design.looks.futility_predictive):
+            return ("time-to-event endpoints offer no predictive probability of success yet, "
+                    "so a design with predictive futility (looks.futility_predictive) "
+                    "cannot be simulated")
+        return None
+
+    def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
+        if design.conduct is not None or design.looks.trigger in ("events", "time"):
+            from octrial.simulation.event_driven import EventDrivenSimulator
+
+            return EventDrivenSimulator(design, truth, level)
+        return super().simulator(design, truth, level)
+
+    # Without [conduct], one period: each analysed subject contributes one event and its
+    # whole time to the event, so an arm's statistic is its total time on study.
+    def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
+        """Total time to the event of ``n`` subjects: Gamma(n, rate = hazard)."""
+        return stats.gamma(n, scale=1.0 / np.asarray(truth, dtype=float))
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        if n == 0:
+            return np.zeros(size)
+        return rng.gamma(n, 1.0 / truth, size)
+
+    def benefit_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                   n: tuple[int, ...]) -> np.ndarray:
+        events = tuple(np.full((np.size(x), 1), float(m)) for x, m in zip(statistics, n,
+                                                                          strict=True))
+        exposure = tuple(np.asarray(x, dtype=float).reshape(-1, 1) for x in statistics)
+        return self.benefit_from(design, events, exposure)
+
+    def estimate_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                    n: tuple[int, ...], value: float,
+                    ) -> tuple[np.ndarray, np.ndarray] | None:
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            return None
+        posts = [self.posterior(arm.prior, np.full((np.size(x), 1), float(m)),
+                                np.asarray(x, dtype=float).reshape(-1, 1))
+                 for arm, x, m in zip(design.arms, statistics, n, strict=True)]
+        if len(posts) == 1:
+            (w, a, b), = posts
+            mean = np.sum(w * a[..., 0] / b[..., 0], axis=1)
+            return mean, np.sum(w * special.gammainc(a[..., 0], b[..., 0] * value), axis=1)
+        (w_t, a_t, b_t), (w_c, a_c, b_c) = posts
+        mean = np.zeros(w_t.shape[0])
+        cdf = np.zeros(w_t.shape[0])
+        for i in range(w_t.shape[1]):
+            for j in range(w_c.shape[1]):
+                pair = w_t[:, i] * w_c[:, j]
+                # E[log h] = digamma(a) - log(b); the beta form for Pr(log HR <= value)
+                mean += pair * (special.digamma(a_t[:, i, 0]) - np.log(b_t[:, i, 0])
+                                - special.digamma(a_c[:, j, 0]) + np.log(b_c[:, j, 0]))
+                k = math.exp(value) * b_t[:, i, 0] / b_c[:, j, 0]
+                cdf += pair * special.betainc(a_t[:, i, 0], a_c[:, j, 0], k / (1 + k))
+        return mean, cdf
+
+    # -- the normal approximation on the known-variance engine ----------------------
+    def as_normal_design(self, design: Any) -> Any:
+        """The one-arm normal design with known sd that the normal approximation makes
+        of a two-arm ``normal-log-hazard-ratio`` design: the parameter is log HR, each
+        event one 'observation' with sd (1 + q) / sqrt(q) (information D q / (1 + q)^2),
+        the looks' sizes the event targets, the benchmark log(threshold)."""
+        from octrial.design.model import Arm, Design, Hypothesis, Scenarios
+        from octrial.endpoints.normal import NormalEndpoint
+
+        h = design.hypothesis
+        q = design.arms[0].allocation / design.arms[1].allocation
+        events = self.event_targets(design)
+        looks = dataclasses.replace(design.looks, n=events,
+                                    per_arm=tuple((d,) for d in events), trigger="complete",
+                                    at=())
+        values = tuple((math.log(t / c),) for t, c in design.scenarios.values)
+        return Design(
+            design.name, design.title, NormalEndpoint(sd=(1 + q) / math.sqrt(q)),
+            Hypothesis(h.better, benchmark=math.log(h.threshold),
+                       relevant_effect=h.relevant_effect),
+            (Arm("treatment", h.prior, 1.0, h.design_prior),), looks,
+            Scenarios(("treatment",), values), design.simulation, design.source)
+
+
+class LogHazardRatioEngine:
+    """Exact-to-quadrature OCs of a ``normal-log-hazard-ratio`` design: the known-variance
+    recursion run on :meth:`TimeToEventFamily.as_normal_design`."""
+
+    name = "exact"
+
+    @staticmethod
+    def serves(family: Any) -> bool:
+        return isinstance(family, TimeToEventFamily)
+
+    @staticmethod
+    def unsupported(design: Any) -> str | None:
+        family = design.family
+        if not isinstance(family, TimeToEventFamily):
+            return f"{family.name} endpoints are not time-to-event"
+        if not family.prior_on_effect(design.endpoint, design.two_arm):
+            return ("only the normal approximation on the log hazard ratio (endpoint."
+                    "analysis = 'normal-log-hazard-ratio') has an exact engine")
+        if design.looks.trigger not in ("events", "complete"):
+            return "looks at calendar times need simulation"
+        return None
+
+    @staticmethod
+    def run(design: Any, truths: np.ndarray, **options: Any) -> Any:
+        from octrial.engines.exact_normal import NormalRecursionEngine
+
+        normal = design.family.as_normal_design(design)
+        truths = np.asarray(truths, dtype=float)
+        log_ratio = np.log(truths[:, :1] / truths[:, 1:2])
+        options.pop("rule", None)
+        outcome = NormalRecursionEngine.run(normal, log_ratio, **{
+            k: v for k, v in options.items() if k in ("points_per_sd", "estimate")})
+        events = design.family.event_targets(design)
+        for k, d in enumerate(events, start=1):
+            outcome.extra[f"look{k}_events"] = np.full(len(truths), float(d))
+        outcome.info["normal_approximation"] = (
+            "log HR estimate ~ N(log HR, 1/d_T + 1/d_C), information D q / (1 + q)^2 "
+            "(Schoenfeld 1981)")
+        return outcome
