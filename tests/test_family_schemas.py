@@ -25,6 +25,9 @@ BASES: dict[str, dict[str, Any]] = {
               "hypothesis": {"benchmark": 1.0}, "scenarios": {"treatment": [0.5, 1.0]}},
     "normal": {"endpoint": {"type": "normal", "better": "higher", "sd": 2.0},
                "hypothesis": {"benchmark": 0.0}, "scenarios": {"treatment": [0.0, 1.0]}},
+    "time-to-event": {"endpoint": {"type": "time-to-event"},
+                      "hypothesis": {"benchmark": 0.1},
+                      "scenarios": {"treatment": [0.05, 0.1]}},
 }
 """Per family: changes to tests.helpers.ONE_ARM giving a small design of it."""
 

@@ -54,6 +54,16 @@ SUITE_DESIGNS: dict[str, dict[str, Any]] = {
         "looks": {"n": [10, 25], "efficacy": [0.995, 0.975], "futility": [0.1]},
         "scenarios": {"treatment": [0.0, 0.4]},
     },
+    "time-to-event": {
+        "schema": 1, "name": "suite-time-to-event",
+        "endpoint": {"type": "time-to-event", "benchmark_scale": "median"},
+        "hypothesis": {"benchmark": 6.0},
+        "arms": {"treatment": {"prior": {"distribution": "gamma-mixture", "components": [
+            {"weight": 0.7, "shape": 2.0, "rate": 20.0},
+            {"weight": 0.3, "shape": 1.0, "rate": 5.0}]}}},
+        "looks": {"n": [10, 20, 30], "efficacy": [0.99, 0.98, 0.95], "futility": 0.1},
+        "scenarios": {"treatment": [0.1155, 0.06]},
+    },
     TOY: {
         "schema": 1, "name": "suite-toy",
         "endpoint": {"type": TOY, "better": "lower"},
@@ -87,6 +97,17 @@ TWO_ARM_DESIGNS: dict[str, dict[str, Any]] = {
         "looks": {"n": [20, 40], "efficacy": [0.99, 0.975], "futility": 0.1},
         "scenarios": {"control": [1.0], "ratio": [1.0, 0.6]},
     },
+    "time-to-event": {
+        "schema": 1, "name": "suite-time-to-event-two-arm",
+        "endpoint": {"type": "time-to-event"},
+        "hypothesis": {"comparison": "ratio", "margin": 0.0},
+        "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 10}},
+                 "control": {"prior": {"distribution": "gamma-mixture", "components": [
+                     {"weight": 0.5, "shape": 3, "rate": 30},
+                     {"weight": 0.5, "shape": 1, "rate": 10}]}}},
+        "looks": {"n": [20, 40], "efficacy": [0.995, 0.975], "futility": 0.1},
+        "scenarios": {"control": [0.1], "ratio": [1.0, 0.5]},
+    },
     TOY: {
         "schema": 1, "name": "suite-toy-two-arm",
         "endpoint": {"type": TOY, "better": "lower"},
@@ -107,6 +128,10 @@ BAD_INPUTS: dict[str, list[tuple[str, Any, str]]] = {
               ("scenarios__treatment", [-0.5], "scenarios.treatment")],
     "normal": [("endpoint__sd", -1, "endpoint.sd"),
                ("arms__treatment__prior__components", [], "arms.treatment.prior")],
+    "time-to-event": [("endpoint__periods", [0, 6, 3], "endpoint.periods"),
+                      ("endpoint__relative_hazard", [1, -0.5], "endpoint.relative_hazard"),
+                      ("scenarios__treatment", [-0.1], "scenarios.treatment"),
+                      ("arms__treatment__prior__rate", 0, "arms.treatment.prior.rate")],
     TOY: [("arms__treatment__prior__shape", 0, "arms.treatment.prior.shape"),
           ("scenarios__treatment", [0.0], "scenarios.treatment")],
 }
