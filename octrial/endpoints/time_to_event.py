@@ -121,11 +121,9 @@ class TimeToEventFamily(Family):
     event_driven: ClassVar[bool] = True
     """Looks may wait for a number of events (engineer C's conduct layer reads it)."""
 
-    def interim(self) -> EndpointInterim | None:
-        try:
-            from octrial.interim.time_to_event import TimeToEventInterim
-        except ImportError:  # written after the family; absent in partial checkouts
-            return None
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.time_to_event import TimeToEventInterim
+
         return TimeToEventInterim()
 
     # -- design-file reading ---------------------------------------------------------
