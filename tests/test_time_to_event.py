@@ -318,3 +318,105 @@ def test_exposure_bounds_reproduce_the_threshold() -> None:
         assert b == pytest.approx(design.looks.efficacy[k], abs=1e-8)
     assert special.gammainc(2 + 40, (30 + table["efficacy_bound"].iloc[1]) * 0.05) == (
         pytest.approx(0.95, abs=1e-8))
+
+
+# -- octrial decide --------------------------------------------------------------------
+TWO_ARM_GAMMA: dict[str, Any] = {
+    "schema": 1, "name": "tte-two-arm-gamma",
+    "endpoint": {"type": "time-to-event"},
+    "hypothesis": {"comparison": "ratio"},
+    "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 20}},
+             "control": {"prior": {"distribution": "gamma", "shape": 1, "rate": 20}}},
+    "looks": {"n": [100, 200], "efficacy": [0.995, 0.975], "futility": [0.2]},
+    "scenarios": {"control": [0.05], "ratio": [1.0, 0.7]},
+}
+
+
+def _subjects_file(tmp_path: Path, scale_t: float, shape: float = 1.0,
+                   seed: int = 5) -> Path:
+    """Weibull(shape) times (exponential when shape = 1) with uniform censoring."""
+    rng = np.random.default_rng(seed)
+    rows = ["arm,time,event"]
+    for arm, scale in (("treatment", scale_t), ("control", 20.0)):
+        t = scale * rng.weibull(shape, 150)
+        c = rng.uniform(6, 30, 150)
+        rows += [f"{arm},{min(a, b):.6f},{int(a <= b)}" for a, b in zip(t, c, strict=True)]
+    path = tmp_path / "subjects.csv"
+    path.write_text("\n".join(rows) + "\n")
+    return path
+
+
+def test_decide_on_events_and_exposure_is_the_beta_form() -> None:
+    """`decide` with ARM=events/exposure: Pr(HR < 1) = I_{k/(1+k)}(a_T, a_C) (scipy)
+    and the hazards' intervals are gamma quantiles (scipy)."""
+    from octrial.interim import decide
+
+    design = build(TWO_ARM_GAMMA)
+    result = decide(design, 1, ["treatment=40/1100", "control=60/1050"], level=0.95)
+    k = (20 + 1100) / (20 + 1050)
+    want = special.betainc(41, 61, k / (1 + k))
+    assert result.assessment.benefit == pytest.approx(want, rel=1e-12)
+    treatment = result.posterior[0]
+    post = stats.gamma(41, scale=1 / 1120)
+    assert (treatment.lower, treatment.upper) == pytest.approx(post.ppf([0.025, 0.975]),
+                                                               rel=1e-9)
+    ratio = result.posterior[-1]
+    # the interval's ends are where the beta form gives 0.025 and 0.975
+    for end, q in ((ratio.lower, 0.025), (ratio.upper, 0.975)):
+        kk = end * 1120 / 1070
+        assert special.betainc(41, 61, kk / (1 + kk)) == pytest.approx(q, abs=1e-9)
+
+
+def test_decide_reads_per_subject_times_like_lifelines(tmp_path: Path) -> None:
+    """Per-subject file: events and time at risk as counted by lifelines'
+    ExponentialFitter (MLE scale = exposure / events) and a Kaplan-Meier curve equal
+    to lifelines' KaplanMeierFitter."""
+    lifelines = pytest.importorskip("lifelines")
+    from octrial.interim import decide
+    from octrial.interim.time_to_event import kaplan_meier
+
+    path = _subjects_file(tmp_path, 28.0)
+    design = build(TWO_ARM_GAMMA)
+    result = decide(design, 1, [], subjects=path)
+    rows = np.genfromtxt(path, delimiter=",", names=True, dtype=None, encoding="utf-8")
+    for arm in ("treatment", "control"):
+        mine = rows[rows["arm"] == arm]
+        fit = lifelines.ExponentialFitter().fit(mine["time"], mine["event"])
+        got = result.observed[arm]
+        assert got.exposure[0] / got.events[0] == pytest.approx(fit.lambda_, rel=1e-6)
+        km = lifelines.KaplanMeierFitter().fit(mine["time"], mine["event"])
+        times, surv = kaplan_meier(mine["time"], mine["event"])
+        assert surv == pytest.approx(km.survival_function_at_times(times).to_numpy(),
+                                     abs=1e-12)
+    assert [c.statistic for c in result.checks] == ["Kaplan-Meier distance"] * 2
+
+
+def test_piecewise_sufficient_statistics_match_lifelines(tmp_path: Path) -> None:
+    """Per period: lifelines' PiecewiseExponentialFitter MLE scales equal exposure /
+    events of :func:`split_exposure`."""
+    lifelines = pytest.importorskip("lifelines")
+    rng = np.random.default_rng(3)
+    t = rng.exponential(12.0, 400)
+    c = rng.uniform(3, 24, 400)
+    time, event = np.minimum(t, c), (t <= c).astype(int)
+    d, e = sm.split_exposure(time, event, (0.0, 6.0))
+    fit = lifelines.PiecewiseExponentialFitter([6.0]).fit(time, event)
+    assert (e / d) == pytest.approx(fit.summary["coef"].to_numpy()[:2], rel=1e-4)
+
+
+def test_kaplan_meier_check_flags_a_strongly_non_exponential_arm(tmp_path: Path) -> None:
+    """Weibull shape 3 times (an increasing hazard) against an exponential model: the
+    Kaplan-Meier distance is flagged for that arm and not for the exponential arm."""
+    from octrial.interim import decide
+
+    path = _subjects_file(tmp_path, 28.0, shape=1.0, seed=8)
+    text = path.read_text().splitlines()
+    rng = np.random.default_rng(9)
+    t = 25.0 * rng.weibull(3.0, 150)
+    c = rng.uniform(6, 30, 150)
+    weibull = [f"treatment,{min(a, b):.6f},{int(a <= b)}" for a, b in zip(t, c, strict=True)]
+    path.write_text("\n".join([text[0], *weibull, *[r for r in text[1:]
+                                                     if r.startswith("control")]]) + "\n")
+    result = decide(build(TWO_ARM_GAMMA), 1, [], subjects=path)
+    flagged = {c.arm: c.flagged for c in result.checks}
+    assert flagged == {"treatment": True, "control": False}
