@@ -384,9 +384,9 @@ class TimeToEventFamily(Family):
     def simulation_unsupported(self, design: Any) -> str | None:
         e: TimeToEventEndpoint = design.endpoint
         if design.conduct is not None or design.looks.trigger in ("events", "time"):
-            try:
-                from octrial.simulation import event_driven  # noqa: F401
-            except ImportError:
+            import importlib.util
+
+            if importlib.util.find_spec("octrial.simulation.event_driven") is None:
                 return NOT_YET
             return None
         if e.periods > 1:
@@ -400,9 +400,12 @@ class TimeToEventFamily(Family):
 
     def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
         if design.conduct is not None or design.looks.trigger in ("events", "time"):
-            from octrial.simulation.event_driven import EventDrivenSimulator
+            # the patient-level simulator is engineer K's module; the name it exports is
+            # reconciled at merge time
+            import importlib
 
-            return EventDrivenSimulator(design, truth, level)
+            module = importlib.import_module("octrial.simulation.event_driven")
+            return module.EventDrivenSimulator(design, truth, level)
         return super().simulator(design, truth, level)
 
     # Without [conduct], one period: each analysed subject contributes one event and its

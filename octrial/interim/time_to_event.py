@@ -128,6 +128,7 @@ class TimeToEventInterim(EndpointInterim):
             return f"Pr(hazard ratio treatment / control {side} {h.threshold:g} | data)"
         if e.periods == 1:
             return f"Pr(hazard {side} {h.benchmark:.6g} per {e.time_unit} | data)"
+        assert h.benchmark is not None  # one arm: load.py requires it
         landmark = e.landmark_time(h.benchmark)
         s0 = float(sm.survival(e.starts, e.relative_hazard, h.benchmark, landmark))
         flip = ">" if side == "<" else "<"
