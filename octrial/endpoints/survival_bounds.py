@@ -8,8 +8,9 @@
   thresholds as bounds on the total exposure (time at risk): the posterior probability
   that the hazard is below the benchmark increases with the exposure at fixed events, so
   each threshold is one exposure (found by root finding).
-* Other designs (several periods, two arms with gamma priors) depend on more than one
-  number per look: ``None`` (``octrial decide`` gives the decision on the data).
+* Other designs (several periods, two arms with gamma priors, looks not at event
+  counts) depend on more than one number per look: ``None`` (``octrial decide`` gives
+  the decision on the data).
 """
 
 from __future__ import annotations
@@ -28,6 +29,8 @@ ROOT_TOLERANCE = 1e-10
 def boundary_table(design: Any) -> pd.DataFrame | None:
     """The committee's bounds per look (module docstring), or ``None``."""
     family = design.family
+    if design.looks.trigger not in ("events", "complete"):
+        return None  # looks at enrolment counts or calendar times: events vary per study
     if family.prior_on_effect(design.endpoint, design.two_arm):
         return _hazard_ratio_bounds(design)
     if not design.two_arm and design.endpoint.periods == 1:
