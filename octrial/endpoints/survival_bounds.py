@@ -98,11 +98,23 @@ def exposure_at(design: Any, events: int, threshold: float) -> float:
 
 
 def committee_text(design: Any, table: pd.DataFrame) -> str:
-    """The bounds in words, one line per look."""
+    """The bounds in words, one line per look, with the posterior probability they
+    stand for."""
     unit = design.endpoint.time_unit
-    lines = [f"Time unit: {unit}. At each look, once the stated number of events has "
-             "been observed:"]
+    statement = design.family.interim().statement(design)
+    lines = [f"Decision rule of {design.name}, on the {table['bound_on'].iloc[0]}; "
+             f"posterior = {statement} (time unit: {unit}).",
+             "Efficacy is checked first. At the final analysis a study that does not reach "
+             "the success bound fails.",
+             "Bounds are shown to 6 significant digits (boundaries.csv holds them in full).",
+             "At each look, once its number of events has been observed:"]
+    last = len(table)
     for _, row in table.iterrows():
-        lines.append(f"Look {row['look']} ({row['events']} events): stop for efficacy if "
-                     f"{row['efficacy_rule']}; stop for futility if {row['futility_rule']}.")
-    return "\n".join(lines)
+        if row["look"] == last:
+            lines.append(f"Final analysis ({row['events']} events): success if "
+                         f"{row['efficacy_rule']}; otherwise failure.")
+        else:
+            lines.append(f"Look {row['look']} ({row['events']} events): stop for efficacy "
+                         f"if {row['efficacy_rule']}; stop for futility if "
+                         f"{row['futility_rule']}.")
+    return "\n".join(lines) + "\n"

@@ -121,6 +121,28 @@ class TimeToEventFamily(Family):
     event_driven: ClassVar[bool] = True
     """Looks may wait for a number of events (engineer C's conduct layer reads it)."""
 
+    def assumptions(self, design: Any) -> tuple[str, ...]:
+        """The data model, how a benchmark on another scale became a hazard, and (without
+        ``[conduct]``) that nobody is censored."""
+        e: TimeToEventEndpoint = design.endpoint
+        out = [self.data_model]
+        h = design.hypothesis
+        if not design.two_arm and e.benchmark_scale != "hazard":
+            unit = e.time_unit
+            if e.benchmark_scale == "median":
+                stated = (f"a median time of {e.landmark_time(h.benchmark):.6g} {unit}s")
+            else:
+                assert e.landmark is not None  # read_endpoint requires it for survival
+                s0 = float(sm.survival(e.starts, e.relative_hazard, h.benchmark, e.landmark))
+                stated = f"{s0:.6g} event-free at {e.landmark:g} {unit}s"
+            out.append(f"The benchmark was stated as {stated}; it is used as the hazard "
+                       f"{h.benchmark:.6g} per {unit} (of the first period).")
+        if design.conduct is None:
+            out.append("Without a [conduct] table every analysed subject's event is observed "
+                       "(nobody is censored): a look's number of subjects is its number of "
+                       "events.")
+        return tuple(out)
+
     def interim(self) -> EndpointInterim:
         from octrial.interim.time_to_event import TimeToEventInterim
 
@@ -374,6 +396,10 @@ class TimeToEventFamily(Family):
         from octrial.endpoints.survival_bounds import boundary_table
 
         return boundary_table(design)
+
+    def boundaries_without_rule(self, design: Any) -> Any:
+        """``boundaries.csv`` of a run: the committee's table (:meth:`boundary_table`)."""
+        return self.boundary_table(design)
 
     def committee_table(self, design: Any, table: Any) -> str | None:
         from octrial.endpoints.survival_bounds import committee_text
