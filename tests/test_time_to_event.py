@@ -420,3 +420,29 @@ def test_kaplan_meier_check_flags_a_strongly_non_exponential_arm(tmp_path: Path)
     result = decide(build(TWO_ARM_GAMMA), 1, [], subjects=path)
     flagged = {c.arm: c.flagged for c in result.checks}
     assert flagged == {"treatment": True, "control": False}
+
+
+def test_decide_with_the_normal_approximation_at_the_table_bound() -> None:
+    """At the planned events split evenly (information D / 4 exactly) and an estimate on
+    the boundary table's hazard-ratio bound, B equals the efficacy threshold; the
+    predictive probability equals the closed form sum_j w_j Phi((S + M D - u) / sqrt(D +
+    D^2 / P)) (Jennison & Turnbull 2000, ch. 3; one normal prior component)."""
+    from octrial.interim import decide
+
+    design = build(TWO_ARM_NORMAL, looks__n=[200, 400], looks__efficacy=[0.999, 0.975],
+                   looks__futility_predictive=[0.1],
+                   hypothesis__prior={"distribution": "normal", "mean": 0.0, "sd": 0.5})
+    table = design.family.boundary_table(design)
+    bound = float(table["efficacy_bound"].iloc[0])
+    # 100 events per arm; exposures chosen so that the estimated HR is the bound
+    result = decide(design, 1, [f"treatment=100/{1000 / bound!r}", "control=100/1000"])
+    assert result.assessment.benefit == pytest.approx(0.999, abs=1e-9)
+    info, d_end = 50.0, 100.0 - 50.0  # D / 4 now and at the final look (400 / 4)
+    score = -info * math.log(bound)  # benefit scale: eta = -log HR
+    precision = 1 / 0.25 + info
+    mean = score / precision
+    # final success: Phi(S_K / sqrt(P_K)) >= 0.975 with P_K = 1 / 0.25 + 100
+    upper = stats.norm.ppf(0.975) * math.sqrt(1 / 0.25 + 100)
+    want = stats.norm.cdf((score + mean * d_end - upper)
+                          / math.sqrt(d_end + d_end**2 / precision))
+    assert result.assessment.predictive == pytest.approx(want, abs=1e-6)

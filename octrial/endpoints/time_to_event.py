@@ -350,18 +350,32 @@ class TimeToEventFamily(Family):
 
     def _normal_benefit(self, design: Any, events: tuple[np.ndarray, ...],
                         exposure: tuple[np.ndarray, ...]) -> np.ndarray:
+        """B from the log HR estimate by the known-variance rule's own function
+        (:func:`octrial.rules.normal.benefit`) on the observed information."""
+        from octrial.rules.normal import benefit
+
         h = design.hypothesis
         estimate, information = self.log_hazard_ratio_estimate(design, events, exposure)
-        w, m, p0 = benefit_components(h.prior, h.sign)
-        c = h.sign * math.log(h.threshold)
-        info = information[:, None]
-        score = h.sign * estimate[:, None] * info
-        precision = p0 + info
-        mean = (m * p0 + score) / precision
-        var = info + info**2 / np.where(p0 > 0, p0, np.inf)
-        log_w = np.log(w) + stats.norm.logpdf(score, info * m, np.sqrt(var))
-        weights = np.exp(log_w - special.logsumexp(log_w, axis=1, keepdims=True))
-        return np.sum(weights * special.ndtr((mean - c) * np.sqrt(precision)), axis=1)
+        claim = h.sign * math.log(h.threshold)
+        return np.array([float(benefit(h.prior, h.sign, float(i), claim,
+                                       np.array([h.sign * i * x]))[0])
+                         for x, i in zip(estimate, information, strict=True)])
+
+    def normal_predictive(self, design: Any, look: int, events: tuple[np.ndarray, ...],
+                          exposure: tuple[np.ndarray, ...]) -> float:
+        """Normal approximation: the predictive probability of final success from one
+        study's data at look ``look`` (from 1), by the known-variance rule's function
+        (:func:`octrial.rules.normal.predictive`) with the final look's information and
+        score bound."""
+        from octrial.rules.normal import build_normal_rule, predictive
+
+        h = design.hypothesis
+        estimate, information = self.log_hazard_ratio_estimate(design, events, exposure)
+        final = build_normal_rule(self.as_normal_design(design)).looks[-1]
+        now = float(information[0])
+        score = np.array([h.sign * now * float(estimate[0])])
+        return float(predictive(h.prior, h.sign, now, max(final.information, now),
+                                final.upper, score)[0])
 
     def prior_probability_of_claim(self, design: Any) -> float | None:
         h = design.hypothesis

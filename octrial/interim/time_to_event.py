@@ -138,16 +138,21 @@ class TimeToEventInterim(EndpointInterim):
                      observed: dict[str, Any], seed: int) -> Assessment:
         k, last = look - 1, look == design.looks.count
         events, exposure = self._observed(design, observed)
-        b = float(design.family.benefit_from(design, events, exposure)[0])
+        family = design.family
+        b = float(family.benefit_from(design, events, exposure)[0])
         th = thresholds_at(design, k, sum(sizes))
-        decision, reason = probability_decision(th, b, None, last, self.statement(design))
+        pp = None
+        if not last and th.futility_predictive is not None and family.prior_on_effect(
+                design.endpoint, design.two_arm):
+            pp = family.normal_predictive(design, look, events, exposure)
+        decision, reason = probability_decision(th, b, pp, last, self.statement(design))
         names = (SUCCESS, FAILURE) if last else (STOP_EFFICACY, STOP_FUTILITY)
         assert decision in (*names, CONTINUE)
         rules = self.bound_rules(design, look, sizes)
         assert rules is not None  # always given in words
         bounds = dict(zip(("success", "failure") if last else ("efficacy", "futility"),
                           rules, strict=True))
-        return Assessment(b, None, th, decision, reason, bounds)
+        return Assessment(b, pp, th, decision, reason, bounds)
 
     def bound_rules(self, design: Design, look: int,
                     sizes: tuple[int, ...]) -> tuple[str, str] | None:
