@@ -446,3 +446,33 @@ def test_decide_with_the_normal_approximation_at_the_table_bound() -> None:
     want = stats.norm.cdf((score + mean * d_end - upper)
                           / math.sqrt(d_end + d_end**2 / precision))
     assert result.assessment.predictive == pytest.approx(want, abs=1e-6)
+
+
+# -- historical borrowing --------------------------------------------------------------
+def test_power_prior_and_robust_mixture_on_the_hazard() -> None:
+    """Power prior: Gamma(a + a0 d0, b + a0 E0) (Ibrahim & Chen 2000, conjugate form);
+    robust mixture: the posterior tail against scipy quadrature of
+    [(1 - w) Gamma(a + d0, b + E0) + w Gamma(a, b)] x likelihood."""
+    power = _one_arm(arms__treatment__prior={
+        "distribution": "gamma", "shape": 1, "rate": 1,
+        "historical": {"events": 30, "exposure": 600.0},
+        "borrowing": {"method": "power", "a0": 0.5}})
+    prior = power.arms[0].prior
+    assert (prior.a, prior.b) == ((1 + 15.0,), (1 + 300.0,))
+    robust = _one_arm(arms__treatment__prior={
+        "distribution": "gamma", "shape": 1, "rate": 1,
+        "historical": {"events": 30, "exposure": 600.0},
+        "borrowing": {"method": "robust-mixture", "vague_weight": 0.2}})
+    d, e = 12, 150.0
+    got = robust.family.benefit_from(robust, (np.array([[d]]),), (np.array([[e]]),))[0]
+
+    def density(lam: float) -> float:
+        p = (0.8 * stats.gamma.pdf(lam, 31, scale=1 / 601)
+             + 0.2 * stats.gamma.pdf(lam, 1, scale=1.0))
+        return p * lam**d * math.exp(-lam * e)
+    points = [0.02, 0.05, 0.08]
+    total = integrate.quad(density, 0, 5, points=points, epsabs=0, epsrel=1e-12,
+                           limit=400)[0]
+    below = integrate.quad(density, 0, 0.05, points=points[:1], epsabs=0, epsrel=1e-12,
+                           limit=400)[0]
+    assert got == pytest.approx(below / total, abs=1e-9)
