@@ -120,6 +120,27 @@ def test_gamma_sum_series_matches_quadrature_for_two_periods() -> None:
         assert got[0] == pytest.approx(want, abs=1e-10)
 
 
+def test_gamma_sum_series_with_a_short_period_matches_quadrature() -> None:
+    """A landmark just past a period start (overlap 0.01 of a 6-month period: scales 300
+    times apart, thousands of terms, summed as a negative binomial convolution) against
+    scipy quad; and the two ways of summing the series agree on a moderate case."""
+    a, r = np.array([[20.0, 8.0]]), np.array([[50.0, 15000.0]])
+    for x in (0.3, 0.4, 0.6):
+        got, error = sm.gamma_sum_cdf(np.array([x]), a, r)
+        want = integrate.quad(lambda u, x=x: stats.gamma.pdf(u, 8.0, scale=1 / 15000.0)
+                              * stats.gamma.cdf(x - u, 20.0, scale=1 / 50.0), 0, x,
+                              points=[8 / 15000.0], epsabs=1e-14, epsrel=1e-12,
+                              limit=400)[0]
+        assert error < 1e-11
+        assert got[0] == pytest.approx(want, abs=1e-10)
+    shapes, rates = np.array([[3.0, 5.0, 2.0]]), np.array([[1.0, 2.5, 0.7]])
+    beta = 1 / rates
+    together, _ = sm._series_together(np.array([4.0]), shapes, beta, beta.min(axis=1,
+                                                                               keepdims=True))
+    alone, _ = sm._series_alone(4.0, shapes[0], beta.min() / beta[0], float(beta.min()))
+    assert together[0] == pytest.approx(alone, abs=1e-12)
+
+
 def test_gamma_sum_series_matches_monte_carlo_for_three_periods() -> None:
     """Three gammas: the series against 400,000 simulated sums (within 4 SE)."""
     rng = np.random.default_rng(2026)
