@@ -497,3 +497,28 @@ def test_power_prior_and_robust_mixture_on_the_hazard() -> None:
     below = integrate.quad(density, 0, 0.05, points=points[:1], epsabs=0, epsrel=1e-12,
                            limit=400)[0]
     assert got == pytest.approx(below / total, abs=1e-9)
+
+
+def test_piecewise_mixture_benefit_matches_double_quadrature() -> None:
+    """Two periods, a two-component gamma mixture shared by the periods: Pr(6 h1 + 6 h2 <
+    limit | data) against scipy dblquad of the joint prior x likelihood over the region
+    (the component weights across periods, the series and the landmark together)."""
+    prior = {"distribution": "gamma-mixture", "components": [
+        {"weight": 0.7, "shape": 2.0, "rate": 60.0}, {"weight": 0.3, "shape": 1.0,
+                                                      "rate": 10.0}]}
+    design = _one_arm(endpoint__periods=[0, 6], endpoint__relative_hazard=[1, 0.5],
+                      endpoint__benchmark_scale="survival", endpoint__landmark=12.0,
+                      hypothesis__benchmark=0.75, arms__treatment__prior=prior)
+    d, e = np.array([5.0, 2.0]), np.array([140.0, 60.0])
+    got = design.family.benefit_from(design, (d[None],), (e[None],))[0]
+    limit = -math.log(0.75)
+
+    def joint(h2: float, h1: float) -> float:
+        p = sum(w * stats.gamma.pdf(h1, a, scale=1 / b) * stats.gamma.pdf(h2, a, scale=1 / b)
+                for w, a, b in ((0.7, 2.0, 60.0), (0.3, 1.0, 10.0)))
+        return p * h1**5 * h2**2 * math.exp(-140 * h1 - 60 * h2)
+    top = 0.5  # beyond it the posterior mass is below 1e-12 in each period (Poisson tail)
+    total = integrate.dblquad(joint, 0, top, 0, top, epsabs=0, epsrel=1e-9)[0]
+    inside = integrate.dblquad(joint, 0, limit / 6, 0, lambda h1: limit / 6 - h1,
+                               epsabs=0, epsrel=1e-9)[0]
+    assert got == pytest.approx(inside / total, abs=1e-7)
