@@ -428,6 +428,12 @@ class TimeToEventFamily(Family):
 
             if importlib.util.find_spec("octrial.simulation.event_driven") is None:
                 return NOT_YET
+            if e.periods > 1 or self.prior_on_effect(e, design.two_arm):
+                # the patient-level simulator decides on one period's gamma posterior
+                return ("the patient-level simulator takes one hazard period with gamma "
+                        "priors per arm; a piecewise design or the normal approximation "
+                        "on the log hazard ratio is not simulated yet (the normal "
+                        "approximation has its exact engine: simulation.method = 'exact')")
             return None
         if e.periods > 1:
             return ("a piecewise-exponential design is simulated subject by subject: add a "
