@@ -157,7 +157,7 @@ def _read_hypothesis(
         benchmark = table.number("benchmark")
         if benchmark is not None and endpoint is not None:
             written = benchmark
-            benchmark, problem = family.read_benchmark(endpoint, written)
+            benchmark, problem = family.convert_benchmark(endpoint, written)
             if problem:
                 table.fail("benchmark", problem, written)
         return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)

@@ -178,7 +178,7 @@ class Family(ABC):
     def true_value_problem(self, value: float) -> str | None:
         """``None`` when ``value`` is a possible true parameter, else what is expected."""
 
-    def read_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+    def convert_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
         """The one-arm benchmark on the parameter's scale from the value written in
         ``hypothesis.benchmark`` (families whose benchmark may be stated on another
         scale convert it), and what is expected when the value is not valid."""

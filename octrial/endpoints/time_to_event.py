@@ -250,7 +250,7 @@ class TimeToEventFamily(Family):
                                  Phrase(f"a {type(prior).__name__} prior"))
 
     # -- hypotheses ------------------------------------------------------------------
-    def read_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+    def convert_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
         """The benchmark as a hazard multiplier lambda0, converted from a hazard, a
         median or a survival probability at the landmark (``benchmark_scale``)."""
         e: TimeToEventEndpoint = endpoint
