@@ -171,12 +171,5 @@ def model_for(design: Design) -> CheckModel:
     (:meth:`~octrial.endpoints.base.Family.check_model`)."""
     model = design.family.check_model(design)
     if model is None:
-        from octrial.endpoints import FAMILIES, Family
-        from octrial.errors import single
-
-        known = [name for name, family in FAMILIES.items()
-                 if type(family).check_model is not Family.check_model]
-        raise single(design.source.path or design.name, "endpoint.type",
-                     "an endpoint with workflow checks in this version ("
-                     + ", ".join(known) + ")", design.family.name)
+        raise ValueError(f"no workflow checks for {design.family.name} endpoints")
     return model
