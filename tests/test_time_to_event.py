@@ -522,3 +522,12 @@ def test_piecewise_mixture_benefit_matches_double_quadrature() -> None:
     inside = integrate.dblquad(joint, 0, limit / 6, 0, lambda h1: limit / 6 - h1,
                                epsabs=0, epsrel=1e-9)[0]
     assert got == pytest.approx(inside / total, abs=1e-7)
+
+
+def test_effective_sample_size_of_a_gamma_prior_is_its_shape_in_events() -> None:
+    """Gamma(a, b) on a hazard: the FDA (2010) n V1 / V2 - n with a flat-on-log-hazard
+    reference equals a exactly (V1 = n / E^2, V2 = (a + n) / (b + E)^2 at E = n b / a)."""
+    design = _one_arm()
+    ess = design.family.effective_sample_size(design)["treatment"]
+    assert ess["simple"] == 2.0
+    assert ess["fda"]["ess"] == pytest.approx(2.0, rel=1e-12)

@@ -387,6 +387,43 @@ class TimeToEventFamily(Family):
         zero = tuple(np.zeros((1, periods)) for _ in design.arms)
         return float(self.benefit_from(design, zero, zero)[0])
 
+    prior_size_note = ("Effective sample size in events: a gamma prior with shape a on a "
+                       "hazard is worth a events (weighted over a mixture's components); "
+                       "FDA (2010) n V1 / V2 - n at the final look's events n, data at the "
+                       "prior mean; a normal prior with sd s on log HR is worth "
+                       "(1 + q)^2 / (q s^2) events at allocation q:1.")
+
+    def effective_sample_size(self, design: Any) -> dict[str, Any] | None:
+        from octrial.endpoints.prior_size import arm_summary, fda_summary
+
+        e: TimeToEventEndpoint = design.endpoint
+        events = self.event_targets(design)[-1] if design.looks.trigger in (
+            "events", "complete") else None
+        if self.prior_on_effect(e, design.two_arm):
+            prior = design.hypothesis.prior
+            q = design.arms[0].allocation / design.arms[1].allocation
+            simple = float(sum(w * (1 + q) ** 2 / (q * sd**2) for w, sd in zip(
+                prior.weights, prior.sd, strict=True)))
+            return {"hazard ratio": arm_summary(prior.describe(), simple,
+                                                "(1 + q)^2 / (q sd^2) events", None)}
+        if any(not isinstance(arm.prior, GammaMixture) for arm in design.arms):
+            return None
+        out = {}
+        for arm in design.arms:
+            prior = arm.prior
+            simple = float(sum(w * a for w, a in zip(prior.weights, prior.a, strict=True)))
+            fda = None
+            if e.periods == 1 and events is not None:
+                n = events * arm.allocation / sum(a.allocation for a in design.arms)
+                exposure = n / prior.mean
+                # Gamma(n, exposure): the posterior under a prior flat on the log hazard
+                v1 = n / exposure**2
+                v2 = float(update(prior, exposure, np.array([n])).variance()[0])
+                fda = fda_summary(n, v1, v2)
+            out[arm.name] = arm_summary(prior.describe(), simple, "shape (prior events)",
+                                        fda, prior.borrowing)
+        return out
+
     def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
         if isinstance(prior, GammaMixture):
             return [(w, stats.gamma(a, scale=1.0 / b)) for w, a, b in zip(
