@@ -137,6 +137,11 @@ class TimeToEventFamily(Family):
                 stated = f"{s0:.6g} event-free at {e.landmark:g} {unit}s"
             out.append(f"The benchmark was stated as {stated}; it is used as the hazard "
                        f"{h.benchmark:.6g} per {unit} (of the first period).")
+        if self.prior_on_effect(e, design.two_arm):
+            out.append("The analysis prior of the effect is on the log hazard ratio; the "
+                       "log hazard ratio estimate is taken as normal with variance "
+                       "1/d_T + 1/d_C, information events x q / (1 + q)^2 at allocation "
+                       "q:1 (Schoenfeld 1981).")
         if design.conduct is None:
             out.append("Without a [conduct] table every analysed subject's event is observed "
                        "(nobody is censored): a look's number of subjects is its number of "
