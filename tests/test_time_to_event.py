@@ -531,3 +531,20 @@ def test_effective_sample_size_of_a_gamma_prior_is_its_shape_in_events() -> None
     ess = design.family.effective_sample_size(design)["treatment"]
     assert ess["simple"] == 2.0
     assert ess["fda"]["ess"] == pytest.approx(2.0, rel=1e-12)
+
+
+def test_simulated_look_one_matches_the_gamma_law_of_the_time_at_risk() -> None:
+    """Without [conduct], the time at risk of n subjects is Gamma(n, lambda) (scipy), so
+    Pr(stop for efficacy at look 1) = Pr(T_1 >= exposure bound) and Pr(stop for futility
+    at look 1) = Pr(T_1 < futility bound); the generic study loop's simulation agrees
+    within 4 SE."""
+    design = _one_arm(simulation={"method": "monte-carlo", "replicates": 40000, "seed": 5})
+    table = design.family.boundary_table(design)
+    oc = octrial.evaluate(design)
+    for i, lam in enumerate(design.scenarios.values):
+        gamma = stats.gamma(20, scale=1 / lam[0])
+        for column, p in (("look1_stop_efficacy", gamma.sf(table["efficacy_bound"].iloc[0])),
+                          ("look1_stop_futility", gamma.cdf(table["futility_bound"].iloc[0]))):
+            got = float(oc[column].iloc[i])
+            se = math.sqrt(p * (1 - p) / 40000)
+            assert abs(got - p) < 4 * se + 1e-12, (column, got, p)
