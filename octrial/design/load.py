@@ -97,7 +97,7 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     two_arm = arms_table is not None and arms_table.has(CONTROL)
     on_effect = family is not None and endpoint is not None and family.prior_on_effect(
         endpoint, two_arm)
-    hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect)
+    hypothesis = _read_hypothesis(top, family, better, two_arm, on_effect, endpoint)
     arms = _read_arms(arms_table, family, on_effect)
     conduct = read_conduct(top)
     looks = _read_looks(top, arms, two_arm, family, conduct)
@@ -108,9 +108,6 @@ def parse_design(data: dict[str, Any], source: Source) -> Design:
     if scenarios_table is not None and family is not None:
         scenarios = read_scenarios(scenarios_table, family, two_arm)
     simulation = _read_simulation(top)
-    if family is not None and family.event_driven and not top.has("conduct"):
-        top.fail("conduct", f"a [conduct] table ({family.name} studies run in calendar "
-                 "time: enrolment_rate, max_enrolment)", Phrase("nothing (the table is missing)"))
     if family is not None:
         family.check_design({"endpoint": endpoint, "hypothesis": hypothesis, "arms": arms,
                              "looks": looks, "simulation": simulation, "two_arm": two_arm,
@@ -153,6 +150,7 @@ def _read_endpoint(top: Table) -> tuple[Family | None, Any, str | None]:
 
 def _read_hypothesis(
     top: Table, family: Family | None, better: str | None, two_arm: bool, on_effect: bool,
+    endpoint: Any = None,
 ) -> Hypothesis | None:
     table = top.table("hypothesis")
     if table is None or family is None or better is None:
@@ -161,8 +159,13 @@ def _read_hypothesis(
                             expected="a number >= 0 (the clinically relevant effect beyond "
                                      "the null boundary, for Bayesian power)")
     if not two_arm:
-        table.allow(*family.benchmark_keys, "relevant_effect")
-        benchmark = family.read_benchmark(table)
+        table.allow("benchmark", "relevant_effect")
+        benchmark = table.number("benchmark")
+        if benchmark is not None and endpoint is not None:
+            written = benchmark
+            benchmark, problem = family.convert_benchmark(endpoint, written)
+            if problem:
+                table.fail("benchmark", problem, written)
         return Hypothesis(better, benchmark=benchmark, relevant_effect=relevant)
     table.allow("comparison", "margin", "kind", "relevant_effect",
                 *(("prior", "design_prior") if on_effect else ()))
@@ -264,15 +267,20 @@ def _read_looks(
                 "futility_count")
     event_driven = family is not None and family.event_driven
     given = [key for key in TRIGGERS if table.has(key)]
-    if event_driven and (others := [key for key in given if key != "events"]):
-        table.fail(others[0], "events (time-to-event looks happen at event counts)",
+    in_time = top.has("conduct")
+    if event_driven and (others := [key for key in given
+                                    if key not in (("events", "time") if in_time else ("n",))]):
+        table.fail(others[0], "events or time (looks of a time-to-event study in calendar time "
+                   "happen at event counts or calendar times)" if in_time else
+                   "n (without a [conduct] table every analysed subject's event is observed, "
+                   "so looks count subjects; looks at event counts need a [conduct] table)",
                    table.data[others[0]])
         return None
     if len(given) > 1:
         table.fail(given[1], "one of n, enrolled, time or events (when each look happens)",
                    Phrase(f"{given[0]} and {given[1]}"))
         return None
-    key = given[0] if given else ("events" if event_driven else "n")
+    key = given[0] if given else ("events" if event_driven and in_time else "n")
     trigger = TRIGGERS[key]
     at: tuple[float, ...] = ()
     per_arm: tuple[tuple[int, ...], ...] | None

@@ -182,20 +182,15 @@ class Family(ABC):
 
         return read_distribution(table, self.prior_schema)[1]
 
-    benchmark_keys: ClassVar[tuple[str, ...]] = ("benchmark",)
-    """The ``[hypothesis]`` keys that state a one-arm benchmark."""
-
-    def read_benchmark(self, table: Table) -> float | None:
-        """One arm: the benchmark (the null boundary of the parameter) from
-        ``[hypothesis]``; by default the key ``benchmark``."""
-        benchmark = table.number("benchmark")
-        if benchmark is not None and (problem := self.true_value_problem(benchmark)):
-            table.fail("benchmark", problem, benchmark)
-        return benchmark
-
     @abstractmethod
     def true_value_problem(self, value: float) -> str | None:
         """``None`` when ``value`` is a possible true parameter, else what is expected."""
+
+    def convert_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+        """The one-arm benchmark on the parameter's scale from the value written in
+        ``hypothesis.benchmark`` (families whose benchmark may be stated on another
+        scale convert it), and what is expected when the value is not valid."""
+        return value, self.true_value_problem(value)
 
     def prior_on_effect(self, endpoint: Any, two_arm: bool) -> bool:
         """Whether the analysis prior is on the two-arm effect (``hypothesis.prior``)

@@ -1,273 +1,606 @@
-"""Time-to-event endpoints: exponential event times, gamma-mixture priors on the hazard.
+"""Time-to-event endpoint: exponential and piecewise-exponential hazards.
 
-Data model: each subject's time from enrolment to the event is Exponential(hazard lambda)
-(constant hazard), censored by loss to follow-up (an independent exponential time,
-``[conduct] dropout_hazard``) and administratively at each analysis. Subjects enter in
-calendar time as ``[conduct]`` states and looks happen when the study has seen a stated
-number of events (``[looks] events``).
+Each arm's parameter is a hazard multiplier lambda: the hazard in period j is lambda r_j
+for the relative shape r (``[endpoint] periods`` and ``relative_hazard``; r_0 = 1, so with
+one period lambda is the hazard per time unit). The statistic of an arm is, per period,
+its events and its exposure (time at risk); the maths is in
+:mod:`octrial.endpoints.survival_maths`.
 
-Sufficient statistic of an arm: its events d and total exposure E (time at risk). With a
-Gamma(a, b) prior (shape a, rate b) the likelihood lambda^d exp(-lambda E) gives the
-posterior Gamma(a + d, b + E); a mixture updates each component and reweights it by its
-marginal likelihood, as for counts (the same maths as :mod:`octrial.endpoints.count`
-with the exposure observed rather than fixed; e.g. Gelman et al., Bayesian Data
-Analysis, 3rd ed., section 2.6, recalled from memory).
+* One arm: the benchmark is stated as a hazard, a median time or the survival at a
+  landmark time (``benchmark_scale``) and converted to a multiplier lambda0
+  (:func:`~octrial.endpoints.survival_maths.benchmark_multiplier`). One period: B =
+  Pr(h < lambda0 | data), a gamma cdf. Several periods: B = Pr(S(L) > S0(L) | data) at
+  the landmark L (the median itself for a median benchmark), the cdf of a sum of
+  independent gammas (Moschopoulos series); the claim is about survival at L, which is
+  what a benchmark stated at L means when the periods' hazards move separately.
+* Two arms on the hazard ratio HR = lambda_T / lambda_C: gamma priors per arm give the
+  beta form of the ratio (one period), or, with ``analysis = 'normal-log-hazard-ratio'``,
+  a normal prior on log HR (``hypothesis.prior``) and the usual normal approximation
+  (information D q / (1 + q)^2 from D events): the known-variance recursion of
+  :mod:`octrial.engines.exact_normal` then gives the operating characteristics with
+  looks at event counts (:class:`LogHazardRatioEngine`).
+* Without ``[conduct]`` every subject's event is observed (nobody is censored), so the
+  generic study loop simulates one-period designs from the total time on study,
+  Gamma(n, lambda); designs with censoring, accrual or event-driven looks need the
+  patient-level simulator (:mod:`octrial.simulation.event_driven`).
 
-* One arm: B = Pr(lambda < lambda_0 | data) (lower hazard is better by default), with the
-  benchmark stated as a hazard lambda_0, a median m_0 (lambda_0 = log 2 / m_0) or the
-  survival s_0 at a landmark time t_0 (lambda_0 = -log(s_0) / t_0); under a constant
-  hazard the three statements are the same claim.
-* Two arms, on the hazard ratio HR = lambda_T / lambda_C: with independent gamma
-  posteriors Gamma(a_T, b_T) and Gamma(a_C, b_C), b_T lambda_T / (b_T lambda_T +
-  b_C lambda_C) ~ Beta(a_T, a_C), so Pr(HR < c) = I_u(a_T, a_C) with u = c b_T / (c b_T +
-  b_C) (the gamma-ratio identity; the same identity as the count family's rate ratio).
-
-Monte Carlo only: :mod:`octrial.simulation.event_driven` simulates every subject.
+Historical borrowing: ``historical = { events, exposure }`` with a power prior or a robust
+mixture, as for counts (one period; the historical data are pooled into every period's
+component otherwise: see docs/methods.md).
 """
 
 from __future__ import annotations
 
+import dataclasses
+import itertools
 import math
 from dataclasses import dataclass
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 from scipy import special, stats
 
 import octrial.endpoints.schema as schema
 from octrial.design.reader import Phrase, Problems, Table
+from octrial.endpoints import survival_maths as sm
 from octrial.endpoints.base import Family
 from octrial.endpoints.borrowing import borrow_mixture, read_borrowing
-from octrial.endpoints.count import GammaMixture, GammaPosterior, update
-from octrial.endpoints.prior_size import arm_summary
+from octrial.endpoints.count import GammaMixture, update
+from octrial.endpoints.normal import NormalFamily, NormalMixture, benefit_components
 
-BENCHMARK_KEYS = ("benchmark", "benchmark_median", "benchmark_survival", "landmark")
+if TYPE_CHECKING:
+    from octrial.interim.base import EndpointInterim
+
+ANALYSES = ("gamma", "normal-log-hazard-ratio")
+"""Values of ``endpoint.analysis``: gamma priors per arm, or (two arms) a normal prior on
+the log hazard ratio with the normal approximation."""
+
+NOT_YET = ("time-to-event designs with a [conduct] table or looks at event counts or "
+           "calendar times need the patient-level simulator "
+           "(octrial/simulation/event_driven.py), which this version does not have yet")
 
 
 @dataclass(frozen=True)
 class TimeToEventEndpoint:
-    """``[endpoint]`` of a time-to-event design (exponential event times)."""
+    """``[endpoint]`` settings of a time-to-event endpoint.
+
+    Attributes
+    ----------
+    starts : tuple of float
+        Start of each hazard period (``periods``; the first is 0).
+    relative_hazard : tuple of float
+        The shape r_j of the hazard across periods (r_0 = 1).
+    benchmark_scale : {'hazard', 'median', 'survival'}
+    landmark : float or None
+        The time at which a survival benchmark is stated (needed for 'survival', and for
+        a 'hazard' benchmark with several periods).
+    analysis : {'gamma', 'normal-log-hazard-ratio'}
+    time_unit : str
+        The unit of every time and the inverse unit of every hazard (words only).
+    """
 
     type: str = "time-to-event"
+    starts: tuple[float, ...] = (0.0,)
+    relative_hazard: tuple[float, ...] = (1.0,)
+    benchmark_scale: str = "hazard"
+    landmark: float | None = None
+    analysis: str = "gamma"
+    time_unit: str = "month"
+
+    @property
+    def periods(self) -> int:
+        return len(self.starts)
+
+    def landmark_time(self, multiplier: float) -> float:
+        """L: the landmark, or the median time at the benchmark multiplier."""
+        if self.benchmark_scale == "median":
+            return sm.median_time(self.starts, self.relative_hazard, multiplier)
+        assert self.landmark is not None  # read_endpoint requires it
+        return self.landmark
 
 
-def hazard_from_median(median: float) -> float:
-    """The constant hazard whose median time to event is ``median``: log 2 / median."""
-    return math.log(2.0) / median
-
-
-def hazard_from_survival(survival: float, landmark: float) -> float:
-    """The constant hazard with Pr(no event by ``landmark``) = ``survival``."""
-    return -math.log(survival) / landmark
+def _increasing_from_zero(values: list[float]) -> bool:
+    return bool(values) and values[0] == 0 and all(
+        b > a for a, b in itertools.pairwise(values))
 
 
 class TimeToEventFamily(Family):
-    """Exponential event times with gamma-mixture priors on each arm's hazard."""
+    """Exponential / piecewise-exponential hazards with gamma priors."""
 
     name = "time-to-event"
     parameter = "hazard"
+    statistic = "events and exposure"
+    unit = "hazard (events per unit of time at risk)"
+    data_model = ("Each subject's time to the event has a hazard that is constant within "
+                  "each stated period (one period: an exponential time), equal to the arm's "
+                  "hazard multiplier times the period's relative hazard, independently of "
+                  "other subjects; censoring is independent of the event time.")
     comparisons = ("ratio",)
     default_better = "lower"
     parameter_range = (0.0, math.inf)
-    event_driven = True
+    event_driven: ClassVar[bool] = True
     look_unit = "events"
-    statistic = "events"
-    unit = "events per subject-time unit"
-    data_model = ("Each subject's time to the event is exponential (a constant hazard), "
-                  "censored by an independent exponential loss to follow-up and at each "
-                  "analysis; subjects enter in calendar time as [conduct] states, and looks "
-                  "happen at the stated numbers of events.")
-    prior_size_note = ("A Gamma(a, b) prior on a hazard is worth a events in b units of "
-                       "exposure (subject-time).")
-    benchmark_keys: ClassVar[tuple[str, ...]] = BENCHMARK_KEYS
+    """Looks may wait for a number of events (engineer C's conduct layer reads it)."""
 
-    prior_schema = schema.PriorSchema(
-        schema.with_mixture("gamma", schema.prior_size("shape"), schema.positive("rate"),
-                            GammaMixture))
+    def assumptions(self, design: Any) -> tuple[str, ...]:
+        """The data model, how a benchmark on another scale became a hazard, and (without
+        ``[conduct]``) that nobody is censored."""
+        e: TimeToEventEndpoint = design.endpoint
+        out = [self.data_model]
+        h = design.hypothesis
+        if not design.two_arm and e.benchmark_scale != "hazard":
+            unit = e.time_unit
+            if e.benchmark_scale == "median":
+                stated = (f"a median time of {e.landmark_time(h.benchmark):.6g} {unit}s")
+            else:
+                assert e.landmark is not None  # read_endpoint requires it for survival
+                s0 = float(sm.survival(e.starts, e.relative_hazard, h.benchmark, e.landmark))
+                stated = f"{s0:.6g} event-free at {e.landmark:g} {unit}s"
+            out.append(f"The benchmark was stated as {stated}; it is used as the hazard "
+                       f"{h.benchmark:.6g} per {unit} (of the first period).")
+        if self.prior_on_effect(e, design.two_arm):
+            out.append("The analysis prior of the effect is on the log hazard ratio; the "
+                       "log hazard ratio estimate is taken as normal with variance "
+                       "1/d_T + 1/d_C, information events x q / (1 + q)^2 at allocation "
+                       "q:1 (Schoenfeld 1981).")
+        if design.conduct is None:
+            out.append("Without a [conduct] table every analysed subject's event is observed "
+                       "(nobody is censored): a look's number of subjects is its number of "
+                       "events.")
+        return tuple(out)
+
+    def interim(self) -> EndpointInterim:
+        from octrial.interim.time_to_event import TimeToEventInterim
+
+        return TimeToEventInterim()
 
     # -- design-file reading ---------------------------------------------------------
-    def read_endpoint(self, table: Table) -> TimeToEventEndpoint:
-        table.allow("type", "better")
-        return TimeToEventEndpoint()
+    prior_schema = schema.PriorSchema({
+        **schema.with_mixture("gamma", schema.prior_size("shape"), schema.positive("rate"),
+                              GammaMixture),
+        **{k: NormalFamily.prior_schema.distributions[k] for k in ("normal",
+                                                                   "normal-mixture")},
+    })
 
-    def read_prior(self, table: Table) -> GammaMixture | None:
+    def read_endpoint(self, table: Table) -> TimeToEventEndpoint:
+        table.allow("type", "better", "periods", "relative_hazard", "benchmark_scale",
+                    "landmark", "analysis", "time_unit")
+        starts = [0.0]
+        if table.has("periods"):
+            read = table.numbers("periods", check=lambda v: v >= 0,
+                                 expected="period start times >= 0")
+            if read is not None and all(v is not None for v in read):
+                values = [float(v) for v in read if v is not None]
+                if _increasing_from_zero(values):
+                    starts = values
+                else:
+                    table.fail("periods", "strictly increasing start times beginning at 0",
+                               values)
+        shape = [1.0] * len(starts)
+        if table.has("relative_hazard"):
+            read = table.numbers("relative_hazard", check=lambda v: v > 0,
+                                 expected="relative hazards > 0")
+            if read is not None and all(v is not None for v in read):
+                values = [float(v) for v in read if v is not None]
+                if len(values) != len(starts) or values[0] != 1.0:
+                    table.fail("relative_hazard", f"{len(starts)} relative hazards (one per "
+                               "period) starting with 1", values)
+                else:
+                    shape = values
+        elif len(starts) > 1:
+            table.fail("relative_hazard", "one relative hazard per period, starting with 1 "
+                       "(the shape of the hazard across periods)",
+                       Phrase("nothing (the key is missing)"))
+        scale = table.string("benchmark_scale", sm.BENCHMARK_SCALES, required=False,
+                             default="hazard") or "hazard"
+        landmark = table.number("landmark", required=scale == "survival",
+                                check=lambda v: v > 0, expected="a landmark time > 0")
+        analysis = table.string("analysis", ANALYSES, required=False,
+                                default="gamma") or "gamma"
+        unit = table.string("time_unit", None, required=False, default="month") or "month"
+        return TimeToEventEndpoint("time-to-event", tuple(starts), tuple(shape), scale,
+                                   landmark, analysis, unit)
+
+    def read_prior(self, table: Table) -> Any:
         kind, prior = schema.read_distribution(table, self.prior_schema)
         if kind is None:
             return None
         spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
         if spec is None or prior is None:
             return prior
+        if not isinstance(prior, GammaMixture):
+            table.fail("borrowing", "a gamma or gamma-mixture initial prior (borrowing on "
+                       "the hazard)", Phrase(f"a {kind} prior"))
+            return None
         x0, t0 = spec["historical"]["events"], spec["historical"]["exposure"]
         return borrow_mixture(prior, update, t0, x0, spec, x0 / t0)
-
-    def read_benchmark(self, table: Table) -> float | None:
-        """One arm: the benchmark hazard, stated as ``benchmark`` (a hazard),
-        ``benchmark_median`` (a median time to event) or ``benchmark_survival`` with
-        ``landmark`` (event-free proportion at that time)."""
-        given = [k for k in ("benchmark", "benchmark_median", "benchmark_survival")
-                 if table.has(k)]
-        if len(given) != 1:
-            table.fail("benchmark", "exactly one of benchmark (a hazard), benchmark_median "
-                       "or benchmark_survival (with landmark)",
-                       Phrase(", ".join(given) if given else "none of them"))
-            return None
-        if given[0] != "benchmark_survival" and table.has("landmark"):
-            table.fail("landmark", "a landmark time only with benchmark_survival",
-                       table.data["landmark"])
-        if given[0] == "benchmark":
-            return table.number("benchmark", check=lambda v: v > 0,
-                                expected="a hazard > 0 (events per subject-time unit)")
-        if given[0] == "benchmark_median":
-            median = table.number("benchmark_median", check=lambda v: v > 0,
-                                  expected="a median time to event > 0")
-            return None if median is None else hazard_from_median(median)
-        survival = table.number("benchmark_survival", check=lambda v: 0 < v < 1,
-                                expected="an event-free proportion between 0 and 1 "
-                                         "(exclusive) at the landmark time")
-        landmark = table.number("landmark", check=lambda v: v > 0,
-                                expected="a landmark time > 0 for benchmark_survival")
-        if survival is None or landmark is None:
-            return None
-        return hazard_from_survival(survival, landmark)
 
     def true_value_problem(self, value: float) -> str | None:
         return None if value > 0 and math.isfinite(value) else "a hazard > 0"
 
-    def check_design(self, parts: dict[str, Any], problems: Problems) -> None:
-        """The [conduct] table against the looks: events are the outcome (no lag), and the
-        final number of events must be within reach."""
-        super().check_design(parts, problems)
-        conduct, looks = parts.get("conduct"), parts.get("looks")
-        if conduct is None or looks is None:
-            return
-        if conduct.lag != 0:
-            problems.add("conduct.outcome_lag", "no outcome lag for time-to-event endpoints "
-                         "(the event time is the outcome)", conduct.lag)
-        if conduct.analyse_pipeline:
-            problems.add("conduct.analyse_pipeline", "false: analysing the pipeline after a "
-                         "stop is not built for time-to-event endpoints yet", True)
-        final = looks.n[-1]
-        if final > conduct.max_enrolment:
-            problems.add("looks.events", f"event counts that {conduct.max_enrolment} "
-                         "subjects (conduct.max_enrolment) can reach: each subject has at "
-                         "most one event", looks.n)
-            return
-        scenarios = parts.get("scenarios")
-        if conduct.dropout_hazard > 0 and scenarios is not None and len(scenarios):
-            fastest = max(max(row) for row in scenarios.values)
-            reach = conduct.max_enrolment * fastest / (fastest + conduct.dropout_hazard)
-            if final > reach:
-                problems.add("looks.events", f"a final event count the study can reach: at "
-                             f"most {reach:.1f} events are expected from "
-                             f"{conduct.max_enrolment} subjects at the largest scenario "
-                             f"hazard ({fastest:g}) with dropout hazard "
-                             f"{conduct.dropout_hazard:g}", final)
+    def prior_on_effect(self, endpoint: Any, two_arm: bool) -> bool:
+        return two_arm and endpoint.analysis == "normal-log-hazard-ratio"
 
-    # -- maths -------------------------------------------------------------------------
+    def check_design(self, parts: dict[str, Any], problems: Problems) -> None:
+        endpoint, hypothesis = parts["endpoint"], parts["hypothesis"]
+        if endpoint is None or hypothesis is None:
+            return
+        two_arm = parts["two_arm"]
+        if not two_arm:
+            if endpoint.periods > 1 and endpoint.benchmark_scale == "hazard" and (
+                    endpoint.landmark is None):
+                problems.add("endpoint.landmark", "a landmark time: with several periods "
+                             "the claim is about survival at a landmark",
+                             Phrase("nothing (the key is missing)"))
+        if endpoint.analysis == "normal-log-hazard-ratio" and not two_arm:
+            problems.add("endpoint.analysis", "'gamma' for a one-arm design (the normal "
+                         "approximation is on the log hazard ratio)", endpoint.analysis)
+        if two_arm and endpoint.analysis == "gamma" and endpoint.periods > 1:
+            problems.add("endpoint.analysis", "'normal-log-hazard-ratio' for two arms with "
+                         "several periods (the gamma ratio needs one period)", "gamma")
+        on_effect = self.prior_on_effect(endpoint, two_arm)
+        holders = [("hypothesis", hypothesis)] if on_effect else [
+            (f"arms.{a.name}", a) for a in parts["arms"]]
+        for where, holder in holders:
+            for key in ("prior", "design_prior"):
+                prior = getattr(holder, key)
+                if prior is None:
+                    continue
+                if on_effect and not isinstance(prior, NormalMixture):
+                    problems.add(f"{where}.{key}.distribution", "'normal' or "
+                                 "'normal-mixture' (a prior on the log hazard ratio)",
+                                 Phrase(f"a {type(prior).__name__} prior"))
+                if not on_effect and not isinstance(prior, GammaMixture):
+                    problems.add(f"{where}.{key}.distribution", "'gamma' or "
+                                 "'gamma-mixture' (a prior on the hazard)",
+                                 Phrase(f"a {type(prior).__name__} prior"))
+
+    # -- hypotheses ------------------------------------------------------------------
+    def convert_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
+        """The benchmark as a hazard multiplier lambda0, converted from a hazard, a
+        median or a survival probability at the landmark (``benchmark_scale``)."""
+        e: TimeToEventEndpoint = endpoint
+        if e.benchmark_scale == "survival":
+            if not 0 < value < 1:
+                return value, ("a survival probability in (0, 1) (endpoint.benchmark_scale "
+                               "= 'survival')")
+            if e.landmark is None:
+                return value, None  # the missing landmark is reported on its own key
+        elif not (value > 0 and math.isfinite(value)):
+            return value, ("a median time > 0" if e.benchmark_scale == "median"
+                           else "a hazard > 0")
+        return sm.benchmark_multiplier(e.benchmark_scale, value, e.starts,
+                                       e.relative_hazard, e.landmark), None
+
     def target_value(self, hypothesis: Any, truth: tuple[float, ...]) -> float:
-        """One arm: the hazard. Two arms: the log hazard ratio."""
+        """One arm: the hazard multiplier. Two arms: the log hazard ratio."""
         return truth[0] if len(truth) == 1 else math.log(truth[0] / truth[1])
 
-    def posterior(self, design: Any, arm: int, events: Any, exposure: Any) -> GammaPosterior:
-        """The gamma-mixture posterior of ``arm``'s hazard after ``events`` in ``exposure``
-        (arrays broadcast together; one row per pair)."""
-        prior: GammaMixture = design.arms[arm].prior
-        d, t = np.broadcast_arrays(np.atleast_1d(np.asarray(events, dtype=float)),
-                                   np.atleast_1d(np.asarray(exposure, dtype=float)))
-        a0, b0 = np.asarray(prior.a)[None, :], np.asarray(prior.b)[None, :]
-        a, b = a0 + d[:, None], b0 + t[:, None]
-        log_w = (np.log(np.asarray(prior.weights))[None, :] + a0 * np.log(b0)
-                 + special.gammaln(a) - special.gammaln(a0) - a * np.log(b))
+    # -- posteriors ------------------------------------------------------------------
+    @staticmethod
+    def posterior(prior: GammaMixture, events: np.ndarray, exposure: np.ndarray,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per study: (weights (m, C), shapes (m, C, J), rates (m, C, J)) after
+        ``events`` and ``exposure`` of shape (m, J) (periods J)."""
+        d = np.atleast_2d(np.asarray(events, dtype=float))
+        e = np.atleast_2d(np.asarray(exposure, dtype=float))
+        a0 = np.asarray(prior.a)[None, :, None]
+        b0 = np.asarray(prior.b)[None, :, None]
+        a, b = a0 + d[:, None, :], b0 + e[:, None, :]
+        log_w = np.log(np.asarray(prior.weights))[None, :] + np.sum(
+            a0 * np.log(b0) + special.gammaln(a) - special.gammaln(a0) - a * np.log(b), axis=2)
         weights = np.exp(log_w - special.logsumexp(log_w, axis=1, keepdims=True))
-        return GammaPosterior(weights, a, b)
+        return weights, a, b
 
-    def benefit_of(self, design: Any, posteriors: tuple[GammaPosterior, ...]) -> np.ndarray:
-        """B per row: Pr(hazard beyond the benchmark) for one arm, Pr(HR beyond the
-        threshold) for two arms (the arms' rows paired)."""
+    def benefit_from(self, design: Any, events: tuple[np.ndarray, ...],
+                     exposure: tuple[np.ndarray, ...]) -> np.ndarray:
+        """Posterior probability of benefit per study from each arm's events and exposure
+        per period (arrays of shape (studies, periods)); the interface the patient-level
+        simulator and ``octrial decide`` call."""
         h = design.hypothesis
+        e: TimeToEventEndpoint = design.endpoint
         lower = h.better == "lower"
-        if len(posteriors) == 1:
-            post = posteriors[0]
-            return post.cdf(h.null_value) if lower else post.sf(h.null_value)
-        t, c = posteriors
-        out = np.zeros(len(t))
-        for i in range(t.weights.shape[1]):
-            for j in range(c.weights.shape[1]):
-                k = h.threshold * t.b[:, i] / c.b[:, j]
-                below = special.betainc(t.a[:, i], c.a[:, j], k / (1.0 + k))
-                out += t.weights[:, i] * c.weights[:, j] * (below if lower else 1.0 - below)
+        if self.prior_on_effect(e, design.two_arm):
+            return self._normal_benefit(design, events, exposure)
+        if not design.two_arm:
+            w, a, b = self.posterior(design.arms[0].prior, events[0], exposure[0])
+            lam0 = h.benchmark
+            if e.periods == 1:
+                below = np.sum(w * special.gammainc(a[..., 0], b[..., 0] * lam0), axis=1)
+                above = np.sum(w * special.gammaincc(a[..., 0], b[..., 0] * lam0), axis=1)
+                return below if lower else above
+            below = self._landmark_below(design, w, a, b, lam0)
+            return below if lower else 1.0 - below
+        (w_t, a_t, b_t), (w_c, a_c, b_c) = (
+            self.posterior(arm.prior, d, x) for arm, d, x in zip(design.arms, events,
+                                                                 exposure, strict=True))
+        out = np.zeros(w_t.shape[0])
+        for i in range(w_t.shape[1]):
+            for j in range(w_c.shape[1]):
+                k = h.threshold * b_t[:, i, 0] / b_c[:, j, 0]
+                p = (special.betainc(a_t[:, i, 0], a_c[:, j, 0], k / (1 + k)) if lower
+                     else special.betainc(a_c[:, j, 0], a_t[:, i, 0], 1 / (1 + k)))
+                out += w_t[:, i] * w_c[:, j] * p
         return np.clip(out, 0.0, 1.0)
 
+    def _landmark_below(self, design: Any, w: np.ndarray, a: np.ndarray, b: np.ndarray,
+                        lam0: float) -> np.ndarray:
+        """Pr(Lambda(L) < lambda0 H0(L)) = Pr(S(L) > S0(L)), mixed over components."""
+        e: TimeToEventEndpoint = design.endpoint
+        landmark = e.landmark_time(lam0)
+        delta = sm.period_overlap(e.starts, landmark)
+        used = delta > 0
+        limit = lam0 * float(sm.base_cumulative_hazard(e.starts, e.relative_hazard, landmark))
+        out = np.zeros(w.shape[0])
+        for c in range(w.shape[1]):
+            cdf, _ = sm.gamma_sum_cdf(np.full(w.shape[0], limit), a[:, c, used],
+                                      b[:, c, used] / delta[used])
+            out += w[:, c] * cdf
+        return out
+
+    @staticmethod
+    def log_hazard_ratio_estimate(design: Any, events: tuple[np.ndarray, ...],
+                                  exposure: tuple[np.ndarray, ...],
+                                  ) -> tuple[np.ndarray, np.ndarray]:
+        """(log HR estimate, its information 1 / (1/d_T + 1/d_C)) per study: each arm's
+        multiplier estimated as d / sum_j r_j E_j (the maximum likelihood estimate under
+        the stated relative shape)."""
+        r = np.asarray(design.endpoint.relative_hazard)
+        logs, inverse = [], []
+        for d, x in zip(events, exposure, strict=True):
+            d_sum = np.atleast_2d(np.asarray(d, dtype=float)).sum(axis=1)
+            weighted = np.atleast_2d(np.asarray(x, dtype=float)) @ r
+            logs.append(np.log(d_sum / weighted))
+            inverse.append(1.0 / d_sum)
+        return logs[0] - logs[1], 1.0 / (inverse[0] + inverse[1])
+
+    def _normal_benefit(self, design: Any, events: tuple[np.ndarray, ...],
+                        exposure: tuple[np.ndarray, ...]) -> np.ndarray:
+        """B from the log HR estimate by the known-variance rule's own function
+        (:func:`octrial.rules.normal.benefit`) on the observed information."""
+        from octrial.rules.normal import benefit
+
+        h = design.hypothesis
+        estimate, information = self.log_hazard_ratio_estimate(design, events, exposure)
+        claim = h.sign * math.log(h.threshold)
+        return np.array([float(benefit(h.prior, h.sign, float(i), claim,
+                                       np.array([h.sign * i * x]))[0])
+                         for x, i in zip(estimate, information, strict=True)])
+
+    def normal_predictive(self, design: Any, look: int, events: tuple[np.ndarray, ...],
+                          exposure: tuple[np.ndarray, ...]) -> float:
+        """Normal approximation: the predictive probability of final success from one
+        study's data at look ``look`` (from 1), by the known-variance rule's function
+        (:func:`octrial.rules.normal.predictive`) with the final look's information and
+        score bound."""
+        from octrial.rules.normal import build_normal_rule, predictive
+
+        h = design.hypothesis
+        estimate, information = self.log_hazard_ratio_estimate(design, events, exposure)
+        final = build_normal_rule(self.as_normal_design(design)).looks[-1]
+        now = float(information[0])
+        score = np.array([h.sign * now * float(estimate[0])])
+        return float(predictive(h.prior, h.sign, now, max(final.information, now),
+                                final.upper, score)[0])
+
     def prior_probability_of_claim(self, design: Any) -> float | None:
-        if any(arm.prior is None for arm in design.arms):
-            return None
-        zero = np.zeros(1)
-        posts = tuple(self.posterior(design, j, zero, zero) for j in range(len(design.arms)))
-        return float(self.benefit_of(design, posts)[0])
+        h = design.hypothesis
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            w, m, p = benefit_components(h.prior, h.sign)
+            return float(np.sum(w * special.ndtr((m - h.sign * math.log(h.threshold))
+                                                  * np.sqrt(p))))
+        periods = design.endpoint.periods
+        zero = tuple(np.zeros((1, periods)) for _ in design.arms)
+        return float(self.benefit_from(design, zero, zero)[0])
+
+    prior_size_note = ("Effective sample size in events: a gamma prior with shape a on a "
+                       "hazard is worth a events (weighted over a mixture's components); "
+                       "FDA (2010) n V1 / V2 - n at the final look's events n, data at the "
+                       "prior mean; a normal prior with sd s on log HR is worth "
+                       "(1 + q)^2 / (q s^2) events at allocation q:1.")
 
     def effective_sample_size(self, design: Any) -> dict[str, Any] | None:
-        """Each arm's prior in events: a Gamma(a, b) prior is worth a events (b units of
-        exposure); a mixture, its weighted shape."""
-        if any(arm.prior is None for arm in design.arms):
+        from octrial.endpoints.prior_size import arm_summary, fda_summary
+
+        e: TimeToEventEndpoint = design.endpoint
+        events = self.event_targets(design)[-1] if design.looks.trigger in (
+            "events", "complete") else None
+        if self.prior_on_effect(e, design.two_arm):
+            prior = design.hypothesis.prior
+            q = design.arms[0].allocation / design.arms[1].allocation
+            simple = float(sum(w * (1 + q) ** 2 / (q * sd**2) for w, sd in zip(
+                prior.weights, prior.sd, strict=True)))
+            return {"hazard ratio": arm_summary(prior.describe(), simple,
+                                                "(1 + q)^2 / (q sd^2) events", None)}
+        if any(not isinstance(arm.prior, GammaMixture) for arm in design.arms):
             return None
         out = {}
         for arm in design.arms:
-            prior: GammaMixture = arm.prior
+            prior = arm.prior
             simple = float(sum(w * a for w, a in zip(prior.weights, prior.a, strict=True)))
-            out[arm.name] = arm_summary(prior.describe(), simple,
-                                        "a (events the prior is worth)", None,
-                                        getattr(prior, "borrowing", None))
+            fda = None
+            if e.periods == 1 and events is not None:
+                n = events * arm.allocation / sum(a.allocation for a in design.arms)
+                exposure = n / prior.mean
+                # Gamma(n, exposure): the posterior under a prior flat on the log hazard
+                v1 = n / exposure**2
+                v2 = float(update(prior, exposure, np.array([n])).variance()[0])
+                fda = fda_summary(n, v1, v2)
+            out[arm.name] = arm_summary(prior.describe(), simple, "shape (prior events)",
+                                        fda, prior.borrowing)
         return out
 
     def prior_components(self, prior: Any) -> list[tuple[float, Any]] | None:
-        return [(w, stats.gamma(a, scale=1 / b)) for w, a, b in zip(
-            prior.weights, prior.a, prior.b, strict=True)]
+        if isinstance(prior, GammaMixture):
+            return [(w, stats.gamma(a, scale=1.0 / b)) for w, a, b in zip(
+                prior.weights, prior.a, prior.b, strict=True)]
+        if isinstance(prior, NormalMixture):
+            return [(w, stats.norm(m, s)) for w, m, s in zip(prior.weights, prior.mean,
+                                                              prior.sd, strict=True)]
+        return None
 
-    # -- simulation ----------------------------------------------------------------------
-    # The generic protocol reads an arm's statistic as its exposure after n events: with
-    # a constant hazard the events form a Poisson process of rate lambda in the arm's
-    # exposure (a time change; entry and independent censoring do not alter it), so the
-    # exposure accumulated over n events is Gamma(n, rate lambda). This is what the common
-    # family suite checks; studies themselves are simulated subject by subject
-    # (:meth:`simulator`), whose one-arm looks must agree with it.
+    # -- boundaries --------------------------------------------------------------------
+    def event_targets(self, design: Any) -> tuple[int, ...]:
+        """Total events at each look: ``looks.at`` for event-driven looks; without
+        censoring (no ``[conduct]``) every analysed subject has had the event, so the
+        looks' sample sizes."""
+        looks = design.looks
+        if looks.trigger == "events":
+            return tuple(int(v) for v in looks.at)
+        return tuple(looks.n)
+
+    def boundary_table(self, design: Any, sds: tuple[float, ...] | None = None) -> Any:
+        from octrial.endpoints.survival_bounds import boundary_table
+
+        return boundary_table(design)
+
+    def boundaries_without_rule(self, design: Any) -> Any:
+        """``boundaries.csv`` of a run: the committee's table (:meth:`boundary_table`)."""
+        return self.boundary_table(design)
+
+    def committee_table(self, design: Any, table: Any) -> str | None:
+        from octrial.endpoints.survival_bounds import committee_text
+
+        return committee_text(design, table)
+
+    # == simulation ================================================================
+    def simulation_unsupported(self, design: Any) -> str | None:
+        e: TimeToEventEndpoint = design.endpoint
+        if design.conduct is not None or design.looks.trigger in ("events", "time"):
+            import importlib.util
+
+            if importlib.util.find_spec("octrial.simulation.event_driven") is None:
+                return NOT_YET
+            if e.periods > 1 or self.prior_on_effect(e, design.two_arm):
+                # the patient-level simulator decides on one period's gamma posterior
+                return ("the patient-level simulator takes one hazard period with gamma "
+                        "priors per arm; a piecewise design or the normal approximation "
+                        "on the log hazard ratio is not simulated yet (the normal "
+                        "approximation has its exact engine: simulation.method = 'exact')")
+            return None
+        if e.periods > 1:
+            return ("a piecewise-exponential design is simulated subject by subject: add a "
+                    "[conduct] table (the patient-level simulator)")
+        if any(v is not None for v in design.looks.futility_predictive):
+            return ("time-to-event endpoints offer no predictive probability of success yet, "
+                    "so a design with predictive futility (looks.futility_predictive) "
+                    "cannot be simulated")
+        return None
+
+    def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
+        if design.conduct is not None or design.looks.trigger in ("events", "time"):
+            # the patient-level simulator is engineer K's module; the name it exports is
+            # reconciled at merge time
+            import importlib
+
+            module = importlib.import_module("octrial.simulation.event_driven")
+            return module.EventDrivenSimulator(design, truth, level)
+        return super().simulator(design, truth, level)
+
+    # Without [conduct], one period: each analysed subject contributes one event and its
+    # whole time to the event, so an arm's statistic is its total time on study.
     def increment_distribution(self, design: Any, arm: int, truth: Any, n: int) -> Any:
-        """The exposure accumulated over ``n`` further events: Gamma(n, rate hazard)."""
+        """Total time to the event of ``n`` subjects: Gamma(n, rate = hazard)."""
         return stats.gamma(n, scale=1.0 / np.asarray(truth, dtype=float))
+
+    def draw_statistics(self, design: Any, arm: int, truth: float, n: int,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+        if n == 0:
+            return np.zeros(size)
+        return rng.gamma(n, 1.0 / truth, size)
 
     def benefit_at(self, design: Any, statistics: tuple[np.ndarray, ...],
                    n: tuple[int, ...]) -> np.ndarray:
-        """B per study from each arm's exposure (``statistics``) after ``n`` events."""
-        posts = tuple(self.posterior(design, j, n[j], x) for j, x in enumerate(statistics))
-        return self.benefit_of(design, posts)
+        events = tuple(np.full((np.size(x), 1), float(m)) for x, m in zip(statistics, n,
+                                                                          strict=True))
+        exposure = tuple(np.asarray(x, dtype=float).reshape(-1, 1) for x in statistics)
+        return self.benefit_from(design, events, exposure)
 
     def estimate_at(self, design: Any, statistics: tuple[np.ndarray, ...],
                     n: tuple[int, ...], value: float,
                     ) -> tuple[np.ndarray, np.ndarray] | None:
-        """Posterior mean of the target (one arm: the hazard; two arms: the log hazard
-        ratio) and its posterior distribution function at ``value``."""
-        posts = tuple(self.posterior(design, j, n[j], x) for j, x in enumerate(statistics))
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            return None
+        posts = [self.posterior(arm.prior, np.full((np.size(x), 1), float(m)),
+                                np.asarray(x, dtype=float).reshape(-1, 1))
+                 for arm, x, m in zip(design.arms, statistics, n, strict=True)]
         if len(posts) == 1:
-            return posts[0].mean(), posts[0].cdf(value)
-        t, c = posts
-        mean = (np.sum(t.weights * (special.digamma(t.a) - np.log(t.b)), axis=1)
-                - np.sum(c.weights * (special.digamma(c.a) - np.log(c.b)), axis=1))
-        cdf = np.zeros(len(t))
-        for i in range(t.weights.shape[1]):
-            for j in range(c.weights.shape[1]):
-                k = math.exp(value) * t.b[:, i] / c.b[:, j]
-                cdf += t.weights[:, i] * c.weights[:, j] * special.betainc(
-                    t.a[:, i], c.a[:, j], k / (1.0 + k))
+            (w, a, b), = posts
+            mean = np.sum(w * a[..., 0] / b[..., 0], axis=1)
+            return mean, np.sum(w * special.gammainc(a[..., 0], b[..., 0] * value), axis=1)
+        (w_t, a_t, b_t), (w_c, a_c, b_c) = posts
+        mean = np.zeros(w_t.shape[0])
+        cdf = np.zeros(w_t.shape[0])
+        for i in range(w_t.shape[1]):
+            for j in range(w_c.shape[1]):
+                pair = w_t[:, i] * w_c[:, j]
+                # E[log h] = digamma(a) - log(b); the beta form for Pr(log HR <= value)
+                mean += pair * (special.digamma(a_t[:, i, 0]) - np.log(b_t[:, i, 0])
+                                - special.digamma(a_c[:, j, 0]) + np.log(b_c[:, j, 0]))
+                k = math.exp(value) * b_t[:, i, 0] / b_c[:, j, 0]
+                cdf += pair * special.betainc(a_t[:, i, 0], a_c[:, j, 0], k / (1 + k))
         return mean, cdf
 
-    def simulation_unsupported(self, design: Any) -> str | None:
-        if any(arm.prior is None for arm in design.arms):
-            return "time-to-event designs need an analysis prior on every arm's hazard"
-        if any(t is not None for t in design.looks.futility_predictive[:-1]):
-            return ("predictive futility is not offered for time-to-event endpoints yet "
-                    "(use futility on the posterior probability)")
+    # -- the normal approximation on the known-variance engine ----------------------
+    def as_normal_design(self, design: Any) -> Any:
+        """The one-arm normal design with known sd that the normal approximation makes
+        of a two-arm ``normal-log-hazard-ratio`` design: the parameter is log HR, each
+        event one 'observation' with sd (1 + q) / sqrt(q) (information D q / (1 + q)^2),
+        the looks' sizes the event targets, the benchmark log(threshold)."""
+        from octrial.design.model import Arm, Design, Hypothesis, Scenarios
+        from octrial.endpoints.normal import NormalEndpoint
+
+        h = design.hypothesis
+        q = design.arms[0].allocation / design.arms[1].allocation
+        events = self.event_targets(design)
+        looks = dataclasses.replace(design.looks, n=events,
+                                    per_arm=tuple((d,) for d in events), trigger="complete",
+                                    at=())
+        values = tuple((math.log(t / c),) for t, c in design.scenarios.values)
+        return Design(
+            design.name, design.title, NormalEndpoint(sd=(1 + q) / math.sqrt(q)),
+            Hypothesis(h.better, benchmark=math.log(h.threshold),
+                       relevant_effect=h.relevant_effect),
+            (Arm("treatment", h.prior, 1.0, h.design_prior),), looks,
+            Scenarios(("treatment",), values), design.simulation, design.source)
+
+
+class LogHazardRatioEngine:
+    """Exact-to-quadrature OCs of a ``normal-log-hazard-ratio`` design: the known-variance
+    recursion run on :meth:`TimeToEventFamily.as_normal_design`."""
+
+    name = "exact"
+
+    @staticmethod
+    def serves(family: Any) -> bool:
+        return isinstance(family, TimeToEventFamily)
+
+    @staticmethod
+    def unsupported(design: Any) -> str | None:
+        family = design.family
+        if not isinstance(family, TimeToEventFamily):
+            return f"{family.name} endpoints are not time-to-event"
+        if not family.prior_on_effect(design.endpoint, design.two_arm):
+            return ("only the normal approximation on the log hazard ratio (endpoint."
+                    "analysis = 'normal-log-hazard-ratio') has an exact engine")
+        if design.looks.trigger not in ("events", "complete"):
+            return "looks at calendar times need simulation"
         return None
 
-    def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
-        from octrial.simulation.event_driven import EventDrivenSimulator
+    @staticmethod
+    def run(design: Any, truths: np.ndarray, **options: Any) -> Any:
+        from octrial.engines.exact_normal import NormalRecursionEngine
 
-        return EventDrivenSimulator(design, truth, level)
+        normal = design.family.as_normal_design(design)
+        truths = np.asarray(truths, dtype=float)
+        log_ratio = np.log(truths[:, :1] / truths[:, 1:2])
+        options.pop("rule", None)
+        outcome = NormalRecursionEngine.run(normal, log_ratio, **{
+            k: v for k, v in options.items() if k in ("points_per_sd", "estimate")})
+        events = design.family.event_targets(design)
+        for k, d in enumerate(events, start=1):
+            outcome.extra[f"look{k}_events"] = np.full(len(truths), float(d))
+        outcome.info["normal_approximation"] = (
+            "log HR estimate ~ N(log HR, 1/d_T + 1/d_C), information D q / (1 + q)^2 "
+            "(Schoenfeld 1981)")
+        return outcome

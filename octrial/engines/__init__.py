@@ -11,6 +11,7 @@ from __future__ import annotations
 from typing import Any
 
 from octrial.design.model import Design
+from octrial.endpoints.time_to_event import LogHazardRatioEngine
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.exact_normal import NormalRecursionEngine
 from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
@@ -18,7 +19,7 @@ from octrial.engines.outcome import Outcome
 from octrial.errors import InputError, single
 
 ENGINES: dict[str, tuple[Any, ...]] = {
-    "exact": (ExactLatticeEngine, NormalRecursionEngine),
+    "exact": (ExactLatticeEngine, NormalRecursionEngine, LogHazardRatioEngine),
     "monte-carlo": (MonteCarloEngine,),
 }
 """Engines by method name, tried in order. An engine may say which endpoint families it

@@ -2,7 +2,9 @@
 
 * binary: ``ARM=x/n`` — x responses among n subjects;
 * count: ``ARM=events/exposure`` — total events and total exposure;
-* normal: ``ARM=mean,sd,n`` — sample mean, sample standard deviation and size.
+* normal: ``ARM=mean,sd,n`` — sample mean, sample standard deviation and size;
+* time-to-event: ``ARM=events/exposure`` — events and total time at risk, one pair per
+  hazard period separated by ``;`` when the endpoint has several periods.
 
 Each syntax is one small parser that the endpoint's interim support names
 (:attr:`~octrial.interim.base.EndpointInterim.syntax`), so a new endpoint adds its own.
@@ -50,6 +52,20 @@ class CountData:
     def describe(self) -> str:
         """Plain text for reports."""
         return f"{self.events} events in exposure {self.exposure:g}"
+
+
+@dataclass(frozen=True)
+class EventData:
+    """Events and time at risk (exposure) per hazard period."""
+
+    events: tuple[int, ...]
+    exposure: tuple[float, ...]
+
+    def describe(self) -> str:
+        """Plain text for reports."""
+        pairs = [f"{d} events in time at risk {e:g}" for d, e in zip(
+            self.events, self.exposure, strict=True)]
+        return "; ".join(pairs) if len(pairs) > 1 else pairs[0]
 
 
 @dataclass(frozen=True)
@@ -108,6 +124,11 @@ def _count(text: str) -> CountData:
     return CountData(events, exposure)
 
 
+def _events(text: str) -> EventData:
+    pairs = [_count(part) for part in text.split(";")]
+    return EventData(tuple(p.events for p in pairs), tuple(p.exposure for p in pairs))
+
+
 def _normal(text: str) -> NormalData:
     match = re.fullmatch(f"{DECIMAL},{DECIMAL},{WHOLE}", text)
     if match is None:
@@ -124,6 +145,7 @@ def _normal(text: str) -> NormalData:
 BINARY = Syntax("x/n", "12/30", _binary)
 COUNT = Syntax("events/exposure", "14/52.5", _count)
 NORMAL = Syntax("mean,sd,n", "1.8,2.4,40", _normal)
+EVENTS = Syntax("events/exposure", "18/240.5", _events)
 """The built-in syntaxes; each family's interim support names its own
 (:attr:`~octrial.interim.base.EndpointInterim.syntax`)."""
 

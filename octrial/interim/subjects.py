@@ -31,6 +31,7 @@ ID_COLUMNS = ("id", "subject")
 def read_subjects(
     path: str, arms: tuple[str, ...], outcome: str, *, whole: bool,
     exposure: float | None = None, largest: int | None = None, minimum: int = MIN_SUBJECTS,
+    exposure_column: str = "exposure",
 ) -> dict[str, dict[str, np.ndarray]]:
     """Read per-subject data.
 
@@ -50,6 +51,8 @@ def read_subjects(
         The largest whole outcome allowed (1 for responses).
     minimum : int
         Fewest subjects per arm.
+    exposure_column : str
+        Name of the exposure column (``'time'`` for times to an event or censoring).
 
     Returns
     -------
@@ -63,7 +66,7 @@ def read_subjects(
     """
     table = read_rows(path, "per-subject data file")
     problems = Problems()
-    allowed = ("arm", outcome) + (("exposure",) if exposure is not None else ()) + ID_COLUMNS
+    allowed = ("arm", outcome) + ((exposure_column,) if exposure is not None else ()) + ID_COLUMNS
     where_header = f"line {table.header_line} (header)"
     for name in table.header:
         if name not in allowed:
@@ -112,9 +115,9 @@ def read_subjects(
         value = _number(fields[column[outcome]], f"line {line}, column {outcome}", problems,
                         whole, largest)
         time = exposure
-        if "exposure" in column:
-            time = _positive(fields[column["exposure"]], f"line {line}, column exposure",
-                             problems)
+        if exposure_column in column:
+            time = _positive(fields[column[exposure_column]],
+                             f"line {line}, column {exposure_column}", problems)
         if value is not None and (time is not None or exposure is None):
             data[arm][outcome].append(value)
             data[arm]["exposure"].append(time)
