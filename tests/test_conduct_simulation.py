@@ -200,15 +200,25 @@ def test_proportion_lost_matches_the_closed_form():
 
 
 def test_auto_method_simulates_designs_in_calendar_time():
-    # no exact engine models [conduct] yet: 'auto' simulates, 'exact' is refused plainly
+    # only the lattice engine models [conduct] (deterministic timing, tests/test_pipeline.py):
+    # random timing is simulated under 'auto', and 'exact' is refused plainly
     from octrial.engines import choose
     from octrial.errors import InputError
 
     design = load_design("designs/delayed-response.toml")
-    assert choose(design, "auto") is MonteCarloEngine
-    with pytest.raises(InputError, match="calendar-time conduct"):
-        choose(design, "exact")
+    assert choose(design, "auto") is ExactLatticeEngine
+    random = dataclasses.replace(design, conduct=dataclasses.replace(
+        design.conduct, accrual=Accrual(rates=(8.0,))))
+    assert choose(random, "auto") is MonteCarloEngine
+    with pytest.raises(InputError, match="Poisson arrivals"):
+        choose(random, "exact")
     assert choose(dataclasses.replace(design, conduct=None), "auto") is ExactLatticeEngine
+    normal = load_design("designs/two-arm-continuous-score.toml")
+    normal = dataclasses.replace(normal, conduct=design.conduct, looks=dataclasses.replace(
+        normal.looks, futility_predictive=(None,) * normal.looks.count))
+    assert choose(normal, "auto") is MonteCarloEngine
+    with pytest.raises(InputError, match="calendar-time conduct"):
+        choose(normal, "exact")
 
 
 def test_interrupted_run_resumes_with_its_calendar_totals(tmp_path):

@@ -41,7 +41,8 @@ def choose(design: Design, method: str | None = None) -> Any:
             reason = engine.unsupported(design)
             if reason is None and design.conduct is not None and not getattr(
                     engine, "conduct_aware", name != "exact"):
-                # an exact engine must say it models calendar time (lag, pipeline, dropout)
+                # an exact engine must say it models calendar time (lag, pipeline, dropout);
+                # the lattice engine does, for deterministic timing (engines/pipeline.py)
                 reason = "it does not model calendar-time conduct ([conduct]) yet"
             if reason is None:
                 return engine

@@ -19,8 +19,9 @@ from octrial.design.model import Design
 from octrial.endpoints.base import LatticeFamily
 from octrial.engines.lattice_programme import add_increment, run_programme
 from octrial.engines.outcome import Estimation, Outcome
+from octrial.engines.pipeline import calendar_extra, exact_unsupported, reversed_efficacy, timing
 from octrial.rules.estimates import LatticeEstimates, coverage_tables, lattice_estimates
-from octrial.rules.lattice import LatticeRule, build_rule
+from octrial.rules.lattice import LatticeCache, LatticeRule, build_rule
 
 
 def stopped_mass(
@@ -89,6 +90,8 @@ class ExactLatticeEngine:
     """The exact engine for endpoints with a lattice sufficient statistic."""
 
     name = "exact"
+    conduct_aware = True
+    """Models calendar time: under deterministic [conduct] (see :func:`unsupported`)."""
 
     @staticmethod
     def serves(family: object) -> bool:
@@ -99,7 +102,7 @@ class ExactLatticeEngine:
         """Why this engine cannot evaluate ``design``, or ``None`` when it can."""
         if not isinstance(design.family, LatticeFamily):
             return f"{design.family.name} endpoints have no lattice sufficient statistic"
-        return None
+        return exact_unsupported(design)
 
     @staticmethod
     def run(design: Design, truths: np.ndarray, rule: LatticeRule | None = None,
@@ -116,8 +119,17 @@ class ExactLatticeEngine:
         estimates = lattice_estimates(design, rule) if estimate else None
         level = design.simulation.interval_level
         efficacy, futility, neglected, uncertain, moments, coverage = [], [], [], [], [], []
+        plan = timing(design) if design.conduct is not None else None
+        reversed_ = []
+        finals = LatticeCache()  # final-threshold tables at the pipeline's sizes, shared
         for t in truths:
             mass, eff, fut, lost, unsure = stopped_mass(design, rule, tuple(t))
+            if plan is not None and design.conduct is not None and design.conduct.analyse_pipeline:
+                reversed_.append(sum(
+                    reversed_efficacy(design, tuple(t), np.where(table.efficacy, m, 0.0),
+                                      plan.complete[k], plan.enrolled[k], finals)
+                    for k, (m, table) in enumerate(zip(mass[:-1], rule.looks[:-1],
+                                                       strict=True))))
             efficacy.append(eff)
             futility.append(fut)
             neglected.append(lost)
@@ -132,12 +144,18 @@ class ExactLatticeEngine:
         }
         if rule.reach is not None:
             info["truncation_epsilon"] = design.family.truncation_epsilon
+        if reversed_:
+            info["pipeline_quadrature_error_bound"] = finals.error
         if uncertain and max(uncertain) > 0:
             info["max_uncertain_mass"] = float(max(uncertain))
         estimation = None
         if estimates is not None:
             estimation = Estimation(np.array(moments).reshape(len(truths), 3),
                                     np.array(coverage), level)
+        extra = {}
+        if plan is not None:
+            extra = calendar_extra(design, plan, np.array(efficacy), np.array(futility),
+                                   np.array(reversed_ or [0.0] * len(truths)))
         return Outcome(np.array(efficacy), np.array(futility),
-                       np.zeros(len(truths), dtype=int), "exact", info=info,
+                       np.zeros(len(truths), dtype=int), "exact", extra=extra, info=info,
                        estimation=estimation)

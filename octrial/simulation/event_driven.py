@@ -1,40 +1,55 @@
 """Event-driven time-to-event studies simulated subject by subject (numba).
 
-One study: ``max_enrolment`` subjects enter in calendar time (``[conduct]``: a Poisson
-process with piecewise-constant rates, evenly at those rates, or at fixed times), are
-allocated in fixed blocks by the arms' allocation weights (1:1 alternates T, C), and each
-has an exponential time to the event at its arm's true hazard and, with a dropout hazard,
-an independent exponential time to loss. Look k happens at the calendar time of the
-D_k-th observed event; at that time each subject enrolled so far contributes exposure
-min(time to event, time to loss, time since enrolment) and an event if it has been seen
-(administrative censoring at the analysis). When fewer than D_k events can ever be seen
-(losses), the look happens when every subject's follow-up has ended and it is the final
-analysis. The stop rule is the one of :mod:`octrial.rules.stop` on the posterior
-probability of benefit of :mod:`octrial.endpoints.time_to_event` (gamma-mixture update;
-one arm: the regularized incomplete gamma; two arms: the beta identity of the hazard
-ratio), and a stop ends enrolment.
+One study: up to ``max_enrolment`` subjects enter in calendar time (a Poisson process with
+piecewise-constant rates, evenly at those rates, or at fixed times:
+:class:`octrial.conduct.model.Accrual`), are allocated in fixed blocks by the arms'
+allocation weights (1:1 alternates the arms), and each has a time from enrolment to the
+event drawn from its arm's (piecewise-)exponential distribution by the inverse cdf over
+the pieces, and, with a dropout hazard, an independent exponential time to loss. Look k
+happens at the calendar time of the D_k-th observed event (``trigger = "events"``) or at
+the stated calendar time (``trigger = "time"``). At the look each subject enrolled so far
+contributes exposure min(time to event, time to loss, time since enrolment), split over
+the analysis model's pieces, and an event in the piece where it happened if it has been
+seen (administrative censoring at the analysis). When fewer than D_k events can ever be
+seen (losses, or fewer subjects than events), the look happens when every subject's
+follow-up has ended and it is the final analysis. The decision is the stop rule of
+:mod:`octrial.rules.stop` on the posterior probability of benefit from the gamma (mixture)
+posterior of one piece's hazard (``decision_piece``; with one analysis piece, the constant
+hazard): one arm, Pr(lambda < benchmark) by the regularized incomplete gamma; two arms,
+Pr(lambda_T / lambda_C < c) by the beta identity b_T l_T / (b_T l_T + b_C l_C) ~
+Beta(a_T, a_C). A stop ends enrolment.
 
-Random numbers: per chunk of studies, three arrays of standard exponentials (arrivals,
-event times, losses) drawn from the batch's generator in that order, so a batch's numbers
-depend on the seed and batch only (whatever ``--jobs``).
+Random numbers come only from the generator passed to :meth:`PatientLevelSimulator.
+simulate`, drawn inside the kernel study by study in a fixed order (the study's
+enrolment gaps, then per subject in enrolment order its event time and its loss time), so
+a batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
+
+Speed: every subject is simulated (about 3 standard exponentials per subject, which are
+most of the time; the looks' event times by a bucket pass, not a sort; arithmetic rather
+than branches over the subjects); ``tests/benchmarks/bench_event_driven.py`` measures it
+against a vectorised numpy version and a plain Python loop. docs/methods.md says why the
+gamma shortcut of one arm's exposure is a check here rather than the simulator.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, field
+from itertools import pairwise
+from types import SimpleNamespace
 from typing import Any
 
 import numba
 import numpy as np
 
-from octrial.rules.stop import CONTINUE, EFFICACY, Rule, look_decision_at
+from octrial.conduct.model import Accrual, Conduct
+from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import calendar_size, duration_edges, record_study
 from octrial.simulation.special import betainc, gammainc_pair
 
-CHUNK = 1024
-"""Studies whose subject-level random numbers are held at once."""
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
+TRIGGERS = {"events": 0, "time": 1}
 
 
 def allocation_pattern(weights: tuple[float, ...]) -> np.ndarray:
@@ -52,62 +67,278 @@ def allocation_pattern(weights: tuple[float, ...]) -> np.ndarray:
     return np.array(block, dtype=np.int64)
 
 
-class EventDrivenSimulator(Simulator):
-    """Studies of a time-to-event design at the true hazards ``truth`` (one per arm)."""
+def _nan(values: tuple[float | None, ...]) -> tuple[float, ...]:
+    return tuple(math.nan if v is None else float(v) for v in values)
+
+
+@dataclass(frozen=True)
+class EventDrivenSetup:
+    """Everything one scenario of an event-driven study needs, as plain numbers.
+
+    Attributes
+    ----------
+    hazards : tuple of tuple of float
+        True hazard of each arm (arm 0 = treatment, arm 1 = control) in each piece of
+        ``hazard_starts`` (time since enrolment).
+    claim : float
+        One arm: the benchmark hazard; two arms: the hazard-ratio margin c of
+        Pr(HR < c) (HR = treatment / control).
+    efficacy, futility : tuple of float or None
+        Posterior-probability thresholds per look (``None``: none at that look); the last
+        efficacy value is the final success threshold.
+    targets : tuple of float
+        Events (``trigger = "events"``, whole numbers, increasing) or calendar times
+        (``trigger = "time"``, increasing) of the looks.
+    accrual : Accrual
+        Enrolment over calendar time.
+    max_enrolment : int
+        Subjects enrolled at most, all arms together.
+    prior_a, prior_b : tuple of tuple of tuple of float
+        Gamma prior shape and rate of each arm's hazard in each analysis piece, one value
+        per mixture component (``prior_a[arm][piece][component]``).
+    prior_weights : tuple of tuple of tuple of float, or None
+        Mixture weights in the same layout (``None``: one component per piece).
+    hazard_starts : tuple of float
+        Start of each true-hazard piece: 0 first, strictly increasing.
+    analysis_starts : tuple of float
+        Start of each piece of the analysis model (its own pieces; (0,) is the
+        exponential model).
+    decision_piece : int
+        The analysis piece whose hazard (ratio) the decision is about.
+    lower_better : bool
+        Whether a lower hazard (ratio) is the benefit.
+    trigger : str
+        ``"events"`` or ``"time"``.
+    dropout_hazard : float
+        Exponential hazard of loss to follow-up (0: nobody is lost).
+    allocation : tuple of float
+        Allocation weights of the arms.
+    """
+
+    hazards: tuple[tuple[float, ...], ...]
+    claim: float
+    efficacy: tuple[float | None, ...]
+    futility: tuple[float | None, ...]
+    targets: tuple[float, ...]
+    accrual: Accrual
+    max_enrolment: int
+    prior_a: tuple[tuple[tuple[float, ...], ...], ...]
+    prior_b: tuple[tuple[tuple[float, ...], ...], ...]
+    prior_weights: tuple[tuple[tuple[float, ...], ...], ...] | None = None
+    hazard_starts: tuple[float, ...] = (0.0,)
+    analysis_starts: tuple[float, ...] = (0.0,)
+    decision_piece: int = 0
+    lower_better: bool = True
+    trigger: str = "events"
+    dropout_hazard: float = 0.0
+    allocation: tuple[float, ...] = field(default=())
+
+    def __post_init__(self) -> None:
+        wrong = self.problems()
+        if wrong:
+            raise ValueError("event-driven setup: " + "; ".join(wrong))
+
+    @property
+    def arms(self) -> int:
+        """Number of arms (1 or 2)."""
+        return len(self.hazards)
+
+    @property
+    def looks(self) -> int:
+        """Number of looks."""
+        return len(self.targets)
+
+    def problems(self) -> list[str]:
+        """What is wrong with the setup, each naming the attribute, expected and got."""
+        wrong: list[str] = []
+
+        def starts_ok(name: str, starts: tuple[float, ...]) -> None:
+            if not starts or starts[0] != 0.0 or any(
+                    b <= a for a, b in pairwise(starts)):
+                wrong.append(f"{name}: expected 0 then strictly increasing times, got "
+                             f"{starts}")
+
+        if self.arms not in (1, 2):
+            wrong.append(f"hazards: expected 1 or 2 arms, got {self.arms}")
+        starts_ok("hazard_starts", self.hazard_starts)
+        starts_ok("analysis_starts", self.analysis_starts)
+        for j, row in enumerate(self.hazards):
+            if len(row) != len(self.hazard_starts) or any(not h > 0 for h in row):
+                wrong.append(f"hazards[{j}]: expected {len(self.hazard_starts)} positive "
+                             f"hazards, got {row}")
+        pieces = len(self.analysis_starts)
+        for name, value in (("prior_a", self.prior_a), ("prior_b", self.prior_b),
+                            ("prior_weights", self.prior_weights)):
+            if value is None:
+                continue
+            # arms may have different numbers of mixture components (a robust mixture
+            # on the control only), each arm the same number in every piece
+            if len(value) != self.arms or any(
+                    len(arm) != pieces or any(len(c) != len(self.prior_a[j][0])
+                                              or any(not x > 0 for x in c) for c in arm)
+                    for j, arm in enumerate(value)):
+                wrong.append(f"{name}: expected positive values for {self.arms} arm(s) x "
+                             f"{pieces} piece(s) x each arm's components, got {value}")
+        if not 0 <= self.decision_piece < pieces:
+            wrong.append(f"decision_piece: expected 0 to {pieces - 1}, got "
+                         f"{self.decision_piece}")
+        if not self.claim > 0:
+            wrong.append(f"claim: expected a positive hazard or ratio, got {self.claim}")
+        if self.trigger not in TRIGGERS:
+            wrong.append(f"trigger: expected one of {sorted(TRIGGERS)}, got {self.trigger!r}")
+        if not self.targets or any(b <= a for a, b in
+                                   pairwise(self.targets)) or \
+                self.targets[0] <= 0:
+            wrong.append(f"targets: expected positive increasing values, got {self.targets}")
+        elif self.trigger == "events" and any(t != int(t) for t in self.targets):
+            wrong.append(f"targets: expected whole numbers of events, got {self.targets}")
+        if len(self.efficacy) != self.looks or len(self.futility) != self.looks:
+            wrong.append(f"efficacy, futility: expected {self.looks} values each, got "
+                         f"{len(self.efficacy)} and {len(self.futility)}")
+        elif self.efficacy[-1] is None:
+            wrong.append("efficacy: expected a final success threshold, got None")
+        if self.max_enrolment < 1:
+            wrong.append(f"max_enrolment: expected at least 1, got {self.max_enrolment}")
+        a = self.accrual
+        if a.arrivals not in ARRIVALS:
+            wrong.append(f"accrual.arrivals: expected one of {sorted(ARRIVALS)}, got "
+                         f"{a.arrivals!r}")
+        elif a.arrivals == "fixed" and (len(a.times) < self.max_enrolment or any(
+                y < x for x, y in pairwise(a.times)) or min(a.times) < 0):
+            wrong.append(f"accrual.times: expected at least {self.max_enrolment} "
+                         f"non-negative non-decreasing times, got {a.times}")
+        elif a.arrivals != "fixed" and (not a.rates or any(not r > 0 for r in a.rates)
+                                        or len(a.rates) != len(a.starts)):
+            wrong.append(f"accrual.rates: expected one positive rate per start, got "
+                         f"{a.rates} for starts {a.starts}")
+        if not self.dropout_hazard >= 0:
+            wrong.append(f"dropout_hazard: expected 0 or more, got {self.dropout_hazard}")
+        if self.allocation and (len(self.allocation) != self.arms
+                                or any(not w > 0 for w in self.allocation)):
+            wrong.append(f"allocation: expected {self.arms} positive weights, got "
+                         f"{self.allocation}")
+        return wrong
+
+    def duration_edges(self) -> np.ndarray:
+        """Bin edges of the duration histogram (:mod:`octrial.simulation.calendar`)."""
+        conduct = Conduct(self.accrual, self.max_enrolment)
+        return duration_edges(SimpleNamespace(conduct=conduct))
+
+
+def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
+    """The setup of a time-to-event design at true hazards ``truth`` (one per arm):
+    gamma-mixture priors, looks at event counts or calendar times. An endpoint with
+    hazard periods (``starts`` and ``relative_hazard``: each arm's hazard is its
+    ``truth`` times the period's relative hazard) is simulated piecewise, analysed per
+    period with the arm's prior on each, and decided on the first period's hazard ratio
+    (two arms); one arm with several periods decides on a landmark survival, which this
+    kernel does not compute (``ValueError``)."""
+    conduct = design.conduct
+    if conduct is None:
+        raise ValueError("an event-driven design needs a [conduct] table")
+    arms = design.arms
+    h = design.hypothesis
+    looks = design.looks
+    endpoint = design.endpoint
+    starts = tuple(float(x) for x in getattr(endpoint, "starts", (0.0,)))
+    shape = tuple(float(x) for x in getattr(endpoint, "relative_hazard", (1.0,)))
+    if len(starts) > 1 and len(arms) == 1:
+        raise ValueError("one arm with several hazard periods decides on a landmark "
+                         "survival, which the patient-level kernel does not compute")
+    benchmark = getattr(h, "benchmark", None)
+    claim = (benchmark if benchmark is not None else h.null_value) if len(arms) == 1 \
+        else h.threshold
+    # looks at event counts are read into n; calendar-time looks carry their times in at
+    trigger = "time" if looks.trigger == "time" else "events"
+    targets = tuple(float(t) for t in (looks.at if looks.trigger in TRIGGERS and looks.at
+                                       else looks.n))
+
+    def per_period(values: Any) -> tuple[tuple[float, ...], ...]:
+        return (tuple(float(x) for x in values),) * len(starts)
+
+    return EventDrivenSetup(
+        hazards=tuple(tuple(float(t) * r for r in shape) for t in truth),
+        claim=float(claim),
+        efficacy=tuple(looks.efficacy), futility=tuple(looks.futility),
+        targets=targets, accrual=conduct.accrual, max_enrolment=conduct.max_enrolment,
+        prior_a=tuple(per_period(arm.prior.a) for arm in arms),
+        prior_b=tuple(per_period(arm.prior.b) for arm in arms),
+        prior_weights=tuple(per_period(arm.prior.weights) for arm in arms),
+        hazard_starts=starts, analysis_starts=starts,
+        lower_better=h.better == "lower", trigger=trigger,
+        dropout_hazard=float(conduct.dropout_hazard),
+        allocation=tuple(float(a.allocation) for a in arms))
+
+
+class PatientLevelSimulator(Simulator):
+    """Studies of one :class:`EventDrivenSetup`, every subject simulated."""
 
     kernel = "event-driven"
 
-    def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
-        conduct = design.conduct
-        if conduct is None:
-            raise ValueError("an event-driven design needs a [conduct] table")
-        self.design = design
-        self.looks = design.looks.count
-        accrual = conduct.accrual
-        self.m = conduct.max_enrolment
+    def __init__(self, setup: EventDrivenSetup) -> None:
+        self.setup = s = setup
+        self.looks = s.looks
+        accrual = s.accrual
         self.kind = ARRIVALS[accrual.arrivals]
         self.rates = np.asarray(accrual.rates or (1.0,), dtype=float)
         self.starts = np.asarray(accrual.starts or (0.0,), dtype=float)
         self.times = np.asarray(accrual.times or (0.0,), dtype=float)
-        self.pattern = allocation_pattern(tuple(a.allocation for a in design.arms))
-        self.hazards = np.asarray(truth, dtype=float)
-        self.dropout = float(conduct.dropout_hazard)
-        self.targets = np.asarray(design.looks.n, dtype=np.int64)
-        arms = len(design.arms)
-        width = max(len(a.prior.weights) for a in design.arms)
-        self.log_w = np.full((arms, width), -np.inf)
-        self.a = np.ones((arms, width))
-        self.b = np.ones((arms, width))
-        for j, arm in enumerate(design.arms):
-            p = arm.prior
-            size = len(p.weights)
-            self.log_w[j, :size] = np.log(np.asarray(p.weights, dtype=float))
-            self.a[j, :size], self.b[j, :size] = p.a, p.b
-        h = design.hypothesis
-        self.claim = h.null_value if arms == 1 else h.threshold
-        self.lower = h.better == "lower"
-        efficacy, futility, _, self.tolerance = Rule.of(design.looks).arrays()
-        self.efficacy = np.asarray(efficacy, dtype=float)
-        self.futility = np.asarray(futility, dtype=float)
-        self.edges = duration_edges(design)
+        self.pattern = allocation_pattern(s.allocation or (1.0,) * s.arms)
+        self.hazards = np.asarray(s.hazards, dtype=float)
+        self.hazard_starts = np.asarray(s.hazard_starts, dtype=float)
+        self.analysis_starts = np.asarray(s.analysis_starts, dtype=float)
+        # the decision piece's prior, arms padded to the widest mixture with components
+        # of weight 0 (log weight -inf), which the posterior skips
+        p = s.decision_piece
+        width = max(len(arm[p]) for arm in s.prior_a)
+        self.a = np.ones((s.arms, width))
+        self.b = np.ones((s.arms, width))
+        self.log_w = np.full((s.arms, width), -np.inf)
+        for j in range(s.arms):
+            size = len(s.prior_a[j][p])
+            weights = (np.ones(size) if s.prior_weights is None else
+                       np.asarray(s.prior_weights[j][p], dtype=float))
+            self.a[j, :size] = s.prior_a[j][p]
+            self.b[j, :size] = s.prior_b[j][p]
+            self.log_w[j, :size] = np.log(weights / weights.sum())
+        self.targets = np.asarray(s.targets, dtype=float)
+        self.efficacy = np.asarray(_nan(s.efficacy))
+        self.futility = np.asarray(_nan(s.futility))
+        self.edges = s.duration_edges()
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         calendar = np.zeros(calendar_size(self.looks))
-        done = 0
-        while done < replicates:
-            size = min(CHUNK, replicates - done)
-            arrivals = rng.standard_exponential((size, self.m))
-            events = rng.standard_exponential((size, self.m))
-            losses = rng.standard_exponential((size, self.m))
-            event_driven_studies(
-                arrivals, events, losses, self.kind, self.rates, self.starts, self.times,
-                self.pattern, self.hazards, self.dropout, self.targets, self.log_w, self.a,
-                self.b, self.claim, self.lower, self.efficacy, self.futility,
-                self.tolerance, self.edges, efficacy, futility, calendar)
-            done += size
+        s = self.setup
+        patient_level_studies(
+            rng, replicates, s.max_enrolment, self.kind, self.rates, self.starts,
+            self.times, self.pattern, self.hazards, self.hazard_starts, s.dropout_hazard,
+            TRIGGERS[s.trigger], self.targets, self.analysis_starts, s.decision_piece,
+            self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
+            self.futility, DECISION_TOLERANCE, self.edges, efficacy, futility, calendar)
         return Tally(replicates, efficacy, futility, calendar=calendar)
+
+    def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
+        """One study's subjects, all ``max_enrolment`` of them, from the random numbers
+        one study of :meth:`simulate` draws: ``enrolled`` (calendar time), ``arm``,
+        ``follow`` (time from enrolment to the event or the loss, whichever is first)
+        and ``seen`` (whether it is the event)."""
+        m = self.setup.max_enrolment
+        out = {"enrolled": np.empty(m), "arm": np.empty(m, dtype=np.int64),
+               "follow": np.empty(m), "seen": np.empty(m, dtype=np.bool_)}
+        draw_subjects(rng, self.kind, self.rates, self.starts, self.times, self.pattern,
+                      self.hazards, self.hazard_starts, self.setup.dropout_hazard,
+                      np.empty(m), out["enrolled"], out["arm"], out["follow"], out["seen"])
+        return out
+
+
+class EventDrivenSimulator(PatientLevelSimulator):
+    """Studies of a time-to-event design at the true hazards ``truth`` (one per arm)."""
+
+    def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
+        self.design = design
+        super().__init__(setup_of_design(design, truth))
 
 
 @numba.njit(cache=True)
@@ -213,52 +444,208 @@ def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: n
     return below if lower else 1.0 - below
 
 
+@numba.njit(cache=True, inline="always")
+def piecewise_time(unit: float, hazards: np.ndarray, starts: np.ndarray) -> float:
+    """The time whose cumulative hazard is ``unit`` (a standard exponential): the inverse
+    cdf of the piecewise-exponential distribution with ``hazards`` from ``starts``."""
+    left = unit
+    last = hazards.size - 1
+    for p in range(last):
+        room = hazards[p] * (starts[p + 1] - starts[p])  # cumulative hazard of piece p
+        if left <= room:
+            return starts[p] + left / hazards[p]
+        left -= room
+    return starts[last] + left / hazards[last]
+
+
 @numba.njit(cache=True)
-def event_driven_studies(
-    arrivals: np.ndarray, unit_events: np.ndarray, unit_losses: np.ndarray, kind: int,
-    rates: np.ndarray, starts: np.ndarray, times: np.ndarray, pattern: np.ndarray,
-    hazards: np.ndarray, dropout: float, targets: np.ndarray, log_w: np.ndarray,
-    a: np.ndarray, b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray,
-    futility: np.ndarray, tol: float, edges: np.ndarray, stop_efficacy: np.ndarray,
-    stop_futility: np.ndarray, calendar: np.ndarray,
+def draw_subjects(rng: Any, kind: int, rates: np.ndarray, starts: np.ndarray,
+                  times: np.ndarray, pattern: np.ndarray, hazards: np.ndarray,
+                  hazard_starts: np.ndarray, dropout: float, gaps: np.ndarray,
+                  enrolled: np.ndarray, arm_of: np.ndarray, follow: np.ndarray,
+                  seen: np.ndarray) -> float:
+    """One study's subjects, in the order of the module docstring; returns the calendar
+    time at which every follow-up has ended."""
+    m = enrolled.size
+    if kind == 0:
+        for i in range(m):
+            gaps[i] = rng.standard_exponential()
+    enrolment_times(gaps, kind, rates, starts, times, enrolled)
+    resolved = 0.0
+    for i in range(m):
+        j = pattern[i % pattern.size]
+        arm_of[i] = j
+        t_event = piecewise_time(rng.standard_exponential(), hazards[j], hazard_starts)
+        t_loss = rng.standard_exponential() / dropout if dropout > 0.0 else np.inf
+        seen[i] = t_event <= t_loss
+        follow[i] = t_event if seen[i] else t_loss
+        resolved = max(resolved, enrolled[i] + follow[i])
+    return resolved
+
+
+@numba.njit(cache=True)
+def piece_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
+                     arm_of: np.ndarray, tau: float, starts: np.ndarray,
+                     events: np.ndarray, exposure: np.ndarray) -> int:
+    """Each arm's events and exposure in each analysis piece (rows: arms, columns:
+    pieces of ``starts``) at the analysis at calendar time ``tau``; returns the subjects
+    enrolled by then (``enrolled`` non-decreasing, as enrolment times are)."""
+    events[:] = 0.0
+    exposure[:] = 0.0
+    pieces = starts.size
+    entered = 0
+    for i in range(enrolled.size):
+        if enrolled[i] > tau:
+            break  # enrolment times are non-decreasing
+        entered += 1
+        j = arm_of[i]
+        # compared in calendar time, as the event times were, so the event at tau counts
+        ended = enrolled[i] + follow[i] <= tau
+        f = follow[i] if ended else tau - enrolled[i]
+        if pieces == 1:
+            # arithmetic rather than branches: whether a subject has ended is a coin
+            # toss the processor cannot predict
+            exposure[j, 0] += f
+            events[j, 0] += 1.0 * (ended & seen[i])
+            continue
+        for p in range(pieces):
+            if f <= starts[p]:
+                break
+            end = starts[p + 1] if p + 1 < pieces else np.inf
+            exposure[j, p] += min(f, end) - starts[p]
+            if ended and seen[i] and f <= end:
+                events[j, p] += 1.0
+    return entered
+
+
+@numba.njit(cache=True)
+def select_rank(values: np.ndarray, lo: int, hi: int, k: int) -> float:
+    """The value of rank ``k`` (0-based) of ``values[lo:hi]``, rearranging that slice so
+    that everything before position ``k`` is at most it and everything after at least it
+    (Hoare's selection with a median-of-three pivot: linear time on average, where a
+    sort of the event times is n log n and was most of the kernel's time)."""
+    while hi - lo > 1:
+        mid = (lo + hi - 1) // 2
+        a, b, c = values[lo], values[mid], values[hi - 1]
+        pivot = max(min(a, b), min(max(a, b), c))
+        i, j = lo, hi - 1
+        while i <= j:
+            while values[i] < pivot:
+                i += 1
+            while values[j] > pivot:
+                j -= 1
+            if i <= j:
+                values[i], values[j] = values[j], values[i]
+                i += 1
+                j -= 1
+        if k <= j:
+            hi = j + 1
+        elif k >= i:
+            lo = i
+        else:
+            return values[k]
+    return values[k]
+
+
+BUCKETS = 256
+"""Buckets of the event times' distribution pass (:func:`ranked_times`)."""
+
+
+@numba.njit(cache=True)
+def ranked_times(values: np.ndarray, count: int, ranks: np.ndarray, top: float,
+                 tally: np.ndarray, scattered: np.ndarray, out: np.ndarray) -> None:
+    """The values of the 0-based ``ranks`` (increasing, each below ``count``) of
+    ``values[:count]`` (all in [0, ``top``]), into ``out``: a distribution pass into
+    equal-width buckets (the bucket index is non-decreasing in the value, so the order
+    between buckets is exact), then a selection inside the bucket holding each rank (a
+    few values). The same numbers as a sort, in two linear passes where a selection on
+    the whole array spends most of its time on mispredicted branches."""
+    buckets = tally.size - 1
+    scale = buckets / top if top > 0.0 else 0.0
+    tally[:] = 0
+    for i in range(count):
+        tally[min(int(values[i] * scale), buckets - 1) + 1] += 1
+    for b in range(buckets):  # tally[b] becomes the start of bucket b
+        tally[b + 1] += tally[b]
+    for i in range(count):
+        b = min(int(values[i] * scale), buckets - 1)
+        scattered[tally[b]] = values[i]
+        tally[b] += 1
+    # now tally[b] is the end of bucket b (the start of bucket b + 1)
+    b = 0
+    for k in range(ranks.size):
+        r = ranks[k]
+        while tally[b] <= r:
+            b += 1
+        start = tally[b - 1] if b > 0 else 0
+        out[k] = select_rank(scattered, start, tally[b], r)
+
+
+@numba.njit(cache=True)
+def patient_level_studies(
+    rng: Any, studies: int, m: int, kind: int, rates: np.ndarray, starts: np.ndarray,
+    times: np.ndarray, pattern: np.ndarray, hazards: np.ndarray,
+    hazard_starts: np.ndarray, dropout: float, trigger: int, targets: np.ndarray,
+    analysis_starts: np.ndarray, piece: int, log_w: np.ndarray, a: np.ndarray,
+    b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
+    tol: float, edges: np.ndarray, stop_efficacy: np.ndarray, stop_futility: np.ndarray,
+    calendar: np.ndarray,
 ) -> None:
-    """Simulate ``arrivals.shape[0]`` studies, adding their stops and calendar totals."""
-    studies, m = arrivals.shape
+    """Simulate ``studies`` studies, adding their stops and calendar totals."""
     looks = targets.size
-    arms = hazards.size
+    arms = hazards.shape[0]
+    pieces = analysis_starts.size
+    gaps = np.empty(m)
     enrolled = np.empty(m)
     arm_of = np.empty(m, dtype=np.int64)
-    follow = np.empty(m)  # time from enrolment to the event or loss, whichever is first
-    seen = np.empty(m, dtype=np.bool_)  # whether that is the event
+    follow = np.empty(m)
+    seen = np.empty(m, dtype=np.bool_)
     event_times = np.empty(m)
-    events = np.zeros(arms)
-    exposure = np.zeros(arms)
-    for s in range(studies):
-        enrolment_times(arrivals[s], kind, rates, starts, times, enrolled)
+    scattered = np.empty(m)
+    tally = np.zeros(BUCKETS + 1, dtype=np.int64)
+    ranks = np.empty(looks, dtype=np.int64)
+    for k in range(looks):
+        ranks[k] = int(targets[k]) - 1 if trigger == 0 else 0
+    taus = np.empty(looks)
+    events = np.zeros((arms, pieces))
+    exposure = np.zeros((arms, pieces))
+    d = np.zeros(arms)
+    e = np.zeros(arms)
+    for _ in range(studies):
+        resolved = draw_subjects(rng, kind, rates, starts, times, pattern, hazards,
+                                 hazard_starts, dropout, gaps, enrolled, arm_of, follow,
+                                 seen)
         count = 0
-        resolved = 0.0
-        for i in range(m):
-            j = pattern[i % pattern.size]
-            arm_of[i] = j
-            follow[i], seen[i] = follow_up(unit_events[s, i], unit_losses[s, i], hazards[j],
-                                           dropout)
-            resolved = max(resolved, enrolled[i] + follow[i])
-            if seen[i]:
-                event_times[count] = enrolled[i] + follow[i]
-                count += 1
-        ordered = np.sort(event_times[:count])
+        reached = 0  # looks whose event target is reached
+        if trigger == 0:
+            top = 0.0
+            for i in range(m):
+                if seen[i]:
+                    event_times[count] = enrolled[i] + follow[i]
+                    top = max(top, event_times[count])
+                    count += 1
+            while reached < looks and targets[reached] <= count:
+                reached += 1
+            ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
         for k in range(looks):
-            if targets[k] <= count:
-                tau = ordered[targets[k] - 1]
-                final = k == looks - 1
+            final = k == looks - 1
+            if trigger == 1:
+                tau = targets[k]
+            elif k < reached:
+                tau = taus[k]
             else:  # the events run out: the analysis when every follow-up has ended
                 tau = resolved
                 final = True
-            entered = arm_statistics(enrolled, follow, seen, arm_of, tau, events, exposure)
-            benefit = benefit_at(events, exposure, log_w, a, b, claim, lower)
+            entered = piece_statistics(enrolled, follow, seen, arm_of, tau,
+                                       analysis_starts, events, exposure)
+            for j in range(arms):
+                d[j] = events[j, piece]
+                e[j] = exposure[j, piece]
+            benefit = benefit_at(d, e, log_w, a, b, claim, lower)
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
-            record_study(calendar, edges, k, tau, entered, events.sum(), code != CONTINUE)
+            record_study(calendar, edges, k, tau, entered, events.sum(),
+                         code != CONTINUE)
             if code == EFFICACY:
                 stop_efficacy[k] += 1
                 break
