@@ -243,3 +243,24 @@ def test_interrupted_run_resumes_with_its_calendar_totals(tmp_path):
     assert resumed.info["scenarios_resumed"] == 1
     for name, values in whole.extra.items():
         assert np.array_equal(values, resumed.extra[name], equal_nan=True), name
+
+
+def test_normal_design_in_calendar_time_against_the_exact_normal_engine():
+    # lag 6, even accrual, looks by n: each look's data are the design's, so the exact
+    # known-variance recursion (no [conduct]) gives the stopping probabilities
+    from octrial.engines.exact_normal import NormalRecursionEngine
+
+    design = load_design("designs/two-arm-continuous-score.toml")
+    design = dataclasses.replace(design, looks=dataclasses.replace(
+        design.looks, futility_predictive=(None,) * design.looks.count))
+    timed = _with(design, lag=6.0)
+    truths = np.asarray(design.scenarios.values, dtype=float)[:3]
+    r = 20_000
+    mc = MonteCarloEngine.run(timed, truths, settings=MonteCarloSettings(replicates=r,
+                                                                         seed=8))
+    exact = NormalRecursionEngine.run(design, truths)
+    for got, want in ((mc.efficacy, exact.efficacy), (mc.futility, exact.futility)):
+        se = np.sqrt(want * (1 - want) / r)
+        assert np.all(np.abs(got - want) <= Z * se + 1e-9)
+    n = np.asarray(design.looks.n, dtype=float)
+    assert mc.extra["look1_time"][0] == pytest.approx(n[0] / 5.0 + 6.0)

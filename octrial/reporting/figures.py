@@ -487,7 +487,7 @@ def duration_and_enrolment(data: Any, facts: PlotFacts) -> Figure | None:
         right.set_ylabel("expected subjects")
         left.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
         right.legend(loc="lower left", frameon=True, framealpha=0.9, edgecolor="0.8")
-    caption = ("Left: the study's duration from the first enrolment to the final analysis "
+    caption = ("Left: the study's duration from the start of enrolment to the final analysis "
                "(line: mean; bars: 10% to 90% of the simulated studies, from the median). "
                "Right: expected subjects enrolled when enrolment stops (filled) and "
                "subjects in the final analysis (open).")

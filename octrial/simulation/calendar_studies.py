@@ -10,12 +10,15 @@ is met when the last outcome is observed. At a look the decision uses the subjec
 an outcome, through the family's protocol (:meth:`~octrial.endpoints.base.Family.draw_statistics`,
 ``benefit_at``, ``predictive_at``), called once per group of studies with equal counts.
 
-A stop stops enrolment. With ``analyse_pipeline`` the outcomes of subjects enrolled
-but not yet observed at a stop for efficacy are drawn and analysed with the final
-threshold; when that analysis fails, the stop counts as reversed. Every stop still counts
+A stop stops enrolment. With ``analyse_pipeline`` a study that stops at an interim look
+waits for the outcomes of its pipeline (subjects enrolled, not lost, not yet observed):
+its duration ends at the last of them and its analysed subjects include them. After a
+stop for efficacy those outcomes are drawn and the final analysis applies the final
+success threshold; when it fails, the stop counts as reversed. Every stop still counts
 at the look where it happened (the per-look efficacy and futility columns are the
-decisions taken at the looks). The duration of a study that analyses its pipeline ends
-at the last pipeline outcome; otherwise at the look where the study ended.
+decisions taken at the looks). Without ``analyse_pipeline`` a study ends at the look
+where it stops. Study durations count from time 0, the start of the first accrual
+period.
 
 The predictive probability at an interim look assumes the final look's planned counts
 (``looks.per_arm[-1]``, see :func:`octrial.conduct.reader.planned_counts`) and ignores
