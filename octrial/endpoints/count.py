@@ -191,6 +191,24 @@ def predictive_pmf(post: GammaPosterior, exposure: float, size: int) -> np.ndarr
     return out
 
 
+def read_rate_prior(table: Table, prior_schema: schema.PriorSchema, why: str) -> Any:
+    """A prior on a rate (or hazard) read through ``prior_schema``, with historical events
+    in an exposure borrowed by a power prior or robust mixture (gamma priors only: ``why``
+    says so in the message)."""
+    kind, prior = schema.read_distribution(table, prior_schema)
+    if kind is None:
+        return None
+    spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
+    if spec is None or prior is None:
+        return prior
+    if not isinstance(prior, GammaMixture):
+        table.fail("borrowing", f"a gamma or gamma-mixture initial prior ({why})",
+                   Phrase(f"a {kind} prior"))
+        return None
+    x0, t0 = spec["historical"]["events"], spec["historical"]["exposure"]
+    return borrow_mixture(prior, update, t0, x0, spec, x0 / t0)
+
+
 class CountFamily(GridModel, LatticeFamily):
     """Event counts with exposure; exact on the (truncated) count lattice."""
 
@@ -246,18 +264,8 @@ class CountFamily(GridModel, LatticeFamily):
         return CountEndpoint("count", exposure or 1.0, model or "poisson", dispersion)
 
     def read_prior(self, table: Table) -> GammaMixture | LogNormalRate | None:
-        kind, prior = schema.read_distribution(table, self.prior_schema)
-        if kind is None:
-            return None
-        spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
-        if spec is None or prior is None:
-            return prior
-        if not isinstance(prior, GammaMixture):
-            table.fail("borrowing", "a gamma or gamma-mixture initial prior (borrowing stays "
-                       "conjugate only for those)", Phrase(f"a {kind} prior"))
-            return None
-        x0, t0 = spec["historical"]["events"], spec["historical"]["exposure"]
-        return borrow_mixture(prior, update, t0, x0, spec, x0 / t0)
+        return read_rate_prior(table, self.prior_schema, "borrowing stays conjugate only "
+                                                         "for those")
 
     def true_value_problem(self, value: float) -> str | None:
         return None if value > 0 and math.isfinite(value) else "a rate > 0"

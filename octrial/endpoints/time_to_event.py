@@ -44,8 +44,7 @@ import octrial.endpoints.schema as schema
 from octrial.design.reader import Phrase, Problems, Table
 from octrial.endpoints import survival_maths as sm
 from octrial.endpoints.base import Family
-from octrial.endpoints.borrowing import borrow_mixture, read_borrowing
-from octrial.endpoints.count import GammaMixture, update
+from octrial.endpoints.count import GammaMixture, read_rate_prior, update
 from octrial.endpoints.normal import NormalFamily, NormalMixture, benefit_components
 
 if TYPE_CHECKING:
@@ -202,18 +201,7 @@ class TimeToEventFamily(Family):
                                    landmark, analysis, unit)
 
     def read_prior(self, table: Table) -> Any:
-        kind, prior = schema.read_distribution(table, self.prior_schema)
-        if kind is None:
-            return None
-        spec = read_borrowing(table, {"events": "count", "exposure": "positive"})
-        if spec is None or prior is None:
-            return prior
-        if not isinstance(prior, GammaMixture):
-            table.fail("borrowing", "a gamma or gamma-mixture initial prior (borrowing on "
-                       "the hazard)", Phrase(f"a {kind} prior"))
-            return None
-        x0, t0 = spec["historical"]["events"], spec["historical"]["exposure"]
-        return borrow_mixture(prior, update, t0, x0, spec, x0 / t0)
+        return read_rate_prior(table, self.prior_schema, "borrowing on the hazard")
 
     def true_value_problem(self, value: float) -> str | None:
         return None if value > 0 and math.isfinite(value) else "a hazard > 0"
@@ -254,6 +242,40 @@ class TimeToEventFamily(Family):
                     problems.add(f"{where}.{key}.distribution", "'gamma' or "
                                  "'gamma-mixture' (a prior on the hazard)",
                                  Phrase(f"a {type(prior).__name__} prior"))
+        self._check_conduct(parts, problems)
+
+    @staticmethod
+    def _check_conduct(parts: dict[str, Any], problems: Problems) -> None:
+        """``[conduct]`` against the looks: events are the outcome (no lag, no pipeline
+        analysis), and the final number of events must be within reach."""
+        conduct, looks = parts.get("conduct"), parts.get("looks")
+        if conduct is None or looks is None:
+            return
+        if conduct.lag != 0:
+            problems.add("conduct.outcome_lag", "no outcome lag for time-to-event endpoints "
+                         "(the event time is the outcome)", conduct.lag)
+        if conduct.analyse_pipeline:
+            problems.add("conduct.analyse_pipeline", "false: analysing the pipeline after a "
+                         "stop is not built for time-to-event endpoints yet", True)
+        if looks.trigger != "events":
+            return
+        final = looks.n[-1]
+        if final > conduct.max_enrolment:
+            problems.add("looks.events", f"event counts that {conduct.max_enrolment} "
+                         "subjects (conduct.max_enrolment) can reach: each subject has at "
+                         "most one event", list(looks.n))
+            return
+        scenarios = parts.get("scenarios")
+        if conduct.dropout_hazard > 0 and scenarios is not None and len(scenarios):
+            # the largest first-period hazard of any arm in any scenario
+            fastest = max(max(row) for row in scenarios.values)
+            reach = conduct.max_enrolment * fastest / (fastest + conduct.dropout_hazard)
+            if final > reach:
+                problems.add("looks.events", f"a final event count the study can reach: at "
+                             f"most {reach:.1f} events are expected from "
+                             f"{conduct.max_enrolment} subjects at the largest scenario "
+                             f"hazard ({fastest:g}) with dropout hazard "
+                             f"{conduct.dropout_hazard:g}", final)
 
     # -- hypotheses ------------------------------------------------------------------
     def convert_benchmark(self, endpoint: Any, value: float) -> tuple[float, str | None]:
