@@ -248,18 +248,22 @@ def test_power_at_schoenfeld_and_freedman_event_counts() -> None:
 
 
 def test_jobs_do_not_change_the_numbers(tmp_path: Any) -> None:
-    # Reproducibility: one seed, the same oc.csv whatever --jobs.
+    # Reproducibility: one seed, the same oc.csv whatever --jobs or backend.
     path = tmp_path / "design.toml"
     path.write_text(_toml(build_data(ONE_ARM, replicates=3000)))
     runs = []
-    for jobs in ("1", "2"):
-        out = tmp_path / f"out{jobs}"
-        result = CliRunner().invoke(main, ["run", str(path), "--out", str(out), "--jobs", jobs,
+    # the scenarios are spread over the workers
+    for name, options in (("one", ["--jobs", "1"]), ("two", ["--jobs", "2"]),
+                          ("dask", ["--jobs", "2", "--backend", "dask"])):
+        if name == "dask":
+            pytest.importorskip("distributed")
+        out = tmp_path / name
+        result = CliRunner().invoke(main, ["run", str(path), "--out", str(out), *options,
                                            "--quiet"])
         assert result.exit_code == 0, result.output
         runs.append((out / "oc.csv").read_text())
-    assert runs[0] == runs[1]
-    oc = pd.read_csv(tmp_path / "out1" / "oc.csv")
+    assert runs[0] == runs[1] == runs[2]
+    oc = pd.read_csv(tmp_path / "one" / "oc.csv")
     assert {"expected_duration", "duration_q50", "look2_time", "look2_events"} <= set(oc)
 
 
