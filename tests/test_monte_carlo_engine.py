@@ -289,3 +289,32 @@ def test_progress_bar_draws_on_a_terminal_only() -> None:
     bar.advance()
     bar.close()
     assert quiet.getvalue() == ""
+
+
+def test_one_large_scenario_is_split_over_workers_with_the_same_numbers(monkeypatch) -> None:
+    # A scenario of many batches runs as several tasks of BATCHES_PER_TASK batches (so
+    # workers share it); every count equals the unsplit run's (each batch's generator
+    # depends on (seed, scenario, batch) only), float sums agree to rounding, and the
+    # result is bit-identical whatever --jobs (the split never depends on it).
+    from octrial.engines import monte_carlo
+    from octrial.engines.monte_carlo import MonteCarloEngine, ScenarioTask, _tasks
+
+    design = build(ONE_ARM)
+    truths = np.array(design.scenarios.values)
+    settings = MonteCarloSettings(replicates=5500, seed=8, batch_size=500, kernel="general")
+    tasks = _tasks(ScenarioTask(0, (0.3,), design, None, None,
+                                monte_carlo.dataclasses.replace(settings, seed=8)))
+    assert [t.batches for t in tasks] == [(0, 4), (4, 4), (8, 3)]
+    assert sum(sum(t.sizes()) for t in tasks) == 5500
+    assert len({str(t.identity()) for t in tasks}) == 3
+    one = MonteCarloEngine.run(design, truths, settings=settings, execution=Execution(jobs=1))
+    two = MonteCarloEngine.run(design, truths, settings=settings, execution=Execution(jobs=2))
+    for a, b in ((one.efficacy, two.efficacy), (one.futility, two.futility),
+                 (one.estimation.error_moments, two.estimation.error_moments)):
+        assert np.array_equal(a, b)
+    monkeypatch.setattr(monte_carlo, "BATCHES_PER_TASK", 10**9)
+    whole = MonteCarloEngine.run(design, truths, settings=settings, execution=Execution(jobs=1))
+    assert np.array_equal(one.efficacy, whole.efficacy)
+    assert np.array_equal(one.futility, whole.futility)
+    np.testing.assert_allclose(one.estimation.error_moments, whole.estimation.error_moments,
+                               rtol=1e-12, atol=1e-15)

@@ -101,16 +101,30 @@ class ScenarioTask:
     plan: LatticePlan | None
     estimates: LatticeEstimates | None
     settings: MonteCarloSettings
+    batches: tuple[int, int] | None = None
+    """``(first, count)``: only these batches of the scenario (a scenario split over
+    workers, :data:`BATCHES_PER_TASK`); ``None``: every batch."""
 
     def identity(self) -> dict[str, Any]:
-        """What this scenario's checkpoint records (every batch of the scenario)."""
+        """What this task's checkpoint records (its scenario and batches)."""
+        batch = "all" if self.batches is None else (
+            f"{self.batches[0]}-{self.batches[0] + self.batches[1] - 1}")
         return {"design_sha256": self.design.source.sha256, "seed": self.settings.seed,
-                "scenario": self.index, "batch": "all", "kernel": self.settings.kernel}
+                "scenario": self.index, "batch": batch, "kernel": self.settings.kernel}
+
+    def sizes(self) -> list[int]:
+        """Studies in each of this task's batches (fixed replicates only)."""
+        replicates, size = self.settings.replicates, self.settings.batch_size
+        assert replicates is not None and self.batches is not None
+        first, count = self.batches
+        return [min(size, replicates - b * size) for b in range(first, first + count)]
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this scenario's saved result."""
         settings = self.settings
-        if settings.target_se is None:
+        if self.batches is not None:
+            wrong = tally_problems(arrays, self.design.looks.count, sum(self.sizes()))
+        elif settings.target_se is None:
             wrong = tally_problems(arrays, self.design.looks.count, settings.replicates)
         else:
             wrong = tally_problems(arrays, self.design.looks.count,
@@ -155,6 +169,12 @@ def simulate_scenario(task: ScenarioTask) -> dict[str, np.ndarray]:
     assert seed is not None  # the engine settles the seed before any task runs
     simulator = make_simulator(task)
     tally: Tally | None = None
+    if task.batches is not None:
+        for b, size in enumerate(task.sizes(), start=task.batches[0]):
+            part = simulator.simulate(batch_generator(seed, task.index, b), size)
+            tally = part if tally is None else tally + part
+        assert tally is not None  # a task holds at least one batch
+        return tally.to_arrays()
     batch = 0
     while True:
         done = 0 if tally is None else tally.replicates
@@ -224,10 +244,44 @@ class MonteCarloEngine:
             rule = build_rule(design, truths=truths) if rule is None else rule
             estimates = lattice_estimates(design)
             plan = lattice_plan(design, rule, estimates)
-        tasks = [ScenarioTask(i, tuple(float(v) for v in t), design, plan, estimates, settings)
-                 for i, t in enumerate(truths)]
+        tasks = [task for i, t in enumerate(truths) for task in _tasks(
+            ScenarioTask(i, tuple(float(v) for v in t), design, plan, estimates, settings))]
         results, resumed = run_grid(simulate_scenario, tasks, execution, store)
-        return _outcome(design, settings, results, drawn, resumed)
+        return _outcome(design, settings, _per_scenario(tasks, results), drawn, resumed)
+
+
+BATCHES_PER_TASK = 4
+"""A scenario with more batches than this (fixed replicates) is split into tasks of this
+many batches, so that workers share one large scenario. The split depends on the settings
+only, never on ``--jobs``, so the numbers do not either."""
+
+
+def _tasks(task: ScenarioTask) -> list[ScenarioTask]:
+    """``task``, or its batches split into tasks of :data:`BATCHES_PER_TASK`."""
+    settings = task.settings
+    if settings.target_se is not None or settings.replicates is None:
+        return [task]
+    batches = -(-settings.replicates // settings.batch_size)
+    if batches <= BATCHES_PER_TASK:
+        return [task]
+    return [dataclasses.replace(task, batches=(first, min(BATCHES_PER_TASK, batches - first)))
+            for first in range(0, batches, BATCHES_PER_TASK)]
+
+
+def _per_scenario(tasks: list[ScenarioTask],
+                  results: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """One result per scenario: the tallies of a split scenario's tasks added in batch
+    order."""
+    merged: dict[int, Tally] = {}
+    whole: dict[int, dict[str, Any]] = {}
+    for task, result in zip(tasks, results, strict=True):
+        if task.batches is None:
+            whole[task.index] = result
+            continue
+        part = Tally.from_arrays(result)
+        merged[task.index] = part if task.index not in merged else merged[task.index] + part
+    return [whole[i] if i in whole else merged[i].to_arrays()
+            for i in sorted({t.index for t in tasks})]
 
 
 def _kernel(design: Design, wanted: str) -> str:
