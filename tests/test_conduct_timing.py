@@ -17,6 +17,7 @@ from octrial.simulation.base import Tally, tally_problems
 from octrial.simulation.calendar import (
     calendar_columns,
     calendar_size,
+    count_edges,
     duration_edges,
     record_studies,
     record_study,
@@ -74,14 +75,15 @@ def test_batch_record_equals_study_by_study():
     times = np.sort(rng.uniform(0, 30, (studies, looks)), axis=1)
     stop = rng.integers(0, looks, studies)
     times[np.arange(looks)[None, :] > stop[:, None]] = np.nan
+    counts = count_edges(design)
     batch = np.zeros(calendar_size(looks))
-    record_studies(batch, edges, duration, enrolled, enrolled, times)
+    record_studies(batch, edges, duration, enrolled, enrolled, times, 0, counts)
     one = np.zeros(calendar_size(looks))
     for s_ in range(studies):
         for k in range(stop[s_] + 1):
             ended = k == stop[s_]
             record_study(one, edges, k, duration[s_] if ended else times[s_, k],
-                         enrolled[s_], 0.0, ended)
+                         enrolled[s_], 0.0, ended, counts)
     # sums agree to rounding (numpy sums pairwise); look counts and histogram exactly
     assert np.allclose(batch[:6], one[:6], rtol=1e-12)
     head = calendar_size(0)
@@ -111,3 +113,22 @@ def test_duration_quantiles_and_means_against_numpy():
     assert columns["expected_duration_se"][0] == pytest.approx(
         duration.std() / 20_000**0.5)
     assert "look1_events" not in columns and "prob_efficacy_reversed" in columns
+
+
+def test_enrolment_quantiles_are_the_discrete_quantiles():
+    # Whole numbers of subjects (at most 1000: one bin each at most): the quantile is the
+    # least count whose cumulative share reaches q, numpy's 'inverted_cdf' quantile.
+    rng = np.random.default_rng(3)
+    design = load_design(DEMO)
+    enrolled = rng.integers(40, design.conduct.max_enrolment + 1, 20_000).astype(float)
+    analysed = np.minimum(enrolled, rng.integers(30, 161, 20_000)).astype(float)
+    calendar = np.zeros(calendar_size(design.looks.count))
+    record_studies(calendar, duration_edges(design), np.full(20_000, 10.0), enrolled,
+                   analysed, np.full((20_000, design.looks.count), np.nan), 0,
+                   count_edges(design))
+    columns = calendar_columns(design, calendar[None, :], np.array([20_000]))
+    for q in (10, 50, 90):
+        assert columns[f"enrolled_q{q}"][0] == np.quantile(enrolled, q / 100,
+                                                           method="inverted_cdf")
+        assert columns[f"analysed_q{q}"][0] == np.quantile(analysed, q / 100,
+                                                           method="inverted_cdf")

@@ -208,11 +208,12 @@ def calendar_extra(design: Design, plan: LookTiming, efficacy: np.ndarray,
     out: dict[str, np.ndarray] = {
         "expected_duration": stops @ d, "expected_duration_se": zeros,
     }
-    for q in (10, 50, 90):
-        out[f"duration_q{q}"] = np.array([duration_quantile(d, row, q / 100)
-                                          for row in stops])
     out.update({"expected_enrolled": stops @ e, "expected_enrolled_se": zeros.copy(),
                 "expected_analysed": stops @ a, "expected_analysed_se": zeros.copy()})
+    for name, atoms in (("duration", d), ("enrolled", e), ("analysed", a)):
+        for q in (10, 50, 90):
+            out[f"{name}_q{q}"] = np.array([duration_quantile(atoms, row, q / 100)
+                                            for row in stops])
     for k, t in enumerate(plan.time):
         out[f"look{k + 1}_time"] = np.where(reach[:, k] > 1e-15, t, np.nan)
     if conduct.analyse_pipeline:

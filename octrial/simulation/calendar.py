@@ -10,13 +10,17 @@ batches add up exactly and a checkpoint saves it as one array. Layout:
 * ``[6]``: studies that stopped for efficacy at an interim look and whose final analysis
   including the pipeline missed the final success threshold (``analyse_pipeline``);
 * ``[7 + 3k : 10 + 3k]``: look k: studies reaching it, sum of its times, sum of its events;
-* the rest: a histogram of the durations on :data:`BINS` log-spaced bins between 1/1000
+* then a histogram of the durations on :data:`BINS` log-spaced bins between 1/1000
   and 1000 times the time the design needs to enrol every subject (the quantiles'
-  resolution: 0.7% of the value; durations outside go to the end bins).
+  resolution: 0.7% of the value; durations outside go to the end bins);
+* then histograms of the subjects enrolled and of those analysed, each on
+  :data:`COUNT_BINS` equal bins over [0, max_enrolment] (one subject per bin up to 1000
+  subjects).
 
 The columns (:func:`calendar_columns`; names fixed in docs/output-files.md):
 ``expected_duration(_se)``, ``duration_q10/q50/q90``, ``expected_enrolled(_se)``,
-``expected_analysed(_se)``, ``look<k>_time``, ``look<k>_events`` (time-to-event) and
+``enrolled_q10/q50/q90``, ``expected_analysed(_se)``, ``analysed_q10/q50/q90``,
+``look<k>_time``, ``look<k>_events`` (time-to-event) and
 ``prob_efficacy_reversed(_se)`` (with ``analyse_pipeline``).
 
 Simulators fill it study by study (:func:`record_study`, in numba loops) or a batch at
@@ -25,12 +29,14 @@ a time (:func:`record_studies`); both add the same totals.
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numba
 import numpy as np
 
 BINS = 2000
+COUNT_BINS = 1000
 SPAN = 1000.0
 HEAD = 7
 REVERSED = 6
@@ -38,7 +44,7 @@ REVERSED = 6
 
 def calendar_size(looks: int) -> int:
     """Length of the calendar vector of a ``looks``-look design."""
-    return HEAD + 3 * looks + BINS
+    return HEAD + 3 * looks + BINS + 2 * COUNT_BINS
 
 
 def duration_edges(design: Any) -> np.ndarray:
@@ -49,11 +55,26 @@ def duration_edges(design: Any) -> np.ndarray:
     return scale * np.logspace(-np.log10(SPAN), np.log10(SPAN), BINS + 1)
 
 
+def count_edges(design: Any) -> np.ndarray:
+    """The bin edges of the enrolled and analysed histograms (module docstring)."""
+    conduct = design.conduct
+    most = conduct.max_enrolment if conduct is not None else 1
+    return np.linspace(0.0, float(most), COUNT_BINS + 1)
+
+
+@numba.njit(cache=True)
+def _bin(edges: np.ndarray, value: float) -> int:
+    at = int(np.searchsorted(edges, value, side="right")) - 1
+    return min(max(at, 0), edges.size - 2)
+
+
 @numba.njit(cache=True)
 def record_study(calendar: np.ndarray, edges: np.ndarray, k: int, time: float,
-                 enrolled: float, events: float, ended: bool) -> None:
+                 enrolled: float, events: float, ended: bool,
+                 counts: np.ndarray) -> None:
     """Add one study's look ``k`` (at ``time``, with ``events`` so far) and, when the
-    study ``ended`` there, its duration and sizes."""
+    study ``ended`` there, its duration and sizes (every enrolled subject analysed;
+    ``counts``: the edges of :func:`count_edges`)."""
     base = HEAD + 3 * k
     calendar[base] += 1.0
     calendar[base + 1] += time
@@ -66,15 +87,15 @@ def record_study(calendar: np.ndarray, edges: np.ndarray, k: int, time: float,
     calendar[3] += enrolled * enrolled
     calendar[4] += enrolled
     calendar[5] += enrolled * enrolled
-    bins = edges.size - 1  # the histogram is the vector's last part
-    at = int(np.searchsorted(edges, time, side="right")) - 1
-    at = min(max(at, 0), bins - 1)
-    calendar[calendar.size - bins + at] += 1.0
+    start = calendar.size - 2 * COUNT_BINS - BINS  # the histograms end the vector
+    calendar[start + _bin(edges, time)] += 1.0
+    calendar[start + BINS + _bin(counts, enrolled)] += 1.0
+    calendar[start + BINS + COUNT_BINS + _bin(counts, enrolled)] += 1.0
 
 
 def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray,
                    enrolled: np.ndarray, analysed: np.ndarray, look_times: np.ndarray,
-                   reversed_: int = 0) -> None:
+                   reversed_: int = 0, counts: np.ndarray | None = None) -> None:
     """Add a batch of studies: per study its duration, subjects enrolled and analysed,
     and each look's time (shape ``(studies, looks)``, NaN where the study ended before
     the look); ``reversed_`` efficacy stops the pipeline reversed. Events stay 0."""
@@ -88,9 +109,15 @@ def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray
     looks = look_times.shape[1]
     calendar[HEAD:HEAD + 3 * looks:3] += reached.sum(axis=0)
     calendar[HEAD + 1:HEAD + 3 * looks:3] += np.where(reached, look_times, 0.0).sum(axis=0)
-    bins = edges.size - 1
-    at = np.clip(np.searchsorted(edges, duration, side="right") - 1, 0, bins - 1)
-    calendar[calendar.size - bins:] += np.bincount(at, minlength=bins)
+    start = calendar.size - 2 * COUNT_BINS - BINS
+    at = np.clip(np.searchsorted(edges, duration, side="right") - 1, 0, BINS - 1)
+    calendar[start:start + BINS] += np.bincount(at, minlength=BINS)
+    if counts is None:
+        counts = np.linspace(0.0, max(float(enrolled.max(initial=1.0)), 1.0), COUNT_BINS + 1)
+    for offset, values in ((BINS, enrolled), (BINS + COUNT_BINS, analysed)):
+        at = np.clip(np.searchsorted(counts, values, side="right") - 1, 0, COUNT_BINS - 1)
+        calendar[start + offset:start + offset + COUNT_BINS] += np.bincount(
+            at, minlength=COUNT_BINS)
 
 
 def calendar_columns(design: Any, calendars: np.ndarray,
@@ -99,17 +126,20 @@ def calendar_columns(design: Any, calendars: np.ndarray,
     looks = design.looks.count
     r = replicates.astype(float)
     edges = duration_edges(design)
+    counts = count_edges(design)
     out: dict[str, np.ndarray] = {}
     for name, first in (("duration", 0), ("enrolled", 2), ("analysed", 4)):
         mean = calendars[:, first] / r
         variance = np.maximum(calendars[:, first + 1] / r - mean**2, 0.0)
         out[f"expected_{name}"] = mean
         out[f"expected_{name}_se"] = np.sqrt(variance / r)
-        if name == "duration":
-            hist = calendars[:, HEAD + 3 * looks:]
-            for q in (10, 50, 90):
-                out[f"duration_q{q}"] = np.array([_quantile(row, edges, q / 100)
-                                                   for row in hist])
+        start = HEAD + 3 * looks + {"duration": 0, "enrolled": BINS,
+                                    "analysed": BINS + COUNT_BINS}[name]
+        hist = calendars[:, start:start + (BINS if name == "duration" else COUNT_BINS)]
+        bins, linear = (edges, False) if name == "duration" else (counts, True)
+        for q in (10, 50, 90):
+            out[f"{name}_q{q}"] = np.array([_quantile(row, bins, q / 100, linear)
+                                             for row in hist])
     for k in range(looks):
         reached = calendars[:, HEAD + 3 * k]
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -125,14 +155,18 @@ def calendar_columns(design: Any, calendars: np.ndarray,
     return out
 
 
-def _quantile(counts: np.ndarray, edges: np.ndarray, q: float) -> float:
-    """The q-quantile of a histogram, log-linear within its bin."""
+def _quantile(counts: np.ndarray, edges: np.ndarray, q: float, linear: bool = False) -> float:
+    """The q-quantile of a histogram: log-linear within its bin; on ``linear`` bins of
+    whole numbers (subjects), the least whole number whose cumulative share reaches q
+    when a bin holds at most one (up to 1000 subjects), else linear within the bin."""
     total = counts.sum()
     if total <= 0:
         return float("nan")
     cumulative = np.cumsum(counts) / total
-    at = int(np.searchsorted(cumulative, q, side="left"))
+    at = min(int(np.searchsorted(cumulative, q - 1e-12, side="left")), counts.size - 1)
     below = cumulative[at - 1] if at > 0 else 0.0
     share = (q - below) / (cumulative[at] - below) if cumulative[at] > below else 0.5
-    lo, hi = np.log(edges[at]), np.log(edges[at + 1])
-    return float(np.exp(lo + share * (hi - lo)))
+    lo, hi = edges[at], edges[at + 1]
+    if linear:
+        return float(math.ceil(lo)) if hi - lo <= 1.0 else float(lo + share * (hi - lo))
+    return float(np.exp(np.log(lo) + share * (np.log(hi) - np.log(lo))))

@@ -44,7 +44,12 @@ from octrial.conduct.timing import SLACK, allocation_block, arm_counts
 from octrial.endpoints.base import Family
 from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
 from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.calendar import calendar_size, duration_edges, record_studies
+from octrial.simulation.calendar import (
+    calendar_size,
+    count_edges,
+    duration_edges,
+    record_studies,
+)
 
 CELLS = 2_000_000
 """Most study-by-subject cells held at once under random conduct (memory bound)."""
@@ -109,6 +114,7 @@ class CalendarStudies(Simulator):
         # arm of each subject in enrolment order
         self.arm_of = np.argmax(np.diff(arm_counts(np.arange(m + 1), block), axis=0), axis=1)
         self.edges = duration_edges(design)
+        self.counts = count_edges(design)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         """Simulate ``replicates`` studies with random numbers from ``rng`` only."""
@@ -295,7 +301,7 @@ class CalendarStudies(Simulator):
             before = before[keep]
         calendar = np.zeros(calendar_size(self.looks))
         record_studies(calendar, self.edges, duration, enrolled, analysed, look_times,
-                       reversed_)
+                       reversed_, self.counts)
         if not estimated:
             return Tally(studies, efficacy, futility, calendar=calendar)
         return Tally(studies, efficacy, futility, sums, covered, calendar=calendar)

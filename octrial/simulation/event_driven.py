@@ -45,7 +45,12 @@ import numpy as np
 from octrial.conduct.model import Accrual, Conduct
 from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 from octrial.simulation.base import Simulator, Tally
-from octrial.simulation.calendar import calendar_size, duration_edges, record_study
+from octrial.simulation.calendar import (
+    calendar_size,
+    count_edges,
+    duration_edges,
+    record_study,
+)
 from octrial.simulation.special import betainc, gammainc_pair
 
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
@@ -224,6 +229,10 @@ class EventDrivenSetup:
         conduct = Conduct(self.accrual, self.max_enrolment)
         return duration_edges(SimpleNamespace(conduct=conduct))
 
+    def count_edges(self) -> np.ndarray:
+        """Bin edges of the enrolled and analysed histograms."""
+        return count_edges(SimpleNamespace(conduct=Conduct(self.accrual, self.max_enrolment)))
+
 
 def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     """The setup of a time-to-event design at true hazards ``truth`` (one per arm):
@@ -305,6 +314,7 @@ class PatientLevelSimulator(Simulator):
         self.efficacy = np.asarray(_nan(s.efficacy))
         self.futility = np.asarray(_nan(s.futility))
         self.edges = s.duration_edges()
+        self.counts = s.count_edges()
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         efficacy = np.zeros(self.looks, dtype=np.int64)
@@ -316,7 +326,8 @@ class PatientLevelSimulator(Simulator):
             self.times, self.pattern, self.hazards, self.hazard_starts, s.dropout_hazard,
             TRIGGERS[s.trigger], self.targets, self.analysis_starts, s.decision_piece,
             self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
-            self.futility, DECISION_TOLERANCE, self.edges, efficacy, futility, calendar)
+            self.futility, DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility,
+            calendar)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -588,8 +599,8 @@ def patient_level_studies(
     hazard_starts: np.ndarray, dropout: float, trigger: int, targets: np.ndarray,
     analysis_starts: np.ndarray, piece: int, log_w: np.ndarray, a: np.ndarray,
     b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
-    tol: float, edges: np.ndarray, stop_efficacy: np.ndarray, stop_futility: np.ndarray,
-    calendar: np.ndarray,
+    tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
+    stop_futility: np.ndarray, calendar: np.ndarray,
 ) -> None:
     """Simulate ``studies`` studies, adding their stops and calendar totals."""
     looks = targets.size
@@ -645,7 +656,7 @@ def patient_level_studies(
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
             record_study(calendar, edges, k, tau, entered, events.sum(),
-                         code != CONTINUE)
+                         code != CONTINUE, counts)
             if code == EFFICACY:
                 stop_efficacy[k] += 1
                 break
