@@ -1,9 +1,11 @@
 """Operating characteristics of a several-arm design by simulation.
 
-One seed in: ``SeedSequence(seed).spawn`` gives each scenario its stream and each fixed
-batch of :data:`BATCH` studies its own seed, so how the work is split never changes a
-number. The table this returns has the study-level columns of oc.csv and, per treatment
-arm ``<arm>``, columns named ``<arm>_<quantity>`` (docs/multi-arm.md):
+One seed in: scenario i's batch b of :data:`BATCH` studies uses the Monte Carlo
+engine's generator (:func:`octrial.engines.monte_carlo.batch_generator`), so how the
+work is split never changes a number, and a design with one treatment arm draws the
+very words the two-arm engine draws. The table this returns has the study-level
+columns of oc.csv and, per treatment arm ``<arm>``, columns named ``<arm>_<quantity>``
+(docs/multi-arm.md):
 
 - ``<arm>_is_null``: the arm's true value does not beat the control (benchmark) by the
   margin;
@@ -27,11 +29,14 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from octrial.caution import CAUTION
+from octrial.engines.monte_carlo import batch_generator
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
+from octrial.simulation.draws import DrawTables
 
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
@@ -68,35 +73,42 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
     if seed is None:
         raise ValueError("several-arm simulation needs a seed (simulation.seed)")
     tables = build_tables(design) if tables is None else tables
-    streams = np.random.SeedSequence(seed).spawn(len(design.scenarios.values))
-    rows = [_scenario(design, tables, row, replicates, stream)
-            for row, stream in zip(design.scenarios.values, streams, strict=True)]
+    rows = [_scenario(design, tables, row, replicates, seed, i)
+            for i, row in enumerate(design.scenarios.values)]
     for i, r in enumerate(rows):
         r["scenario"] = i + 1
     return pd.DataFrame(rows)
 
 
 def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, ...],
-              replicates: int, stream: np.random.SeedSequence) -> dict[str, object]:
+              replicates: int, seed: int, index: int) -> dict[str, object]:
     T, K = tables.decision.shape[:2]
     A = tables.increments.shape[1]
     success = np.zeros(T, np.int64)
     eff = np.zeros((T, K), np.int64)
     fut = np.zeros((T, K), np.int64)
     drop = np.zeros((T, K), np.int64)
-    n_arm = np.zeros(A, np.int64)
+    n_slot = np.zeros(A, np.int64)
     scalars = np.zeros(7)
     end = np.zeros((2, K), np.int64)
     nulls = arm_nulls(design, row)
     best = truly_best(design, row)
     sign = 1 if design.hypothesis.better == "higher" else -1
-    batches = -(-replicates // BATCH)
-    for b, child in enumerate(stream.spawn(batches)):
+    # slot order: treatments, then the control (the two-arm kernel's arm order)
+    order = np.roll(np.arange(A), -1) if design.shared_control else np.arange(A)
+    truth = np.asarray(row, dtype=float)[order]
+    increments = np.ascontiguousarray(tables.increments[:, order])
+    draws = DrawTables.from_pmfs([stats.binom.pmf(np.arange(m + 1), m, p)
+                                  for k in range(K) for m, p in zip(increments[k], truth,
+                                                                    strict=True)])
+    for b in range(-(-replicates // BATCH)):
         reps = min(BATCH, replicates - b * BATCH)
-        simulate(int(child.generate_state(1)[0]), reps, np.asarray(row, dtype=float),
-                 tables.increments, tables.decision, tables.mean, tables.cdf,
+        rng = batch_generator(seed, index, b)
+        words = rng.bit_generator.random_raw(reps * K * A).reshape(reps, K, A)
+        simulate(words, truth, increments, tables.decision, tables.mean, tables.cdf,
                  tables.drop_below, tables.keep, tables.control, sign, nulls, best,
-                 success, eff, fut, drop, n_arm, scalars, end)
+                 success, eff, fut, drop, n_slot, scalars, end, *draws.arrays())
+    n_arm = n_slot[np.argsort(order)]
     r = float(replicates)
     out: dict[str, object] = {"scenario": None}
     for name, value in zip(design.arm_names, row, strict=True):
@@ -110,8 +122,9 @@ def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, 
     out["fwer_se"] = float(np.sqrt(fwer * (1 - fwer) / r))
     out["prob_select_best"] = scalars[5] / r
     out["selected_bias"] = scalars[6] / scalars[4] if scalars[4] > 0 else float("nan")
-    out["prob_stop_efficacy"] = float(end[0, :-1].sum()) / r
-    out["prob_stop_futility"] = float(end[1, :-1].sum()) / r
+    # summed as the two-arm table sums them (results.py), so one arm gives its bits
+    out["prob_stop_efficacy"] = float((end[0, :-1] / r).sum())
+    out["prob_stop_futility"] = float((end[1, :-1] / r).sum())
     mean_n = scalars[0] / r
     out["expected_n"] = mean_n
     out["sd_n"] = float(np.sqrt(max(scalars[1] / r - mean_n**2, 0.0)))

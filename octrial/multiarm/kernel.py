@@ -14,6 +14,7 @@ import numba
 import numpy as np
 
 from octrial.multiarm.best import best_probabilities
+from octrial.simulation.draws import draw
 
 CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
 
@@ -23,10 +24,17 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 
 
 @numba.njit(cache=True)
-def simulate(seed, reps, truth, increments, decision, mean, cdf, drop_below, keep,
+def simulate(words, truth, increments, decision, mean, cdf, drop_below, keep,
              control, sign, is_null, is_best, out_success, out_eff, out_fut, out_drop, out_n,
-             out_scalars, out_end):
-    """Simulate ``reps`` studies at true rates ``truth`` (arms as in ``increments``).
+             out_scalars, out_end, bounds, t_start, t_length, guide, guide_start, shift):
+    """Simulate ``len(words)`` studies at true rates ``truth``.
+
+    Arms are in slot order: the treatment arms, then the control (when there is one),
+    as in ``truth`` and ``increments``. ``words`` has shape (studies, looks, arms): one
+    random 64-bit word per arm and look, used by arm ``a`` at look ``k`` through draw
+    table ``k * arms + a`` (:mod:`octrial.simulation.draws`) whether or not the arm still
+    enrols, so each arm's data do not depend on the others' fate; with one treatment
+    arm the words and tables are those of the two-arm table kernel.
 
     Counts are added into the ``out_*`` arrays: per treatment arm successes (T),
     efficacy / futility / drop stops per look (T, K), subjects per arm (A), look at
@@ -36,10 +44,9 @@ def simulate(seed, reps, truth, increments, decision, mean, cdf, drop_below, kee
     selected arm is the successful arm with the best posterior mean at its decision
     (``sign`` +1: highest, -1: lowest).
     """
-    np.random.seed(seed)
+    reps = words.shape[0]
     K, A = increments.shape
     T = decision.shape[0]
-    off = 1 if control else 0
     needs_best = cdf.shape[0] > 0
     x = np.zeros(A, np.int64)
     active = np.zeros(T, np.bool_)
@@ -47,33 +54,31 @@ def simulate(seed, reps, truth, increments, decision, mean, cdf, drop_below, kee
     estimate = np.zeros(T)
     probs = np.zeros(T)
     cdfs = np.zeros((T, cdf.shape[3] if needs_best else 1))
-    for _ in range(reps):
+    for r in range(reps):
         x[:] = 0
         active[:] = True
         success[:] = False
         n_total = 0
         end = K - 1
         for k in range(K):
-            if control:
-                x[0] += np.random.binomial(increments[k, 0], truth[0])
-                n_total += increments[k, 0]
-                out_n[0] += increments[k, 0]
-            for t in range(T):
-                if active[t]:
-                    m = increments[k, off + t]
-                    x[off + t] += np.random.binomial(m, truth[off + t])
-                    n_total += m
-                    out_n[off + t] += m
-            c = x[0] if control else 0
+            for a in range(A):
+                y = draw(words[r, k, a], k * A + a, bounds, t_start, t_length, guide,
+                         guide_start, shift)
+                if a < T and not active[a]:
+                    continue
+                x[a] += y
+                n_total += increments[k, a]
+                out_n[a] += increments[k, a]
+            c = x[T] if control else 0
             left = 0
             for t in range(T):
                 if not active[t]:
                     continue
-                code = decision[t, k, x[off + t], c]
+                code = decision[t, k, x[t], c]
                 if code == EFFICACY:
                     active[t] = False
                     success[t] = True
-                    estimate[t] = mean[t, k, x[off + t]]
+                    estimate[t] = mean[t, k, x[t]]
                     out_eff[t, k] += 1
                 elif code == FUTILITY:
                     active[t] = False
@@ -83,7 +88,7 @@ def simulate(seed, reps, truth, increments, decision, mean, cdf, drop_below, kee
             if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
                 for t in range(T):
                     if active[t]:
-                        cdfs[t, :] = cdf[t, k, x[off + t], :]
+                        cdfs[t, :] = cdf[t, k, x[t], :]
                 best_probabilities(cdfs, active, probs)
                 if drop_below[k] >= 0:
                     for t in range(T):
@@ -127,4 +132,4 @@ def simulate(seed, reps, truth, increments, decision, mean, cdf, drop_below, kee
             out_scalars[4] += 1
             if is_best[chosen]:
                 out_scalars[5] += 1
-            out_scalars[6] += estimate[chosen] - truth[off + chosen]
+            out_scalars[6] += estimate[chosen] - truth[chosen]
