@@ -306,3 +306,19 @@ def test_kernel_agrees_study_by_study_with_a_scipy_reference():
         assert round(oc[f"{name}_expected_n"] * reps) == n[t]
     assert round(oc["control_expected_n"] * reps) == n[3]
     assert dropped.sum() > 0
+
+
+def test_partial_null_error_counts_only_null_arms_and_selection_is_biased_upwards():
+    # partial null: only 'low' is null (0.2 = control), so a family-wise error is exactly
+    # a success of 'low' (identity); and the selected arm's estimate is biased upwards
+    # under the global null (selecting the largest estimate: Bauer, Koenig, Brannath &
+    # Posch 2010, 'Selection and bias - two hostile brothers', Statistics in Medicine;
+    # recalled from memory)
+    data = design_data()
+    data["scenarios"] = {"control": [0.2, 0.2], "low": [0.2, 0.2], "mid": [0.4, 0.2],
+                         "high": [0.45, 0.2]}
+    oc = simulate_design(parse(data), replicates=20_000)
+    partial, null = oc.iloc[0], oc.iloc[1]
+    assert partial["low_is_null"] and not partial["mid_is_null"]
+    assert partial["fwer"] == partial["low_prob_success"]
+    assert null["selected_bias"] > 0
