@@ -30,7 +30,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from octrial.caution import CAUTION
 from octrial.engines.monte_carlo import batch_generator
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
@@ -40,7 +39,7 @@ from octrial.simulation.draws import DrawTables
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
 
-__all__ = ["BATCH", "CAUTION", "arm_nulls", "simulate_design"]
+__all__ = ["BATCH", "arm_nulls", "simulate_design", "truly_best"]
 
 
 def arm_nulls(design: MultiArmDesign, row: tuple[float, ...]) -> np.ndarray:
