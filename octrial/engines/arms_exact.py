@@ -1,0 +1,264 @@
+"""Exact operating characteristics of several treatment arms with fixed allocation.
+
+Each treatment arm is judged by its own rule against a shared control (or against a
+benchmark): the two-arm (or one-arm) design of that arm alone, whose lattice tables
+(:func:`~octrial.rules.lattice.build_rule`) say where the arm stops for efficacy or is
+dropped for futility at each look. With fixed allocation and such per-arm rules the
+arms are linked only through the shared control, so given the control's path of counts
+(x_C at every look) each treatment arm is an independent one-dimensional programme, and
+the arms are independent of one another. The engine therefore walks the tree of control
+paths look by look, carrying for every path its probability and each arm's conditional
+distribution of counts on the paths where that arm is still in the study; joint
+quantities (the family-wise error, Pr(at least one arm succeeds), the control's sample
+size) are products over arms within a path, summed over paths. The control stops when
+every treatment arm has stopped.
+
+The number of control paths is the product over looks of the control's increment
+sizes plus one, so the engine is for small studies (it refuses more than
+:data:`MAX_PATHS` paths); against a benchmark there is one path and any number of arms
+and subjects is cheap. Rules that couple the arms (dropping when Pr(best) is low,
+selection, response-adaptive allocation) are outside it: they need the joint lattice or
+simulation.
+
+With one treatment arm the walk is the two-arm programme of
+:mod:`octrial.engines.lattice_programme` summed in another order (equal to rounding).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from octrial.design.model import Design
+from octrial.engines.lattice_programme import add_increment
+from octrial.rules.lattice import LatticeCache, LatticeRule, build_rule
+
+__all__ = ["MAX_PATHS", "ArmsOutcome", "check_pairs", "run_arms"]
+
+MAX_PATHS = 2_000_000
+"""Largest number of control paths (nodes of the last look) the engine will walk."""
+
+
+@dataclass(frozen=True, eq=False)
+class ArmsOutcome:
+    """Exact operating characteristics of a several-arm study, one row per scenario.
+
+    Attributes
+    ----------
+    efficacy, futility : ndarray, shape (scenarios, arms, looks)
+        Pr(treatment arm j stops for efficacy / is dropped for futility at look k); at the
+        last look, Pr(the arm succeeds / fails at the final analysis).
+    successes : ndarray, shape (scenarios, arms + 1)
+        Pr(exactly r treatment arms succeed), r = 0 .. arms.
+    family_wise : ndarray, shape (scenarios,)
+        Pr(at least one null arm succeeds): the family-wise error rate (0 where no arm is
+        null).
+    null : ndarray of bool, shape (scenarios, arms)
+        Which arms lie in the null region of their own comparison (boundary included).
+    reach : ndarray, shape (scenarios, looks)
+        Pr(the study reaches look k): at least one treatment arm still in it.
+    expected_n : ndarray, shape (scenarios, arms + 1)
+        Expected subjects per treatment arm, then the control (0 against a benchmark).
+    neglected : ndarray, shape (scenarios,)
+        Probability mass dropped by truncating an unbounded count (0 for binary data).
+    """
+
+    efficacy: np.ndarray
+    futility: np.ndarray
+    successes: np.ndarray
+    family_wise: np.ndarray
+    null: np.ndarray
+    reach: np.ndarray
+    expected_n: np.ndarray
+    neglected: np.ndarray
+
+    @property
+    def success(self) -> np.ndarray:
+        """Pr(treatment arm j succeeds), shape (scenarios, arms)."""
+        return self.efficacy.sum(axis=2)
+
+    @property
+    def any_success(self) -> np.ndarray:
+        """Pr(at least one treatment arm succeeds): the study's success."""
+        return 1.0 - self.successes[:, 0]
+
+    def table(self, names: Sequence[str]) -> pd.DataFrame:
+        """One row per scenario; per-arm columns named ``<quantity>_<arm name>``."""
+        cols: dict[str, np.ndarray] = {
+            "prob_any_success": self.any_success,
+            "family_wise_error": self.family_wise,
+        }
+        for j, name in enumerate(names):
+            cols[f"prob_success_{name}"] = self.success[:, j]
+            cols[f"expected_n_{name}"] = self.expected_n[:, j]
+            for k in range(self.efficacy.shape[2] - 1):
+                cols[f"prob_efficacy_{name}_look{k + 1}"] = self.efficacy[:, j, k]
+                cols[f"prob_drop_{name}_look{k + 1}"] = self.futility[:, j, k]
+        cols["expected_n_control"] = self.expected_n[:, -1]
+        cols["expected_n_total"] = self.expected_n.sum(axis=1)
+        return pd.DataFrame(cols)
+
+
+def check_pairs(pairs: Sequence[Design]) -> bool:
+    """Check that ``pairs`` describe one study; return whether it has a shared control.
+
+    Every pair is the design of one treatment arm alone: two arms (the treatment, then the
+    shared control) or one arm against a benchmark. Pairs with a control must give it the
+    same prior and the same sample size at every look.
+    """
+    if not pairs:
+        raise ValueError("at least one treatment arm is needed")
+    arms = {len(p.arms) for p in pairs}
+    if len(arms) != 1 or arms - {1, 2}:
+        raise ValueError("every arm's design must have the same number of arms, one "
+                         "(against a benchmark) or two (treatment, then the shared control)")
+    looks = {p.looks.count for p in pairs}
+    if len(looks) != 1:
+        raise ValueError("every arm's design must have the same number of looks")
+    if any(p.family.name != pairs[0].family.name or not p.family.lattice for p in pairs):
+        raise ValueError("every arm must have the same endpoint family, one with a lattice")
+    shared = arms == {2}
+    if shared:
+        first = pairs[0]
+        for p in pairs[1:]:
+            if p.arms[1].prior != first.arms[1].prior:
+                raise ValueError("the shared control must have the same prior in every "
+                                 "arm's design")
+            if tuple(n[1] for n in p.looks.per_arm) != tuple(n[1] for n in first.looks.per_arm):
+                raise ValueError("the shared control must have the same sample size at "
+                                 "every look in every arm's design")
+    return shared
+
+
+def run_arms(pairs: Sequence[Design], truths: np.ndarray,
+             rules: Sequence[LatticeRule] | None = None,
+             caches: Sequence[LatticeCache] | None = None) -> ArmsOutcome:
+    """Exact operating characteristics at every row of ``truths``.
+
+    Parameters
+    ----------
+    pairs : sequence of Design
+        Each treatment arm's own design (see :func:`check_pairs`).
+    truths : ndarray, shape (scenarios, arms) or (scenarios, arms + 1)
+        True values of the treatment arms, then (with a shared control) of the control.
+    rules : sequence of LatticeRule, optional
+        The pairs' lattice rules, when already built (they are rebuilt if their truncated
+        lattice cannot serve ``truths``).
+    caches : sequence of LatticeCache, optional
+        Posterior tables to share with other calls (calibration).
+    """
+    shared = check_pairs(pairs)
+    truths = np.atleast_2d(np.asarray(truths, dtype=float))
+    n_arms = len(pairs)
+    if truths.shape[1] != n_arms + shared:
+        raise ValueError(f"truths need {n_arms + shared} columns, got {truths.shape[1]}")
+    rows = [_pair_truths(truths, j, shared) for j in range(n_arms)]
+    built = []
+    for j, pair in enumerate(pairs):
+        rule = None if rules is None else rules[j]
+        if rule is None or not rule.covers(rows[j]):
+            cache = None if caches is None else caches[j]
+            rule = build_rule(pair, cache, truths=rows[j])
+        built.append(rule)
+    results = [_one_truth(pairs, built, t, shared) for t in truths]
+    return ArmsOutcome(*(np.array([r[i] for r in results]) for i in range(8)))
+
+
+def _pair_truths(truths: np.ndarray, j: int, shared: bool) -> np.ndarray:
+    return truths[:, [j, -1]] if shared else truths[:, [j]]
+
+
+def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.ndarray,
+               shared: bool) -> tuple:
+    family = pairs[0].family
+    n_arms, n_looks = len(pairs), pairs[0].looks.count
+    null = np.array([family.is_null(p.hypothesis, tuple(_pair_truths(truth[None], j, shared)[0]))
+                     for j, p in enumerate(pairs)])
+    # Masks as (arm points, control points); against a benchmark the control axis has one point.
+    efficacy_masks = [[t.efficacy if shared else t.efficacy[:, None] for t in r.looks]
+                      for r in rules]
+    futility_masks = [[t.futility if shared else t.futility[:, None] for t in r.looks]
+                      for r in rules]
+    control_size = [min(m[k].shape[1] for m in efficacy_masks) for k in range(n_looks)]
+    weight = np.ones(1)
+    control = np.zeros(1, dtype=np.int64)
+    dist = [np.ones((1, 1)) for _ in range(n_arms)]
+    won = np.zeros((1, n_arms))
+    eff, fut = np.zeros((n_arms, n_looks)), np.zeros((n_arms, n_looks))
+    successes, family_wise = np.zeros(n_arms + 1), 0.0
+    reach, arm_n, control_n = np.zeros(n_looks), np.zeros(n_arms), 0.0
+    neglected = 0.0
+    previous = [(0, 0)] * n_arms
+    for k in range(n_looks):
+        alive = np.stack([d.sum(axis=1) for d in dist], axis=1)  # (paths, arms)
+        reach[k] = weight @ (1.0 - np.prod(1.0 - alive, axis=1))
+        sizes = [p.looks.per_arm[k] for p in pairs]
+        for j in range(n_arms):
+            arm_n[j] += (weight @ alive[:, j]) * (sizes[j][0] - previous[j][0])
+        if shared:
+            control_n += reach[k] * (sizes[0][1] - previous[0][1])
+        # each arm's own increment, the same on every control path
+        new_dist = []
+        for j, pair in enumerate(pairs):
+            size = efficacy_masks[j][k].shape[0]
+            pmf = family.increment_pmf(pair, truth[j], sizes[j][0] - previous[j][0], size)
+            moved = add_increment(dist[j], pmf, 1, size)
+            if family.truncates:
+                lost = dist[j].sum(axis=1) - moved.sum(axis=1)
+                neglected += weight @ np.clip(lost, 0.0, None)
+            new_dist.append(moved)
+        # the control's increment multiplies the paths
+        if shared:
+            pmf = family.increment_pmf(pairs[0], truth[-1], sizes[0][1] - previous[0][1],
+                                       control_size[k])
+        else:
+            pmf = np.ones(1)
+        steps = np.arange(pmf.size)
+        paths = weight.size * pmf.size
+        if paths > MAX_PATHS:
+            raise ValueError(f"the exact several-arm engine would follow {paths} control "
+                             f"paths (at most {MAX_PATHS}); use simulation")
+        new_control = (control[:, None] + steps[None, :]).ravel()
+        new_weight = (weight[:, None] * pmf[None, :]).ravel()
+        keep = (new_control < control_size[k]) & (new_weight > 0)
+        neglected += new_weight[new_control >= control_size[k]].sum()
+        origin = np.repeat(np.arange(weight.size), pmf.size)[keep]
+        control, weight = new_control[keep], new_weight[keep]
+        won = won[origin]
+        dist = [d[origin] for d in new_dist]
+        for j in range(n_arms):
+            # mask rows gathered at each path's control count: (paths, arm points)
+            e = efficacy_masks[j][k][:, control].T
+            f = futility_masks[j][k][:, control].T
+            e_mass = np.where(e, dist[j], 0.0).sum(axis=1)
+            f_mass = np.where(f & ~e, dist[j], 0.0).sum(axis=1)
+            eff[j, k] += weight @ e_mass
+            fut[j, k] += weight @ f_mass
+            won[:, j] += e_mass
+            dist[j] = np.where(e | f, 0.0, dist[j])
+        previous = sizes
+        # paths on which every arm has stopped are finished: tally their joint outcomes
+        still = np.stack([d.sum(axis=1) for d in dist], axis=1).max(axis=1) > 0
+        done = ~still if k < n_looks - 1 else np.ones(weight.size, dtype=bool)
+        if done.any():
+            successes += weight[done] @ _count_distribution(won[done])
+            family_wise += weight[done] @ (1.0 - np.prod(1.0 - won[done][:, null], axis=1))
+            control, weight, won = control[still], weight[still], won[still]
+            dist = [d[still] for d in dist]
+    expected_n = np.append(arm_n, control_n)
+    return eff, fut, successes, family_wise, null, reach, expected_n, neglected
+
+
+def _count_distribution(won: np.ndarray) -> np.ndarray:
+    """Pr(exactly r arms succeed) per path from independent per-arm probabilities
+    (the Poisson-binomial recursion), shape (paths, arms + 1)."""
+    out = np.zeros((won.shape[0], won.shape[1] + 1))
+    out[:, 0] = 1.0
+    for j in range(won.shape[1]):
+        p = won[:, j : j + 1]
+        out[:, 1:] = out[:, 1:] * (1.0 - p) + out[:, :-1] * p
+        out[:, 0] *= 1.0 - p[:, 0]
+    return out
