@@ -225,6 +225,8 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
         new_weight = (weight[:, None] * pmf[None, :]).ravel()
         keep = (new_control < control_size[k]) & (new_weight > 0)
         neglected += new_weight[new_control >= control_size[k]].sum()
+        if family.truncates:
+            neglected += weight.sum() * max(1.0 - pmf.sum(), 0.0)
         origin = np.repeat(np.arange(weight.size), pmf.size)[keep]
         control, weight = new_control[keep], new_weight[keep]
         won = won[origin]
