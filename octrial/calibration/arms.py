@@ -1,0 +1,166 @@
+"""Calibration of the per-arm final success threshold of a several-arm study.
+
+Every treatment arm succeeds at the final analysis when its posterior probability of
+benefit reaches one common threshold; the search finds the smallest threshold whose
+family-wise error rate (Pr(at least one null arm succeeds)), or whose largest per-arm
+type I error, stays at or below ``alpha`` at every point of a null grid, evaluated by the
+exact several-arm engine (:mod:`octrial.engines.arms_exact`).
+
+Why the global null is the worst case. With per-arm rules and fixed allocation a null
+arm's success depends on its own data and the shared control only, and Pr(success)
+rises with the arm's true value (monotone rules); so the family-wise error is largest
+with every arm null and on its null boundary, at some control value. The grid is
+therefore a line over the control value (:func:`global_null`); against a benchmark it is
+the single point of every arm at its benchmark.
+
+For discrete data Pr(success) is a step function of the threshold: the candidates are
+the distinct posterior probabilities at the final look's lattice points (METHODS.md,
+'Calibration of thresholds'), searched by bisection, which assumes the error falls as
+the threshold rises (it does for posterior thresholds; with a predictive futility rule
+the chosen threshold is re-evaluated and reported as found).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pandas as pd
+
+from octrial.design.model import Design
+from octrial.engines.arms_exact import ArmsOutcome, check_pairs, run_arms
+from octrial.rules.lattice import LatticeCache, build_rule
+
+__all__ = ["TARGETS", "ArmsCalibration", "calibrate_arms", "global_null", "with_threshold"]
+
+TARGETS = ("family-wise", "per-arm")
+"""What the threshold controls: the family-wise error rate, or the largest per-arm type
+I error."""
+
+
+@dataclass(frozen=True, eq=False)
+class ArmsCalibration:
+    """The calibrated threshold and how it was found.
+
+    Attributes
+    ----------
+    threshold : float or None
+        Smallest final threshold meeting the target (``None``: no candidate does).
+    error : float
+        The controlled error at ``threshold`` (largest over the null grid).
+    worst : ndarray
+        The null point where that largest error occurs (treatment arms, then the control).
+    pairs : tuple of Design
+        Each arm's design with the calibrated threshold.
+    log : DataFrame
+        Every threshold examined: ``threshold``, ``error``.
+    """
+
+    threshold: float | None
+    error: float
+    worst: np.ndarray
+    pairs: tuple[Design, ...]
+    log: pd.DataFrame
+
+
+def with_threshold(design: Design, threshold: float) -> Design:
+    """``design`` with its final efficacy (success) threshold replaced."""
+    looks = design.looks
+    return replace(design, looks=replace(looks, efficacy=(*looks.efficacy[:-1], threshold)))
+
+
+def global_null(pairs: Sequence[Design], control: Sequence[float]) -> np.ndarray:
+    """Null points with every treatment arm on its null boundary.
+
+    With a shared control (a difference comparison), one row per control value: each arm
+    at the control value moved by its hypothesis' shift in the better direction.
+    Against a benchmark, the single row of every arm at its benchmark.
+    """
+    if not check_pairs(pairs):
+        return np.array([[float(p.hypothesis.benchmark) for p in pairs]])
+    if any(p.hypothesis.comparison != "difference" for p in pairs):
+        raise ValueError("global_null builds difference comparisons only; give the null "
+                         "points explicitly")
+    rows = [[c + p.hypothesis.sign * p.hypothesis.shift for p in pairs] + [c] for c in control]
+    out = np.array(rows, dtype=float)
+    inside = np.all((out > 0.0) & (out < 1.0), axis=1) if pairs[0].family.name == "binary" \
+        else np.all(out > 0.0, axis=1)
+    return out[inside]
+
+
+def controlled_error(outcome: ArmsOutcome, target: str) -> np.ndarray:
+    """Per null point, the error the target controls."""
+    if target == "family-wise":
+        return outcome.family_wise
+    return np.where(outcome.null, outcome.success, 0.0).max(axis=1)
+
+
+def calibrate_arms(pairs: Sequence[Design], alpha: float, nulls: np.ndarray, *,
+                   target: str = "family-wise", floor: float = 0.5) -> ArmsCalibration:
+    """Smallest common final threshold keeping the target error at or below ``alpha``.
+
+    Parameters
+    ----------
+    pairs : sequence of Design
+        Each treatment arm's design (see :func:`~octrial.engines.arms_exact.check_pairs`);
+        their interim thresholds are kept.
+    alpha : float
+        The largest error allowed, in (0, 1).
+    nulls : ndarray, shape (points, columns)
+        Null points to search (for example :func:`global_null`).
+    target : {'family-wise', 'per-arm'}
+    floor : float
+        Smallest threshold considered.
+    """
+    if target not in TARGETS:
+        raise ValueError(f"target: expected one of {', '.join(TARGETS)}; got {target!r}")
+    if not 0.0 < alpha < 1.0:
+        raise ValueError(f"alpha: expected a number in (0, 1); got {alpha}")
+    nulls = np.atleast_2d(np.asarray(nulls, dtype=float))
+    check_pairs(pairs)
+    caches = [LatticeCache() for _ in pairs]
+    candidates = _candidates(pairs, caches, floor)
+    log: list[tuple[float, float]] = []
+
+    def evaluate(threshold: float) -> tuple[float, np.ndarray, tuple[Design, ...]]:
+        designs = tuple(with_threshold(p, threshold) for p in pairs)
+        outcome = run_arms(designs, nulls, caches=caches)
+        errors = controlled_error(outcome, target)
+        worst = int(np.argmax(errors))
+        log.append((threshold, float(errors[worst])))
+        return float(errors[worst]), nulls[worst], designs
+
+    # bisection over the sorted candidates: lo fails (or is below them all), hi passes
+    lo, hi = -1, len(candidates) - 1
+    error, worst, designs = evaluate(candidates[hi])
+    if error > alpha:
+        return ArmsCalibration(None, error, worst, designs, _log(log))
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if evaluate(candidates[mid])[0] <= alpha:
+            hi = mid
+        else:
+            lo = mid
+    error, worst, designs = evaluate(candidates[hi])
+    return ArmsCalibration(float(candidates[hi]), error, worst, designs, _log(log))
+
+
+def _candidates(pairs: Sequence[Design], caches: Sequence[LatticeCache],
+                floor: float) -> np.ndarray:
+    """Distinct final-look posterior probabilities of every arm, at or above ``floor``."""
+    values = []
+    for pair, cache in zip(pairs, caches, strict=True):
+        benefit = build_rule(pair, cache).final.benefit
+        if benefit is None:
+            raise ValueError("calibration needs an analysis prior for every arm")
+        values.append(benefit.ravel())
+    found = np.unique(np.concatenate(values))
+    found = found[(found >= floor) & (found <= 1.0)]
+    if found.size == 0:
+        raise ValueError(f"no posterior probability at the final look reaches {floor}")
+    return found
+
+
+def _log(rows: list[tuple[float, float]]) -> pd.DataFrame:
+    return pd.DataFrame(rows, columns=["threshold", "error"]).drop_duplicates()

@@ -1,0 +1,74 @@
+"""Calibration of the per-arm final threshold of several-arm studies.
+
+References: against a benchmark the arms are independent, so the family-wise error is
+1 - prod(1 - alpha_j) (identity) with alpha_j from the one-arm exact engine, and the
+smallest passing threshold is found by scanning every candidate with that engine (no
+bisection, no several-arm engine). With a shared control the family-wise error is at
+least every per-arm error (a union contains each event), so its threshold is at least the
+per-arm one.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from octrial.calibration.arms import calibrate_arms, global_null, with_threshold
+from octrial.engines.arms_exact import run_arms
+from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.rules.lattice import build_rule
+from tests.helpers import ONE_ARM, TWO_ARM, build
+
+
+def one_arm_error(design, threshold: float) -> float:
+    changed = with_threshold(design, threshold)
+    truth = np.array([[changed.hypothesis.benchmark]])
+    return float(ExactLatticeEngine.run(changed, truth, estimate=False).efficacy.sum())
+
+
+@pytest.mark.parametrize("target, arms", [("family-wise", 3), ("per-arm", 3)])
+def test_benchmark_arms_against_one_arm_scan(target, arms):
+    design = build(ONE_ARM, looks__n=[10, 20], looks__efficacy=[0.999, 0.95],
+                   looks__futility=0.05)
+    pairs = [design] * arms
+    alpha = 0.05
+    found = calibrate_arms(pairs, alpha, global_null(pairs, []), target=target)
+    benefit = build_rule(design).final.benefit
+    candidates = np.unique(benefit[benefit >= 0.5])
+
+    def error(t: float) -> float:
+        a = one_arm_error(design, t)
+        return 1 - (1 - a) ** arms if target == "family-wise" else a
+
+    passing = [t for t in candidates if error(t) <= alpha]
+    assert found.threshold == pytest.approx(min(passing), abs=0)
+    assert found.error == pytest.approx(error(found.threshold), abs=1e-13)
+    below = candidates[candidates < found.threshold]
+    assert below.size and error(below.max()) > alpha  # the threshold is the smallest
+
+
+def test_shared_control_family_wise_at_least_per_arm():
+    pair = build(TWO_ARM, looks__n=[16, 32], looks__efficacy=[0.999, 0.975],
+                 looks__futility=0.1)
+    pairs = [pair, pair]
+    nulls = global_null(pairs, [0.2, 0.35, 0.5])
+    assert nulls.shape == (3, 3) and np.all(nulls[:, 0] == nulls[:, 2])
+    fw = calibrate_arms(pairs, 0.1, nulls, target="family-wise")
+    per = calibrate_arms(pairs, 0.1, nulls, target="per-arm")
+    assert fw.threshold is not None and per.threshold is not None
+    assert fw.threshold >= per.threshold
+    assert fw.error <= 0.1 and per.error <= 0.1
+    # the reported error is the several-arm engine's at the worst null point
+    again = run_arms(fw.pairs, nulls)
+    assert fw.error == pytest.approx(again.family_wise.max(), abs=1e-15)
+    # one step below the chosen threshold fails (the log holds the failing neighbour)
+    failing = fw.log[fw.log.error > 0.1]
+    assert not failing.empty and failing.threshold.max() < fw.threshold
+
+
+def test_bad_settings():
+    pairs = [build(ONE_ARM)]
+    with pytest.raises(ValueError, match="target"):
+        calibrate_arms(pairs, 0.05, global_null(pairs, []), target="any")
+    with pytest.raises(ValueError, match="alpha"):
+        calibrate_arms(pairs, 1.5, global_null(pairs, []))
