@@ -13,13 +13,16 @@
 from __future__ import annotations
 
 import itertools
+import tomllib
 
 import numpy as np
 import pytest
 from scipy import stats
 
-from octrial.engines.arms_exact import check_pairs, run_arms
+from octrial.design.model import Source
+from octrial.engines.arms_exact import check_pairs, evaluate_design, run_arms, stopping_sd
 from octrial.engines.exact_lattice import ExactLatticeEngine
+from octrial.multiarm import parse_multiarm
 from octrial.rules.lattice import build_rule
 from tests.helpers import ONE_ARM, TWO_ARM, build
 
@@ -176,6 +179,11 @@ def test_shared_control_against_monte_carlo():
     mean_n, sd_n = n_used.mean(axis=0), n_used.std(axis=0)
     assert np.all(np.abs(found.expected_n[0] - mean_n) < 4 * sd_n / np.sqrt(reps) + 1e-12)
     assert not found.null[0, 2] and found.null[0, :2].all()
+    # variances of the sample sizes: SE of a sample variance sqrt((m4 - s^4) / R)
+    exact_var = stopping_sd(pairs, found)[0] ** 2
+    centred = n_used - mean_n
+    var, m4 = (centred**2).mean(axis=0), (centred**4).mean(axis=0)
+    assert np.all(np.abs(exact_var - var) < 4 * np.sqrt((m4 - var**2) / reps))
 
 
 def test_inconsistent_arms_are_refused():
@@ -186,3 +194,55 @@ def test_inconsistent_arms_are_refused():
                      binary_pair([20, 30], [0.99, 0.975])])
     with pytest.raises(ValueError, match="columns"):
         run_arms([binary_pair([20, 40], [0.99, 0.975])], np.array([[0.3, 0.3, 0.3]]))
+
+
+THREE_DOSES = """
+schema = 1
+name = "three-doses"
+title = "Two doses and placebo (invented)"
+[endpoint]
+type = "binary"
+better = "higher"
+[hypothesis]
+comparison = "difference"
+kind = "superiority"
+margin = 0.0
+[arms.control]
+prior = { distribution = "beta", a = 1, b = 1 }
+[arms.low]
+prior = { distribution = "beta", a = 1, b = 1 }
+[arms.high]
+prior = { distribution = "beta", a = 1, b = 1 }
+[looks]
+n = [24, 48, 72]
+efficacy = [0.995, 0.99, 0.975]
+futility = 0.1
+[scenarios]
+control = 0.3
+low = [0.3, 0.3]
+high = [0.3, 0.55]
+"""
+
+
+def multiarm(text: str):
+    return parse_multiarm(tomllib.loads(text), Source("three.toml", "", text))
+
+
+def test_design_file_evaluation():
+    # the design read from a file gives each arm's own design; with the arms' columns
+    # reordered the table is run_arms' (and the arm with the same truth as another
+    # arm has the same per-arm numbers: a symmetry of the design)
+    design = multiarm(THREE_DOSES)
+    table, outcome = evaluate_design(design)
+    assert list(table.columns[:3]) == ["true_control", "true_low", "true_high"]
+    assert np.array_equal(outcome.success[:, 1], table["prob_success_high"])
+    assert table.loc[0, "prob_success_low"] == pytest.approx(
+        table.loc[0, "prob_success_high"], abs=1e-15)
+    assert table.loc[1, "prob_success_low"] == pytest.approx(
+        table.loc[0, "prob_success_low"], abs=1e-15)
+    assert table.loc[1, "family_wise_error"] == pytest.approx(
+        table.loc[1, "prob_success_low"], abs=1e-15)
+    dropping = multiarm(THREE_DOSES.replace("futility = 0.1",
+                                            "futility = 0.1\ndrop_if_best_below = 0.1"))
+    with pytest.raises(ValueError, match="Pr\\(best\\)"):
+        evaluate_design(dropping)

@@ -34,9 +34,11 @@ import pandas as pd
 
 from octrial.design.model import Design
 from octrial.engines.lattice_programme import add_increment
+from octrial.multiarm.model import MultiArmDesign
 from octrial.rules.lattice import LatticeCache, LatticeRule, build_rule
 
-__all__ = ["MAX_PATHS", "ArmsOutcome", "check_pairs", "run_arms"]
+__all__ = ["MAX_PATHS", "ArmsOutcome", "check_pairs", "evaluate_design", "run_arms",
+           "stopping_sd", "unsupported"]
 
 MAX_PATHS = 2_000_000
 """Largest number of control paths (nodes of the last look) the engine will walk."""
@@ -264,3 +266,67 @@ def _count_distribution(won: np.ndarray) -> np.ndarray:
         out[:, 1:] = out[:, 1:] * (1.0 - p) + out[:, :-1] * p
         out[:, 0] *= 1.0 - p[:, 0]
     return out
+
+
+def unsupported(design: MultiArmDesign) -> str | None:
+    """Why the exact several-arm engine cannot evaluate ``design``, or ``None``."""
+    if design.allocation.kind != "fixed":
+        return "response-adaptive allocation is simulated only"
+    if any(v is not None for v in design.looks.drop_if_best_below):
+        return "dropping on Pr(best) couples the arms; it is simulated only"
+    if design.selection.keep is not None:
+        return "selection of arms couples the arms; it is simulated only"
+    if not getattr(design.family, "lattice", False):
+        return f"{design.endpoint.type} endpoints have no lattice sufficient statistic"
+    if any(p.conduct is not None for p in design.pairs):
+        return "calendar-time conduct is simulated only for several arms"
+    return None
+
+
+def evaluate_design(design: MultiArmDesign,
+                    truths: np.ndarray | None = None) -> tuple[pd.DataFrame, ArmsOutcome]:
+    """The exact several-arm table at ``truths`` (columns in ``design.arm_names`` order;
+    by default the design's scenarios): ``true_<arm>`` columns, then
+    :meth:`ArmsOutcome.table`'s, then ``sd_n_<arm>`` (exact, from the stopping looks).
+
+    Raises
+    ------
+    ValueError
+        When the engine does not apply (:func:`unsupported`).
+    """
+    why = unsupported(design)
+    if why is not None:
+        raise ValueError(f"no exact engine for this several-arm design: {why}")
+    rows = np.asarray(design.scenarios.values if truths is None else truths, dtype=float)
+    rows = np.atleast_2d(rows)
+    names = design.arm_names
+    order = [names.index(n) for n in design.treatment_names]
+    if design.shared_control:
+        order.append(0)
+    outcome = run_arms(design.pairs, rows[:, order])
+    table = pd.concat([pd.DataFrame(rows, columns=[f"true_{n}" for n in names]),
+                       outcome.table(design.treatment_names)], axis=1)
+    for name, sd in zip((*design.treatment_names, "control"),
+                        stopping_sd(design.pairs, outcome).T, strict=False):
+        if name != "control" or design.shared_control:
+            table[f"sd_n_{name}"] = sd
+    return table, outcome
+
+
+def stopping_sd(pairs: Sequence[Design], outcome: ArmsOutcome) -> np.ndarray:
+    """Exact standard deviation of each arm's sample size, then the control's, shape
+    (scenarios, arms + 1): each is fixed by the look at which the arm (the study) stops."""
+    looks = pairs[0].looks
+    sizes = np.array([[p.looks.per_arm[k][0] for k in range(looks.count)] for p in pairs])
+    stop = outcome.efficacy + outcome.futility  # (scenarios, arms, looks)
+    mean = np.einsum("sak,ak->sa", stop, sizes.astype(float))
+    second = np.einsum("sak,ak->sa", stop, sizes.astype(float) ** 2)
+    arm_sd = np.sqrt(np.clip(second - mean**2, 0.0, None))
+    if len(pairs[0].arms) == 2:
+        control = np.array([n[1] for n in looks.per_arm], dtype=float)
+        ends = outcome.reach - np.append(outcome.reach[:, 1:], np.zeros((len(stop), 1)), axis=1)
+        c_mean, c_second = ends @ control, ends @ control**2
+        control_sd = np.sqrt(np.clip(c_second - c_mean**2, 0.0, None))
+    else:
+        control_sd = np.zeros(len(stop))
+    return np.column_stack([arm_sd, control_sd])
