@@ -1,0 +1,246 @@
+"""``verify`` for designs with several treatment arms: claims recomputed exactly.
+
+The claims file has the columns of an ordinary claims file (:mod:`.claims`): one
+``true_<arm>`` column per arm of the design (the control and every treatment arm),
+``metric``, ``claimed`` and optionally ``replicates``, ``se`` and ``note``. A metric is a
+column of the several-arm table (:func:`arms_metrics`): per arm ``prob_success_<arm>``,
+``expected_n_<arm>``, ``prob_efficacy_<arm>_look<k>``, ``prob_drop_<arm>_look<k>``; for
+the study ``prob_any_success``, ``family_wise_error``, ``expected_n_control`` and
+``expected_n_total``. Every claim is recomputed by the exact several-arm engine
+(:mod:`octrial.engines.arms_exact`; fixed allocation, per-arm rules) and judged by the
+same rounding-aware two-sided test as any claim (:mod:`.comparison`), Holm-adjusted over
+all claims.
+
+Expected sample sizes claimed from simulation need the standard deviation of the sample
+size: per arm and for the control it is exact (each is fixed by the look at which the arm
+or the study stops); for the total, whose arms are correlated, the bound
+sd <= (largest - smallest possible total) / 2 (Popoviciu's inequality on variances, 1935)
+is used, which can only make a claim look more consistent.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from octrial._version import __version__
+from octrial.caution import CAUTION
+from octrial.csv_input import read_rows
+from octrial.design.reader import Phrase, Problems, suggest
+from octrial.engines.arms_exact import evaluate_design, unsupported
+from octrial.errors import InputError, Problem
+from octrial.multiarm.load import is_multiarm
+from octrial.multiarm.model import MultiArmDesign
+from octrial.output import csv_text, json_text
+from octrial.provenance import environment, now
+from octrial.review.claims import OPTIONAL, Claim, Claims, spreadsheet_safe
+from octrial.review.comparison import EXPECTED_N, standard_errors, two_sided_p, z_scores
+from octrial.review.multiplicity import holm
+from octrial.run_folder import write_folder
+
+__all__ = ["ArmsVerification", "arms_metrics", "read_arms_claims", "several_arms", "verify_arms",
+           "write_arms_verification"]
+
+CONSISTENT, DISCREPANT = "consistent", "discrepant"
+
+
+@dataclass(frozen=True, eq=False)
+class ArmsVerification:
+    """Every claim with its recomputation and verdict (``table``) and run facts."""
+
+    design: MultiArmDesign
+    claims: Claims
+    table: pd.DataFrame
+    info: dict[str, Any]
+
+    @property
+    def discrepant(self) -> bool:
+        """Whether any claim is discrepant."""
+        return bool((self.table["verdict"] == DISCREPANT).any())
+
+
+def several_arms(path: str | Path) -> bool:
+    """Whether the design file at ``path`` names several treatment arms (a file that
+    cannot be read is left to the ordinary loader, which reports why)."""
+    try:
+        data = tomllib.loads(Path(path).read_bytes().decode("utf-8-sig"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return False
+    return is_multiarm(data)
+
+
+def arms_metrics(design: MultiArmDesign) -> tuple[str, ...]:
+    """The metrics a claim may name for ``design``."""
+    out = ["prob_any_success", "family_wise_error"]
+    for name in design.treatment_names:
+        out += [f"prob_success_{name}", f"expected_n_{name}"]
+        for k in range(1, design.looks.count):
+            out += [f"prob_efficacy_{name}_look{k}", f"prob_drop_{name}_look{k}"]
+    if design.shared_control:
+        out.append("expected_n_control")
+    out.append("expected_n_total")
+    return tuple(out)
+
+
+def read_arms_claims(path: str | Path, design: MultiArmDesign) -> Claims:
+    """Read and check a claims file against a several-arm design.
+
+    Raises
+    ------
+    InputError
+        Listing every problem, each with its line and column.
+    """
+    table = read_rows(path, "claims file")
+    problems = Problems()
+    truths = tuple(f"true_{n}" for n in design.arm_names)
+    allowed = (*truths, "metric", "claimed", *OPTIONAL)
+    where_header = f"line {table.header_line} (header)"
+    columns: dict[str, int] = {}
+    for i, name in enumerate(table.header):
+        if name in columns:
+            problems.add(where_header, "each column once", Phrase(f"'{name}' twice"))
+        elif name not in allowed:
+            problems.add(where_header, "columns among " + ", ".join(allowed),
+                         Phrase(f"an unknown column '{name}'"), suggest(name, allowed))
+        columns[name] = i
+    for name in (*truths, "metric", "claimed"):
+        if name not in columns:
+            problems.add(where_header, f"a column {name}", Phrase("no such column"))
+    if problems:
+        raise InputError(table.path, problems)
+    valid = arms_metrics(design)
+    claims = []
+    for line, fields in table.rows:
+        if len(fields) != len(table.header):
+            problems.add(f"line {line}", f"{len(table.header)} comma-separated fields (as in "
+                         "the header)", Phrase(f"{len(fields)} fields"))
+            continue
+        cell = {name: fields[i] for name, i in columns.items()}
+        before = len(problems)
+        truth = tuple(_number(cell[c], f"line {line}, column {c}", problems) for c in truths)
+        metric = cell["metric"]
+        if metric not in valid:
+            problems.add(f"line {line}, column metric", "a metric of this several-arm "
+                         "design: " + ", ".join(valid), metric, suggest(metric, valid))
+        claimed = _number(cell["claimed"], f"line {line}, column claimed", problems)
+        if (claimed is not None and not metric.startswith("expected_n")
+                and not 0.0 <= claimed <= 1.0):
+            problems.add(f"line {line}, column claimed", "a probability in [0, 1]",
+                         cell["claimed"])
+        replicates = 0
+        if cell.get("replicates"):
+            value = _number(cell["replicates"], f"line {line}, column replicates", problems)
+            if value is not None and (value < 0 or not float(value).is_integer()):
+                problems.add(f"line {line}, column replicates", "a whole number >= 0 (0 or "
+                             "empty: the claim is exact)", cell["replicates"])
+            elif value is not None:
+                replicates = int(value)
+        se = None
+        if cell.get("se"):
+            se = _number(cell["se"], f"line {line}, column se", problems)
+            if se is not None and se <= 0:
+                problems.add(f"line {line}, column se", "a standard error > 0 (leave empty "
+                             "for none)", cell["se"])
+        if len(problems) == before and claimed is not None:
+            claims.append(Claim(line, tuple(float(v) for v in truth if v is not None), metric,
+                                claimed, cell["claimed"], replicates, se, cell.get("note", "")))
+    if problems:
+        raise InputError(table.path, problems)
+    return Claims(table.path, table.sha256, tuple(claims))
+
+
+def _number(text: str, where: str, problems: Problems) -> float | None:
+    try:
+        value = float(text)
+    except ValueError:
+        problems.add(where, "a number", text)
+        return None
+    if not np.isfinite(value):
+        problems.add(where, "a finite number", text)
+        return None
+    return value
+
+
+def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
+                tolerance: float = 1e-6) -> ArmsVerification:
+    """Recompute every claim exactly and judge it (module docstring).
+
+    Raises
+    ------
+    InputError
+        When the design has no exact several-arm engine (:func:`unsupported`).
+    """
+    why = unsupported(design)
+    if why is not None:
+        raise InputError(design.source.path, [Problem(
+            "", "a several-arm design with an exact engine (fixed allocation, per-arm rules)",
+            why)])
+    truths = sorted({c.truth for c in claims.claims})
+    table, _ = evaluate_design(design, np.array(truths))
+    index = {t: i for i, t in enumerate(truths)}
+    n_max = _total_range(design)
+    rows = []
+    for c in claims.claims:
+        row = table.iloc[index[c.truth]]
+        recomputed = float(row[c.metric])
+        name = c.metric.removeprefix("expected_n_")
+        sd = (float(row[f"sd_n_{name}"]) if c.metric.startswith("expected_n_")
+              and name != "total" else (n_max[1] - n_max[0]) / 2.0)
+        rows.append((c, recomputed, sd))
+    claimed = np.array([c.claimed for c, _, _ in rows])
+    recomputed = np.array([r for _, r, _ in rows])
+    is_n = np.array([c.metric.startswith("expected_n") for c, _, _ in rows])
+    kinds = np.where(is_n, EXPECTED_N, "probability")
+    claim_se, recomputed_se = standard_errors(
+        kinds, claimed, np.array([c.replicates for c, _, _ in rows]),
+        np.array([np.nan if c.se is None else c.se for c, _, _ in rows]), recomputed,
+        np.zeros(len(rows), dtype=int), np.array([s for _, _, s in rows]))
+    allowance = np.array([c.rounding for c, _, _ in rows]) + tolerance * np.where(
+        is_n, n_max[1], 1.0)
+    z = z_scores(claimed, recomputed, allowance, claim_se, recomputed_se)
+    p = two_sided_p(z)
+    p_holm = holm(p)
+    out = pd.DataFrame({"line": [c.line for c, _, _ in rows]})
+    for j, arm in enumerate(design.arm_names):
+        out[f"true_{arm}"] = [c.truth[j] for c, _, _ in rows]
+    out["metric"] = [c.metric for c, _, _ in rows]
+    out["claimed"] = [c.text for c, _, _ in rows]
+    out["recomputed"] = recomputed
+    out["claim_se"], out["recomputed_se"] = claim_se, recomputed_se
+    out["z"], out["p"], out["p_holm"] = z, p, p_holm
+    out["verdict"] = np.where(p_holm < alpha, DISCREPANT, CONSISTENT)
+    out["note"] = [spreadsheet_safe(c.note) for c, _, _ in rows]
+    info = {"engine": "exact (several arms)", "alpha": alpha, "adjustment": "Holm (1979)",
+            "tolerance": tolerance, "claims_total": len(out), "scenarios": len(truths),
+            "discrepant": int((out["verdict"] == DISCREPANT).sum()),
+            "consistent": int((out["verdict"] == CONSISTENT).sum())}
+    return ArmsVerification(design, claims, out, info)
+
+
+def _total_range(design: MultiArmDesign) -> tuple[float, float]:
+    """Smallest and largest possible total sample size (the first look's total, the
+    last look's)."""
+    return float(design.looks.n[0]), float(design.looks.n[-1])
+
+
+def write_arms_verification(folder: str | Path, result: ArmsVerification, *, started: str,
+                            command: list[str]) -> list[Path]:
+    """Write verify.csv and verify.json into ``folder`` all at once; returns the paths."""
+    design = result.design
+    record = {
+        "octrial_version": __version__,
+        "design": {"name": design.name, "path": design.source.path,
+                   "sha256": design.source.sha256},
+        "claims": {"path": result.claims.path, "sha256": result.claims.sha256},
+        "command": command, "started": started, "finished": now(),
+        **result.info,
+        "environment": environment(),
+        "caution": CAUTION,
+    }
+    return write_folder(folder, {"verify.csv": csv_text(result.table),
+                                 "verify.json": json_text(record)}).written
