@@ -186,6 +186,35 @@ def test_shared_control_against_monte_carlo():
     assert np.all(np.abs(exact_var - var) < 4 * np.sqrt((m4 - var**2) / reps))
 
 
+def test_count_shared_control_against_monte_carlo():
+    # reference: whole studies simulated with numpy's Poisson generator (exposure 0.5 per
+    # subject, 6 subjects per arm per look); 4 SE
+    pairs = [build(COUNT_TWO), build(COUNT_TWO, looks__futility=0.3)]
+    truths = np.array([1.0, 0.5, 1.0])  # arm 1 null (ratio 1), arm 2 halves the rate
+    found = run_arms(pairs, truths[None, :])
+    rules = [build_rule(p, truths=np.array([[t, 1.0] for t in truths[:2]])) for p in pairs]
+    rng = np.random.default_rng(51)
+    reps = 200_000
+    x = np.zeros((reps, 3), dtype=int)
+    alive = np.ones((reps, 2), dtype=bool)
+    won = np.zeros((reps, 2), dtype=bool)
+    for k in range(2):
+        x += rng.poisson(truths * 0.5 * 3, size=(reps, 3))
+        for j in range(2):
+            table = rules[j].looks[k]
+            xs = np.minimum(x[:, j], table.shape[0] - 1)
+            xc = np.minimum(x[:, -1], table.shape[1] - 1)
+            eff = table.efficacy[xs, xc] & alive[:, j]
+            fut = table.futility[xs, xc] & alive[:, j]
+            won[:, j] |= eff
+            alive[:, j] &= ~(eff | fut)
+    p_hat = won.mean(axis=0)
+    assert np.all(np.abs(found.success[0] - p_hat) < 4 * np.sqrt(p_hat * (1 - p_hat) / reps))
+    assert found.neglected[0] < 1e-9
+    # only arm 1 is null: the family-wise error is its success, up to the neglected mass
+    assert found.family_wise[0] == pytest.approx(found.success[0, 0], abs=found.neglected[0])
+
+
 def test_inconsistent_arms_are_refused():
     with pytest.raises(ValueError, match="same number of arms"):
         check_pairs([build(ONE_ARM), binary_pair([20, 40], [0.99, 0.975])])
