@@ -158,6 +158,7 @@ def test_shared_control_against_monte_carlo():
     alive = np.ones((reps, n_arms), dtype=bool)
     won = np.zeros((reps, n_arms), dtype=bool)
     n_used = np.zeros((reps, n_arms + 1))
+    ended = np.full(reps, -1)
     for k in range(3):
         running = alive.any(axis=1)
         x += rng.binomial(4, truths, size=(reps, n_arms + 1))
@@ -169,8 +170,14 @@ def test_shared_control_against_monte_carlo():
             fut = table.futility[x[:, j], x[:, -1]] & alive[:, j]
             won[:, j] |= eff
             alive[:, j] &= ~(eff | fut)
+        ended[running & ~alive.any(axis=1)] = k
     p_hat = won.mean(axis=0)
     se = np.sqrt(p_hat * (1 - p_hat) / reps)
+    # the study ends at look k (every arm stopped) with / without a successful arm
+    for k in range(3):
+        for outcome, success in ((found.study_efficacy, True), (found.study_futility, False)):
+            q = ((ended == k) & (won.any(axis=1) == success)).mean()
+            assert abs(outcome[0, k] - q) < 4 * np.sqrt(q * (1 - q) / reps) + 1e-12
     assert np.all(np.abs(found.success[0] - p_hat) < 4 * se)
     fwer = (won[:, 0] | won[:, 1]).mean()
     assert abs(found.family_wise[0] - fwer) < 4 * np.sqrt(fwer * (1 - fwer) / reps)
@@ -264,13 +271,13 @@ def test_design_file_evaluation():
     design = multiarm(THREE_DOSES)
     table, outcome = evaluate_design(design)
     assert list(table.columns[:3]) == ["true_control", "true_low", "true_high"]
-    assert np.array_equal(outcome.success[:, 1], table["prob_success_high"])
-    assert table.loc[0, "prob_success_low"] == pytest.approx(
-        table.loc[0, "prob_success_high"], abs=1e-15)
-    assert table.loc[1, "prob_success_low"] == pytest.approx(
-        table.loc[0, "prob_success_low"], abs=1e-15)
-    assert table.loc[1, "family_wise_error"] == pytest.approx(
-        table.loc[1, "prob_success_low"], abs=1e-15)
+    assert np.array_equal(outcome.success[:, 1], table["high_prob_success"])
+    assert table.loc[0, "low_prob_success"] == pytest.approx(
+        table.loc[0, "high_prob_success"], abs=1e-15)
+    assert table.loc[1, "low_prob_success"] == pytest.approx(
+        table.loc[0, "low_prob_success"], abs=1e-15)
+    assert table.loc[1, "fwer"] == pytest.approx(
+        table.loc[1, "low_prob_success"], abs=1e-15)
     dropping = multiarm(THREE_DOSES.replace("futility = 0.1",
                                             "futility = 0.1\ndrop_if_best_below = 0.1"))
     with pytest.raises(ValueError, match="Pr\\(best\\)"):

@@ -37,29 +37,29 @@ def run(args):
 def test_consistent_and_discrepant_claims(files):
     design, folder, row = files
     claims = folder / "claims.csv"
-    fwer = f"{row['family_wise_error']:.3f}"
-    wrong = f"{row['prob_any_success'] + 0.05:.3f}"  # 0.05 is 10 SE at 10,000 replicates
+    fwer = f"{row['fwer']:.3f}"
+    wrong = f"{row['prob_success'] + 0.05:.3f}"  # 0.05 is 10 SE at 10,000 replicates
     claims.write_text(HEADER
-                      + f"0.3,0.3,0.55,family_wise_error,{fwer},,exact\n"
-                      + f"0.3,0.3,0.55,expected_n_low,{row['expected_n_low']:.1f},5000,\n"
-                      + f"0.3,0.3,0.55,prob_any_success,{wrong},10000,too high\n")
+                      + f"0.3,0.3,0.55,fwer,{fwer},,exact\n"
+                      + f"0.3,0.3,0.55,low_expected_n,{row['low_expected_n']:.1f},5000,\n"
+                      + f"0.3,0.3,0.55,prob_success,{wrong},10000,too high\n")
     result = run(["verify", design, claims, "--out", folder / "out"])
     assert result.exit_code == 1, result.output
     assert "1 of 3 claims discrepant" in result.output
     record = json.loads((folder / "out" / "verify.json").read_text())
     assert record["discrepant"] == 1 and "caution" in record
-    claims.write_text(HEADER + f"0.3,0.3,0.55,family_wise_error,{fwer},,exact\n")
+    claims.write_text(HEADER + f"0.3,0.3,0.55,fwer,{fwer},,exact\n")
     assert run(["verify", design, claims, "--out", folder / "out"]).exit_code == 0
 
 
 def test_bad_claims_exit_2(files):
     design, folder, _ = files
     claims = folder / "claims.csv"
-    claims.write_text(HEADER + "0.3,0.3,0.55,prob_sucess_low,0.5,,\n")
+    claims.write_text(HEADER + "0.3,0.3,0.55,low_prob_sucess,0.5,,\n")
     result = run(["verify", design, claims, "--out", folder / "out"])
     assert result.exit_code == 2
-    assert "line 2, column metric" in result.output and "prob_success_low" in result.output
-    claims.write_text("true_control,true_low,metric,claimed\n0.3,0.3,prob_any_success,0.1\n")
+    assert "line 2, column metric" in result.output and "low_prob_success" in result.output
+    claims.write_text("true_control,true_low,metric,claimed\n0.3,0.3,prob_success,0.1\n")
     result = run(["verify", design, claims, "--out", folder / "out"])
     assert result.exit_code == 2 and "true_high" in result.output
     assert not (folder / "out").exists()  # nothing half-written
@@ -70,6 +70,6 @@ def test_design_without_exact_engine_exit_2(files):
     design.write_text(THREE_DOSES.replace("futility = 0.1",
                                           "futility = 0.1\ndrop_if_best_below = 0.1"))
     claims = folder / "claims.csv"
-    claims.write_text(HEADER + "0.3,0.3,0.55,prob_any_success,0.5,,\n")
+    claims.write_text(HEADER + "0.3,0.3,0.55,prob_success,0.5,,\n")
     result = run(["verify", design, claims, "--out", folder / "out"])
     assert result.exit_code == 2 and "Pr(best)" in result.output

@@ -66,6 +66,8 @@ class ArmsOutcome:
         Expected subjects per treatment arm, then the control (0 against a benchmark).
     neglected : ndarray, shape (scenarios,)
         Probability mass dropped by truncating an unbounded count (0 for binary data).
+    study_efficacy, study_futility : ndarray, shape (scenarios, looks)
+        Pr(the study ends at look k with at least one successful arm / with none).
     """
 
     efficacy: np.ndarray
@@ -76,6 +78,8 @@ class ArmsOutcome:
     reach: np.ndarray
     expected_n: np.ndarray
     neglected: np.ndarray
+    study_efficacy: np.ndarray
+    study_futility: np.ndarray
 
     @property
     def success(self) -> np.ndarray:
@@ -87,20 +91,32 @@ class ArmsOutcome:
         """Pr(at least one treatment arm succeeds): the study's success."""
         return 1.0 - self.successes[:, 0]
 
-    def table(self, names: Sequence[str]) -> pd.DataFrame:
-        """One row per scenario; per-arm columns named ``<quantity>_<arm name>``."""
+    def table(self, names: Sequence[str], control: bool = True) -> pd.DataFrame:
+        """One row per scenario, in the several-arm columns of oc.csv (the Monte Carlo
+        engine's names, :mod:`octrial.multiarm.engine`): study-level columns, then per
+        treatment arm ``<arm>_<quantity>``. ``<arm>_look<k>_drop`` (dropping on Pr(best)
+        or selection) is 0: this engine serves designs without either."""
+        looks = self.efficacy.shape[2]
         cols: dict[str, np.ndarray] = {
-            "prob_any_success": self.any_success,
-            "family_wise_error": self.family_wise,
+            "prob_success": self.any_success,
+            "fwer": self.family_wise,
+            "prob_stop_efficacy": self.study_efficacy[:, :-1].sum(axis=1),
+            "prob_stop_futility": self.study_futility[:, :-1].sum(axis=1),
+            "expected_n": self.expected_n.sum(axis=1),
         }
+        for k in range(looks):
+            cols[f"look{k + 1}_stop_efficacy"] = self.study_efficacy[:, k]
+            cols[f"look{k + 1}_stop_futility"] = self.study_futility[:, k]
+        if control:
+            cols["control_expected_n"] = self.expected_n[:, -1]
         for j, name in enumerate(names):
-            cols[f"prob_success_{name}"] = self.success[:, j]
-            cols[f"expected_n_{name}"] = self.expected_n[:, j]
-            for k in range(self.efficacy.shape[2] - 1):
-                cols[f"prob_efficacy_{name}_look{k + 1}"] = self.efficacy[:, j, k]
-                cols[f"prob_drop_{name}_look{k + 1}"] = self.futility[:, j, k]
-        cols["expected_n_control"] = self.expected_n[:, -1]
-        cols["expected_n_total"] = self.expected_n.sum(axis=1)
+            cols[f"{name}_is_null"] = self.null[:, j]
+            cols[f"{name}_prob_success"] = self.success[:, j]
+            cols[f"{name}_expected_n"] = self.expected_n[:, j]
+            for k in range(looks):
+                cols[f"{name}_look{k + 1}_stop_efficacy"] = self.efficacy[:, j, k]
+                cols[f"{name}_look{k + 1}_stop_futility"] = self.futility[:, j, k]
+                cols[f"{name}_look{k + 1}_drop"] = np.zeros(len(self.null))
         return pd.DataFrame(cols)
 
 
@@ -166,7 +182,7 @@ def run_arms(pairs: Sequence[Design], truths: np.ndarray,
             rule = build_rule(pair, cache, truths=rows[j])
         built.append(rule)
     results = [_one_truth(pairs, built, t, shared) for t in truths]
-    return ArmsOutcome(*(np.array([r[i] for r in results]) for i in range(8)))
+    return ArmsOutcome(*(np.array([r[i] for r in results]) for i in range(10)))
 
 
 def _pair_truths(truths: np.ndarray, j: int, shared: bool) -> np.ndarray:
@@ -188,10 +204,11 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
     weight = np.ones(1)
     control = np.zeros(1, dtype=np.int64)
     dist = [np.ones((1, 1)) for _ in range(n_arms)]
-    won = np.zeros((1, n_arms))
+    won, lost = np.zeros((1, n_arms)), np.zeros((1, n_arms))
     eff, fut = np.zeros((n_arms, n_looks)), np.zeros((n_arms, n_looks))
     successes, family_wise = np.zeros(n_arms + 1), 0.0
     reach, arm_n, control_n = np.zeros(n_looks), np.zeros(n_arms), 0.0
+    ended_won, ended_lost = np.zeros(n_looks), np.zeros(n_looks)
     neglected = 0.0
     previous = [(0, 0)] * n_arms
     for k in range(n_looks):
@@ -209,8 +226,8 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
             pmf = family.increment_pmf(pair, truth[j], sizes[j][0] - previous[j][0], size)
             moved = add_increment(dist[j], pmf, 1, size)
             if family.truncates:
-                lost = dist[j].sum(axis=1) - moved.sum(axis=1)
-                neglected += weight @ np.clip(lost, 0.0, None)
+                beyond = dist[j].sum(axis=1) - moved.sum(axis=1)
+                neglected += weight @ np.clip(beyond, 0.0, None)
             new_dist.append(moved)
         # the control's increment multiplies the paths
         if shared:
@@ -231,7 +248,7 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
             neglected += weight.sum() * max(1.0 - pmf.sum(), 0.0)
         origin = np.repeat(np.arange(weight.size), pmf.size)[keep]
         control, weight = new_control[keep], new_weight[keep]
-        won = won[origin]
+        won, lost = won[origin], lost[origin]
         dist = [d[origin] for d in new_dist]
         for j in range(n_arms):
             # mask rows gathered at each path's control count: (paths, arm points)
@@ -242,18 +259,28 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
             eff[j, k] += weight @ e_mass
             fut[j, k] += weight @ f_mass
             won[:, j] += e_mass
+            lost[:, j] += f_mass
             dist[j] = np.where(e | f, 0.0, dist[j])
         previous = sizes
         # paths on which every arm has stopped are finished: tally their joint outcomes
         still = np.stack([d.sum(axis=1) for d in dist], axis=1).max(axis=1) > 0
         done = ~still if k < n_looks - 1 else np.ones(weight.size, dtype=bool)
+        # Pr(every arm has stopped by look k, with / without a success), then per look
+        alive_now = np.stack([d.sum(axis=1) for d in dist], axis=1)
+        all_stopped = np.prod(1.0 - alive_now, axis=1)
+        none_won = np.prod(lost, axis=1)
+        ended_won[k] = weight @ (all_stopped - none_won)
+        ended_lost[k] = weight @ none_won
         if done.any():
             successes += weight[done] @ _count_distribution(won[done])
             family_wise += weight[done] @ (1.0 - np.prod(1.0 - won[done][:, null], axis=1))
-            control, weight, won = control[still], weight[still], won[still]
+            control, weight, won, lost = control[still], weight[still], won[still], lost[still]
             dist = [d[still] for d in dist]
     expected_n = np.append(arm_n, control_n)
-    return eff, fut, successes, family_wise, null, reach, expected_n, neglected
+    study_eff = np.diff(ended_won, prepend=0.0)
+    study_fut = np.diff(ended_lost, prepend=0.0)
+    return (eff, fut, successes, family_wise, null, reach, expected_n, neglected, study_eff,
+            study_fut)
 
 
 def _count_distribution(won: np.ndarray) -> np.ndarray:
@@ -287,7 +314,8 @@ def evaluate_design(design: MultiArmDesign,
                     truths: np.ndarray | None = None) -> tuple[pd.DataFrame, ArmsOutcome]:
     """The exact several-arm table at ``truths`` (columns in ``design.arm_names`` order;
     by default the design's scenarios): ``true_<arm>`` columns, then
-    :meth:`ArmsOutcome.table`'s, then ``sd_n_<arm>`` (exact, from the stopping looks).
+    :meth:`ArmsOutcome.table`'s, then ``<arm>_sd_n`` and ``control_sd_n`` (exact, from
+    the looks at which the arm and the study stop) and ``method``.
 
     Raises
     ------
@@ -305,11 +333,12 @@ def evaluate_design(design: MultiArmDesign,
         order.append(0)
     outcome = run_arms(design.pairs, rows[:, order])
     table = pd.concat([pd.DataFrame(rows, columns=[f"true_{n}" for n in names]),
-                       outcome.table(design.treatment_names)], axis=1)
+                       outcome.table(design.treatment_names, design.shared_control)], axis=1)
     for name, sd in zip((*design.treatment_names, "control"),
-                        stopping_sd(design.pairs, outcome).T, strict=False):
+                        stopping_sd(design.pairs, outcome).T, strict=True):
         if name != "control" or design.shared_control:
-            table[f"sd_n_{name}"] = sd
+            table[f"{name}_sd_n"] = sd
+    table["method"] = "exact"
     return table, outcome
 
 

@@ -3,10 +3,12 @@
 The claims file has the columns of an ordinary claims file (:mod:`.claims`): one
 ``true_<arm>`` column per arm of the design (the control and every treatment arm),
 ``metric``, ``claimed`` and optionally ``replicates``, ``se`` and ``note``. A metric is a
-column of the several-arm table (:func:`arms_metrics`): per arm ``prob_success_<arm>``,
-``expected_n_<arm>``, ``prob_efficacy_<arm>_look<k>``, ``prob_drop_<arm>_look<k>``; for
-the study ``prob_any_success``, ``family_wise_error``, ``expected_n_control`` and
-``expected_n_total``. Every claim is recomputed by the exact several-arm engine
+probability or expected-size column of the several-arm oc.csv (:func:`arms_metrics`): per
+arm ``<arm>_prob_success``, ``<arm>_expected_n``, ``<arm>_look<k>_stop_efficacy``,
+``<arm>_look<k>_stop_futility``; for the study ``prob_success`` (at least one arm
+succeeds), ``fwer``, ``prob_stop_efficacy``, ``prob_stop_futility``,
+``look<k>_stop_efficacy``, ``look<k>_stop_futility``, ``expected_n`` and (with a shared
+control) ``control_expected_n``. Every claim is recomputed by the exact several-arm engine
 (:mod:`octrial.engines.arms_exact`; fixed allocation, per-arm rules) and judged by the
 same rounding-aware two-sided test as any claim (:mod:`.comparison`), Holm-adjusted over
 all claims.
@@ -76,14 +78,14 @@ def several_arms(path: str | Path) -> bool:
 
 def arms_metrics(design: MultiArmDesign) -> tuple[str, ...]:
     """The metrics a claim may name for ``design``."""
-    out = ["prob_any_success", "family_wise_error"]
-    for name in design.treatment_names:
-        out += [f"prob_success_{name}", f"expected_n_{name}"]
-        for k in range(1, design.looks.count):
-            out += [f"prob_efficacy_{name}_look{k}", f"prob_drop_{name}_look{k}"]
+    looks = range(1, design.looks.count + 1)
+    out = ["prob_success", "fwer", "prob_stop_efficacy", "prob_stop_futility", "expected_n"]
+    out += [f"look{k}_stop_{why}" for k in looks for why in ("efficacy", "futility")]
     if design.shared_control:
-        out.append("expected_n_control")
-    out.append("expected_n_total")
+        out.append("control_expected_n")
+    for name in design.treatment_names:
+        out += [f"{name}_prob_success", f"{name}_expected_n"]
+        out += [f"{name}_look{k}_stop_{why}" for k in looks for why in ("efficacy", "futility")]
     return tuple(out)
 
 
@@ -128,7 +130,7 @@ def read_arms_claims(path: str | Path, design: MultiArmDesign) -> Claims:
             problems.add(f"line {line}, column metric", "a metric of this several-arm "
                          "design: " + ", ".join(valid), metric, suggest(metric, valid))
         claimed = _number(cell["claimed"], f"line {line}, column claimed", problems)
-        if (claimed is not None and not metric.startswith("expected_n")
+        if (claimed is not None and not metric.endswith("expected_n")
                 and not 0.0 <= claimed <= 1.0):
             problems.add(f"line {line}, column claimed", "a probability in [0, 1]",
                          cell["claimed"])
@@ -188,13 +190,13 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
     for c in claims.claims:
         row = table.iloc[index[c.truth]]
         recomputed = float(row[c.metric])
-        name = c.metric.removeprefix("expected_n_")
-        sd = (float(row[f"sd_n_{name}"]) if c.metric.startswith("expected_n_")
-              and name != "total" else (n_max[1] - n_max[0]) / 2.0)
+        # the total's sd is not exact here: Popoviciu's bound (module docstring)
+        sd = (float(row[c.metric.removesuffix("_expected_n") + "_sd_n"])
+              if c.metric.endswith("_expected_n") else (n_max[1] - n_max[0]) / 2.0)
         rows.append((c, recomputed, sd))
     claimed = np.array([c.claimed for c, _, _ in rows])
     recomputed = np.array([r for _, r, _ in rows])
-    is_n = np.array([c.metric.startswith("expected_n") for c, _, _ in rows])
+    is_n = np.array([c.metric.endswith("expected_n") for c, _, _ in rows])
     kinds = np.where(is_n, EXPECTED_N, "probability")
     claim_se, recomputed_se = standard_errors(
         kinds, claimed, np.array([c.replicates for c, _, _ in rows]),
