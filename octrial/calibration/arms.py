@@ -78,7 +78,7 @@ def global_null(pairs: Sequence[Design], control: Sequence[float]) -> np.ndarray
     Against a benchmark, the single row of every arm at its benchmark.
     """
     if not check_pairs(pairs):
-        return np.array([[float(p.hypothesis.benchmark) for p in pairs]])
+        return np.array([[p.hypothesis.null_value for p in pairs]])
     if any(p.hypothesis.comparison != "difference" for p in pairs):
         raise ValueError("global_null builds difference comparisons only; give the null "
                          "points explicitly")

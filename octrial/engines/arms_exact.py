@@ -28,6 +28,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -84,7 +85,8 @@ class ArmsOutcome:
     @property
     def success(self) -> np.ndarray:
         """Pr(treatment arm j succeeds), shape (scenarios, arms)."""
-        return self.efficacy.sum(axis=2)
+        total: np.ndarray = self.efficacy.sum(axis=2)
+        return total
 
     @property
     def any_success(self) -> np.ndarray:
@@ -190,7 +192,7 @@ def _pair_truths(truths: np.ndarray, j: int, shared: bool) -> np.ndarray:
 
 
 def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.ndarray,
-               shared: bool) -> tuple:
+               shared: bool) -> tuple[Any, ...]:
     family = pairs[0].family
     n_arms, n_looks = len(pairs), pairs[0].looks.count
     null = np.array([family.is_null(p.hypothesis, tuple(_pair_truths(truth[None], j, shared)[0]))
@@ -210,7 +212,7 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
     reach, arm_n, control_n = np.zeros(n_looks), np.zeros(n_arms), 0.0
     ended_won, ended_lost = np.zeros(n_looks), np.zeros(n_looks)
     neglected = 0.0
-    previous = [(0, 0)] * n_arms
+    previous: list[tuple[int, ...]] = [(0, 0)] * n_arms
     for k in range(n_looks):
         alive = np.stack([d.sum(axis=1) for d in dist], axis=1)  # (paths, arms)
         reach[k] = weight @ (1.0 - np.prod(1.0 - alive, axis=1))
@@ -304,7 +306,7 @@ def unsupported(design: MultiArmDesign) -> str | None:
     if design.selection.keep is not None:
         return "selection of arms couples the arms; it is simulated only"
     if not getattr(design.family, "lattice", False):
-        return f"{design.endpoint.type} endpoints have no lattice sufficient statistic"
+        return f"{getattr(design.family, 'name', 'these')} endpoints have no lattice statistic"
     if any(p.conduct is not None for p in design.pairs):
         return "calendar-time conduct is simulated only for several arms"
     return None

@@ -189,11 +189,11 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
     rows = []
     for c in claims.claims:
         row = table.iloc[index[c.truth]]
-        recomputed = float(row[c.metric])
+        value = float(row[c.metric])
         # the total's sd is not exact here: Popoviciu's bound (module docstring)
         sd = (float(row[c.metric.removesuffix("_expected_n") + "_sd_n"])
               if c.metric.endswith("_expected_n") else (n_max[1] - n_max[0]) / 2.0)
-        rows.append((c, recomputed, sd))
+        rows.append((c, value, sd))
     claimed = np.array([c.claimed for c, _, _ in rows])
     recomputed = np.array([r for _, r, _ in rows])
     is_n = np.array([c.metric.endswith("expected_n") for c, _, _ in rows])
