@@ -10,6 +10,8 @@ per-arm one.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -72,3 +74,35 @@ def test_bad_settings():
         calibrate_arms(pairs, 0.05, global_null(pairs, []), target="any")
     with pytest.raises(ValueError, match="alpha"):
         calibrate_arms(pairs, 1.5, global_null(pairs, []))
+
+
+def test_calibrate_command_on_a_several_arm_file(tmp_path):
+    # the written design reads back with only the final threshold changed, and the exact
+    # engine gives it a family-wise error at most alpha on the null line (union bound:
+    # then every arm's own type I error is at most alpha too)
+    from click.testing import CliRunner
+
+    from octrial.cli import main
+    from octrial.multiarm import load_multiarm
+    from tests.test_arms_exact import THREE_DOSES
+
+    design = tmp_path / "three.toml"
+    design.write_text(THREE_DOSES)
+    out = tmp_path / "cal"
+    result = CliRunner().invoke(main, ["calibrate", str(design), "--alpha", "0.05",
+                                       "--null-points", "9", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    calibrated = load_multiarm(out / "three-doses.calibrated.toml")
+    original = load_multiarm(design)
+    new, old = calibrated.pairs[0].looks.efficacy, original.pairs[0].looks.efficacy
+    assert new[:-1] == old[:-1] and new[-1] != old[-1]
+    nulls = global_null(calibrated.pairs, np.linspace(0.1, 0.9, 9))
+    fwer = run_arms(calibrated.pairs, nulls).family_wise
+    assert fwer.max() <= 0.05
+    assert fwer.max() == pytest.approx(
+        json.loads((out / "calibration.json").read_text())["error"], abs=1e-15)
+    # options of the one- and two-arm calibration do not apply
+    bad = CliRunner().invoke(main, ["calibrate", str(design), "--alpha", "0.05",
+                                    "--power", "0.8", "--out", str(tmp_path / "bad")])
+    assert bad.exit_code == 2 and "--power" in bad.output
+    assert not (tmp_path / "bad").exists()

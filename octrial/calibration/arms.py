@@ -22,17 +22,29 @@ the chosen threshold is re-evaluated and reported as found).
 
 from __future__ import annotations
 
+import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from octrial._version import __version__
+from octrial.caution import CAUTION
 from octrial.design.model import Design
-from octrial.engines.arms_exact import ArmsOutcome, check_pairs, run_arms
+from octrial.design.reader import NONE_WORD
+from octrial.design.write import edited_text
+from octrial.engines.arms_exact import ArmsOutcome, check_pairs, run_arms, unsupported
+from octrial.multiarm.model import MultiArmDesign
+from octrial.output import csv_text, json_text
+from octrial.provenance import environment, now
 from octrial.rules.lattice import LatticeCache, build_rule
+from octrial.run_folder import write_folder
 
-__all__ = ["TARGETS", "ArmsCalibration", "calibrate_arms", "global_null", "with_threshold"]
+__all__ = ["TARGETS", "ArmsCalibration", "calibrate_arms", "calibrate_multiarm",
+           "calibrated_text", "global_null", "with_threshold", "write_arms_calibration"]
 
 TARGETS = ("family-wise", "per-arm")
 """What the threshold controls: the family-wise error rate, or the largest per-arm type
@@ -70,7 +82,7 @@ def with_threshold(design: Design, threshold: float) -> Design:
     return replace(design, looks=replace(looks, efficacy=(*looks.efficacy[:-1], threshold)))
 
 
-def global_null(pairs: Sequence[Design], control: Sequence[float]) -> np.ndarray:
+def global_null(pairs: Sequence[Design], control: Sequence[float] | np.ndarray) -> np.ndarray:
     """Null points with every treatment arm on its null boundary.
 
     With a shared control (a difference comparison), one row per control value: each arm
@@ -164,3 +176,69 @@ def _candidates(pairs: Sequence[Design], caches: Sequence[LatticeCache],
 
 def _log(rows: list[tuple[float, float]]) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["threshold", "error"]).drop_duplicates()
+
+
+def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "family-wise",
+                       null_range: tuple[float, float] | None = None,
+                       null_points: int = 19) -> ArmsCalibration:
+    """:func:`calibrate_arms` for a several-arm design file: with a shared control the
+    null line runs over ``null_points`` control values evenly spread over ``null_range``
+    (by default the family's parameter range, ends excluded); against a benchmark it is
+    the benchmark point.
+
+    Raises
+    ------
+    ValueError
+        When the exact engine does not apply, or the settings are out of range.
+    """
+    why = unsupported(design)
+    if why is not None:
+        raise ValueError(f"no exact engine for this several-arm design: {why}")
+    if null_points < 2:
+        raise ValueError(f"null_points: expected a whole number >= 2; got {null_points}")
+    if null_range is None:
+        low, high = design.family.parameter_range  # type: ignore[attr-defined]
+        if not (np.isfinite(low) and np.isfinite(high)):
+            raise ValueError("null_range: needed for an unbounded parameter (LOW:HIGH)")
+        step = (high - low) / (null_points + 1)
+        control = np.linspace(low + step, high - step, null_points)
+    else:
+        control = np.linspace(null_range[0], null_range[1], null_points)
+    return calibrate_arms(design.pairs, alpha, global_null(design.pairs, control),
+                          target=target)
+
+
+def calibrated_text(design: MultiArmDesign, threshold: float, command: list[str]) -> str:
+    """The design file with its final efficacy threshold replaced (comments kept)."""
+    data = tomllib.loads(design.source.text)
+    efficacy: list[Any] = [NONE_WORD if t is None else t
+                           for t in design.pairs[0].looks.efficacy]
+    efficacy[-1] = threshold
+    data["looks"]["efficacy"] = efficacy
+    header = [f"calibrated by: {' '.join(command)}",
+              f"final threshold {threshold!r} (the original file: {design.source.path})"]
+    return edited_text(design.source.text, data, "looks", header)
+
+
+def write_arms_calibration(folder: str | Path, design: MultiArmDesign,
+                           result: ArmsCalibration, alpha: float, target: str, *,
+                           started: str, command: list[str]) -> list[Path]:
+    """calibration.csv (every threshold examined), calibration.json and
+    ``<name>.calibrated.toml``, all at once."""
+    assert result.threshold is not None
+    record = {
+        "octrial_version": __version__,
+        "design": {"name": design.name, "path": design.source.path,
+                   "sha256": design.source.sha256},
+        "command": command, "started": started, "finished": now(),
+        "engine": "exact (several arms)", "controls": target, "alpha": alpha,
+        "threshold": result.threshold, "error": result.error,
+        "worst_null": dict(zip((*design.treatment_names, "control"),
+                               (float(v) for v in result.worst), strict=False)),
+        "environment": environment(), "caution": CAUTION,
+    }
+    return write_folder(folder, {
+        "calibration.csv": csv_text(result.log),
+        "calibration.json": json_text(record),
+        f"{design.name}.calibrated.toml": calibrated_text(design, result.threshold, command),
+    }).written
