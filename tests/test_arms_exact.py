@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from octrial.calibration.arms import with_threshold
 from octrial.design.model import Source
 from octrial.engines.arms_exact import check_pairs, evaluate_design, run_arms, stopping_sd
 from octrial.engines.exact_lattice import ExactLatticeEngine
@@ -44,11 +45,21 @@ def binary_pair(n: list[int], efficacy: list[float], futility: float = 0.1, **ch
                  **changes)
 
 
+def on_a_grid_point():
+    """A grid posterior (logit-normal prior) whose final threshold is the posterior
+    probability at one lattice point, so that point's decision is uncertain."""
+    design = binary_pair([10, 20], [0.99, 0.95], hypothesis__comparison="odds-ratio",
+                         arms__treatment__prior={"distribution": "logit-normal",
+                                                 "logit_mean": -1.0, "logit_sd": 1.0})
+    return with_threshold(design, float(build_rule(design).final.benefit[7, 3]))
+
+
 @pytest.mark.parametrize("design, truths", [
     (binary_pair([12, 24, 36], [0.995, 0.99, 0.975]),
      np.array([[0.3, 0.3], [0.5, 0.3], [0.05, 0.6]])),
     (build(COUNT_TWO), np.array([[1.0, 1.0], [0.5, 1.0], [2.0, 1.5]])),
     (build(ONE_ARM), np.array([[0.2], [0.35]])),
+    (on_a_grid_point(), np.array([[0.3, 0.3], [0.5, 0.3]])),
 ])
 def test_one_arm_equals_existing_engine(design, truths):
     # reference: the project's two-arm / one-arm exact engine (lattice programme)
@@ -57,6 +68,9 @@ def test_one_arm_equals_existing_engine(design, truths):
     np.testing.assert_allclose(found.efficacy[:, 0], reference.efficacy, rtol=0, atol=1e-13)
     np.testing.assert_allclose(found.futility[:, 0], reference.futility, rtol=0, atol=1e-13)
     np.testing.assert_allclose(found.any_success, reference.efficacy.sum(axis=1), atol=1e-13)
+    # posteriors on a grid: the same mass on points numerical error could change
+    unsure = reference.info.get("max_uncertain_mass", 0.0)  # 0.031 for on_a_grid_point
+    assert found.uncertain.max() == pytest.approx(unsure, rel=1e-9, abs=1e-15)
     # truncated counts: the same neglected mass, up to rounding (union bound per arm)
     lost = reference.info["max_neglected_mass"]
     assert found.neglected.max() == pytest.approx(lost, rel=1e-3, abs=1e-15)

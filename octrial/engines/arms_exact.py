@@ -69,6 +69,10 @@ class ArmsOutcome:
         Probability mass dropped by truncating an unbounded count (0 for binary data).
     study_efficacy, study_futility : ndarray, shape (scenarios, looks)
         Pr(the study ends at look k with at least one successful arm / with none).
+    uncertain : ndarray, shape (scenarios,)
+        Summed over arms, the probability of reaching a point whose decision numerical
+        error could change (posteriors on a grid; see
+        :class:`~octrial.rules.lattice.LookTable`); 0 for closed-form posteriors.
     """
 
     efficacy: np.ndarray
@@ -81,6 +85,7 @@ class ArmsOutcome:
     neglected: np.ndarray
     study_efficacy: np.ndarray
     study_futility: np.ndarray
+    uncertain: np.ndarray
 
     @property
     def success(self) -> np.ndarray:
@@ -184,7 +189,7 @@ def run_arms(pairs: Sequence[Design], truths: np.ndarray,
             rule = build_rule(pair, cache, truths=rows[j])
         built.append(rule)
     results = [_one_truth(pairs, built, t, shared) for t in truths]
-    return ArmsOutcome(*(np.array([r[i] for r in results]) for i in range(10)))
+    return ArmsOutcome(*(np.array([r[i] for r in results]) for i in range(11)))
 
 
 def _pair_truths(truths: np.ndarray, j: int, shared: bool) -> np.ndarray:
@@ -202,6 +207,10 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
                       for r in rules]
     futility_masks = [[t.futility if shared else t.futility[:, None] for t in r.looks]
                       for r in rules]
+    uncertain_masks = [[None if t.uncertain is None
+                        else t.uncertain if shared else t.uncertain[:, None] for t in r.looks]
+                       for r in rules]
+    unsure = 0.0
     control_size = [min(m[k].shape[1] for m in efficacy_masks) for k in range(n_looks)]
     weight = np.ones(1)
     control = np.zeros(1, dtype=np.int64)
@@ -256,6 +265,9 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
             # mask rows gathered at each path's control count: (paths, arm points)
             e = efficacy_masks[j][k][:, control].T
             f = futility_masks[j][k][:, control].T
+            u_mask = uncertain_masks[j][k]
+            if u_mask is not None:
+                unsure += weight @ np.where(u_mask[:, control].T, dist[j], 0.0).sum(axis=1)
             e_mass = np.where(e, dist[j], 0.0).sum(axis=1)
             f_mass = np.where(f & ~e, dist[j], 0.0).sum(axis=1)
             eff[j, k] += weight @ e_mass
@@ -282,7 +294,7 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
     study_eff = np.diff(ended_won, prepend=0.0)
     study_fut = np.diff(ended_lost, prepend=0.0)
     return (eff, fut, successes, family_wise, null, reach, expected_n, neglected, study_eff,
-            study_fut)
+            study_fut, unsure)
 
 
 def _count_distribution(won: np.ndarray) -> np.ndarray:
