@@ -183,7 +183,7 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
             "", "a several-arm design with an exact engine (fixed allocation, per-arm rules)",
             why)])
     truths = sorted({c.truth for c in claims.claims})
-    table, _ = evaluate_design(design, np.array(truths))
+    table, outcome = evaluate_design(design, np.array(truths))
     index = {t: i for i, t in enumerate(truths)}
     n_max = _total_range(design)
     rows = []
@@ -220,7 +220,10 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
     info = {"engine": "exact (several arms)", "alpha": alpha, "adjustment": "Holm (1979)",
             "tolerance": tolerance, "claims_total": len(out), "scenarios": len(truths),
             "discrepant": int((out["verdict"] == DISCREPANT).sum()),
-            "consistent": int((out["verdict"] == CONSISTENT).sum())}
+            "consistent": int((out["verdict"] == CONSISTENT).sum()),
+            # bounds on the exact numbers' error: truncated counts, grid posteriors
+            "max_neglected_mass": float(outcome.neglected.max()),
+            "max_uncertain_mass": float(outcome.uncertain.max())}
     return ArmsVerification(design, claims, out, info)
 
 
