@@ -15,10 +15,10 @@ every treatment arm has stopped.
 
 The number of control paths is the product over looks of the control's increment
 sizes plus one, so the engine is for small studies (it refuses more than
-:data:`MAX_PATHS` paths); against a benchmark there is one path and any number of arms
-and subjects is cheap. Rules that couple the arms (dropping when Pr(best) is low,
-selection, response-adaptive allocation) are outside it: they need the joint lattice or
-simulation.
+:data:`MAX_CELLS` path-by-count cells, about 80 MB per copy); against a benchmark there
+is one path and any number of arms and subjects is cheap. Rules that couple the arms
+(dropping when Pr(best) is low, selection, response-adaptive allocation) are outside
+it: they need the joint lattice or simulation.
 
 With one treatment arm the walk is the two-arm programme of
 :mod:`octrial.engines.lattice_programme` summed in another order (equal to rounding).
@@ -38,11 +38,12 @@ from octrial.engines.lattice_programme import add_increment
 from octrial.multiarm.model import MultiArmDesign
 from octrial.rules.lattice import LatticeCache, LatticeRule, build_rule
 
-__all__ = ["MAX_PATHS", "ArmsOutcome", "check_pairs", "evaluate_design", "run_arms",
+__all__ = ["MAX_CELLS", "ArmsOutcome", "check_pairs", "evaluate_design", "run_arms",
            "stopping_sd", "unsupported"]
 
-MAX_PATHS = 2_000_000
-"""Largest number of control paths (nodes of the last look) the engine will walk."""
+MAX_CELLS = 10_000_000
+"""Largest number of (control path, arm count) cells the engine will hold at one look,
+summed over the treatment arms: a memory bound."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -244,13 +245,18 @@ def _one_truth(pairs: Sequence[Design], rules: Sequence[LatticeRule], truth: np.
         if shared:
             pmf = family.increment_pmf(pairs[0], truth[-1], sizes[0][1] - previous[0][1],
                                        control_size[k])
+            # the pmf is padded to the lattice: paths past its last nonzero point never occur
+            nonzero = np.flatnonzero(pmf)
+            pmf = pmf[: nonzero[-1] + 1] if nonzero.size else pmf[:1]
         else:
             pmf = np.ones(1)
         steps = np.arange(pmf.size)
         paths = weight.size * pmf.size
-        if paths > MAX_PATHS:
-            raise ValueError(f"the exact several-arm engine would follow {paths} control "
-                             f"paths (at most {MAX_PATHS}); use simulation")
+        cells = paths * sum(d.shape[1] for d in new_dist)
+        if cells > MAX_CELLS:
+            raise ValueError(f"the exact several-arm engine would hold {cells} cells "
+                             f"({paths} control paths; at most {MAX_CELLS} cells); "
+                             "use simulation")
         new_control = (control[:, None] + steps[None, :]).ravel()
         new_weight = (weight[:, None] * pmf[None, :]).ravel()
         keep = (new_control < control_size[k]) & (new_weight > 0)
