@@ -30,6 +30,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy import optimize
 
 from octrial._version import __version__
 from octrial.caution import CAUTION
@@ -85,20 +86,37 @@ def with_threshold(design: Design, threshold: float) -> Design:
 def global_null(pairs: Sequence[Design], control: Sequence[float] | np.ndarray) -> np.ndarray:
     """Null points with every treatment arm on its null boundary.
 
-    With a shared control (a difference comparison), one row per control value: each arm
-    at the control value moved by its hypothesis' shift in the better direction.
-    Against a benchmark, the single row of every arm at its benchmark.
+    With a shared control, one row per control value: each arm at the value where its
+    hypothesis' effect is zero (:meth:`~octrial.endpoints.base.Family.effect`; found by
+    root finding, so any comparison: difference, ratio, odds ratio); control values whose
+    boundary falls outside the parameter range are left out. Against a benchmark, the
+    single row of every arm at its benchmark.
     """
     if not check_pairs(pairs):
         return np.array([[p.hypothesis.null_value for p in pairs]])
-    if any(p.hypothesis.comparison != "difference" for p in pairs):
-        raise ValueError("global_null builds difference comparisons only; give the null "
-                         "points explicitly")
-    rows = [[c + p.hypothesis.sign * p.hypothesis.shift for p in pairs] + [c] for c in control]
-    out = np.array(rows, dtype=float)
-    inside = np.all((out > 0.0) & (out < 1.0), axis=1) if pairs[0].family.name == "binary" \
-        else np.all(out > 0.0, axis=1)
-    return out[inside]
+    rows = []
+    for c in control:
+        row = [_boundary(p, float(c)) for p in pairs]
+        if all(v is not None for v in row):
+            rows.append([*row, float(c)])
+    if not rows:
+        raise ValueError("no control value gives null boundaries inside the parameter range")
+    return np.array(rows, dtype=float)
+
+
+def _boundary(pair: Design, control: float) -> float | None:
+    """The treatment value on ``pair``'s null boundary at this control value."""
+    family = pair.family
+    low, high = family.parameter_range
+    low = max(low, 1e-12) if low >= 0 else max(low, control - 1e6)
+    high = min(high, 1.0 - 1e-12) if high <= 1 else min(high, control * 1e6 + 1e6)
+
+    def effect(t: float) -> float:
+        return float(family.effect(pair.hypothesis, (t, control)))
+
+    if not low < control < high or effect(low) * effect(high) > 0:
+        return None
+    return float(optimize.brentq(effect, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps))
 
 
 def controlled_error(outcome: ArmsOutcome, target: str) -> np.ndarray:
