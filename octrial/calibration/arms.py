@@ -217,7 +217,8 @@ def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "f
     if null_range is None:
         low, high = design.family.parameter_range  # type: ignore[attr-defined]
         if not (np.isfinite(low) and np.isfinite(high)):
-            raise ValueError("null_range: needed for an unbounded parameter (LOW:HIGH)")
+            raise ValueError("null_range (--null-range LOW:HIGH): needed for an unbounded "
+                             "parameter")
         step = (high - low) / (null_points + 1)
         control = np.linspace(low + step, high - step, null_points)
     else:
