@@ -16,6 +16,7 @@ from click.testing import CliRunner
 
 from octrial.cli import main
 from octrial.engines.arms_exact import evaluate_design
+from octrial.engines.arms_joint import joint_exact
 from tests.test_arms_exact import THREE_DOSES, multiarm
 
 HEADER = "true_control,true_low,true_high,metric,claimed,replicates,note\n"
@@ -65,10 +66,26 @@ def test_bad_claims_exit_2(files):
     assert not (folder / "out").exists()  # nothing half-written
 
 
+def test_coupled_arms_through_the_joint_engine(files):
+    # dropping on Pr(best): recomputed on the joint lattice (engines/arms_joint.py)
+    design, folder, _ = files
+    text = THREE_DOSES.replace("futility = 0.1", "futility = 0.1\ndrop_if_best_below = 0.1")
+    design.write_text(text)
+    value = joint_exact(multiarm(text), (0.3, 0.3, 0.55))["high_prob_success"]
+    claims = folder / "claims.csv"
+    claims.write_text(HEADER + f"0.3,0.3,0.55,high_prob_success,{value:.4f},,\n")
+    result = run(["verify", design, claims, "--out", folder / "out"])
+    assert result.exit_code == 0, result.output
+    record = json.loads((folder / "out" / "verify.json").read_text())
+    assert record["engine"] == "exact (several arms, joint lattice)"
+
+
 def test_design_without_exact_engine_exit_2(files):
+    # dropping on Pr(best) in a study too large for the joint lattice
     design, folder, _ = files
     design.write_text(THREE_DOSES.replace("futility = 0.1",
-                                          "futility = 0.1\ndrop_if_best_below = 0.1"))
+                                          "futility = 0.1\ndrop_if_best_below = 0.1")
+                      .replace("n = [24, 48, 72]", "n = [240, 480, 720]"))
     claims = folder / "claims.csv"
     claims.write_text(HEADER + "0.3,0.3,0.55,prob_success,0.5,,\n")
     result = run(["verify", design, claims, "--out", folder / "out"])

@@ -8,8 +8,10 @@ arm ``<arm>_prob_success``, ``<arm>_expected_n``, ``<arm>_look<k>_stop_efficacy`
 ``<arm>_look<k>_stop_futility``; for the study ``prob_success`` (at least one arm
 succeeds), ``fwer``, ``prob_stop_efficacy``, ``prob_stop_futility``,
 ``look<k>_stop_efficacy``, ``look<k>_stop_futility``, ``expected_n`` and (with a shared
-control) ``control_expected_n``. Every claim is recomputed by the exact several-arm engine
-(:mod:`octrial.engines.arms_exact`; fixed allocation, per-arm rules) and judged by the
+control) ``control_expected_n``. Every claim is recomputed exactly, by the control-path
+walk (:mod:`octrial.engines.arms_exact`; fixed allocation, per-arm rules) or, when Pr(best)
+dropping or selection couples the arms, on the joint lattice
+(:mod:`octrial.engines.arms_joint`; small binary studies), and judged by the
 same rounding-aware two-sided test as any claim (:mod:`.comparison`), Holm-adjusted over
 all claims.
 
@@ -35,6 +37,7 @@ from octrial.caution import CAUTION
 from octrial.csv_input import read_rows
 from octrial.design.reader import Phrase, Problems, suggest
 from octrial.engines.arms_exact import evaluate_design, unsupported
+from octrial.engines.arms_joint import joint_exact
 from octrial.errors import InputError, Problem
 from octrial.multiarm.load import is_multiarm
 from octrial.multiarm.model import MultiArmDesign
@@ -175,24 +178,26 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
     Raises
     ------
     InputError
-        When the design has no exact several-arm engine (:func:`unsupported`).
+        When neither exact several-arm engine applies.
     """
-    why = unsupported(design)
-    if why is not None:
-        raise InputError(design.source.path, [Problem(
-            "", "a several-arm design with an exact engine (fixed allocation, per-arm rules)",
-            why)])
     truths = sorted({c.truth for c in claims.claims})
-    table, outcome = evaluate_design(design, np.array(truths))
+    table, facts = _exact_table(design, truths)
     index = {t: i for i, t in enumerate(truths)}
     n_max = _total_range(design)
+    per_arm = np.array(design.looks.per_arm)
+    arm_spread = float((per_arm[-1] - per_arm[0]).max()) / 2.0
     rows = []
     for c in claims.claims:
         row = table.iloc[index[c.truth]]
         value = float(row[c.metric])
-        # the total's sd is not exact here: Popoviciu's bound (module docstring)
-        sd = (float(row[c.metric.removesuffix("_expected_n") + "_sd_n"])
-              if c.metric.endswith("_expected_n") else (n_max[1] - n_max[0]) / 2.0)
+        # an sd the engine does not give exactly is bounded (Popoviciu; module docstring)
+        sd_column = c.metric.removesuffix("_expected_n") + "_sd_n"
+        if c.metric.endswith("_expected_n") and sd_column in table.columns:
+            sd = float(row[sd_column])
+        elif c.metric.endswith("_expected_n"):
+            sd = arm_spread
+        else:
+            sd = (n_max[1] - n_max[0]) / 2.0
         rows.append((c, value, sd))
     claimed = np.array([c.claimed for c, _, _ in rows])
     recomputed = np.array([r for _, r, _ in rows])
@@ -217,14 +222,34 @@ def verify_arms(design: MultiArmDesign, claims: Claims, *, alpha: float = 0.05,
     out["z"], out["p"], out["p_holm"] = z, p, p_holm
     out["verdict"] = np.where(p_holm < alpha, DISCREPANT, CONSISTENT)
     out["note"] = [spreadsheet_safe(c.note) for c, _, _ in rows]
-    info = {"engine": "exact (several arms)", "alpha": alpha, "adjustment": "Holm (1979)",
+    info = {"alpha": alpha, "adjustment": "Holm (1979)",
             "tolerance": tolerance, "claims_total": len(out), "scenarios": len(truths),
             "discrepant": int((out["verdict"] == DISCREPANT).sum()),
-            "consistent": int((out["verdict"] == CONSISTENT).sum()),
-            # bounds on the exact numbers' error: truncated counts, grid posteriors
-            "max_neglected_mass": float(outcome.neglected.max()),
-            "max_uncertain_mass": float(outcome.uncertain.max())}
+            "consistent": int((out["verdict"] == CONSISTENT).sum()), **facts}
     return ArmsVerification(design, claims, out, info)
+
+
+def _exact_table(design: MultiArmDesign,
+                 truths: list[tuple[float, ...]]) -> tuple[pd.DataFrame, dict[str, Any]]:
+    """The exact table at ``truths``: the control-path walk when the arms are judged
+    independently, else the joint lattice (binary, small studies)."""
+    why = unsupported(design)
+    if why is None:
+        table, outcome = evaluate_design(design, np.array(truths))
+        # bounds on the exact numbers' error: truncated counts, grid posteriors
+        return table, {"engine": "exact (several arms, control paths)",
+                       "max_neglected_mass": float(outcome.neglected.max()),
+                       "max_uncertain_mass": float(outcome.uncertain.max())}
+    if design.allocation.kind == "fixed":
+        try:
+            rows = [joint_exact(design, t) for t in truths]
+        except (ValueError, NotImplementedError) as exc:
+            why = f"{why}; the joint exact engine does not apply either ({exc})"
+        else:
+            return pd.DataFrame(rows), {"engine": "exact (several arms, joint lattice)"}
+    raise InputError(design.source.path, [Problem(
+        "", "a several-arm design with an exact engine (fixed allocation; per-arm rules, "
+        "or a small binary study)", why)])
 
 
 def _total_range(design: MultiArmDesign) -> tuple[float, float]:
