@@ -322,3 +322,53 @@ def test_partial_null_error_counts_only_null_arms_and_selection_is_biased_upward
     assert partial["low_is_null"] and not partial["mid_is_null"]
     assert partial["fwer"] == partial["low_prob_success"]
     assert null["selected_bias"] > 0
+
+
+def count_data():
+    gamma = {"distribution": "gamma", "shape": 1.0, "rate": 1.0}
+    return {
+        "schema": 1, "name": "multi-count",
+        "endpoint": {"type": "count", "exposure": 1.0, "better": "lower"},
+        "hypothesis": {"comparison": "ratio", "kind": "superiority", "margin": 0.0},
+        "arms": {a: {"prior": dict(gamma)} for a in ("control", "a", "b")},
+        "looks": {"n": [60, 120], "efficacy": [0.995, 0.975], "futility": [0.05, "none"]},
+        "scenarios": {"control": [1.5], "a": [1.5], "b": [1.0]},
+        "simulation": {"seed": 3, "replicates": 20_000},
+    }
+
+
+def test_count_arms_match_the_two_arm_exact_engine():
+    # counts through the family protocol (truncated lattices): each arm's marginal
+    # success against the two-arm exact engine for that arm and the control, 4 SE
+    d = parse(count_data())
+    oc = simulate_design(d).iloc[0]
+    for t, name in enumerate(d.treatment_names):
+        exact = two_arm_exact(d.pairs[t], (oc[f"true_{name}"], oc["true_control"]))
+        se = max(oc[f"{name}_prob_success_se"], 1e-4)
+        assert abs(oc[f"{name}_prob_success"] - exact["prob_success"]) <= 4 * se, name
+
+
+def test_count_one_treatment_arm_is_the_two_arm_design_bit_for_bit():
+    d = parse(count_data())
+    one = dataclasses.replace(
+        d, treatments=d.treatments[1:], pairs=d.pairs[1:],
+        looks=dataclasses.replace(d.looks, per_arm=tuple((r[0], r[2])
+                                                         for r in d.looks.per_arm)),
+        scenarios=Scenarios(("control", "b"), ((1.5, 1.0),)))
+    oc = simulate_design(one).iloc[0]
+    pair = dataclasses.replace(d.pairs[1], scenarios=Scenarios(d.pairs[1].scenarios.arms,
+                                                               ((1.0, 1.5),)))
+    two = octrial.evaluate(pair, method="monte-carlo").iloc[0]
+    for column in ("prob_success", "prob_stop_efficacy", "prob_stop_futility",
+                   "look1_stop_efficacy", "look2_stop_efficacy"):
+        assert oc[column] == two[column], column
+
+
+def test_a_scenario_is_simulated_the_same_whatever_follows_it():
+    # scenario i, batch b has its own generator (the Monte Carlo engine's), so a row's
+    # numbers do not depend on the other rows or on how the work is split
+    data = design_data(drop_if_best_below=0.1)
+    both = simulate_design(parse(data), replicates=60_000)
+    data["scenarios"] = {k: v[:1] for k, v in data["scenarios"].items()}
+    first = simulate_design(parse(data), replicates=60_000)
+    assert first.iloc[0].equals(both.iloc[0])
