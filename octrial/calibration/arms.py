@@ -215,7 +215,7 @@ def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "f
     if null_points < 2:
         raise ValueError(f"null_points: expected a whole number >= 2; got {null_points}")
     if null_range is None:
-        low, high = design.family.parameter_range  # type: ignore[attr-defined]
+        low, high = design.family.parameter_range
         if not (np.isfinite(low) and np.isfinite(high)):
             raise ValueError("null_range (--null-range LOW:HIGH): needed for an unbounded "
                              "parameter")

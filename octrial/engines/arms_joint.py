@@ -56,7 +56,7 @@ def joint_exact(design: MultiArmDesign, row: tuple[float, ...],
     offset = 1 if design.shared_control else 0
     truth_t = [row[offset + t] for t in range(T)]
     truth_c = row[0] if design.shared_control else None
-    nulls = [bool(design.family.is_null(  # type: ignore[attr-defined]
+    nulls = [bool(design.family.is_null(
         p.hypothesis, (truth_t[t], truth_c) if design.shared_control else (truth_t[t],)))
         for t, p in enumerate(design.pairs)]
     x_size, c_size = tables.decision.shape[2], tables.decision.shape[3]
