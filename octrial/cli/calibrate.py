@@ -9,6 +9,8 @@ import click
 
 from octrial.bayesian_oc import METRICS
 from octrial.calibration import calibrate
+from octrial.calibration.arms import TARGETS as ARMS_TARGETS
+from octrial.calibration.arms import calibrate_multiarm, write_arms_calibration
 from octrial.calibration.files import summary_lines, write_calibration
 from octrial.calibration.request import LOOK_RULES, RULES, SEARCHES, SIZING_RULES
 from octrial.caution import CAUTION
@@ -21,7 +23,9 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
+from octrial.multiarm.load import load_multiarm
 from octrial.provenance import now
+from octrial.review.arms_verification import several_arms
 
 
 @click.command("calibrate", epilog=f"Caution: {CAUTION}")
@@ -72,6 +76,9 @@ from octrial.provenance import now
               help="Points of the grid over the null region [default: 50].")
 @click.option("--method", type=click.Choice(["auto", "exact", "monte-carlo"]), default=None,
               help="Engine; overrides simulation.method in the design file.")
+@click.option("--error-rate", "error_rate", type=click.Choice(ARMS_TARGETS), default=None,
+              help="Several treatment arms: which type I error --alpha bounds, the "
+                   "family-wise error rate or each arm's own [default: family-wise].")
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
               help="Folder for the outputs [default: reports/<design name>/].")
 @simulation_options
@@ -101,6 +108,11 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
     message gives the best found); nothing is written then; 130 interrupted.
     """
     started = now()
+    if several_arms(design):
+        _calibrate_arms(design, out, started, simulation.quiet, **options)
+        return
+    if options.pop("error_rate") is not None:
+        raise click.UsageError("--error-rate applies to designs with several treatment arms")
     loaded = read_design(design)
     settings = {k: v for k, v in options.items() if v is not None and v != ()}
     folder = Path(out) if out else default_out(loaded)
@@ -115,5 +127,53 @@ def calibrate_command(design: str, out: str | None, simulation: SimulationOption
         return
     for line in summary_lines(result):
         click.echo(line)
+    click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+    click.echo(f"Caution: {CAUTION}", err=True)
+
+
+ARMS_OPTIONS = {"alpha", "null_range", "null_points", "error_rate"}
+"""The options that apply to a design with several treatment arms."""
+
+
+def _calibrate_arms(design: str, out: str | None, started: str, quiet: bool,
+                    **options: object) -> None:
+    """Several treatment arms: the common final threshold, by the exact engine."""
+    given = sorted(k for k, v in options.items()
+                   if v is not None and v != () and k not in ARMS_OPTIONS)
+    if given:
+        raise click.UsageError("with several treatment arms only --alpha, --error-rate, "
+                               "--null-range and --null-points apply; got "
+                               + ", ".join("--" + k.replace("_", "-") for k in given))
+    alpha = options.get("alpha")
+    if not isinstance(alpha, float) or not 0.0 < alpha < 1.0:
+        raise click.BadParameter(f"expected a number in (0, 1); got {alpha}",
+                                 param_hint="--alpha")
+    null_range = None
+    if options.get("null_range") is not None:
+        try:
+            low, high = (float(v) for v in str(options["null_range"]).split(":"))
+        except ValueError:
+            raise click.BadParameter("expected LOW:HIGH, two numbers",
+                                     param_hint="--null-range") from None
+        null_range = (low, high)
+    points = options.get("null_points")
+    target = str(options.get("error_rate") or "family-wise")
+    loaded = load_multiarm(design)
+    try:
+        result = calibrate_multiarm(loaded, alpha, target=target, null_range=null_range,
+                                    null_points=int(points) if isinstance(points, int) else 19)
+    except ValueError as exc:
+        raise click.UsageError(str(exc)) from None
+    if result.threshold is None:
+        raise click.UsageError(f"no final threshold keeps the {target} error at or below "
+                               f"{alpha:g} (the strictest gives {result.error:.4g})")
+    folder = Path(out) if out else Path("reports") / loaded.name
+    written = write_arms_calibration(folder, loaded, result, alpha, target, started=started,
+                                     command=["octrial", *sys.argv[1:]])
+    if quiet:
+        return
+    click.echo(f"{loaded.name}: final threshold {result.threshold:.6g} for every arm; "
+               f"{target} error {result.error:.4g} <= {alpha:g} (largest over the null "
+               "line, exact several-arm engine)")
     click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
     click.echo(f"Caution: {CAUTION}", err=True)

@@ -18,9 +18,16 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
+from octrial.multiarm.load import load_multiarm
 from octrial.plurals import count
 from octrial.provenance import now
 from octrial.review import read_claims, verify
+from octrial.review.arms_verification import (
+    read_arms_claims,
+    several_arms,
+    verify_arms,
+    write_arms_verification,
+)
 from octrial.review.verification import (
     DEFAULT_ALPHA,
     DEFAULT_TOLERANCE,
@@ -68,6 +75,9 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
     if replicates is not None and simulation.target_se is not None:
         raise click.UsageError("--replicates and --target-se exclude each other")
     started = now()
+    if several_arms(design):
+        _verify_arms(design, claims, out, alpha, tolerance, started, simulation.quiet)
+        return
     loaded = read_design(design)
     table = read_claims(claims, loaded)
     folder = Path(out) if out else default_out(loaded)
@@ -80,6 +90,30 @@ def verify_command(design: str, claims: str, out: str | None, alpha: float, tole
     execution.remove_checkpoints()
     if not simulation.quiet:
         click.echo(_summary(result))
+        click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
+        click.echo(f"Caution: {CAUTION}", err=True)
+    if result.discrepant:
+        raise SystemExit(EXIT_DISCREPANT)
+
+
+def _verify_arms(design: str, claims: str, out: str | None, alpha: float, tolerance: float,
+                 started: str, quiet: bool) -> None:
+    """A design with several treatment arms: every claim recomputed exactly."""
+    loaded = load_multiarm(design)
+    result = verify_arms(loaded, read_arms_claims(claims, loaded), alpha=alpha,
+                         tolerance=tolerance)
+    folder = Path(out) if out else Path("reports") / loaded.name
+    written = write_arms_verification(folder, result, started=started, command=sys.argv)
+    if not quiet:
+        info = result.info
+        click.echo(f"{loaded.name}: {count(info['claims_total'], 'claim')} at "
+                   f"{count(info['scenarios'], 'scenario')}, recomputed by the exact "
+                   "several-arm engine")
+        view = result.table[["line", "metric", "claimed", "recomputed", "z", "p", "p_holm",
+                             "verdict"]]
+        click.echo(_fixed(view))
+        click.echo(f"{info['discrepant']} of {count(info['claims_total'], 'claim')} "
+                   f"discrepant (two-sided test, Holm-adjusted, family-wise alpha {alpha:g}).")
         click.echo("wrote " + ", ".join(str(p) for p in written), err=True)
         click.echo(f"Caution: {CAUTION}", err=True)
     if result.discrepant:
