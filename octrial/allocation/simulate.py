@@ -1,0 +1,132 @@
+"""Simulated studies with adaptive allocation: batches, seeding and summaries.
+
+Randomness follows the Monte Carlo engine (:mod:`octrial.engines.monte_carlo`): scenario
+i's batch b draws its uniforms from ``Generator(PCG64(SeedSequence(seed,
+spawn_key=(i, b))))`` and batches have a fixed size, so any split of the batches over
+workers gives the same numbers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from octrial.allocation.best import BestTable
+from octrial.allocation.kernel import simulate_studies
+from octrial.allocation.rule import AllocationRule
+from octrial.errors import Problem, SettingsError, show
+
+
+@dataclass(frozen=True)
+class AdaptiveStudy:
+    """A binary study with several arms and an allocation rule.
+
+    Attributes
+    ----------
+    looks : tuple of int
+        Cumulative subjects at each look (the last is the maximum).
+    rule : AllocationRule
+    prior : (weights, a, b)
+        Beta-mixture prior shared by the treatment arms (for Pr(best)).
+    control : bool
+        Whether arm 0 is a shared control (it takes no part in Pr(best)).
+    higher : bool
+        Whether a higher response probability is better.
+    drop_below : float
+        Treatment arms whose Pr(best) falls below this after a look stop enrolling;
+        0: none.
+    """
+
+    looks: tuple[int, ...]
+    rule: AllocationRule
+    prior: tuple = (1.0, 1.0, 1.0)
+    control: bool = True
+    higher: bool = True
+    drop_below: float = 0.0
+
+    def check(self, arms: int) -> None:
+        """Raise :class:`~octrial.errors.SettingsError` naming every problem."""
+        found = self.rule.problems(arms - int(self.control), self.control)
+        looks = np.asarray(self.looks)
+        if looks.size < 1 or np.any(np.diff(looks) <= 0) or looks[0] < 1:
+            found.append(Problem("looks", "increasing whole numbers >= 1",
+                                 show(list(self.looks))))
+        elif np.any(np.diff(np.concatenate([[0], looks])) > 1000):
+            found.append(Problem("looks", "blocks of at most 1000 subjects",
+                                 show(list(self.looks))))
+        treatments = arms - int(self.control)
+        if not 0 <= self.drop_below <= 1 / max(treatments, 1):
+            found.append(Problem("drop_below", f"a number in [0, 1/{treatments}] (so "
+                                 "that the leading arm never drops)",
+                                 show(self.drop_below)))
+        if found:
+            raise SettingsError("adaptive study", found)
+
+    def table(self) -> BestTable:
+        """The Pr(best) table up to the last interim look's size."""
+        largest = self.looks[-2] if len(self.looks) > 1 else 0
+        return BestTable.build(self.prior, int(largest), self.higher)
+
+
+@dataclass(frozen=True)
+class StudyBatch:
+    """Per-study results of one batch (arrays indexed study, look, arm)."""
+
+    sizes: np.ndarray
+    responses: np.ndarray
+    allocation: np.ndarray
+    dropped: np.ndarray
+
+
+def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: int,
+                   scenario: int, batch: int, table: BestTable | None = None) -> StudyBatch:
+    """Simulate one seeded batch of ``studies`` studies at true response ``rates``."""
+    rates = np.asarray(rates, float)
+    arms = rates.size
+    study.check(arms)
+    table = study.table() if table is None else table
+    looks = np.asarray(study.looks, np.int64)
+    generator = np.random.Generator(np.random.PCG64(
+        np.random.SeedSequence(seed, spawn_key=(scenario, batch))))
+    uniforms = generator.random((studies, looks.size, 2 * arms))
+    sizes = np.zeros((studies, looks.size, arms), np.int32)
+    responses = np.zeros_like(sizes)
+    allocation = np.zeros((studies, looks.size, arms))
+    dropped = np.zeros((studies, arms), np.int8)
+    form, power, control_share, minimum, burn_in, ratio = study.rule.codes(
+        arms - int(study.control), study.control)
+    simulate_studies(rates, looks, study.control, form, power, control_share, minimum,
+                     burn_in, ratio, float(study.drop_below), table.density, table.worse,
+                     table.weights, uniforms, sizes, responses, allocation, dropped)
+    return StudyBatch(sizes, responses, allocation, dropped)
+
+
+def simulate(study: AdaptiveStudy, rates: np.ndarray, replicates: int, seed: int,
+             scenario: int = 0, batch_size: int = 50_000) -> StudyBatch:
+    """All batches of one scenario, in batch order (the last may be shorter)."""
+    table = study.table()
+    parts = []
+    for b, start in enumerate(range(0, replicates, batch_size)):
+        parts.append(simulate_batch(study, rates, min(batch_size, replicates - start),
+                                    seed, scenario, b, table))
+    return StudyBatch(*(np.concatenate([getattr(p, f) for p in parts])
+                        for f in ("sizes", "responses", "allocation", "dropped")))
+
+
+def summary(batch: StudyBatch, looks: tuple[int, ...]) -> pd.DataFrame:
+    """Per arm: expected subjects (and its standard error), mean allocation
+    probability of each block and the probability of having been dropped after each
+    look."""
+    studies, n_looks, arms = batch.sizes.shape
+    final = batch.sizes[:, -1, :].astype(float)
+    rows = {"arm": np.arange(arms),
+            "expected_n": final.mean(axis=0),
+            "expected_n_se": final.std(axis=0, ddof=1) / np.sqrt(studies)
+            if studies > 1 else np.full(arms, np.nan)}
+    for k in range(n_looks):
+        rows[f"allocation_block{k + 1}"] = batch.allocation[:, k, :].mean(axis=0)
+    for k in range(n_looks - 1):
+        rows[f"pr_dropped_look{k + 1}"] = (batch.dropped == k).mean(axis=0)
+    return pd.DataFrame(rows)
