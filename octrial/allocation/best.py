@@ -21,6 +21,8 @@ import numba
 import numpy as np
 from scipy import special, stats
 
+NEGLIGIBLE = 1e-18
+
 
 def quadrature_nodes(panels: int = 12, per_panel: int = 8) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Legendre nodes and weights on [0, 1] over graded panels.
@@ -127,6 +129,10 @@ class BestTable:
     ----------
     density, worse : numpy.ndarray
         Shape (states, nodes); state ``n (n + 1) / 2 + x`` for ``0 <= x <= n <= largest``.
+    support : numpy.ndarray
+        Shape (states, 2): the first and one past the last node where the weighted
+        density exceeds ``NEGLIGIBLE``; the kernel integrates each arm over its support
+        only (the neglected mass is below ``NEGLIGIBLE`` times the number of nodes).
     weights : numpy.ndarray
         Quadrature weights of the nodes.
     largest : int
@@ -135,6 +141,7 @@ class BestTable:
 
     density: np.ndarray
     worse: np.ndarray
+    support: np.ndarray
     weights: np.ndarray
     largest: int
 
@@ -151,28 +158,31 @@ class BestTable:
             d, s = posterior_on_nodes(prior, n, np.arange(n + 1), nodes, higher)
             density[start:start + n + 1] = d
             worse[start:start + n + 1] = s
-        return cls(density, worse, weights, largest)
+        above = weights[None, :] * density > NEGLIGIBLE
+        support = np.zeros((states, 2), np.int64)
+        support[:, 0] = np.argmax(above, axis=1)
+        support[:, 1] = nodes.size - np.argmax(above[:, ::-1], axis=1)
+        return cls(density, worse, support, weights, largest)
 
 
 @numba.njit(cache=True)
-def best_from_table(density, worse, weights, sizes, responses, active, first,
-                    out):  # pragma: no cover - compiled
+def best_from_table(density, worse, support, weights, sizes, responses, active, first,
+                    states, out):  # pragma: no cover - compiled
     """Pr(best) among the active arms ``first..`` from a :class:`BestTable`'s arrays;
-    inactive arms (and arms before ``first``) get 0."""
+    inactive arms (and arms before ``first``) get 0. ``states`` is scratch space."""
     arms = out.shape[0]
-    nodes = weights.shape[0]
     for j in range(arms):
         out[j] = 0.0
-    for g in range(nodes):
-        for j in range(first, arms):
-            if not active[j]:
-                continue
-            sj = sizes[j] * (sizes[j] + 1) // 2 + responses[j]
+        states[j] = sizes[j] * (sizes[j] + 1) // 2 + responses[j]
+    for j in range(first, arms):
+        if not active[j]:
+            continue
+        sj = states[j]
+        total = 0.0
+        for g in range(support[sj, 0], support[sj, 1]):
             term = weights[g] * density[sj, g]
-            if term == 0.0:
-                continue
             for i in range(first, arms):
                 if i != j and active[i]:
-                    si = sizes[i] * (sizes[i] + 1) // 2 + responses[i]
-                    term *= worse[si, g]
-            out[j] += term
+                    term *= worse[states[i], g]
+            total += term
+        out[j] = total

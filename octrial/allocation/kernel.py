@@ -46,8 +46,8 @@ def binomial_inverse(n, p, u):  # pragma: no cover - compiled
 
 @numba.njit(cache=True)
 def simulate_studies(rates, looks, control, form, power, control_share, minimum,
-                     burn_in, ratio, drop_below, density, worse, weights, uniforms,
-                     sizes, responses, allocation, dropped):  # pragma: no cover
+                     burn_in, ratio, drop_below, density, worse, support, weights,
+                     uniforms, sizes, responses, allocation, dropped):  # pragma: no cover
     """Simulate ``uniforms.shape[0]`` studies; write per look and arm the cumulative
     subjects ``sizes``, responses ``responses`` and the allocation probabilities used
     for the block that ended at that look; ``dropped[r, j]`` is the look after which arm
@@ -62,6 +62,7 @@ def simulate_studies(rates, looks, control, form, power, control_share, minimum,
     active = np.ones(arms, np.bool_)
     probs = np.zeros(arms)
     pr_best = np.zeros(arms)
+    states = np.zeros(arms, np.int64)
     for r in range(studies):
         for j in range(arms):
             n[j] = 0
@@ -99,14 +100,15 @@ def simulate_studies(rates, looks, control, form, power, control_share, minimum,
                 break
             adaptive = form != 0 and enrolled >= burn_in
             if adaptive or drop_below > 0:
-                best_from_table(density, worse, weights, n, x, active, first, pr_best)
+                best_from_table(density, worse, support, weights, n, x, active, first,
+                                states, pr_best)
                 if drop_below > 0:
                     for j in range(first, arms):
                         if active[j] and pr_best[j] < drop_below:
                             active[j] = False
                             dropped[r, j] = k
                     if form != 0 and enrolled >= burn_in:
-                        best_from_table(density, worse, weights, n, x, active, first,
-                                        pr_best)
+                        best_from_table(density, worse, support, weights, n, x, active,
+                                        first, states, pr_best)
             shares(pr_best, active, control, form, power, control_share, minimum,
                    burn_in, ratio, enrolled, maximum, probs)
