@@ -58,7 +58,8 @@ class AllocationRule:
         Subjects enrolled before adaptation starts (the fixed ratio applies until then).
     ratio : tuple of float or None
         Fixed allocation ratio over the arms (control first when there is one); None:
-        equal.
+        the control share to the control and equal shares to the treatment arms, or
+        equal shares when no control share is given.
     """
 
     form: str = "fixed"
@@ -126,7 +127,13 @@ class AllocationRule:
                                                             int, np.ndarray]:
         """The rule as the plain numbers :func:`shares` takes."""
         arms = treatments + int(control)
-        ratio = np.ones(arms) if self.ratio is None else np.asarray(self.ratio, float)
+        if self.ratio is not None:
+            ratio = np.asarray(self.ratio, float)
+        elif control and self.control_share is not None:
+            ratio = np.full(arms, (1.0 - self.control_share) / treatments)
+            ratio[0] = self.control_share
+        else:
+            ratio = np.ones(arms)
         return (FORMS.index(self.form), float(self.power),
                 -1.0 if self.control_share is None else float(self.control_share),
                 float(self.minimum), int(self.burn_in), ratio)
