@@ -172,7 +172,8 @@ def test_table_kernel_equals_direct_quadrature():
         n = rng.integers(0, 41, size=4)
         x = rng.integers(0, n + 1)
         out = np.zeros(4)
-        best_from_table(table.density, table.worse, table.support, table.weights, n, x,
+        best_from_table(table.density, table.worse, table.support, table.reach,
+                        table.weights, n, x,
                         np.ones(4, bool), 0, np.zeros(4, np.int64), out)
         np.testing.assert_allclose(out, probability_best(x, n, prior), atol=1e-13)
 

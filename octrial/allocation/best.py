@@ -133,6 +133,10 @@ class BestTable:
         Shape (states, 2): the first and one past the last node where the weighted
         density exceeds ``NEGLIGIBLE``; the kernel integrates each arm over its support
         only (the neglected mass is below ``NEGLIGIBLE`` times the number of nodes).
+    reach : numpy.ndarray
+        Shape (states, 2): the same for 'worse than u' (above ``NEGLIGIBLE``); outside it
+        every other arm's integrand is negligible too, so the integration range of an
+        arm is also cut to the other arms' reach.
     weights : numpy.ndarray
         Quadrature weights of the nodes.
     largest : int
@@ -142,6 +146,7 @@ class BestTable:
     density: np.ndarray
     worse: np.ndarray
     support: np.ndarray
+    reach: np.ndarray
     weights: np.ndarray
     largest: int
 
@@ -158,16 +163,22 @@ class BestTable:
             d, s = posterior_on_nodes(prior, n, np.arange(n + 1), nodes, higher)
             density[start:start + n + 1] = d
             worse[start:start + n + 1] = s
-        above = weights[None, :] * density > NEGLIGIBLE
-        support = np.zeros((states, 2), np.int64)
-        support[:, 0] = np.argmax(above, axis=1)
-        support[:, 1] = nodes.size - np.argmax(above[:, ::-1], axis=1)
-        return cls(density, worse, support, weights, largest)
+        support = _span(weights[None, :] * density > NEGLIGIBLE)
+        return cls(density, worse, support, _span(worse > NEGLIGIBLE), weights, largest)
+
+
+def _span(above: np.ndarray) -> np.ndarray:
+    """First and one past the last True per row (an empty span for all-False rows)."""
+    span = np.zeros((above.shape[0], 2), np.int64)
+    any_row = above.any(axis=1)
+    span[:, 0] = np.where(any_row, np.argmax(above, axis=1), 0)
+    span[:, 1] = np.where(any_row, above.shape[1] - np.argmax(above[:, ::-1], axis=1), 0)
+    return span
 
 
 @numba.njit(cache=True)
-def best_from_table(density, worse, support, weights, sizes, responses, active, first,
-                    states, out):  # pragma: no cover - compiled
+def best_from_table(density, worse, support, reach, weights, sizes, responses, active,
+                    first, states, out):  # pragma: no cover - compiled
     """Pr(best) among the active arms ``first..`` from a :class:`BestTable`'s arrays;
     inactive arms (and arms before ``first``) get 0. ``states`` is scratch space."""
     arms = out.shape[0]
@@ -178,8 +189,14 @@ def best_from_table(density, worse, support, weights, sizes, responses, active, 
         if not active[j]:
             continue
         sj = states[j]
+        low = support[sj, 0]
+        high = support[sj, 1]
+        for i in range(first, arms):
+            if i != j and active[i]:
+                low = max(low, reach[states[i], 0])
+                high = min(high, reach[states[i], 1])
         total = 0.0
-        for g in range(support[sj, 0], support[sj, 1]):
+        for g in range(low, high):
             term = weights[g] * density[sj, g]
             for i in range(first, arms):
                 if i != j and active[i]:

@@ -46,7 +46,8 @@ def binomial_inverse(n, p, u):  # pragma: no cover - compiled
 
 @numba.njit(cache=True)
 def simulate_studies(rates, looks, control, form, power, control_share, minimum,
-                     burn_in, ratio, drop_below, density, worse, support, weights,
+                     burn_in, ratio, drop_below, density, worse, support, reach,
+                     weights,
                      uniforms, sizes, responses, allocation, dropped):  # pragma: no cover
     """Simulate ``uniforms.shape[0]`` studies; write per look and arm the cumulative
     subjects ``sizes``, responses ``responses`` and the allocation probabilities used
@@ -100,15 +101,18 @@ def simulate_studies(rates, looks, control, form, power, control_share, minimum,
                 break
             adaptive = form != 0 and enrolled >= burn_in
             if adaptive or drop_below > 0:
-                best_from_table(density, worse, support, weights, n, x, active, first,
-                                states, pr_best)
+                best_from_table(density, worse, support, reach, weights, n, x, active,
+                                first, states, pr_best)
                 if drop_below > 0:
+                    gone = 0
                     for j in range(first, arms):
                         if active[j] and pr_best[j] < drop_below:
                             active[j] = False
                             dropped[r, j] = k
-                    if form != 0 and enrolled >= burn_in:
-                        best_from_table(density, worse, support, weights, n, x, active,
-                                        first, states, pr_best)
+                            gone += 1
+                    # Pr(best) among the arms left, for the allocation
+                    if gone > 0 and adaptive:
+                        best_from_table(density, worse, support, reach, weights, n,
+                                        x, active, first, states, pr_best)
             shares(pr_best, active, control, form, power, control_share, minimum,
                    burn_in, ratio, enrolled, maximum, probs)

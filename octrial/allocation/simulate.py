@@ -99,8 +99,8 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
         arms - int(study.control), study.control)
     simulate_studies(rates, looks, study.control, form, power, control_share, minimum,
                      burn_in, ratio, float(study.drop_below), table.density, table.worse,
-                     table.support, table.weights, uniforms, sizes, responses,
-                     allocation, dropped)
+                     table.support, table.reach, table.weights, uniforms, sizes,
+                     responses, allocation, dropped)
     return StudyBatch(sizes, responses, allocation, dropped)
 
 
