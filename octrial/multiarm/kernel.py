@@ -1,0 +1,135 @@
+"""The numba kernel: simulated several-arm binary studies with fixed allocation.
+
+Policy (which tables, which seeds) lives in :mod:`octrial.multiarm.engine`; this is the
+loop over studies. Each study: at each look every arm still enrolling adds its planned
+subjects (one binomial draw per arm); each treatment arm still in the study is looked up
+in its own decision table; then arms whose probability of being the best is below the
+look's threshold are dropped, and at most ``keep`` arms go on. The control enrols while
+any treatment arm does. The study ends when no treatment arm is left.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+from octrial.multiarm.best import best_probabilities
+from octrial.simulation.draws import draw
+
+CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
+
+TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total",
+                "n_total_sq", "any_success", "any_null_success", "selected",
+                "selected_best", "selected_error", "end_success", "end_failure")
+
+
+@numba.njit(cache=True)
+def simulate(words, truth, increments, decision, mean, cdf, drop_below, keep,
+             control, sign, is_null, is_best, out_success, out_eff, out_fut, out_drop, out_n,
+             out_scalars, out_end, bounds, t_start, t_length, guide, guide_start, shift):
+    """Simulate ``len(words)`` studies at true rates ``truth``.
+
+    Arms are in slot order: the treatment arms, then the control (when there is one),
+    as in ``truth`` and ``increments``. ``words`` has shape (studies, looks, arms): one
+    random 64-bit word per arm and look, used by arm ``a`` at look ``k`` through draw
+    table ``k * arms + a`` (:mod:`octrial.simulation.draws`) whether or not the arm still
+    enrols, so each arm's data do not depend on the others' fate; with one treatment
+    arm the words and tables are those of the two-arm table kernel.
+
+    Counts are added into the ``out_*`` arrays: per treatment arm successes (T),
+    efficacy / futility / drop stops per look (T, K), subjects per arm (A), look at
+    which the study ends with or without a success (2, K), and ``out_scalars``:
+    [total n, total n squared, any success, any null arm succeeds, studies with a
+    selected arm, selected arm truly best, sum of selected estimate - truth]. The
+    selected arm is the successful arm with the best posterior mean at its decision
+    (``sign`` +1: highest, -1: lowest).
+    """
+    reps = words.shape[0]
+    K, A = increments.shape
+    T = decision.shape[0]
+    needs_best = cdf.shape[0] > 0
+    x = np.zeros(A, np.int64)
+    active = np.zeros(T, np.bool_)
+    success = np.zeros(T, np.bool_)
+    estimate = np.zeros(T)
+    probs = np.zeros(T)
+    cdfs = np.zeros((T, cdf.shape[3] if needs_best else 1))
+    for r in range(reps):
+        x[:] = 0
+        active[:] = True
+        success[:] = False
+        n_total = 0
+        end = K - 1
+        for k in range(K):
+            for a in range(A):
+                y = draw(words[r, k, a], k * A + a, bounds, t_start, t_length, guide,
+                         guide_start, shift)
+                if a < T and not active[a]:
+                    continue
+                x[a] += y
+                n_total += increments[k, a]
+                out_n[a] += increments[k, a]
+            c = x[T] if control else 0
+            left = 0
+            for t in range(T):
+                if not active[t]:
+                    continue
+                code = decision[t, k, x[t], c]
+                if code == EFFICACY:
+                    active[t] = False
+                    success[t] = True
+                    estimate[t] = mean[t, k, x[t]]
+                    out_eff[t, k] += 1
+                elif code == FUTILITY:
+                    active[t] = False
+                    out_fut[t, k] += 1
+                else:
+                    left += 1
+            if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
+                for t in range(T):
+                    if active[t]:
+                        cdfs[t, :] = cdf[t, k, x[t], :]
+                best_probabilities(cdfs, active, probs)
+                if drop_below[k] >= 0:
+                    for t in range(T):
+                        if active[t] and probs[t] < drop_below[k]:
+                            active[t] = False
+                            out_drop[t, k] += 1
+                            left -= 1
+                while keep > 0 and left > keep:
+                    # the arm least likely to be the best goes (ties: the later arm)
+                    worst = -1
+                    for t in range(T):
+                        if active[t] and (worst < 0 or probs[t] <= probs[worst]):
+                            worst = t
+                    active[worst] = False
+                    out_drop[worst, k] += 1
+                    left -= 1
+            if left == 0:
+                end = k
+                break
+        any_success = False
+        null_success = False
+        chosen = -1
+        for t in range(T):
+            if success[t]:
+                out_success[t] += 1
+                any_success = True
+                if is_null[t]:
+                    null_success = True
+                if chosen < 0 or sign * estimate[t] > sign * estimate[chosen]:
+                    chosen = t
+        out_scalars[0] += n_total
+        out_scalars[1] += n_total * n_total
+        if any_success:
+            out_scalars[2] += 1
+            out_end[0, end] += 1
+        else:
+            out_end[1, end] += 1
+        if null_success:
+            out_scalars[3] += 1
+        if chosen >= 0:
+            out_scalars[4] += 1
+            if is_best[chosen]:
+                out_scalars[5] += 1
+            out_scalars[6] += estimate[chosen] - truth[chosen]

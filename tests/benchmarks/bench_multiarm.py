@@ -1,0 +1,157 @@
+"""Benchmark: simulated four-arm binary studies per second, per core (issue 16).
+
+Run:  PYTHONPATH=. python tests/benchmarks/bench_multiarm.py      (about a minute)
+
+Design: a shared control and three treatment arms, Beta(1, 1) priors, looks at 60, 120
+and 180 subjects (15 per arm per look), each arm against the control on
+Pr(p_arm - p_control > 0 | data) with efficacy 0.999 / 0.999 / 0.975 and futility 0.05
+at the interim looks; fixed allocation, no Pr(best) rule; true rates 0.2 (control),
+0.25, 0.35, 0.4. Compared in one run, on one core, all with the same decision tables
+(each arm's two-arm lattice tables), so only the study loop differs:
+
+* (a) naive: a Python loop over studies, looks and arms with numpy's binomial draws;
+* (b) vectorised: numpy binomial draws for every study at once and the decisions by
+  fancy indexing of the tables, arm by arm, with masks for arms that have left;
+* octrial's kernel (random words + kernel, the engine's batch of 50 000), and the
+  engine end to end (tables, seeding, summaries) for one scenario.
+
+Target (issue 16): >= 1 million studies per second per core for the kernel. Each
+estimate of P(at least one arm succeeds) is printed so they can be compared.
+With --best, the same design with ``drop_if_best_below = 0.05`` (Pr(best) per study and
+interim look) is timed too.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+
+import numpy as np
+from scipy import stats
+
+from octrial.design.model import Source
+from octrial.engines.monte_carlo import batch_generator
+from octrial.multiarm import parse_multiarm
+from octrial.multiarm.engine import simulate_design
+from octrial.multiarm.kernel import simulate
+from octrial.multiarm.tables import EFFICACY, FUTILITY, build_tables
+from octrial.simulation.draws import DrawTables
+
+TRUTH = (0.2, 0.25, 0.35, 0.4)
+
+
+def design(drop: float | None = None):
+    flat = {"distribution": "beta", "a": 1, "b": 1}
+    looks = {"n": [60, 120, 180], "efficacy": [0.999, 0.999, 0.975],
+             "futility": [0.05, 0.05, "none"]}
+    if drop is not None:
+        looks["drop_if_best_below"] = drop
+    data = {"schema": 1, "name": "bench", "endpoint": {"type": "binary", "better": "higher"},
+            "hypothesis": {"comparison": "difference", "margin": 0.0},
+            "arms": {a: {"prior": dict(flat)} for a in ("control", "t1", "t2", "t3")},
+            "looks": looks,
+            "scenarios": {a: [v] for a, v in zip(("control", "t1", "t2", "t3"), TRUTH,
+                                                   strict=True)},
+            "simulation": {"seed": 1, "replicates": 10_000}}
+    return parse_multiarm(data, Source("bench", "", ""))
+
+
+def naive(tables, reps, rng):
+    inc = tables.increments
+    wins = 0
+    for _ in range(reps):
+        x = np.zeros(4, dtype=np.int64)
+        active = [True, True, True]
+        won = False
+        for k in range(3):
+            x[0] += rng.binomial(inc[k, 0], TRUTH[0])
+            for t in range(3):
+                if active[t]:
+                    x[1 + t] += rng.binomial(inc[k, 1 + t], TRUTH[1 + t])
+                    code = tables.decision[t, k, x[1 + t], x[0]]
+                    if code == EFFICACY:
+                        won = True
+                        active[t] = False
+                    elif code == FUTILITY:
+                        active[t] = False
+            if not any(active):
+                break
+        wins += won
+    return wins / reps
+
+
+def vectorised(tables, reps, rng):
+    inc = tables.increments
+    draws = rng.binomial(inc[None, :, :], np.array(TRUTH)[None, None, :],
+                         size=(reps, 3, 4)).cumsum(axis=1)
+    active = np.ones((reps, 3), dtype=bool)
+    won = np.zeros(reps, dtype=bool)
+    for k in range(3):
+        for t in range(3):
+            code = tables.decision[t, k, draws[:, k, 1 + t], draws[:, k, 0]]
+            won |= active[:, t] & (code == EFFICACY)
+            active[:, t] &= code == 0
+    return won.mean()
+
+
+def kernel_run(d, tables, reps):
+    order = np.array([1, 2, 3, 0])
+    truth = np.array(TRUTH)[order]
+    inc = np.ascontiguousarray(tables.increments[:, order])
+    draws = DrawTables.from_pmfs([stats.binom.pmf(np.arange(m + 1), m, p)
+                                  for k in range(3) for m, p in zip(inc[k], truth,
+                                                                    strict=True)])
+    T, K = 3, 3
+    outs = (np.zeros(T, np.int64), np.zeros((T, K), np.int64), np.zeros((T, K), np.int64),
+            np.zeros((T, K), np.int64), np.zeros(4, np.int64), np.zeros(7),
+            np.zeros((2, K), np.int64))
+    nulls = np.zeros(T, np.bool_)
+    best = np.array([False, False, True])
+    batch = 50_000
+    start = time.perf_counter()
+    for b in range(reps // batch):
+        words = batch_generator(1, 0, b).bit_generator.random_raw(batch * 12).reshape(
+            batch, 3, 4)
+        simulate(words, truth, inc, tables.decision, tables.mean, tables.cdf,
+                 tables.drop_below, tables.keep, tables.control, 1, nulls, best, *outs,
+                 *draws.arrays())
+    return time.perf_counter() - start, outs[5][2] / reps
+
+
+def main() -> None:
+    d = design()
+    tables = build_tables(d)
+    kernel_run(d, tables, 50_000)  # compile
+    rng = np.random.default_rng(2)
+    reps_naive, reps_vec, reps_kernel = 20_000, 1_000_000, 2_000_000
+
+    t0 = time.perf_counter()
+    p_naive = naive(tables, reps_naive, rng)
+    t_naive = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    p_vec = vectorised(tables, reps_vec, rng)
+    t_vec = time.perf_counter() - t0
+    t_kernel, p_kernel = kernel_run(d, tables, reps_kernel)
+    t0 = time.perf_counter()
+    simulate_design(d, replicates=reps_kernel)
+    t_engine = time.perf_counter() - t0
+
+    rate = {"naive": reps_naive / t_naive, "vectorised": reps_vec / t_vec,
+            "kernel": reps_kernel / t_kernel, "engine": reps_kernel / t_engine}
+    print(f"{'reference':<12}{'studies/s':>14}{'x naive':>10}{'P(any success)':>16}")
+    for name, p in (("naive", p_naive), ("vectorised", p_vec), ("kernel", p_kernel),
+                    ("engine", float("nan"))):
+        print(f"{name:<12}{rate[name]:>14,.0f}{rate[name] / rate['naive']:>10.1f}"
+              f"{p:>16.4f}")
+    print(f"kernel vs vectorised: {rate['kernel'] / rate['vectorised']:.1f}x; "
+          f"target 1,000,000 studies/s: {'met' if rate['kernel'] >= 1e6 else 'NOT met'}")
+    if "--best" in sys.argv:
+        db = design(0.05)
+        tb = build_tables(db)
+        kernel_run(db, tb, 50_000)
+        t, _ = kernel_run(db, tb, 200_000)
+        print(f"with drop_if_best_below = 0.05: {200_000 / t:,.0f} studies/s")
+
+
+if __name__ == "__main__":
+    main()
