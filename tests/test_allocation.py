@@ -286,3 +286,18 @@ def test_study_settings_are_checked():
     with pytest.raises(SettingsError) as caught:
         AdaptiveStudy((30, 20), AllocationRule(), drop_below=0.6).check(4)
     assert "looks" in str(caught.value) and "drop_below" in str(caught.value)
+
+
+def test_two_workers_give_the_numbers_of_one():
+    # run_grid with joblib workers: each scenario seeded by (seed, scenario, batch)
+    from octrial.allocation.simulate import simulate_grid
+    from octrial.execution import Execution
+
+    study = AdaptiveStudy((30, 60, 90), AllocationRule("information", minimum=0.05),
+                          drop_below=0.05)
+    grid = [(0.2, 0.2, 0.2, 0.2), (0.2, 0.25, 0.35, 0.5)]
+    one = simulate_grid(study, grid, 2000, seed=17, batch_size=700)
+    two = simulate_grid(study, grid, 2000, seed=17, execution=Execution(jobs=2),
+                        batch_size=700)
+    assert one.equals(two)
+    assert one.loc[one.scenario == 2, "expected_n"].sum() == pytest.approx(90)

@@ -17,6 +17,7 @@ from octrial.allocation.best import BestTable
 from octrial.allocation.kernel import simulate_studies
 from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
+from octrial.execution import Execution, run_grid
 
 
 @dataclass(frozen=True)
@@ -131,3 +132,54 @@ def summary(batch: StudyBatch, looks: tuple[int, ...]) -> pd.DataFrame:
     for k in range(n_looks - 1):
         rows[f"pr_dropped_look{k + 1}"] = (batch.dropped == k).mean(axis=0)
     return pd.DataFrame(rows)
+
+
+@dataclass(frozen=True)
+class ScenarioTask:
+    """One scenario of :func:`simulate_grid` (picklable for the workers)."""
+
+    study: AdaptiveStudy
+    rates: tuple[float, ...]
+    replicates: int
+    seed: int
+    scenario: int
+    batch_size: int
+
+
+def scenario_tallies(task: ScenarioTask) -> dict[str, np.ndarray]:
+    """Per-arm sums of one scenario (what :func:`simulate_grid` adds up)."""
+    batch = simulate(task.study, np.asarray(task.rates), task.replicates, task.seed,
+                     task.scenario, task.batch_size)
+    final = batch.sizes[:, -1, :].astype(float)
+    looks = batch.sizes.shape[1]
+    return {"n": final.sum(axis=0), "n_sq": (final**2).sum(axis=0),
+            "allocation": batch.allocation.sum(axis=0),
+            "dropped": np.stack([(batch.dropped == k).sum(axis=0)
+                                 for k in range(looks - 1)]).reshape(looks - 1, -1)}
+
+
+def simulate_grid(study: AdaptiveStudy, scenarios: list[tuple[float, ...]],
+                  replicates: int, seed: int, execution: Execution | None = None,
+                  batch_size: int = 50_000) -> pd.DataFrame:
+    """Per scenario and arm: expected subjects (with its standard error), mean
+    allocation probability of each block and the probability of being dropped after
+    each look. Scenario i is seeded by ``(seed, i, batch)``, so the number of workers
+    never changes a number.
+    """
+    execution = Execution() if execution is None else execution
+    tasks = [ScenarioTask(study, tuple(map(float, rates)), replicates, seed, i, batch_size)
+             for i, rates in enumerate(scenarios)]
+    results, _ = run_grid(scenario_tallies, tasks, execution)
+    frames = []
+    for i, (task, sums) in enumerate(zip(tasks, results, strict=True)):
+        mean = sums["n"] / replicates
+        var = np.maximum(sums["n_sq"] / replicates - mean**2, 0.0)
+        rows: dict[str, object] = {"scenario": i + 1, "arm": np.arange(len(task.rates)),
+                                   "true_rate": task.rates, "expected_n": mean,
+                                   "expected_n_se": np.sqrt(var / replicates)}
+        for k in range(sums["allocation"].shape[0]):
+            rows[f"allocation_block{k + 1}"] = sums["allocation"][k] / replicates
+        for k in range(sums["dropped"].shape[0]):
+            rows[f"pr_dropped_look{k + 1}"] = sums["dropped"][k] / replicates
+        frames.append(pd.DataFrame(rows))
+    return pd.concat(frames, ignore_index=True)
