@@ -301,3 +301,21 @@ def test_two_workers_give_the_numbers_of_one():
                         batch_size=700)
     assert one.equals(two)
     assert one.loc[one.scenario == 2, "expected_n"].sum() == pytest.approx(90)
+
+
+def test_next_block_for_a_fixed_data_set_by_hand():
+    # control and three doses, 20 subjects each, Beta(1, 1): posterior means
+    # (x + 1) / 22; Pr(best) by scipy quadrature; allocation c = 1, control 0.25
+    from octrial.allocation.interim import next_block
+
+    rule = AllocationRule("power", 1.0, control_share=0.25)
+    table = next_block(rule, [3, 4, 6, 10], [20, 20, 20, 20], maximum=160)
+    best = _best_by_substitution([4, 6, 10], [20, 20, 20], 1, 1)
+    np.testing.assert_allclose(table["posterior_mean"], np.array([4, 5, 7, 11]) / 22,
+                               rtol=1e-12)
+    np.testing.assert_allclose(table["pr_best"][1:], best, atol=1e-6)
+    np.testing.assert_allclose(table["allocation"], np.concatenate([[0.25], 0.75 * best]),
+                               atol=1e-6)
+    assert np.isnan(table["pr_best"][0])
+    with pytest.raises(SettingsError, match="responses"):
+        next_block(rule, [3, 25, 6, 10], [20, 20, 20, 20])
