@@ -319,3 +319,40 @@ def test_next_block_for_a_fixed_data_set_by_hand():
     assert np.isnan(table["pr_best"][0])
     with pytest.raises(SettingsError, match="responses"):
         next_block(rule, [3, 25, 6, 10], [20, 20, 20, 20])
+
+
+@pytest.mark.parametrize("block, probs, expected", [
+    # 10 x (0.4, 0.2, 0.2, 0.2) = 4, 2, 2, 2 exactly
+    (10, [0.4, 0.2, 0.2, 0.2], [4, 2, 2, 2]),
+    # 7 x (0.25, 0.25, 0.25, 0.25) = 1.75 each: one each left over, 3 to the first
+    # three arms (ties to the earlier arm)
+    (7, [0.25] * 4, [2, 2, 2, 1]),
+    # 20 x (0.25, 0.45, 0.225, 0.075) = 5, 9, 4.5, 1.5: floors sum to 19, one left;
+    # arms 3 and 4 tie at 0.5, so arm 3 gets it
+    (20, [0.25, 0.45, 0.225, 0.075], [5, 9, 5, 1]),
+    # 9 x (1/3, 2/3, 0) = 3, 6
+    (9, [1 / 3, 2 / 3, 0.0], [3, 6, 0]),
+])
+def test_rounded_split_by_hand(block, probs, expected):
+    from octrial.allocation.kernel import split_rounded
+
+    out = np.zeros(len(probs), np.int64)
+    split_rounded(block, np.array(probs), out)
+    np.testing.assert_array_equal(out, expected)
+
+
+def test_rounded_fixed_allocation_gives_the_planned_sizes():
+    # deterministic allocation, ratio 2:1:1:1, looks 30 / 60 / 90: every study has
+    # 12, 6, 6, 6 subjects per arm per block (planned sizes, by hand), and the responses
+    # are then Binomial(planned size, p) (scipy.stats.binom, 4 SE)
+    rates = np.array([0.2, 0.3, 0.5, 0.65])
+    study = AdaptiveStudy((30, 60, 90), AllocationRule("fixed", ratio=(2, 1, 1, 1)),
+                          assignment="rounded")
+    batch = simulate(study, rates, 20_000, seed=5)
+    planned = np.array([[12, 6, 6, 6], [24, 12, 12, 12], [36, 18, 18, 18]])
+    assert np.all(batch.sizes == planned[None])
+    for j in range(4):
+        ok, _ = _within(batch.responses[:, -1, j],
+                        stats.binom.pmf(np.arange(planned[-1, j] + 1), planned[-1, j],
+                                        rates[j]))
+        assert ok

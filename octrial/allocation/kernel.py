@@ -3,9 +3,10 @@
 Each study enrols blocks of subjects between looks. The allocation probabilities of a
 block come from :func:`octrial.allocation.rule.shares` (the first block, and every block
 before the burn-in, use the fixed ratio); the block is split over the arms by complete
-randomisation (a multinomial draw, as conditional binomials), and each arm's responses
-are binomial. After each look but the last, arms whose probability of being the best is
-below ``drop_below`` stop enrolling.
+randomisation (a multinomial draw, as conditional binomials) or, deterministically, by
+rounding the block times the probabilities with the largest-remainder method (ties to
+the earlier arm), and each arm's responses are binomial. After each look but the last,
+arms whose probability of being the best is below ``drop_below`` stop enrolling.
 
 Every random number is an inversion of one uniform from the array the caller draws
 from its seeded generator, at a fixed position per study, look and arm, so the numbers
@@ -45,11 +46,35 @@ def binomial_inverse(n, p, u):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def simulate_studies(rates, looks, control, form, power, control_share, minimum,
+def split_rounded(block, probs, out):  # pragma: no cover - compiled
+    """Split ``block`` subjects by the largest-remainder method: each arm gets the
+    whole part of ``block * probs[j]``; the subjects left go one each to the arms with
+    the largest fractional parts (ties to the earlier arm)."""
+    arms = probs.shape[0]
+    given = 0
+    for j in range(arms):
+        out[j] = math.floor(block * probs[j] + 1e-9)
+        given += out[j]
+    while given < block:
+        pick = -1
+        most = -1.0
+        for j in range(arms):
+            if probs[j] > 0:
+                part = block * probs[j] - out[j]
+                if part > most + 1e-12:
+                    most = part
+                    pick = j
+        out[pick] += 1
+        given += 1
+
+
+@numba.njit(cache=True)
+def simulate_studies(rounded, rates, looks, control, form, power, control_share, minimum,
                      burn_in, ratio, drop_below, density, worse, support, reach,
                      weights,
                      uniforms, sizes, responses, allocation, dropped):  # pragma: no cover
-    """Simulate ``uniforms.shape[0]`` studies; write per look and arm the cumulative
+    """Simulate ``uniforms.shape[0]`` studies (blocks split by rounding when
+    ``rounded``, else randomised); write per look and arm the cumulative
     subjects ``sizes``, responses ``responses`` and the allocation probabilities used
     for the block that ended at that look; ``dropped[r, j]`` is the look after which arm
     j stopped enrolling (-1: never)."""
@@ -64,6 +89,7 @@ def simulate_studies(rates, looks, control, form, power, control_share, minimum,
     probs = np.zeros(arms)
     pr_best = np.zeros(arms)
     states = np.zeros(arms, np.int64)
+    block = np.zeros(arms, np.int64)
     for r in range(studies):
         for j in range(arms):
             n[j] = 0
@@ -81,10 +107,14 @@ def simulate_studies(rates, looks, control, form, power, control_share, minimum,
                 allocation[r, k, j] = probs[j]
                 if probs[j] > 0:
                     last = j
+            if rounded:
+                split_rounded(remaining, probs, block)
             for j in range(arms):
                 if probs[j] <= 0.0:
                     continue
-                if j == last:
+                if rounded:
+                    m = block[j]
+                elif j == last:
                     m = remaining
                 else:
                     m = binomial_inverse(remaining, min(probs[j] / rest, 1.0),

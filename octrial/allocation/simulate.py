@@ -19,6 +19,8 @@ from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
 from octrial.execution import Execution, run_grid
 
+ASSIGNMENTS = ("randomised", "rounded")
+
 
 @dataclass(frozen=True)
 class AdaptiveStudy:
@@ -38,6 +40,10 @@ class AdaptiveStudy:
     drop_below : float
         Treatment arms whose Pr(best) falls below this after a look stop enrolling;
         0: none.
+    assignment : {'randomised', 'rounded'}
+        How a block is split over the arms: complete randomisation (a multinomial draw
+        with the allocation probabilities) or deterministically (the block times the
+        probabilities, rounded by the largest-remainder method).
     """
 
     looks: tuple[int, ...]
@@ -46,6 +52,7 @@ class AdaptiveStudy:
     control: bool = True
     higher: bool = True
     drop_below: float = 0.0
+    assignment: str = "randomised"
 
     def check(self, arms: int) -> None:
         """Raise :class:`~octrial.errors.SettingsError` naming every problem."""
@@ -62,6 +69,9 @@ class AdaptiveStudy:
             found.append(Problem("drop_below", f"a number in [0, 1/{treatments}] (so "
                                  "that the leading arm never drops)",
                                  show(self.drop_below)))
+        if self.assignment not in ASSIGNMENTS:
+            found.append(Problem("assignment", "one of " + ", ".join(ASSIGNMENTS),
+                                 show(self.assignment)))
         if found:
             raise SettingsError("adaptive study", found)
 
@@ -98,10 +108,11 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
     dropped = np.zeros((studies, arms), np.int8)
     form, power, control_share, minimum, burn_in, ratio = study.rule.codes(
         arms - int(study.control), study.control)
-    simulate_studies(rates, looks, study.control, form, power, control_share, minimum,
-                     burn_in, ratio, float(study.drop_below), table.density, table.worse,
-                     table.support, table.reach, table.weights, uniforms, sizes,
-                     responses, allocation, dropped)
+    simulate_studies(study.assignment == "rounded", rates, looks, study.control, form,
+                     power, control_share, minimum, burn_in, ratio,
+                     float(study.drop_below), table.density, table.worse, table.support,
+                     table.reach, table.weights, uniforms, sizes, responses, allocation,
+                     dropped)
     return StudyBatch(sizes, responses, allocation, dropped)
 
 
