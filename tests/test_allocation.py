@@ -19,7 +19,7 @@ import pytest
 from scipy import integrate, special, stats
 
 from octrial.allocation import AllocationRule, next_allocation, probability_best
-from octrial.allocation.best import BestTable, best_from_table
+from octrial.allocation.best import best_from_table
 from octrial.allocation.kernel import binomial_inverse
 from octrial.allocation.simulate import AdaptiveStudy, simulate, simulate_batch, summary
 from octrial.errors import SettingsError
@@ -164,18 +164,44 @@ def test_mixture_of_equal_components_is_the_component():
 
 
 def test_table_kernel_equals_direct_quadrature():
-    # the kernel's table (support truncated at NEGLIGIBLE) against probability_best
+    # the kernel's tables (support cut) against probability_best, one shared prior and
+    # arms with priors of their own (each arm's posterior on its own table)
+    from octrial.allocation.best import BestTables
+
     prior = ([0.6, 0.4], [1.0, 4.0], [1.0, 2.0])
-    table = BestTable.build(prior, 40)
+    other = (1.0, 0.5, 3.0)
     rng = np.random.default_rng(3)
-    for _ in range(30):
-        n = rng.integers(0, 41, size=4)
-        x = rng.integers(0, n + 1)
-        out = np.zeros(4)
-        best_from_table(table.density, table.worse, table.support, table.reach,
-                        table.weights, n, x,
-                        np.ones(4, bool), 0, np.zeros(4, np.int64), out)
-        np.testing.assert_allclose(out, probability_best(x, n, prior), atol=1e-13)
+    for priors in ([prior] * 4, [prior, other, prior, other]):
+        tables = BestTables.build(priors, 40)
+        for _ in range(20):
+            n = rng.integers(0, 41, size=4)
+            x = rng.integers(0, n + 1)
+            out = np.zeros(4)
+            best_from_table(tables.density, tables.worse, tables.support, tables.reach,
+                            tables.weights, tables.which, n, x, np.ones(4, bool), 0,
+                            np.zeros(4, np.int64), out)
+            np.testing.assert_allclose(out, _best_mixed(x, n, priors), atol=1e-9)
+
+
+def _best_mixed(x, n, priors):
+    # Pr(best) for arms with their own beta-mixture priors: scipy quad of
+    # f_j prod F_i over [0, 1], the posteriors written out with scipy.stats.beta
+    def post(xi, ni, prior):
+        w, a, b = (np.atleast_1d(np.asarray(v, float)) for v in prior)
+        lw = np.log(w / w.sum()) + special.betaln(a + xi, b + ni - xi) - special.betaln(a, b)
+        pw = np.exp(lw - lw.max())
+        return pw / pw.sum(), a + xi, b + ni - xi
+
+    parts = [post(xi, ni, p) for xi, ni, p in zip(x, n, priors, strict=True)]
+    pdf = [lambda u, q=q: np.sum(q[0] * stats.beta.pdf(u, q[1], q[2])) for q in parts]
+    cdf = [lambda u, q=q: np.sum(q[0] * stats.beta.cdf(u, q[1], q[2])) for q in parts]
+    out = []
+    for j in range(len(x)):
+        def f(u, j=j):
+            return pdf[j](u) * np.prod([cdf[i](u) for i in range(len(x)) if i != j])
+        out.append(integrate.quad(f, 0, 1, limit=400, epsabs=1e-12,
+                                  points=[0.01, 0.1, 0.5, 0.9, 0.99])[0])
+    return np.array(out)
 
 
 def _allocation_by_hand(best, c, control_share, minimum):

@@ -176,11 +176,47 @@ def _span(above: np.ndarray) -> np.ndarray:
     return span
 
 
+@dataclass(frozen=True)
+class BestTables:
+    """Several :class:`BestTable` (one per distinct prior) stacked for the kernel.
+
+    Attributes
+    ----------
+    density, worse : numpy.ndarray
+        Shape (priors, states, nodes).
+    support, reach : numpy.ndarray
+        Shape (priors, states, 2).
+    weights : numpy.ndarray
+        Quadrature weights of the nodes.
+    which : numpy.ndarray
+        Per arm, the index of its prior's table.
+    """
+
+    density: np.ndarray
+    worse: np.ndarray
+    support: np.ndarray
+    reach: np.ndarray
+    weights: np.ndarray
+    which: np.ndarray
+
+    @classmethod
+    def build(cls, priors: list[tuple], largest: int, higher: bool = True) -> BestTables:
+        """Tables for the arms' ``priors`` (equal priors share one table)."""
+        keys = [repr(tuple(np.atleast_1d(np.asarray(v, float)).tolist() for v in p))
+                for p in priors]
+        distinct = list(dict.fromkeys(keys))
+        tables = [BestTable.build(priors[keys.index(k)], largest, higher) for k in distinct]
+        return cls(np.stack([t.density for t in tables]), np.stack([t.worse for t in tables]),
+                   np.stack([t.support for t in tables]), np.stack([t.reach for t in tables]),
+                   tables[0].weights, np.array([distinct.index(k) for k in keys], np.int64))
+
+
 @numba.njit(cache=True)
-def best_from_table(density, worse, support, reach, weights, sizes, responses, active,
-                    first, states, out):  # pragma: no cover - compiled
-    """Pr(best) among the active arms ``first..`` from a :class:`BestTable`'s arrays;
-    inactive arms (and arms before ``first``) get 0. ``states`` is scratch space."""
+def best_from_table(density, worse, support, reach, weights, which, sizes, responses,
+                    active, first, states, out):  # pragma: no cover - compiled
+    """Pr(best) among the active arms ``first..`` from :class:`BestTables`' arrays
+    (arm j reads table ``which[j]``); inactive arms (and arms before ``first``) get 0.
+    ``states`` is scratch space."""
     arms = out.shape[0]
     for j in range(arms):
         out[j] = 0.0
@@ -189,17 +225,18 @@ def best_from_table(density, worse, support, reach, weights, sizes, responses, a
         if not active[j]:
             continue
         sj = states[j]
-        low = support[sj, 0]
-        high = support[sj, 1]
+        tj = which[j]
+        low = support[tj, sj, 0]
+        high = support[tj, sj, 1]
         for i in range(first, arms):
             if i != j and active[i]:
-                low = max(low, reach[states[i], 0])
-                high = min(high, reach[states[i], 1])
+                low = max(low, reach[which[i], states[i], 0])
+                high = min(high, reach[which[i], states[i], 1])
         total = 0.0
         for g in range(low, high):
-            term = weights[g] * density[sj, g]
+            term = weights[g] * density[tj, sj, g]
             for i in range(first, arms):
                 if i != j and active[i]:
-                    term *= worse[states[i], g]
+                    term *= worse[which[i], states[i], g]
             total += term
         out[j] = total

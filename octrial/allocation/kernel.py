@@ -71,7 +71,7 @@ def split_rounded(block, probs, out):  # pragma: no cover - compiled
 @numba.njit(cache=True)
 def simulate_studies(rounded, rates, looks, control, form, power, control_share, minimum,
                      burn_in, ratio, drop_below, density, worse, support, reach,
-                     weights,
+                     weights, which,
                      uniforms, sizes, responses, allocation, dropped):  # pragma: no cover
     """Simulate ``uniforms.shape[0]`` studies (blocks split by rounding when
     ``rounded``, else randomised); write per look and arm the cumulative
@@ -131,8 +131,8 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                 break
             adaptive = form != 0 and enrolled >= burn_in
             if adaptive or drop_below > 0:
-                best_from_table(density, worse, support, reach, weights, n, x, active,
-                                first, states, pr_best)
+                best_from_table(density, worse, support, reach, weights, which, n, x,
+                                active, first, states, pr_best)
                 if drop_below > 0:
                     gone = 0
                     for j in range(first, arms):
@@ -142,7 +142,7 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                             gone += 1
                     # Pr(best) among the arms left, for the allocation
                     if gone > 0 and adaptive:
-                        best_from_table(density, worse, support, reach, weights, n,
-                                        x, active, first, states, pr_best)
+                        best_from_table(density, worse, support, reach, weights,
+                                        which, n, x, active, first, states, pr_best)
             shares(pr_best, active, control, form, power, control_share, minimum,
                    burn_in, ratio, enrolled, maximum, probs)

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from octrial.allocation.best import BestTable
+from octrial.allocation.best import BestTables
 from octrial.allocation.kernel import simulate_studies
 from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
@@ -33,6 +33,8 @@ class AdaptiveStudy:
     rule : AllocationRule
     prior : (weights, a, b)
         Beta-mixture prior shared by the treatment arms (for Pr(best)).
+    arm_priors : tuple of (weights, a, b), optional
+        One prior per arm (control first; its entry is not used), overriding ``prior``.
     control : bool
         Whether arm 0 is a shared control (it takes no part in Pr(best)).
     higher : bool
@@ -49,6 +51,7 @@ class AdaptiveStudy:
     looks: tuple[int, ...]
     rule: AllocationRule
     prior: tuple = (1.0, 1.0, 1.0)
+    arm_priors: tuple | None = None
     control: bool = True
     higher: bool = True
     drop_below: float = 0.0
@@ -57,6 +60,9 @@ class AdaptiveStudy:
     def check(self, arms: int) -> None:
         """Raise :class:`~octrial.errors.SettingsError` naming every problem."""
         found = self.rule.problems(arms - int(self.control), self.control)
+        if self.arm_priors is not None and len(self.arm_priors) != arms:
+            found.append(Problem("arm_priors", f"{arms} priors (one per arm)",
+                                 f"{len(self.arm_priors)}"))
         looks = np.asarray(self.looks)
         if looks.size < 1 or np.any(np.diff(looks) <= 0) or looks[0] < 1:
             found.append(Problem("looks", "increasing whole numbers >= 1",
@@ -75,10 +81,12 @@ class AdaptiveStudy:
         if found:
             raise SettingsError("adaptive study", found)
 
-    def table(self) -> BestTable:
-        """The Pr(best) table up to the last interim look's size."""
+    def tables(self, arms: int) -> BestTables:
+        """The Pr(best) tables up to the last interim look's size."""
         largest = self.looks[-2] if len(self.looks) > 1 else 0
-        return BestTable.build(self.prior, int(largest), self.higher)
+        priors = ([self.prior] * arms if self.arm_priors is None
+                  else list(self.arm_priors))
+        return BestTables.build(priors, int(largest), self.higher)
 
 
 @dataclass(frozen=True)
@@ -92,12 +100,12 @@ class StudyBatch:
 
 
 def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: int,
-                   scenario: int, batch: int, table: BestTable | None = None) -> StudyBatch:
+                   scenario: int, batch: int, table: BestTables | None = None) -> StudyBatch:
     """Simulate one seeded batch of ``studies`` studies at true response ``rates``."""
     rates = np.asarray(rates, float)
     arms = rates.size
     study.check(arms)
-    table = study.table() if table is None else table
+    table = study.tables(arms) if table is None else table
     looks = np.asarray(study.looks, np.int64)
     generator = np.random.Generator(np.random.PCG64(
         np.random.SeedSequence(seed, spawn_key=(scenario, batch))))
@@ -111,15 +119,15 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
     simulate_studies(study.assignment == "rounded", rates, looks, study.control, form,
                      power, control_share, minimum, burn_in, ratio,
                      float(study.drop_below), table.density, table.worse, table.support,
-                     table.reach, table.weights, uniforms, sizes, responses, allocation,
-                     dropped)
+                     table.reach, table.weights, table.which, uniforms, sizes, responses,
+                     allocation, dropped)
     return StudyBatch(sizes, responses, allocation, dropped)
 
 
 def simulate(study: AdaptiveStudy, rates: np.ndarray, replicates: int, seed: int,
              scenario: int = 0, batch_size: int = 50_000) -> StudyBatch:
     """All batches of one scenario, in batch order (the last may be shorter)."""
-    table = study.table()
+    table = study.tables(len(rates))
     parts = []
     for b, start in enumerate(range(0, replicates, batch_size)):
         parts.append(simulate_batch(study, rates, min(batch_size, replicates - start),

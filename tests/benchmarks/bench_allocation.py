@@ -66,8 +66,8 @@ def naive(study: AdaptiveStudy, studies: int, seed: int) -> np.ndarray:
 
 def vectorised(study: AdaptiveStudy, studies: int, seed: int) -> np.ndarray:
     rng = np.random.default_rng(seed)
-    table = study.table()
     arms = RATES.size
+    table = study.tables(arms)
     n = np.zeros((studies, arms), int)
     x = np.zeros((studies, arms), int)
     active = np.ones((studies, arms), bool)
@@ -83,10 +83,10 @@ def vectorised(study: AdaptiveStudy, studies: int, seed: int) -> np.ndarray:
         state = n * (n + 1) // 2 + x
         best = np.zeros((studies, arms))
         for _ in range(2):   # before and after dropping
-            worse = np.where(active[:, 1:, None], table.worse[state[:, 1:]], 1.0)
+            worse = np.where(active[:, 1:, None], table.worse[0][state[:, 1:]], 1.0)
             prod_all = np.prod(worse, axis=1, keepdims=True)
             others = prod_all / np.where(worse > 0, worse, 1.0)
-            dens = table.density[state[:, 1:]] * table.weights
+            dens = table.density[0][state[:, 1:]] * table.weights
             best[:, 1:] = np.where(active[:, 1:], np.sum(dens * others, axis=2), 0.0)
             active[:, 1:] &= best[:, 1:] >= study.drop_below
         c = enrolled / (2 * LOOKS[-1])
@@ -114,7 +114,7 @@ def rate(fn, *args) -> tuple[float, object]:
 def main() -> None:
     for name, rule in RULES.items():
         study = AdaptiveStudy(LOOKS, rule, drop_below=0.05 if name == "adaptive" else 0.0)
-        table = study.table()
+        table = study.tables(RATES.size)
         simulate_batch(study, RATES, 10, 1, 0, 0, table)       # compile
         counts = {"naive": 300, "vectorised": 50_000, "octrial": 200_000}
         t_naive, s_naive = rate(naive, study, counts["naive"], 1)
