@@ -218,25 +218,43 @@ def best_from_table(density, worse, support, reach, weights, which, sizes, respo
     (arm j reads table ``which[j]``); inactive arms (and arms before ``first``) get 0.
     ``states`` is scratch space."""
     arms = out.shape[0]
+    # the competing arms, with their table and row, gathered once
+    rows = np.empty(arms, np.int64)
+    tabs = np.empty(arms, np.int64)
+    count = 0
     for j in range(arms):
         out[j] = 0.0
         states[j] = sizes[j] * (sizes[j] + 1) // 2 + responses[j]
-    for j in range(first, arms):
-        if not active[j]:
-            continue
-        sj = states[j]
-        tj = which[j]
+        if j >= first and active[j]:
+            rows[count] = states[j]
+            tabs[count] = which[j]
+            count += 1
+    for a in range(count):
+        sj = rows[a]
+        tj = tabs[a]
         low = support[tj, sj, 0]
         high = support[tj, sj, 1]
-        for i in range(first, arms):
-            if i != j and active[i]:
-                low = max(low, reach[which[i], states[i], 0])
-                high = min(high, reach[which[i], states[i], 1])
+        for b in range(count):
+            if b != a:
+                low = max(low, reach[tabs[b], rows[b], 0])
+                high = min(high, reach[tabs[b], rows[b], 1])
         total = 0.0
         for g in range(low, high):
             term = weights[g] * density[tj, sj, g]
-            for i in range(first, arms):
-                if i != j and active[i]:
-                    term *= worse[which[i], states[i], g]
+            for b in range(count):
+                if b != a:
+                    term *= worse[tabs[b], rows[b], g]
             total += term
-        out[j] = total
+        out[_arm(first, active, a)] = total
+
+
+@numba.njit(cache=True, inline="always")
+def _arm(first, active, position):  # pragma: no cover - compiled
+    """The arm at ``position`` among the active arms from ``first`` on."""
+    seen = 0
+    for j in range(first, active.shape[0]):
+        if active[j]:
+            if seen == position:
+                return j
+            seen += 1
+    return -1
