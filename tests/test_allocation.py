@@ -315,7 +315,8 @@ def test_study_settings_are_checked():
 
 
 def test_two_workers_give_the_numbers_of_one():
-    # run_grid with joblib workers: each scenario seeded by (seed, scenario, batch)
+    # run_grid with joblib workers and a local Dask cluster: each scenario seeded by
+    # (seed, scenario, batch)
     from octrial.allocation.simulate import simulate_grid
     from octrial.execution import Execution
 
@@ -327,6 +328,10 @@ def test_two_workers_give_the_numbers_of_one():
                         batch_size=700)
     assert one.equals(two)
     assert one.loc[one.scenario == 2, "expected_n"].sum() == pytest.approx(90)
+    pytest.importorskip("dask.distributed")
+    dask = simulate_grid(study, grid, 2000, seed=17,
+                         execution=Execution(jobs=2, backend="dask"), batch_size=700)
+    assert one.equals(dask)
 
 
 def test_next_block_for_a_fixed_data_set_by_hand():
