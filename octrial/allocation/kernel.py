@@ -64,6 +64,8 @@ def split_rounded(block, probs, out):  # pragma: no cover - compiled
                 if part > most + 1e-12:
                     most = part
                     pick = j
+        if pick < 0:    # nothing to allocate to (no arm enrolling)
+            break
         out[pick] += 1
         given += 1
 

@@ -41,7 +41,7 @@ class AdaptiveStudy:
         Whether a higher response probability is better.
     drop_below : float
         Treatment arms whose Pr(best) falls below this after a look stop enrolling;
-        0: none.
+        0: none. Below 1 / (treatment arms), so the leading arm never drops.
     assignment : {'randomised', 'rounded'}
         How a block is split over the arms: complete randomisation (a multinomial draw
         with the allocation probabilities) or deterministically (the block times the
@@ -71,9 +71,9 @@ class AdaptiveStudy:
             found.append(Problem("looks", "blocks of at most 1000 subjects",
                                  show(list(self.looks))))
         treatments = arms - int(self.control)
-        if not 0 <= self.drop_below <= 1 / max(treatments, 1):
-            found.append(Problem("drop_below", f"a number in [0, 1/{treatments}] (so "
-                                 "that the leading arm never drops)",
+        if not 0 <= self.drop_below < 1 / max(treatments, 1):
+            found.append(Problem("drop_below", f"a number in [0, 1/{treatments}) (below "
+                                 "1/arms, so that the leading arm never drops)",
                                  show(self.drop_below)))
         if self.assignment not in ASSIGNMENTS:
             found.append(Problem("assignment", "one of " + ", ".join(ASSIGNMENTS),
