@@ -29,26 +29,37 @@ def best_probabilities(cdfs, active, out):
         Written in place.
     """
     T, G1 = cdfs.shape
+    # cells where every active CDF is 0, or every one is 1, add nothing: sum between
+    lo = G1 - 1
+    hi = 0
     for j in range(T):
         out[j] = 0.0
         if not active[j]:
             continue
-        total = 0.0
-        prev_f = cdfs[j, 0]
-        prev_p = 1.0
-        for i in range(T):
-            if i != j and active[i]:
-                prev_p *= cdfs[i, 0]
-        for g in range(1, G1):
-            p = 1.0
-            for i in range(T):
-                if i != j and active[i]:
-                    p *= cdfs[i, g]
-            f = cdfs[j, g]
-            total += (f - prev_f) * 0.5 * (p + prev_p)
-            prev_f = f
-            prev_p = p
-        out[j] = total
+        g = 0
+        while g < G1 - 1 and cdfs[j, g + 1] == 0.0:
+            g += 1
+        lo = min(lo, g)
+        g = G1 - 1
+        while g > 0 and cdfs[j, g - 1] == 1.0:
+            g -= 1
+        hi = max(hi, g)
+    before = np.ones(T + 1)
+    after = np.ones(T + 1)
+    prev = np.zeros(T)
+    for g in range(lo, hi + 1):
+        # products of the other arms' CDFs at u_g: prefix and suffix products, O(T)
+        for j in range(T):
+            before[j + 1] = before[j] * (cdfs[j, g] if active[j] else 1.0)
+        for j in range(T - 1, -1, -1):
+            after[j] = after[j + 1] * (cdfs[j, g] if active[j] else 1.0)
+        for j in range(T):
+            if not active[j]:
+                continue
+            others = before[j] * after[j + 1]
+            if g > lo:
+                out[j] += (cdfs[j, g] - cdfs[j, g - 1]) * 0.5 * (others + prev[j])
+            prev[j] = others
 
 
 def beta_cdf_grid(a: np.ndarray, b: np.ndarray, grid: int = 1024) -> np.ndarray:

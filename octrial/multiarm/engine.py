@@ -29,9 +29,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
-from octrial.caution import CAUTION
 from octrial.engines.monte_carlo import batch_generator
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
@@ -41,7 +39,7 @@ from octrial.simulation.draws import DrawTables
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
 
-__all__ = ["BATCH", "CAUTION", "arm_nulls", "simulate_design"]
+__all__ = ["BATCH", "arm_nulls", "simulate_design", "truly_best"]
 
 
 def arm_nulls(design: MultiArmDesign, row: tuple[float, ...]) -> np.ndarray:
@@ -80,6 +78,23 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
     return pd.DataFrame(rows)
 
 
+def _increment_pmfs(design: MultiArmDesign, truth: np.ndarray, increments: np.ndarray,
+                    sizes: np.ndarray) -> list[np.ndarray]:
+    """Per look and slot, the pmf of the arm's increment, sized as the two-arm table
+    kernel sizes it (each arm through its own design: the treatment is arm 0 there, the
+    control arm 1)."""
+    family = design.family
+    T = len(design.treatments)
+    pmfs = []
+    for k in range(increments.shape[0]):
+        for a in range(increments.shape[1]):
+            pair, j = (design.pairs[a], 0) if a < T else (design.pairs[0], 1)
+            m = int(increments[k, a])
+            size = min(family.lattice_size(pair, j, m), int(sizes[k, a]))
+            pmfs.append(family.increment_pmf(pair, truth[a], m, size))
+    return pmfs
+
+
 def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, ...],
               replicates: int, seed: int, index: int) -> dict[str, object]:
     T, K = tables.decision.shape[:2]
@@ -98,14 +113,13 @@ def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, 
     order = np.roll(np.arange(A), -1) if design.shared_control else np.arange(A)
     truth = np.asarray(row, dtype=float)[order]
     increments = np.ascontiguousarray(tables.increments[:, order])
-    draws = DrawTables.from_pmfs([stats.binom.pmf(np.arange(m + 1), m, p)
-                                  for k in range(K) for m, p in zip(increments[k], truth,
-                                                                    strict=True)])
+    sizes = np.ascontiguousarray(tables.sizes[:, order])
+    draws = DrawTables.from_pmfs(_increment_pmfs(design, truth, increments, sizes))
     for b in range(-(-replicates // BATCH)):
         reps = min(BATCH, replicates - b * BATCH)
         rng = batch_generator(seed, index, b)
         words = rng.bit_generator.random_raw(reps * K * A).reshape(reps, K, A)
-        simulate(words, truth, increments, tables.decision, tables.mean, tables.cdf,
+        simulate(words, truth, increments, sizes, tables.decision, tables.mean, tables.cdf,
                  tables.drop_below, tables.keep, tables.control, sign, nulls, best,
                  success, eff, fut, drop, n_slot, scalars, end, *draws.arrays())
     n_arm = n_slot[np.argsort(order)]

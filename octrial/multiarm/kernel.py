@@ -24,7 +24,7 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 
 
 @numba.njit(cache=True)
-def simulate(words, truth, increments, decision, mean, cdf, drop_below, keep,
+def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, keep,
              control, sign, is_null, is_best, out_success, out_eff, out_fut, out_drop, out_n,
              out_scalars, out_end, bounds, t_start, t_length, guide, guide_start, shift):
     """Simulate ``len(words)`` studies at true rates ``truth``.
@@ -67,6 +67,9 @@ def simulate(words, truth, increments, decision, mean, cdf, drop_below, keep,
                 if a < T and not active[a]:
                     continue
                 x[a] += y
+                if x[a] >= sizes[k, a]:
+                    # beyond a truncated lattice: held at its edge (two-arm kernel)
+                    x[a] = sizes[k, a] - 1
                 n_total += increments[k, a]
                 out_n[a] += increments[k, a]
             c = x[T] if control else 0

@@ -85,7 +85,8 @@ def parse_multiarm(data: dict[str, Any], source: Source) -> MultiArmDesign:
                                    expected="a whole number >= 1")
                if looks_table is not None else None)
     per_arm = None
-    if weights is not None and n_total is not None and None not in n_total:
+    if (weights is not None and looks_table is not None and n_total is not None
+            and None not in n_total):
         per_arm = _split(looks_table, [int(v) for v in n_total if v is not None], weights)
     drop = _drop_rule(looks_table, len(n_total) if n_total else 0) if looks_table else None
     selection = _selection(top, len(treatments))
@@ -235,8 +236,7 @@ def _scenarios(top: Table, names: list[str]) -> Scenarios | None:
         return None
     rows = lengths.pop() if lengths else 1
     cols = [v if isinstance(v, list) else [v] * rows for v in columns.values()]
-    values = tuple(tuple(c[i] for c in cols) for i in range(rows))
-    return Scenarios(tuple(names), values)
+    return Scenarios(tuple(names), tuple(tuple(c[i] for c in cols) for i in range(rows)))
 
 
 def _pair_data(data: dict[str, Any], name: str, control: str | None,

@@ -12,6 +12,7 @@ arms forward, and the allocation of subjects.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 from octrial.design.model import Arm, Design, Hypothesis, Scenarios, Simulation, Source
 
@@ -132,7 +133,7 @@ class MultiArmDesign:
         return tuple(a.name for a in self.treatments)
 
     @property
-    def family(self) -> object:
+    def family(self) -> Any:
         """The endpoint family object that does this design's maths."""
         from octrial.endpoints import family_for
 

@@ -1,4 +1,5 @@
-"""Everything the several-arm kernel looks up, computed once per design.
+"""Everything the several-arm kernel looks up, computed once per design (lattice
+families: binary and count).
 
 Each treatment arm's decision at each look is its own design's lattice table
 (:func:`octrial.rules.lattice.build_rule` on :attr:`MultiArmDesign.pairs`), so a design
@@ -14,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from octrial.endpoints.binary import BetaMixture, update
+from octrial.endpoints.binary import BetaMixture, BinaryEndpoint
 from octrial.multiarm.model import MultiArmDesign
 from octrial.rules.lattice import build_rule
 
@@ -34,6 +35,9 @@ class MultiArmTables:
     ----------
     increments : ndarray, shape (K, A)
         Subjects each arm (control first when there is one) adds at each look.
+    sizes : ndarray, shape (K, A)
+        Points of each arm's lattice at each look (counts beyond a truncated lattice are
+        held at its edge, as the two-arm table kernel holds them).
     decision : ndarray of int8, shape (T, K, X, C)
         Treatment arm ``t``'s code (continue, efficacy, futility) at look ``k`` with
         ``x`` responses in the arm and ``c`` in the control (``C == 1`` without a
@@ -53,6 +57,7 @@ class MultiArmTables:
     """
 
     increments: np.ndarray
+    sizes: np.ndarray
     decision: np.ndarray
     mean: np.ndarray
     cdf: np.ndarray
@@ -72,32 +77,42 @@ def build_tables(design: MultiArmDesign, grid: int = BEST_GRID) -> MultiArmTable
     Raises
     ------
     NotImplementedError
-        For endpoints other than binary with beta or beta-mixture priors (the other
-        families are to come through the family protocol).
+        For families without a lattice (normal, time-to-event), and for rules that need
+        Pr(best) (dropping, selection) with anything but binary endpoints with beta or
+        beta-mixture priors.
     """
-    if design.endpoint.__class__.__name__ != "BinaryEndpoint" or not all(
-            isinstance(a.prior, BetaMixture) for a in design.treatments):
-        raise NotImplementedError("several-arm simulation covers binary endpoints with "
-                                  "beta or beta-mixture priors so far")
+    family = design.family
+    if not getattr(family, "lattice", False):
+        raise NotImplementedError("several-arm simulation covers lattice families "
+                                  "(binary, count) so far")
+    binary = isinstance(design.endpoint, BinaryEndpoint) and all(
+        isinstance(a.prior, BetaMixture) for a in design.treatments)
     looks = design.looks
     per_arm = np.array(looks.per_arm, dtype=np.int64)
     increments = np.diff(np.vstack([np.zeros(per_arm.shape[1], np.int64), per_arm]), axis=0)
     offset = 1 if design.shared_control else 0
-    n_t = per_arm[-1, offset:]
-    x_max = int(n_t.max()) + 1
-    c_max = int(per_arm[-1, 0]) + 1 if design.shared_control else 1
     T, K = len(design.treatments), looks.count
+    rules = [build_rule(pair) for pair in design.pairs]
+    sizes = np.ones((K, per_arm.shape[1]), dtype=np.int64)
+    for t, rule in enumerate(rules):
+        for k, table in enumerate(rule.looks):
+            sizes[k, offset + t] = table.shape[0]
+            if design.shared_control:
+                sizes[k, 0] = max(sizes[k, 0], table.shape[1])
+    x_max = int(sizes[:, offset:].max())
+    c_max = int(sizes[:, 0].max()) if design.shared_control else 1
     decision = np.full((T, K, x_max, c_max), FUTILITY, dtype=np.int8)
     mean = np.zeros((T, K, x_max))
     keep = design.selection.keep or 0
     drop = np.array([-1.0 if v is None else v for v in looks.drop_if_best_below])
     needs_best = bool(np.any(drop >= 0) or keep > 0)
+    if needs_best and not binary:
+        raise NotImplementedError("dropping by Pr(best) and selection cover binary "
+                                  "endpoints with beta or beta-mixture priors so far")
     cdf = np.zeros((T, K, x_max, grid + 1) if needs_best else (0, 0, 0, 0))
     nodes = np.linspace(0.0, 1.0, grid + 1)
     lower = design.hypothesis.better == "lower"
-    for t, pair in enumerate(design.pairs):
-        rule = build_rule(pair)
-        prior = design.treatments[t].prior
+    for t, (pair, rule) in enumerate(zip(design.pairs, rules, strict=True)):
         for k, table in enumerate(rule.looks):
             codes = np.full(table.shape, CONTINUE, dtype=np.int8)
             codes[table.futility] = FUTILITY
@@ -106,11 +121,12 @@ def build_tables(design: MultiArmDesign, grid: int = BEST_GRID) -> MultiArmTable
                 codes = codes[:, None]
             decision[t, k, :codes.shape[0], :codes.shape[1]] = codes
             n = int(per_arm[k, offset + t])
-            post = update(prior, n, np.arange(n + 1))
-            mean[t, k, :n + 1] = post.mean()
+            points = table.shape[0]
+            post = family.posterior(pair, 0, n, np.arange(points))
+            mean[t, k, :points] = post.mean()
             if needs_best:
-                cdf[t, k, :n + 1] = _cdf_on_grid(post, nodes, lower)
-    return MultiArmTables(increments, decision, mean, cdf, drop, keep,
+                cdf[t, k, :points] = _cdf_on_grid(post, nodes, lower)
+    return MultiArmTables(increments, sizes, decision, mean, cdf, drop, keep,
                           design.shared_control)
 
 

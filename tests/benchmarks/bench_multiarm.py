@@ -98,6 +98,7 @@ def kernel_run(d, tables, reps):
     order = np.array([1, 2, 3, 0])
     truth = np.array(TRUTH)[order]
     inc = np.ascontiguousarray(tables.increments[:, order])
+    sizes = np.ascontiguousarray(tables.sizes[:, order])
     draws = DrawTables.from_pmfs([stats.binom.pmf(np.arange(m + 1), m, p)
                                   for k in range(3) for m, p in zip(inc[k], truth,
                                                                     strict=True)])
@@ -112,7 +113,7 @@ def kernel_run(d, tables, reps):
     for b in range(reps // batch):
         words = batch_generator(1, 0, b).bit_generator.random_raw(batch * 12).reshape(
             batch, 3, 4)
-        simulate(words, truth, inc, tables.decision, tables.mean, tables.cdf,
+        simulate(words, truth, inc, sizes, tables.decision, tables.mean, tables.cdf,
                  tables.drop_below, tables.keep, tables.control, 1, nulls, best, *outs,
                  *draws.arrays())
     return time.perf_counter() - start, outs[5][2] / reps
