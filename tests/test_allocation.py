@@ -387,3 +387,13 @@ def test_rounded_fixed_allocation_gives_the_planned_sizes():
                         stats.binom.pmf(np.arange(planned[-1, j] + 1), planned[-1, j],
                                         rates[j]))
         assert ok
+
+
+def test_tables_too_large_are_refused_before_allocation():
+    # 1,200 subjects at the last interim look: 721,801 states x 644 numbers x 8 bytes
+    # = 3.5 GiB > 1 GiB
+    study = AdaptiveStudy((600, 1200, 1500), AllocationRule("power"))
+    assert study.table_bytes(4) == 721_801 * 644 * 8
+    with pytest.raises(SettingsError, match="GiB"):
+        study.check(4)
+    AdaptiveStudy((120, 240, 360), AllocationRule("power")).check(4)

@@ -13,13 +13,15 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from octrial.allocation.best import BestTables
+from octrial.allocation.best import BestTables, quadrature_nodes
 from octrial.allocation.kernel import simulate_studies
 from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
 from octrial.execution import Execution, run_grid
 
 ASSIGNMENTS = ("randomised", "rounded")
+TABLE_LIMIT = 2**30
+"""Largest Pr(best) tables allowed, in bytes (checked before anything is allocated)."""
 
 
 @dataclass(frozen=True)
@@ -75,11 +77,24 @@ class AdaptiveStudy:
             found.append(Problem("drop_below", f"a number in [0, 1/{treatments}) (below "
                                  "1/arms, so that the leading arm never drops)",
                                  show(self.drop_below)))
+        if not found and (need := self.table_bytes(arms)) > TABLE_LIMIT:
+            found.append(Problem(
+                "looks", f"an interim total whose Pr(best) tables fit in "
+                f"{TABLE_LIMIT / 2**30:.0f} GiB (they grow with its square)",
+                f"{need / 2**30:.1f} GiB for {self.looks[-2]} subjects at the last interim look"))
         if self.assignment not in ASSIGNMENTS:
             found.append(Problem("assignment", "one of " + ", ".join(ASSIGNMENTS),
                                  show(self.assignment)))
         if found:
             raise SettingsError("adaptive study", found)
+
+    def table_bytes(self, arms: int) -> int:
+        """Memory of the Pr(best) tables: per distinct prior, density and 'worse than'
+        on every node for every state up to the last interim look."""
+        largest = self.looks[-2] if len(self.looks) > 1 else 0
+        states = (largest + 1) * (largest + 2) // 2
+        priors = 1 if self.arm_priors is None else len({repr(p) for p in self.arm_priors})
+        return priors * states * (2 * quadrature_nodes()[0].size + 4) * 8
 
     def tables(self, arms: int) -> BestTables:
         """The Pr(best) tables up to the last interim look's size."""
