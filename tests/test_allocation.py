@@ -397,3 +397,93 @@ def test_tables_too_large_are_refused_before_allocation():
     with pytest.raises(SettingsError, match="GiB"):
         study.check(4)
     AdaptiveStudy((120, 240, 360), AllocationRule("power")).check(4)
+
+
+def _miller(a_t, b_t, a_c, b_c):
+    # Pr(p_t > p_c) for Beta(a_t, b_t), Beta(a_c, b_c), integer a_t: the two-arm closed
+    # form above (E. Miller 2015; recalled from memory, checked against quadrature there)
+    i = np.arange(a_t)
+    return float(np.sum(np.exp(special.betaln(a_c + i, b_c + b_t) - np.log(b_t + i)
+                               - special.betaln(1 + i, b_t) - special.betaln(a_c, b_c))))
+
+
+def _exact_two_arm(rates, per_look, efficacy, futility):
+    # exact operating characteristics of a two-arm design (treatment, control; Beta(1, 1)
+    # priors, margin 0) by enumeration of the binomial increments (scipy.stats.binom)
+    p_t, p_c = rates
+    mass = {(0, 0): 1.0}
+    n_prev = 0
+    stops = np.zeros((2, len(per_look)))
+    for k, n in enumerate(per_look):
+        step = n - n_prev
+        inc_t = stats.binom.pmf(np.arange(step + 1), step, p_t)
+        inc_c = stats.binom.pmf(np.arange(step + 1), step, p_c)
+        new: dict[tuple[int, int], float] = {}
+        for (xt, xc), m in mass.items():
+            for dt in range(step + 1):
+                for dc in range(step + 1):
+                    key = (xt + dt, xc + dc)
+                    new[key] = new.get(key, 0.0) + m * inc_t[dt] * inc_c[dc]
+        mass = {}
+        final = k == len(per_look) - 1
+        for (xt, xc), m in new.items():
+            b = _miller(1 + xt, 1 + n - xt, 1 + xc, 1 + n - xc)
+            if not np.isnan(efficacy[k]) and b >= efficacy[k]:
+                stops[0, k] += m
+            elif final or (not np.isnan(futility[k]) and b < futility[k]):
+                stops[1, k] += m
+            else:
+                mass[(xt, xc)] = m
+        n_prev = n
+    return stops
+
+
+@pytest.mark.parametrize("rates", [(0.3, 0.3), (0.55, 0.3)])
+def test_one_arm_against_control_with_decisions_equals_exact_enumeration(rates):
+    # one treatment arm and a control, 1:1 rounded (deterministic) allocation: the
+    # kernel's per-look efficacy and futility stops against the exact two-arm
+    # probabilities (enumeration with the closed-form Pr(p_t > p_c)), within 4 SE
+    from octrial.allocation.decisions import ArmRule
+
+    efficacy, futility = (0.995, 0.99, 0.95), (0.1, 0.2, np.nan)
+    rule = ArmRule(efficacy, futility)
+    study = AdaptiveStudy((10, 20, 30), AllocationRule("fixed"), assignment="rounded",
+                          arm_rule=rule)
+    batch = simulate(study, np.array([rates[1], rates[0]]), 40_000, seed=12)
+    exact = _exact_two_arm(rates, (5, 10, 15), efficacy, futility)
+    for code in (1, 2):
+        for k in range(3):
+            got = np.mean((batch.outcome[:, 1] == code) & (batch.dropped[:, 1] == k))
+            p = exact[code - 1, k]
+            assert abs(got - p) <= 4 * np.sqrt(p * (1 - p) / 40_000) + 1e-12
+    assert np.all(batch.outcome[:, 1] > 0)
+
+
+def test_independent_arms_against_a_benchmark_multiply():
+    # three arms against a benchmark (no control), fixed rounded allocation: the arms
+    # are independent, so Pr(no arm succeeds) = prod(1 - Pr(arm succeeds)) (identity),
+    # each arm's Pr(success) against the exact one-arm value (scipy.stats.binom,
+    # scipy.stats.beta), within 4 SE
+    from octrial.allocation.decisions import ArmRule
+
+    rule = ArmRule((0.99, 0.95), (np.nan, np.nan), versus_control=False, benchmark=0.3)
+    study = AdaptiveStudy((30, 60), AllocationRule("fixed"), control=False,
+                          assignment="rounded", arm_rule=rule)
+    rates = np.array([0.3, 0.3, 0.45])
+    batch = simulate(study, rates, 40_000, seed=13)
+    success = batch.outcome == 1
+    for j, p in enumerate(rates):
+        # per arm 10 then 20 subjects; success at look 1 if sf(0.3) >= 0.99, else at
+        # look 2 if >= 0.95
+        b1 = stats.beta.sf(0.3, 1 + np.arange(11), 1 + 10 - np.arange(11))
+        first = b1 >= 0.99
+        total = stats.binom.pmf(np.arange(11), 10, p)[first].sum()
+        for x1 in np.flatnonzero(~first):
+            x2 = x1 + np.arange(11)
+            b2 = stats.beta.sf(0.3, 1 + x2, 1 + 20 - x2)
+            total += stats.binom.pmf(x1, 10, p) * stats.binom.pmf(np.arange(11), 10, p)[
+                b2 >= 0.95].sum()
+        assert abs(success[:, j].mean() - total) <= 4 * np.sqrt(total * (1 - total) / 40_000)
+    none = 1 - success.any(axis=1).mean()
+    product = np.prod(1 - success.mean(axis=0))
+    assert abs(none - product) <= 4 * np.sqrt(product * (1 - product) / 40_000)

@@ -21,7 +21,9 @@ import numba
 import numpy as np
 
 from octrial.allocation.best import best_from_table
+from octrial.allocation.decisions import arm_benefit
 from octrial.allocation.rule import shares
+from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 
 
 @numba.njit(cache=True, inline="always")
@@ -73,13 +75,20 @@ def split_rounded(block, probs, out):  # pragma: no cover - compiled
 @numba.njit(cache=True)
 def simulate_studies(rounded, rates, looks, control, form, power, control_share, minimum,
                      burn_in, ratio, drop_below, density, worse, support, reach,
-                     weights, which,
-                     uniforms, sizes, responses, allocation, dropped):  # pragma: no cover
+                     weights, which, decide, versus_control, higher, shift, benchmark,
+                     efficacy, futility, prior_w, prior_a, prior_b, log_u, log_1mu, log_w,
+                     start, memo, uniforms, sizes, responses, allocation, dropped,
+                     outcome):  # pragma: no cover
     """Simulate ``uniforms.shape[0]`` studies (blocks split by rounding when
     ``rounded``, else randomised); write per look and arm the cumulative
     subjects ``sizes``, responses ``responses`` and the allocation probabilities used
     for the block that ended at that look; ``dropped[r, j]`` is the look after which arm
-    j stopped enrolling (-1: never)."""
+    j stopped enrolling (-1: never). With ``decide``, each active treatment arm meets
+    its own rule at every look (:mod:`octrial.allocation.decisions`): ``outcome[r, j]``
+    is 1 (efficacy, a success) or 2 (futility, or no success at the end) and
+    ``dropped[r, j]`` the look it stopped at; arms dropped for a low Pr(best) keep
+    outcome 0. The study ends when no treatment arm is left (later looks repeat the
+    sizes reached)."""
     studies = uniforms.shape[0]
     n_looks = looks.shape[0]
     arms = rates.shape[0]
@@ -98,10 +107,18 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
             x[j] = 0
             active[j] = True
             dropped[r, j] = -1
+            outcome[r, j] = 0
+        ended = False
         enrolled = 0
         shares(pr_best, active, control, form, power, control_share, minimum, burn_in,
                ratio, 0, maximum, probs)
         for k in range(n_looks):
+            if ended:
+                for j in range(arms):
+                    sizes[r, k, j] = n[j]
+                    responses[r, k, j] = x[j]
+                    allocation[r, k, j] = 0.0
+                continue
             remaining = looks[k] - enrolled
             rest = 1.0
             last = -1
@@ -129,6 +146,25 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
             for j in range(arms):
                 sizes[r, k, j] = n[j]
                 responses[r, k, j] = x[j]
+            if decide:
+                left = 0
+                for j in range(first, arms):
+                    if not active[j]:
+                        continue
+                    b = arm_benefit(versus_control, higher, shift, benchmark, j, prior_w,
+                                    prior_a, prior_b, n[j], x[j], n[0], x[0], maximum,
+                                    log_u, log_1mu, log_w, start, memo)
+                    code = look_decision_at(efficacy[k], futility[k], k == n_looks - 1,
+                                            b, DECISION_TOLERANCE)
+                    if code != CONTINUE:
+                        active[j] = False
+                        dropped[r, j] = k
+                        outcome[r, j] = 1 if code == EFFICACY else 2
+                    else:
+                        left += 1
+                if left == 0:
+                    ended = True
+                    continue
             if k == n_looks - 1:
                 break
             adaptive = form != 0 and enrolled >= burn_in

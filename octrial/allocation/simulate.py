@@ -9,11 +9,14 @@ workers gives the same numbers.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from octrial.allocation.best import BestTables, quadrature_nodes
+from octrial.allocation.decisions import ArmRule, new_memo, padded_priors
+from octrial.allocation.decisions import nodes as decision_nodes
 from octrial.allocation.kernel import simulate_studies
 from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
@@ -44,6 +47,9 @@ class AdaptiveStudy:
     drop_below : float
         Treatment arms whose Pr(best) falls below this after a look stop enrolling;
         0: none. Below 1 / (treatment arms), so the leading arm never drops.
+    arm_rule : ArmRule or None
+        Each treatment arm's own efficacy / futility rule (None: no decisions, the
+        arms enrol to the end unless dropped).
     assignment : {'randomised', 'rounded'}
         How a block is split over the arms: complete randomisation (a multinomial draw
         with the allocation probabilities) or deterministically (the block times the
@@ -58,6 +64,7 @@ class AdaptiveStudy:
     higher: bool = True
     drop_below: float = 0.0
     assignment: str = "randomised"
+    arm_rule: ArmRule | None = None
 
     def check(self, arms: int) -> None:
         """Raise :class:`~octrial.errors.SettingsError` naming every problem."""
@@ -82,6 +89,17 @@ class AdaptiveStudy:
                 "looks", f"an interim total whose Pr(best) tables fit in "
                 f"{TABLE_LIMIT / 2**30:.0f} GiB (they grow with its square)",
                 f"{need / 2**30:.1f} GiB for {self.looks[-2]} subjects at the last interim look"))
+        rule = self.arm_rule
+        if rule is not None:
+            if len(rule.efficacy) != looks.size or len(rule.futility) != looks.size:
+                found.append(Problem("arm_rule", f"{looks.size} efficacy and futility "
+                                     "thresholds (one per look)",
+                                     f"{len(rule.efficacy)} and {len(rule.futility)}"))
+            if rule.versus_control != self.control:
+                found.append(Problem("arm_rule.versus_control", str(self.control),
+                                     str(rule.versus_control)))
+            if rule.higher != self.higher:
+                found.append(Problem("arm_rule.higher", str(self.higher), str(rule.higher)))
         if self.assignment not in ASSIGNMENTS:
             found.append(Problem("assignment", "one of " + ", ".join(ASSIGNMENTS),
                                  show(self.assignment)))
@@ -112,11 +130,15 @@ class StudyBatch:
     responses: np.ndarray
     allocation: np.ndarray
     dropped: np.ndarray
+    outcome: np.ndarray
 
 
 def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: int,
-                   scenario: int, batch: int, table: BestTables | None = None) -> StudyBatch:
-    """Simulate one seeded batch of ``studies`` studies at true response ``rates``."""
+                   scenario: int, batch: int, table: BestTables | None = None,
+                   memo: Any = None) -> StudyBatch:
+    """Simulate one seeded batch of ``studies`` studies at true response ``rates``
+    (``memo``: a :func:`~octrial.allocation.decisions.new_memo` to share between
+    batches; it saves work only)."""
     rates = np.asarray(rates, float)
     arms = rates.size
     study.check(arms)
@@ -129,26 +151,41 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
     responses = np.zeros_like(sizes)
     allocation = np.zeros((studies, looks.size, arms))
     dropped = np.zeros((studies, arms), np.int8)
+    outcome = np.zeros((studies, arms), np.int8)
+    rule = study.arm_rule
+    priors = [study.prior] * arms if study.arm_priors is None else list(study.arm_priors)
+    prior_w, prior_a, prior_b = padded_priors(priors)
+    memo = new_memo() if memo is None else memo
+    if rule is None:
+        thresholds = np.full(looks.size, np.nan), np.full(looks.size, np.nan)
+    else:
+        thresholds = (np.asarray(rule.efficacy, float), np.asarray(rule.futility, float))
     form, power, control_share, minimum, burn_in, ratio = study.rule.codes(
         arms - int(study.control), study.control)
     simulate_studies(study.assignment == "rounded", rates, looks, study.control, form,
                      power, control_share, minimum, burn_in, ratio,
                      float(study.drop_below), table.density, table.worse, table.support,
-                     table.reach, table.weights, table.which, uniforms, sizes, responses,
-                     allocation, dropped)
-    return StudyBatch(sizes, responses, allocation, dropped)
+                     table.reach, table.weights, table.which, rule is not None,
+                     study.control, study.higher,
+                     0.0 if rule is None else float(rule.shift),
+                     np.nan if rule is None else float(rule.benchmark), *thresholds,
+                     prior_w, prior_a, prior_b, *decision_nodes(), memo, uniforms, sizes,
+                     responses, allocation, dropped, outcome)
+    return StudyBatch(sizes, responses, allocation, dropped, outcome)
 
 
 def simulate(study: AdaptiveStudy, rates: np.ndarray, replicates: int, seed: int,
              scenario: int = 0, batch_size: int = 50_000) -> StudyBatch:
     """All batches of one scenario, in batch order (the last may be shorter)."""
     table = study.tables(len(rates))
+    memo = new_memo()
     parts = []
     for b, start in enumerate(range(0, replicates, batch_size)):
         parts.append(simulate_batch(study, rates, min(batch_size, replicates - start),
-                                    seed, scenario, b, table))
+                                    seed, scenario, b, table, memo))
     return StudyBatch(*(np.concatenate([getattr(p, f) for p in parts])
-                        for f in ("sizes", "responses", "allocation", "dropped")))
+                        for f in ("sizes", "responses", "allocation", "dropped",
+                                  "outcome")))
 
 
 def summary(batch: StudyBatch, looks: tuple[int, ...]) -> pd.DataFrame:
