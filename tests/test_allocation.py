@@ -303,9 +303,11 @@ def test_dropped_arms_enrol_no_more_and_the_leader_stays():
                 assert np.all(batch.sizes[r, k:, j] == batch.sizes[r, k, j])
                 assert np.all(batch.allocation[r, k + 1:, j] == 0)
         assert np.any(batch.dropped[r, 1:] < 0)
-    table = summary(batch, looks)
-    assert table.loc[1, "pr_dropped_look1"] > table.loc[3, "pr_dropped_look1"]
+    table = summary(study, batch, rates)
+    assert table.loc[1, "look1_dropped"] > table.loc[3, "look1_dropped"]
     assert table["expected_n"].sum() == pytest.approx(120)
+    # the table's drop probabilities are the per-study flags, counted (identity)
+    assert table.loc[2, "look2_dropped"] == np.mean(batch.dropped[:, 2] == 1)
 
 
 def test_study_settings_are_checked():
@@ -472,6 +474,10 @@ def test_independent_arms_against_a_benchmark_multiply():
     rates = np.array([0.3, 0.3, 0.45])
     batch = simulate(study, rates, 40_000, seed=13)
     success = batch.outcome == 1
+    summed = summary(study, batch, rates)
+    np.testing.assert_array_equal(summed["is_null"], [True, True, False])
+    assert summed.loc[0, "study_fwer"] == np.mean(success[:, :2].any(axis=1))
+    assert summed.loc[0, "study_prob_success"] == np.mean(success.any(axis=1))
     for j, p in enumerate(rates):
         # per arm 10 then 20 subjects; success at look 1 if sf(0.3) >= 0.99, else at
         # look 2 if >= 0.95

@@ -188,21 +188,82 @@ def simulate(study: AdaptiveStudy, rates: np.ndarray, replicates: int, seed: int
                                   "outcome")))
 
 
-def summary(batch: StudyBatch, looks: tuple[int, ...]) -> pd.DataFrame:
-    """Per arm: expected subjects (and its standard error), mean allocation
-    probability of each block and the probability of having been dropped after each
-    look."""
-    studies, n_looks, arms = batch.sizes.shape
+def null_arms(study: AdaptiveStudy, rates: np.ndarray) -> np.ndarray:
+    """Per arm, whether its true rate does not beat the control (by the shift) or the
+    benchmark; False for the control and for every arm without an arm rule."""
+    rates = np.asarray(rates, float)
+    out = np.zeros(rates.size, bool)
+    rule = study.arm_rule
+    if rule is None:
+        return out
+    sign = 1.0 if study.higher else -1.0
+    first = 1 if study.control else 0
+    reference = rates[0] if study.control else rule.benchmark
+    effect = sign * (rates[first:] - reference)
+    out[first:] = effect <= (rule.shift if study.control else 0.0)
+    return out
+
+
+def tallies(batch: StudyBatch, nulls: np.ndarray) -> dict[str, np.ndarray]:
+    """Sums over the studies of a batch (added over batches in batch order)."""
     final = batch.sizes[:, -1, :].astype(float)
-    rows = {"arm": np.arange(arms),
-            "expected_n": final.mean(axis=0),
-            "expected_n_se": final.std(axis=0, ddof=1) / np.sqrt(studies)
-            if studies > 1 else np.full(arms, np.nan)}
-    for k in range(n_looks):
-        rows[f"allocation_block{k + 1}"] = batch.allocation[:, k, :].mean(axis=0)
-    for k in range(n_looks - 1):
-        rows[f"pr_dropped_look{k + 1}"] = (batch.dropped == k).mean(axis=0)
+    looks = batch.sizes.shape[1]
+    by_look = np.arange(looks)[:, None, None] == batch.dropped[None, :, :]
+    success = batch.outcome == 1
+    return {"n": final.sum(axis=0), "n_sq": (final**2).sum(axis=0),
+            "total": final.sum(axis=1).sum(keepdims=True),
+            "total_sq": (final.sum(axis=1) ** 2).sum(keepdims=True),
+            "allocation": batch.allocation.sum(axis=0),
+            "dropped": (by_look & (batch.outcome == 0)[None]).sum(axis=1),
+            "efficacy": (by_look & success[None]).sum(axis=1),
+            "futility": (by_look & (batch.outcome == 2)[None]).sum(axis=1),
+            "success": success.sum(axis=0),
+            "any": success.any(axis=1).sum(keepdims=True),
+            "fwer": (success & nulls[None, :]).any(axis=1).sum(keepdims=True)}
+
+
+def table(sums: dict[str, np.ndarray], replicates: int, rates: np.ndarray,
+          nulls: np.ndarray, scenario: int = 1) -> pd.DataFrame:
+    """One row per arm (arm 0 is the control when there is one); columns:
+
+    ``true_rate``, ``is_null``, ``expected_n`` and ``expected_n_se``,
+    ``allocation_block<k>`` (mean allocation probability of block k),
+    ``prob_success`` and ``prob_success_se`` (the arm meets its efficacy rule),
+    ``look<k>_efficacy``, ``look<k>_futility`` (the arm stops at look k by its own rule;
+    futility at the last look is 'no success'), ``look<k>_dropped`` (dropped after look
+    k for a low Pr(best)); and, the same on every row, ``study_prob_success`` (at least
+    one arm succeeds), ``study_fwer`` (at least one null arm succeeds), their standard
+    errors, and ``study_expected_n``.
+    """
+    r = float(replicates)
+    mean = sums["n"] / r
+    rows: dict[str, object] = {"scenario": scenario, "arm": np.arange(len(rates)),
+                               "true_rate": np.asarray(rates, float), "is_null": nulls,
+                               "expected_n": mean,
+                               "expected_n_se": np.sqrt(np.maximum(
+                                   sums["n_sq"] / r - mean**2, 0.0) / r)}
+    for k in range(sums["allocation"].shape[0]):
+        rows[f"allocation_block{k + 1}"] = sums["allocation"][k] / r
+    p = sums["success"] / r
+    rows["prob_success"] = p
+    rows["prob_success_se"] = np.sqrt(p * (1 - p) / r)
+    for k in range(sums["efficacy"].shape[0]):
+        rows[f"look{k + 1}_efficacy"] = sums["efficacy"][k] / r
+        rows[f"look{k + 1}_futility"] = sums["futility"][k] / r
+        rows[f"look{k + 1}_dropped"] = sums["dropped"][k] / r
+    for key in ("any", "fwer"):
+        name = "study_prob_success" if key == "any" else "study_fwer"
+        q = float(sums[key][0]) / r
+        rows[name] = q
+        rows[name + "_se"] = float(np.sqrt(q * (1 - q) / r))
+    rows["study_expected_n"] = float(sums["total"][0]) / r
     return pd.DataFrame(rows)
+
+
+def summary(study: AdaptiveStudy, batch: StudyBatch, rates: np.ndarray) -> pd.DataFrame:
+    """The per-arm table (:func:`table`) of simulated studies."""
+    nulls = null_arms(study, rates)
+    return table(tallies(batch, nulls), batch.sizes.shape[0], rates, nulls)
 
 
 @dataclass(frozen=True)
@@ -218,39 +279,24 @@ class ScenarioTask:
 
 
 def scenario_tallies(task: ScenarioTask) -> dict[str, np.ndarray]:
-    """Per-arm sums of one scenario (what :func:`simulate_grid` adds up)."""
-    batch = simulate(task.study, np.asarray(task.rates), task.replicates, task.seed,
-                     task.scenario, task.batch_size)
-    final = batch.sizes[:, -1, :].astype(float)
-    looks = batch.sizes.shape[1]
-    return {"n": final.sum(axis=0), "n_sq": (final**2).sum(axis=0),
-            "allocation": batch.allocation.sum(axis=0),
-            "dropped": np.stack([(batch.dropped == k).sum(axis=0)
-                                 for k in range(looks - 1)]).reshape(looks - 1, -1)}
+    """The sums of one scenario (what :func:`simulate_grid` turns into its rows)."""
+    rates = np.asarray(task.rates)
+    batch = simulate(task.study, rates, task.replicates, task.seed, task.scenario,
+                     task.batch_size)
+    return tallies(batch, null_arms(task.study, rates))
 
 
 def simulate_grid(study: AdaptiveStudy, scenarios: list[tuple[float, ...]],
                   replicates: int, seed: int, execution: Execution | None = None,
                   batch_size: int = 50_000) -> pd.DataFrame:
-    """Per scenario and arm: expected subjects (with its standard error), mean
-    allocation probability of each block and the probability of being dropped after
-    each look. Scenario i is seeded by ``(seed, i, batch)``, so the number of workers
-    never changes a number.
+    """The per-arm table (:func:`table`) of every scenario. Scenario i is seeded by
+    ``(seed, i, batch)``, so the number of workers never changes a number.
     """
     execution = Execution() if execution is None else execution
     tasks = [ScenarioTask(study, tuple(map(float, rates)), replicates, seed, i, batch_size)
              for i, rates in enumerate(scenarios)]
     results, _ = run_grid(scenario_tallies, tasks, execution)
-    frames = []
-    for i, (task, sums) in enumerate(zip(tasks, results, strict=True)):
-        mean = sums["n"] / replicates
-        var = np.maximum(sums["n_sq"] / replicates - mean**2, 0.0)
-        rows: dict[str, object] = {"scenario": i + 1, "arm": np.arange(len(task.rates)),
-                                   "true_rate": task.rates, "expected_n": mean,
-                                   "expected_n_se": np.sqrt(var / replicates)}
-        for k in range(sums["allocation"].shape[0]):
-            rows[f"allocation_block{k + 1}"] = sums["allocation"][k] / replicates
-        for k in range(sums["dropped"].shape[0]):
-            rows[f"pr_dropped_look{k + 1}"] = sums["dropped"][k] / replicates
-        frames.append(pd.DataFrame(rows))
+    frames = [table(sums, replicates, np.asarray(task.rates),
+                    null_arms(study, np.asarray(task.rates)), i + 1)
+              for i, (task, sums) in enumerate(zip(tasks, results, strict=True))]
     return pd.concat(frames, ignore_index=True)
