@@ -478,6 +478,9 @@ def test_independent_arms_against_a_benchmark_multiply():
     np.testing.assert_array_equal(summed["is_null"], [True, True, False])
     assert summed.loc[0, "study_fwer"] == np.mean(success[:, :2].any(axis=1))
     assert summed.loc[0, "study_prob_success"] == np.mean(success.any(axis=1))
+    running = batch.allocation[:, 1, :].sum(axis=1) > 0
+    assert summed.loc[2, "allocation_block2"] == pytest.approx(
+        batch.allocation[running, 1, 2].mean(), rel=1e-12)
     for j, p in enumerate(rates):
         # per arm 10 then 20 subjects; success at look 1 if sf(0.3) >= 0.99, else at
         # look 2 if >= 0.95

@@ -214,6 +214,7 @@ def tallies(batch: StudyBatch, nulls: np.ndarray) -> dict[str, np.ndarray]:
             "total": final.sum(axis=1).sum(keepdims=True),
             "total_sq": (final.sum(axis=1) ** 2).sum(keepdims=True),
             "allocation": batch.allocation.sum(axis=0),
+            "running": (batch.allocation.sum(axis=2) > 0).sum(axis=0),
             "dropped": (by_look & (batch.outcome == 0)[None]).sum(axis=1),
             "efficacy": (by_look & success[None]).sum(axis=1),
             "futility": (by_look & (batch.outcome == 2)[None]).sum(axis=1),
@@ -227,7 +228,8 @@ def table(sums: dict[str, np.ndarray], replicates: int, rates: np.ndarray,
     """One row per arm (arm 0 is the control when there is one); columns:
 
     ``true_rate``, ``is_null``, ``expected_n`` and ``expected_n_se``,
-    ``allocation_block<k>`` (mean allocation probability of block k),
+    ``allocation_block<k>`` (mean allocation probability of block k over the studies
+    that enrol it),
     ``prob_success`` and ``prob_success_se`` (the arm meets its efficacy rule),
     ``look<k>_efficacy``, ``look<k>_futility`` (the arm stops at look k by its own rule;
     futility at the last look is 'no success'), ``look<k>_dropped`` (dropped after look
@@ -243,7 +245,8 @@ def table(sums: dict[str, np.ndarray], replicates: int, rates: np.ndarray,
                                "expected_n_se": np.sqrt(np.maximum(
                                    sums["n_sq"] / r - mean**2, 0.0) / r)}
     for k in range(sums["allocation"].shape[0]):
-        rows[f"allocation_block{k + 1}"] = sums["allocation"][k] / r
+        running = max(int(sums["running"][k]), 1)
+        rows[f"allocation_block{k + 1}"] = sums["allocation"][k] / running
     p = sums["success"] / r
     rows["prob_success"] = p
     rows["prob_success_se"] = np.sqrt(p * (1 - p) / r)
