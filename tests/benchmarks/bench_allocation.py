@@ -13,7 +13,9 @@ Compared in one run, on one core (rates per CPU second of this process):
 * (b) vectorised: numpy for all studies of a batch at once: multinomial draws with
   per-study probabilities and Pr(best) from the same node table as the kernel,
   gathered into (studies x arms x nodes) arrays;
-* octrial's kernel (:func:`simulate_batch`, uniforms included).
+* octrial's kernel (:func:`simulate_batch`, uniforms included); then, octrial only,
+  with each arm's own efficacy / futility rule against the control at the sizes
+  reached (three batches, while the memo of posterior probabilities fills).
 
 Target (issue 16): >= 200,000 adaptive studies per second per core (>= 1,000,000 with
 fixed allocation is the several-arm engine's target, measured in its own benchmark).
@@ -27,6 +29,7 @@ import time
 import numpy as np
 
 from octrial.allocation import AllocationRule, next_allocation, probability_best
+from octrial.allocation.decisions import ArmRule, new_memo
 from octrial.allocation.simulate import AdaptiveStudy, simulate_batch
 
 LOOKS = (60, 120, 180)
@@ -136,6 +139,16 @@ def main() -> None:
         print("  expected n per arm: naive", s_naive.mean(axis=0).round(1),
               " vectorised", s_vec.mean(axis=0).round(1),
               " octrial", np.concatenate(sizes).mean(axis=0).round(1))
+    # octrial only: each arm's own rule against the control at the sizes reached
+    # (Pr(p_t > p_c) by tanh-sinh quadrature, memoised by the counts)
+    decided = AdaptiveStudy(LOOKS, RULES["adaptive"], drop_below=0.05,
+                            arm_rule=ArmRule((0.999, 0.99, 0.975), (0.05, 0.1, np.nan)))
+    table, memo = decided.tables(RATES.size), new_memo()
+    simulate_batch(decided, RATES, 10, 1, 0, 0, table, memo)
+    for b in range(3):
+        t, _ = rate(simulate_batch, decided, RATES, 50_000, 3, 0, b, table, memo)
+        print(f"  with per-arm decisions, batch {b + 1} (memo filling): "
+              f"{50_000 / t:12,.0f} studies/s")
 
 
 if __name__ == "__main__":
