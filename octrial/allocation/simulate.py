@@ -162,15 +162,15 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
         thresholds = (np.asarray(rule.efficacy, float), np.asarray(rule.futility, float))
     form, power, control_share, minimum, burn_in, ratio = study.rule.codes(
         arms - int(study.control), study.control)
-    simulate_studies(study.assignment == "rounded", rates, looks, study.control, form,
-                     power, control_share, minimum, burn_in, ratio,
-                     float(study.drop_below), table.density, table.worse, table.support,
-                     table.reach, table.weights, table.which, rule is not None,
-                     study.control, study.higher,
-                     0.0 if rule is None else float(rule.shift),
-                     np.nan if rule is None else float(rule.benchmark), *thresholds,
-                     prior_w, prior_a, prior_b, *decision_nodes(), memo, uniforms, sizes,
-                     responses, allocation, dropped, outcome)
+    simulate_studies(  # type: ignore[call-arg]
+        study.assignment == "rounded", rates, looks, study.control, form, power,
+        control_share, minimum, burn_in, ratio, float(study.drop_below), table.density,
+        table.worse, table.support, table.reach, table.weights, table.which,
+        rule is not None, study.control, study.higher,
+        0.0 if rule is None else float(rule.shift),
+        np.nan if rule is None else float(rule.benchmark), *thresholds,
+        prior_w, prior_a, prior_b, *decision_nodes(), memo, uniforms, sizes,
+        responses, allocation, dropped, outcome)
     return StudyBatch(sizes, responses, allocation, dropped, outcome)
 
 
