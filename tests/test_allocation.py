@@ -322,14 +322,18 @@ def test_two_workers_give_the_numbers_of_one():
     from octrial.allocation.simulate import simulate_grid
     from octrial.execution import Execution
 
+    from octrial.allocation.decisions import ArmRule
+
+    # with each arm's own rule too: each worker's memo differs, never the numbers
     study = AdaptiveStudy((30, 60, 90), AllocationRule("information", minimum=0.05),
-                          drop_below=0.05)
+                          drop_below=0.05,
+                          arm_rule=ArmRule((0.999, 0.99, 0.97), (0.05, 0.1, np.nan)))
     grid = [(0.2, 0.2, 0.2, 0.2), (0.2, 0.25, 0.35, 0.5)]
     one = simulate_grid(study, grid, 2000, seed=17, batch_size=700)
     two = simulate_grid(study, grid, 2000, seed=17, execution=Execution(jobs=2),
                         batch_size=700)
     assert one.equals(two)
-    assert one.loc[one.scenario == 2, "expected_n"].sum() == pytest.approx(90)
+    assert one.loc[one.scenario == 2, "expected_n"].sum() < 90
     pytest.importorskip("dask.distributed")
     dask = simulate_grid(study, grid, 2000, seed=17,
                          execution=Execution(jobs=2, backend="dask"), batch_size=700)
