@@ -319,10 +319,9 @@ def test_study_settings_are_checked():
 def test_two_workers_give_the_numbers_of_one():
     # run_grid with joblib workers and a local Dask cluster: each scenario seeded by
     # (seed, scenario, batch)
+    from octrial.allocation.decisions import ArmRule
     from octrial.allocation.simulate import simulate_grid
     from octrial.execution import Execution
-
-    from octrial.allocation.decisions import ArmRule
 
     # with each arm's own rule too: each worker's memo differs, never the numbers
     study = AdaptiveStudy((30, 60, 90), AllocationRule("information", minimum=0.05),
