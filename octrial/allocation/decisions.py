@@ -1,0 +1,131 @@
+"""Each treatment arm's own decision at the sizes a study reached.
+
+With adaptive allocation the arms' sizes at a look are random, so decision tables at
+planned sizes do not apply; the posterior probability of benefit is computed per arm and
+look from the counts reached: against the shared control
+``B = Pr(effect > shift)`` by :func:`octrial.simulation.beta_difference.prob_difference_exceeds`
+(the decision tables' tanh-sinh quadrature), against a benchmark the posterior tail of
+the arm's rate. The decision is the project's one stop rule
+(:func:`octrial.rules.stop.look_decision_at`). Values are memoised by the counts in a
+dictionary that only saves work (it never changes a number).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numba
+import numpy as np
+from numba import types
+from numba.typed import Dict
+
+from octrial.simulation.beta_difference import (
+    QUADRATURE_TOLERANCE,
+    _mixture_cdf,
+    prob_difference_exceeds,
+    quadrature_nodes,
+)
+from octrial.simulation.special import log_beta
+
+
+@dataclass(frozen=True)
+class ArmRule:
+    """The per-arm rule every treatment arm follows.
+
+    Attributes
+    ----------
+    efficacy, futility : tuple of float
+        Posterior probability thresholds per look (``nan``: none at that look); the last
+        look's efficacy threshold is the final success threshold.
+    versus_control : bool
+        Against the shared control (arm 0), else against ``benchmark``.
+    shift : float
+        The effect, in the better direction, a success must exceed (superiority margin
+        d: d; non-inferiority margin d: -d).
+    benchmark : float
+        The rate each arm must beat without a control.
+    higher : bool
+        Whether a higher response probability is better.
+    """
+
+    efficacy: tuple[float, ...]
+    futility: tuple[float, ...]
+    versus_control: bool = True
+    shift: float = 0.0
+    benchmark: float = float("nan")
+    higher: bool = True
+
+
+def padded_priors(priors: list[tuple]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Beta-mixture priors per arm as (arms, components) arrays; missing components
+    have weight 0 (they add nothing)."""
+    parts = [tuple(np.atleast_1d(np.asarray(v, float)) for v in p) for p in priors]
+    width = max(p[0].size for p in parts)
+    w = np.zeros((len(parts), width))
+    a = np.ones((len(parts), width))
+    b = np.ones((len(parts), width))
+    for i, (pw, pa, pb) in enumerate(parts):
+        w[i, :pw.size] = pw / pw.sum()
+        a[i, :pa.size] = pa
+        b[i, :pb.size] = pb
+    return w, a, b
+
+
+def new_memo() -> Dict:
+    """An empty memo of benefit probabilities (numba typed dictionary)."""
+    return Dict.empty(key_type=types.int64, value_type=types.float64)
+
+
+def nodes() -> tuple[np.ndarray, ...]:
+    """The quadrature nodes :func:`arm_benefit` takes."""
+    return quadrature_nodes()
+
+
+@numba.njit(cache=True)
+def posterior_mixture(w, a, b, n, x, pw, pa, pb):  # pragma: no cover - compiled
+    """Posterior weights and shapes of a beta mixture after ``x`` of ``n`` (METHODS.md,
+    binary; zero-weight components stay at zero)."""
+    top = -math.inf
+    for j in range(w.size):
+        pa[j] = a[j] + x
+        pb[j] = b[j] + n - x
+        if w[j] > 0:
+            pw[j] = math.log(w[j]) + log_beta(pa[j], pb[j]) - log_beta(a[j], b[j])
+            top = max(top, pw[j])
+        else:
+            pw[j] = -math.inf
+    total = 0.0
+    for j in range(w.size):
+        pw[j] = math.exp(pw[j] - top) if w[j] > 0 else 0.0
+        total += pw[j]
+    for j in range(w.size):
+        pw[j] /= total
+
+
+@numba.njit(cache=True)
+def arm_benefit(versus_control, higher, shift, benchmark, arm, prior_w, prior_a, prior_b,
+                n_t, x_t, n_c, x_c, largest, log_u, log_1mu, log_w, start,
+                memo):  # pragma: no cover - compiled
+    """Posterior probability of benefit of treatment arm ``arm`` (against arm 0 when
+    ``versus_control``), memoised by the counts (``largest`` bounds every count)."""
+    side = largest + 1
+    key = (((arm * side + n_t) * side + x_t) * side + n_c) * side + x_c
+    if key in memo:
+        return memo[key]
+    width = prior_w.shape[1]
+    tw, ta, tb = np.empty(width), np.empty(width), np.empty(width)
+    posterior_mixture(prior_w[arm], prior_a[arm], prior_b[arm], n_t, x_t, tw, ta, tb)
+    if not versus_control:
+        value = _mixture_cdf(tw, ta, tb, benchmark, higher)
+    else:
+        cw, ca, cb = np.empty(width), np.empty(width), np.empty(width)
+        posterior_mixture(prior_w[0], prior_a[0], prior_b[0], n_c, x_c, cw, ca, cb)
+        if higher:
+            value = prob_difference_exceeds(tw, ta, tb, cw, ca, cb, shift, log_u, log_1mu,
+                                            log_w, start, QUADRATURE_TOLERANCE)
+        else:
+            value = prob_difference_exceeds(cw, ca, cb, tw, ta, tb, shift, log_u, log_1mu,
+                                            log_w, start, QUADRATURE_TOLERANCE)
+    memo[key] = value
+    return value
