@@ -67,6 +67,17 @@ def load_design(path: str | Path) -> Design:
     DesignError
         Listing every problem found, each with the file, key, expectation and finding.
     """
+    return parse_design(*read_toml(path))
+
+
+def read_toml(path: str | Path) -> tuple[dict[str, Any], Source]:
+    """The parsed TOML of a design file and its :class:`Source` (path, SHA-256, text).
+
+    Raises
+    ------
+    DesignError
+        When the file is missing or is not UTF-8 TOML.
+    """
     path = Path(path)
     if not path.is_file():
         raise DesignError(str(path), [Problem("", "an existing design file",
@@ -78,8 +89,7 @@ def load_design(path: str | Path) -> Design:
         data = tomllib.loads(text)
     except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
         raise DesignError(str(path), [Problem("", "a valid UTF-8 TOML file", str(exc))]) from None
-    source = Source(str(path), hashlib.sha256(raw).hexdigest(), text)
-    return parse_design(data, source)
+    return data, Source(str(path), hashlib.sha256(raw).hexdigest(), text)
 
 
 def parse_design(data: dict[str, Any], source: Source) -> Design:

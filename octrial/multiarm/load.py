@@ -18,13 +18,11 @@ checked the same way. Keys that several arms add:
 from __future__ import annotations
 
 import copy
-import hashlib
 import itertools
-import tomllib
 from pathlib import Path
 from typing import Any
 
-from octrial.design.load import parse_design
+from octrial.design.load import parse_design, read_toml
 from octrial.design.model import CONTROL, TREATMENT, Arm, Design, Scenarios, Source
 from octrial.design.reader import NONE_WORD, Phrase, Problems, Table, is_number
 from octrial.errors import DesignError, Problem
@@ -57,16 +55,7 @@ def load_multiarm(path: str | Path) -> MultiArmDesign:
     DesignError
         Listing every problem found, each with the file, key, expectation and finding.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise DesignError(str(path), [Problem("", "an existing design file", "no such file")])
-    raw = path.read_bytes()
-    try:
-        text = raw.decode("utf-8-sig")
-        data = tomllib.loads(text)
-    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise DesignError(str(path), [Problem("", "a valid UTF-8 TOML file", str(exc))]) from None
-    return parse_multiarm(data, Source(str(path), hashlib.sha256(raw).hexdigest(), text))
+    return parse_multiarm(*read_toml(path))
 
 
 def parse_multiarm(data: dict[str, Any], source: Source) -> MultiArmDesign:
