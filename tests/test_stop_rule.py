@@ -166,7 +166,7 @@ FINAL_WORDS = {EFFICACY: "success", FUTILITY: "failure"}
 
 @pytest.mark.parametrize("seed", range(10))
 def test_interim_decisions_agree_with_the_stated_rules(seed):
-    """``octrial decide``'s readings (interim/rule.py) against the transcriptions above."""
+    """``octrial decide``'s readings (interim/rule.py) against the restatements above."""
     from octrial.interim.rule import Thresholds, count_decision, probability_decision
 
     rng = np.random.default_rng(300 + seed)
