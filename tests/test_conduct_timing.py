@@ -103,7 +103,7 @@ def test_duration_quantiles_and_means_against_numpy():
     duration = rng.uniform(5, 40, 20_000)
     calendar = np.zeros(calendar_size(design.looks.count))
     record_studies(calendar, duration_edges(design), duration, duration, duration,
-                   np.full((20_000, design.looks.count), np.nan))
+                   np.full((20_000, design.looks.count), np.nan), 0, count_edges(design))
     columns = calendar_columns(design, calendar[None, :], np.array([20_000]))
     for q in (10, 50, 90):
         # log-spaced bins: at most 0.7% of the value (simulation/calendar.py)

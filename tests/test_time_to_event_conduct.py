@@ -15,6 +15,7 @@ from scipy import integrate, optimize, stats
 
 import octrial
 from octrial.cli import main
+from octrial.conduct.arrivals import fill_enrolment_times
 from octrial.conduct.model import Accrual
 from octrial.simulation import event_driven as ed
 from tests.helpers import build
@@ -109,7 +110,7 @@ def test_poisson_enrolment_counts_per_period_follow_scipy_poisson() -> None:
     out = np.empty(120)
     first, second = [], []
     for _ in range(4000):
-        ed.enrolment_times(rng.standard_exponential(120), 0, rates, starts, np.zeros(1), out)
+        fill_enrolment_times(rng.standard_exponential(120), 0, rates, starts, np.zeros(1), out)
         first.append(np.count_nonzero(out < 4.0))
         second.append(np.count_nonzero((out >= 4.0) & (out < 10.0)))
     for counts, mean in ((np.array(first), 8.0), (np.array(second), 36.0)):
@@ -127,24 +128,28 @@ def test_even_and_fixed_enrolment_are_the_stated_times() -> None:
     # in docs/design-files.md), computed independently by Accrual.time_of.
     accrual = Accrual((2.0, 10.0), (0.0, 3.0), arrivals="even")
     out = np.empty(40)
-    ed.enrolment_times(np.zeros(40), 1, np.array(accrual.rates), np.array(accrual.starts),
+    fill_enrolment_times(np.zeros(40), 1, np.array(accrual.rates), np.array(accrual.starts),
                        np.zeros(1), out)
     assert out == pytest.approx([accrual.time_of(i) for i in range(1, 41)], abs=1e-12)
     times = np.sort(np.random.default_rng(1).uniform(0, 9, 40))
-    ed.enrolment_times(np.zeros(40), 2, np.ones(1), np.zeros(1), times, out)
+    fill_enrolment_times(np.zeros(40), 2, np.ones(1), np.zeros(1), times, out)
     assert np.array_equal(out, times)
+
+
+def _subjects(data: dict[str, Any], truth: tuple[float, ...], seed: int) -> dict[str, Any]:
+    """One simulated study's subjects, drawn by the simulator's own routine."""
+    design = build(data)
+    return ed.EventDrivenSimulator(design, truth, 0.95).subjects(np.random.default_rng(seed))
 
 
 def test_follow_up_and_censoring_against_exponential_closed_forms() -> None:
     # Competing exponential event (hazard l) and loss (hazard h): the follow-up
     # min(T, C) is Exponential(l + h) and Pr(the event comes first) = l / (l + h)
     # (closed forms; KS and binomial tests in scipy.stats).
-    rng = np.random.default_rng(8)
     lam, h, n = 0.03, 0.01, 20000
-    u_e, u_l = rng.standard_exponential(n), rng.standard_exponential(n)
-    pairs = [ed.follow_up(u_e[i], u_l[i], lam, h) for i in range(n)]
-    follow = np.array([p[0] for p in pairs])
-    seen = np.array([p[1] for p in pairs])
+    subjects = _subjects({**ONE_ARM, "conduct": {"enrolment_rate": 100.0, "max_enrolment": n,
+                                                 "dropout_hazard": h}}, (lam,), 8)
+    follow, seen = subjects["follow"], subjects["seen"]
     assert stats.kstest(follow, stats.expon(scale=1 / (lam + h)).cdf).pvalue > 1e-3
     assert stats.binomtest(int(seen.sum()), n, lam / (lam + h)).pvalue > 1e-3
     assert stats.kstest(follow[seen], stats.expon(scale=1 / (lam + h)).cdf).pvalue > 1e-3
@@ -155,19 +160,15 @@ def test_events_and_exposure_agree_with_lifelines() -> None:
     # lifelines on the same subjects: the exponential fit's hazard d / E
     # (ExponentialFitter, lambda = 1 / scale), the event count of the Kaplan-Meier table.
     lifelines = pytest.importorskip("lifelines")
-    rng = np.random.default_rng(21)
     m, tau = 300, 30.0
-    enrolled = np.empty(m)
-    ed.enrolment_times(rng.standard_exponential(m), 0, np.array([10.0]), np.zeros(1),
-                       np.zeros(1), enrolled)
-    arm_of = ed.allocation_pattern((1.0, 1.0))[np.arange(m) % 2]
-    hazards = np.array([0.02, 0.04])
-    pairs = [ed.follow_up(u, v, hazards[j], 0.01) for u, v, j in
-             zip(rng.standard_exponential(m), rng.standard_exponential(m), arm_of, strict=True)]
-    follow = np.array([p[0] for p in pairs])
-    seen = np.array([p[1] for p in pairs])
-    events, exposure = np.zeros(2), np.zeros(2)
-    entered = ed.arm_statistics(enrolled, follow, seen, arm_of, tau, events, exposure)
+    subjects = _subjects({**TWO_ARM, "conduct": {"enrolment_rate": 10.0, "max_enrolment": m,
+                                                 "dropout_hazard": 0.01},
+                          "looks": {"events": [100], "efficacy": [0.975]}}, (0.02, 0.04), 21)
+    enrolled, follow, seen, arm_of = (subjects[k] for k in ("enrolled", "follow", "seen",
+                                                             "arm"))
+    events, exposure = np.zeros((2, 1)), np.zeros((2, 1))
+    entered = ed.piece_statistics(enrolled, follow, seen, arm_of, tau, np.zeros(1), events,
+                                  exposure)
     inside = enrolled <= tau
     assert entered == inside.sum()
     for j in range(2):
@@ -176,10 +177,10 @@ def test_events_and_exposure_agree_with_lifelines() -> None:
         observed = seen[mine] & (follow[mine] <= tau - enrolled[mine])
         fit = lifelines.ExponentialFitter().fit(duration, observed)
         # lifelines maximises the likelihood numerically: agreement to its tolerance
-        assert 1.0 / fit.lambda_ == pytest.approx(events[j] / exposure[j], rel=1e-5)
-        assert exposure[j] == pytest.approx(duration.sum(), rel=1e-12)
+        assert 1.0 / fit.lambda_ == pytest.approx(events[j, 0] / exposure[j, 0], rel=1e-5)
+        assert exposure[j, 0] == pytest.approx(duration.sum(), rel=1e-12)
         km = lifelines.KaplanMeierFitter().fit(duration, observed)
-        assert km.event_table["observed"].sum() == events[j]
+        assert km.event_table["observed"].sum() == events[j, 0]
 
 
 # -- the simulator against exact results ----------------------------------------------

@@ -22,26 +22,32 @@ from octrial.conduct.model import Accrual
 
 
 @njit(cache=True)
+def fill_enrolment_times(unit: np.ndarray, kind: int, rates: np.ndarray, starts: np.ndarray,
+                         times: np.ndarray, out: np.ndarray) -> None:
+    """One study's enrolment times into ``out``: Poisson arrivals (``kind`` 0) invert the
+    cumulative rate at the running sums of the standard exponentials ``unit``; even
+    arrivals (1) invert it at 1, 2, ...; fixed arrivals (2) copy ``times``."""
+    if kind == 2:
+        for i in range(out.size):
+            out[i] = times[i]
+        return
+    p = 0
+    at_start = 0.0  # cumulative rate at the start of period p
+    total = 0.0
+    for i in range(out.size):
+        total = total + unit[i] if kind == 0 else i + 1.0
+        while p + 1 < rates.size and total > at_start + rates[p] * (starts[p + 1] - starts[p]):
+            at_start += rates[p] * (starts[p + 1] - starts[p])
+            p += 1
+        out[i] = starts[p] + (total - at_start) / rates[p]
+
+
+@njit(cache=True)
 def _poisson_times(gaps: np.ndarray, rates: np.ndarray, starts: np.ndarray) -> np.ndarray:
     studies, subjects = gaps.shape
-    periods = rates.size
     out = np.empty((studies, subjects))
     for s in range(studies):
-        period = 0
-        t = starts[0]
-        for i in range(subjects):
-            # the gap in units of "expected arrivals"; spend it period by period
-            left = gaps[s, i]
-            while True:
-                end = starts[period + 1] if period + 1 < periods else np.inf
-                step = left / rates[period]
-                if t + step <= end:
-                    t += step
-                    break
-                left -= (end - t) * rates[period]
-                t = end
-                period += 1
-            out[s, i] = t
+        fill_enrolment_times(gaps[s], 0, rates, starts, starts, out[s])
     return out
 
 

@@ -244,9 +244,10 @@ def _read_prior(parent: Table, key: str, family: Family | None) -> Any:
     return family.read_prior(table)
 
 
-def _split(table: Table, n: list[int], arms: list[Arm]) -> tuple[tuple[int, ...], ...] | None:
-    """Per-arm cumulative sample sizes from totals and allocation weights."""
-    weights = [a.allocation for a in arms]
+def split_sizes(table: Table, n: list[int],
+                weights: list[float]) -> tuple[tuple[int, ...], ...] | None:
+    """Per-arm cumulative sample sizes from totals and allocation weights (problems
+    recorded at ``looks.n[k]``)."""
     total = sum(weights)
     # shares first: n x weight may overflow when a weight is large
     shares = [w / total for w in weights]
@@ -326,7 +327,7 @@ def _read_looks(
         else:
             if conduct is not None:
                 check_complete_targets(table, conduct, n)
-            per_arm = _split(table, n, arms) if arms else None
+            per_arm = split_sizes(table, n, [a.allocation for a in arms]) if arms else None
     information = tuple(v / n[-1] for v in n)
 
     if table.has("efficacy_count") or table.has("futility_count"):

@@ -22,7 +22,7 @@ import itertools
 from pathlib import Path
 from typing import Any
 
-from octrial.design.load import parse_design, read_toml
+from octrial.design.load import parse_design, read_toml, split_sizes
 from octrial.design.model import CONTROL, TREATMENT, Arm, Design, Scenarios, Source
 from octrial.design.reader import NONE_WORD, Phrase, Problems, Table, is_number
 from octrial.errors import DesignError, Problem
@@ -140,22 +140,10 @@ def _weights(arms: Table, names: list[str]) -> list[float] | None:
 def _split(looks: Table, n: list[int], weights: list[float]) -> tuple[tuple[int, ...], ...] | None:
     """Per-arm planned cumulative sizes from totals and weights (as the ordinary loader
     splits two arms)."""
-    total = sum(weights)
-    shares = [w / total for w in weights]
-    ratio = ":".join(f"{w:g}" for w in weights)
-    out = []
-    for k, n_k in enumerate(n):
-        sizes = [n_k * s for s in shares]
-        if any(abs(s - round(s)) > 1e-9 for s in sizes) or any(round(s) < 1 for s in sizes):
-            looks.problems.add(f"looks.n[{k + 1}]", f"a total that allocation {ratio} splits "
-                               "into whole per-arm sample sizes of at least 1", n_k)
-            return None
-        out.append(tuple(round(s) for s in sizes))
-    if any(b < a for prev, now in itertools.pairwise(out)
-           for a, b in zip(prev, now, strict=True)):
+    if any(b < a for a, b in itertools.pairwise(n)):
         looks.fail("n", "increasing totals", n)
         return None
-    return tuple(out)
+    return split_sizes(looks, n, weights)
 
 
 def _drop_rule(looks: Table, count: int) -> tuple[float | None, ...] | None:

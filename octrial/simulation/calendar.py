@@ -95,7 +95,7 @@ def record_study(calendar: np.ndarray, edges: np.ndarray, k: int, time: float,
 
 def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray,
                    enrolled: np.ndarray, analysed: np.ndarray, look_times: np.ndarray,
-                   reversed_: int = 0, counts: np.ndarray | None = None) -> None:
+                   reversed_: int, counts: np.ndarray) -> None:
     """Add a batch of studies: per study its duration, subjects enrolled and analysed,
     and each look's time (shape ``(studies, looks)``, NaN where the study ended before
     the look); ``reversed_`` efficacy stops the pipeline reversed. Events stay 0."""
@@ -112,8 +112,6 @@ def record_studies(calendar: np.ndarray, edges: np.ndarray, duration: np.ndarray
     start = calendar.size - 2 * COUNT_BINS - BINS
     at = np.clip(np.searchsorted(edges, duration, side="right") - 1, 0, BINS - 1)
     calendar[start:start + BINS] += np.bincount(at, minlength=BINS)
-    if counts is None:
-        counts = np.linspace(0.0, max(float(enrolled.max(initial=1.0)), 1.0), COUNT_BINS + 1)
     for offset, values in ((BINS, enrolled), (BINS + COUNT_BINS, analysed)):
         at = np.clip(np.searchsorted(counts, values, side="right") - 1, 0, COUNT_BINS - 1)
         calendar[start + offset:start + offset + COUNT_BINS] += np.bincount(

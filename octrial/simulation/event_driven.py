@@ -42,7 +42,9 @@ from typing import Any
 import numba
 import numpy as np
 
+from octrial.conduct.arrivals import fill_enrolment_times
 from octrial.conduct.model import Accrual, Conduct
+from octrial.conduct.timing import allocation_block
 from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import (
@@ -58,18 +60,12 @@ TRIGGERS = {"events": 0, "time": 1}
 
 
 def allocation_pattern(weights: tuple[float, ...]) -> np.ndarray:
-    """The fixed allocation block: arm indices in the order subjects are allocated, e.g.
-    (1, 1) gives [0, 1] and (2, 1) gives [0, 0, 1] (weights rounded to whole numbers of
-    subjects per block after scaling the smallest to 1)."""
-    smallest = min(weights)
-    counts = [max(1, round(w / smallest)) for w in weights]
-    block: list[int] = []
-    while any(counts):
-        for j, left in enumerate(counts):
-            if left:
-                block.append(j)
-                counts[j] -= 1
-    return np.array(block, dtype=np.int64)
+    """The fixed allocation block as arm indices in the order subjects are allocated
+    (:func:`octrial.conduct.timing.allocation_block`, filled in the order of
+    :func:`~octrial.conduct.timing.arm_counts`): (1, 1) gives [0, 1], (2, 1) gives
+    [0, 0, 1] and (1.5, 1) gives [0, 0, 0, 1, 1]."""
+    block = allocation_block(weights)
+    return np.repeat(np.arange(len(block), dtype=np.int64), block)
 
 
 def _nan(values: tuple[float | None, ...]) -> tuple[float, ...]:
@@ -353,65 +349,6 @@ class EventDrivenSimulator(PatientLevelSimulator):
 
 
 @numba.njit(cache=True)
-def enrolment_times(unit: np.ndarray, kind: int, rates: np.ndarray, starts: np.ndarray,
-                    times: np.ndarray, out: np.ndarray) -> None:
-    """Enrolment times of ``out.size`` subjects: Poisson arrivals invert the cumulative
-    rate at the running sum of ``unit`` exponentials; even arrivals invert it at 1, 2,
-    ...; fixed arrivals copy ``times``."""
-    if kind == 2:
-        for i in range(out.size):
-            out[i] = times[i]
-        return
-    p = 0
-    at_start = 0.0  # cumulative rate at the start of period p
-    total = 0.0
-    for i in range(out.size):
-        total = total + unit[i] if kind == 0 else i + 1.0
-        while p + 1 < rates.size and total > at_start + rates[p] * (starts[p + 1] - starts[p]):
-            at_start += rates[p] * (starts[p + 1] - starts[p])
-            p += 1
-        out[i] = starts[p] + (total - at_start) / rates[p]
-
-
-@numba.njit(cache=True, inline="always")
-def follow_up(unit_event: float, unit_loss: float, hazard: float,
-              dropout: float) -> tuple[float, bool]:
-    """One subject's follow-up from standard exponentials: (time to the event or the loss,
-    whichever comes first; whether it is the event). No loss when ``dropout`` is 0."""
-    t_event = unit_event / hazard
-    t_loss = unit_loss / dropout if dropout > 0.0 else np.inf
-    if t_event <= t_loss:
-        return t_event, True
-    return t_loss, False
-
-
-@numba.njit(cache=True)
-def arm_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
-                   arm_of: np.ndarray, tau: float, events: np.ndarray,
-                   exposure: np.ndarray) -> int:
-    """Each arm's events and exposure at the analysis at calendar time ``tau`` (written
-    into ``events`` and ``exposure``; administrative censoring at ``tau``); returns the
-    subjects enrolled by then."""
-    events[:] = 0.0
-    exposure[:] = 0.0
-    entered = 0
-    for i in range(enrolled.size):
-        if enrolled[i] > tau:
-            continue
-        entered += 1
-        j = arm_of[i]
-        # compared in calendar time, as the event times were sorted, so that the event
-        # at tau itself counts
-        if enrolled[i] + follow[i] <= tau:
-            exposure[j] += follow[i]
-            if seen[i]:
-                events[j] += 1.0
-        else:
-            exposure[j] += tau - enrolled[i]
-    return entered
-
-
-@numba.njit(cache=True)
 def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: np.ndarray,
                b: np.ndarray, claim: float, lower: bool) -> float:
     """Posterior probability of benefit from each arm's events and exposure (module
@@ -481,7 +418,7 @@ def draw_subjects(rng: Any, kind: int, rates: np.ndarray, starts: np.ndarray,
     if kind == 0:
         for i in range(m):
             gaps[i] = rng.standard_exponential()
-    enrolment_times(gaps, kind, rates, starts, times, enrolled)
+    fill_enrolment_times(gaps, kind, rates, starts, times, enrolled)
     resolved = 0.0
     for i in range(m):
         j = pattern[i % pattern.size]
