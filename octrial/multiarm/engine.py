@@ -70,6 +70,9 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
     seed = design.simulation.seed if seed is None else seed
     if seed is None:
         raise ValueError("several-arm simulation needs a seed (simulation.seed)")
+    if design.allocation.adaptive:
+        raise NotImplementedError("response-adaptive allocation is simulated by "
+                                  "octrial.allocation, not yet through this engine")
     tables = build_tables(design) if tables is None else tables
     rows = [_scenario(design, tables, row, replicates, seed, i)
             for i, row in enumerate(design.scenarios.values)]

@@ -10,7 +10,9 @@ checked the same way. Keys that several arms add:
 - ``looks.drop_if_best_below``: a number or a per-look list (``'none'`` where a look has
   none): drop an arm whose posterior probability of being the best is below it;
 - ``[selection] keep``: at most this many treatment arms continue after an interim look;
-- ``[allocation] kind``: ``'fixed'``;
+- ``[allocation]``: ``kind`` (``'fixed'``, or response-adaptive ``'power'`` or
+  ``'information'``), ``power``, ``control_share``, ``minimum``, ``burn_in``,
+  ``assignment`` (see :class:`octrial.multiarm.model.Allocation`);
 - ``[scenarios]``: one key per arm, each a list of true values of the same length (a
   single number stands for the same value in every row).
 """
@@ -28,6 +30,7 @@ from octrial.design.reader import NONE_WORD, Phrase, Problems, Table, is_number
 from octrial.errors import DesignError, Problem
 from octrial.multiarm.model import (
     ALLOCATION_KINDS,
+    ASSIGNMENTS,
     MAX_TREATMENTS,
     MIN_TREATMENTS,
     Allocation,
@@ -79,7 +82,7 @@ def parse_multiarm(data: dict[str, Any], source: Source) -> MultiArmDesign:
         per_arm = _split(looks_table, [int(v) for v in n_total if v is not None], weights)
     drop = _drop_rule(looks_table, len(n_total) if n_total else 0) if looks_table else None
     selection = _selection(top, len(treatments))
-    allocation = _allocation(top)
+    allocation = _allocation(top, len(treatments), control is not None)
     scenarios = _scenarios(top, all_names)
     if problems:
         raise DesignError(source.path, problems)
@@ -177,13 +180,36 @@ def _selection(top: Table, treatments: int) -> Selection:
     return Selection(None if keep is None else int(keep))
 
 
-def _allocation(top: Table) -> Allocation:
+def _allocation(top: Table, treatments: int, control: bool) -> Allocation:
     table = top.table("allocation", required=False)
     if table is None:
         return Allocation()
-    table.allow("kind")
+    table.allow("kind", "power", "control_share", "minimum", "burn_in", "assignment")
     kind = table.string("kind", ALLOCATION_KINDS, required=False, default="fixed")
-    return Allocation(kind or "fixed")
+    power = table.number("power", required=False, default=1.0, check=lambda v: v >= 0,
+                         expected="a number >= 0")
+    share = table.number("control_share", required=False, check=lambda v: 0 < v < 1,
+                         expected="a number in (0, 1)")
+    minimum = table.number("minimum", required=False, default=0.0,
+                           check=lambda v: 0 <= v < 1, expected="a number in [0, 1)")
+    burn_in = table.number("burn_in", required=False, default=0, integer=True,
+                           check=lambda v: v >= 0, expected="a whole number >= 0")
+    assignment = table.string("assignment", ASSIGNMENTS, required=False,
+                              default="randomised")
+    if None in (kind, power, minimum, burn_in, assignment):
+        return Allocation()
+    assert kind is not None and power is not None and minimum is not None
+    assert burn_in is not None and assignment is not None
+    if kind == "fixed":
+        for key in ("power", "control_share", "minimum", "burn_in"):
+            if table.has(key):
+                table.fail(key, "no value with kind = 'fixed' (the arms' allocation "
+                           "weights set the shares)", table.data[key])
+    allocation = Allocation(kind, power, share, minimum, int(burn_in), assignment)
+    if treatments:
+        for problem in allocation.rule().problems(treatments, control):
+            table.fail(problem.key, problem.expected, Phrase(problem.got))
+    return allocation
 
 
 def _scenarios(top: Table, names: list[str]) -> Scenarios | None:

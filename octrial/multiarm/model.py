@@ -14,15 +14,19 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+from octrial.allocation.rule import FORMS, AllocationRule
 from octrial.design.model import Arm, Design, Hypothesis, Scenarios, Simulation, Source
 
 MIN_TREATMENTS = 2
 MAX_TREATMENTS = 8
 """A multi-arm design has 2 to 8 treatment arms (one treatment arm is a two-arm design)."""
 
-ALLOCATION_KINDS = ("fixed",)
-"""Values of ``allocation.kind`` (response-adaptive forms are added by the allocation
-module)."""
+ALLOCATION_KINDS = FORMS
+"""Values of ``allocation.kind``: the forms of :class:`octrial.allocation.AllocationRule`
+(``'fixed'``, ``'power'``, ``'information'``)."""
+
+ASSIGNMENTS = ("randomised", "rounded")
+"""Values of ``allocation.assignment``: how a block is split over the arms."""
 
 
 @dataclass(frozen=True)
@@ -75,12 +79,47 @@ class Allocation:
 
     Attributes
     ----------
-    kind : str
+    kind : {'fixed', 'power', 'information'}
         ``'fixed'``: each arm's share is its ``allocation`` weight (the planned per-arm
-        sizes of :attr:`MultiArmLooks.per_arm`).
+        sizes of :attr:`MultiArmLooks.per_arm`). ``'power'``: response-adaptive,
+        treatment shares proportional to Pr(best) ** ``power``; ``'information'``: the
+        same with the power n / (2 N) (Thall & Wathen 2007).
+    power : float
+        Exponent of the ``'power'`` form.
+    control_share : float or None
+        Share of every block given to the shared control (None: an equal share).
+    minimum : float
+        Least share of a block for any active treatment arm.
+    burn_in : int
+        Subjects enrolled before adaptation starts (the fixed weights apply until then).
+    assignment : {'randomised', 'rounded'}
+        How an adaptive block is split over the arms: a multinomial draw, or the block
+        times the probabilities rounded by the largest-remainder method.
     """
 
     kind: str = "fixed"
+    power: float = 1.0
+    control_share: float | None = None
+    minimum: float = 0.0
+    burn_in: int = 0
+    assignment: str = "randomised"
+
+    @property
+    def adaptive(self) -> bool:
+        """Whether the shares follow the data (response-adaptive randomisation)."""
+        return self.kind != "fixed"
+
+    def rule(self, weights: tuple[float, ...] | None = None) -> AllocationRule:
+        """The allocation rule of :mod:`octrial.allocation` for these settings.
+
+        Parameters
+        ----------
+        weights : tuple of float, optional
+            The arms' fixed weights (control first), used before the burn-in ends and
+            by the ``'fixed'`` form; None: the rule's defaults.
+        """
+        return AllocationRule(self.kind, self.power, self.control_share, self.minimum,
+                              self.burn_in, weights)
 
 
 @dataclass(frozen=True)
