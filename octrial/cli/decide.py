@@ -9,6 +9,7 @@ from octrial.cli.common import design_argument, read_design, reports_input_error
 from octrial.endpoints import FAMILIES
 from octrial.interim import Decision, decide
 from octrial.interim.decision import DEFAULT_LEVEL, DEFAULT_SEED
+from octrial.interim.pipeline import PipelineReading
 from octrial.output import json_text
 
 FORMS = "; ".join(f"{name}: ARM={support.syntax.form}" for name, family in FAMILIES.items()
@@ -34,10 +35,17 @@ FORMS = "; ".join(f"{name}: ARM={support.syntax.form}" for name, family in FAMIL
               show_default=True, help="Seed of the simulations (posterior predictive checks; "
                                       "the predictive probability of two-arm unknown-sd "
                                       "designs).")
+@click.option("--pipeline", "pipeline", multiple=True, metavar="ARM=N",
+              help="Designs with an outcome lag ([conduct] outcome_lag): subjects of the "
+                   "arm enrolled whose outcome has not arrived yet, once per arm. Adds the "
+                   "predictive probability through these subjects and those still to "
+                   "enrol and, with analyse_pipeline, the probability that a stop for "
+                   "efficacy now is still a success once their outcomes are in.")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
 @reports_input_errors
 def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
-                   subjects: str | None, seed: int, as_json: bool) -> None:
+                   subjects: str | None, seed: int, pipeline: tuple[str, ...],
+                   as_json: bool) -> None:
     """The decision DESIGN's rule gives at an interim look on the data so far.
 
     Prints the posterior probability of benefit, the predictive probability of final
@@ -49,7 +57,7 @@ def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
     Exit codes: 0 a decision was made; 2 bad input.
     """
     result = decide(read_design(design), look, data, level=level, subjects=subjects,
-                    seed=seed)
+                    seed=seed, pipeline=pipeline)
     for warning in result.warnings:
         click.echo(f"warning: {warning}", err=True)
     if as_json:
@@ -77,6 +85,8 @@ def render(result: Decision) -> str:
         se = "" if a.predictive_se is None else f", Monte Carlo SE {a.predictive_se:.4f}"
         lines.append(f"predictive probability of final success = {a.predictive:.4f} "
                      f"({result.to_come} to come{se})")
+    if result.pipeline is not None:
+        lines += _pipeline_lines(result.pipeline)
     applied = [f"{k.replace('_', ' ')} {v:g}" for k, v in vars(a.thresholds).items()
                if v is not None]
     lines.append("rule at this look: " + ("; ".join(applied) or "no stopping threshold"))
@@ -87,6 +97,21 @@ def render(result: Decision) -> str:
         lines.append(f"check of the data model{arm}, {check.statistic}: {check.verdict}")
     lines.append(f"decision: {a.decision.upper()} ({a.reason})")
     return "\n".join(lines)
+
+
+def _pipeline_lines(reading: PipelineReading) -> list[str]:
+    """The pipeline's part of the text output."""
+    lines = ["pipeline (enrolled, no outcome yet): "
+             + ", ".join(f"{arm} {n}" for arm, n in reading.pipeline.items())
+             + "; enrolled: " + ", ".join(f"{arm} {n:g}" for arm, n in reading.enrolled.items())]
+    if reading.predictive is not None:
+        lines.append("predictive probability of final success through the pipeline and the "
+                     f"subjects still to enrol = {reading.predictive:.4f}")
+    if reading.success_if_stopped is not None:
+        lines.append("if the study stopped for efficacy now, probability that the analysis "
+                     "of every enrolled subject still meets the final success threshold "
+                     f"{reading.final_threshold:g} = {reading.success_if_stopped:.4f}")
+    return lines
 
 
 def _number(value: float | None) -> str:

@@ -21,6 +21,12 @@ from octrial.endpoints import FAMILIES
 from octrial.errors import Problem, SettingsError, bad_setting, single
 from octrial.interim.base import EndpointInterim, Frame, PosteriorSummary
 from octrial.interim.observations import SETTING, parse_data
+from octrial.interim.pipeline import (
+    PipelineReading,
+    assess_pipeline,
+    parse_pipeline,
+    pipeline_warnings,
+)
 from octrial.interim.rule import (
     CONTINUE,
     FAILURE,
@@ -69,6 +75,8 @@ class Decision:
         Endpoint-specific entries of the JSON record (count data: exposures).
     to_come : str
         What is still to come after the observed data, in words ('17 subjects').
+    pipeline : PipelineReading or None
+        What the subjects enrolled without an outcome add (``--pipeline``), or ``None``.
     """
 
     design: str
@@ -85,6 +93,7 @@ class Decision:
     checks: tuple[Any, ...] = ()
     extra: dict[str, Any] = dataclasses.field(default_factory=dict)
     to_come: str = ""
+    pipeline: PipelineReading | None = None
 
     @property
     def decision(self) -> str:
@@ -110,6 +119,8 @@ class Decision:
         }
         if a.predictive_se is not None:
             record["predictive_probability_se"] = a.predictive_se
+        if self.pipeline is not None:
+            record["pipeline"] = self.pipeline.as_dict()
         record.update({
             "posterior": {"level": self.level,
                           "summaries": [dataclasses.asdict(s) for s in self.posterior]},
@@ -227,6 +238,7 @@ def rule_at(design: Design, look: int, observed: dict[str, Any],
 def decide(
     design: Design, look: int, data: Iterable[str], *, level: float = DEFAULT_LEVEL,
     subjects: str | Path | None = None, seed: int = DEFAULT_SEED,
+    pipeline: Iterable[str] = (),
 ) -> Decision:
     """The decision of ``design``'s rule at ``look`` on the observed ``data``.
 
@@ -250,6 +262,12 @@ def decide(
     seed : int
         Seed of the simulations (posterior predictive checks; the predictive probability
         of two-arm unknown-sd designs).
+    pipeline : iterable of str
+        ``ARM=N`` per arm: subjects enrolled whose outcome has not arrived yet, for
+        designs with an outcome lag (:mod:`octrial.interim.pipeline`). Adds the
+        predictive probability through the pipeline and, with ``analyse_pipeline``, the
+        probability that a stop for efficacy now is still a success once the pipeline
+        reads out; the decision itself uses the outcomes only.
 
     Returns
     -------
@@ -259,7 +277,8 @@ def decide(
     ------
     InputError
         A look out of range, malformed or impossible data, ``data`` that disagree with
-        the per-subject file, or an unsupported endpoint.
+        the per-subject file, an unsupported endpoint, or a pipeline for a design
+        without an outcome lag or beyond an arm's planned maximum.
     """
     looks = design.looks
     if not 1 <= look <= looks.count:
@@ -268,6 +287,8 @@ def decide(
         raise bad_setting("level", "", "a credible level between 0 and 1 (exclusive)", level)
     support = endpoint_support(design)
     data = tuple(data)
+    pipeline = tuple(pipeline)
+    waiting = parse_pipeline(design, pipeline, look) if pipeline else None
     path = None if subjects is None else Path(subjects)
     if not data and path is None:
         form = support.syntax.form
@@ -291,6 +312,11 @@ def decide(
     on = frame.design
     planned = on.looks.per_arm[look - 1]
     warnings = list(support.warnings(design, observed))
+    reading = None
+    if waiting is not None:
+        reading = assess_pipeline(design, look, on, frame.sizes,
+                                  support.statistics(on, observed), waiting)
+        warnings.extend(pipeline_warnings(design, reading))
     near = _near_threshold(assessment)
     if near:
         warnings.append(near)
@@ -324,7 +350,8 @@ def decide(
             arms, on.looks.per_arm[-1], frame.sizes, strict=True)},
         statement=support.statement(design), assessment=assessment, level=level,
         posterior=posterior, warnings=tuple(warnings), checks=tuple(checks),
-        extra=support.extra_record(design, frame, look), to_come=to_come)
+        extra=support.extra_record(design, frame, look), to_come=to_come,
+        pipeline=reading)
 
 
 def _near_threshold(a: Assessment) -> str:
