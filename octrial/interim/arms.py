@@ -51,7 +51,7 @@ from octrial.errors import Problem, SettingsError, bad_setting
 from octrial.interim.base import PosteriorSummary
 from octrial.interim.best import probability_best_at
 from octrial.interim.decision import DEFAULT_LEVEL, Decision, decide, endpoint_support
-from octrial.interim.observations import SETTING
+from octrial.interim.observations import SETTING, split_entries
 from octrial.interim.rule import CONTINUE, FAILURE, STOP_EFFICACY, STOP_FUTILITY, SUCCESS
 from octrial.multiarm.model import MultiArmDesign
 
@@ -199,25 +199,6 @@ class ArmsDecision:
         }
 
 
-def _split(entries: Iterable[str], names: tuple[str, ...], problems: Problems,
-           form: str, example: str) -> dict[str, str]:
-    """``ARM=value`` entries by arm (values unparsed)."""
-    found: dict[str, str] = {}
-    for entry in entries:
-        name, sep, value = entry.partition("=")
-        name = name.strip()
-        if not sep:
-            problems.add("", f"ARM={form}, for example {names[-1]}={example}", entry)
-        elif name not in names:
-            problems.add("", "an arm of the design (" + ", ".join(names) + ")", name,
-                         suggest(name, names))
-        elif name in found:
-            problems.add(name, "each arm once", Phrase("it twice"))
-        else:
-            found[name] = value
-    return found
-
-
 def _renamed(text: str, arm: str) -> str:
     """A text of an arm's own design in the several-arm design's words."""
     # 'rate_treatment' too: an underscore is no word boundary here
@@ -296,7 +277,7 @@ def decide_arms(design: MultiArmDesign, look: int, data: Iterable[str], *,
     if left_problems:
         raise SettingsError(STOPPED, left_problems)
     problems = Problems()
-    values = _split(data, names, problems, syntax.form, syntax.example)
+    values = split_entries(data, names, problems, syntax.form, syntax.example)
     observed: dict[str, Any] = {}
     for arm, value in values.items():
         try:

@@ -162,6 +162,26 @@ def syntax_of(design: Design) -> Syntax:
     return support.syntax
 
 
+def split_entries(entries: Iterable[str], arms: tuple[str, ...], problems: Problems,
+                  form: str, example: str) -> dict[str, str]:
+    """``ARM=value`` entries by arm, the values as typed; a malformed entry, an unknown
+    arm (with the nearest name) and an arm given twice are added to ``problems``."""
+    found: dict[str, str] = {}
+    for entry in entries:
+        name, sep, value = entry.partition("=")
+        name = name.strip()
+        if not sep:
+            problems.add("", f"ARM={form}, for example {arms[0]}={example}", entry)
+        elif name not in arms:
+            problems.add("", "an arm of the design (" + ", ".join(arms) + ")", name,
+                         suggest(name, arms))
+        elif name in found:
+            problems.add(name, "each arm once", Phrase("it twice"))
+        else:
+            found[name] = value
+    return found
+
+
 def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
     """Read ``ARM=...`` entries into one observation per arm of ``design``.
 
@@ -185,28 +205,24 @@ def parse_data(design: Design, entries: Iterable[str]) -> dict[str, object]:
     problems = Problems()
     arms = design.arm_names
     found: dict[str, object] = {}
-    for entry in entries:
-        name, sep, value = entry.partition("=")
-        name = name.strip()
-        if not sep:
-            problems.add("", f"ARM={syntax.form}, for example {arms[0]}={syntax.example}",
-                         entry)
-            continue
-        if name not in arms:
-            problems.add("", "an arm of the design (" + ", ".join(arms) + ")", name,
-                         suggest(name, arms))
-            continue
-        if name in found:
-            problems.add(name, "each arm once", Phrase("it twice"))
-            continue
+    for name, value in split_entries(entries, arms, problems, syntax.form,
+                                     syntax.example).items():
         try:
             found[name] = syntax.parse(value)
         except ValueError as exc:
             problems.add(name, f"{exc}, like {name}={syntax.example}", value)
-    for arm in arms:
-        if arm not in found and not any(p.key == arm for p in problems):
-            problems.add(arm, f"the {arm} arm's data as {arm}={syntax.form}",
-                         Phrase("nothing"))
+    require_every_arm(arms, found, problems, lambda arm: f"the {arm} arm's data as "
+                      f"{arm}={syntax.form}")
     if problems:
         raise SettingsError(SETTING, problems)
     return {arm: found[arm] for arm in arms}
+
+
+def require_every_arm(arms: tuple[str, ...], found: Iterable[str], problems: Problems,
+                      expected: Callable[[str], str]) -> None:
+    """Add a problem for each arm neither in ``found`` nor already named in ``problems``
+    (``expected(arm)`` says what it needs)."""
+    given = set(found)
+    for arm in arms:
+        if arm not in given and not any(p.key == arm for p in problems):
+            problems.add(arm, expected(arm), Phrase("nothing"))

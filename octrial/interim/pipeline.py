@@ -30,9 +30,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from octrial.design.model import Design
-from octrial.design.reader import Phrase, Problems, suggest
+from octrial.design.reader import Problems
 from octrial.engines.pipeline import pipeline_predictive, timing
 from octrial.errors import Problem, SettingsError
+from octrial.interim.observations import require_every_arm, split_entries
 from octrial.interim.rule import observed_design
 
 SETTING = "pipeline"
@@ -103,23 +104,13 @@ def parse_pipeline(design: Design, entries: Iterable[str], look: int) -> dict[st
             "subjects with an outcome)", f"look {look}")])
     arms = design.arm_names
     found: dict[str, int] = {}
-    for entry in entries:
-        name, sep, value = (part.strip() for part in entry.partition("="))
-        if not sep:
-            problems.add("", f"ARM=N, for example {arms[0]}=12", entry)
-        elif name not in arms:
-            problems.add("", "an arm of the design (" + ", ".join(arms) + ")", name,
-                         suggest(name, arms))
-        elif name in found:
-            problems.add(name, "each arm once", Phrase("it twice"))
-        elif re.fullmatch(r"\d+", value) is None:
+    for name, value in split_entries(entries, arms, problems, "N", "12").items():
+        if re.fullmatch(r"\s*\d+\s*", value) is None:
             problems.add(name, f"a whole number of subjects >= 0, like {name}=12", value)
         else:
             found[name] = int(value)
-    for arm in arms:
-        if arm not in found and not any(p.key == arm for p in problems):
-            problems.add(arm, f"the {arm} arm's pipeline as {arm}=N (0 when none)",
-                         Phrase("nothing"))
+    require_every_arm(arms, found, problems,
+                      lambda arm: f"the {arm} arm's pipeline as {arm}=N (0 when none)")
     if problems:
         raise SettingsError(SETTING, problems)
     return {arm: found[arm] for arm in arms}
