@@ -221,6 +221,18 @@ def test_count_pr_best_against_gamma_monte_carlo():
     assert np.all(np.abs(got - p) <= Z * se + 1e-9), (got, p, se)
 
 
+def test_pr_best_is_close_to_the_simulations_grid_sum():
+    # the several-arm simulation drops arms by the Stieltjes sum of multiarm/best.py on
+    # 1024 cells; decide's Pr(best) must agree to its documented accuracy (docs/validation.md:
+    # a few 1e-5 against exact finite sums for posteriors away from 0 and 1)
+    from octrial.multiarm.best import prob_best_beta
+
+    design = _design()
+    result = decide_arms(design, 2, ["control=6/30", "low=9/30", "mid=12/30", "high=14/30"])
+    grid = prob_best_beta(np.array([10.0, 13.0, 15.0]), np.array([22.0, 19.0, 17.0]))
+    assert [a.pr_best for a in result.arms] == pytest.approx(grid, abs=1e-4)
+
+
 # -- dropping and selection, in the simulation's order ----------------------------------
 def test_drop_by_pr_best_among_the_arms_continuing():
     design = _design(looks__drop_if_best_below=0.1)
