@@ -433,3 +433,22 @@ def test_adaptive_design_needs_the_stopped_arms_data():
     assert result.arms[0].allocation == 0.0
     assert sum(a.allocation for a in result.arms) + result.control_allocation == \
         pytest.approx(1.0)
+
+
+def test_priors_without_pr_best_warn_and_refuse_dropping():
+    # logit-normal priors: no closed-form Pr(best) here; decide says so and refuses a
+    # dropping rule rather than guessing
+    from octrial.errors import InputError
+
+    data = _data(looks__drop_if_best_below=0.1)
+    data["hypothesis"] = {"comparison": "odds-ratio", "kind": "superiority", "margin": 0.0}
+    for arm in data["arms"].values():
+        arm["prior"] = {"distribution": "logit-normal", "logit_mean": -1.0, "logit_sd": 1.5}
+    values = ["control=3/15", "low=4/15", "mid=6/15", "high=8/15"]
+    with pytest.raises(InputError) as caught:
+        decide_arms(parse_multiarm(data, Source("test.toml", "", "")), 1, values)
+    assert caught.value.problems[0].key == "looks.drop_if_best_below"
+    data["looks"].pop("drop_if_best_below")
+    result = decide_arms(parse_multiarm(data, Source("test.toml", "", "")), 1, values)
+    assert all(a.pr_best is None for a in result.arms)
+    assert any("Pr(best) needs" in w for w in result.warnings)

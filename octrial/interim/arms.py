@@ -47,7 +47,7 @@ from octrial.caution import CAUTION
 from octrial.design.model import CONTROL, TREATMENT, Design
 from octrial.design.reader import Phrase, Problems, suggest
 from octrial.endpoints import binary
-from octrial.errors import Problem, SettingsError, bad_setting
+from octrial.errors import SettingsError, bad_setting, single
 from octrial.interim.base import PosteriorSummary
 from octrial.interim.best import probability_best_at
 from octrial.interim.decision import DEFAULT_LEVEL, Decision, decide, endpoint_support
@@ -322,10 +322,10 @@ def decide_arms(design: MultiArmDesign, look: int, data: Iterable[str], *,
     if going and not last and (drop is not None or keep is not None):
         best_going = _best(design, going, observed, higher)
         if best_going is None:
-            raise SettingsError(SETTING, [Problem(
-                "", "a prior with a closed-form posterior probability of being the best "
-                "(beta or gamma mixtures) for dropping by Pr(best) or selection",
-                f"{design.family.name} arms")])
+            key = "looks.drop_if_best_below" if drop is not None else "selection.keep"
+            raise single(design.source.path or design.name, key, "arms with beta or gamma "
+                         "(mixture) priors, whose probability of being the best decide "
+                         "computes", f"{design.family.name} arms with other priors")
         if drop is not None:
             for arm in going:
                 if best_going[arm] < drop:
@@ -456,9 +456,9 @@ def _next_block(design: MultiArmDesign, observed: dict[str, Any], remaining: lis
     else:
         best = _best(design, remaining, observed, higher)
         if best is None:
-            raise SettingsError(SETTING, [Problem(
-                "", "a prior with a closed-form Pr(best) for response-adaptive allocation",
-                f"{design.family.name} arms")])
+            raise single(design.source.path or design.name, "allocation.kind",
+                         "arms with beta or gamma (mixture) priors for response-adaptive "
+                         "allocation", f"{design.family.name} arms with other priors")
         pr = np.array([best.get(name, 0.0) for name in names])
         # count data: exposure, in subjects of the design's exposure each
         per_subject = float(getattr(design.endpoint, "exposure", 1.0))
