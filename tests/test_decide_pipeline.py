@@ -138,8 +138,10 @@ def test_two_arm_pipeline_against_binomial_enumeration(xt, xc):
     assert result.assessment.predictive == pytest.approx(reading.predictive, abs=1e-12)
 
 
-def test_count_pipeline_against_poisson_enumeration():
-    # events per subject-month, lower is better: Pr(rate < 1.5) >= 0.9 at the end
+@pytest.mark.parametrize("exposure", [8.0, 7.5])
+def test_count_pipeline_against_poisson_enumeration(exposure):
+    # events per subject-month, lower is better: Pr(rate < 1.5) >= 0.9 at the end; an
+    # exposure of 7.5 subjects is read on a lattice of half subjects (docs/methods.md)
     data = {**ONE_ARM, "endpoint": {"type": "count", "exposure": 1.0, "better": "lower"},
             "hypothesis": {"benchmark": 1.5},
             "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1.5,
@@ -148,30 +150,32 @@ def test_count_pipeline_against_poisson_enumeration():
     design = _timed(data, lag=1.0, max_enrolment=16,
                     looks={"n": [8, 16], "efficacy": [0.999, 0.9], "futility": 0.05})
     x = 9
-    result = decide(design, 1, [f"treatment={x}/8"], pipeline=["treatment=4"])
+    result = decide(design, 1, [f"treatment={x}/{exposure:g}"], pipeline=["treatment=4"])
 
     def integrated(pmf, shape, rate):  # a Poisson probability over the gamma posterior
         return integrate.quad(lambda lam: pmf(lam) * stats.gamma.pdf(lam, shape, scale=1 / rate),
                               0, np.inf, epsabs=1e-14, epsrel=1e-12)[0]
 
-    def success(s, exposure):
-        return stats.gamma.cdf(1.5, 1.5 + s, scale=1 / (1.0 + exposure)) >= 0.9 - TOLERANCE
+    def success(s, total):
+        return stats.gamma.cdf(1.5, 1.5 + s, scale=1 / (1.0 + total)) >= 0.9 - TOLERANCE
 
-    # the final posterior probability falls with the events, so success at 16 subjects is
+    # the final posterior probability falls with the events, so success at exposure 16 is
     # "total events <= c": found by scanning, then the later subjects' sum over yf <= c is
-    # scipy's Poisson CDF
+    # scipy's Poisson CDF (exposure 16 - exposure - 4 still to come)
     c = max(s for s in range(200) if success(s, 16))
+    later = 16 - exposure - 4
     pp = stop = 0.0
     for yp in range(40):  # 4 pipeline subjects at a posterior mean rate near 1.2
-        w = integrated(lambda lam, y=yp: stats.poisson.pmf(y, 4 * lam), 1.5 + x, 1.0 + 8)
-        stop += w * success(x + yp, 12)
+        w = integrated(lambda lam, y=yp: stats.poisson.pmf(y, 4 * lam), 1.5 + x, 1.0 + exposure)
+        stop += w * success(x + yp, exposure + 4)
         left = c - x - yp
         if left >= 0:
-            pp += w * integrated(lambda lam, k=left: stats.poisson.cdf(k, 4 * lam),
-                                 1.5 + x + yp, 1.0 + 12)
+            pp += w * integrated(lambda lam, k=left: stats.poisson.cdf(k, later * lam),
+                                 1.5 + x + yp, 1.0 + exposure + 4)
     assert result.pipeline.predictive == pytest.approx(pp, abs=1e-8)
     assert result.pipeline.success_if_stopped == pytest.approx(stop, abs=1e-8)
     assert result.assessment.predictive == pytest.approx(pp, abs=1e-8)
+    assert result.pipeline.enrolled == {"treatment": exposure + 4}
 
 
 def test_decision_does_not_depend_on_the_pipeline_and_without_analysis_no_stop_probability():
