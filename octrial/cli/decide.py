@@ -18,6 +18,7 @@ from octrial.interim.decision import DEFAULT_LEVEL, DEFAULT_SEED
 from octrial.interim.pipeline import PipelineReading
 from octrial.multiarm.load import is_multiarm, load_multiarm
 from octrial.output import json_text
+from octrial.plurals import count
 
 FORMS = "; ".join(f"{name}: ARM={support.syntax.form}" for name, family in FAMILIES.items()
                   if (support := family.interim()) is not None)
@@ -194,7 +195,8 @@ def render_arms(result: ArmsDecision) -> str:
         rule.append(f"an arm continuing after its own rule is dropped when its Pr(best) "
                     f"among the continuing arms is below {result.drop_below:g}")
     if result.keep is not None and result.look < result.looks:
-        rule.append(f"at most {result.keep} arms go on")
+        verb = "goes" if result.keep == 1 else "go"
+        rule.append(f"at most {count(result.keep, 'arm')} {verb} on")
     if rule:
         lines.append("at this look: " + "; ".join(rule))
     for a in result.arms:
