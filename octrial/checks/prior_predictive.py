@@ -70,7 +70,7 @@ def run_prior_predictive(model: CheckModel, settings: CheckSettings) -> PriorPre
         if reason is not None:
             record[source] = {"not_available": reason}
             continue
-        distributions = model.predictive(source)
+        distributions = model.predictive_from(source, settings)
         shown[source] = distributions
         value, above = claim_side(model)
         rows, flags = [], []
