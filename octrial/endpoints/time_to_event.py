@@ -159,6 +159,12 @@ class TimeToEventFamily(Family):
 
         return time_to_event_model(design)
 
+    def prior_data_conflict(self, design: Any, arm: int, informative: Any,
+                            vague: Any) -> list[dict[str, Any]] | None:
+        from octrial.checks.time_to_event_conflict import event_conflict
+
+        return event_conflict(design, arm, informative, vague)
+
     # -- design-file reading ---------------------------------------------------------
     prior_schema = schema.PriorSchema({
         **schema.with_mixture("gamma", schema.prior_size("shape"), schema.positive("rate"),
