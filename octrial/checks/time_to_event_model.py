@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from typing import Any
 
 import numpy as np
 from scipy import special
@@ -107,7 +106,7 @@ class TimeToEventModel(CheckModel):
         update = ("gamma-mixture update (posterior weights from marginal likelihoods)"
                   if mixture else "conjugate gamma update (closed form)")
         per_arm = []
-        for j, arm in enumerate(self.arm_names):
+        for arm in self.arm_names:
             for p in range(self.periods):
                 name = f"hazard_{arm}" + (f"_period{p + 1}" if self.periods > 1 else "")
                 label = f"hazard ({arm}" + (f", period {p + 1})" if self.periods > 1 else ")")
