@@ -237,16 +237,18 @@ def simulated_predictive(design: Design, data: EventData, studies: int) -> list[
     names = design.arm_names
     for k in range(design.looks.count):
         look = f"look {k + 1}"
-        estimates = []
+        # per look: events per arm and the estimate, then exposure per arm and the time
+        # (a row each in the drawing's three columns)
+        estimates, exposures = [], []
         for j, arm in enumerate(names):
             d, x = data.at(k, j)
             events = d.sum(axis=1)
             if np.ptp(events) > 0:
                 out.append(Predictive.from_pmf(f"events_{arm}_look{k + 1}",
                                                f"events ({arm}, {look})", events, weight))
-            out.append(Predictive.from_pmf(f"exposure_{arm}_look{k + 1}",
-                                           f"time at risk, {unit}s ({arm}, {look})",
-                                           x.sum(axis=1), weight))
+            exposures.append(Predictive.from_pmf(f"exposure_{arm}_look{k + 1}",
+                                                 f"time at risk, {unit}s ({arm}, {look})",
+                                                 x.sum(axis=1), weight))
             estimates.append((events, x @ r))
         if len(estimates) == 1:
             events, at_risk = estimates[0]
@@ -263,11 +265,15 @@ def simulated_predictive(design: Design, data: EventData, studies: int) -> list[
                 f"observed_log_hazard_ratio_look{k + 1}",
                 f"observed log hazard ratio, T to C, 0.5 added to events ({look})",
                 np.log((d_t + 0.5) / x_t) - np.log((d_c + 0.5) / x_c), weight, effect=True))
+        out += exposures
         if design.conduct is not None:
             out.append(Predictive.from_pmf(f"look_time_look{k + 1}",
                                            f"calendar time of {look}, {unit}s",
                                            data.time[k], weight))
-    return out
+    last = f"_look{design.looks.count}"
+    # the drawing shows the final look; the record (and the report's table) every look
+    return [p if p.name.endswith(last) else dataclasses.replace(p, drawn=False)
+            for p in out]
 
 
 class TimeToEventPosteriors(Posteriors):

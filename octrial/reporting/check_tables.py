@@ -68,8 +68,10 @@ def predictive_table(record: dict[str, Any]) -> Table | None:
         entry = record.get(source) or {}
         if "not_available" in entry:
             notes.append(f"No {source}-prior predictive: {entry['not_available']}.")
-    return _table("checks-prior-predictive", "Prior predictive distributions at the final "
-                  "look", columns, rows, tuple(notes))
+    # time-to-event designs report every look, and name it in each observable's label
+    when = "at each look" if any("look" in str(r[1]) for r in rows) else "at the final look"
+    return _table("checks-prior-predictive", f"Prior predictive distributions {when}",
+                  columns, rows, tuple(notes))
 
 
 def _prior_size(label: str, entry: Any) -> str:
