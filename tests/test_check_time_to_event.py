@@ -100,8 +100,12 @@ TWO_NORMAL: dict[str, Any] = {
     "scenarios": {"control": [0.05], "ratio": [1.0, 0.75]},
 }
 
+ONE_CALENDAR = {**ONE_CONDUCT, "name": "tte-check-calendar",
+                "looks": {"time": [10.0, 20.0], "efficacy": [0.99, 0.975]}}
+
 CASES = {
     "one arm, event-driven (kernel)": ONE_CONDUCT,
+    "one arm, looks at calendar times (kernel)": ONE_CALENDAR,
     "one arm, no censoring (benefit_from)": ONE_PLAIN,
     "one arm, two periods (landmark, Moschopoulos)": ONE_PIECEWISE,
     "two arms, event-driven, mixture (kernel)": TWO_CONDUCT,
