@@ -494,3 +494,24 @@ def test_kernel_and_family_paths_agree() -> None:
         post = model.posterior(data, 0)
         found = np.array([post.cdf(model.target(), np.array([v]))[0] for v in values])
         assert np.allclose(found, special.gammainc(a, b * values), atol=1e-12)
+
+
+def test_observed_median_solves_survival_one_half() -> None:
+    """The prior predictive's observed median: exp(-m H0(t)) = 1/2 with H0 written out
+    here for periods [0, 6) and [6, inf) with relative hazards 1 and 0.5, solved by
+    scipy.optimize.brentq; one period: log 2 / m (the exponential median)."""
+    from scipy import optimize
+
+    from octrial.checks.time_to_event_model import observed_median
+
+    piecewise = build(ONE_PIECEWISE).endpoint
+    multipliers = np.array([0.01, 0.05, 0.2, 0.0])
+    found = observed_median(piecewise, multipliers)
+    for m, median in zip(multipliers[:3], found[:3], strict=True):
+        def half(t: float, m: float = m) -> float:
+            cumulative = min(t, 6.0) + 0.5 * max(t - 6.0, 0.0)
+            return math.exp(-m * cumulative) - 0.5
+        assert median == pytest.approx(optimize.brentq(half, 0, 1e4, xtol=1e-12), rel=1e-9)
+    assert found[3] == np.inf
+    plain = observed_median(build(ONE_PLAIN).endpoint, multipliers[:3])
+    assert np.allclose(plain, stats.expon(scale=1 / multipliers[:3]).median(), rtol=1e-12)

@@ -40,6 +40,7 @@ from octrial.checks.time_to_event_data import EventData, simulate_studies
 from octrial.design.model import Design
 from octrial.endpoints import survival_maths as sm
 from octrial.endpoints.count import GammaMixture
+from octrial.endpoints.time_to_event import TimeToEventEndpoint
 from octrial.plurals import noun, series
 from octrial.simulation import event_driven
 
@@ -258,6 +259,15 @@ def simulated_predictive(design: Design, data: EventData, studies: int) -> list[
                 if e.periods == 1 else
                 f"observed hazard multiplier, events / sum of r_j x time at risk ({look})",
                 events / at_risk, weight, effect=True))
+            median = observed_median(e, events / at_risk)
+            finite = median[np.isfinite(median)]
+            if finite.size:
+                # a study without events has no finite median: the studies with one
+                out.append(Predictive.from_pmf(
+                    f"observed_median_look{k + 1}",
+                    f"median time at the observed hazard, {unit}s ({look}; the "
+                    f"{finite.size / studies:.1%} of studies with an event)",
+                    finite, np.full(finite.size, 1.0 / finite.size)))
         else:
             # 0.5 added to each arm's events, as for counts, so that no event is finite
             (d_t, x_t), (d_c, x_c) = estimates
@@ -274,6 +284,19 @@ def simulated_predictive(design: Design, data: EventData, studies: int) -> list[
     # the drawing shows the final look; the record (and the report's table) every look
     return [p if p.name.endswith(last) else dataclasses.replace(p, drawn=False)
             for p in out]
+
+
+def observed_median(endpoint: TimeToEventEndpoint, multiplier: np.ndarray) -> np.ndarray:
+    """The median time of the (piecewise) exponential model at each estimated hazard
+    multiplier (:func:`~octrial.endpoints.survival_maths.median_time`); infinite at 0."""
+    out = np.full(multiplier.shape, np.inf)
+    seen = multiplier > 0
+    if endpoint.periods == 1:
+        out[seen] = math.log(2.0) / multiplier[seen]
+        return out
+    out[seen] = [sm.median_time(endpoint.starts, endpoint.relative_hazard, float(m))
+                 for m in multiplier[seen]]
+    return out
 
 
 class TimeToEventPosteriors(Posteriors):
