@@ -154,6 +154,12 @@ class CheckModel(ABC):
         each arm's outcome (or the observed effect), and on two arms the observed effect
         last."""
 
+    def predictive_from(self, source: str, settings: Any) -> list[Predictive]:
+        """The prior predictive distributions of :meth:`predictive`; a family whose
+        distributions are simulated overrides this to draw from the check's own random
+        stream (``settings``: the settled :class:`~octrial.checks.settings.CheckSettings`)."""
+        return self.predictive(source)
+
     def plausible_effect(self) -> tuple[float, float, str] | None:
         """The default range of plausible observed effects (low, high, why), or ``None``."""
         return None

@@ -47,6 +47,9 @@ class Predictive:
         A bounded discrete outcome's all-or-none values (binary: 0 and n responses).
     components : sequence of (float, frozen distribution), optional
         Continuous mixtures: exact CDF and quantiles come from these.
+    drawn : bool
+        Whether the prior predictive drawing shows it (the record always has it): a
+        family that reports every look draws the final look's only.
     """
 
     name: str
@@ -57,6 +60,7 @@ class Predictive:
     effect: bool = False
     extremes: tuple[float, float] | None = None
     components: Sequence[tuple[float, Any]] | None = field(default=None, repr=False)
+    drawn: bool = True
 
     # -- construction ----------------------------------------------------------------
     @classmethod

@@ -70,7 +70,7 @@ def run_prior_predictive(model: CheckModel, settings: CheckSettings) -> PriorPre
         if reason is not None:
             record[source] = {"not_available": reason}
             continue
-        distributions = model.predictive(source)
+        distributions = model.predictive_from(source, settings)
         shown[source] = distributions
         value, above = claim_side(model)
         rows, flags = [], []
@@ -109,6 +109,11 @@ def run_prior_predictive(model: CheckModel, settings: CheckSettings) -> PriorPre
     if plausible is not None:
         record["plausible_range"] = {"low": plausible[0], "high": plausible[1],
                                      "why": plausible[2]}
+    sizes = model.design.family.effective_sample_size(model.design)
+    if sizes:
+        # the family's own summary (run.json has the same), beside the prior it describes
+        record["effective_sample_size"] = sizes
+        record["effective_sample_size_note"] = model.design.family.prior_size_note
     value, above = claim_side(model)
     record["claim_side"] = (f"observed effect {'>' if above else '<'} {value:.6g} (the "
                             "benchmark or margin on the observed effect's scale)")

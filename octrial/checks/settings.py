@@ -21,7 +21,8 @@ CHECKS = ("prior-predictive", "sbc", "sensitivity", "tail-accuracy", "conflict",
 
 SEED_BITS = 63
 
-STREAMS = {"sbc": 1, "sensitivity": 2, "tail-accuracy": 3, "sbc-null": 4}
+STREAMS = {"sbc": 1, "sensitivity": 2, "tail-accuracy": 3, "sbc-null": 4,
+           "prior-predictive-analysis": 5, "prior-predictive-design": 6}
 """Each check's random stream: ``SeedSequence(seed, spawn_key=(stream,))``."""
 
 

@@ -60,7 +60,9 @@ def _checks(text: str | None) -> tuple[str, ...]:
                    "predictive mass outside is flagged as impossible.")
 @click.option("--plausible", metavar="LOW:HIGH", default=None,
               help="The plausible range of the observed effect (its scale is given in "
-                   "checks.json); replaces the endpoint's default.")
+                   "checks.json: for time-to-event designs the observed hazard on one arm, "
+                   "the observed log hazard ratio on two); replaces the endpoint's "
+                   "default.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 @reports_input_errors
 def check_command(design: str, out: str | None, simulations: int, bins: int, draws: int,
@@ -69,7 +71,8 @@ def check_command(design: str, out: str | None, simulations: int, bins: int, dra
     """Check the premises of DESIGN: prior predictive distributions, simulation-based
     calibration of every posterior computation, posterior shrinkage and z-scores,
     Monte Carlo accuracy of posterior tail quantiles and, for borrowing designs,
-    prior-data conflict.
+    prior-data conflict. Time-to-event studies are simulated subject by subject with
+    their conduct (events, time at risk and look times per look).
 
     Writes checks.json (every verdict and number), sbc.csv, sensitivity.csv, one PNG
     histogram per calibrated quantity and the prior predictive, sensitivity and

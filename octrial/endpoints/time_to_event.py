@@ -48,6 +48,7 @@ from octrial.endpoints.count import GammaMixture, read_rate_prior, update
 from octrial.endpoints.normal import NormalFamily, NormalMixture, benefit_components
 
 if TYPE_CHECKING:
+    from octrial.checks.model import CheckModel
     from octrial.interim.base import EndpointInterim
 
 ANALYSES = ("gamma", "normal-log-hazard-ratio")
@@ -152,6 +153,17 @@ class TimeToEventFamily(Family):
         from octrial.interim.time_to_event import TimeToEventInterim
 
         return TimeToEventInterim()
+
+    def check_model(self, design: Any) -> CheckModel:
+        from octrial.checks.time_to_event_model import time_to_event_model
+
+        return time_to_event_model(design)
+
+    def prior_data_conflict(self, design: Any, arm: int, informative: Any,
+                            vague: Any) -> list[dict[str, Any]] | None:
+        from octrial.checks.time_to_event_conflict import event_conflict
+
+        return event_conflict(design, arm, informative, vague)
 
     # -- design-file reading ---------------------------------------------------------
     prior_schema = schema.PriorSchema({

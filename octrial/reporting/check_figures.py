@@ -112,6 +112,10 @@ larger counts as a pmf line, and observed effects on an irregular lattice (diffe
 ratios of two arms' rates) as their cumulative distribution, which has no aliasing."""
 
 
+WIDE = 6
+"""Prior predictive drawings with at least this many panels get three per row."""
+
+
 def predictive_figure(distributions: dict[str, list[Any]]) -> MplFigure:
     """Prior predictive pmf or density of each observable, one panel each; the analysis
     prior solid and dark, the design prior dashed and lighter."""
@@ -121,8 +125,9 @@ def predictive_figure(distributions: dict[str, list[Any]]) -> MplFigure:
 
     names: list[str] = []
     for found in distributions.values():
-        names += [p.name for p in found if p.name not in names]
-    ncols = min(len(names), 2)
+        names += [p.name for p in found if p.drawn and p.name not in names]
+    # many observables (time-to-event: several per look) in rows of three
+    ncols = 3 if len(names) >= WIDE else min(len(names), 2)
     nrows = -(-len(names) // ncols)
     fig, axes = _new(0.8 + 2.5 * nrows, ncols, nrows)
     with matplotlib.rc_context(STYLE):

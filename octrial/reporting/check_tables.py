@@ -59,12 +59,31 @@ def predictive_table(record: dict[str, Any]) -> Table | None:
     if plausible:
         notes.append(f"Plausible range of the observed effect: [{plausible['low']:.4g}, "
                      f"{plausible['high']:.4g}] ({plausible['why']}).")
+    sizes = record.get("effective_sample_size") or {}
+    if sizes:
+        notes.append("Prior effective sample size: " + "; ".join(
+            _prior_size(label, entry) for label, entry in sizes.items()) + ". "
+            + str(record.get("effective_sample_size_note", "")))
     for source in ("analysis", "design"):
         entry = record.get(source) or {}
         if "not_available" in entry:
             notes.append(f"No {source}-prior predictive: {entry['not_available']}.")
-    return _table("checks-prior-predictive", "Prior predictive distributions at the final "
-                  "look", columns, rows, tuple(notes))
+    # time-to-event designs report every look, and name it in each observable's label
+    when = "at each look" if any("look" in str(r[1]) for r in rows) else "at the final look"
+    return _table("checks-prior-predictive", f"Prior predictive distributions {when}",
+                  columns, rows, tuple(notes))
+
+
+def _prior_size(label: str, entry: Any) -> str:
+    """One arm's effective sample size in words: the simple count and, where given, the
+    FDA (2010) n V1 / V2 - n."""
+    if not isinstance(entry, dict) or entry.get("simple") is None:
+        return f"{label}: not given"
+    text = f"{label} {entry['simple']:.3g} ({entry.get('simple_formula') or 'simple'})"
+    fda = entry.get("fda") or {}
+    if fda.get("ess") is not None:
+        text += f", n V1 / V2 - n = {fda['ess']:.3g} at n = {fda.get('n', 0):g}"
+    return text
 
 
 def sbc_table(record: dict[str, Any]) -> Table | None:

@@ -38,7 +38,8 @@ from octrial.endpoints import grid_family
 QUICK = "--quick" in sys.argv
 SEEDS = 30 if QUICK else 100
 DEMOS = ("single-arm-response", "two-arm-randomised", "single-arm-event-rate",
-         "two-arm-continuous-score", "borrowed-control-response")
+         "two-arm-continuous-score", "borrowed-control-response", "single-arm-event-free",
+         "two-arm-event-driven")
 LOGIT = {
     "schema": 1, "name": "bench-logit-normal",
     "endpoint": {"type": "binary", "better": "higher"},
