@@ -19,12 +19,14 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
+from octrial.cli.run_arms import run_arms
 from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, type1_line
 from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
 from octrial.output import csv_text
 from octrial.plurals import noun
 from octrial.provenance import now, run_record
+from octrial.review.arms_verification import several_arms
 from octrial.run_folder import write_run
 
 
@@ -56,6 +58,9 @@ def run_command(design: str, out: str | None, method: str | None, seed: int | No
     Exit codes: 0 success; 2 bad input, or OUT cannot be written (then it is left as it
     was); 130 interrupted.
     """
+    if several_arms(design):  # 2-8 treatment arms: docs/multi-arm.md
+        run_arms(design, out, method, seed, simulation)
+        return
     started = now()
     loaded = read_design(design)
     if seed is not None:  # as in check and verify, the command line overrides the file
