@@ -11,6 +11,8 @@ from octrial.caution import CAUTION
 from octrial.cli.common import default_out, read_design, reports_input_errors
 from octrial.errors import single
 from octrial.reporting import PrintError, from_design, from_run_folder, write_report
+from octrial.reporting.arms_data import arms_from_design, arms_from_run_folder, is_arms_run
+from octrial.review.arms_verification import several_arms
 
 REPORT_NAME = "report.html"
 
@@ -52,8 +54,13 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
         if method is not None:
             raise single("--method", "", "a design file to evaluate (a run folder's results "
                          "are shown as computed)", f"the run folder {path}")
-        data = from_run_folder(path, alpha=alpha)
+        data = (arms_from_run_folder(path, alpha=alpha) if is_arms_run(path)
+                else from_run_folder(path, alpha=alpha))
         html = Path(out) if out else path / REPORT_NAME
+    elif several_arms(str(path)):  # 2-8 treatment arms: docs/multi-arm.md
+        arms = arms_from_design(path, method, command=sys.argv, alpha=alpha)
+        html = Path(out) if out else default_out(arms.design) / REPORT_NAME
+        data = arms
     else:
         loaded = read_design(str(path))
         html = Path(out) if out else default_out(loaded) / REPORT_NAME
