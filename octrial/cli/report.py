@@ -59,7 +59,7 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
         html = Path(out) if out else path / REPORT_NAME
     elif several_arms(str(path)):  # 2-8 treatment arms: docs/multi-arm.md
         arms = arms_from_design(path, method, command=sys.argv, alpha=alpha)
-        html = Path(out) if out else default_out(arms.design) / REPORT_NAME
+        html = Path(out) if out else Path("reports") / arms.design.name / REPORT_NAME
         data = arms
     else:
         loaded = read_design(str(path))

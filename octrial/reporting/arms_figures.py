@@ -146,6 +146,9 @@ def share_columns(data: Any) -> dict[str, list[str]]:
     return out
 
 
+SCENARIO_VALUES = " The scenarios' true values are in the tables of the operating characteristics."
+
+
 def _scenario_panels(data: Any, height_per_row: float) -> tuple[Any, Any, list[int]]:
     shown = list(range(min(len(data.oc), MAX_PANELS)))
     rows, cols = _panels(len(shown))
@@ -156,8 +159,8 @@ def _scenario_panels(data: Any, height_per_row: float) -> tuple[Any, Any, list[i
 
 
 def _panel_title(data: Any, r: pd.Series) -> str:
-    values = ", ".join(f"{a} {truth(r[f'true_{a}'])}" for a in data.design.arm_names)
-    return f"scenario {int(r['scenario'])}: {values}"
+    # the true values are in the tables; a panel is too narrow for every arm's
+    return f"scenario {int(r['scenario'])}"
 
 
 def allocation_subjects(data: Any) -> Figure | None:
@@ -175,7 +178,7 @@ def allocation_subjects(data: Any) -> Figure | None:
             for j, arm in enumerate(design.arm_names):
                 ax.plot(looks, found[arm][i], label=arm, **_style(j))
             ax.set_xticks(looks)
-            ax.set_title(_panel_title(data, oc.iloc[i]), fontsize=7.5)
+            ax.set_title(_panel_title(data, oc.iloc[i]))
             ax.set_xlabel("look")
         for ax in axes[:, 0]:
             ax.set_ylabel(f"mean cumulative {design.family.look_unit}")
@@ -185,7 +188,7 @@ def allocation_subjects(data: Any) -> Figure | None:
            "each look (fixed allocation: an arm that leaves keeps its size)." if derived
            else " As simulated (oc.csv columns <arm>_look<k>_n).")
     more = (f" The first {len(shown)} of {len(oc)} scenarios are shown."
-            if len(shown) < len(oc) else "")
+            if len(shown) < len(oc) else "") + SCENARIO_VALUES
     caption = ("Allocation over time: mean number of subjects each arm has received by "
                "each look, over all studies (a study that ended earlier counts with its "
                "final numbers)." + how + more)
@@ -210,13 +213,13 @@ def allocation_shares(data: Any) -> Figure | None:
                         **_style(j))
                 ax.set_xticks(blocks)
             ax.set_ylim(-0.02, 1.02)
-            ax.set_title(_panel_title(data, oc.iloc[i]), fontsize=7.5)
+            ax.set_title(_panel_title(data, oc.iloc[i]))
             ax.set_xlabel("block")
         for ax in axes[:, 0]:
             ax.set_ylabel("mean allocation probability")
         axes.flat[0].legend(loc="upper left", frameon=False)
     more = (f" The first {len(shown)} of {len(oc)} scenarios are shown."
-            if len(shown) < len(oc) else "")
+            if len(shown) < len(oc) else "") + SCENARIO_VALUES
     caption = ("Allocation over time: each arm's mean probability of receiving a subject in "
                "each block (block 1: the subjects before look 1; block k + 1: those between "
                "looks k and k + 1), as simulated (oc.csv columns <arm>_block<k>_share)." + more)

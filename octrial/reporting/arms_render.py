@@ -7,6 +7,7 @@ from typing import Any
 
 import octrial.reporting.precision as precision
 from octrial.caution import CAUTION
+from octrial.plurals import count
 from octrial.reporting import arms_wording
 from octrial.reporting.figures import Figure
 from octrial.reporting.formats import probability, truth
@@ -53,8 +54,8 @@ def fwer_sentence(data: Any) -> str:
                 "not assessed by this report.")
     at = ", ".join(f"{arm} = {truth(v)}" for arm, v in t1["at"].items())
     se = f" (Monte Carlo standard error {probability(t1['se'])})" if t1.get("se") else ""
-    text = (f"Largest family-wise error rate over the {t1['null_scenarios']} scenarios with "
-            f"a null arm: {probability(t1['max_type1_error'])}{se}, at scenario "
+    text = (f"Largest family-wise error rate over the {count(t1['null_scenarios'], 'scenario')}"
+            f" with a null arm: {probability(t1['max_type1_error'])}{se}, at scenario "
             f"{t1['scenario']} ({at}).")
     if data.alpha is not None:
         verdict = "at or below" if t1["max_type1_error"] <= data.alpha else "above"
@@ -103,7 +104,9 @@ def render_arms_html(data: Any, tables: Tables, figures: list[Figure],
         "stopping_tables": stopping,
         "figures": figures,
         "fwer": fwer_sentence(data),
-        "precision": precision.statement(data),
+        # the study's type I error here is its largest family-wise error rate
+        "precision": [p.replace("The maximum type I error", "The largest family-wise error "
+                                "rate") for p in precision.statement(data)],
         "run": _run(data),
         "caution": CAUTION,
         "assumptions": arms_wording.assumptions(data),

@@ -110,12 +110,16 @@ def arms_boundary_tables(data: Any) -> list[Table]:
             found = _two_arm_boundaries(shim, parts[arm], statistic, control)
         else:
             found = boundary_tables(shim)
-        who = "every treatment arm" if same else f"arm {arm}"
+        who = "each treatment arm" if same else arm
         for t in found:
+            columns = tuple(dataclasses.replace(c, group=c.group.replace("treatment", who))
+                            for c in t.columns)
             tables.append(dataclasses.replace(
-                t, name=f"{arm}-{t.name}" if not same else t.name,
-                caption=f"{t.caption.replace('treatment', arm if not same else 'arm')} "
-                        f"({who})"))
+                t, name=t.name if same else f"{arm}-{t.name}", columns=columns,
+                caption=t.caption.replace(" treatment and", " per treatment arm and" if same
+                                          else f" {arm} and"),
+                notes=t.notes + (("The same bounds hold for every treatment arm.",)
+                                 if same else ())))
     return tables
 
 
@@ -145,8 +149,11 @@ def study_table(data: Any) -> Table:
              "P(select best): the selected arm (the successful arm with the best posterior "
              "mean at its decision) is truly the best. Bias of selected: mean of its "
              "posterior mean minus its true value, over studies with a selected arm.",
-             "'–': not computed by the engine used (the exact engines give neither the "
-             "selection summaries nor the sd of the total, whose arms are correlated)."]
+             ]
+    if data.oc[[c.key for c in columns if c.kind != "text"]].isna().any().any():
+        notes.append("'–': not computed by the engine used (the exact engines give neither "
+                     "the selection summaries nor the sd of the total, whose arms are "
+                     "correlated).")
     if mc:
         notes.append("se: Monte Carlo standard error.")
     return Table("operating-characteristics", "Operating characteristics of the study per "
@@ -168,8 +175,9 @@ def per_arm_table(data: Any) -> Table:
              "does not beat the " + ("control" if design.shared_control else "benchmark")
              + " by the margin) and its power elsewhere."]
     for arm, found in t1.items():
-        notes.append(f"Largest type I error of arm {arm}: {cell(found['max_type1_error'], 'probability').text}"
-                     f" (scenario {found['scenario']}).")
+        worst = cell(found["max_type1_error"], "probability").text
+        notes.append(f"Largest type I error of arm {arm}: {worst} (scenario "
+                     f"{found['scenario']}).")
     return Table("per-arm", "Success and sample size per treatment arm", tuple(columns),
                  _rows(data, columns), tuple(notes))
 
@@ -190,8 +198,8 @@ def arm_looks_table(data: Any, arm: str) -> Table:
             columns.append(Column(f"{arm}_look{k}_drop", "dropped", "probability", group))
     note = (f"Probability that arm {arm} leaves the study at each look: by its own rule "
             "(efficacy, futility) or dropped (low Pr(best), or not selected). At the final "
-            "analysis it succeeds or fails; arms still in the study when it ends early "
-            "leave with it and appear in none of these columns.")
+            "analysis it succeeds or fails. Every row sums to 1: the study ends only when "
+            "no treatment arm is left.")
     return Table(f"stopping-{arm}", f"Arm {arm}: leaving the study per look",
                  tuple(columns), _rows(data, columns), (note,))
 

@@ -68,7 +68,8 @@ def allocation_sentence(design: MultiArmDesign) -> str:
         parts.append(f"every arm in the study keeps at least {a.minimum:g}")
     if a.burn_in:
         parts.append(f"the fixed weights apply to the first {a.burn_in} subjects")
-    parts.append(f"blocks are split over the arms {'by complete randomisation' if a.assignment == 'randomised' else 'by rounding'}")
+    split = "by complete randomisation" if a.assignment == "randomised" else "by rounding"
+    parts.append(f"blocks are split over the arms {split}")
     return "; ".join(parts) + "."
 
 
