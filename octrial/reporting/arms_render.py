@@ -80,6 +80,7 @@ def _design(data: Any) -> dict[str, Any]:
         "sample_size": f"at most {design.looks.n[-1]} {design.family.look_unit} in total "
                        "(fewer when arms leave early)",
         "rules": arms_wording.conduct_sentences(design),
+        "shared": design.shared_control,
     }
 
 

@@ -96,13 +96,24 @@ def conduct_sentences(design: MultiArmDesign) -> list[str]:
         f"Each treatment arm is judged by its own rule against {versus}: the rule of the "
         "two-arm design of that arm alone, with the thresholds above.",
         *wording.rule_sentences(design.pairs[0]),
-        "At each look every arm still in the study adds its planned subjects; each arm is "
-        "looked up in its own rule (efficacy: the arm succeeds and leaves; futility: it "
-        "leaves); then arms with a low probability of being the best are dropped, and at "
-        "most the number selected go on. The control enrols while any treatment arm does; "
-        "the study ends when no treatment arm is left.",
+        _look_sentence(design),
         "The study succeeds when at least one treatment arm succeeds.",
     ]
+
+
+def _look_sentence(design: MultiArmDesign) -> str:
+    """What happens at a look, in the order the engines apply it."""
+    steps = ["each arm is looked up in its own rule (efficacy: the arm succeeds and leaves; "
+             "futility: it leaves)"]
+    if any(d is not None for d in design.looks.drop_if_best_below):
+        steps.append("arms with a low probability of being the best are dropped")
+    if design.selection.keep is not None:
+        steps.append(f"at most {design.selection.keep} go on")
+    text = ("At each look every arm still in the study adds its planned subjects; "
+            + "; then ".join(steps) + ".")
+    if design.shared_control:
+        text += " The control enrols while any treatment arm does."
+    return text + " The study ends when no treatment arm is left."
 
 
 def assumptions(data: Any) -> list[str]:
