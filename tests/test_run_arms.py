@@ -300,3 +300,71 @@ def test_exact_refused_for_a_design_no_exact_engine_serves(runner, tmp_path) -> 
     output = invoke(runner, str(design), "--method", "exact", "--out", str(tmp_path / "o"),
                     code=2)
     assert "binary endpoints only" in output and "Pr(best)" in output
+
+
+BENCHMARK = """\
+schema = 1
+name = "benchmark-arms"
+title = "Three regimens against a benchmark rate (invented)"
+[endpoint]
+type = "binary"
+better = "higher"
+[hypothesis]
+benchmark = 0.2
+[arms.a]
+prior = { distribution = "beta", a = 1, b = 1 }
+[arms.b]
+prior = { distribution = "beta", a = 1, b = 1 }
+[arms.c]
+prior = { distribution = "beta", a = 1, b = 1 }
+[looks]
+n = [30, 60]
+efficacy = [0.99, 0.95]
+futility = 0.1
+[scenarios]
+a = [0.2, 0.3]
+b = [0.2, 0.35]
+c = [0.2, 0.4]
+[simulation]
+seed = 5
+replicates = REPS
+"""
+
+
+def test_arms_against_a_benchmark(runner, tmp_path) -> None:
+    design = design_file(tmp_path, BENCHMARK, replicates=20_000)
+    invoke(runner, str(design), "--out", str(tmp_path / "exact"), "--quiet")
+    invoke(runner, str(design), "--method", "monte-carlo", "--out", str(tmp_path / "mc"),
+           "--quiet")
+    exact, simulated = read(tmp_path / "exact"), read(tmp_path / "mc")
+    assert "control_expected_n" not in exact.columns  # no control, no control columns
+    # identity for independent arms (no shared control): FWER = 1 - prod(1 - alpha_j)
+    alphas = exact.loc[0, [f"{a}_prob_success" for a in "abc"]].to_numpy(float)
+    assert exact.loc[0, "fwer"] == pytest.approx(1 - np.prod(1 - alphas), abs=1e-13)
+    sizes = {"expected_n": simulated["sd_n"],
+             **{f"{a}_expected_n": exact[f"{a}_sd_n"] for a in "abc"}}
+    assert within_4_se(exact, simulated, 20_000, sizes) > 20
+
+
+def test_drawn_seed_is_recorded_and_reproduces(runner, tmp_path) -> None:
+    text = SMALL.replace("seed = 20261205\n", "")
+    design = design_file(tmp_path, text, replicates=1000)
+    invoke(runner, str(design), "--method", "monte-carlo", "--out", str(tmp_path / "a"),
+           "--quiet")
+    record = json.loads((tmp_path / "a" / "run.json").read_text())
+    assert record["seed_drawn"] is True and isinstance(record["seed"], int)
+    invoke(runner, str(design), "--method", "monte-carlo", "--seed", str(record["seed"]),
+           "--out", str(tmp_path / "b"), "--quiet")
+    assert (tmp_path / "a" / "oc.csv").read_bytes() == (tmp_path / "b" / "oc.csv").read_bytes()
+
+
+def test_ctrl_c_says_how_to_resume(runner, tmp_path, monkeypatch) -> None:
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr("octrial.cli.run_arms.compute_arms", interrupted)
+    design = design_file(tmp_path, replicates=1000)
+    output = invoke(runner, str(design), "--method", "monte-carlo", "--out",
+                    str(tmp_path / "out"), code=130)
+    assert "run the same command again to resume" in output
+    assert not (tmp_path / "out" / "oc.csv").exists()
