@@ -11,8 +11,6 @@ import dataclasses
 from types import SimpleNamespace
 from typing import Any
 
-import pandas as pd
-
 import octrial.reporting.wording as wording
 from octrial.reporting.arms_wording import arm_rows, look_rows
 from octrial.reporting.tables import (
@@ -21,10 +19,12 @@ from octrial.reporting.tables import (
     Row,
     Table,
     Tables,
+    _classes,
     _row,
     _two_arm_boundaries,
     boundary_tables,
     cell,
+    simulated,
 )
 
 __all__ = ["build_arms_tables", "truth_columns"]
@@ -35,18 +35,6 @@ def truth_columns(data: Any) -> list[Column]:
     design = data.design
     group = f"true {wording.parameter(design.pairs[0])}"
     return [Column(f"true_{a}", a, "truth", group) for a in design.arm_names]
-
-
-def _simulated(data: Any) -> bool:
-    return bool((data.oc["replicates"] > 0).any())
-
-
-def _classes(data: Any, r: pd.Series) -> tuple[str, ...]:
-    classes: tuple[str, ...] = ("null",) if bool(r["is_null"]) else ()
-    t1 = data.type1
-    if t1 is not None and int(r["scenario"]) == int(t1["scenario"]):
-        classes += ("worst",)
-    return classes
 
 
 def _rows(data: Any, columns: list[Column]) -> tuple[Row, ...]:
@@ -127,7 +115,7 @@ def arms_boundary_tables(data: Any) -> list[Table]:
 def study_table(data: Any) -> Table:
     """Per scenario: the study's success, family-wise error, selection and sizes."""
     design = data.design
-    mc = _simulated(data)
+    mc = simulated(data)
     columns = [Column("scenario", "scenario", "count"), *truth_columns(data),
                Column("null", "null"),
                Column("prob_success", "P(any arm succeeds)", "probability")]
@@ -163,7 +151,7 @@ def study_table(data: Any) -> Table:
 def per_arm_table(data: Any) -> Table:
     """Per scenario and treatment arm: probability of success and expected size."""
     design = data.design
-    mc = _simulated(data)
+    mc = simulated(data)
     columns = [Column("scenario", "scenario", "count"), *truth_columns(data)]
     for arm in design.treatment_names:
         columns.append(Column(f"{arm}_prob_success", "P(success)", "probability", arm))
