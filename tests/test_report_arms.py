@@ -11,12 +11,14 @@ refused when oc.csv is edited.
 from __future__ import annotations
 
 import base64
+import io
 import shutil
 
 import numpy as np
 import pandas as pd
 import pytest
 from click.testing import CliRunner
+from matplotlib import image
 
 from octrial.caution import CAUTION
 from octrial.cli import main
@@ -155,3 +157,20 @@ def test_pdf_of_a_several_arm_report(folders, tmp_path) -> None:
 
     words = " ".join((p.extract_text() or "") for p in PdfReader(pdf).pages)
     assert "Stopping and dropping per arm and look" in " ".join(words.split())
+
+
+def test_page_opens_offline_without_errors(folders) -> None:
+    # a real browser (tests/browser.py, the DevTools client of test_report_browser.py)
+    chromium = find_chromium()
+    if chromium is None:
+        pytest.skip("needs chromium")
+    from tests.browser import DevTools
+
+    with DevTools(chromium) as browser:
+        visit = browser.visit(folders["simulated"] / "report.html")
+    assert visit.errors == [] and visit.external_requests == []
+    assert visit.sections == SECTIONS
+    assert len(visit.images) >= 2
+    assert all(complete and width > 0 for complete, width in visit.images)
+    pixels = image.imread(io.BytesIO(visit.screenshot))
+    assert pixels[..., :3].std() > 0.05  # not a blank page
