@@ -38,7 +38,7 @@ from octrial.execution.checkpoints import kept_seed
 from octrial.multiarm import engine as multiarm_engine
 from octrial.multiarm.engine import arm_nulls, simulate_design
 from octrial.multiarm.model import MultiArmDesign
-from octrial.multiarm.tables import build_tables
+from octrial.multiarm.tables import MultiArmTables, build_tables
 from octrial.rules.lattice import build_rule
 
 __all__ = ["EXACT_PATHS", "JOINT", "METHODS", "SIMULATION", "ArmsEvaluation",
@@ -281,11 +281,24 @@ def simulate_scenario(task: ArmsScenarioTask) -> dict[str, np.ndarray]:
     :func:`octrial.multiarm.engine.simulate_design`)."""
     design = task.design
     row = design.scenarios.values[task.index]
-    found = multiarm_engine._scenario(design, build_tables(design), row, task.replicates,
+    found = multiarm_engine._scenario(design, _tables(design), row, task.replicates,
                                       task.seed, task.index)
     found["scenario"] = task.index + 1
     text = json.dumps({k: _plain(v) for k, v in found.items()})
     return {"row": np.array(text)}
+
+
+_TABLES: dict[str, MultiArmTables] = {}
+"""The decision tables of the last design simulated in this process (a worker runs many
+scenarios of one design; building them takes longer than simulating a scenario)."""
+
+
+def _tables(design: MultiArmDesign) -> MultiArmTables:
+    key = design.source.sha256 + repr(design)
+    if key not in _TABLES:
+        _TABLES.clear()
+        _TABLES[key] = build_tables(design)
+    return _TABLES[key]
 
 
 def _plain(value: Any) -> Any:
