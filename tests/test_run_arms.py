@@ -14,6 +14,8 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import random
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -23,10 +25,14 @@ from click.testing import CliRunner
 
 from octrial.arms_evaluation import compute_arms
 from octrial.cli import main
+from octrial.design.write import dumps
 from octrial.execution import Execution
 from octrial.execution.checkpoints import PARTIAL
 from octrial.multiarm.engine import simulate_design
 from octrial.multiarm.load import load_multiarm
+from octrial.review.arms_verification import several_arms
+from tests import fuzz_cases
+from tests.helpers import DESIGNS
 
 REPLICATES = 40_000
 
@@ -368,3 +374,32 @@ def test_ctrl_c_says_how_to_resume(runner, tmp_path, monkeypatch) -> None:
                     str(tmp_path / "out"), code=130)
     assert "run the same command again to resume" in output
     assert not (tmp_path / "out" / "oc.csv").exists()
+
+
+SEVERAL_ARM_DEMOS = [p for p in sorted(DESIGNS.glob("**/*.toml")) if several_arms(p)]
+
+
+@pytest.mark.parametrize("path", SEVERAL_ARM_DEMOS, ids=lambda p: p.stem)
+def test_several_arm_demos_load(path) -> None:
+    design = load_multiarm(path)
+    assert design.name == path.stem and len(design.scenarios.values) > 0
+    assert len(design.source.sha256) == 64
+
+
+@pytest.mark.parametrize("start", [SMALL, DROPPING], ids=["exact", "simulated"])
+def test_mutated_several_arm_files_exit_0_or_2(runner, tmp_path, start) -> None:
+    # a seeded sample of every key replaced by extreme and wrong-type values (the
+    # replacements of tests/fuzz_cases.py): exit 0 or 2, no traceback, nothing on exit 2
+    base = tomllib.loads(start.replace("REPS", "300"))
+    cases = [(path, value) for path in fuzz_cases.key_paths(base)
+             for value in fuzz_cases.VALUES if not (isinstance(value, list)
+                                                    and len(value) > 100)]
+    for i, (path, value) in enumerate(random.Random(16).sample(cases, 30)):
+        design = tmp_path / f"case{i}.toml"
+        design.write_text(dumps(fuzz_cases.replaced(base, path, value)))
+        out = tmp_path / f"out{i}"
+        result = runner.invoke(main, ["run", str(design), "--out", str(out), "--quiet"])
+        where = (path, value, result.output)
+        assert result.exit_code in (0, 2), where
+        assert result.exception is None or isinstance(result.exception, SystemExit), where
+        assert result.exit_code == 0 or not out.exists(), where
