@@ -32,7 +32,7 @@ import pandas as pd
 from octrial._version import __version__
 from octrial.engines.arms_exact import evaluate_design, unsupported
 from octrial.engines.arms_joint import joint_exact
-from octrial.errors import InputError, Problem
+from octrial.errors import InputError, Problem, bad_setting
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import kept_seed
 from octrial.multiarm import engine as multiarm_engine
@@ -315,6 +315,20 @@ def _engine_takes_execution() -> bool:
     return "execution" in inspect.signature(simulate_design).parameters
 
 
+SCENARIO_ROUTINE = ("design", "tables", "row", "replicates", "seed", "index")
+"""The parameters of the several-arm engine's per-scenario routine that
+:func:`simulate_scenario` calls."""
+
+
+def _per_scenario(design: MultiArmDesign) -> bool:
+    """Whether the scenarios can be run one task each by the engine's own routine (fixed
+    allocation; the routine present with the parameters it is called with)."""
+    routine = getattr(multiarm_engine, "_scenario", None)
+    if design.allocation.adaptive or routine is None:
+        return False
+    return tuple(inspect.signature(routine).parameters)[:6] == SCENARIO_ROUTINE
+
+
 def _simulated(design: MultiArmDesign, execution: Execution
                ) -> tuple[MultiArmDesign, pd.DataFrame, dict[str, Any]]:
     replicates = design.simulation.replicates
@@ -331,9 +345,9 @@ def _simulated(design: MultiArmDesign, execution: Execution
         "batch_size": multiarm_engine.BATCH,
         "random_numbers": "numpy PCG64; scenario i (from 0), batch b: "
                           "SeedSequence(seed, spawn_key=(i, b))"}
-    if design.allocation.adaptive or _engine_takes_execution():
+    if not _per_scenario(design):
         table = _whole_design(design, replicates, seed, execution)
-        facts["resumable"] = _engine_takes_execution()
+        facts["checkpointed_by_engine"] = _engine_takes_execution()
         return design, table, facts
     tasks = [ArmsScenarioTask(design, i, replicates, seed)
              for i in range(len(design.scenarios.values))]
@@ -349,6 +363,10 @@ def _whole_design(design: MultiArmDesign, replicates: int, seed: int,
     runs the grid itself)."""
     call: Callable[..., pd.DataFrame] = simulate_design
     given = {"execution": execution} if _engine_takes_execution() else {}
+    if not given and (execution.jobs > 1 or execution.backend != "joblib"):
+        raise bad_setting("jobs", "jobs", "1 (this design is simulated in one process: its "
+                          "engine runs its own loop over the scenarios)",
+                          f"jobs {execution.jobs}, backend {execution.backend}")
     try:
         return call(design, replicates, seed, **given)
     except NotImplementedError as exc:

@@ -26,6 +26,7 @@ from click.testing import CliRunner
 from octrial.arms_evaluation import compute_arms
 from octrial.cli import main
 from octrial.design.write import dumps
+from octrial.errors import InputError
 from octrial.execution import Execution
 from octrial.execution.checkpoints import PARTIAL
 from octrial.multiarm.engine import simulate_design
@@ -403,3 +404,40 @@ def test_mutated_several_arm_files_exit_0_or_2(runner, tmp_path, start) -> None:
         assert result.exit_code in (0, 2), where
         assert result.exception is None or isinstance(result.exception, SystemExit), where
         assert result.exit_code == 0 or not out.exists(), where
+
+
+def test_adaptive_designs_are_simulated_by_the_engine_whole(tmp_path, monkeypatch) -> None:
+    # response-adaptive allocation: the engine's own loop (it writes the allocation
+    # columns), handed the execution when it takes one; the columns it adds are kept
+    # before method and replicates
+    text = SMALL.replace("[scenarios]", '[allocation]\nkind = "power"\n[scenarios]')
+    design = load_multiarm(design_file(tmp_path, text, replicates=1000))
+    fixed = load_multiarm(design_file(tmp_path, SMALL, replicates=1000, name="fixed.toml"))
+    calls = []
+
+    def engine(given, replicates=None, seed=None, tables=None, execution=None):
+        calls.append((given.allocation.kind, replicates, seed, execution))
+        frame = simulate_design(fixed, replicates, seed)
+        for arm in ("control", "low", "high"):
+            frame[f"{arm}_block1_share"] = 1 / 3
+        return frame
+
+    monkeypatch.setattr("octrial.arms_evaluation.simulate_design", engine)
+    execution = Execution(checkpoints=tmp_path / PARTIAL)
+    found = compute_arms(design, "auto", execution)
+    assert found.info["engine"] == "monte-carlo (several arms)"
+    assert "adaptive" in found.info["exact_not_used"]
+    assert calls == [("power", 1000, 20261205, execution)]
+    columns = list(found.oc.columns)
+    assert columns[-5:] == ["control_block1_share", "low_block1_share", "high_block1_share",
+                            "method", "replicates"]
+    assert columns[:len(DOCUMENTED)] == DOCUMENTED
+    with pytest.raises(InputError, match="adaptive"):
+        compute_arms(design, "exact")
+
+    def one_process(given, replicates=None, seed=None, tables=None):
+        return engine(given, replicates, seed)
+
+    monkeypatch.setattr("octrial.arms_evaluation.simulate_design", one_process)
+    with pytest.raises(InputError, match="one process"):  # --jobs never ignored
+        compute_arms(design, "auto", Execution(jobs=2))
