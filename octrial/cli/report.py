@@ -17,7 +17,7 @@ from octrial.review.arms_verification import several_arms
 REPORT_NAME = "report.html"
 
 
-@click.command("report")
+@click.command("report", epilog=f"Caution: {CAUTION}")
 @click.argument("source", metavar="DESIGN_OR_RUN_DIR", type=click.Path(exists=True))
 @click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
               help="The HTML file to write [default: RUN_DIR/report.html, or "
@@ -45,6 +45,8 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
     'octrial check' wrote into the report's folder for the same file are shown). The
     report's tables are also written
     as CSV, Markdown and LaTeX to <report name>-tables/ beside it; --pdf prints a PDF.
+    Designs with several treatment arms get their own report (per-arm power, stopping
+    and dropping per arm and look, allocation over time).
 
     Exit codes: 0 written; 1 Chromium failed to print; 2 bad input (a run folder whose
     files are not what was recorded, a report that cannot be written) or Chromium missing.

@@ -30,7 +30,7 @@ from octrial.review.arms_verification import several_arms
 from octrial.run_folder import write_run
 
 
-@click.command("run")
+@click.command("run", epilog=f"Caution: {CAUTION}")
 @design_argument
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
               help="Folder for oc.csv, boundaries.csv and run.json "
@@ -51,6 +51,12 @@ def run_command(design: str, out: str | None, method: str | None, seed: int | No
     at a few sample sds) and run.json (provenance, with the SHA-256 of each file), all at
     once, and prints a summary table. A report of the folder's earlier results, and checks
     or a calibration of another design, are removed.
+
+    A design file with 2 to 8 treatment arms (docs/multi-arm.md) is computed exactly when
+    each arm is judged on its own with fixed allocation, else simulated; oc.csv then has
+    the several-arm columns (docs/output-files.md) and options the engine cannot honour
+    (--seed, --jobs, --backend, --scheduler for an exact run; --target-se) exit with
+    code 2.
 
     Simulation (method monte-carlo, and assurance without an exact engine) saves each
     finished scenario (or batch) under OUT/.partial; an interrupted run started again with
