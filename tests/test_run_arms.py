@@ -34,38 +34,19 @@ from octrial.multiarm.load import load_multiarm
 from octrial.review.arms_verification import several_arms
 from tests import fuzz_cases
 from tests.helpers import DESIGNS
+from tests.test_arms_exact import THREE_DOSES
 
 REPLICATES = 40_000
 
-SMALL = """\
-schema = 1
-name = "small-arms"
-title = "Two doses and a shared control (invented)"
-[endpoint]
-type = "binary"
-better = "higher"
-[hypothesis]
-comparison = "difference"
-kind = "superiority"
-margin = 0.0
-[arms.control]
-prior = { distribution = "beta", a = 1, b = 1 }
-[arms.low]
-prior = { distribution = "beta", a = 1, b = 1 }
-[arms.high]
-prior = { distribution = "beta", a = 1, b = 1 }
-[looks]
-n = [24, 48, 72]
-efficacy = [0.995, 0.99, 0.975]
-futility = 0.1
-[scenarios]
-control = 0.3
+SMALL = THREE_DOSES.replace("low = [0.3, 0.3]\nhigh = [0.3, 0.55]\n", """\
 low = [0.3, 0.3, 0.45]
 high = [0.3, 0.55, 0.6]
 [simulation]
 seed = 20261205
 replicates = REPS
-"""
+""")
+"""Two doses and a shared control, three scenarios (global null, partial null, both
+effective); REPS is replaced by the replicates."""
 
 DROPPING = SMALL.replace("n = [24, 48, 72]", "n = [18, 36]").replace(
     "efficacy = [0.995, 0.99, 0.975]", "efficacy = [0.995, 0.975]").replace(

@@ -6,12 +6,11 @@ from __future__ import annotations
 from typing import Any
 
 import octrial.reporting.precision as precision
-from octrial.caution import CAUTION
 from octrial.plurals import count
 from octrial.reporting import arms_wording
 from octrial.reporting.figures import Figure
 from octrial.reporting.formats import probability, truth
-from octrial.reporting.render import PAPERS, Section, _made, _run, environment
+from octrial.reporting.render import environment, page_context
 from octrial.reporting.tables import Tables
 
 ARMS_SECTIONS = (
@@ -88,17 +87,10 @@ def render_arms_html(data: Any, tables: Tables, figures: list[Figure],
                      command: list[str] | None = None, paper: str = "a4") -> str:
     """The several-arm report page for ``data`` (an
     :class:`~octrial.reporting.arms_data.ArmsReportData`) as HTML text."""
-    sections = [Section(id_, title, i + 1) for i, (id_, title) in enumerate(ARMS_SECTIONS)]
     stopping = [t for t in tables.oc if t.name.startswith("stopping")]
     context = {
-        "title": data.design.title or data.design.name,
-        "name": data.design.name,
-        "origin": data.origin,
-        "paper": PAPERS[paper],
-        "made": _made(command),
+        **page_context(data, ARMS_SECTIONS, command, paper),
         "glance": _glance(data),
-        "sections": sections,
-        "sections_by_id": {s.id: s for s in sections},
         "design": _design(data),
         "tables": tables,
         "oc_tables": [t for t in tables.oc if t not in stopping],
@@ -108,8 +100,6 @@ def render_arms_html(data: Any, tables: Tables, figures: list[Figure],
         # the study's type I error here is its largest family-wise error rate
         "precision": [p.replace("The maximum type I error", "The largest family-wise error "
                                 "rate") for p in precision.statement(data)],
-        "run": _run(data),
-        "caution": CAUTION,
         "assumptions": arms_wording.assumptions(data),
     }
     return environment().get_template("arms_report.html").render(context)
