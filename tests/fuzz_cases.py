@@ -25,9 +25,11 @@ from pathlib import Path
 from typing import Any
 
 from octrial.design.write import dumps
+from octrial.review.arms_verification import several_arms
 
 ROOT = Path(__file__).resolve().parents[1]
-DESIGNS = sorted((ROOT / "designs").glob("*.toml"))
+DESIGNS = [p for p in sorted((ROOT / "designs").glob("*.toml")) if not several_arms(p)]
+"""The single-design demos (parse_design reads them; several-arm demos are not)."""
 
 MEMORY_LIMIT = 3 * 2**30
 """Address space of one command (bytes): the limit on a design's estimated working memory

@@ -13,6 +13,15 @@ from octrial.design.write import dumps
 ROOT = Path(__file__).resolve().parents[1]
 DESIGNS = ROOT / "designs"
 
+
+def single_design_demos() -> list[Path]:
+    """The demo design files of ``designs/`` that ``load_design`` reads: all but those
+    with several treatment arms (tested by test_run_arms.py, test_report_arms.py and
+    test_demo_reports.py)."""
+    from octrial.review.arms_verification import several_arms
+
+    return [p for p in sorted(DESIGNS.glob("*.toml")) if not several_arms(p)]
+
 ONE_ARM: dict[str, Any] = {
     "schema": 1,
     "name": "one-arm-test",

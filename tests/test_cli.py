@@ -12,9 +12,9 @@ from click.testing import CliRunner
 
 import octrial
 from octrial.cli import main
-from tests.helpers import DESIGNS
+from tests.helpers import DESIGNS, single_design_demos
 
-DEMOS = sorted(DESIGNS.glob("*.toml"))
+DEMOS = single_design_demos()
 
 
 @pytest.fixture

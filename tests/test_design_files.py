@@ -6,13 +6,13 @@ import pytest
 
 from octrial.design.load import load_design
 from octrial.errors import DesignError
-from tests.helpers import DESIGNS, ONE_ARM, TWO_ARM, build
+from tests.helpers import ONE_ARM, TWO_ARM, build, single_design_demos
 
 MIXTURE = {"distribution": "beta-mixture",
            "components": [{"weight": 0.7, "a": 4, "b": 16}, {"weight": 0.3, "a": 1, "b": 1}]}
 
 
-@pytest.mark.parametrize("path", sorted(DESIGNS.glob("*.toml")), ids=lambda p: p.stem)
+@pytest.mark.parametrize("path", single_design_demos(), ids=lambda p: p.stem)
 def test_demo_designs_load(path) -> None:
     design = load_design(path)
     assert design.name == path.stem

@@ -21,10 +21,10 @@ from octrial.reporting import formats, from_run_folder, render_html
 from octrial.reporting.export import latex_escape
 from octrial.reporting.render import SECTIONS
 from octrial.reporting.tables import _generic_boundaries
-from tests.helpers import DESIGNS
+from tests.helpers import DESIGNS, single_design_demos
 from tests.report_pages import parse, section_ids, table_rows, text
 
-DEMOS = sorted(DESIGNS.glob("*.toml"))
+DEMOS = single_design_demos()
 
 
 def invoke(*args: str, env: dict[str, str] | None = None):

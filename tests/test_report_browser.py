@@ -22,9 +22,9 @@ from octrial.cli import main
 from octrial.reporting import find_chromium, formats
 from octrial.reporting.render import SECTIONS
 from tests.browser import DevTools
-from tests.helpers import DESIGNS
+from tests.helpers import single_design_demos
 
-DEMOS = sorted(DESIGNS.glob("*.toml"))
+DEMOS = single_design_demos()
 
 
 @pytest.fixture(scope="module")

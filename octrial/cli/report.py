@@ -11,11 +11,13 @@ from octrial.caution import CAUTION
 from octrial.cli.common import default_out, read_design, reports_input_errors
 from octrial.errors import single
 from octrial.reporting import PrintError, from_design, from_run_folder, write_report
+from octrial.reporting.arms_data import arms_from_design, arms_from_run_folder, is_arms_run
+from octrial.review.arms_verification import several_arms
 
 REPORT_NAME = "report.html"
 
 
-@click.command("report")
+@click.command("report", epilog=f"Caution: {CAUTION}")
 @click.argument("source", metavar="DESIGN_OR_RUN_DIR", type=click.Path(exists=True))
 @click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
               help="The HTML file to write [default: RUN_DIR/report.html, or "
@@ -43,6 +45,8 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
     'octrial check' wrote into the report's folder for the same file are shown). The
     report's tables are also written
     as CSV, Markdown and LaTeX to <report name>-tables/ beside it; --pdf prints a PDF.
+    Designs with several treatment arms get their own report (per-arm power, stopping
+    and dropping per arm and look, allocation over time).
 
     Exit codes: 0 written; 1 Chromium failed to print; 2 bad input (a run folder whose
     files are not what was recorded, a report that cannot be written) or Chromium missing.
@@ -52,8 +56,13 @@ def report_command(source: str, out: str | None, pdf: bool, alpha: float | None,
         if method is not None:
             raise single("--method", "", "a design file to evaluate (a run folder's results "
                          "are shown as computed)", f"the run folder {path}")
-        data = from_run_folder(path, alpha=alpha)
+        data = (arms_from_run_folder(path, alpha=alpha) if is_arms_run(path)
+                else from_run_folder(path, alpha=alpha))
         html = Path(out) if out else path / REPORT_NAME
+    elif several_arms(str(path)):  # 2-8 treatment arms: docs/multi-arm.md
+        arms = arms_from_design(path, method, command=sys.argv, alpha=alpha)
+        html = Path(out) if out else Path("reports") / arms.design.name / REPORT_NAME
+        data = arms
     else:
         loaded = read_design(str(path))
         html = Path(out) if out else default_out(loaded) / REPORT_NAME

@@ -19,16 +19,18 @@ from octrial.cli.common import (
     resumable,
     simulation_options,
 )
+from octrial.cli.run_arms import run_arms
 from octrial.cli.tables import assurance_line, oc_summary, prior_size_lines, type1_line
 from octrial.errors import NumericalWarning
 from octrial.evaluation import compute
 from octrial.output import csv_text
 from octrial.plurals import noun
 from octrial.provenance import now, run_record
+from octrial.review.arms_verification import several_arms
 from octrial.run_folder import write_run
 
 
-@click.command("run")
+@click.command("run", epilog=f"Caution: {CAUTION}")
 @design_argument
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
               help="Folder for oc.csv, boundaries.csv and run.json "
@@ -50,12 +52,21 @@ def run_command(design: str, out: str | None, method: str | None, seed: int | No
     once, and prints a summary table. A report of the folder's earlier results, and checks
     or a calibration of another design, are removed.
 
+    A design file with 2 to 8 treatment arms (docs/multi-arm.md) is computed exactly when
+    each arm is judged on its own with fixed allocation, else simulated; oc.csv then has
+    the several-arm columns (docs/output-files.md) and options the engine cannot honour
+    (--seed, --jobs, --backend, --scheduler for an exact run; --target-se) exit with
+    code 2.
+
     Simulation (method monte-carlo, and assurance without an exact engine) saves each
     finished scenario (or batch) under OUT/.partial; an interrupted run started again with
     the same arguments resumes where it stopped.
     Exit codes: 0 success; 2 bad input, or OUT cannot be written (then it is left as it
     was); 130 interrupted.
     """
+    if several_arms(design):  # 2-8 treatment arms: docs/multi-arm.md
+        run_arms(design, out, method, seed, simulation)
+        return
     started = now()
     loaded = read_design(design)
     if seed is not None:  # as in check and verify, the command line overrides the file

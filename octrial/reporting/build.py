@@ -7,6 +7,10 @@ from pathlib import Path
 from typing import Any
 
 from octrial.output import write_atomic
+from octrial.reporting.arms_data import ArmsReportData
+from octrial.reporting.arms_figures import build_arms_figures
+from octrial.reporting.arms_render import render_arms_html
+from octrial.reporting.arms_tables import build_arms_tables
 from octrial.reporting.export import export_tables
 from octrial.reporting.figures import build_figures
 from octrial.reporting.pdf import print_pdf, require_chromium
@@ -39,8 +43,13 @@ def write_report(
     """
     html = Path(html)
     chromium = require_chromium() if pdf else None
-    tables = build_tables(data)
-    page = render_html(data, tables, build_figures(data), command=command, paper=paper)
+    if isinstance(data, ArmsReportData):  # several treatment arms: a report of its own
+        tables = build_arms_tables(data)
+        page = render_arms_html(data, tables, build_arms_figures(data), command=command,
+                                paper=paper)
+    else:
+        tables = build_tables(data)
+        page = render_html(data, tables, build_figures(data), command=command, paper=paper)
     write_atomic(html, page)
     exported = export_tables(tables.all(), tables_folder(html))
     printed = print_pdf(html, html.with_suffix(".pdf"), chromium) if pdf else None

@@ -168,6 +168,25 @@ def _run(data: Any) -> dict[str, str]:
     }
 
 
+def page_context(data: Any, sections: tuple[tuple[str, str], ...],
+                 command: list[str] | None, paper: str) -> dict[str, Any]:
+    """What every report page shows besides its sections' contents: title, origin,
+    paper, how it was made, the numbered sections, the run's reproducibility facts and
+    the caution."""
+    numbered = [Section(id_, title, i + 1) for i, (id_, title) in enumerate(sections)]
+    return {
+        "title": data.design.title or data.design.name,
+        "name": data.design.name,
+        "origin": data.origin,
+        "paper": PAPERS[paper],
+        "made": _made(command),
+        "sections": numbered,
+        "sections_by_id": {s.id: s for s in numbered},
+        "run": _run(data),
+        "caution": CAUTION,
+    }
+
+
 def render_html(
     data: Any, tables: Tables | None = None, figures: list[Figure] | None = None,
     command: list[str] | None = None, paper: str = "a4",
@@ -186,16 +205,9 @@ def render_html(
     """
     tables = build_tables(data) if tables is None else tables
     figures = build_figures(data) if figures is None else figures
-    sections = [Section(id_, title, i + 1) for i, (id_, title) in enumerate(SECTIONS)]
     context = {
-        "title": data.design.title or data.design.name,
-        "name": data.design.name,
-        "origin": data.origin,
-        "paper": PAPERS[paper],
-        "made": _made(command),
+        **page_context(data, SECTIONS, command, paper),
         "glance": _glance(data),
-        "sections": sections,
-        "sections_by_id": {s.id: s for s in sections},
         "design": _design(data),
         "tables": tables,
         "figures": figures,
@@ -205,8 +217,6 @@ def render_html(
         "check_figures": [f for f in figures if f.name.startswith(CHECK_FIGURES)],
         "type1": wording.type1_sentence(data),
         "precision": precision.statement(data),
-        "run": _run(data),
-        "caution": CAUTION,
         "assumptions": wording.assumptions(data),
     }
     return environment().get_template("report.html").render(context)
