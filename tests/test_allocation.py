@@ -19,8 +19,7 @@ import pytest
 from scipy import integrate, special, stats
 
 from octrial.allocation import AllocationRule, next_allocation, probability_best
-from octrial.allocation.best import best_from_table
-from octrial.allocation.kernel import binomial_inverse
+from octrial.allocation.kernel import best_now, binomial_inverse
 from octrial.allocation.simulate import AdaptiveStudy, simulate, simulate_batch, summary
 from octrial.errors import SettingsError
 
@@ -166,7 +165,7 @@ def test_mixture_of_equal_components_is_the_component():
 def test_table_kernel_equals_direct_quadrature():
     # the kernel's tables (support cut) against probability_best, one shared prior and
     # arms with priors of their own (each arm's posterior on its own table)
-    from octrial.allocation.best import BestTables
+    from octrial.numerics.beta_best import BestTables
 
     prior = ([0.6, 0.4], [1.0, 4.0], [1.0, 2.0])
     other = (1.0, 0.5, 3.0)
@@ -177,9 +176,9 @@ def test_table_kernel_equals_direct_quadrature():
             n = rng.integers(0, 41, size=4)
             x = rng.integers(0, n + 1)
             out = np.zeros(4)
-            best_from_table(tables.density, tables.worse, tables.support, tables.reach,
-                            tables.weights, tables.which, n, x, np.ones(4, bool), 0,
-                            np.zeros(4, np.int64), out)
+            best_now(tables.density, tables.worse, tables.support, tables.reach,
+                     tables.weights, tables.which, tables.states, n, x, np.ones(4, bool),
+                     0, np.zeros(4, np.int64), np.zeros(4, bool), out)
             np.testing.assert_allclose(out, _best_mixed(x, n, priors), atol=1e-9)
 
 

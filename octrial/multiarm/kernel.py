@@ -13,7 +13,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from octrial.multiarm.best import best_probabilities
+from octrial.numerics.beta_best import best_of_rows
 from octrial.simulation.draws import draw
 
 CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
@@ -24,9 +24,11 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 
 
 @numba.njit(cache=True)
-def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, keep,
-             control, sign, is_null, is_best, out_success, out_eff, out_fut, out_drop, out_n,
-             out_scalars, out_end, bounds, t_start, t_length, guide, guide_start, shift):
+def simulate(words, truth, increments, sizes, decision, mean, density, worse, support,
+             reach, weights, drop_below, keep, control, sign, is_null, is_best, out_success,
+             out_eff, out_fut, out_drop, out_n, out_scalars, out_end, out_share,
+             out_running, out_look_n, bounds, t_start, t_length, guide, guide_start,
+             shift):
     """Simulate ``len(words)`` studies at true rates ``truth``.
 
     Arms are in slot order: the treatment arms, then the control (when there is one),
@@ -42,25 +44,42 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
     [total n, total n squared, any success, any null arm succeeds, studies with a
     selected arm, selected arm truly best, sum of selected estimate - truth]. The
     selected arm is the successful arm with the best posterior mean at its decision
-    (``sign`` +1: highest, -1: lowest).
+    (``sign`` +1: highest, -1: lowest). Allocation over time: ``out_share[k, a]`` sums
+    arm a's share of block k (its planned subjects over those of every arm enrolling
+    the block) over the ``out_running[k]`` studies that enrol block k, and
+    ``out_look_n[k, a]`` the arm's cumulative subjects at look k (carried forward after
+    the study ends). Pr(best) reads rows ``(t K + k) X + x`` of ``density``, ``worse``
+    (:mod:`octrial.numerics.beta_best`).
     """
     reps = words.shape[0]
     K, A = increments.shape
     T = decision.shape[0]
-    needs_best = cdf.shape[0] > 0
+    X = mean.shape[2]
+    needs_best = density.shape[0] > 0
     x = np.zeros(A, np.int64)
+    n_arm = np.zeros(A, np.int64)
     active = np.zeros(T, np.bool_)
     success = np.zeros(T, np.bool_)
     estimate = np.zeros(T)
     probs = np.zeros(T)
-    cdfs = np.zeros((T, cdf.shape[3] if needs_best else 1))
+    rows = np.zeros(T, np.int64)
     for r in range(reps):
         x[:] = 0
+        n_arm[:] = 0
         active[:] = True
         success[:] = False
         n_total = 0
         end = K - 1
         for k in range(K):
+            block = 0
+            for a in range(A):
+                if a >= T or active[a]:
+                    block += increments[k, a]
+            if block > 0:
+                out_running[k] += 1
+                for a in range(A):
+                    if a >= T or active[a]:
+                        out_share[k, a] += increments[k, a] / block
             for a in range(A):
                 y = draw(words[r, k, a], k * A + a, bounds, t_start, t_length, guide,
                          guide_start, shift)
@@ -71,7 +90,10 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                     # beyond a truncated lattice: held at its edge (two-arm kernel)
                     x[a] = sizes[k, a] - 1
                 n_total += increments[k, a]
+                n_arm[a] += increments[k, a]
                 out_n[a] += increments[k, a]
+            for a in range(A):
+                out_look_n[k, a] += n_arm[a]
             c = x[T] if control else 0
             left = 0
             for t in range(T):
@@ -90,9 +112,8 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                     left += 1
             if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
                 for t in range(T):
-                    if active[t]:
-                        cdfs[t, :] = cdf[t, k, x[t], :]
-                best_probabilities(cdfs, active, probs)
+                    rows[t] = (t * K + k) * X + x[t]
+                best_of_rows(density, worse, support, reach, weights, rows, active, probs)
                 if drop_below[k] >= 0:
                     for t in range(T):
                         if active[t] and probs[t] < drop_below[k]:
@@ -110,6 +131,9 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                     left -= 1
             if left == 0:
                 end = k
+                for later in range(k + 1, K):
+                    for a in range(A):
+                        out_look_n[later, a] += n_arm[a]
                 break
         any_success = False
         null_success = False
