@@ -86,10 +86,10 @@ def vectorised(study: AdaptiveStudy, studies: int, seed: int) -> np.ndarray:
         state = n * (n + 1) // 2 + x
         best = np.zeros((studies, arms))
         for _ in range(2):   # before and after dropping
-            worse = np.where(active[:, 1:, None], table.worse[0][state[:, 1:]], 1.0)
+            worse = np.where(active[:, 1:, None], table.worse[state[:, 1:]], 1.0)
             prod_all = np.prod(worse, axis=1, keepdims=True)
             others = prod_all / np.where(worse > 0, worse, 1.0)
-            dens = table.density[0][state[:, 1:]] * table.weights
+            dens = table.density[state[:, 1:]] * table.weights
             best[:, 1:] = np.where(active[:, 1:], np.sum(dens * others, axis=2), 0.0)
             active[:, 1:] &= best[:, 1:] >= study.drop_below
         c = enrolled / (2 * LOOKS[-1])
