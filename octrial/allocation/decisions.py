@@ -7,7 +7,8 @@ look from the counts reached: against the shared control
 (the decision tables' tanh-sinh quadrature), against a benchmark the posterior tail of
 the arm's rate. The decision is the project's one stop rule
 (:func:`octrial.rules.stop.look_decision_at`). Values are memoised by the counts in a
-dictionary that only saves work (it never changes a number).
+hash table of fixed capacity (open addressing in two arrays, :func:`new_memo`) that only
+saves work: it never changes a number, and once it is full values are computed again.
 """
 
 from __future__ import annotations
@@ -17,8 +18,6 @@ from dataclasses import dataclass
 
 import numba
 import numpy as np
-from numba import types
-from numba.typed import Dict
 
 from octrial.simulation.beta_difference import (
     QUADRATURE_TOLERANCE,
@@ -72,9 +71,24 @@ def padded_priors(priors: list[tuple]) -> tuple[np.ndarray, np.ndarray, np.ndarr
     return w, a, b
 
 
-def new_memo() -> Dict:
-    """An empty memo of benefit probabilities (numba typed dictionary)."""
-    return Dict.empty(key_type=types.int64, value_type=types.float64)
+MEMO_BITS = 21
+"""The memo holds up to 0.7 x 2^MEMO_BITS values (about 1.5 million; 32 MiB)."""
+
+Memo = tuple[np.ndarray, np.ndarray, np.ndarray]
+
+
+def new_memo(bits: int = MEMO_BITS) -> Memo:
+    """An empty memo of benefit probabilities: keys (-1: empty slot), values, and the
+    number of values held."""
+    return (np.full(1 << bits, -1, np.int64), np.zeros(1 << bits), np.zeros(1, np.int64))
+
+
+@numba.njit(cache=True, inline="always")
+def _slot(key, size):  # pragma: no cover - compiled
+    """First probe of ``key`` in a table of ``size`` (a power of 2) slots: Fibonacci
+    hashing (Knuth, TAOCP vol. 3, 6.4; common practice)."""
+    mixed = np.uint64(key) * np.uint64(11400714819323198485)
+    return np.int64(mixed >> np.uint64(40)) & (size - 1)
 
 
 def nodes() -> tuple[np.ndarray, ...]:
@@ -111,8 +125,13 @@ def arm_benefit(versus_control, higher, shift, benchmark, arm, prior_w, prior_a,
     ``versus_control``), memoised by the counts (``largest`` bounds every count)."""
     side = largest + 1
     key = (((arm * side + n_t) * side + x_t) * side + n_c) * side + x_c
-    if key in memo:
-        return memo[key]
+    keys, values, held = memo
+    size = keys.shape[0]
+    slot = _slot(key, size)
+    while keys[slot] != -1:
+        if keys[slot] == key:
+            return values[slot]
+        slot = (slot + 1) & (size - 1)
     width = prior_w.shape[1]
     tw, ta, tb = np.empty(width), np.empty(width), np.empty(width)
     posterior_mixture(prior_w[arm], prior_a[arm], prior_b[arm], n_t, x_t, tw, ta, tb)
@@ -127,5 +146,8 @@ def arm_benefit(versus_control, higher, shift, benchmark, arm, prior_w, prior_a,
         else:
             value = prob_difference_exceeds(cw, ca, cb, tw, ta, tb, shift, log_u, log_1mu,
                                             log_w, start, QUADRATURE_TOLERANCE)
-    memo[key] = value
+    if held[0] < 0.7 * size:
+        keys[slot] = key
+        values[slot] = value
+        held[0] += 1
     return value

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from octrial.allocation.decisions import ArmRule, new_memo
+from octrial.allocation.decisions import ArmRule, Memo, new_memo
 from octrial.allocation.simulate import AdaptiveStudy, StudyBatch, simulate_batch
 from octrial.endpoints.binary import BetaMixture, BinaryEndpoint
 from octrial.errors import Problem, SettingsError, show
@@ -122,6 +122,20 @@ def _tables(priors: tuple, largest: int, higher: bool) -> BestTables:
     return BestTables.build(list(priors), largest, higher)
 
 
+@functools.lru_cache(maxsize=1)
+def _memo(identity: str) -> Memo:
+    # the posterior probabilities of benefit depend on the priors and the hypothesis,
+    # not on the scenario: the scenarios of a design run in one process share them
+    return new_memo()
+
+
+def _memo_identity(study: AdaptiveStudy) -> str:
+    rule = study.arm_rule
+    assert rule is not None
+    return repr((study.arm_priors, study.prior, rule.versus_control, rule.higher,
+                 rule.shift, rule.benchmark, study.looks[-1]))
+
+
 @dataclass(frozen=True)
 class AdaptiveTask:
     """One scenario (picklable for the workers of :func:`octrial.execution.run_grid`)."""
@@ -145,7 +159,7 @@ def scenario_sums(task: AdaptiveTask) -> dict[str, np.ndarray]:
     priors = study.arm_priors if study.arm_priors is not None else (study.prior,) * rates.size
     table = _tables(tuple(priors), int(study.looks[-2]) if len(study.looks) > 1 else 0,
                     study.higher)
-    memo = new_memo()
+    memo = _memo(_memo_identity(study))
     total: dict[str, np.ndarray] = {}
     for b, start in enumerate(range(0, task.replicates, task.batch)):
         part = simulate_batch(study, rates, min(task.batch, task.replicates - start),
