@@ -240,3 +240,31 @@ def test_unsupported_settings_are_refused_naming_the_key(change, key):
         simulate_design(parse(data), replicates=100)
     assert any(p.key == key for p in info.value.problems), info.value
     assert "adaptive" in str(info.value)
+
+
+class Stop(Exception):
+    """Raised by the test's hook to interrupt a run after some scenarios."""
+
+
+@pytest.mark.parametrize("allocation", [None, {"kind": "information"}])
+def test_an_interrupted_run_resumes_with_the_same_numbers(tmp_path, allocation):
+    # finished scenarios are kept (DIR/.partial); the resumed run simulates only the
+    # others and gives the table of an uninterrupted run (identity: seeds per scenario)
+    d = parse(design_data(allocation=allocation))
+    clean = simulate_design(d, replicates=2_000)
+    partial = tmp_path / ".partial"
+    done: list[int] = []
+
+    def stop(index: int) -> None:
+        done.append(index)
+        raise Stop
+
+    with pytest.raises(Stop):
+        simulate_design(d, replicates=2_000,
+                        execution=Execution(checkpoints=partial, on_saved=stop))
+    assert len(list(partial.glob("*/*.npz"))) == 1
+    again: list[int] = []
+    resumed = simulate_design(d, replicates=2_000,
+                              execution=Execution(checkpoints=partial, on_saved=again.append))
+    assert resumed.equals(clean)
+    assert again == [i for i in range(len(clean)) if i not in done]

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import special
@@ -148,6 +149,21 @@ class AdaptiveTask:
     seed: int
     scenario: int
     batch: int
+    design_sha256: str = ""
+
+    def identity(self) -> dict[str, Any]:
+        """What this scenario's checkpoint records."""
+        return {"design_sha256": self.design_sha256, "seed": self.seed,
+                "scenario": self.scenario, "batch": "all", "kernel": "several-arm adaptive"}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this scenario's saved tallies."""
+        from octrial.multiarm.engine import tally_problems
+
+        arms = len(self.truth)
+        treatments = arms - int(self.study.control)
+        return tally_problems(arrays, treatments, len(self.study.looks), arms,
+                              self.replicates)
 
 
 def scenario_sums(task: AdaptiveTask) -> dict[str, np.ndarray]:

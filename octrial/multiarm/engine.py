@@ -37,10 +37,12 @@ success), ``expected_n``, ``sd_n``.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from octrial._version import __version__
 from octrial.engines.monte_carlo import batch_generator
 from octrial.execution import Execution, run_grid
 from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sums
@@ -88,7 +90,9 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
     tables : MultiArmTables, optional
         Fixed allocation: the decision tables, when already built.
     execution : Execution, optional
-        How to spread the scenarios over workers; never changes a number.
+        How to spread the scenarios over workers (never changes a number), and where
+        to keep finished scenarios (``checkpoints``) so that an interrupted run resumes
+        without simulating them again.
     planned_blocks : bool
         Run a fixed-allocation design through the adaptive study loop, each arm
         enrolling its planned subjects (a check of the two engines against each other);
@@ -105,19 +109,25 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
         raise ValueError("several-arm simulation needs a seed (simulation.seed)")
     execution = Execution() if execution is None else execution
     rows = list(design.scenarios.values)
-    tasks: list[object]
-    if design.allocation.adaptive or planned_blocks:
+    adaptive = design.allocation.adaptive or planned_blocks
+    store = execution.store({
+        "design_sha256": design.source.sha256, "design": repr(design),
+        "engine": "several-arm monte-carlo", "loop": "adaptive" if adaptive else "fixed",
+        "planned_blocks": planned_blocks, "replicates": replicates, "seed": seed,
+        "batch": BATCH, "octrial": __version__})
+    if adaptive:
         study = adaptive_study(design, planned_blocks)
-        tasks = [AdaptiveTask(study, tuple(map(float, row)),
-                              tuple(map(bool, arm_nulls(design, row))),
-                              tuple(map(bool, truly_best(design, row))), replicates,
-                              seed, i, BATCH) for i, row in enumerate(rows)]
-        results, _ = run_grid(scenario_sums, tasks, execution)
+        adaptive_tasks = [
+            AdaptiveTask(study, tuple(map(float, row)),
+                         tuple(map(bool, arm_nulls(design, row))),
+                         tuple(map(bool, truly_best(design, row))), replicates, seed, i,
+                         BATCH, design.source.sha256) for i, row in enumerate(rows)]
+        results, _ = run_grid(scenario_sums, adaptive_tasks, execution, store)
     else:
         tables = build_tables(design) if tables is None else tables
-        tasks = [FixedTask(design, tables, tuple(row), replicates, seed, i)
-                 for i, row in enumerate(rows)]
-        results, _ = run_grid(fixed_sums, tasks, execution)
+        fixed_tasks = [FixedTask(design, tables, tuple(row), replicates, seed, i)
+                       for i, row in enumerate(rows)]
+        results, _ = run_grid(fixed_sums, fixed_tasks, execution, store)
     out = [columns(design, row, sums, replicates) for row, sums in zip(rows, results,
                                                                        strict=True)]
     for i, r in enumerate(out):
@@ -152,6 +162,41 @@ class FixedTask:
     replicates: int
     seed: int
     index: int
+
+    def identity(self) -> dict[str, Any]:
+        """What this scenario's checkpoint records."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
+                "scenario": self.index, "batch": "all", "kernel": "several-arm fixed"}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this scenario's saved tallies."""
+        T, K = self.tables.decision.shape[:2]
+        return tally_problems(arrays, T, K, self.tables.increments.shape[1],
+                              self.replicates)
+
+
+def tally_problems(arrays: dict[str, np.ndarray], T: int, K: int, A: int,
+                   replicates: int) -> list[str]:
+    """Shapes and ranges of a scenario's tallies (the keys of :func:`fixed_sums`)."""
+    shapes = {"success": (T,), "efficacy": (T, K), "futility": (T, K), "drop": (T, K),
+              "n_arm": (A,), "scalars": (7,), "end": (2, K), "share": (K, A),
+              "running": (K,), "look_n": (K, A)}
+    wrong = []
+    for key, shape in shapes.items():
+        value = arrays.get(key)
+        if value is None or np.shape(value) != shape:
+            wrong.append(f"{key}: shape {shape} expected")
+        elif not np.all(np.isfinite(value)):
+            wrong.append(f"{key}: finite values expected")
+        elif key != "scalars" and np.any(np.asarray(value) < 0):
+            # (scalars hold the sum of selected-arm errors, which may be negative)
+            wrong.append(f"{key}: values >= 0 expected")
+    if not wrong:
+        counts = [arrays[k] for k in ("success", "efficacy", "futility", "drop", "end",
+                                      "running")]
+        if any(np.any(c > replicates) for c in counts) or arrays["end"].sum() != replicates:
+            wrong.append(f"counts beyond the {replicates} studies")
+    return wrong
 
 
 def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
