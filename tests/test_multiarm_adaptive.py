@@ -234,6 +234,7 @@ def test_one_table_format_for_fixed_and_adaptive_allocation():
      "endpoint.type"),
 ])
 def test_unsupported_settings_are_refused_naming_the_key(change, key):
+    # (common practice: refuse plainly rather than simulate something else)
     data = design_data(allocation={"kind": "power"})
     change(data)
     with pytest.raises(SettingsError) as info:
@@ -268,3 +269,15 @@ def test_an_interrupted_run_resumes_with_the_same_numbers(tmp_path, allocation):
                               execution=Execution(checkpoints=partial, on_saved=again.append))
     assert resumed.equals(clean)
     assert again == [i for i in range(len(clean)) if i not in done]
+
+
+def test_tables_beyond_memory_are_refused_before_any_work():
+    # the Pr(best) tables grow with the square of the last interim total: 4,000 subjects
+    # there need (4001 x 4002 / 2) x 644 x 8 bytes = 41 GiB (docs/adaptive-allocation.md;
+    # hand arithmetic), refused naming looks.n before anything is allocated
+    d = parse(design_data(n=(1000, 2000, 3000, 4000, 5000),
+                          allocation={"kind": "information"}))
+    with pytest.raises(SettingsError) as info:
+        simulate_design(d, replicates=100)
+    assert [p.key for p in info.value.problems] == ["looks.n"]
+    assert "GiB" in str(info.value)

@@ -109,12 +109,25 @@ def adaptive_study(design: MultiArmDesign, planned_blocks: bool = False) -> Adap
         float(h.benchmark) if h.benchmark is not None else nan, h.better == "higher")
     per_arm = np.array(design.looks.per_arm, np.int64)
     planned = np.diff(np.vstack([np.zeros(per_arm.shape[1], np.int64), per_arm]), axis=0)
-    return AdaptiveStudy(
+    study = AdaptiveStudy(
         design.looks.n, rule, arm_priors=tuple(_prior(a.prior) for a in arms),
         control=design.shared_control, higher=h.better == "higher",
         assignment=design.allocation.assignment, arm_rule=arm_rule,
         drop_by_look=design.looks.drop_if_best_below, keep=design.selection.keep or 0,
         planned=tuple(map(tuple, planned.tolist())) if planned_blocks else None)
+    try:
+        # before any work (the Pr(best) tables' size, blocks of at most 1000)
+        study.check(len(arms))
+    except SettingsError as exc:
+        raise SettingsError(design.source.path or design.name, [
+            Problem(DESIGN_KEYS.get(p.key, p.key), p.expected, p.got, p.hint)
+            for p in exc.problems]) from None
+    return study
+
+
+DESIGN_KEYS = {"looks": "looks.n", "drop_by_look": "looks.drop_if_best_below",
+               "keep": "selection.keep", "assignment": "allocation.assignment"}
+"""The design-file keys of the study loop's settings (for messages)."""
 
 
 @functools.lru_cache(maxsize=2)
