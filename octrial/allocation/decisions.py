@@ -85,7 +85,7 @@ def new_memo(bits: int = MEMO_BITS) -> Memo:
 
 
 @numba.njit(cache=True, inline="always")
-def _slot(key, size):  # pragma: no cover - compiled
+def first_slot(key, size):  # pragma: no cover - compiled
     """First probe of ``key`` in a table of ``size`` (a power of 2) slots: Fibonacci
     hashing (Knuth, TAOCP vol. 3, 6.4; common practice)."""
     mixed = np.uint64(key) * np.uint64(11400714819323198485)
@@ -186,7 +186,7 @@ def arm_benefit(versus_control, higher, shift, benchmark, arm, prior_w, prior_a,
     key = (((arm * side + n_t) * side + x_t) * side + n_c) * side + x_c
     keys, values, held = memo
     size = keys.shape[0]
-    slot = _slot(key, size)
+    slot = first_slot(key, size)
     while keys[slot] != -1:
         if keys[slot] == key:
             return values[slot]

@@ -199,6 +199,19 @@ def tally_problems(arrays: dict[str, np.ndarray], T: int, K: int, A: int,
     return wrong
 
 
+BEST_MEMO_BITS = 18
+"""The fixed-allocation kernel memoises up to 0.7 x 2^18 Pr(best) vectors per scenario."""
+
+
+def best_memo(tables: MultiArmTables) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """An empty memo of Pr(best) for the kernel (keys, values, count); empty arrays
+    when no rule needs Pr(best) or when the keys could overflow 63 bits."""
+    T, K, X = tables.mean.shape
+    fits = K * float(X + 1) ** T < 2.0**62
+    size = 1 << BEST_MEMO_BITS if tables.needs_best and fits else 0
+    return (np.full(size, -1, np.int64), np.zeros((size, T)), np.zeros(1, np.int64))
+
+
 def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
     """The tallies of one scenario with fixed allocation (the keys of
     :func:`octrial.multiarm.adaptive.batch_sums`; arms in design order)."""
@@ -224,6 +237,7 @@ def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
     increments = np.ascontiguousarray(tables.increments[:, order])
     sizes = np.ascontiguousarray(tables.sizes[:, order])
     draws = DrawTables.from_pmfs(_increment_pmfs(design, truth, increments, sizes))
+    memo = best_memo(tables)
     for b in range(-(-task.replicates // BATCH)):
         reps = min(BATCH, task.replicates - b * BATCH)
         rng = batch_generator(task.seed, task.index, b)
@@ -232,7 +246,7 @@ def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
                  tables.density, tables.worse, tables.support, tables.reach,
                  tables.weights, tables.drop_below, tables.keep, tables.control, sign,
                  nulls, best, success, eff, fut, drop, n_slot, scalars, end, share,
-                 running, look_n, *draws.arrays())
+                 running, look_n, *memo, *draws.arrays())
     back = np.argsort(order)
     return {"success": success, "efficacy": eff, "futility": fut, "drop": drop,
             "n_arm": n_slot[back], "scalars": scalars, "end": end,

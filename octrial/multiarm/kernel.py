@@ -13,6 +13,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
+from octrial.allocation.decisions import first_slot
 from octrial.numerics.beta_best import best_of_rows
 from octrial.simulation.draws import draw
 
@@ -27,8 +28,8 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 def simulate(words, truth, increments, sizes, decision, mean, density, worse, support,
              reach, weights, drop_below, keep, control, sign, is_null, is_best, out_success,
              out_eff, out_fut, out_drop, out_n, out_scalars, out_end, out_share,
-             out_running, out_look_n, bounds, t_start, t_length, guide, guide_start,
-             shift):
+             out_running, out_look_n, memo_keys, memo_values, memo_held, bounds,
+             t_start, t_length, guide, guide_start, shift):
     """Simulate ``len(words)`` studies at true rates ``truth``.
 
     Arms are in slot order: the treatment arms, then the control (when there is one),
@@ -49,7 +50,9 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
     the block) over the ``out_running[k]`` studies that enrol block k, and
     ``out_look_n[k, a]`` the arm's cumulative subjects at look k (carried forward after
     the study ends). Pr(best) reads rows ``(t K + k) X + x`` of ``density``, ``worse``
-    (:mod:`octrial.numerics.beta_best`).
+    (:mod:`octrial.numerics.beta_best`); its values are memoised by the look, the arms
+    still in and their counts in the hash table ``memo_keys`` / ``memo_values`` (empty:
+    no memo), which only saves work.
     """
     reps = words.shape[0]
     K, A = increments.shape
@@ -111,9 +114,8 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
                 else:
                     left += 1
             if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
-                for t in range(T):
-                    rows[t] = (t * K + k) * X + x[t]
-                best_of_rows(density, worse, support, reach, weights, rows, active, probs)
+                best_memoised(density, worse, support, reach, weights, K, X, k, x, active,
+                              rows, memo_keys, memo_values, memo_held, probs)
                 if drop_below[k] >= 0:
                     for t in range(T):
                         if active[t] and probs[t] < drop_below[k]:
@@ -160,3 +162,35 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
             if is_best[chosen]:
                 out_scalars[5] += 1
             out_scalars[6] += estimate[chosen] - truth[chosen]
+
+
+
+@numba.njit(cache=True)
+def best_memoised(density, worse, support, reach, weights, K, X, k, x, active, rows,
+                  memo_keys, memo_values, memo_held, probs):  # pragma: no cover - compiled
+    """Pr(best) of the active treatment arms at look ``k`` (row ``(t K + k) X + x[t]``
+    of the tables), memoised: the key is the look and, per arm, 0 when it has left or
+    1 + its count, in radix X + 1 (the caller leaves the memo empty when such keys could
+    overflow)."""
+    T = probs.shape[0]
+    size = memo_keys.shape[0]
+    slot = -1
+    key = k
+    if size > 0:
+        for t in range(T):
+            key = key * (X + 1) + (x[t] + 1 if active[t] else 0)
+        slot = first_slot(key, size)
+        while memo_keys[slot] != -1:
+            if memo_keys[slot] == key:
+                for t in range(T):
+                    probs[t] = memo_values[slot, t]
+                return
+            slot = (slot + 1) & (size - 1)
+    for t in range(T):
+        rows[t] = (t * K + k) * X + x[t]
+    best_of_rows(density, worse, support, reach, weights, rows, active, probs)
+    if size > 0 and memo_held[0] < 0.7 * size:
+        memo_keys[slot] = key
+        for t in range(T):
+            memo_values[slot, t] = probs[t]
+        memo_held[0] += 1
