@@ -271,6 +271,32 @@ def test_an_interrupted_run_resumes_with_the_same_numbers(tmp_path, allocation):
     assert again == [i for i in range(len(clean)) if i not in done]
 
 
+def test_a_tampered_checkpoint_is_simulated_again(tmp_path):
+    # a saved scenario whose counts exceed its studies is not used (range checks of
+    # octrial/multiarm/tallies.py); the run recomputes it and gives the clean numbers
+    d = parse(design_data(allocation={"kind": "information"}))
+    clean = simulate_design(d, replicates=2_000)
+    partial = tmp_path / ".partial"
+
+    def stop(index: int) -> None:
+        raise Stop
+
+    with pytest.raises(Stop):
+        simulate_design(d, replicates=2_000,
+                        execution=Execution(checkpoints=partial, on_saved=stop))
+    (saved,) = partial.glob("*/*.npz")
+    with np.load(saved) as data:
+        arrays = {name: data[name] for name in data.files}
+    arrays["success"] = arrays["success"] + 5_000
+    np.savez(saved, **arrays)
+    again: list[int] = []
+    with pytest.warns(UserWarning):
+        resumed = simulate_design(d, replicates=2_000, execution=Execution(
+            checkpoints=partial, on_saved=again.append))
+    assert resumed.equals(clean)
+    assert again == list(range(len(clean)))
+
+
 def test_tables_beyond_memory_are_refused_before_any_work():
     # the Pr(best) tables grow with the square of the last interim total: 4,000 subjects
     # there need (4001 x 4002 / 2) x 644 x 8 bytes = 41 GiB (docs/adaptive-allocation.md;

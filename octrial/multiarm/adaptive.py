@@ -28,6 +28,7 @@ from octrial.allocation.simulate import AdaptiveStudy, StudyBatch, simulate_batc
 from octrial.endpoints.binary import BetaMixture, BinaryEndpoint
 from octrial.errors import Problem, SettingsError, show
 from octrial.multiarm.model import MultiArmDesign
+from octrial.multiarm.tallies import tally_problems
 from octrial.numerics.beta_best import BestTables
 
 __all__ = ["AdaptiveTask", "adaptive_study", "batch_sums", "scenario_sums"]
@@ -171,8 +172,6 @@ class AdaptiveTask:
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this scenario's saved tallies."""
-        from octrial.multiarm.engine import tally_problems
-
         arms = len(self.truth)
         treatments = arms - int(self.study.control)
         return tally_problems(arrays, treatments, len(self.study.looks), arms,

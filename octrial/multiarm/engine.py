@@ -49,6 +49,7 @@ from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sum
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
+from octrial.multiarm.tallies import tally_problems
 from octrial.simulation.draws import DrawTables
 
 BATCH = 50_000
@@ -173,30 +174,6 @@ class FixedTask:
         T, K = self.tables.decision.shape[:2]
         return tally_problems(arrays, T, K, self.tables.increments.shape[1],
                               self.replicates)
-
-
-def tally_problems(arrays: dict[str, np.ndarray], T: int, K: int, A: int,
-                   replicates: int) -> list[str]:
-    """Shapes and ranges of a scenario's tallies (the keys of :func:`fixed_sums`)."""
-    shapes = {"success": (T,), "efficacy": (T, K), "futility": (T, K), "drop": (T, K),
-              "n_arm": (A,), "scalars": (7,), "end": (2, K), "share": (K, A),
-              "running": (K,), "look_n": (K, A)}
-    wrong = []
-    for key, shape in shapes.items():
-        value = arrays.get(key)
-        if value is None or np.shape(value) != shape:
-            wrong.append(f"{key}: shape {shape} expected")
-        elif not np.all(np.isfinite(value)):
-            wrong.append(f"{key}: finite values expected")
-        elif key != "scalars" and np.any(np.asarray(value) < 0):
-            # (scalars hold the sum of selected-arm errors, which may be negative)
-            wrong.append(f"{key}: values >= 0 expected")
-    if not wrong:
-        counts = [arrays[k] for k in ("success", "efficacy", "futility", "drop", "end",
-                                      "running")]
-        if any(np.any(c > replicates) for c in counts) or arrays["end"].sum() != replicates:
-            wrong.append(f"counts beyond the {replicates} studies")
-    return wrong
 
 
 BEST_MEMO_BITS = 18
