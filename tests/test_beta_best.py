@@ -85,7 +85,7 @@ def test_pr_best_against_exact_sums(shapes):
     # for shapes >= 1 (tests/test_allocation.py), tolerance 1e-6.
     priors = [(1.0, float(a), float(b)) for a, b in shapes]
     zeros = np.zeros(len(shapes), int)
-    np.testing.assert_allclose(probability_best(zeros, zeros, priors),
+    np.testing.assert_allclose(probability_best(zeros, zeros, priors=priors),
                                prob_best_exact(shapes), atol=1e-6)
 
 
@@ -94,5 +94,5 @@ def test_pr_best_against_exact_sums(shapes):
 def test_pr_best_two_arms_against_the_closed_form(first, second):
     # two arms: Pr(p_A > p_B) by the closed form (Evan Miller 2015; recalled from memory)
     priors = [(1.0, float(a), float(b)) for a, b in (first, second)]
-    got = probability_best(np.zeros(2, int), np.zeros(2, int), priors)
+    got = probability_best(np.zeros(2, int), np.zeros(2, int), priors=priors)
     assert got[0] == pytest.approx(miller(*first, *second), abs=1e-6)

@@ -77,7 +77,8 @@ def test_bad_input_names_the_key(change, key):
 def prob_best_beta(a, b):
     """The library's Pr(best) for Beta(a_j, b_j) posteriors (each arm's prior, no data)."""
     zeros = np.zeros(len(a), int)
-    return probability_best(zeros, zeros, [(1.0, aj, bj) for aj, bj in zip(a, b, strict=True)])
+    return probability_best(zeros, zeros,
+                            priors=[(1.0, aj, bj) for aj, bj in zip(a, b, strict=True)])
 
 
 def test_pr_best_two_arms_closed_form():

@@ -168,18 +168,21 @@ def node_rows(prior: tuple, n: int, x: np.ndarray, higher: bool = True
     return (density, worse, *spans(density, worse, weights))
 
 
-def probability_best(responses: np.ndarray, sizes: np.ndarray, prior: tuple | list,
-                     higher: bool = True) -> np.ndarray:
+def probability_best(responses: np.ndarray, sizes: np.ndarray,
+                     prior: tuple = (1.0, 1.0, 1.0), higher: bool = True,
+                     priors: list[tuple] | None = None) -> np.ndarray:
     """Posterior probability that each arm has the best response probability.
 
     Parameters
     ----------
     responses, sizes : arrays of int
         Responses and subjects per arm.
-    prior : (weights, a, b), or a list of them (one per arm)
-        Beta mixture prior shared by the arms, or each arm's own.
+    prior : (weights, a, b)
+        Beta mixture prior shared by the arms.
     higher : bool
         Whether a higher response probability is better.
+    priors : list of (weights, a, b), optional
+        Each arm's own prior instead of ``prior``.
 
     Returns
     -------
@@ -192,9 +195,9 @@ def probability_best(responses: np.ndarray, sizes: np.ndarray, prior: tuple | li
     [0.5, 0.5]
     """
     arms = len(responses)
-    priors = prior if isinstance(prior, list) else [prior] * arms
+    each = [prior] * arms if priors is None else list(priors)
     parts = [node_rows(p, int(n), np.array([x]), higher)
-             for p, x, n in zip(priors, responses, sizes, strict=True)]
+             for p, x, n in zip(each, responses, sizes, strict=True)]
     density, worse, support, reach = (np.concatenate([p[i] for p in parts])
                                       for i in range(4))
     out = np.zeros(arms)
