@@ -19,8 +19,7 @@ import pytest
 from scipy import integrate, special, stats
 
 from octrial.allocation import AllocationRule, next_allocation, probability_best
-from octrial.allocation.best import best_from_table
-from octrial.allocation.kernel import binomial_inverse
+from octrial.allocation.kernel import best_now, binomial_inverse
 from octrial.allocation.simulate import AdaptiveStudy, simulate, simulate_batch, summary
 from octrial.errors import SettingsError
 
@@ -166,7 +165,7 @@ def test_mixture_of_equal_components_is_the_component():
 def test_table_kernel_equals_direct_quadrature():
     # the kernel's tables (support cut) against probability_best, one shared prior and
     # arms with priors of their own (each arm's posterior on its own table)
-    from octrial.allocation.best import BestTables
+    from octrial.numerics.beta_best import BestTables
 
     prior = ([0.6, 0.4], [1.0, 4.0], [1.0, 2.0])
     other = (1.0, 0.5, 3.0)
@@ -177,9 +176,9 @@ def test_table_kernel_equals_direct_quadrature():
             n = rng.integers(0, 41, size=4)
             x = rng.integers(0, n + 1)
             out = np.zeros(4)
-            best_from_table(tables.density, tables.worse, tables.support, tables.reach,
-                            tables.weights, tables.which, n, x, np.ones(4, bool), 0,
-                            np.zeros(4, np.int64), out)
+            best_now(tables.density, tables.worse, tables.support, tables.reach,
+                     tables.weights, tables.which, tables.states, n, x, np.ones(4, bool),
+                     0, np.zeros(4, np.int64), np.zeros(4, bool), out)
             np.testing.assert_allclose(out, _best_mixed(x, n, priors), atol=1e-9)
 
 
@@ -499,3 +498,38 @@ def test_independent_arms_against_a_benchmark_multiply():
     none = 1 - success.any(axis=1).mean()
     product = np.prod(1 - success.mean(axis=0))
     assert abs(none - product) <= 4 * np.sqrt(product * (1 - product) / 40_000)
+
+
+BENEFIT_CASES = [
+    # (a_x, b_x, a_y, b_y): flat-prior posteriors, Jeffreys' on one side (shapes below
+    # 1 with a whole a on the other), all-or-none responses, large arms
+    (1, 1, 1, 1), (4, 17, 9, 12), (31, 90, 12, 109), (1, 300, 2, 299), (300, 1, 299, 2),
+    (1.5, 20.5, 3, 19), (0.5, 40.5, 1, 40), (151, 151, 160, 142), (1, 1000, 1, 1000),
+    (7, 2.5, 0.5, 9.5),
+]
+
+
+@pytest.mark.parametrize("ax, bx, ay, by", BENEFIT_CASES)
+def test_benefit_by_finite_sum_against_quadrature(ax, bx, ay, by):
+    # Pr(p_X > p_Y) by the finite sum (each arm's rule at the sizes reached, one-component
+    # priors, no margin) against scipy.integrate.quad of F_Y(Q_X(v)) over v (METHODS.md,
+    # two arms: the quantile substitution removes singular densities) and against the
+    # decision tables' tanh-sinh quadrature (octrial.simulation.beta_difference)
+    from octrial.allocation.decisions import QUADRATURE_TOLERANCE, beta_exceeds, nodes
+    from octrial.simulation.beta_difference import prob_difference_exceeds
+
+    got = beta_exceeds(float(ax), float(bx), float(ay), float(by))
+    reference = integrate.quad(lambda v: stats.beta.cdf(stats.beta.ppf(v, ax, bx), ay, by),
+                               0, 1, limit=400, epsabs=1e-14)[0]
+    assert got == pytest.approx(reference, abs=1e-9)
+    one = np.ones(1)
+    tanh_sinh = prob_difference_exceeds(one, np.array([ax], float), np.array([bx], float),
+                                        one, np.array([ay], float), np.array([by], float),
+                                        0.0, *nodes(), QUADRATURE_TOLERANCE)
+    assert got == pytest.approx(tanh_sinh, abs=1e-12)
+
+
+def test_benefit_by_finite_sum_needs_a_whole_shape():
+    from octrial.allocation.decisions import beta_exceeds
+
+    assert np.isnan(beta_exceeds(0.5, 3.5, 1.5, 2.5))

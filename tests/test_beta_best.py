@@ -1,4 +1,6 @@
-"""Exact Pr(best) for beta posteriors by finite sums, against outside references.
+"""Pr(best) for beta posteriors: the exact finite sums of the test reference
+(tests/references/beta_best_exact.py) against outside references, and the library's one
+Pr(best) (octrial.numerics.beta_best, graded Gauss-Legendre quadrature) against them.
 
 - The polynomial form of the beta CDF against scipy.special.betainc.
 - Two arms: the closed form of Pr(p_B > p_A) for integer shapes (Evan Miller, "Formulas for
@@ -15,7 +17,8 @@ import pytest
 from scipy import special, stats
 
 from octrial.endpoints.binary import BetaMixture, prob_difference_exceeds, update
-from octrial.numerics.beta_best import _cdf_terms, prob_best_exact, prob_best_mixture
+from octrial.numerics.beta_best import probability_best
+from tests.references.beta_best_exact import _cdf_terms, prob_best_exact, prob_best_mixture
 
 
 @pytest.mark.parametrize("a, b", [(1, 1), (3, 7), (12, 2), (20, 25)])
@@ -70,15 +73,26 @@ def test_mixture_is_weighted_sum_and_symmetric():
 
 @pytest.mark.parametrize("shapes", [[(4, 9), (6, 7), (7, 6), (3, 10)],
                                     [(31, 92), (40, 83), (35, 88)],
-                                    [(1, 1), (2, 1), (1, 2)]])
-def test_several_arm_pr_best_against_exact_sums(shapes):
-    # the Pr(best) the several-arm dropping rule uses (octrial.multiarm.best, a sum over
-    # CDF cells) against the exact rational sums. Measured errors on its default 1024
-    # cells: 9e-7 (four arms, n = 11), 1.1e-5 (n = 121), 2.4e-5 (n = 241), falling 16-fold
-    # on 4096 cells (second order in the cell width); the tolerance is set from these.
-    from octrial.multiarm.best import prob_best_beta
+                                    [(1, 1), (2, 1), (1, 2)],
+                                    [(1, 121), (2, 120), (1, 300)],
+                                    [(241, 1), (238, 4), (240, 2)]])
+def test_pr_best_against_exact_sums(shapes):
+    # the one Pr(best) of the library (octrial.numerics.beta_best: the several-arm
+    # engines, adaptive allocation and the next block at an interim look) against the
+    # exact rational sums; each arm's posterior is its prior (no data), so the shapes
+    # are passed as per-arm priors. Posteriors piled against 0 or 1 are included (the
+    # former uniform-grid sum erred there by up to 1e-2). Measured error at most 2e-7
+    # for shapes >= 1 (tests/test_allocation.py), tolerance 1e-6.
+    priors = [(1.0, float(a), float(b)) for a, b in shapes]
+    zeros = np.zeros(len(shapes), int)
+    np.testing.assert_allclose(probability_best(zeros, zeros, priors=priors),
+                               prob_best_exact(shapes), atol=1e-6)
 
-    a = np.array([s[0] for s in shapes], dtype=float)
-    b = np.array([s[1] for s in shapes], dtype=float)
-    np.testing.assert_allclose(prob_best_beta(a, b), prob_best_exact(shapes), atol=3e-5)
-    np.testing.assert_allclose(prob_best_beta(a, b, 4096), prob_best_exact(shapes), atol=2e-6)
+
+@pytest.mark.parametrize("first, second", [((3, 8), (5, 6)), ((1, 1), (9, 2)),
+                                           ((1, 200), (2, 240))])
+def test_pr_best_two_arms_against_the_closed_form(first, second):
+    # two arms: Pr(p_A > p_B) by the closed form (Evan Miller 2015; recalled from memory)
+    priors = [(1.0, float(a), float(b)) for a, b in (first, second)]
+    got = probability_best(np.zeros(2, int), np.zeros(2, int), priors=priors)
+    assert got[0] == pytest.approx(miller(*first, *second), abs=1e-6)

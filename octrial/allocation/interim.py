@@ -6,9 +6,9 @@ import numpy as np
 import pandas as pd
 from scipy.special import betaln as _betaln
 
-from octrial.allocation.best import probability_best
 from octrial.allocation.rule import AllocationRule, next_allocation
 from octrial.errors import Problem, SettingsError, show
+from octrial.numerics.beta_best import probability_best
 
 
 def next_block(rule: AllocationRule, responses: list[int], sizes: list[int],

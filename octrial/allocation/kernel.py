@@ -20,9 +20,9 @@ import math
 import numba
 import numpy as np
 
-from octrial.allocation.best import best_from_table
 from octrial.allocation.decisions import arm_benefit
 from octrial.allocation.rule import shares
+from octrial.numerics.beta_best import best_of_rows
 from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 
 
@@ -73,11 +73,23 @@ def split_rounded(block, probs, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def simulate_studies(rounded, rates, looks, control, form, power, control_share, minimum,
-                     burn_in, ratio, drop_below, density, worse, support, reach,
-                     weights, which, decide, versus_control, higher, shift, benchmark,
-                     efficacy, futility, prior_w, prior_a, prior_b, log_u, log_1mu, log_w,
-                     start, memo, uniforms, sizes, responses, allocation, dropped,
+def best_now(density, worse, support, reach, weights, which, states, n, x, active, first,
+             rows, competing, out):  # pragma: no cover - compiled
+    """Pr(best) among the active treatment arms (arms ``first..``) at counts ``n``, ``x``
+    from the tables of :class:`octrial.numerics.beta_best.BestTables`."""
+    for j in range(out.shape[0]):
+        rows[j] = which[j] * states + n[j] * (n[j] + 1) // 2 + x[j]
+        competing[j] = active[j] and j >= first
+    best_of_rows(density, worse, support, reach, weights, rows, competing, out)
+
+
+@numba.njit(cache=True)
+def simulate_studies(rounded, rates, looks, planned, shrink, control, form, power,
+                     control_share, minimum, burn_in, ratio, drop_below, keep, density,
+                     worse, support, reach, weights, which, states, decide,
+                     versus_control, higher, shift, benchmark, efficacy, futility,
+                     prior_w, prior_a, prior_b, log_u, log_1mu, log_w, start, memo,
+                     uniforms, sizes, responses, allocation, dropped,
                      outcome):  # pragma: no cover
     """Simulate ``uniforms.shape[0]`` studies (blocks split by rounding when
     ``rounded``, else randomised); write per look and arm the cumulative
@@ -86,9 +98,17 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
     j stopped enrolling (-1: never). With ``decide``, each active treatment arm meets
     its own rule at every look (:mod:`octrial.allocation.decisions`): ``outcome[r, j]``
     is 1 (efficacy, a success) or 2 (futility, or no success at the end) and
-    ``dropped[r, j]`` the look it stopped at; arms dropped for a low Pr(best) keep
-    outcome 0. The study ends when no treatment arm is left (later looks repeat the
-    sizes reached)."""
+    ``dropped[r, j]`` the look it stopped at; arms dropped for a low Pr(best) or not
+    selected keep outcome 0. The study ends when no treatment arm is left (later looks
+    repeat the sizes reached).
+
+    Block k has ``looks[k] - looks[k - 1]`` subjects, shared over the arms still
+    enrolling; with ``shrink``, only the planned subjects ``planned[k, j]`` of the arms
+    still enrolling (the several-arm engine's fixed-allocation conduct: an arm that
+    leaves takes its planned subjects with it). After look k (not the last), treatment
+    arms with Pr(best) below ``drop_below[k]`` (negative: no rule) are dropped, then at
+    most ``keep`` (0: any number) go on, the least likely to be the best leaving first
+    (ties: the later arm)."""
     studies = uniforms.shape[0]
     n_looks = looks.shape[0]
     arms = rates.shape[0]
@@ -99,7 +119,8 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
     active = np.ones(arms, np.bool_)
     probs = np.zeros(arms)
     pr_best = np.zeros(arms)
-    states = np.zeros(arms, np.int64)
+    rows = np.zeros(arms, np.int64)
+    competing = np.zeros(arms, np.bool_)
     block = np.zeros(arms, np.int64)
     for r in range(studies):
         for j in range(arms):
@@ -108,6 +129,7 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
             active[j] = True
             dropped[r, j] = -1
             outcome[r, j] = 0
+            pr_best[j] = 0.0
         ended = False
         enrolled = 0
         shares(pr_best, active, control, form, power, control_share, minimum, burn_in,
@@ -119,7 +141,13 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                     responses[r, k, j] = x[j]
                     allocation[r, k, j] = 0.0
                 continue
-            remaining = looks[k] - enrolled
+            if shrink:
+                remaining = 0
+                for j in range(arms):
+                    if active[j]:
+                        remaining += planned[k, j]
+            else:
+                remaining = looks[k] - enrolled
             rest = 1.0
             last = -1
             for j in range(arms):
@@ -128,6 +156,7 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                     last = j
             if rounded:
                 split_rounded(remaining, probs, block)
+            enrolled += remaining
             for j in range(arms):
                 if probs[j] <= 0.0:
                     continue
@@ -142,10 +171,13 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                 rest -= probs[j]
                 n[j] += m
                 x[j] += binomial_inverse(m, rates[j], uniforms[r, k, arms + j])
-            enrolled = looks[k]
             for j in range(arms):
                 sizes[r, k, j] = n[j]
                 responses[r, k, j] = x[j]
+            left = 0
+            for j in range(first, arms):
+                if active[j]:
+                    left += 1
             if decide:
                 left = 0
                 for j in range(first, arms):
@@ -162,25 +194,36 @@ def simulate_studies(rounded, rates, looks, control, form, power, control_share,
                         outcome[r, j] = 1 if code == EFFICACY else 2
                     else:
                         left += 1
-                if left == 0:
-                    ended = True
-                    continue
+            if left == 0:
+                ended = True
+                continue
             if k == n_looks - 1:
                 break
             adaptive = form != 0 and enrolled >= burn_in
-            if adaptive or drop_below > 0:
-                best_from_table(density, worse, support, reach, weights, which, n, x,
-                                active, first, states, pr_best)
-                if drop_below > 0:
-                    gone = 0
+            if adaptive or drop_below[k] > 0 or (keep > 0 and left > keep):
+                best_now(density, worse, support, reach, weights, which, states, n, x,
+                         active, first, rows, competing, pr_best)
+                gone = 0
+                if drop_below[k] > 0:
                     for j in range(first, arms):
-                        if active[j] and pr_best[j] < drop_below:
+                        if active[j] and pr_best[j] < drop_below[k]:
                             active[j] = False
                             dropped[r, j] = k
                             gone += 1
-                    # Pr(best) among the arms left, for the allocation
-                    if gone > 0 and adaptive:
-                        best_from_table(density, worse, support, reach, weights,
-                                        which, n, x, active, first, states, pr_best)
+                while keep > 0 and left - gone > keep:
+                    worst = -1
+                    for j in range(first, arms):
+                        if active[j] and (worst < 0 or pr_best[j] <= pr_best[worst]):
+                            worst = j
+                    active[worst] = False
+                    dropped[r, worst] = k
+                    gone += 1
+                if left - gone == 0:
+                    ended = True
+                    continue
+                # Pr(best) among the arms left, for the allocation
+                if gone > 0 and adaptive:
+                    best_now(density, worse, support, reach, weights, which, states, n,
+                             x, active, first, rows, competing, pr_best)
             shares(pr_best, active, control, form, power, control_share, minimum,
                    burn_in, ratio, enrolled, maximum, probs)

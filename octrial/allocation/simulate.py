@@ -14,13 +14,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from octrial.allocation.best import BestTables, quadrature_nodes
 from octrial.allocation.decisions import ArmRule, new_memo, padded_priors
 from octrial.allocation.decisions import nodes as decision_nodes
 from octrial.allocation.kernel import simulate_studies
 from octrial.allocation.rule import AllocationRule
 from octrial.errors import Problem, SettingsError, show
 from octrial.execution import Execution, run_grid
+from octrial.numerics.beta_best import BestTables
 
 ASSIGNMENTS = ("randomised", "rounded")
 TABLE_LIMIT = 2**30
@@ -54,6 +54,17 @@ class AdaptiveStudy:
         How a block is split over the arms: complete randomisation (a multinomial draw
         with the allocation probabilities) or deterministically (the block times the
         probabilities, rounded by the largest-remainder method).
+    drop_by_look : tuple of (float or None), optional
+        The several-arm form of ``drop_below``: a threshold per look (None: no rule at
+        that look), any value in [0, 1) (every arm may go, ending the study);
+        overrides ``drop_below``.
+    keep : int
+        At most this many treatment arms go on after an interim look, the most likely
+        to be the best (0: no limit).
+    planned : tuple of tuple of int, optional
+        Planned subjects per look and arm (control first): each block is then the
+        planned subjects of the arms still enrolling (an arm that leaves takes its
+        subjects with it), instead of ``looks[k] - looks[k - 1]``.
     """
 
     looks: tuple[int, ...]
@@ -65,6 +76,9 @@ class AdaptiveStudy:
     drop_below: float = 0.0
     assignment: str = "randomised"
     arm_rule: ArmRule | None = None
+    drop_by_look: tuple[float | None, ...] | None = None
+    keep: int = 0
+    planned: tuple[tuple[int, ...], ...] | None = None
 
     def check(self, arms: int) -> None:
         """Raise :class:`~octrial.errors.SettingsError` naming every problem."""
@@ -80,7 +94,12 @@ class AdaptiveStudy:
             found.append(Problem("looks", "blocks of at most 1000 subjects",
                                  show(list(self.looks))))
         treatments = arms - int(self.control)
-        if not 0 <= self.drop_below < 1 / max(treatments, 1):
+        if self.drop_by_look is not None:
+            if len(self.drop_by_look) != looks.size or not all(
+                    v is None or 0 <= v < 1 for v in self.drop_by_look):
+                found.append(Problem("drop_by_look", f"{looks.size} numbers in [0, 1) "
+                                     "or None (one per look)", show(self.drop_by_look)))
+        elif not 0 <= self.drop_below < 1 / max(treatments, 1):
             found.append(Problem("drop_below", f"a number in [0, 1/{treatments}) (below "
                                  "1/arms, so that the leading arm never drops)",
                                  show(self.drop_below)))
@@ -100,6 +119,14 @@ class AdaptiveStudy:
                                      str(rule.versus_control)))
             if rule.higher != self.higher:
                 found.append(Problem("arm_rule.higher", str(self.higher), str(rule.higher)))
+        if not 0 <= self.keep <= treatments:
+            found.append(Problem("keep", f"a whole number from 0 to {treatments}",
+                                 show(self.keep)))
+        if self.planned is not None and (
+                len(self.planned) != looks.size
+                or any(len(row) != arms or min(row) < 0 for row in self.planned)):
+            found.append(Problem("planned", f"{looks.size} rows of {arms} whole numbers "
+                                 ">= 0 (subjects per look and arm)", show(self.planned)))
         if self.assignment not in ASSIGNMENTS:
             found.append(Problem("assignment", "one of " + ", ".join(ASSIGNMENTS),
                                  show(self.assignment)))
@@ -110,9 +137,23 @@ class AdaptiveStudy:
         """Memory of the Pr(best) tables: per distinct prior, density and 'worse than'
         on every node for every state up to the last interim look."""
         largest = self.looks[-2] if len(self.looks) > 1 else 0
-        states = (largest + 1) * (largest + 2) // 2
         priors = 1 if self.arm_priors is None else len({repr(p) for p in self.arm_priors})
-        return priors * states * (2 * quadrature_nodes()[0].size + 4) * 8
+        return BestTables.nbytes(priors, largest)
+
+    def drop_thresholds(self) -> np.ndarray:
+        """Per look the Pr(best) below which an arm is dropped (-1: no rule)."""
+        count = len(self.looks)
+        if self.drop_by_look is not None:
+            return np.array([-1.0 if v is None else float(v) for v in self.drop_by_look])
+        out = np.full(count, float(self.drop_below) if self.drop_below > 0 else -1.0)
+        out[-1] = -1.0
+        return out
+
+    def block_plan(self, arms: int) -> tuple[np.ndarray, bool]:
+        """Planned subjects per look and arm, and whether blocks follow them."""
+        if self.planned is None:
+            return np.zeros((len(self.looks), arms), np.int64), False
+        return np.array(self.planned, np.int64), True
 
     def tables(self, arms: int) -> BestTables:
         """The Pr(best) tables up to the last interim look's size."""
@@ -163,9 +204,10 @@ def simulate_batch(study: AdaptiveStudy, rates: np.ndarray, studies: int, seed: 
     form, power, control_share, minimum, burn_in, ratio = study.rule.codes(
         arms - int(study.control), study.control)
     simulate_studies(  # type: ignore[call-arg]
-        study.assignment == "rounded", rates, looks, study.control, form, power,
-        control_share, minimum, burn_in, ratio, float(study.drop_below), table.density,
-        table.worse, table.support, table.reach, table.weights, table.which,
+        study.assignment == "rounded", rates, looks, *study.block_plan(arms),
+        study.control, form, power, control_share, minimum, burn_in, ratio,
+        study.drop_thresholds(), int(study.keep), table.density, table.worse,
+        table.support, table.reach, table.weights, table.which, table.states,
         rule is not None, study.control, study.higher,
         0.0 if rule is None else float(rule.shift),
         np.nan if rule is None else float(rule.benchmark), *thresholds,

@@ -25,7 +25,6 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from octrial.multiarm.best import best_probabilities
 from octrial.multiarm.kernel import CONTINUE, EFFICACY, FUTILITY
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
@@ -184,13 +183,12 @@ def _dropped_codes(tables: MultiArmTables, k: int, left: list[int],
     codes = np.zeros(sizes, dtype=np.int64)
     active = np.zeros(T, dtype=np.bool_)
     active[left] = True
-    cdfs = np.zeros((T, tables.cdf.shape[3]))
-    probs = np.zeros(T)
+    responses = np.zeros(T, dtype=np.int64)
     threshold = tables.drop_below[k]
     for point in itertools.product(*(range(s) for s in sizes)):
         for t, x in zip(left, point, strict=True):
-            cdfs[t] = tables.cdf[t, k, x]
-        best_probabilities(cdfs, active, probs)
+            responses[t] = x
+        probs = tables.best(k, responses, active)
         still = active.copy()
         code = 0
         if threshold >= 0:

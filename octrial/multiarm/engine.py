@@ -1,10 +1,15 @@
-"""Operating characteristics of a several-arm design by simulation.
+"""Operating characteristics of a several-arm design by simulation, fixed or
+response-adaptive allocation, in one table.
 
-One seed in: scenario i's batch b of :data:`BATCH` studies uses the Monte Carlo
-engine's generator (:func:`octrial.engines.monte_carlo.batch_generator`), so how the
-work is split never changes a number, and a design with one treatment arm draws the
-very words the two-arm engine draws. The table this returns has the study-level
-columns of oc.csv and, per treatment arm ``<arm>``, columns named ``<arm>_<quantity>``
+Fixed allocation runs the decision-table kernel (:mod:`octrial.multiarm.kernel`);
+adaptive allocation the study loop of :mod:`octrial.allocation` (each arm's own rule at
+the sizes reached; :mod:`octrial.multiarm.adaptive`). Both add up the same tallies, so
+the columns are the same. One seed in: scenario i's batch b of :data:`BATCH` studies
+has its own generator (for fixed allocation the Monte Carlo engine's,
+:func:`octrial.engines.monte_carlo.batch_generator`), so how the work is split (``--jobs``,
+the backend) never changes a number, and a design with one treatment arm and fixed
+allocation draws the very words the two-arm engine draws. The table this returns has the
+study-level columns of oc.csv and, per arm ``<arm>``, columns named ``<arm>_<quantity>``
 (docs/multi-arm.md):
 
 - ``<arm>_is_null``: the arm's true value does not beat the control (benchmark) by the
@@ -14,7 +19,11 @@ columns of oc.csv and, per treatment arm ``<arm>``, columns named ``<arm>_<quant
 - ``<arm>_expected_n``: expected subjects in the arm (``control_expected_n`` too);
 - ``<arm>_look<k>_stop_efficacy``, ``<arm>_look<k>_stop_futility``,
   ``<arm>_look<k>_drop``: the arm leaves the study at look k by its own rule, or is
-  dropped there for a low probability of being the best (or not being selected).
+  dropped there for a low probability of being the best (or not being selected);
+- ``<arm>_block<k>_share`` (every arm, the control too): mean allocation probability of
+  block k (block 1: the subjects before look 1) over the studies that enrol that block;
+- ``<arm>_look<k>_n`` (every arm): mean cumulative subjects of the arm at look k (a study
+  that ended earlier counts with the subjects it reached).
 
 Study level: ``prob_success`` (at least one arm succeeds) and its SE, ``fwer`` and
 ``fwer_se`` (at least one null arm succeeds), ``prob_select_best`` (the selected arm,
@@ -27,13 +36,20 @@ success), ``expected_n``, ``sd_n``.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import Any
+
 import numpy as np
 import pandas as pd
 
+from octrial._version import __version__
 from octrial.engines.monte_carlo import batch_generator
+from octrial.execution import Execution, run_grid
+from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sums
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
+from octrial.multiarm.tallies import tally_problems
 from octrial.simulation.draws import DrawTables
 
 BATCH = 50_000
@@ -63,22 +79,61 @@ def truly_best(design: MultiArmDesign, row: tuple[float, ...]) -> np.ndarray:
 
 def simulate_design(design: MultiArmDesign, replicates: int | None = None,
                     seed: int | None = None, tables: MultiArmTables | None = None,
+                    execution: Execution | None = None, planned_blocks: bool = False,
                     ) -> pd.DataFrame:
     """Simulate every scenario of ``design``: one row per scenario (see module
-    docstring for the columns)."""
+    docstring for the columns), for fixed and response-adaptive allocation.
+
+    Parameters
+    ----------
+    replicates, seed : int, optional
+        Default: the design's ``[simulation]`` values.
+    tables : MultiArmTables, optional
+        Fixed allocation: the decision tables, when already built.
+    execution : Execution, optional
+        How to spread the scenarios over workers (never changes a number), and where
+        to keep finished scenarios (``checkpoints``) so that an interrupted run resumes
+        without simulating them again.
+    planned_blocks : bool
+        Run a fixed-allocation design through the adaptive study loop, each arm
+        enrolling its planned subjects (a check of the two engines against each other);
+        adaptive designs always go there, enrolling ``looks.n`` in all.
+
+    Raises
+    ------
+    SettingsError
+        For what adaptive allocation does not support, naming the design-file key.
+    """
     replicates = design.simulation.replicates if replicates is None else replicates
     seed = design.simulation.seed if seed is None else seed
     if seed is None:
         raise ValueError("several-arm simulation needs a seed (simulation.seed)")
-    if design.allocation.adaptive:
-        raise NotImplementedError("response-adaptive allocation is simulated by "
-                                  "octrial.allocation, not yet through this engine")
-    tables = build_tables(design) if tables is None else tables
-    rows = [_scenario(design, tables, row, replicates, seed, i)
-            for i, row in enumerate(design.scenarios.values)]
-    for i, r in enumerate(rows):
+    execution = Execution() if execution is None else execution
+    rows = list(design.scenarios.values)
+    adaptive = design.allocation.adaptive or planned_blocks
+    store = execution.store({
+        "design_sha256": design.source.sha256, "design": repr(design),
+        "engine": "several-arm monte-carlo", "loop": "adaptive" if adaptive else "fixed",
+        "planned_blocks": planned_blocks, "replicates": replicates, "seed": seed,
+        "batch": BATCH, "octrial": __version__})
+    if adaptive:
+        study = adaptive_study(design, planned_blocks)
+        adaptive_tasks = [
+            AdaptiveTask(study, tuple(map(float, row)),
+                         tuple(map(bool, arm_nulls(design, row))),
+                         tuple(map(bool, truly_best(design, row))), replicates, seed, i,
+                         BATCH, design.source.sha256) for i, row in enumerate(rows)]
+        results, _ = run_grid(scenario_sums, adaptive_tasks, execution, store)
+    else:
+        tables = build_tables(design) if tables is None else tables
+        fixed_tasks = [FixedTask(design, tables, tuple(row), replicates, seed, i)
+                       for i, row in enumerate(rows)]
+        results, _ = run_grid(fixed_sums, fixed_tasks, execution, store)
+    out = [columns(design, row, sums, replicates) for row, sums in zip(rows, results,
+                                                                       strict=True)]
+    for i, r in enumerate(out):
         r["scenario"] = i + 1
-    return pd.DataFrame(rows)
+    return pd.DataFrame(out)
 
 
 def _increment_pmfs(design: MultiArmDesign, truth: np.ndarray, increments: np.ndarray,
@@ -98,8 +153,46 @@ def _increment_pmfs(design: MultiArmDesign, truth: np.ndarray, increments: np.nd
     return pmfs
 
 
-def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, ...],
-              replicates: int, seed: int, index: int) -> dict[str, object]:
+@dataclass(frozen=True)
+class FixedTask:
+    """One scenario with fixed allocation (picklable for the workers)."""
+
+    design: MultiArmDesign
+    tables: MultiArmTables
+    row: tuple[float, ...]
+    replicates: int
+    seed: int
+    index: int
+
+    def identity(self) -> dict[str, Any]:
+        """What this scenario's checkpoint records."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
+                "scenario": self.index, "batch": "all", "kernel": "several-arm fixed"}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this scenario's saved tallies."""
+        T, K = self.tables.decision.shape[:2]
+        return tally_problems(arrays, T, K, self.tables.increments.shape[1],
+                              self.replicates)
+
+
+BEST_MEMO_BITS = 18
+"""The fixed-allocation kernel memoises up to 0.7 x 2^18 Pr(best) vectors per scenario."""
+
+
+def best_memo(tables: MultiArmTables) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """An empty memo of Pr(best) for the kernel (keys, values, count); empty arrays
+    when no rule needs Pr(best) or when the keys could overflow 63 bits."""
+    T, K, X = tables.mean.shape
+    fits = K * float(X + 1) ** T < 2.0**62
+    size = 1 << BEST_MEMO_BITS if tables.needs_best and fits else 0
+    return (np.full(size, -1, np.int64), np.zeros((size, T)), np.zeros(1, np.int64))
+
+
+def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
+    """The tallies of one scenario with fixed allocation (the keys of
+    :func:`octrial.multiarm.adaptive.batch_sums`; arms in design order)."""
+    design, tables, row = task.design, task.tables, task.row
     T, K = tables.decision.shape[:2]
     A = tables.increments.shape[1]
     success = np.zeros(T, np.int64)
@@ -109,6 +202,9 @@ def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, 
     n_slot = np.zeros(A, np.int64)
     scalars = np.zeros(7)
     end = np.zeros((2, K), np.int64)
+    share = np.zeros((K, A))
+    running = np.zeros(K, np.int64)
+    look_n = np.zeros((K, A), np.int64)
     nulls = arm_nulls(design, row)
     best = truly_best(design, row)
     sign = 1 if design.hypothesis.better == "higher" else -1
@@ -118,14 +214,28 @@ def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, 
     increments = np.ascontiguousarray(tables.increments[:, order])
     sizes = np.ascontiguousarray(tables.sizes[:, order])
     draws = DrawTables.from_pmfs(_increment_pmfs(design, truth, increments, sizes))
-    for b in range(-(-replicates // BATCH)):
-        reps = min(BATCH, replicates - b * BATCH)
-        rng = batch_generator(seed, index, b)
+    memo = best_memo(tables)
+    for b in range(-(-task.replicates // BATCH)):
+        reps = min(BATCH, task.replicates - b * BATCH)
+        rng = batch_generator(task.seed, task.index, b)
         words = rng.bit_generator.random_raw(reps * K * A).reshape(reps, K, A)
-        simulate(words, truth, increments, sizes, tables.decision, tables.mean, tables.cdf,
-                 tables.drop_below, tables.keep, tables.control, sign, nulls, best,
-                 success, eff, fut, drop, n_slot, scalars, end, *draws.arrays())
-    n_arm = n_slot[np.argsort(order)]
+        simulate(words, truth, increments, sizes, tables.decision, tables.mean,
+                 tables.density, tables.worse, tables.support, tables.reach,
+                 tables.weights, tables.drop_below, tables.keep, tables.control, sign,
+                 nulls, best, success, eff, fut, drop, n_slot, scalars, end, share,
+                 running, look_n, *memo, *draws.arrays())
+    back = np.argsort(order)
+    return {"success": success, "efficacy": eff, "futility": fut, "drop": drop,
+            "n_arm": n_slot[back], "scalars": scalars, "end": end,
+            "share": share[:, back], "running": running, "look_n": look_n[:, back]}
+
+
+def columns(design: MultiArmDesign, row: tuple[float, ...], sums: dict[str, np.ndarray],
+            replicates: int) -> dict[str, object]:
+    """One row of the table from a scenario's tallies (fixed or adaptive)."""
+    K = design.looks.count
+    scalars, end = sums["scalars"], sums["end"]
+    nulls = arm_nulls(design, row)
     r = float(replicates)
     out: dict[str, object] = {"scenario": None}
     for name, value in zip(design.arm_names, row, strict=True):
@@ -149,18 +259,26 @@ def _scenario(design: MultiArmDesign, tables: MultiArmTables, row: tuple[float, 
         out[f"look{k + 1}_stop_efficacy"] = end[0, k] / r
         out[f"look{k + 1}_stop_futility"] = end[1, k] / r
     offset = 1 if design.shared_control else 0
+    n_arm = sums["n_arm"]
     if design.shared_control:
         out["control_expected_n"] = n_arm[0] / r
     for t, name in enumerate(design.treatment_names):
-        p = success[t] / r
+        p = sums["success"][t] / r
         out[f"{name}_is_null"] = bool(nulls[t])
         out[f"{name}_prob_success"] = p
         out[f"{name}_prob_success_se"] = float(np.sqrt(p * (1 - p) / r))
         out[f"{name}_expected_n"] = n_arm[offset + t] / r
         for k in range(K):
-            out[f"{name}_look{k + 1}_stop_efficacy"] = eff[t, k] / r
-            out[f"{name}_look{k + 1}_stop_futility"] = fut[t, k] / r
-            out[f"{name}_look{k + 1}_drop"] = drop[t, k] / r
+            out[f"{name}_look{k + 1}_stop_efficacy"] = sums["efficacy"][t, k] / r
+            out[f"{name}_look{k + 1}_stop_futility"] = sums["futility"][t, k] / r
+            out[f"{name}_look{k + 1}_drop"] = sums["drop"][t, k] / r
+    for a, name in enumerate(design.arm_names):
+        for k in range(K):
+            running = float(sums["running"][k])
+            out[f"{name}_block{k + 1}_share"] = (sums["share"][k, a] / running
+                                                 if running > 0 else float("nan"))
+        for k in range(K):
+            out[f"{name}_look{k + 1}_n"] = sums["look_n"][k, a] / r
     out["method"] = "monte-carlo"
     out["replicates"] = replicates
     return out

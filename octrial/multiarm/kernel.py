@@ -13,7 +13,8 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from octrial.multiarm.best import best_probabilities
+from octrial.allocation.decisions import first_slot
+from octrial.numerics.beta_best import best_of_rows
 from octrial.simulation.draws import draw
 
 CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
@@ -24,9 +25,11 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 
 
 @numba.njit(cache=True)
-def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, keep,
-             control, sign, is_null, is_best, out_success, out_eff, out_fut, out_drop, out_n,
-             out_scalars, out_end, bounds, t_start, t_length, guide, guide_start, shift):
+def simulate(words, truth, increments, sizes, decision, mean, density, worse, support,
+             reach, weights, drop_below, keep, control, sign, is_null, is_best, out_success,
+             out_eff, out_fut, out_drop, out_n, out_scalars, out_end, out_share,
+             out_running, out_look_n, memo_keys, memo_values, memo_held, bounds,
+             t_start, t_length, guide, guide_start, shift):
     """Simulate ``len(words)`` studies at true rates ``truth``.
 
     Arms are in slot order: the treatment arms, then the control (when there is one),
@@ -42,25 +45,44 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
     [total n, total n squared, any success, any null arm succeeds, studies with a
     selected arm, selected arm truly best, sum of selected estimate - truth]. The
     selected arm is the successful arm with the best posterior mean at its decision
-    (``sign`` +1: highest, -1: lowest).
+    (``sign`` +1: highest, -1: lowest). Allocation over time: ``out_share[k, a]`` sums
+    arm a's share of block k (its planned subjects over those of every arm enrolling
+    the block) over the ``out_running[k]`` studies that enrol block k, and
+    ``out_look_n[k, a]`` the arm's cumulative subjects at look k (carried forward after
+    the study ends). Pr(best) reads rows ``(t K + k) X + x`` of ``density``, ``worse``
+    (:mod:`octrial.numerics.beta_best`); its values are memoised by the look, the arms
+    still in and their counts in the hash table ``memo_keys`` / ``memo_values`` (empty:
+    no memo), which only saves work.
     """
     reps = words.shape[0]
     K, A = increments.shape
     T = decision.shape[0]
-    needs_best = cdf.shape[0] > 0
+    X = mean.shape[2]
+    needs_best = density.shape[0] > 0
     x = np.zeros(A, np.int64)
+    n_arm = np.zeros(A, np.int64)
     active = np.zeros(T, np.bool_)
     success = np.zeros(T, np.bool_)
     estimate = np.zeros(T)
     probs = np.zeros(T)
-    cdfs = np.zeros((T, cdf.shape[3] if needs_best else 1))
+    rows = np.zeros(T, np.int64)
     for r in range(reps):
         x[:] = 0
+        n_arm[:] = 0
         active[:] = True
         success[:] = False
         n_total = 0
         end = K - 1
         for k in range(K):
+            block = 0
+            for a in range(A):
+                if a >= T or active[a]:
+                    block += increments[k, a]
+            if block > 0:
+                out_running[k] += 1
+                for a in range(A):
+                    if a >= T or active[a]:
+                        out_share[k, a] += increments[k, a] / block
             for a in range(A):
                 y = draw(words[r, k, a], k * A + a, bounds, t_start, t_length, guide,
                          guide_start, shift)
@@ -71,7 +93,10 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                     # beyond a truncated lattice: held at its edge (two-arm kernel)
                     x[a] = sizes[k, a] - 1
                 n_total += increments[k, a]
+                n_arm[a] += increments[k, a]
                 out_n[a] += increments[k, a]
+            for a in range(A):
+                out_look_n[k, a] += n_arm[a]
             c = x[T] if control else 0
             left = 0
             for t in range(T):
@@ -89,10 +114,8 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                 else:
                     left += 1
             if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
-                for t in range(T):
-                    if active[t]:
-                        cdfs[t, :] = cdf[t, k, x[t], :]
-                best_probabilities(cdfs, active, probs)
+                best_memoised(density, worse, support, reach, weights, K, X, k, x, active,
+                              rows, memo_keys, memo_values, memo_held, probs)
                 if drop_below[k] >= 0:
                     for t in range(T):
                         if active[t] and probs[t] < drop_below[k]:
@@ -110,6 +133,9 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
                     left -= 1
             if left == 0:
                 end = k
+                for later in range(k + 1, K):
+                    for a in range(A):
+                        out_look_n[later, a] += n_arm[a]
                 break
         any_success = False
         null_success = False
@@ -136,3 +162,35 @@ def simulate(words, truth, increments, sizes, decision, mean, cdf, drop_below, k
             if is_best[chosen]:
                 out_scalars[5] += 1
             out_scalars[6] += estimate[chosen] - truth[chosen]
+
+
+
+@numba.njit(cache=True)
+def best_memoised(density, worse, support, reach, weights, K, X, k, x, active, rows,
+                  memo_keys, memo_values, memo_held, probs):  # pragma: no cover - compiled
+    """Pr(best) of the active treatment arms at look ``k`` (row ``(t K + k) X + x[t]``
+    of the tables), memoised: the key is the look and, per arm, 0 when it has left or
+    1 + its count, in radix X + 1 (the caller leaves the memo empty when such keys could
+    overflow)."""
+    T = probs.shape[0]
+    size = memo_keys.shape[0]
+    slot = -1
+    key = k
+    if size > 0:
+        for t in range(T):
+            key = key * (X + 1) + (x[t] + 1 if active[t] else 0)
+        slot = first_slot(key, size)
+        while memo_keys[slot] != -1:
+            if memo_keys[slot] == key:
+                for t in range(T):
+                    probs[t] = memo_values[slot, t]
+                return
+            slot = (slot + 1) & (size - 1)
+    for t in range(T):
+        rows[t] = (t * K + k) * X + x[t]
+    best_of_rows(density, worse, support, reach, weights, rows, active, probs)
+    if size > 0 and memo_held[0] < 0.7 * size:
+        memo_keys[slot] = key
+        for t in range(T):
+            memo_values[slot, t] = probs[t]
+        memo_held[0] += 1

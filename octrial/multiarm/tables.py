@@ -3,9 +3,10 @@ families: binary and count).
 
 Each treatment arm's decision at each look is its own design's lattice table
 (:func:`octrial.rules.lattice.build_rule` on :attr:`MultiArmDesign.pairs`), so a design
-with one treatment arm decides exactly as the two-arm design does. Posterior means and
-the posterior CDF of each treatment arm on a fixed grid (for the probability of being the
-best, :mod:`octrial.multiarm.best`) are tabulated per look and per count.
+with one treatment arm decides exactly as the two-arm design does. Posterior means, and
+each treatment arm's posterior density and 'worse than u' probability on the quadrature
+nodes of :mod:`octrial.numerics.beta_best` (for the probability of being the best), are
+tabulated per look and per count.
 """
 
 from __future__ import annotations
@@ -13,18 +14,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special
 
 from octrial.endpoints.binary import BetaMixture, BinaryEndpoint
 from octrial.multiarm.model import MultiArmDesign
+from octrial.numerics.beta_best import best_of_rows, mixture_on_nodes, quadrature_nodes, spans
 from octrial.rules.lattice import build_rule
 
 CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
-
-BEST_GRID = 1024
-"""Cells of the [0, 1] grid on which Pr(best) is summed (a Stieltjes trapezoid sum over
-the posterior CDFs; error O(1/BEST_GRID^2) for smooth posteriors, checked against an
-independent scipy Monte Carlo in tests/test_multiarm.py)."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -44,10 +40,15 @@ class MultiArmTables:
         control).
     mean : ndarray, shape (T, K, X)
         Posterior mean of treatment arm ``t``'s rate at look ``k`` after ``x`` responses.
-    cdf : ndarray, shape (T, K, X, G + 1)
-        Posterior CDF of the arm's rate on the grid ``i / G`` (of ``1 - rate`` when
-        lower is better, so 'best' is always 'largest'); empty when no rule needs
-        Pr(best).
+    density, worse : ndarray, shape (T x K x X, G)
+        Rows of :func:`octrial.numerics.beta_best.best_of_rows`: treatment arm ``t``'s
+        posterior at look ``k`` after ``x`` responses is row ``(t K + k) X + x`` (its
+        density and 'worse than u' probability on the G quadrature nodes); empty when no
+        rule needs Pr(best).
+    support, reach : ndarray, shape (T x K x X, 2)
+        The rows' spans (:func:`octrial.numerics.beta_best.spans`).
+    weights : ndarray, shape (G,)
+        Quadrature weights.
     drop_below : ndarray, shape (K,)
         Per look, the Pr(best) threshold under which an arm is dropped (-1: none).
     keep : int
@@ -60,7 +61,11 @@ class MultiArmTables:
     sizes: np.ndarray
     decision: np.ndarray
     mean: np.ndarray
-    cdf: np.ndarray
+    density: np.ndarray
+    worse: np.ndarray
+    support: np.ndarray
+    reach: np.ndarray
+    weights: np.ndarray
     drop_below: np.ndarray
     keep: int
     control: bool
@@ -70,9 +75,19 @@ class MultiArmTables:
         """Whether any rule needs the probability of being the best."""
         return bool(np.any(self.drop_below >= 0) or self.keep > 0)
 
+    def best(self, k: int, responses: np.ndarray, active: np.ndarray) -> np.ndarray:
+        """Pr(best) of each active treatment arm at look ``k`` with ``responses[t]`` in
+        arm ``t`` (0 for the others)."""
+        T, K, X = self.mean.shape
+        rows = (np.arange(T) * K + k) * X + np.asarray(responses, np.int64)
+        out = np.zeros(T)
+        best_of_rows(self.density, self.worse, self.support, self.reach, self.weights,
+                     rows, np.asarray(active, np.bool_), out)
+        return out
 
-def build_tables(design: MultiArmDesign, grid: int = BEST_GRID) -> MultiArmTables:
-    """Tabulate ``design``'s per-arm rules, posterior means and posterior CDFs.
+
+def build_tables(design: MultiArmDesign) -> MultiArmTables:
+    """Tabulate ``design``'s per-arm rules, posterior means and posteriors on the nodes.
 
     Raises
     ------
@@ -109,9 +124,11 @@ def build_tables(design: MultiArmDesign, grid: int = BEST_GRID) -> MultiArmTable
     if needs_best and not binary:
         raise NotImplementedError("dropping by Pr(best) and selection cover binary "
                                   "endpoints with beta or beta-mixture priors so far")
-    cdf = np.zeros((T, K, x_max, grid + 1) if needs_best else (0, 0, 0, 0))
-    nodes = np.linspace(0.0, 1.0, grid + 1)
-    lower = design.hypothesis.better == "lower"
+    nodes, weights = quadrature_nodes()
+    rows = T * K * x_max if needs_best else 0
+    density = np.zeros((rows, nodes.size))
+    worse = np.ones((rows, nodes.size))
+    higher = design.hypothesis.better == "higher"
     for t, (pair, rule) in enumerate(zip(design.pairs, rules, strict=True)):
         for k, table in enumerate(rule.looks):
             codes = np.full(table.shape, CONTINUE, dtype=np.int8)
@@ -125,17 +142,9 @@ def build_tables(design: MultiArmDesign, grid: int = BEST_GRID) -> MultiArmTable
             post = family.posterior(pair, 0, n, np.arange(points))
             mean[t, k, :points] = post.mean()
             if needs_best:
-                cdf[t, k, :points] = _cdf_on_grid(post, nodes, lower)
-    return MultiArmTables(increments, sizes, decision, mean, cdf, drop, keep,
-                          design.shared_control)
-
-
-def _cdf_on_grid(post, nodes: np.ndarray, lower: bool) -> np.ndarray:
-    """Posterior CDF at ``nodes`` per count; of 1 - rate when lower is better."""
-    out = np.zeros((len(post), nodes.size))
-    for c in range(post.weights.shape[1]):
-        w, a, b = (v[:, c, None] for v in (post.weights, post.a, post.b))
-        # Pr(1 - p <= u) = Pr(p >= 1 - u) = I_u(b, a)
-        out += w * (special.betainc(b, a, nodes[None, :]) if lower
-                    else special.betainc(a, b, nodes[None, :]))
-    return out
+                first = (t * K + k) * x_max
+                density[first:first + points], worse[first:first + points] = (
+                    mixture_on_nodes(post.weights, post.a, post.b, nodes, higher))
+    support, reach = spans(density, worse, weights)
+    return MultiArmTables(increments, sizes, decision, mean, density, worse, support,
+                          reach, weights, drop, keep, design.shared_control)

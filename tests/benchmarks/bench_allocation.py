@@ -13,9 +13,12 @@ Compared in one run, on one core (rates per CPU second of this process):
 * (b) vectorised: numpy for all studies of a batch at once: multinomial draws with
   per-study probabilities and Pr(best) from the same node table as the kernel,
   gathered into (studies x arms x nodes) arrays;
-* octrial's kernel (:func:`simulate_batch`, uniforms included); then, octrial only,
-  with each arm's own efficacy / futility rule against the control at the sizes
-  reached (three batches, while the memo of posterior probabilities fills).
+* octrial's kernel (:func:`simulate_batch`, uniforms included); then with each arm's
+  own efficacy / futility rule against the control at the sizes reached (as every
+  several-arm design has: Pr(p_t > p_c) by the exact finite sum), against a naive loop
+  that adds the same rule with ``scipy.integrate.quad``; and the several-arm engine end to
+  end (:func:`octrial.multiarm.engine.simulate_design` on the same design written as a
+  design file: seeding, tallies, the table).
 
 Target (issue 16): >= 200,000 adaptive studies per second per core (>= 1,000,000 with
 fixed allocation is the several-arm engine's target, measured in its own benchmark).
@@ -27,10 +30,14 @@ from __future__ import annotations
 import time
 
 import numpy as np
+from scipy import integrate, stats
 
 from octrial.allocation import AllocationRule, next_allocation, probability_best
 from octrial.allocation.decisions import ArmRule, new_memo
 from octrial.allocation.simulate import AdaptiveStudy, simulate_batch
+from octrial.design.model import Source
+from octrial.multiarm import parse_multiarm
+from octrial.multiarm.engine import simulate_design
 
 LOOKS = (60, 120, 180)
 RATES = np.array([0.2, 0.25, 0.35, 0.45])
@@ -86,10 +93,10 @@ def vectorised(study: AdaptiveStudy, studies: int, seed: int) -> np.ndarray:
         state = n * (n + 1) // 2 + x
         best = np.zeros((studies, arms))
         for _ in range(2):   # before and after dropping
-            worse = np.where(active[:, 1:, None], table.worse[0][state[:, 1:]], 1.0)
+            worse = np.where(active[:, 1:, None], table.worse[state[:, 1:]], 1.0)
             prod_all = np.prod(worse, axis=1, keepdims=True)
             others = prod_all / np.where(worse > 0, worse, 1.0)
-            dens = table.density[0][state[:, 1:]] * table.weights
+            dens = table.density[state[:, 1:]] * table.weights
             best[:, 1:] = np.where(active[:, 1:], np.sum(dens * others, axis=2), 0.0)
             active[:, 1:] &= best[:, 1:] >= study.drop_below
         c = enrolled / (2 * LOOKS[-1])
@@ -139,16 +146,88 @@ def main() -> None:
         print("  expected n per arm: naive", s_naive.mean(axis=0).round(1),
               " vectorised", s_vec.mean(axis=0).round(1),
               " octrial", np.concatenate(sizes).mean(axis=0).round(1))
-    # octrial only: each arm's own rule against the control at the sizes reached
-    # (Pr(p_t > p_c) by tanh-sinh quadrature, memoised by the counts)
+    # each arm's own rule against the control at the sizes reached
     decided = AdaptiveStudy(LOOKS, RULES["adaptive"], drop_below=0.05,
-                            arm_rule=ArmRule((0.999, 0.99, 0.975), (0.05, 0.1, np.nan)))
+                            arm_rule=ArmRule(EFFICACY, FUTILITY))
     table, memo = decided.tables(RATES.size), new_memo()
     simulate_batch(decided, RATES, 10, 1, 0, 0, table, memo)
-    for b in range(3):
-        t, _ = rate(simulate_batch, decided, RATES, 50_000, 3, 0, b, table, memo)
-        print(f"  with per-arm decisions, batch {b + 1} (memo filling): "
-              f"{50_000 / t:12,.0f} studies/s")
+    t_oct = 0.0
+    any_success = []
+    for b in range(4):
+        t, batch = rate(simulate_batch, decided, RATES, 50_000, 3, 0, b, table, memo)
+        t_oct += t
+        any_success.append((batch.outcome == 1).any(axis=1))
+    t_naive, won = rate(naive_decided, decided, 100, 4)
+    speeds = {"naive": 100 / t_naive, "octrial": 200_000 / t_oct}
+    print(f"\nadaptive allocation with each arm's own rule, looks {LOOKS}")
+    for key, value in speeds.items():
+        print(f"  {key:10s} {value:12,.0f} studies/s   x{speeds['octrial'] / value:8.1f}")
+    print(f"  P(any arm succeeds): naive {won:.2f} (100 studies), octrial "
+          f"{np.concatenate(any_success).mean():.4f}")
+    simulate_design(engine_design(), replicates=10)
+    t, _ = rate(simulate_design, engine_design(), 200_000)
+    print(f"  several-arm engine end to end (simulate_design): {200_000 / t:12,.0f} studies/s")
+
+
+EFFICACY = (0.999, 0.99, 0.975)
+FUTILITY = (0.05, 0.1, np.nan)
+
+
+def naive_decided(study: AdaptiveStudy, studies: int, seed: int) -> float:
+    """The naive loop with each arm's rule: Pr(p_t > p_c) by scipy quadrature."""
+    rng = np.random.default_rng(seed)
+    arms = RATES.size
+    wins = 0
+    for _ in range(studies):
+        n, x = np.zeros(arms, int), np.zeros(arms, int)
+        active = np.ones(arms, bool)
+        probs = next_allocation(study.rule, np.zeros(arms), active, True, 0, LOOKS[-1])
+        enrolled = 0
+        won = False
+        for k, total in enumerate(LOOKS):
+            m = rng.multinomial(total - enrolled, probs)
+            n += m
+            x += rng.binomial(m, RATES)
+            enrolled = total
+            for j in np.flatnonzero(active[1:]) + 1:
+                f = stats.beta(1 + x[j], 1 + n[j] - x[j]).pdf
+                g = stats.beta(1 + x[0], 1 + n[0] - x[0]).cdf
+                b = integrate.quad(lambda p, f=f, g=g: f(p) * g(p), 0, 1)[0]
+                if b >= EFFICACY[k]:
+                    won = True
+                    active[j] = False
+                elif k == len(LOOKS) - 1 or b < FUTILITY[k]:
+                    active[j] = False
+            if k == len(LOOKS) - 1 or not active[1:].any():
+                break
+            best = np.zeros(arms)
+            idx = np.flatnonzero(active[1:]) + 1
+            best[idx] = probability_best(x[idx], n[idx], study.prior)
+            active[1:] &= best[1:] >= study.drop_below
+            idx = np.flatnonzero(active[1:]) + 1
+            if idx.size == 0:
+                break
+            best[:] = 0
+            best[idx] = probability_best(x[idx], n[idx], study.prior)
+            probs = next_allocation(study.rule, best, active, True, enrolled, LOOKS[-1])
+        wins += won
+    return wins / studies
+
+
+def engine_design():
+    """The decided study as a several-arm design file (information form, minimum 0.05,
+    dropping below Pr(best) 0.05)."""
+    flat = {"distribution": "beta", "a": 1, "b": 1}
+    names = ("control", "t1", "t2", "t3")
+    data = {"schema": 1, "name": "bench", "endpoint": {"type": "binary", "better": "higher"},
+            "hypothesis": {"comparison": "difference", "margin": 0.0},
+            "arms": {a: {"prior": dict(flat)} for a in names},
+            "looks": {"n": list(LOOKS), "efficacy": list(EFFICACY),
+                      "futility": [0.05, 0.1, "none"], "drop_if_best_below": 0.05},
+            "allocation": {"kind": "information", "minimum": 0.05},
+            "scenarios": {a: [float(v)] for a, v in zip(names, RATES, strict=True)},
+            "simulation": {"seed": 1, "replicates": 10_000}}
+    return parse_multiarm(data, Source("bench", "", ""))
 
 
 if __name__ == "__main__":
