@@ -195,7 +195,9 @@ def test_pr_best_with_priors_of_their_own_against_monte_carlo(higher):
         b = np.array(prior.b)[comp] + n - x
         samples.append(rng.beta(a, b))
     p, se = _monte_carlo_best(samples, higher)
-    assert got.sum() == pytest.approx(1.0, abs=1e-8)
+    # the one Pr(best) (graded Gauss-Legendre, octrial.numerics.beta_best) is accurate to
+    # about 1e-5 with shapes below 1 (docs/adaptive-allocation.md), so the sum is too
+    assert got.sum() == pytest.approx(1.0, abs=2e-5)
     assert np.all(np.abs(got - p) <= Z * se + 1e-9), (got, p, se)
 
 
@@ -221,16 +223,16 @@ def test_count_pr_best_against_gamma_monte_carlo():
     assert np.all(np.abs(got - p) <= Z * se + 1e-9), (got, p, se)
 
 
-def test_pr_best_is_close_to_the_simulations_grid_sum():
-    # the several-arm simulation drops arms by the Stieltjes sum of multiarm/best.py on
-    # 1024 cells; decide's Pr(best) must agree to its documented accuracy (docs/validation.md:
-    # a few 1e-5 against exact finite sums for posteriors away from 0 and 1)
-    from octrial.multiarm.best import prob_best_beta
+def test_pr_best_is_the_simulations_pr_best():
+    # the several-arm simulation drops arms by the Pr(best) of its node tables
+    # (multiarm.tables.MultiArmTables.best); decide must give the same number (identity)
+    from octrial.multiarm.tables import build_tables
 
-    design = _design()
+    design = _design(looks__drop_if_best_below=0.1)
     result = decide_arms(design, 2, ["control=6/30", "low=9/30", "mid=12/30", "high=14/30"])
-    grid = prob_best_beta(np.array([10.0, 13.0, 15.0]), np.array([22.0, 19.0, 17.0]))
-    assert [a.pr_best for a in result.arms] == pytest.approx(grid, abs=1e-4)
+    tables = build_tables(design)
+    kernel = tables.best(1, np.array([9, 12, 14]), np.ones(3, np.bool_))
+    assert [a.pr_best for a in result.arms] == pytest.approx(kernel, abs=1e-12)
 
 
 # -- dropping and selection, in the simulation's order ----------------------------------

@@ -1,10 +1,10 @@
 """The posterior probability that each treatment arm is the best, at an interim look.
 
-Binary arms that share one beta or beta-mixture prior get the allocation package's
-:func:`octrial.allocation.probability_best`, the function behind the next block's
-allocation (:func:`octrial.allocation.interim.next_block`), so a committee sees the number
-the allocation uses. Arms with priors of their own and count arms (gamma or
-gamma-mixture posteriors) are integrated here with scipy:
+Binary arms (beta or beta-mixture priors, shared or each its own) get the project's one
+Pr(best), :func:`octrial.numerics.beta_best.probability_best`, the function behind the
+simulation's dropping and selection and the next block's allocation
+(:func:`octrial.allocation.interim.next_block`), so a committee sees the number the design
+uses. Count arms (gamma or gamma-mixture posteriors) are integrated here with scipy:
 
 ``Pr(arm j best) = sum_c w_c integral_0^1 prod_{i != j} W_i(Q_c(v)) dv``,
 
@@ -75,12 +75,10 @@ def probability_best_at(priors: Sequence[Any], sizes: Sequence[float],
     arms = len(priors)
     if arms == 1:
         return np.ones(1)
-    if all(isinstance(p, binary.BetaMixture) for p in priors) and len(
-            {(p.weights, p.a, p.b) for p in priors}) == 1:
-        shared = priors[0]
+    if all(isinstance(p, binary.BetaMixture) for p in priors):
         result: np.ndarray = probability_best(
-            np.asarray(statistics, int), np.asarray(sizes, int),
-            (shared.weights, shared.a, shared.b), higher)
+            np.asarray(statistics, int), np.asarray(sizes, int), higher=higher,
+            priors=[(p.weights, p.a, p.b) for p in priors])
         return result
     parts = [_components(p, n, x) for p, n, x in zip(priors, sizes, statistics, strict=True)]
     if any(p is None for p in parts):
