@@ -45,7 +45,14 @@ import numpy as np
 from octrial.conduct.arrivals import fill_enrolment_times
 from octrial.conduct.model import Accrual, Conduct
 from octrial.conduct.timing import allocation_block
-from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
+from octrial.rules.stop import (
+    CONTINUE,
+    DECISION_TOLERANCE,
+    EFFICACY,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import (
     calendar_size,
@@ -114,6 +121,11 @@ class EventDrivenSetup:
         Exponential hazard of loss to follow-up (0: nobody is lost).
     allocation : tuple of float
         Allocation weights of the arms.
+    futility_predictive : tuple of float or None
+        Predictive-probability futility thresholds per look (empty, or ``None`` at a
+        look: none); needs looks at event counts and one analysis piece.
+    predictive_draws : int
+        Monte Carlo draws of one two-arm predictive probability (module docstring).
     """
 
     hazards: tuple[tuple[float, ...], ...]
@@ -133,6 +145,8 @@ class EventDrivenSetup:
     trigger: str = "events"
     dropout_hazard: float = 0.0
     allocation: tuple[float, ...] = field(default=())
+    futility_predictive: tuple[float | None, ...] = ()
+    predictive_draws: int = 1000
 
     def __post_init__(self) -> None:
         wrong = self.problems()
@@ -214,6 +228,17 @@ class EventDrivenSetup:
                          f"{a.rates} for starts {a.starts}")
         if not self.dropout_hazard >= 0:
             wrong.append(f"dropout_hazard: expected 0 or more, got {self.dropout_hazard}")
+        if any(v is not None for v in self.futility_predictive):
+            if len(self.futility_predictive) != self.looks:
+                wrong.append(f"futility_predictive: expected {self.looks} values, got "
+                             f"{len(self.futility_predictive)}")
+            if self.trigger != "events" or pieces != 1:
+                wrong.append("futility_predictive: expected looks at event counts and one "
+                             f"analysis piece, got trigger {self.trigger!r} and {pieces} "
+                             "piece(s)")
+            if self.predictive_draws < 1:
+                wrong.append(f"predictive_draws: expected at least 1, got "
+                             f"{self.predictive_draws}")
         if self.allocation and (len(self.allocation) != self.arms
                                 or any(not w > 0 for w in self.allocation)):
             wrong.append(f"allocation: expected {self.arms} positive weights, got "
@@ -272,7 +297,8 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
         hazard_starts=starts, analysis_starts=starts,
         lower_better=h.better == "lower", trigger=trigger,
         dropout_hazard=float(conduct.dropout_hazard),
-        allocation=tuple(float(a.allocation) for a in arms))
+        allocation=tuple(float(a.allocation) for a in arms),
+        futility_predictive=tuple(looks.futility_predictive))
 
 
 class PatientLevelSimulator(Simulator):
@@ -311,6 +337,42 @@ class PatientLevelSimulator(Simulator):
         self.futility = np.asarray(_nan(s.futility))
         self.edges = s.duration_edges()
         self.counts = s.count_edges()
+        self.predictive = np.asarray(_nan(s.futility_predictive or (None,) * s.looks))
+        self.bound, self.quantiles = self.predictive_setup()
+
+    def predictive_setup(self) -> tuple[float, np.ndarray]:
+        """What the predictive probability needs beyond the posterior, found once per
+        scenario: one arm, the final exposure t* at which the final analysis succeeds
+        (:func:`octrial.endpoints.survival_predictive.exposure_bound` on this kernel's
+        :func:`benefit_at`); two arms with one prior component each, per number i of
+        the treatment's final events, the beta quantile q_i with success iff k / (1 + k)
+        >= q_i (lower hazards better; <= otherwise), k = c b_T / b_C the final posterior
+        rates' ratio (``nan`` placeholders when not needed)."""
+        from scipy import special
+
+        from octrial.endpoints.survival_predictive import exposure_bound
+
+        s = self.setup
+        none = (math.nan, np.empty(0))
+        if np.all(np.isnan(self.predictive)):
+            return none
+        final = float(self.targets[-1])
+        threshold = float(self.efficacy[-1])
+        if s.arms == 1:
+            def benefit(t: float) -> float:
+                return float(benefit_at(np.array([final]), np.array([t]), self.log_w,
+                                        self.a, self.b, s.claim, s.lower_better))
+
+            scale = final / float(np.exp(self.log_w[0]) @ (self.a[0] / self.b[0]))
+            return exposure_bound(benefit, threshold, s.lower_better, scale), none[1]
+        if np.isfinite(self.log_w).sum() != 2:
+            return none
+        target = threshold - DECISION_TOLERANCE
+        i = np.arange(int(final) + 1, dtype=float)
+        a_t, a_c = self.a[0, 0] + i, self.a[1, 0] + final - i
+        level = target if s.lower_better else 1.0 - target
+        quantiles = special.betaincinv(a_t, a_c, min(max(level, 0.0), 1.0))
+        return math.nan, np.asarray(quantiles, dtype=float)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         efficacy = np.zeros(self.looks, dtype=np.int64)
@@ -323,7 +385,7 @@ class PatientLevelSimulator(Simulator):
             TRIGGERS[s.trigger], self.targets, self.analysis_starts, s.decision_piece,
             self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
             self.futility, DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility,
-            calendar)
+            calendar, self.predictive, self.bound, self.quantiles, s.predictive_draws)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -349,14 +411,12 @@ class EventDrivenSimulator(PatientLevelSimulator):
 
 
 @numba.njit(cache=True)
-def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: np.ndarray,
-               b: np.ndarray, claim: float, lower: bool) -> float:
-    """Posterior probability of benefit from each arm's events and exposure (module
-    docstring of :mod:`octrial.endpoints.time_to_event`)."""
+def posterior_into(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray,
+                   a: np.ndarray, b: np.ndarray, post_w: np.ndarray, post_a: np.ndarray,
+                   post_b: np.ndarray) -> None:
+    """Each arm's gamma-mixture posterior (weights, shapes, rates; rows: arms) from its
+    events and exposure, into ``post_w``, ``post_a`` and ``post_b``."""
     arms, width = a.shape
-    post_w = np.empty((arms, width))
-    post_a = np.empty((arms, width))
-    post_b = np.empty((arms, width))
     for j in range(arms):
         top = -np.inf
         for c in range(width):
@@ -376,6 +436,18 @@ def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: n
             total += post_w[j, c]
         for c in range(width):
             post_w[j, c] /= total
+
+
+@numba.njit(cache=True)
+def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: np.ndarray,
+               b: np.ndarray, claim: float, lower: bool) -> float:
+    """Posterior probability of benefit from each arm's events and exposure (module
+    docstring of :mod:`octrial.endpoints.time_to_event`)."""
+    arms, width = a.shape
+    post_w = np.empty((arms, width))
+    post_a = np.empty((arms, width))
+    post_b = np.empty((arms, width))
+    posterior_into(events, exposure, log_w, a, b, post_w, post_a, post_b)
     below = 0.0
     if arms == 1:
         for c in range(width):
@@ -390,6 +462,86 @@ def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: n
                     below += w * betainc(post_a[0, c], post_a[1, e], k / (1.0 + k))
     below = min(max(below, 0.0), 1.0)
     return below if lower else 1.0 - below
+
+
+@numba.njit(cache=True)
+def one_arm_predictive(d: float, x: float, final: float, log_w: np.ndarray, a: np.ndarray,
+                       b: np.ndarray, bound: float, lower: bool) -> float:
+    """Predictive probability of final success of one arm with ``d`` events in exposure
+    ``x`` and ``final`` events at the final analysis: Pr(x + Y >= t*) (lower hazards
+    better; Pr(x + Y <= t*) otherwise), the exposure Y until the remaining events
+    compound gamma (:mod:`octrial.endpoints.survival_predictive`), t* = ``bound``."""
+    width = a.shape[1]
+    post_w = np.empty((1, width))
+    post_a = np.empty((1, width))
+    post_b = np.empty((1, width))
+    posterior_into(np.array([d]), np.array([x]), log_w, a, b, post_w, post_a, post_b)
+    m = final - d
+    if math.isinf(bound):
+        return 1.0 if (bound > 0.0) != lower else 0.0
+    y = bound - x
+    if m <= 0.0 or y <= 0.0:
+        tail = 1.0 if y <= 0.0 else 0.0
+    else:
+        tail = 0.0
+        for c in range(width):
+            if post_w[0, c] > 0.0:
+                tail += post_w[0, c] * betainc(post_a[0, c], m, post_b[0, c]
+                                               / (post_b[0, c] + y))
+        tail = min(max(tail, 0.0), 1.0)
+    if lower:
+        return tail
+    return 1.0 - tail if m > 0.0 else (1.0 if x <= bound else 0.0)
+
+
+@numba.njit(cache=True)
+def two_arm_predictive(rng: Any, d: np.ndarray, x: np.ndarray, final: float,
+                       log_w: np.ndarray, a: np.ndarray, b: np.ndarray, claim: float,
+                       lower: bool, target: float, quantiles: np.ndarray,
+                       draws: int) -> float:
+    """Predictive probability of final success of two arms with events ``d`` and
+    exposure ``x`` and ``final`` events in total at the final analysis, by ``draws``
+    draws of the split approximation (:mod:`octrial.endpoints.survival_predictive`):
+    hazards from the posterior, the control's future exposure S, the treatment's
+    rho S (rho = x_T / x_C), the treatment's share of the future events binomial.
+    Final success from ``quantiles`` (one prior component per arm: success iff
+    k / (1 + k) is at least, or with higher hazards better at most, the entry of the
+    treatment's final events) or else from :func:`benefit_at` against ``target`` (the
+    final threshold less the stop rule's tolerance)."""
+    width = a.shape[1]
+    post_w = np.empty((2, width))
+    post_a = np.empty((2, width))
+    post_b = np.empty((2, width))
+    posterior_into(d, x, log_w, a, b, post_w, post_a, post_b)
+    m = int(final - d[0] - d[1])
+    rho = x[0] / x[1] if x[1] > 0.0 else 1.0
+    hits = 0
+    fd = np.empty(2)
+    fx = np.empty(2)
+    lam = np.empty(2)
+    for _ in range(draws):
+        for j in range(2):
+            c = 0
+            if width > 1:
+                u = rng.random()
+                while c < width - 1 and u >= post_w[j, c]:
+                    u -= post_w[j, c]
+                    c += 1
+            lam[j] = rng.gamma(post_a[j, c], 1.0 / post_b[j, c])
+        rate = rho * lam[0] + lam[1]
+        share = rng.binomial(m, rho * lam[0] / rate) if m > 0 else 0
+        s = rng.gamma(m, 1.0 / rate) if m > 0 else 0.0
+        if quantiles.size > 0:
+            k = claim * (post_b[0, 0] + rho * s) / (post_b[1, 0] + s)
+            q = quantiles[int(d[0]) + share]
+            hits += (k / (1.0 + k) >= q) if lower else (k / (1.0 + k) <= q)
+        else:
+            fd[0] = d[0] + share
+            fd[1] = d[1] + m - share
+            fx[0] = x[0] + rho * s
+            fx[1] = x[1] + s
+            hits += benefit_at(fd, fx, log_w, a, b, claim, lower) >= target
+    return hits / draws
 
 
 @numba.njit(cache=True, inline="always")
@@ -537,9 +689,15 @@ def patient_level_studies(
     analysis_starts: np.ndarray, piece: int, log_w: np.ndarray, a: np.ndarray,
     b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
     tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
-    stop_futility: np.ndarray, calendar: np.ndarray,
+    stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray,
+    bound: float, quantiles: np.ndarray, draws: int,
 ) -> None:
-    """Simulate ``studies`` studies, adding their stops and calendar totals."""
+    """Simulate ``studies`` studies, adding their stops and calendar totals.
+
+    ``predictive``: the predictive futility threshold per look (``nan``: none; looks at
+    event counts, one analysis piece); one arm uses the final exposure bound ``bound``,
+    two arms ``draws`` draws and the table ``quantiles``
+    (:meth:`PatientLevelSimulator.predictive_setup`)."""
     looks = targets.size
     arms = hazards.shape[0]
     pieces = analysis_starts.size
@@ -592,6 +750,15 @@ def patient_level_studies(
             benefit = benefit_at(d, e, log_w, a, b, claim, lower)
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
+            if code == CONTINUE and wants_predictive_at(predictive[k], final):
+                if arms == 1:
+                    pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b,
+                                            bound, lower)
+                else:
+                    pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b,
+                                            claim, lower, efficacy[looks - 1] - tol,
+                                            quantiles, draws)
+                code = predictive_decision_at(predictive[k], pp, tol)
             record_study(calendar, edges, k, tau, entered, events.sum(),
                          code != CONTINUE, counts)
             if code == EFFICACY:

@@ -1,0 +1,203 @@
+"""Predictive probability of final success for gamma time-to-event analyses (one period).
+
+The final analysis of an event-driven study is at a fixed number of events D (per arm
+when nobody is censored, in total otherwise); what the data still to come can change is
+the time at risk (exposure) and, for two arms, how the events split between the arms.
+
+Future exposure. With a constant hazard lambda, the events counted against the
+accumulated exposure form a Poisson process of rate lambda (the random time change of a
+counting process by its compensator; e.g. Andersen, Borgan, Gill & Keiding 1993,
+Statistical Models Based on Counting Processes, section II.5, recalled from memory),
+whatever the staggered entry and independent censoring. So the exposure still to come
+until m more events is Gamma(m, rate lambda), and with lambda ~ Gamma(a', b') a
+posteriori, Y / (Y + b') ~ Beta(m, a') (the compound gamma, or beta prime, law):
+Pr(Y >= y) = I_{b' / (b' + y)}(a', m). This ignores a final analysis held early because
+the events run out (too few subjects, or losses).
+
+* One arm: the final posterior probability of benefit is monotone in the final exposure
+  (the likelihood lambda^D exp(-lambda t) has a monotone likelihood ratio in t, so the
+  posterior is stochastically decreasing in t for any prior), so final success is
+  t >= t* (lower hazard better) or t <= t*, with t* found once per design
+  (:func:`exposure_bound`). PP = Pr(x + Y >= t*), a closed form (:func:`one_arm`).
+* Two arms, every subject's event observed (no censoring: the events per arm are fixed):
+  the arms' future exposures are independent beta-prime variables; final success is
+  t_T >= tau(t_C) with tau found by root finding; PP is a one-dimensional integral over
+  the control arm's future exposure (Gauss-Legendre in its quantiles:
+  :func:`two_arm_fixed_events`).
+* Two arms, event-driven with censoring: the split of the m future events between the
+  arms depends on who is at risk when. The approximation used: the future exposure of the
+  arms keeps the ratio rho = x_T / x_C of the exposure so far; then, given the hazards,
+  the control arm's future exposure S until m events is Gamma(m, rho lambda_T +
+  lambda_C), the treatment's rho S, and the treatment's share of the events
+  Binomial(m, rho lambda_T / (rho lambda_T + lambda_C)), independent of S. PP is the mean
+  of final success over draws of (hazards, split, S) (:func:`two_arm_split`; the kernel
+  draws the same in numba).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+import numpy as np
+from scipy import optimize, special
+
+from octrial.rules.stop import DECISION_TOLERANCE
+
+GAUSS_NODES = 96
+"""Gauss-Legendre nodes of :func:`two_arm_fixed_events` (per control component)."""
+
+
+def exposure_tail(w: np.ndarray, a: np.ndarray, b: np.ndarray, m: float,
+                  y: np.ndarray) -> np.ndarray:
+    """Pr(Y >= y) for the exposure Y until ``m`` more events when the hazard has the
+    gamma mixture posterior (weights ``w``, shapes ``a``, rates ``b``: shape (studies,
+    components)); ``y`` one value per study."""
+    y = np.asarray(y, dtype=float)
+    if m <= 0:
+        return (y <= 0).astype(float)
+    safe = np.maximum(y, 0.0)[:, None]
+    tail = np.sum(w * special.betainc(a, m, b / (b + safe)), axis=1)
+    return np.where(y <= 0, 1.0, np.clip(tail, 0.0, 1.0))
+
+
+def exposure_bound(benefit: Callable[[float], float], threshold: float, lower: bool,
+                   scale: float) -> float:
+    """t*: the final exposure at which the final posterior probability of benefit
+    (``benefit(t)``, monotone in t) reaches ``threshold`` (less the stop rule's
+    tolerance). Lower hazards better: success iff t >= t* (0 when any exposure
+    succeeds, inf when none does); higher: success iff t <= t* (-inf when none does).
+    ``scale`` is a typical exposure, where the search starts."""
+    target = threshold - DECISION_TOLERANCE
+
+    def gap(t: float) -> float:
+        b = benefit(t)
+        return b - target if lower else target - b  # increasing in t
+
+    if gap(0.0) >= 0:
+        return 0.0 if lower else math.inf
+    hi = max(scale, 1e-12)
+    for _ in range(200):
+        if gap(hi) >= 0:
+            break
+        hi *= 2.0
+    else:
+        return math.inf if lower else -math.inf
+    return float(optimize.brentq(gap, 0.0, hi, xtol=1e-13 * hi, rtol=1e-15, maxiter=500))
+
+
+def one_arm(w: np.ndarray, a: np.ndarray, b: np.ndarray, exposure: np.ndarray, m: float,
+            bound: float, lower: bool) -> np.ndarray:
+    """PP of one arm: Pr(x + Y >= t*) (lower better) or Pr(x + Y <= t*), with the
+    posterior (``w``, ``a``, ``b``: (studies, components)), the exposure so far ``x``,
+    ``m`` events still to come and t* = ``bound`` (:func:`exposure_bound`)."""
+    x = np.asarray(exposure, dtype=float)
+    if math.isinf(bound):
+        reach = 1.0 if (bound > 0) != lower else 0.0
+        return np.full(x.shape, reach)
+    tail = exposure_tail(w, a, b, m, bound - x)
+    if lower:
+        return tail
+    # Y is continuous for m > 0; with m = 0 success is x <= t*
+    return 1.0 - tail if m > 0 else (x <= bound).astype(float)
+
+
+def two_arm_fixed_events(posts: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...],
+                         exposure: tuple[np.ndarray, np.ndarray], future: tuple[int, int],
+                         final_benefit: Callable[[np.ndarray, np.ndarray], np.ndarray],
+                         threshold: float, lower: bool) -> np.ndarray:
+    """PP of two arms whose future events per arm are fixed (``future`` = (m_T, m_C)).
+
+    ``posts`` are the arms' posteriors (w, a, b) of shape (studies, components);
+    ``final_benefit(t_T, t_C)`` the final posterior probability of benefit at final
+    exposures (arrays, one per study). For each control component the control's future
+    exposure runs over :data:`GAUSS_NODES` Gauss-Legendre nodes in its quantiles (the
+    Beta(m_C, a') quantile v gives y = b' v / (1 - v)); at each node the treatment's
+    final exposure must pass tau(t_C), found by bisection (final benefit is increasing in
+    t_T when lower hazards are better), and the treatment's beta-prime tail gives the
+    probability."""
+    (w_t, a_t, b_t), (w_c, a_c, b_c) = posts
+    x_t, x_c = (np.asarray(v, dtype=float) for v in exposure)
+    m_t, m_c = future
+    studies = x_t.size
+    if m_c > 0:
+        u, weight = np.polynomial.legendre.leggauss(GAUSS_NODES)
+        u, weight = 0.5 * (u + 1.0), 0.5 * weight
+    else:
+        u, weight = np.array([0.0]), np.array([1.0])
+    out = np.zeros(studies)
+    for c in range(w_c.shape[1]):
+        if m_c > 0:
+            v = special.betaincinv(m_c, a_c[:, c][:, None], u[None, :])
+            y_c = b_c[:, c][:, None] * v / (1.0 - v)
+        else:
+            y_c = np.zeros((studies, 1))
+        t_c = x_c[:, None] + y_c
+        tau = _treatment_bound(final_benefit, t_c, x_t, threshold, lower)
+        flat = (tau - x_t[:, None]).ravel()
+        rows = np.repeat(np.arange(studies), t_c.shape[1])
+        tail = exposure_tail(w_t[rows], a_t[rows], b_t[rows], m_t, flat)
+        if not lower:
+            tail = 1.0 - tail if m_t > 0 else (flat >= 0).astype(float)
+        tail = np.where(np.isposinf(flat), 0.0 if lower else 1.0, tail)
+        tail = np.where(np.isneginf(flat), 1.0 if lower else 0.0, tail)
+        out += w_c[:, c] * (tail.reshape(t_c.shape) @ weight)
+    return np.clip(out, 0.0, 1.0)
+
+
+def _treatment_bound(final_benefit: Callable[[np.ndarray, np.ndarray], np.ndarray],
+                     t_c: np.ndarray, x_t: np.ndarray, threshold: float,
+                     lower: bool) -> np.ndarray:
+    """tau(t_C) per (study, node): the treatment's final exposure at which the final
+    benefit reaches the threshold (bisection on t / (t + s), s a scale per study);
+    +inf / -inf where no exposure, or every exposure, succeeds."""
+    target = threshold - DECISION_TOLERANCE
+    shape = t_c.shape
+    scale = np.broadcast_to(np.maximum(x_t, 1e-9)[:, None], shape).ravel()
+    tc = t_c.ravel()
+
+    def ok(t: np.ndarray) -> np.ndarray:
+        b = final_benefit(t, tc)
+        return b >= target
+
+    lo, hi = np.zeros(tc.size), np.ones(tc.size)  # v = t / (t + s) in [0, 1)
+    at_zero = ok(np.zeros(tc.size))
+    at_far = ok(scale * 1e12)
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        passed = ok(scale * mid / (1.0 - mid))
+        # lower better: success above tau; higher: success below tau
+        go_up = ~passed if lower else passed
+        lo = np.where(go_up, mid, lo)
+        hi = np.where(go_up, hi, mid)
+    v = 0.5 * (lo + hi)
+    tau = scale * v / (1.0 - v)
+    if lower:
+        tau = np.where(at_zero, -np.inf, np.where(at_far, tau, np.inf))
+    else:
+        tau = np.where(~at_zero, -np.inf, np.where(at_far, np.inf, tau))
+    return tau.reshape(shape)
+
+
+def two_arm_split(posts: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...],
+                  events: tuple[float, float], exposure: tuple[float, float], m: int,
+                  final_benefit: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+                                          np.ndarray],
+                  threshold: float, rng: np.random.Generator, draws: int) -> float:
+    """PP of one two-arm event-driven study under the split approximation (module
+    docstring), by ``draws`` Monte Carlo draws: component and hazard per arm from the
+    posterior (``posts``: (w, a, b) with one row), the treatment's share of the ``m``
+    future events, the control's future exposure S; success when
+    ``final_benefit(d_T, d_C, x_T, x_C)`` (arrays) reaches the threshold."""
+    x_t, x_c = exposure
+    rho = x_t / x_c if x_c > 0 else 1.0
+    hazards = []
+    for w, a, b in posts:
+        c = rng.choice(w.shape[1], size=draws, p=w[0] / w[0].sum())
+        hazards.append(rng.gamma(a[0, c], 1.0 / b[0, c]))
+    lam_t, lam_c = hazards
+    rate = rho * lam_t + lam_c
+    share = rng.binomial(m, rho * lam_t / rate)
+    s = rng.gamma(m, 1.0 / rate) if m > 0 else np.zeros(draws)
+    b = final_benefit(events[0] + share, events[1] + m - share, x_t + rho * s, x_c + s)
+    return float(np.mean(b >= threshold - DECISION_TOLERANCE))
