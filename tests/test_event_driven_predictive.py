@@ -1,0 +1,180 @@
+"""The predictive probability of final success of event-driven time-to-event studies
+(:mod:`octrial.endpoints.survival_predictive`, the kernel's
+:func:`~octrial.simulation.event_driven.one_arm_predictive` and
+:func:`~octrial.simulation.event_driven.two_arm_predictive`, the family's
+:meth:`~octrial.endpoints.time_to_event.TimeToEventFamily.predictive_from`) against
+brute-force simulation of the study's continuation.
+
+The reference (:func:`continuation`) is written here with numpy and scipy only: a study's
+subjects are drawn by the kernel's own sampler and cut at an interim look (the D_k-th
+event); then, for each of many hazards drawn from the conjugate gamma posterior
+(``scipy.stats.gamma``; gamma-Poisson conjugacy), every subject still at risk gets a new
+residual time to the event and to loss (exponential, memoryless), subjects not yet
+enrolled enter at the study's own later enrolment times (independent of the hazards) with
+fresh times, and the final analysis happens at the D-th event (or when follow-up ends if
+the events run out); final success is the posterior probability of benefit at that
+analysis (``scipy.stats.gamma.cdf`` for one arm, ``scipy.special.betainc`` for the
+hazard ratio's beta form) against the final threshold. This is the definition of the
+predictive probability (Lee & Liu 2008, Clinical Trials 5, 93-106) applied to the whole
+continuation, with no use of the compound-gamma law or the split approximation being
+tested.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import special, stats
+
+from octrial.conduct.model import Accrual
+from octrial.simulation import event_driven as ed
+
+LAMBDA_C = math.log(2.0) / 12.0  # a 12-month median (invented)
+Z = 4.0
+
+
+def _setup(arms: int, **change: object) -> ed.EventDrivenSetup:
+    prior = ((0.5,),)
+    rate = ((6.0,),)
+    base: dict[str, object] = dict(
+        hazards=((0.75 * LAMBDA_C,), (LAMBDA_C,))[:arms] if arms == 2 else
+        ((0.8 * LAMBDA_C,),), claim=1.0 if arms == 2 else LAMBDA_C,
+        efficacy=(0.999, 0.99, 0.975), futility=(None, None, None),
+        futility_predictive=(0.1, 0.1, None), targets=(30.0, 60.0, 90.0),
+        accrual=Accrual(rates=(8.0,)), max_enrolment=160, prior_a=(prior,) * arms,
+        prior_b=(rate,) * arms, dropout_hazard=0.01)
+    base.update(change)
+    return ed.EventDrivenSetup(**base)  # type: ignore[arg-type]
+
+
+def _cut(s: ed.EventDrivenSetup, seed: int, look: int) -> dict[str, np.ndarray | float]:
+    """One study's subjects and its statistics at interim look ``look`` (from 0)."""
+    sim = ed.PatientLevelSimulator(s)
+    subj = sim.subjects(np.random.default_rng(seed))
+    ends = subj["enrolled"] + subj["follow"]
+    tau = float(np.sort(ends[subj["seen"]])[int(s.targets[look]) - 1])
+    entered = subj["enrolled"] <= tau
+    ended = entered & (ends <= tau)
+    exposure = np.where(ended, subj["follow"], np.where(entered, tau - subj["enrolled"], 0))
+    d = np.array([np.sum(ended & subj["seen"] & (subj["arm"] == j)) for j in range(s.arms)],
+                 dtype=float)
+    x = np.array([np.sum(exposure[subj["arm"] == j]) for j in range(s.arms)])
+    return {**subj, "tau": tau, "entered": entered, "ended": ended, "d": d, "x": x}
+
+
+def continuation(s: ed.EventDrivenSetup, cut: dict, draws: int,
+                 rng: np.random.Generator) -> tuple[float, float]:
+    """Brute-force predictive probability of final success and its standard error (module
+    docstring), for one prior component per arm."""
+    arms, final = s.arms, int(s.targets[-1])
+    arm = cut["arm"]
+    lam = np.column_stack([
+        stats.gamma(s.prior_a[j][0][0] + cut["d"][j], scale=1.0 / (
+            s.prior_b[j][0][0] + cut["x"][j])).rvs(draws, random_state=rng)
+        for j in range(arms)])
+    at_risk = cut["entered"] & ~cut["ended"]
+    later = ~cut["entered"]
+    tau = cut["tau"]
+    # start of the new follow-up (calendar) and follow-up already spent
+    start = np.where(at_risk, tau, cut["enrolled"])
+    spent = np.where(at_risk, tau - cut["enrolled"], 0.0)
+    open_ = at_risk | later
+    m = int(np.sum(open_))
+    hazard = lam[:, arm[open_]]
+    t_event = stats.expon.rvs(size=(draws, m), random_state=rng) / hazard
+    t_loss = (stats.expon.rvs(size=(draws, m), random_state=rng) / s.dropout_hazard
+              if s.dropout_hazard > 0 else np.full((draws, m), np.inf))
+    seen = t_event <= t_loss
+    end = start[open_] + np.minimum(t_event, t_loss)
+    old = int(cut["d"].sum())
+    event_end = np.where(seen, end, np.inf)
+    need = final - old
+    kth = np.sort(event_end, axis=1)[:, need - 1]
+    resolved = end.max(axis=1)
+    t_final = np.where(np.isfinite(kth), kth, resolved)
+    # exposure and events at the final analysis: the earlier subjects' part is fixed
+    closed = ~open_ & cut["entered"]
+    d_fin = np.zeros((draws, arms))
+    x_fin = np.zeros((draws, arms))
+    for j in range(arms):
+        fixed = closed & (arm == j)
+        d_fin[:, j] = np.sum(cut["seen"][fixed])
+        x_fin[:, j] = np.sum(cut["follow"][fixed])
+        mine = arm[open_] == j
+        stop = np.minimum(end[:, mine], t_final[:, None])
+        x_fin[:, j] += np.sum(np.maximum(stop - start[open_][mine], 0.0)
+                              + spent[open_][mine] * (start[open_][mine] <= t_final[:, None]),
+                              axis=1)
+        d_fin[:, j] += np.sum(seen[:, mine] & (end[:, mine] <= t_final[:, None]), axis=1)
+    a = [s.prior_a[j][0][0] + d_fin[:, j] for j in range(arms)]
+    b = [s.prior_b[j][0][0] + x_fin[:, j] for j in range(arms)]
+    if arms == 1:
+        benefit = stats.gamma.cdf(s.claim, a[0], scale=1.0 / b[0])
+    else:
+        k = s.claim * b[0] / b[1]
+        benefit = special.betainc(a[0], a[1], k / (1 + k))
+    success = benefit >= s.efficacy[-1]
+    p = float(success.mean())
+    return p, math.sqrt(max(p * (1 - p), 1.0 / draws) / draws)
+
+
+@pytest.mark.parametrize(("seed", "look"), [(1, 0), (2, 1), (5, 0)])
+def test_one_arm_predictive_equals_the_simulated_continuation(seed: int, look: int) -> None:
+    """One arm: the compound-gamma closed form (future exposure Gamma(D - d, lambda) by
+    the random time change) equals the brute-force continuation within 4 standard
+    errors, with staggered entry, dropout and administrative censoring."""
+    s = _setup(1)
+    cut = _cut(s, seed, look)
+    sim = ed.PatientLevelSimulator(s)
+    value = ed.one_arm_predictive(cut["d"][0], cut["x"][0], s.targets[-1], sim.log_w,
+                                  sim.a, sim.b, sim.bound, True)
+    p, se = continuation(s, cut, 40_000, np.random.default_rng(seed))
+    assert abs(value - p) <= Z * se, (value, p, se)
+
+
+def test_two_arm_split_approximation_is_close_to_the_continuation() -> None:
+    """Two arms: the kernel's split approximation (future exposure in the ratio of the
+    exposure so far; binomial split of the future events) against the brute-force
+    continuation at both interim looks of 8 simulated studies (a small study: 160
+    subjects, 90 events, so the at-risk sets change much before the final analysis):
+    every difference within 4 combined standard errors plus 0.05 and the mean absolute
+    difference below 0.02. Measured when written: largest 0.037, mean 0.010; the
+    approximation is stated in docs/methods.md with these numbers."""
+    s = _setup(2)
+    sim = ed.PatientLevelSimulator(s)
+    draws = 100_000
+    gaps = []
+    for seed in range(1, 9):
+        for look in (0, 1):
+            cut = _cut(s, seed, look)
+            value = ed.two_arm_predictive(np.random.default_rng(seed), cut["d"], cut["x"],
+                                          s.targets[-1], sim.log_w, sim.a, sim.b, s.claim,
+                                          True, s.efficacy[-1] - 1e-12, sim.quantiles, draws)
+            p, se = continuation(s, cut, 40_000, np.random.default_rng(seed + 100))
+            se_value = math.sqrt(max(value * (1 - value), 1.0 / draws) / draws)
+            assert abs(value - p) <= Z * math.hypot(se, se_value) + 0.05, (seed, look,
+                                                                            value, p)
+            gaps.append(abs(value - p))
+    assert np.mean(gaps) < 0.02, gaps
+
+
+def test_two_arm_kernel_table_and_mixture_paths_agree() -> None:
+    """The kernel's two routes to final success (the beta-quantile table of one prior
+    component per arm, scipy.special.betaincinv; the full posterior probability for
+    mixtures) give the same predictive probability on the same draws when the mixture
+    has one effective component (weights 1 and 0 are refused, so two equal components)."""
+    single = _setup(2)
+    double = _setup(2, prior_a=(((0.5, 0.5),),) * 2, prior_b=(((6.0, 6.0),),) * 2,
+                    prior_weights=(((0.5, 0.5),),) * 2)
+    cut = _cut(single, 2, 0)
+    values = []
+    for s in (single, double):
+        sim = ed.PatientLevelSimulator(s)
+        assert (sim.quantiles.size > 0) == (s is single)
+        values.append(ed.two_arm_predictive(
+            np.random.default_rng(9), cut["d"], cut["x"], s.targets[-1], sim.log_w, sim.a,
+            sim.b, s.claim, True, s.efficacy[-1] - 1e-12, sim.quantiles, 20_000))
+    assert 0.05 < values[0] < 0.95
+    assert abs(values[0] - values[1]) < 0.03, values
