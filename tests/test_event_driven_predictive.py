@@ -178,3 +178,53 @@ def test_two_arm_kernel_table_and_mixture_paths_agree() -> None:
             sim.b, s.claim, True, s.efficacy[-1] - 1e-12, sim.quantiles, 20_000))
     assert 0.05 < values[0] < 0.95
     assert abs(values[0] - values[1]) < 0.03, values
+
+
+def test_kernel_decisions_equal_the_family_on_the_same_subjects() -> None:
+    """One arm with a mixture prior and predictive futility at both interim looks: the
+    kernel's stops equal, study by study, a Python loop over the same subjects (drawn by
+    :meth:`~octrial.simulation.event_driven.PatientLevelSimulator.subjects` from the same
+    generator) deciding with the family's posterior probability and predictive
+    probability (scipy; checked above against the continuation) and the stop rule's
+    Python form."""
+    from octrial.rules.stop import CONTINUE, EFFICACY, Rule
+    from tests.helpers import build
+    from tests.test_time_to_event_predictive import ONE_ARM_CONDUCT
+
+    design = build(ONE_ARM_CONDUCT)
+    family = design.family
+    rule = Rule.of(design.looks)
+    studies = 600
+    for truth in (0.05, 0.035):
+        sim = ed.EventDrivenSimulator(design, (truth,), 0.95)
+        tally = sim.simulate(np.random.default_rng(21), studies)
+        rng = np.random.default_rng(21)
+        efficacy = np.zeros(3, dtype=int)
+        futility = np.zeros(3, dtype=int)
+        predictive_stops = 0
+        for _ in range(studies):
+            subj = sim.subjects(rng)
+            ends = subj["enrolled"] + subj["follow"]
+            events = np.sort(ends[subj["seen"]])
+            for k, target in enumerate(sim.targets):
+                final = k == 2 or events.size < target
+                tau = events[int(target) - 1] if events.size >= target else ends.max()
+                d = np.zeros((1, 1))
+                x = np.zeros((1, 1))
+                ed.piece_statistics(subj["enrolled"], subj["follow"], subj["seen"],
+                                    subj["arm"], tau, np.zeros(1), d, x)
+                b = float(family.benefit_from(design, (d,), (x,))[0])
+                look = 2 if final else k
+                code = rule.decide(look, b, lambda d=d, x=x: float(
+                    family.predictive_from(design, (d,), (x,))[0]))
+                if code != CONTINUE and rule.decide(look, b) == CONTINUE:
+                    predictive_stops += 1
+                if code == EFFICACY:
+                    efficacy[k] += 1
+                if code != CONTINUE and code != EFFICACY:
+                    futility[k] += 1
+                if code != CONTINUE:
+                    break
+        assert predictive_stops > 10
+        assert list(tally.efficacy) == list(efficacy), (truth, tally.efficacy, efficacy)
+        assert list(tally.futility) == list(futility), (truth, tally.futility, futility)
