@@ -6,8 +6,8 @@ the time at risk (exposure) and, for two arms, how the events split between the 
 
 Future exposure. With a constant hazard lambda, the events counted against the
 accumulated exposure form a Poisson process of rate lambda (the random time change of a
-counting process by its compensator; e.g. Andersen, Borgan, Gill & Keiding 1993,
-Statistical Models Based on Counting Processes, section II.5, recalled from memory),
+counting process by its compensator; Aalen, Borgan & Gjessing 2008, Survival and Event
+History Analysis, section 2.2, recalled from memory),
 whatever the staggered entry and independent censoring. So the exposure still to come
 until m more events is Gamma(m, rate lambda), and with lambda ~ Gamma(a', b') a
 posteriori, Y / (Y + b') ~ Beta(m, a') (the compound gamma, or beta prime, law):

@@ -17,12 +17,17 @@ follow-up has ended and it is the final analysis. The decision is the stop rule 
 posterior of one piece's hazard (``decision_piece``; with one analysis piece, the constant
 hazard): one arm, Pr(lambda < benchmark) by the regularized incomplete gamma; two arms,
 Pr(lambda_T / lambda_C < c) by the beta identity b_T l_T / (b_T l_T + b_C l_C) ~
-Beta(a_T, a_C). A stop ends enrolment.
+Beta(a_T, a_C). A stop ends enrolment. Predictive futility (looks at event counts, one
+analysis piece) uses the predictive probability of final success of
+:mod:`octrial.endpoints.survival_predictive`: one arm in closed form
+(:func:`one_arm_predictive`), two arms by the split approximation with a fixed number of
+draws from the study's generator (:func:`two_arm_predictive`).
 
 Random numbers come only from the generator passed to :meth:`PatientLevelSimulator.
 simulate`, drawn inside the kernel study by study in a fixed order (the study's
-enrolment gaps, then per subject in enrolment order its event time and its loss time), so
-a batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
+enrolment gaps, then per subject in enrolment order its event time and its loss time;
+then, at each two-arm look that needs it, the predictive probability's draws), so a
+batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
 
 Speed: every subject is simulated (about 3 standard exponentials per subject, which are
 most of the time; the looks' event times by a bucket pass, not a sort; arithmetic rather
@@ -298,7 +303,7 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
         lower_better=h.better == "lower", trigger=trigger,
         dropout_hazard=float(conduct.dropout_hazard),
         allocation=tuple(float(a.allocation) for a in arms),
-        futility_predictive=tuple(looks.futility_predictive))
+        futility_predictive=tuple(getattr(looks, "futility_predictive", ())))
 
 
 class PatientLevelSimulator(Simulator):
