@@ -493,12 +493,14 @@ class TimeToEventFamily(Family):
 
             if importlib.util.find_spec("octrial.simulation.event_driven") is None:
                 return NOT_YET
-            if e.periods > 1 or self.prior_on_effect(e, design.two_arm):
+            if (e.periods > 1 and design.two_arm) or self.prior_on_effect(
+                    e, design.two_arm):
                 # the patient-level simulator decides on one period's gamma posterior
-                return ("the patient-level simulator takes one hazard period with gamma "
-                        "priors per arm; a piecewise design or the normal approximation "
-                        "on the log hazard ratio is not simulated yet (the normal "
-                        "approximation has its exact engine: simulation.method = 'exact')")
+                # (two arms) or on the landmark survival (one arm)
+                return ("the patient-level simulator takes gamma priors per arm (two arms: "
+                        "one hazard period); the normal approximation on the log hazard "
+                        "ratio is not simulated yet (it has its exact engine: "
+                        "simulation.method = 'exact')")
             return self.predictive_unsupported(design)
         if e.periods > 1:
             return ("a piecewise-exponential design is simulated subject by subject: add a "

@@ -131,6 +131,14 @@ class EventDrivenSetup:
         look: none); needs looks at event counts and one analysis piece.
     predictive_draws : int
         Monte Carlo draws of one two-arm predictive probability (module docstring).
+    landmark_overlap : tuple of float
+        One arm with several analysis pieces: the time Delta_j each piece overlaps
+        [0, L) for the landmark L (empty: decide on ``decision_piece``). The decision is
+        then on Pr(sum_j Delta_j h_j < ``landmark_limit``) = Pr(S(L) > S0(L)), the
+        pieces' hazards h_j sharing the mixture component (``prior_weights`` equal in
+        every piece).
+    landmark_limit : float
+        lambda0 H0(L): the benchmark's cumulative hazard at the landmark.
     """
 
     hazards: tuple[tuple[float, ...], ...]
@@ -152,6 +160,8 @@ class EventDrivenSetup:
     allocation: tuple[float, ...] = field(default=())
     futility_predictive: tuple[float | None, ...] = ()
     predictive_draws: int = 1000
+    landmark_overlap: tuple[float, ...] = ()
+    landmark_limit: float = math.nan
 
     def __post_init__(self) -> None:
         wrong = self.problems()
@@ -233,6 +243,20 @@ class EventDrivenSetup:
                          f"{a.rates} for starts {a.starts}")
         if not self.dropout_hazard >= 0:
             wrong.append(f"dropout_hazard: expected 0 or more, got {self.dropout_hazard}")
+        if self.landmark_overlap:
+            weights = self.prior_weights or ((None,),)
+            if self.arms != 1 or len(self.landmark_overlap) != pieces or any(
+                    not x >= 0 for x in self.landmark_overlap) or not sum(
+                    self.landmark_overlap) > 0:
+                wrong.append(f"landmark_overlap: expected one arm and {pieces} overlaps "
+                             f">= 0, not all 0, got {self.landmark_overlap} for "
+                             f"{self.arms} arm(s)")
+            elif any(w != weights[0][0] for w in weights[0]):
+                wrong.append("prior_weights: expected the same mixture weights in every "
+                             f"piece (a landmark decision), got {weights[0]}")
+            if not self.landmark_limit > 0:
+                wrong.append(f"landmark_limit: expected a cumulative hazard > 0, got "
+                             f"{self.landmark_limit}")
         if any(v is not None for v in self.futility_predictive):
             if len(self.futility_predictive) != self.looks:
                 wrong.append(f"futility_predictive: expected {self.looks} values, got "
@@ -266,8 +290,9 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     hazard periods (``starts`` and ``relative_hazard``: each arm's hazard is its
     ``truth`` times the period's relative hazard) is simulated piecewise, analysed per
     period with the arm's prior on each, and decided on the first period's hazard ratio
-    (two arms); one arm with several periods decides on a landmark survival, which this
-    kernel does not compute (``ValueError``)."""
+    (two arms); one arm with several periods decides on the survival at the landmark
+    (``endpoint.landmark_time``: the landmark, or the benchmark's median), as the
+    family does."""
     conduct = design.conduct
     if conduct is None:
         raise ValueError("an event-driven design needs a [conduct] table")
@@ -277,12 +302,17 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     endpoint = design.endpoint
     starts = tuple(float(x) for x in getattr(endpoint, "starts", (0.0,)))
     shape = tuple(float(x) for x in getattr(endpoint, "relative_hazard", (1.0,)))
-    if len(starts) > 1 and len(arms) == 1:
-        raise ValueError("one arm with several hazard periods decides on a landmark "
-                         "survival, which the patient-level kernel does not compute")
     benchmark = getattr(h, "benchmark", None)
     claim = (benchmark if benchmark is not None else h.null_value) if len(arms) == 1 \
         else h.threshold
+    overlap: tuple[float, ...] = ()
+    limit = math.nan
+    if len(starts) > 1 and len(arms) == 1:
+        from octrial.endpoints import survival_maths as sm
+
+        landmark = endpoint.landmark_time(float(claim))
+        overlap = tuple(float(v) for v in sm.period_overlap(starts, landmark))
+        limit = float(claim) * float(sm.base_cumulative_hazard(starts, shape, landmark))
     # looks at event counts are read into n; calendar-time looks carry their times in at
     trigger = "time" if looks.trigger == "time" else "events"
     targets = tuple(float(t) for t in (looks.at if looks.trigger in TRIGGERS and looks.at
@@ -303,7 +333,8 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
         lower_better=h.better == "lower", trigger=trigger,
         dropout_hazard=float(conduct.dropout_hazard),
         allocation=tuple(float(a.allocation) for a in arms),
-        futility_predictive=tuple(getattr(looks, "futility_predictive", ())))
+        futility_predictive=tuple(getattr(looks, "futility_predictive", ())),
+        landmark_overlap=overlap, landmark_limit=limit)
 
 
 class PatientLevelSimulator(Simulator):
@@ -337,6 +368,15 @@ class PatientLevelSimulator(Simulator):
             self.a[j, :size] = s.prior_a[j][p]
             self.b[j, :size] = s.prior_b[j][p]
             self.log_w[j, :size] = np.log(weights / weights.sum())
+        # one arm's prior in every analysis piece, for a landmark decision
+        pieces = len(s.analysis_starts)
+        self.piece_a = np.ones((pieces, width))
+        self.piece_b = np.ones((pieces, width))
+        for q in range(pieces):
+            size = len(s.prior_a[0][q])
+            self.piece_a[q, :size] = s.prior_a[0][q]
+            self.piece_b[q, :size] = s.prior_b[0][q]
+        self.overlap = np.asarray(s.landmark_overlap, dtype=float)
         self.targets = np.asarray(s.targets, dtype=float)
         self.efficacy = np.asarray(_nan(s.efficacy))
         self.futility = np.asarray(_nan(s.futility))
@@ -390,7 +430,8 @@ class PatientLevelSimulator(Simulator):
             TRIGGERS[s.trigger], self.targets, self.analysis_starts, s.decision_piece,
             self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
             self.futility, DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility,
-            calendar, self.predictive, self.bound, self.quantiles, s.predictive_draws)
+            calendar, self.predictive, self.bound, self.quantiles, s.predictive_draws,
+            self.overlap, s.landmark_limit, self.piece_a, self.piece_b)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -549,6 +590,121 @@ def two_arm_predictive(rng: Any, d: np.ndarray, x: np.ndarray, final: float,
     return hits / draws
 
 
+LANDMARK_TAIL = 1e-13
+"""Probability mass of the Moschopoulos weights left out by :func:`gamma_sum_cdf_at`
+(the bound on its truncation error)."""
+
+
+@numba.njit(cache=True)
+def _nb_support(a: float, c: float) -> tuple[int, int]:
+    """Indices k that hold all but a negligible mass of NegativeBinomial(a, 1 - c)
+    (mean a c / (1 - c)): 14 standard deviations each side, and 40 more."""
+    mean = a * c / (1.0 - c)
+    sd = math.sqrt(mean / (1.0 - c))
+    return max(0, int(mean - 14.0 * sd - 40.0)), int(mean + 14.0 * sd + 40.0) + 1
+
+
+@numba.njit(cache=True)
+def gamma_sum_cdf_at(x: float, shapes: np.ndarray, rates: np.ndarray) -> float:
+    """Pr(sum_j X_j <= x), X_j ~ Gamma(shapes[j], rates[j]) independent: the series of
+    Moschopoulos (1985) as in :func:`octrial.endpoints.survival_maths.gamma_sum_cdf`,
+    sum_k p_k P(rho + k, x / beta_1), its weights p_k the distribution of a sum of
+    independent NegativeBinomial(a_j, beta_1 / beta_j) counts: each pmf from its log
+    (math.lgamma) over its bulk, convolved, and P(rho + k, y) by the upward recurrence
+    P(s + 1, y) = P(s, y) - y^s e^-y / Gamma(s + 1) from one incomplete gamma (absolute
+    error about 1e-16 per term). The mass
+    left out is below :data:`LANDMARK_TAIL` (14 standard deviations of each count)."""
+    count = shapes.size
+    beta1 = np.inf
+    for j in range(count):
+        beta1 = min(beta1, 1.0 / rates[j])
+    rho = 0.0
+    for j in range(count):
+        rho += shapes[j]
+    # the weights: start with a point mass at 0, convolve each count's pmf
+    lo, hi = 0, 1
+    pmf = np.ones(1)
+    for j in range(count):
+        c = 1.0 - beta1 * rates[j]  # 1 - beta_1 / beta_j
+        if c <= 0.0:
+            continue
+        a = shapes[j]
+        first, last = _nb_support(a, c)
+        one = np.empty(last - first)
+        base = a * math.log(1.0 - c) - math.lgamma(a)
+        for k in range(first, last):
+            one[k - first] = math.exp(base + math.lgamma(a + k) - math.lgamma(k + 1.0)
+                                      + k * math.log(c))
+        joined = np.zeros(pmf.size + one.size - 1)
+        for i in range(pmf.size):
+            if pmf[i] == 0.0:
+                continue
+            for k in range(one.size):
+                joined[i + k] += pmf[i] * one[k]
+        pmf = joined
+        lo, hi = lo + first, lo + first + pmf.size
+    y = x / beta1
+    if y <= 0.0:
+        return 0.0
+    lower = gammainc_pair(rho + lo, y)[0]
+    log_y = math.log(y)
+    total = 0.0
+    for i in range(hi - lo):
+        total += pmf[i] * max(lower, 0.0)
+        # each term from its log: a running product would start from an underflow
+        s = rho + lo + i
+        lower -= math.exp(s * log_y - y - math.lgamma(s + 1.0))
+    return min(max(total, 0.0), 1.0)
+
+
+@numba.njit(cache=True)
+def landmark_benefit(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray,
+                     a: np.ndarray, b: np.ndarray, overlap: np.ndarray, limit: float,
+                     lower: bool) -> float:
+    """One arm, several pieces: Pr(S(L) > S0(L) | data) = Pr(sum_j Delta_j h_j <
+    ``limit``), the pieces' hazards with gamma priors ``a[j, c]``, ``b[j, c]`` sharing
+    the mixture component c (log prior weights ``log_w``); each component's posterior
+    gives a sum of independent Gamma(a + d_j, (b + E_j) / Delta_j)
+    (:func:`gamma_sum_cdf_at`), mixed by the components' posterior weights (module
+    docstring of :mod:`octrial.endpoints.survival_maths`). ``lower``: lower hazards
+    better, so the benefit is that probability (else its complement)."""
+    pieces, width = a.shape
+    used = 0
+    for j in range(pieces):
+        if overlap[j] > 0.0:
+            used += 1
+    shapes = np.empty(used)
+    rates = np.empty(used)
+    log_post = np.full(width, -np.inf)
+    top = -np.inf
+    for c in range(width):
+        if math.isinf(log_w[c]):
+            continue
+        value = log_w[c]
+        for j in range(pieces):
+            post_a = a[j, c] + events[j]
+            value += (a[j, c] * math.log(b[j, c]) + math.lgamma(post_a)
+                      - math.lgamma(a[j, c]) - post_a * math.log(b[j, c] + exposure[j]))
+        log_post[c] = value
+        top = max(top, value)
+    total = 0.0
+    below = 0.0
+    for c in range(width):
+        if math.isinf(log_post[c]):
+            continue
+        weight = math.exp(log_post[c] - top)
+        total += weight
+        u = 0
+        for j in range(pieces):
+            if overlap[j] > 0.0:
+                shapes[u] = a[j, c] + events[j]
+                rates[u] = (b[j, c] + exposure[j]) / overlap[j]
+                u += 1
+        below += weight * gamma_sum_cdf_at(limit, shapes, rates)
+    below = min(max(below / total, 0.0), 1.0)
+    return below if lower else 1.0 - below
+
+
 @numba.njit(cache=True, inline="always")
 def piecewise_time(unit: float, hazards: np.ndarray, starts: np.ndarray) -> float:
     """The time whose cumulative hazard is ``unit`` (a standard exponential): the inverse
@@ -695,14 +851,17 @@ def patient_level_studies(
     b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
     tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
     stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray,
-    bound: float, quantiles: np.ndarray, draws: int,
+    bound: float, quantiles: np.ndarray, draws: int, overlap: np.ndarray, limit: float,
+    piece_a: np.ndarray, piece_b: np.ndarray,
 ) -> None:
     """Simulate ``studies`` studies, adding their stops and calendar totals.
 
     ``predictive``: the predictive futility threshold per look (``nan``: none; looks at
     event counts, one analysis piece); one arm uses the final exposure bound ``bound``,
     two arms ``draws`` draws and the table ``quantiles``
-    (:meth:`PatientLevelSimulator.predictive_setup`)."""
+    (:meth:`PatientLevelSimulator.predictive_setup`). A non-empty ``overlap`` makes a
+    one-arm decision on the landmark survival (:func:`landmark_benefit`, priors per piece
+    ``piece_a``, ``piece_b``)."""
     looks = targets.size
     arms = hazards.shape[0]
     pieces = analysis_starts.size
@@ -752,7 +911,11 @@ def patient_level_studies(
             for j in range(arms):
                 d[j] = events[j, piece]
                 e[j] = exposure[j, piece]
-            benefit = benefit_at(d, e, log_w, a, b, claim, lower)
+            if overlap.size > 0:
+                benefit = landmark_benefit(events[0], exposure[0], log_w[0], piece_a,
+                                           piece_b, overlap, limit, lower)
+            else:
+                benefit = benefit_at(d, e, log_w, a, b, claim, lower)
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
             if code == CONTINUE and wants_predictive_at(predictive[k], final):
