@@ -493,14 +493,9 @@ class TimeToEventFamily(Family):
 
             if importlib.util.find_spec("octrial.simulation.event_driven") is None:
                 return NOT_YET
-            if (e.periods > 1 and design.two_arm) or self.prior_on_effect(
-                    e, design.two_arm):
-                # the patient-level simulator decides on one period's gamma posterior
-                # (two arms) or on the landmark survival (one arm)
-                return ("the patient-level simulator takes gamma priors per arm (two arms: "
-                        "one hazard period); the normal approximation on the log hazard "
-                        "ratio is not simulated yet (it has its exact engine: "
-                        "simulation.method = 'exact')")
+            # the patient-level simulator decides on one period's gamma posteriors (two
+            # arms), the landmark survival (one arm) or the normal approximation on the
+            # log hazard ratio; check_design refuses two-arm gamma with several periods
             return self.predictive_unsupported(design)
         if e.periods > 1:
             return ("a piecewise-exponential design is simulated subject by subject: add a "
@@ -514,17 +509,19 @@ class TimeToEventFamily(Family):
         (``looks.futility_predictive``), or ``None``."""
         if all(v is None for v in design.looks.futility_predictive):
             return None
-        if self.prior_on_effect(design.endpoint, design.two_arm):
-            return ("with the normal approximation on the log hazard ratio, predictive "
-                    "futility (looks.futility_predictive) is evaluated by the exact engine "
-                    "(simulation.method = 'exact'), not simulated")
-        if design.endpoint.periods > 1:
-            return ("predictive futility (looks.futility_predictive) of time-to-event "
-                    "designs needs one hazard period (endpoint.periods)")
         if design.looks.trigger == "time":
             return ("predictive futility (looks.futility_predictive) of time-to-event "
                     "designs needs looks at event counts (the final analysis at a fixed "
                     "number of events), not at calendar times")
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            if design.conduct is None:
+                return ("with the normal approximation on the log hazard ratio and no "
+                        "[conduct], predictive futility (looks.futility_predictive) is "
+                        "evaluated by the exact engine (simulation.method = 'exact')")
+            return None  # the patient-level kernel's normal predictive probability
+        if design.endpoint.periods > 1:
+            return ("predictive futility (looks.futility_predictive) of time-to-event "
+                    "designs needs one hazard period (endpoint.periods)")
         return None
 
     def predictive_from(self, design: Any, events: tuple[np.ndarray, ...],

@@ -65,7 +65,7 @@ from octrial.simulation.calendar import (
     duration_edges,
     record_study,
 )
-from octrial.simulation.special import betainc, gammainc_pair
+from octrial.simulation.special import betainc, gammainc_pair, normal_sf
 
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
 TRIGGERS = {"events": 0, "time": 1}
@@ -139,6 +139,14 @@ class EventDrivenSetup:
         every piece).
     landmark_limit : float
         lambda0 H0(L): the benchmark's cumulative hazard at the landmark.
+    log_hazard_ratio_prior : tuple of three tuples of float, or None
+        Two arms, the normal approximation on the log hazard ratio: the prior's mixture
+        weights, means and sds on log HR (an infinite sd: flat). ``None``: gamma
+        posteriors per arm. The estimate is log(d_T / sum_j r_j E_Tj) - log(d_C /
+        sum_j r_j E_Cj) over all analysis pieces, with information D q / (1 + q)^2 from
+        the D events seen (q the allocation ratio; ``prior_a``/``prior_b`` unused).
+    analysis_shape : tuple of float
+        The relative hazard r_j of each analysis piece (empty: all 1).
     """
 
     hazards: tuple[tuple[float, ...], ...]
@@ -162,6 +170,9 @@ class EventDrivenSetup:
     predictive_draws: int = 1000
     landmark_overlap: tuple[float, ...] = ()
     landmark_limit: float = math.nan
+    log_hazard_ratio_prior: tuple[tuple[float, ...], tuple[float, ...],
+                                  tuple[float, ...]] | None = None
+    analysis_shape: tuple[float, ...] = ()
 
     def __post_init__(self) -> None:
         wrong = self.problems()
@@ -257,11 +268,23 @@ class EventDrivenSetup:
             if not self.landmark_limit > 0:
                 wrong.append(f"landmark_limit: expected a cumulative hazard > 0, got "
                              f"{self.landmark_limit}")
+        if self.log_hazard_ratio_prior is not None:
+            w, m, sd = self.log_hazard_ratio_prior
+            if self.arms != 2 or not w or len(w) != len(m) or len(w) != len(sd) or any(
+                    not x > 0 for x in (*w, *sd)) or any(not math.isfinite(x) for x in m):
+                wrong.append("log_hazard_ratio_prior: expected two arms and equal numbers of "
+                             "weights > 0, finite means and sds > 0, got "
+                             f"{self.log_hazard_ratio_prior} for {self.arms} arm(s)")
+        if self.analysis_shape and (len(self.analysis_shape) != pieces or any(
+                not x > 0 for x in self.analysis_shape)):
+            wrong.append(f"analysis_shape: expected {pieces} relative hazards > 0, got "
+                         f"{self.analysis_shape}")
         if any(v is not None for v in self.futility_predictive):
             if len(self.futility_predictive) != self.looks:
                 wrong.append(f"futility_predictive: expected {self.looks} values, got "
                              f"{len(self.futility_predictive)}")
-            if self.trigger != "events" or pieces != 1:
+            normal = self.log_hazard_ratio_prior is not None
+            if self.trigger != "events" or (pieces != 1 and not normal):
                 wrong.append("futility_predictive: expected looks at event counts and one "
                              f"analysis piece, got trigger {self.trigger!r} and {pieces} "
                              "piece(s)")
@@ -292,7 +315,8 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     period with the arm's prior on each, and decided on the first period's hazard ratio
     (two arms); one arm with several periods decides on the survival at the landmark
     (``endpoint.landmark_time``: the landmark, or the benchmark's median), as the
-    family does."""
+    family does. With ``analysis = 'normal-log-hazard-ratio'`` the decision is the
+    normal approximation with the prior ``hypothesis.prior`` on log HR."""
     conduct = design.conduct
     if conduct is None:
         raise ValueError("an event-driven design needs a [conduct] table")
@@ -321,6 +345,17 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     def per_period(values: Any) -> tuple[tuple[float, ...], ...]:
         return (tuple(float(x) for x in values),) * len(starts)
 
+    normal = None
+    if getattr(endpoint, "analysis", "gamma") == "normal-log-hazard-ratio":
+        prior = h.prior
+        sd = getattr(prior, "sd", None)
+        normal = ((tuple(float(v) for v in prior.weights), tuple(float(v) for v in prior.mean),
+                   tuple(float(v) for v in sd)) if sd is not None
+                  else ((1.0,), (0.0,), (math.inf,)))
+        # the arms' gamma priors are unused by the normal approximation
+        unused = SimpleNamespace(a=(1.0,), b=(1.0,), weights=(1.0,))
+        arms = tuple(SimpleNamespace(prior=unused, allocation=arm.allocation) for arm in arms)
+
     return EventDrivenSetup(
         hazards=tuple(tuple(float(t) * r for r in shape) for t in truth),
         claim=float(claim),
@@ -334,7 +369,8 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
         dropout_hazard=float(conduct.dropout_hazard),
         allocation=tuple(float(a.allocation) for a in arms),
         futility_predictive=tuple(getattr(looks, "futility_predictive", ())),
-        landmark_overlap=overlap, landmark_limit=limit)
+        landmark_overlap=overlap, landmark_limit=limit, log_hazard_ratio_prior=normal,
+        analysis_shape=shape)
 
 
 class PatientLevelSimulator(Simulator):
@@ -377,6 +413,7 @@ class PatientLevelSimulator(Simulator):
             self.piece_a[q, :size] = s.prior_a[0][q]
             self.piece_b[q, :size] = s.prior_b[0][q]
         self.overlap = np.asarray(s.landmark_overlap, dtype=float)
+        self.normal = self.normal_setup()
         self.targets = np.asarray(s.targets, dtype=float)
         self.efficacy = np.asarray(_nan(s.efficacy))
         self.futility = np.asarray(_nan(s.futility))
@@ -384,6 +421,40 @@ class PatientLevelSimulator(Simulator):
         self.counts = s.count_edges()
         self.predictive = np.asarray(_nan(s.futility_predictive or (None,) * s.looks))
         self.bound, self.quantiles = self.predictive_setup()
+
+    def normal_setup(self) -> tuple[np.ndarray, ...]:
+        """The normal approximation's numbers for the kernel: (prior weights, means and
+        precisions on the benefit scale eta = sign log HR, then one array of [sign,
+        claim sign log c, information per event q / (1 + q)^2, final information, final
+        score bound], then the analysis pieces' relative hazards); empty arrays for the
+        gamma analysis. The final score bound S* (final success iff S >= S*) is the
+        known-variance rule's (:func:`octrial.rules.normal.benefit_score`), for the
+        predictive probability."""
+        s = self.setup
+        pieces = len(s.analysis_starts)
+        shape = np.asarray(s.analysis_shape or (1.0,) * pieces, dtype=float)
+        if s.log_hazard_ratio_prior is None:
+            return np.empty(0), np.empty(0), np.empty(0), np.empty(5), shape
+        from octrial.endpoints.normal import NormalMixture
+        from octrial.rules.normal import benefit_score
+
+        w, m, sd = (np.asarray(v, dtype=float) for v in s.log_hazard_ratio_prior)
+        sign = -1.0 if s.lower_better else 1.0
+        q = (s.allocation[0] / s.allocation[1]) if s.allocation else 1.0
+        factor = q / (1.0 + q) ** 2
+        claim = sign * math.log(s.claim)
+        final_info = float(s.targets[-1]) * factor if s.trigger == "events" else math.nan
+        upper = math.nan
+        if s.trigger == "events" and any(v is not None for v in s.futility_predictive):
+            final_efficacy = s.efficacy[-1]
+            assert final_efficacy is not None  # problems() requires it
+            target = float(final_efficacy) - DECISION_TOLERANCE
+            prior = NormalMixture(tuple(w / w.sum()), tuple(m), tuple(sd))
+            upper = -math.inf if target <= 0 else benefit_score(
+                prior, int(sign), final_info, claim, target)
+        p0 = np.where(np.isinf(sd), 0.0, 1.0 / sd**2)
+        numbers = np.array([sign, claim, factor, final_info, upper])
+        return w / w.sum(), sign * m, p0, numbers, shape
 
     def predictive_setup(self) -> tuple[float, np.ndarray]:
         """What the predictive probability needs beyond the posterior, found once per
@@ -399,7 +470,7 @@ class PatientLevelSimulator(Simulator):
 
         s = self.setup
         none = (math.nan, np.empty(0))
-        if np.all(np.isnan(self.predictive)):
+        if np.all(np.isnan(self.predictive)) or s.log_hazard_ratio_prior is not None:
             return none
         final = float(self.targets[-1])
         threshold = float(self.efficacy[-1])
@@ -431,7 +502,7 @@ class PatientLevelSimulator(Simulator):
             self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
             self.futility, DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility,
             calendar, self.predictive, self.bound, self.quantiles, s.predictive_draws,
-            self.overlap, s.landmark_limit, self.piece_a, self.piece_b)
+            self.overlap, s.landmark_limit, self.piece_a, self.piece_b, *self.normal)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -705,6 +776,93 @@ def landmark_benefit(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray
     return below if lower else 1.0 - below
 
 
+@numba.njit(cache=True)
+def log_hazard_ratio_score(events: np.ndarray, exposure: np.ndarray, shape: np.ndarray,
+                           sign: float, factor: float) -> tuple[float, float]:
+    """(score S = sign I log HR-hat, information I) of two arms: each arm's multiplier
+    estimated by d / sum_j r_j E_j over the pieces, I = D q / (1 + q)^2 = D ``factor``
+    from the D events of both arms (Schoenfeld 1981)."""
+    d = np.zeros(2)
+    weighted = np.zeros(2)
+    for j in range(2):
+        for p in range(shape.size):
+            d[j] += events[j, p]
+            weighted[j] += shape[p] * exposure[j, p]
+    information = (d[0] + d[1]) * factor
+    estimate = math.log(d[0] / weighted[0]) - math.log(d[1] / weighted[1])
+    return sign * information * estimate, information
+
+
+@numba.njit(cache=True)
+def _normal_posterior(score: float, information: float, w: np.ndarray, m: np.ndarray,
+                      p0: np.ndarray, post_w: np.ndarray, post_m: np.ndarray,
+                      post_p: np.ndarray) -> None:
+    """The normal mixture posterior of eta after score S with information I (as
+    :func:`octrial.endpoints.normal.update`): precision p0 + I, mean (m p0 + S) /
+    precision, weights by the marginal N(S; I m, I + I^2 / p0)."""
+    top = -np.inf
+    for j in range(w.size):
+        post_p[j] = p0[j] + information
+        post_m[j] = (m[j] * p0[j] + score) / post_p[j]
+        if w.size == 1:
+            post_w[j] = 0.0
+            top = 0.0
+            continue
+        var = information + information * information / p0[j]
+        gap = score - information * m[j]
+        post_w[j] = math.log(w[j]) - 0.5 * math.log(var) - 0.5 * gap * gap / var
+        top = max(top, post_w[j])
+    total = 0.0
+    for j in range(w.size):
+        post_w[j] = math.exp(post_w[j] - top)
+        total += post_w[j]
+    for j in range(w.size):
+        post_w[j] /= total
+
+
+@numba.njit(cache=True)
+def normal_benefit(score: float, information: float, w: np.ndarray, m: np.ndarray,
+                   p0: np.ndarray, claim: float) -> float:
+    """B = Pr(eta > claim | S) = sum_j w'_j Phi((M_j - claim) sqrt(P_j)) (module
+    docstring of :mod:`octrial.rules.normal`); an infinite score (no events in an arm)
+    gives 0 or 1."""
+    if not math.isfinite(score):
+        return 1.0 if score > 0 else 0.0
+    post_w = np.empty(w.size)
+    post_m = np.empty(w.size)
+    post_p = np.empty(w.size)
+    _normal_posterior(score, information, w, m, p0, post_w, post_m, post_p)
+    out = 0.0
+    for j in range(w.size):
+        out += post_w[j] * normal_sf(-(post_m[j] - claim) * math.sqrt(post_p[j]))
+    return min(max(out, 0.0), 1.0)
+
+
+@numba.njit(cache=True)
+def normal_predictive(score: float, information: float, final_information: float,
+                      final_upper: float, w: np.ndarray, m: np.ndarray,
+                      p0: np.ndarray) -> float:
+    """Pr(S_K >= S* | S): S_K - S given the posterior component j is N(M_j D, D + D^2 /
+    P_j), D = I_K - I (as :func:`octrial.rules.normal.predictive`)."""
+    if not math.isfinite(final_upper):
+        return 0.0 if final_upper > 0 else 1.0
+    if not math.isfinite(score):
+        return 1.0 if score > 0 else 0.0
+    post_w = np.empty(w.size)
+    post_m = np.empty(w.size)
+    post_p = np.empty(w.size)
+    _normal_posterior(score, information, w, m, p0, post_w, post_m, post_p)
+    gap = max(final_information - information, 0.0)
+    out = 0.0
+    for j in range(w.size):
+        spread = math.sqrt(gap + gap * gap / post_p[j])
+        if spread == 0.0:
+            out += post_w[j] * (1.0 if score >= final_upper else 0.0)
+        else:
+            out += post_w[j] * normal_sf(-(score + post_m[j] * gap - final_upper) / spread)
+    return min(max(out, 0.0), 1.0)
+
+
 @numba.njit(cache=True, inline="always")
 def piecewise_time(unit: float, hazards: np.ndarray, starts: np.ndarray) -> float:
     """The time whose cumulative hazard is ``unit`` (a standard exponential): the inverse
@@ -852,7 +1010,8 @@ def patient_level_studies(
     tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
     stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray,
     bound: float, quantiles: np.ndarray, draws: int, overlap: np.ndarray, limit: float,
-    piece_a: np.ndarray, piece_b: np.ndarray,
+    piece_a: np.ndarray, piece_b: np.ndarray, normal_w: np.ndarray, normal_m: np.ndarray,
+    normal_p: np.ndarray, normal: np.ndarray, shape: np.ndarray,
 ) -> None:
     """Simulate ``studies`` studies, adding their stops and calendar totals.
 
@@ -861,7 +1020,8 @@ def patient_level_studies(
     two arms ``draws`` draws and the table ``quantiles``
     (:meth:`PatientLevelSimulator.predictive_setup`). A non-empty ``overlap`` makes a
     one-arm decision on the landmark survival (:func:`landmark_benefit`, priors per piece
-    ``piece_a``, ``piece_b``)."""
+    ``piece_a``, ``piece_b``). Non-empty ``normal_w`` selects the normal approximation on
+    the log hazard ratio (:meth:`PatientLevelSimulator.normal_setup`)."""
     looks = targets.size
     arms = hazards.shape[0]
     pieces = analysis_starts.size
@@ -911,7 +1071,14 @@ def patient_level_studies(
             for j in range(arms):
                 d[j] = events[j, piece]
                 e[j] = exposure[j, piece]
-            if overlap.size > 0:
+            score = 0.0
+            information = 0.0
+            if normal_w.size > 0:
+                score, information = log_hazard_ratio_score(events, exposure, shape,
+                                                            normal[0], normal[2])
+                benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
+                                         normal[1])
+            elif overlap.size > 0:
                 benefit = landmark_benefit(events[0], exposure[0], log_w[0], piece_a,
                                            piece_b, overlap, limit, lower)
             else:
@@ -919,7 +1086,10 @@ def patient_level_studies(
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
             if code == CONTINUE and wants_predictive_at(predictive[k], final):
-                if arms == 1:
+                if normal_w.size > 0:
+                    pp = normal_predictive(score, information, normal[3], normal[4],
+                                           normal_w, normal_m, normal_p)
+                elif arms == 1:
                     pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b,
                                             bound, lower)
                 else:
