@@ -17,11 +17,15 @@ follow-up has ended and it is the final analysis. The decision is the stop rule 
 posterior of one piece's hazard (``decision_piece``; with one analysis piece, the constant
 hazard): one arm, Pr(lambda < benchmark) by the regularized incomplete gamma; two arms,
 Pr(lambda_T / lambda_C < c) by the beta identity b_T l_T / (b_T l_T + b_C l_C) ~
-Beta(a_T, a_C). A stop ends enrolment. Predictive futility (looks at event counts, one
-analysis piece) uses the predictive probability of final success of
-:mod:`octrial.endpoints.survival_predictive`: one arm in closed form
-(:func:`one_arm_predictive`), two arms by the split approximation with a fixed number of
-draws from the study's generator (:func:`two_arm_predictive`).
+Beta(a_T, a_C). One arm with several pieces decides on the survival at a landmark
+(:func:`landmark_benefit`: a sum of gamma laws, the Moschopoulos series); two arms with
+the normal approximation on the log hazard ratio on the score of the log HR estimate
+(:func:`normal_benefit`). A stop ends enrolment. Predictive futility (looks at event
+counts) uses the predictive probability of final success: with gamma posteriors (one
+analysis piece) that of :mod:`octrial.endpoints.survival_predictive`, one arm in closed
+form (:func:`one_arm_predictive`), two arms by the split approximation with a fixed
+number of draws from the study's generator (:func:`two_arm_predictive`); with the normal
+approximation the known-variance model's (:func:`normal_predictive`).
 
 Random numbers come only from the generator passed to :meth:`PatientLevelSimulator.
 simulate`, drawn inside the kernel study by study in a fixed order (the study's
