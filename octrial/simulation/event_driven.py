@@ -895,10 +895,16 @@ def draw_subjects(rng: Any, kind: int, rates: np.ndarray, starts: np.ndarray,
             gaps[i] = rng.standard_exponential()
     fill_enrolment_times(gaps, kind, rates, starts, times, enrolled)
     resolved = 0.0
+    one_piece = hazard_starts.size == 1
+    place = 0  # i modulo the block's size, without a division per subject
     for i in range(m):
-        j = pattern[i % pattern.size]
+        j = pattern[place]
+        place = place + 1 if place + 1 < pattern.size else 0
         arm_of[i] = j
-        t_event = piecewise_time(rng.standard_exponential(), hazards[j], hazard_starts)
+        # one piece: u / h, what piecewise_time returns (0 + u / h), without taking a
+        # row of hazards, whose reference counting cost more than the division
+        t_event = (rng.standard_exponential() / hazards[j, 0] if one_piece else
+                   piecewise_time(rng.standard_exponential(), hazards[j], hazard_starts))
         t_loss = rng.standard_exponential() / dropout if dropout > 0.0 else np.inf
         seen[i] = t_event <= t_loss
         follow[i] = t_event if seen[i] else t_loss
@@ -913,10 +919,34 @@ def piece_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
     """Each arm's events and exposure in each analysis piece (rows: arms, columns:
     pieces of ``starts``) at the analysis at calendar time ``tau``; returns the subjects
     enrolled by then (``enrolled`` non-decreasing, as enrolment times are)."""
-    events[:] = 0.0
-    exposure[:] = 0.0
     pieces = starts.size
     entered = 0
+    if pieces == 1 and exposure.shape[0] <= 2:
+        # one piece, one or two arms: sums in registers, in the same order as below
+        # (arithmetic rather than branches for whether a subject has ended, a coin toss
+        # the processor cannot predict; the arm follows the allocation block's pattern)
+        e0 = e1 = d0 = d1 = 0.0
+        for i in range(enrolled.size):
+            if enrolled[i] > tau:
+                break  # enrolment times are non-decreasing
+            entered += 1
+            ended = enrolled[i] + follow[i] <= tau
+            f = follow[i] if ended else tau - enrolled[i]
+            g = 1.0 * (ended & seen[i])
+            if arm_of[i] == 0:
+                e0 += f
+                d0 += g
+            else:
+                e1 += f
+                d1 += g
+        exposure[0, 0] = e0
+        events[0, 0] = d0
+        if exposure.shape[0] == 2:
+            exposure[1, 0] = e1
+            events[1, 0] = d1
+        return entered
+    events[:] = 0.0
+    exposure[:] = 0.0
     for i in range(enrolled.size):
         if enrolled[i] > tau:
             break  # enrolment times are non-decreasing
@@ -1054,10 +1084,11 @@ def patient_level_studies(
         if trigger == 0:
             top = 0.0
             for i in range(m):
-                if seen[i]:
-                    event_times[count] = enrolled[i] + follow[i]
-                    top = max(top, event_times[count])
-                    count += 1
+                # written always, kept when seen: no branch on a coin toss
+                t = enrolled[i] + follow[i]
+                event_times[count] = t
+                top = max(top, t if seen[i] else 0.0)
+                count += seen[i]
             while reached < looks and targets[reached] <= count:
                 reached += 1
             ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
