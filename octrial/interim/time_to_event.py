@@ -146,7 +146,7 @@ class TimeToEventInterim(EndpointInterim):
             if family.prior_on_effect(design.endpoint, design.two_arm):
                 pp = family.normal_predictive(design, look, events, exposure)
             elif (reason := family.predictive_unsupported(design)) is not None:
-                raise InputError(str(design.source.path) if design.source else "design",
+                raise InputError(design.source.path or design.name,
                                  [Problem("looks.futility_predictive",
                                           "a design whose predictive probability is "
                                           "available", reason)])
