@@ -62,20 +62,27 @@ def test_compound_gamma_tail_matches_quadrature() -> None:
         assert value == pytest.approx(want, abs=1e-9), (a, b, m, y)
 
 
-def test_two_arm_fixed_events_matches_scipy_continuation() -> None:
+@pytest.mark.parametrize(("better", "states"), [
+    ("lower", ((150.0, 120.0), (200.0, 180.0), (100.0, 160.0))),
+    ("higher", ((120.0, 150.0), (180.0, 200.0), (160.0, 100.0))),
+])
+def test_two_arm_fixed_events_matches_scipy_continuation(
+        better: str, states: tuple[tuple[float, float], ...]) -> None:
     """Two arms, no censoring (each arm's final events fixed), mixture prior on the
     control: the Gauss-Legendre integral against the simulated continuation (hazards
     from the posterior, each arm's remaining time on study Gamma(m, lambda) from
     scipy.stats.gamma, final success by the family's posterior probability and the stop
     rule; Lee & Liu 2008's definition) within 4 standard errors, at three interim
-    states with the predictive probability between 0.001 and 0.5."""
-    design = build(TWO_ARM_FIXED)
+    states with the predictive probability between 0.0003 and 0.5, lower or higher
+    hazards better."""
+    design = build({**TWO_ARM_FIXED, "endpoint": {"type": "time-to-event",
+                                                  "better": better}})
     family = design.family
     rule = Rule.of(design.looks)
     now, end = design.looks.per_arm[0], design.looks.per_arm[-1]
     rng = np.random.default_rng(3)
     draws = 200_000
-    for x_t, x_c in ((150.0, 120.0), (200.0, 180.0), (100.0, 160.0)):
+    for x_t, x_c in states:
         value = float(family.predictive_at(design, (np.array([x_t]), np.array([x_c])),
                                            now)[0])
         hazards = []
@@ -89,8 +96,23 @@ def test_two_arm_fixed_events_matches_scipy_continuation() -> None:
         final = family.benefit_at(design, (x_t + future[0], x_c + future[1]), end)
         p = float(np.mean(rule.decide_many(rule.last, final) == EFFICACY))
         se = math.sqrt(p * (1 - p) / draws)
-        assert 0.0005 < p < 0.5
+        assert 0.0003 < p < 0.5
         assert abs(value - p) <= Z * se, (x_t, x_c, value, p, se)
+
+
+def test_one_arm_higher_hazard_better_passes_the_family_suite_check() -> None:
+    """The common suite's continuation check (tests/family_suite.py; Lee & Liu 2008)
+    on a one-arm design where a higher hazard is better (final success is then an
+    exposure below the bound)."""
+    from tests import family_suite
+    from tests.test_family_suite import SUITE_DESIGNS
+
+    data = SUITE_DESIGNS["time-to-event"]
+    design = build({**data, "endpoint": {"type": "time-to-event", "better": "higher"},
+                    "hypothesis": {"benchmark": 0.08},
+                    "scenarios": {"treatment": [0.08, 0.15]}})
+    assert any(v is not None for v in design.looks.futility_predictive)
+    family_suite.check_predictive_by_continuation(design.family, design)
 
 
 def test_one_arm_decide_gives_the_closed_form_and_stops_for_futility() -> None:
