@@ -142,6 +142,21 @@ class TimeToEventFamily(Family):
                        "log hazard ratio estimate is taken as normal with variance "
                        "1/d_T + 1/d_C, information events x q / (1 + q)^2 at allocation "
                        "q:1 (Schoenfeld 1981).")
+        if any(v is not None for v in design.looks.futility_predictive) and not (
+                self.prior_on_effect(e, design.two_arm)):
+            text = ("The predictive probability of final success takes the time at risk "
+                    "still to come until the final number of events as gamma given the "
+                    "hazard (exact for a constant hazard whatever the entry and "
+                    "independent dropout; a final analysis held early because the events "
+                    "run out is ignored)")
+            if design.two_arm and design.conduct is not None:
+                from octrial.simulation.event_driven import PREDICTIVE_DRAWS
+
+                text += ("; for two arms the future time at risk keeps the ratio of the "
+                         "arms' time at risk so far and the remaining events split "
+                         "binomially between the arms (an approximation), estimated from "
+                         f"{PREDICTIVE_DRAWS:,} draws per study and look")
+            out.append(text + ".")
         if design.conduct is None:
             out.append("Without a [conduct] table every analysed subject's event is observed "
                        "(nobody is censored): a look's number of subjects is its number of "
