@@ -547,68 +547,9 @@ class TimeToEventFamily(Family):
         :mod:`octrial.endpoints.survival_predictive`: exact for one arm and, without
         ``[conduct]`` (events per arm fixed), for two arms; two event-driven arms by the
         split approximation with ``draws`` draws from ``seed``."""
-        from octrial.endpoints import survival_predictive as sp
+        from octrial.endpoints.survival_predictive import design_predictive
 
-        looks, h = design.looks, design.hypothesis
-        lower = h.better == "lower"
-        threshold = float(looks.efficacy[-1])
-        d = [np.atleast_2d(np.asarray(v, dtype=float))[:, 0] for v in events]
-        x = [np.atleast_2d(np.asarray(v, dtype=float))[:, 0] for v in exposure]
-        posts = tuple(self.posterior(arm.prior, dj[:, None], xj[:, None])
-                      for arm, dj, xj in zip(design.arms, d, x, strict=True))
-        posts = tuple((w, a[..., 0], b[..., 0]) for w, a, b in posts)
-        event_driven = design.conduct is not None
-        if event_driven:
-            final: tuple[float, ...] = (float(self.event_targets(design)[-1]),)
-        else:
-            final = tuple(float(v) for v in looks.per_arm[-1])
-        if not design.two_arm:
-            (w, a, b), = posts
-            total = final[0]
-
-            def benefit(t: float) -> float:
-                return float(self.benefit_from(design, (np.array([[total]]),),
-                                               (np.array([[t]]),))[0])
-
-            bound = sp.exposure_bound(benefit, threshold, lower, total / design.arms[0]
-                                      .prior.mean)
-            out = np.empty(d[0].size)
-            for m in np.unique(np.maximum(total - d[0], 0.0)):
-                rows = np.maximum(total - d[0], 0.0) == m
-                out[rows] = sp.one_arm(w[rows], a[rows], b[rows], x[0][rows], float(m),
-                                       bound, lower)
-            return out
-
-        if not event_driven:
-            def fixed(t_t: np.ndarray, t_c: np.ndarray) -> np.ndarray:
-                full = tuple(np.full((t_t.size, 1), v) for v in final)
-                return self.benefit_from(design, full, (t_t[:, None], t_c[:, None]))
-
-            out = np.empty(d[0].size)
-            future = np.maximum(np.array(final)[None, :] - np.stack(d, axis=1), 0.0)
-            for row in np.unique(future, axis=0):
-                rows = np.all(future == row, axis=1)
-                out[rows] = sp.two_arm_fixed_events(
-                    tuple((w[rows], a[rows], b[rows]) for w, a, b in posts),
-                    (x[0][rows], x[1][rows]), (int(row[0]), int(row[1])), fixed,
-                    threshold, lower)
-            return out
-
-        def split(d_t: np.ndarray, d_c: np.ndarray, t_t: np.ndarray,
-                  t_c: np.ndarray) -> np.ndarray:
-            return self.benefit_from(design, (d_t[:, None].astype(float),
-                                              d_c[:, None].astype(float)),
-                                     (t_t[:, None], t_c[:, None]))
-
-        rng = np.random.default_rng(np.random.SeedSequence(seed))
-        out = np.empty(d[0].size)
-        for i in range(out.size):
-            m = int(max(final[0] - d[0][i] - d[1][i], 0))
-            out[i] = sp.two_arm_split(
-                tuple((w[i:i + 1], a[i:i + 1], b[i:i + 1]) for w, a, b in posts),
-                (float(d[0][i]), float(d[1][i])), (float(x[0][i]), float(x[1][i])), m,
-                split, threshold, rng, draws)
-        return out
+        return design_predictive(design, events, exposure, seed=seed, draws=draws)
 
     def predictive_at(self, design: Any, statistics: tuple[np.ndarray, ...],
                       n: tuple[int, ...]) -> np.ndarray:
