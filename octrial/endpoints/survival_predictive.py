@@ -25,13 +25,21 @@ the events run out (too few subjects, or losses).
   the control arm's future exposure (Gauss-Legendre in its quantiles:
   :func:`two_arm_fixed_events`).
 * Two arms, event-driven with censoring: the split of the m future events between the
-  arms depends on who is at risk when. The approximation used: the future exposure of the
-  arms keeps the ratio rho = x_T / x_C of the exposure so far; then, given the hazards,
-  the control arm's future exposure S until m events is Gamma(m, rho lambda_T +
-  lambda_C), the treatment's rho S, and the treatment's share of the events
-  Binomial(m, rho lambda_T / (rho lambda_T + lambda_C)), independent of S. PP is the mean
-  of final success over draws of (hazards, split, S) (:func:`two_arm_split`; the kernel
-  draws the same in numba).
+  arms depends on who is at risk when. The approximation used: the arms' future exposures
+  keep a fixed ratio rho; then, given the hazards, the control arm's future exposure S
+  until m events is Gamma(m, rho lambda_T + lambda_C), the treatment's rho S, and the
+  treatment's share J of the events Binomial(m, rho lambda_T / (rho lambda_T +
+  lambda_C)), independent of S (a Poisson process split by its marks). rho is the ratio
+  of the arms' posterior rates b'_T / b'_C (prior rate plus exposure so far; with a
+  mixture, weighted by the posterior weights), close to the ratio of the exposures so
+  far. With one gamma component per arm this choice makes the predictive law closed:
+  integrating the hazards out, J ~ BetaBinomial(m, a'_T, a'_C) and S / (b'_C + S) ~
+  Beta(m, a'_T + a'_C) independently (substitute z = S / (b'_C + S) in the joint density
+  of (J, S)), and the final ratio of posterior rates is (b'_T + rho S) / (b'_C + S) = rho,
+  the current one, so final success depends on J only: PP = sum_j BetaBinomial(j; m,
+  a'_T, a'_C) 1[B_final(j) >= threshold] (:func:`two_arm_split_single`), as Lee & Liu's
+  predictive probability for two binomial arms. With mixtures PP is the mean of final
+  success over draws of (component, hazards, J, S) (:func:`two_arm_split`).
 """
 
 from __future__ import annotations
@@ -41,7 +49,7 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from scipy import optimize, special
+from scipy import optimize, special, stats
 
 from octrial.rules.stop import DECISION_TOLERANCE
 
@@ -180,6 +188,29 @@ def _treatment_bound(final_benefit: Callable[[np.ndarray, np.ndarray], np.ndarra
     return tau.reshape(shape)
 
 
+def split_ratio(posts: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...]) -> float:
+    """rho of the split approximation: the ratio of the arms' posterior rates (prior rate
+    plus exposure so far), each weighted by its posterior weights (``posts``: (w, a, b)
+    with one row)."""
+    (w_t, _, b_t), (w_c, _, b_c) = posts
+    return float(np.sum(w_t[0] * b_t[0]) / np.sum(w_c[0] * b_c[0]))
+
+
+def two_arm_split_single(a_t: float, b_t: float, a_c: float, b_c: float, m: int,
+                         claim: float, threshold: float, lower: bool) -> float:
+    """PP of two event-driven arms with one gamma posterior each (shapes ``a_t``,
+    ``a_c``, rates ``b_t``, ``b_c``) and ``m`` events to come, under the split
+    approximation with rho = b_t / b_c (module docstring): the beta-binomial law of the
+    treatment's share of the events, final success by the beta form at the unchanged
+    rate ratio k = c b_t / b_c."""
+    j = np.arange(m + 1)
+    k = claim * b_t / b_c
+    below = np.clip(special.betainc(a_t + j, a_c + m - j, k / (1.0 + k)), 0.0, 1.0)
+    final = below if lower else 1.0 - below
+    pmf = stats.betabinom.pmf(j, m, a_t, a_c)
+    return float(min(np.sum(pmf[final >= threshold - DECISION_TOLERANCE]), 1.0))
+
+
 def two_arm_split(posts: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...],
                   events: tuple[float, float], exposure: tuple[float, float], m: int,
                   final_benefit: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
@@ -191,7 +222,7 @@ def two_arm_split(posts: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...],
     future events, the control's future exposure S; success when
     ``final_benefit(d_T, d_C, x_T, x_C)`` (arrays) reaches the threshold."""
     x_t, x_c = exposure
-    rho = x_t / x_c if x_c > 0 else 1.0
+    rho = split_ratio(posts)
     hazards = []
     for w, a, b in posts:
         c = rng.choice(w.shape[1], size=draws, p=w[0] / w[0].sum())
@@ -210,9 +241,10 @@ def design_predictive(design: Any, events: tuple[np.ndarray, ...],
     """Predictive probability of final success per study of a gamma time-to-event design
     (one period) from each arm's events and exposure (arrays of shape (studies, 1)):
     :func:`one_arm` (exact), :func:`two_arm_fixed_events` without ``[conduct]`` (exact
-    to quadrature) and :func:`two_arm_split` for two event-driven arms (``draws`` draws
-    from ``seed``). The family's posterior and final benefit are
-    :meth:`~octrial.endpoints.time_to_event.TimeToEventFamily.posterior` and
+    to quadrature) and for two event-driven arms the split approximation,
+    :func:`two_arm_split_single` with one prior component per arm, else
+    :func:`two_arm_split` (``draws`` draws from ``seed``). The family's posterior and
+    final benefit are :meth:`~octrial.endpoints.time_to_event.TimeToEventFamily.posterior` and
     :meth:`~octrial.endpoints.time_to_event.TimeToEventFamily.benefit_from`."""
     family = design.family
     looks, h = design.looks, design.hypothesis
@@ -268,8 +300,15 @@ def design_predictive(design: Any, events: tuple[np.ndarray, ...],
 
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     out = np.empty(d[0].size)
+    single = all(len(arm.prior.weights) == 1 for arm in design.arms)
     for i in range(out.size):
         m = int(max(final[0] - d[0][i] - d[1][i], 0))
+        if single:
+            (_, a_t, b_t), (_, a_c, b_c) = posts
+            out[i] = two_arm_split_single(float(a_t[i, 0]), float(b_t[i, 0]),
+                                          float(a_c[i, 0]), float(b_c[i, 0]), m,
+                                          float(h.threshold), threshold, lower)
+            continue
         out[i] = two_arm_split(
             tuple((w[i:i + 1], a[i:i + 1], b[i:i + 1]) for w, a, b in posts),
             (float(d[0][i]), float(d[1][i])), (float(x[0][i]), float(x[1][i])), m,

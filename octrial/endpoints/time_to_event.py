@@ -153,9 +153,12 @@ class TimeToEventFamily(Family):
                 from octrial.simulation.event_driven import PREDICTIVE_DRAWS
 
                 text += ("; for two arms the future time at risk keeps the ratio of the "
-                         "arms' time at risk so far and the remaining events split "
-                         "binomially between the arms (an approximation), estimated from "
-                         f"{PREDICTIVE_DRAWS:,} draws per study and look")
+                         "arms' posterior rates (prior rate plus time at risk so far) and "
+                         "the remaining events split binomially between the arms given the "
+                         "hazards (an approximation)")
+                if any(len(arm.prior.weights) > 1 for arm in design.arms):
+                    text += (f", estimated from {PREDICTIVE_DRAWS:,} draws per study and "
+                             "look with mixture priors")
             out.append(text + ".")
         if design.conduct is None:
             out.append("Without a [conduct] table every analysed subject's event is observed "

@@ -23,14 +23,16 @@ the normal approximation on the log hazard ratio on the score of the log HR esti
 (:func:`normal_benefit`). A stop ends enrolment. Predictive futility (looks at event
 counts) uses the predictive probability of final success: with gamma posteriors (one
 analysis piece) that of :mod:`octrial.endpoints.survival_predictive`, one arm in closed
-form (:func:`one_arm_predictive`), two arms by the split approximation with a fixed
-number of draws from the study's generator (:func:`two_arm_predictive`); with the normal
-approximation the known-variance model's (:func:`normal_predictive`).
+form (:func:`one_arm_predictive`), two arms by the split approximation
+(:func:`two_arm_predictive`: a beta-binomial sum with one prior component per arm, else
+a fixed number of draws from the study's generator); with the normal approximation the
+known-variance model's (:func:`normal_predictive`).
 
 Random numbers come only from the generator passed to :meth:`PatientLevelSimulator.
 simulate`, drawn inside the kernel study by study in a fixed order (the study's
 enrolment gaps, then per subject in enrolment order its event time and its loss time;
-then, at each two-arm look that needs it, the predictive probability's draws), so a
+then, at each two-arm look with mixture priors that needs it, the predictive
+probability's draws), so a
 batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
 
 Speed: every subject is simulated (about 3 standard exponentials per subject, which are
@@ -73,7 +75,8 @@ from octrial.simulation.special import betainc, gammainc_pair, normal_sf
 
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
 PREDICTIVE_DRAWS = 1000
-"""Draws of one two-arm predictive probability (standard error at most 0.016)."""
+"""Draws of one two-arm predictive probability with mixture priors (standard error at
+most 0.016); one component per arm needs none."""
 TRIGGERS = {"events": 0, "time": 1}
 
 
@@ -623,21 +626,43 @@ def two_arm_predictive(rng: Any, d: np.ndarray, x: np.ndarray, final: float,
                        lower: bool, target: float, quantiles: np.ndarray,
                        draws: int) -> float:
     """Predictive probability of final success of two arms with events ``d`` and
-    exposure ``x`` and ``final`` events in total at the final analysis, by ``draws``
-    draws of the split approximation (:mod:`octrial.endpoints.survival_predictive`):
-    hazards from the posterior, the control's future exposure S, the treatment's
-    rho S (rho = x_T / x_C), the treatment's share of the future events binomial.
-    Final success from ``quantiles`` (one prior component per arm: success iff
-    k / (1 + k) is at least, or with higher hazards better at most, the entry of the
-    treatment's final events) or else from :func:`benefit_at` against ``target`` (the
-    final threshold less the stop rule's tolerance)."""
+    exposure ``x`` and ``final`` events in total at the final analysis, under the split
+    approximation (:mod:`octrial.endpoints.survival_predictive`: the arms' future
+    exposures in the ratio rho of their posterior rates, the treatment's share of the
+    future events binomial given the hazards). One prior component per arm (``quantiles``
+    given: success iff k / (1 + k) is at least, or with higher hazards better at most,
+    the entry of the treatment's final events; k = c b_T / b_C): exactly, the
+    treatment's share being beta-binomial and k unchanged. Mixtures: ``draws`` draws of
+    (component, hazards, share, the control's future exposure S) from ``rng``, final
+    success by :func:`benefit_at` against ``target`` (the final threshold less the stop
+    rule's tolerance)."""
     width = a.shape[1]
     post_w = np.empty((2, width))
     post_a = np.empty((2, width))
     post_b = np.empty((2, width))
     posterior_into(d, x, log_w, a, b, post_w, post_a, post_b)
     m = int(final - d[0] - d[1])
-    rho = x[0] / x[1] if x[1] > 0.0 else 1.0
+    if quantiles.size > 0:
+        a_t, a_c = post_a[0, 0], post_a[1, 0]
+        k = claim * post_b[0, 0] / post_b[1, 0]
+        z = k / (1.0 + k)
+        # beta-binomial pmf from its value at 0 by the ratio of successive terms, in logs
+        log_p = (math.lgamma(a_c + m) + math.lgamma(a_t + a_c) - math.lgamma(a_c)
+                 - math.lgamma(a_t + a_c + m))
+        total = 0.0
+        for j in range(m + 1):
+            q = quantiles[int(d[0]) + j]
+            if (z >= q) if lower else (z <= q):
+                total += math.exp(log_p)
+            if j < m:
+                log_p += math.log((m - j) * (a_t + j)) - math.log((j + 1) * (a_c + m - j - 1))
+        return min(total, 1.0)
+    rate_t = 0.0
+    rate_c = 0.0
+    for c in range(width):
+        rate_t += post_w[0, c] * post_b[0, c]
+        rate_c += post_w[1, c] * post_b[1, c]
+    rho = rate_t / rate_c
     hits = 0
     fd = np.empty(2)
     fx = np.empty(2)
@@ -654,16 +679,11 @@ def two_arm_predictive(rng: Any, d: np.ndarray, x: np.ndarray, final: float,
         rate = rho * lam[0] + lam[1]
         share = rng.binomial(m, rho * lam[0] / rate) if m > 0 else 0
         s = rng.gamma(m, 1.0 / rate) if m > 0 else 0.0
-        if quantiles.size > 0:
-            k = claim * (post_b[0, 0] + rho * s) / (post_b[1, 0] + s)
-            q = quantiles[int(d[0]) + share]
-            hits += (k / (1.0 + k) >= q) if lower else (k / (1.0 + k) <= q)
-        else:
-            fd[0] = d[0] + share
-            fd[1] = d[1] + m - share
-            fx[0] = x[0] + rho * s
-            fx[1] = x[1] + s
-            hits += benefit_at(fd, fx, log_w, a, b, claim, lower) >= target
+        fd[0] = d[0] + share
+        fd[1] = d[1] + m - share
+        fx[0] = x[0] + rho * s
+        fx[1] = x[1] + s
+        hits += benefit_at(fd, fx, log_w, a, b, claim, lower) >= target
     return hits / draws
 
 

@@ -17,7 +17,8 @@ priors on both hazards, efficacy if Pr(HR < 1) >= 0.999 / 0.99 / 0.975, futility
 * a plain Python loop over studies and subjects (the same reference module);
 * the cost of the random numbers alone (numpy: 3 standard exponentials per subject);
 * the kernel on the same design with predictive futility (PP < 0.1) at both interim
-  looks: the two-arm predictive probability's 1000 draws per look (docs/methods.md).
+  looks: the two-arm predictive probability's beta-binomial sum (one prior component
+  per arm; docs/methods.md).
 
 Printed: studies per second and the ratios, with the three estimates of the power
 (they agree within Monte Carlo error). Wall-clock times are only reported, never
@@ -105,8 +106,7 @@ def main() -> None:
             rng.standard_exponential((min(1000, n - start), 3 * M))
         return np.zeros(1)
 
-    # the same design with predictive futility at both interim looks (PP < 0.1): the
-    # two-arm predictive probability draws 1000 continuations per look
+    # the same design with predictive futility at both interim looks (PP < 0.1)
     with_pp = PatientLevelSimulator(dataclasses.replace(
         setup(), futility_predictive=(0.1, 0.1, None)))
     with_pp.simulate(np.random.default_rng(0), 10)
