@@ -202,20 +202,29 @@ def test_two_arm_event_driven_decide_uses_the_split_approximation() -> None:
     assert abs(value - p) <= Z * se, (value, p, se)
 
 
-def test_predictive_futility_is_refused_with_calendar_looks(tmp_path: Path) -> None:
+@pytest.mark.parametrize(("changes", "word"), [
+    ({"looks": {"time": [6.0, 12.0, 24.0], "efficacy": [0.999, 0.99, 0.975],
+                "futility_predictive": [0.1, 0.1]}}, "calendar"),
+    ({"endpoint": {"type": "time-to-event", "periods": [0, 6], "relative_hazard": [1, 0.6],
+                   "landmark": 12.0},
+      "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 1, "rate": 40}}}},
+     "one hazard period"),
+])
+def test_predictive_futility_is_refused_where_unavailable(tmp_path: Path,
+                                                          changes: dict[str, Any],
+                                                          word: str) -> None:
     """Predictive futility needs looks at event counts (the final analysis at a fixed
-    number of events): ``octrial run`` on a design with calendar-time looks exits 2,
-    naming looks.futility_predictive, and writes nothing."""
+    number of events) and, with gamma priors, one hazard period: ``octrial run`` on a
+    design with calendar-time looks or two periods exits 2, naming
+    looks.futility_predictive, and writes nothing."""
     from click.testing import CliRunner
 
     from octrial.cli import main
     from octrial.design.write import dumps
 
-    data = {**ONE_ARM_CONDUCT, "looks": {
-        "time": [6.0, 12.0, 24.0], "efficacy": [0.999, 0.99, 0.975],
-        "futility_predictive": [0.1, 0.1]}}
+    data = {**ONE_ARM_CONDUCT, **changes}
     reason = build(data).family.simulation_unsupported(build(data))
-    assert reason is not None and "calendar" in reason
+    assert reason is not None and word in reason
     path = tmp_path / "calendar.toml"
     path.write_text(dumps(data))
     out = tmp_path / "out"
