@@ -1,6 +1,6 @@
 """One-arm landmark decisions with several hazard periods in the patient-level kernel
-(:func:`~octrial.simulation.event_driven.landmark_benefit`,
-:func:`~octrial.simulation.event_driven.gamma_sum_cdf_at`) against scipy: quadrature of
+(:func:`~octrial.simulation.event_driven_decisions.landmark_benefit`,
+:func:`~octrial.simulation.event_driven_decisions.gamma_sum_cdf_at`) against scipy: quadrature of
 the convolution of two gamma laws, Monte Carlo sums of scipy gamma draws for three
 periods, double quadrature for a mixture shared by the periods, and the family's own
 posterior probability (the Moschopoulos series of survival_maths, itself checked against
@@ -16,13 +16,14 @@ import pytest
 from scipy import integrate, stats
 
 from octrial.simulation import event_driven as ed
+from octrial.simulation import event_driven_decisions as decisions
 from tests.helpers import build
 
 Z = 4.0
 
 
 def _one(shapes: list[float], rates: list[float], x: float) -> float:
-    return ed.gamma_sum_cdf_at(x, np.array(shapes), np.array(rates))
+    return decisions.gamma_sum_cdf_at(x, np.array(shapes), np.array(rates))
 
 
 @pytest.mark.parametrize(("shapes", "rates", "x"), [
@@ -76,11 +77,11 @@ def test_landmark_benefit_with_a_shared_mixture_matches_double_quadrature() -> N
                                epsabs=0, epsrel=1e-10)[0]
     whole = integrate.dblquad(joint, 0, top, 0, top, epsabs=0, epsrel=1e-10)[0]
     log_w = np.log(np.array(weights))
-    value = ed.landmark_benefit(np.array(d), np.array(e), log_w,
+    value = decisions.landmark_benefit(np.array(d), np.array(e), log_w,
                                 np.array([a, a]), np.array([b, b]), np.array(overlap),
                                 limit, True)
     assert value == pytest.approx(inside / whole, abs=1e-7)
-    assert ed.landmark_benefit(np.array(d), np.array(e), log_w, np.array([a, a]),
+    assert decisions.landmark_benefit(np.array(d), np.array(e), log_w, np.array([a, a]),
                                np.array([b, b]), np.array(overlap), limit,
                                False) == pytest.approx(1 - inside / whole, abs=1e-7)
 

@@ -1,7 +1,7 @@
 """The normal approximation on the log hazard ratio in the patient-level kernel
-(:func:`~octrial.simulation.event_driven.log_hazard_ratio_score`,
-:func:`~octrial.simulation.event_driven.normal_benefit`,
-:func:`~octrial.simulation.event_driven.normal_predictive`): its probabilities against
+(:func:`~octrial.simulation.event_driven_decisions.log_hazard_ratio_score`,
+:func:`~octrial.simulation.event_driven_decisions.normal_benefit`,
+:func:`~octrial.simulation.event_driven_decisions.normal_predictive`): its probabilities against
 the known-variance rule's own functions (:mod:`octrial.rules.normal`, checked against
 scipy and published constants in tests/test_normal_engine.py), and simulated studies
 against the exact recursion on the event scale (Armitage, McPherson & Rowe 1969;
@@ -19,6 +19,7 @@ import octrial
 from octrial.endpoints.normal import NormalMixture
 from octrial.rules import normal as rules
 from octrial.simulation import event_driven as ed
+from octrial.simulation import event_driven_decisions as decisions
 from tests.helpers import build
 
 Z = 4.0
@@ -54,13 +55,13 @@ def test_kernel_normal_probabilities_equal_the_known_variance_rule() -> None:
         want_b = float(rules.benefit(prior, sign, info, claim, np.array([score]))[0])
         want_pp = float(rules.predictive(prior, sign, info, final, upper,
                                          np.array([score]))[0])
-        assert ed.normal_benefit(score, info, w, m, p0, claim) == pytest.approx(
+        assert decisions.normal_benefit(score, info, w, m, p0, claim) == pytest.approx(
             want_b, abs=1e-12)
-        assert ed.normal_predictive(score, info, final, upper, w, m, p0) == pytest.approx(
+        assert decisions.normal_predictive(score, info, final, upper, w, m, p0) == pytest.approx(
             want_pp, abs=1e-12)
     events = np.array([[40.0], [60.0]])
     exposure = np.array([[900.0], [800.0]])
-    score, information = ed.log_hazard_ratio_score(events, exposure, np.ones(1), -1.0,
+    score, information = decisions.log_hazard_ratio_score(events, exposure, np.ones(1), -1.0,
                                                    0.25)
     assert information == 25.0
     assert score == pytest.approx(-25.0 * math.log((40 / 900) / (60 / 800)), rel=1e-14)

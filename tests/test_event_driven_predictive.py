@@ -1,7 +1,7 @@
 """The predictive probability of final success of event-driven time-to-event studies
 (:mod:`octrial.endpoints.survival_predictive`, the kernel's
-:func:`~octrial.simulation.event_driven.one_arm_predictive` and
-:func:`~octrial.simulation.event_driven.two_arm_predictive`, the family's
+:func:`~octrial.simulation.event_driven_decisions.one_arm_predictive` and
+:func:`~octrial.simulation.event_driven_decisions.two_arm_predictive`, the family's
 :meth:`~octrial.endpoints.time_to_event.TimeToEventFamily.predictive_from`) against
 brute-force simulation of the study's continuation.
 
@@ -31,6 +31,7 @@ from scipy import special, stats
 from octrial.conduct.model import Accrual
 from octrial.endpoints import survival_predictive as sp
 from octrial.simulation import event_driven as ed
+from octrial.simulation import event_driven_decisions as decisions
 
 LAMBDA_C = math.log(2.0) / 12.0  # a 12-month median (invented)
 Z = 4.0
@@ -131,7 +132,7 @@ def test_one_arm_predictive_equals_the_simulated_continuation(seed: int, look: i
     s = _setup(1)
     cut = _cut(s, seed, look)
     sim = ed.PatientLevelSimulator(s)
-    value = ed.one_arm_predictive(cut["d"][0], cut["x"][0], s.targets[-1], sim.log_w,
+    value = decisions.one_arm_predictive(cut["d"][0], cut["x"][0], s.targets[-1], sim.log_w,
                                   sim.a, sim.b, sim.bound, True)
     p, se = continuation(s, cut, 40_000, np.random.default_rng(seed))
     assert abs(value - p) <= Z * se, (value, p, se)
@@ -152,7 +153,7 @@ def test_two_arm_split_approximation_is_close_to_the_continuation() -> None:
     for seed in range(1, 9):
         for look in (0, 1):
             cut = _cut(s, seed, look)
-            value = ed.two_arm_predictive(np.random.default_rng(seed), cut["d"], cut["x"],
+            value = decisions.two_arm_predictive(np.random.default_rng(seed), cut["d"], cut["x"],
                                           s.targets[-1], sim.log_w, sim.a, sim.b, s.claim,
                                           True, s.efficacy[-1] - 1e-12, sim.quantiles, 0)
             p, se = continuation(s, cut, 40_000, np.random.default_rng(seed + 100))
@@ -175,7 +176,7 @@ def test_two_arm_kernel_table_and_mixture_paths_agree() -> None:
     for s in (single, double):
         sim = ed.PatientLevelSimulator(s)
         assert (sim.quantiles.size > 0) == (s is single)
-        values.append(ed.two_arm_predictive(
+        values.append(decisions.two_arm_predictive(
             np.random.default_rng(9), cut["d"], cut["x"], s.targets[-1], sim.log_w, sim.a,
             sim.b, s.claim, True, s.efficacy[-1] - 1e-12, sim.quantiles, 20_000))
     assert 0.05 < values[0] < 0.95
@@ -240,7 +241,7 @@ def test_higher_hazard_better_predictive_equals_the_continuation() -> None:
     one = _setup(1, hazards=((1.25 * LAMBDA_C,),), lower_better=False)
     cut = _cut(one, 5, 0)
     sim = ed.PatientLevelSimulator(one)
-    value = ed.one_arm_predictive(cut["d"][0], cut["x"][0], one.targets[-1], sim.log_w,
+    value = decisions.one_arm_predictive(cut["d"][0], cut["x"][0], one.targets[-1], sim.log_w,
                                   sim.a, sim.b, sim.bound, False)
     p, se = continuation(one, cut, 40_000, np.random.default_rng(5))
     assert 0.01 < p < 0.99
@@ -249,7 +250,7 @@ def test_higher_hazard_better_predictive_equals_the_continuation() -> None:
     sim = ed.PatientLevelSimulator(two)
     for seed in (2, 4):
         cut = _cut(two, seed, 0)
-        value = ed.two_arm_predictive(np.random.default_rng(seed), cut["d"], cut["x"],
+        value = decisions.two_arm_predictive(np.random.default_rng(seed), cut["d"], cut["x"],
                                       two.targets[-1], sim.log_w, sim.a, sim.b, two.claim,
                                       False, two.efficacy[-1] - 1e-12, sim.quantiles,
                                       0)
@@ -269,7 +270,7 @@ def test_two_arm_closed_form_in_the_kernel_equals_scipy_betabinom() -> None:
         for seed in (1, 2, 5):
             for look in (0, 1):
                 cut = _cut(s, seed, look)
-                value = ed.two_arm_predictive(np.random.default_rng(0), cut["d"], cut["x"],
+                value = decisions.two_arm_predictive(np.random.default_rng(0), cut["d"], cut["x"],
                                               s.targets[-1], sim.log_w, sim.a, sim.b,
                                               s.claim, lower, s.efficacy[-1] - 1e-12,
                                               sim.quantiles, 10)
