@@ -158,7 +158,7 @@ class EventDrivenSetup:
         lambda0 H0(L): the benchmark's cumulative hazard at the landmark.
     log_hazard_ratio_prior : tuple of three tuples of float, or None
         Two arms, the normal approximation on the log hazard ratio: the prior's mixture
-        weights, means and sds on log HR (an infinite sd: flat). ``None``: gamma
+        weights, means and sds on log HR. ``None``: gamma
         posteriors per arm. The estimate is log(d_T / sum_j r_j E_Tj) - log(d_C /
         sum_j r_j E_Cj) over all analysis pieces, with information D q / (1 + q)^2 from
         the D events seen (q the allocation ratio; ``prior_a``/``prior_b`` unused).
@@ -364,11 +364,9 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
 
     normal = None
     if getattr(endpoint, "analysis", "gamma") == "normal-log-hazard-ratio":
-        prior = h.prior
-        sd = getattr(prior, "sd", None)
-        normal = ((tuple(float(v) for v in prior.weights), tuple(float(v) for v in prior.mean),
-                   tuple(float(v) for v in sd)) if sd is not None
-                  else ((1.0,), (0.0,), (math.inf,)))
+        prior = h.prior  # a normal mixture on log HR (the family's check_design)
+        normal = (tuple(float(v) for v in prior.weights),
+                  tuple(float(v) for v in prior.mean), tuple(float(v) for v in prior.sd))
         # the arms' gamma priors are unused by the normal approximation
         unused = SimpleNamespace(a=(1.0,), b=(1.0,), weights=(1.0,))
         arms = tuple(SimpleNamespace(prior=unused, allocation=arm.allocation) for arm in arms)
@@ -469,7 +467,7 @@ class PatientLevelSimulator(Simulator):
             prior = NormalMixture(tuple(w / w.sum()), tuple(m), tuple(sd))
             upper = -math.inf if target <= 0 else benefit_score(
                 prior, int(sign), final_info, claim, target)
-        p0 = np.where(np.isinf(sd), 0.0, 1.0 / sd**2)
+        p0 = 1.0 / sd**2
         numbers = np.array([sign, claim, factor, final_info, upper])
         return w / w.sum(), sign * m, p0, numbers, shape
 
