@@ -23,6 +23,7 @@ tested.
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 import pytest
@@ -183,28 +184,45 @@ def test_two_arm_kernel_table_and_mixture_paths_agree() -> None:
     assert abs(values[0] - values[1]) < 0.03, values
 
 
-def test_kernel_decisions_equal_the_family_on_the_same_subjects() -> None:
-    """One arm with a mixture prior and predictive futility at both interim looks: the
-    kernel's stops equal, study by study, a Python loop over the same subjects (drawn by
+TWO_ARM_CONDUCT: dict[str, Any] = {
+    "schema": 1, "name": "tte-two-arm-predictive-conduct",
+    "endpoint": {"type": "time-to-event"},
+    "hypothesis": {"comparison": "ratio", "margin": 0.0},
+    "arms": {"treatment": {"prior": {"distribution": "gamma", "shape": 0.5, "rate": 6}},
+             "control": {"prior": {"distribution": "gamma", "shape": 0.5, "rate": 6}}},
+    "conduct": {"enrolment_rate": 8.0, "max_enrolment": 160, "dropout_hazard": 0.01},
+    "looks": {"events": [30, 60, 90], "efficacy": [0.999, 0.99, 0.975],
+              "futility_predictive": [0.1, 0.1]},
+    "scenarios": {"control": [0.058], "ratio": [1.0, 0.75]},
+}
+
+
+@pytest.mark.parametrize("which", ["one arm", "two arms"])
+def test_kernel_decisions_equal_the_family_on_the_same_subjects(which: str) -> None:
+    """Predictive futility at both interim looks, one arm with a mixture prior or two
+    arms with one gamma component each (the kernel's closed forms draw no random
+    numbers): the kernel's stops equal, study by study, a Python loop over the same
+    subjects (drawn by
     :meth:`~octrial.simulation.event_driven.PatientLevelSimulator.subjects` from the same
     generator) deciding with the family's posterior probability and predictive
-    probability (scipy; checked above against the continuation) and the stop rule's
-    Python form."""
+    probability (scipy: the compound-gamma tail, scipy.stats.betabinom; checked above
+    against the continuation) and the stop rule's Python form."""
     from octrial.rules.stop import CONTINUE, EFFICACY, Rule
     from tests.helpers import build
     from tests.test_time_to_event_predictive import ONE_ARM_CONDUCT
 
-    design = build(ONE_ARM_CONDUCT)
+    design = build(ONE_ARM_CONDUCT if which == "one arm" else TWO_ARM_CONDUCT)
     family = design.family
+    arms = len(design.arms)
     rule = Rule.of(design.looks)
-    studies = 600
-    for truth in (0.05, 0.035):
-        sim = ed.EventDrivenSimulator(design, (truth,), 0.95)
+    studies = 600 if arms == 1 else 300
+    predictive_stops = 0
+    for truth in design.scenarios.values:
+        sim = ed.EventDrivenSimulator(design, tuple(truth), 0.95)
         tally = sim.simulate(np.random.default_rng(21), studies)
         rng = np.random.default_rng(21)
         efficacy = np.zeros(3, dtype=int)
         futility = np.zeros(3, dtype=int)
-        predictive_stops = 0
         for _ in range(studies):
             subj = sim.subjects(rng)
             ends = subj["enrolled"] + subj["follow"]
@@ -212,14 +230,16 @@ def test_kernel_decisions_equal_the_family_on_the_same_subjects() -> None:
             for k, target in enumerate(sim.targets):
                 final = k == 2 or events.size < target
                 tau = events[int(target) - 1] if events.size >= target else ends.max()
-                d = np.zeros((1, 1))
-                x = np.zeros((1, 1))
+                d = np.zeros((arms, 1))
+                x = np.zeros((arms, 1))
                 ed.piece_statistics(subj["enrolled"], subj["follow"], subj["seen"],
                                     subj["arm"], tau, np.zeros(1), d, x)
-                b = float(family.benefit_from(design, (d,), (x,))[0])
+                per_arm_d = tuple(d[j:j + 1] for j in range(arms))
+                per_arm_x = tuple(x[j:j + 1] for j in range(arms))
+                b = float(family.benefit_from(design, per_arm_d, per_arm_x)[0])
                 look = 2 if final else k
-                code = rule.decide(look, b, lambda d=d, x=x: float(
-                    family.predictive_from(design, (d,), (x,))[0]))
+                code = rule.decide(look, b, lambda dd=per_arm_d, xx=per_arm_x: float(
+                    family.predictive_from(design, dd, xx)[0]))
                 if code != CONTINUE and rule.decide(look, b) == CONTINUE:
                     predictive_stops += 1
                 if code == EFFICACY:
@@ -228,9 +248,9 @@ def test_kernel_decisions_equal_the_family_on_the_same_subjects() -> None:
                     futility[k] += 1
                 if code != CONTINUE:
                     break
-        assert predictive_stops > 10
         assert list(tally.efficacy) == list(efficacy), (truth, tally.efficacy, efficacy)
         assert list(tally.futility) == list(futility), (truth, tally.futility, futility)
+    assert predictive_stops > 10, predictive_stops
 
 
 def test_higher_hazard_better_predictive_equals_the_continuation() -> None:
