@@ -232,3 +232,26 @@ def test_predictive_futility_is_refused_where_unavailable(tmp_path: Path,
     assert result.exit_code == 2, result.output
     assert "looks.futility_predictive" in result.output
     assert not out.exists() or not any(out.iterdir())
+
+
+def test_committee_table_futility_bound_includes_predictive_futility() -> None:
+    """One arm, one period: the boundary table's futility bound per interim look is the
+    more demanding of the posterior and predictive bounds on the exposure; at it the
+    predictive probability equals its threshold (the closed form above, 1e-8), and
+    ``decide`` just below it stops for futility and just above it continues (the table
+    and the decision agree)."""
+    from octrial.interim import decide
+
+    design = build({**ONE_ARM_CONDUCT, "looks": {**ONE_ARM_CONDUCT["looks"],
+                                                 "futility": [0.02, 0.02]}})
+    family = design.family
+    table = family.boundary_table(design)
+    for k in (0, 1):
+        events, bound = int(table["events"].iloc[k]), float(table["futility_bound"].iloc[k])
+        pp = family.predictive_from(design, (np.array([[events]]),),
+                                    (np.array([[bound]]),))[0]
+        assert pp == pytest.approx(0.1, abs=1e-8)
+        for factor, stops in ((0.999, True), (1.001, False)):
+            result = decide(design, k + 1, [f"treatment={events}/{bound * factor}"],
+                            level=0.95)
+            assert (result.assessment.decision == "stop for futility") == stops, (k, factor)
