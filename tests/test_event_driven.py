@@ -380,7 +380,7 @@ def test_setup_of_a_design_with_hazard_periods() -> None:
     """A design's endpoint with hazard periods becomes piecewise true hazards (truth x
     relative hazard per period), one analysis piece per period with the arm's prior, and
     the design's thresholds, targets and conduct (identity of the mapping); one arm with
-    periods is refused plainly."""
+    periods decides at the landmark (its overlaps and limit by hand)."""
     from types import SimpleNamespace as NS
 
     from octrial.conduct.model import Conduct
@@ -403,9 +403,14 @@ def test_setup_of_a_design_with_hazard_periods() -> None:
                                                              (2.0, 1.0))
     tally = ed.PatientLevelSimulator(s).simulate(np.random.default_rng(12), 200)
     assert tally.efficacy.sum() + tally.futility.sum() == 200
-    one_arm = NS(**{**design.__dict__, "arms": design.arms[:1]})
-    with pytest.raises(ValueError, match="landmark"):
-        ed.setup_of_design(one_arm, (0.04,))
+    one_arm = NS(**{**design.__dict__, "arms": design.arms[:1],
+                    "hypothesis": NS(benchmark=0.05, better="lower"),
+                    "endpoint": NS(starts=(0.0, 6.0), relative_hazard=(1.0, 0.5),
+                                   landmark_time=lambda multiplier: 12.0)})
+    s = ed.setup_of_design(one_arm, (0.04,))
+    # a landmark at 12 overlaps both periods for 6; H0(12) = 6 + 0.5 x 6 (by hand)
+    assert s.landmark_overlap == (6.0, 6.0)
+    assert s.landmark_limit == pytest.approx(0.05 * 9.0, rel=1e-15)
 
 
 def test_arms_with_different_mixtures_against_scipy() -> None:

@@ -61,7 +61,8 @@ SUITE_DESIGNS: dict[str, dict[str, Any]] = {
         "arms": {"treatment": {"prior": {"distribution": "gamma-mixture", "components": [
             {"weight": 0.7, "shape": 2.0, "rate": 20.0},
             {"weight": 0.3, "shape": 1.0, "rate": 5.0}]}}},
-        "looks": {"n": [10, 20, 30], "efficacy": [0.99, 0.98, 0.95], "futility": 0.1},
+        "looks": {"n": [10, 20, 30], "efficacy": [0.99, 0.98, 0.95], "futility": 0.1,
+                  "futility_predictive": [0.15, 0.3]},
         "scenarios": {"treatment": [0.1155, 0.06]},
     },
     TOY: {

@@ -7,7 +7,9 @@
 * One arm, one period (exponential), gamma prior: per look, at its event count, the
   thresholds as bounds on the total exposure (time at risk): the posterior probability
   that the hazard is below the benchmark increases with the exposure at fixed events, so
-  each threshold is one exposure (found by root finding).
+  each threshold is one exposure (found by root finding); so does the predictive
+  probability of final success, so predictive futility is one more exposure and the
+  futility bound is the more demanding of the two.
 * Other designs (several periods, two arms with gamma priors, looks not at event
   counts) depend on more than one number per look: ``None`` (``octrial decide`` gives
   the decision on the data).
@@ -68,9 +70,17 @@ def _exposure_bounds(design: Any) -> pd.DataFrame:
     for k, events in enumerate(family.event_targets(design)):
         out: dict[str, Any] = {"look": k + 1, "events": events,
                                "bound_on": "total exposure (time at risk)"}
+        last = k == looks.count - 1
         for kind, threshold in (("efficacy", looks.efficacy[k]),
                                 ("futility", looks.futility[k])):
             bound = math.nan if threshold is None else exposure_at(design, events, threshold)
+            predictive = looks.futility_predictive[k]
+            if kind == "futility" and predictive is not None and not last:
+                # futility if B or the predictive probability is below its threshold:
+                # both rise with the exposure when lower hazards are better
+                other = predictive_exposure_at(design, events, predictive)
+                bounds = [v for v in (bound, other) if not math.isnan(v)]
+                bound = (max(bounds) if lower else min(bounds)) if bounds else math.nan
             out[f"{kind}_bound"] = bound
             # B rises with exposure when lower hazards are better
             claim = (kind == "efficacy") == lower
@@ -90,6 +100,24 @@ def exposure_at(design: Any, events: int, threshold: float) -> float:
         b = family.benefit_from(design, (np.array([[float(events)]]),),
                                 (np.array([[math.exp(log_e)]]),))[0]
         return float(b) - threshold
+
+    lo, hi = -30.0, 30.0
+    if gap(lo) * gap(hi) > 0:
+        return math.nan
+    return math.exp(optimize.brentq(gap, lo, hi, rtol=ROOT_TOLERANCE))
+
+
+def predictive_exposure_at(design: Any, events: int, threshold: float) -> float:
+    """The total exposure at which the predictive probability of final success after
+    ``events`` events equals ``threshold`` (NaN when no exposure reaches it; the
+    predictive probability of :mod:`octrial.endpoints.survival_predictive` is monotone
+    in the exposure, as the posterior is)."""
+    family = design.family
+
+    def gap(log_e: float) -> float:
+        pp = family.predictive_from(design, (np.array([[float(events)]]),),
+                                    (np.array([[math.exp(log_e)]]),))[0]
+        return float(pp) - threshold
 
     lo, hi = -30.0, 30.0
     if gap(lo) * gap(hi) > 0:

@@ -143,6 +143,24 @@ class TimeToEventFamily(Family):
                        "log hazard ratio estimate is taken as normal with variance "
                        "1/d_T + 1/d_C, information events x q / (1 + q)^2 at allocation "
                        "q:1 (Schoenfeld 1981).")
+        if any(v is not None for v in design.looks.futility_predictive) and not (
+                self.prior_on_effect(e, design.two_arm)):
+            text = ("The predictive probability of final success takes the time at risk "
+                    "still to come until the final number of events as gamma given the "
+                    "hazard (exact for a constant hazard whatever the entry and "
+                    "independent dropout; a final analysis held early because the events "
+                    "run out is ignored)")
+            if design.two_arm and design.conduct is not None:
+                from octrial.simulation.event_driven import PREDICTIVE_DRAWS
+
+                text += ("; for two arms the future time at risk keeps the ratio of the "
+                         "arms' posterior rates (prior rate plus time at risk so far) and "
+                         "the remaining events split binomially between the arms given the "
+                         "hazards (an approximation)")
+                if any(len(arm.prior.weights) > 1 for arm in design.arms):
+                    text += (f", estimated from {PREDICTIVE_DRAWS:,} draws per study and "
+                             "look with mixture priors")
+            out.append(text + ".")
         if design.conduct is None:
             out.append("Without a [conduct] table every analysed subject's event is observed "
                        "(nobody is censored): a look's number of subjects is its number of "
@@ -505,21 +523,58 @@ class TimeToEventFamily(Family):
 
             if importlib.util.find_spec("octrial.simulation.event_driven") is None:
                 return NOT_YET
-            if e.periods > 1 or self.prior_on_effect(e, design.two_arm):
-                # the patient-level simulator decides on one period's gamma posterior
-                return ("the patient-level simulator takes one hazard period with gamma "
-                        "priors per arm; a piecewise design or the normal approximation "
-                        "on the log hazard ratio is not simulated yet (the normal "
-                        "approximation has its exact engine: simulation.method = 'exact')")
-            return None
+            # the patient-level simulator decides on one period's gamma posteriors (two
+            # arms), the landmark survival (one arm) or the normal approximation on the
+            # log hazard ratio; check_design refuses two-arm gamma with several periods
+            return self.predictive_unsupported(design)
         if e.periods > 1:
             return ("a piecewise-exponential design is simulated subject by subject: add a "
                     "[conduct] table (the patient-level simulator)")
-        if any(v is not None for v in design.looks.futility_predictive):
-            return ("time-to-event endpoints offer no predictive probability of success yet, "
-                    "so a design with predictive futility (looks.futility_predictive) "
-                    "cannot be simulated")
+        return self.predictive_unsupported(design)
+
+    # -- predictive probability of final success ---------------------------------------
+    def predictive_unsupported(self, design: Any) -> str | None:
+        """Why the predictive probability of final success of a gamma analysis
+        (:meth:`predictive_from`) is not available for ``design``'s predictive futility
+        (``looks.futility_predictive``), or ``None``."""
+        if all(v is None for v in design.looks.futility_predictive):
+            return None
+        if design.looks.trigger == "time":
+            return ("predictive futility (looks.futility_predictive) of time-to-event "
+                    "designs needs looks at event counts (the final analysis at a fixed "
+                    "number of events), not at calendar times")
+        if self.prior_on_effect(design.endpoint, design.two_arm):
+            if design.conduct is None:
+                return ("with the normal approximation on the log hazard ratio and no "
+                        "[conduct], predictive futility (looks.futility_predictive) is "
+                        "evaluated by the exact engine (simulation.method = 'exact')")
+            return None  # the patient-level kernel's normal predictive probability
+        if design.endpoint.periods > 1:
+            return ("predictive futility (looks.futility_predictive) of time-to-event "
+                    "designs needs one hazard period (endpoint.periods)")
         return None
+
+    def predictive_from(self, design: Any, events: tuple[np.ndarray, ...],
+                        exposure: tuple[np.ndarray, ...], *, seed: int = 0,
+                        draws: int = 200_000) -> np.ndarray:
+        """Predictive probability of final success per study (gamma analysis, one
+        period) from each arm's events and exposure (arrays of shape (studies, 1)), by
+        :mod:`octrial.endpoints.survival_predictive`: exact for one arm and, without
+        ``[conduct]`` (events per arm fixed), for two arms; two event-driven arms by the
+        split approximation with ``draws`` draws from ``seed``."""
+        from octrial.endpoints.survival_predictive import design_predictive
+
+        return design_predictive(design, events, exposure, seed=seed, draws=draws)
+
+    def predictive_at(self, design: Any, statistics: tuple[np.ndarray, ...],
+                      n: tuple[int, ...]) -> np.ndarray:
+        """Predictive probability of final success per study of the generic study loop
+        (no ``[conduct]``: each arm's statistic its total time on study, ``n`` its
+        events so far): :meth:`predictive_from`."""
+        events = tuple(np.full((np.size(x), 1), float(m)) for x, m in zip(statistics, n,
+                                                                          strict=True))
+        exposure = tuple(np.asarray(x, dtype=float).reshape(-1, 1) for x in statistics)
+        return self.predictive_from(design, events, exposure)
 
     def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
         if design.conduct is not None or design.looks.trigger in ("events", "time"):

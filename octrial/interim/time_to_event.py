@@ -142,9 +142,18 @@ class TimeToEventInterim(EndpointInterim):
         b = float(family.benefit_from(design, events, exposure)[0])
         th = thresholds_at(design, k, sum(sizes))
         pp = None
-        if not last and th.futility_predictive is not None and family.prior_on_effect(
-                design.endpoint, design.two_arm):
-            pp = family.normal_predictive(design, look, events, exposure)
+        if not last and th.futility_predictive is not None:
+            if family.prior_on_effect(design.endpoint, design.two_arm):
+                pp = family.normal_predictive(design, look, events, exposure)
+            elif (reason := family.predictive_unsupported(design)) is not None:
+                raise InputError(design.source.path or design.name,
+                                 [Problem("looks.futility_predictive",
+                                          "a design whose predictive probability is "
+                                          "available", reason)])
+            else:
+                # the gamma analyses' predictive probability (exact for one arm and for
+                # two arms without censoring; the split approximation otherwise)
+                pp = float(family.predictive_from(design, events, exposure, seed=seed)[0])
         decision, reason = probability_decision(th, b, pp, last, self.statement(design))
         names = (SUCCESS, FAILURE) if last else (STOP_EFFICACY, STOP_FUTILITY)
         assert decision in (*names, CONTINUE)

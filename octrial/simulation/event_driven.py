@@ -17,12 +17,23 @@ follow-up has ended and it is the final analysis. The decision is the stop rule 
 posterior of one piece's hazard (``decision_piece``; with one analysis piece, the constant
 hazard): one arm, Pr(lambda < benchmark) by the regularized incomplete gamma; two arms,
 Pr(lambda_T / lambda_C < c) by the beta identity b_T l_T / (b_T l_T + b_C l_C) ~
-Beta(a_T, a_C). A stop ends enrolment.
+Beta(a_T, a_C). One arm with several pieces decides on the survival at a landmark
+(:func:`landmark_benefit`: a sum of gamma laws, the Moschopoulos series); two arms with
+the normal approximation on the log hazard ratio on the score of the log HR estimate
+(:func:`normal_benefit`). A stop ends enrolment. Predictive futility (looks at event
+counts) uses the predictive probability of final success: with gamma posteriors (one
+analysis piece) that of :mod:`octrial.endpoints.survival_predictive`, one arm in closed
+form (:func:`one_arm_predictive`), two arms by the split approximation
+(:func:`two_arm_predictive`: a beta-binomial sum with one prior component per arm, else
+a fixed number of draws from the study's generator); with the normal approximation the
+known-variance model's (:func:`normal_predictive`).
 
 Random numbers come only from the generator passed to :meth:`PatientLevelSimulator.
 simulate`, drawn inside the kernel study by study in a fixed order (the study's
-enrolment gaps, then per subject in enrolment order its event time and its loss time), so
-a batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
+enrolment gaps, then per subject in enrolment order its event time and its loss time;
+then, at each two-arm look with mixture priors that needs it, the predictive
+probability's draws), so a
+batch's numbers depend on the seed and the batch only, whatever ``--jobs``.
 
 Speed: every subject is simulated (about 3 standard exponentials per subject, which are
 most of the time; the looks' event times by a bucket pass, not a sort; arithmetic rather
@@ -45,7 +56,14 @@ import numpy as np
 from octrial.conduct.arrivals import fill_enrolment_times
 from octrial.conduct.model import Accrual, Conduct
 from octrial.conduct.timing import allocation_block
-from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
+from octrial.rules.stop import (
+    CONTINUE,
+    DECISION_TOLERANCE,
+    EFFICACY,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import (
     calendar_size,
@@ -53,9 +71,20 @@ from octrial.simulation.calendar import (
     duration_edges,
     record_study,
 )
-from octrial.simulation.special import betainc, gammainc_pair
+from octrial.simulation.event_driven_decisions import (
+    benefit_at,
+    landmark_benefit,
+    log_hazard_ratio_score,
+    normal_benefit,
+    normal_predictive,
+    one_arm_predictive,
+    two_arm_predictive,
+)
 
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
+PREDICTIVE_DRAWS = 1000
+"""Draws of one two-arm predictive probability with mixture priors (standard error at
+most 0.016); one component per arm needs none."""
 TRIGGERS = {"events": 0, "time": 1}
 
 
@@ -114,6 +143,27 @@ class EventDrivenSetup:
         Exponential hazard of loss to follow-up (0: nobody is lost).
     allocation : tuple of float
         Allocation weights of the arms.
+    futility_predictive : tuple of float or None
+        Predictive-probability futility thresholds per look (empty, or ``None`` at a
+        look: none); needs looks at event counts and one analysis piece.
+    predictive_draws : int
+        Monte Carlo draws of one two-arm predictive probability (module docstring).
+    landmark_overlap : tuple of float
+        One arm with several analysis pieces: the time Delta_j each piece overlaps
+        [0, L) for the landmark L (empty: decide on ``decision_piece``). The decision is
+        then on Pr(sum_j Delta_j h_j < ``landmark_limit``) = Pr(S(L) > S0(L)), the
+        pieces' hazards h_j sharing the mixture component (``prior_weights`` equal in
+        every piece).
+    landmark_limit : float
+        lambda0 H0(L): the benchmark's cumulative hazard at the landmark.
+    log_hazard_ratio_prior : tuple of three tuples of float, or None
+        Two arms, the normal approximation on the log hazard ratio: the prior's mixture
+        weights, means and sds on log HR. ``None``: gamma
+        posteriors per arm. The estimate is log(d_T / sum_j r_j E_Tj) - log(d_C /
+        sum_j r_j E_Cj) over all analysis pieces, with information D q / (1 + q)^2 from
+        the D events seen (q the allocation ratio; ``prior_a``/``prior_b`` unused).
+    analysis_shape : tuple of float
+        The relative hazard r_j of each analysis piece (empty: all 1).
     """
 
     hazards: tuple[tuple[float, ...], ...]
@@ -133,6 +183,13 @@ class EventDrivenSetup:
     trigger: str = "events"
     dropout_hazard: float = 0.0
     allocation: tuple[float, ...] = field(default=())
+    futility_predictive: tuple[float | None, ...] = ()
+    predictive_draws: int = PREDICTIVE_DRAWS
+    landmark_overlap: tuple[float, ...] = ()
+    landmark_limit: float = math.nan
+    log_hazard_ratio_prior: tuple[tuple[float, ...], tuple[float, ...],
+                                  tuple[float, ...]] | None = None
+    analysis_shape: tuple[float, ...] = ()
 
     def __post_init__(self) -> None:
         wrong = self.problems()
@@ -214,6 +271,43 @@ class EventDrivenSetup:
                          f"{a.rates} for starts {a.starts}")
         if not self.dropout_hazard >= 0:
             wrong.append(f"dropout_hazard: expected 0 or more, got {self.dropout_hazard}")
+        if self.landmark_overlap:
+            weights = self.prior_weights or ((None,),)
+            if self.arms != 1 or len(self.landmark_overlap) != pieces or any(
+                    not x >= 0 for x in self.landmark_overlap) or not sum(
+                    self.landmark_overlap) > 0:
+                wrong.append(f"landmark_overlap: expected one arm and {pieces} overlaps "
+                             f">= 0, not all 0, got {self.landmark_overlap} for "
+                             f"{self.arms} arm(s)")
+            elif any(w != weights[0][0] for w in weights[0]):
+                wrong.append("prior_weights: expected the same mixture weights in every "
+                             f"piece (a landmark decision), got {weights[0]}")
+            if not self.landmark_limit > 0:
+                wrong.append(f"landmark_limit: expected a cumulative hazard > 0, got "
+                             f"{self.landmark_limit}")
+        if self.log_hazard_ratio_prior is not None:
+            w, m, sd = self.log_hazard_ratio_prior
+            if self.arms != 2 or not w or len(w) != len(m) or len(w) != len(sd) or any(
+                    not x > 0 for x in (*w, *sd)) or any(not math.isfinite(x) for x in m):
+                wrong.append("log_hazard_ratio_prior: expected two arms and equal numbers of "
+                             "weights > 0, finite means and sds > 0, got "
+                             f"{self.log_hazard_ratio_prior} for {self.arms} arm(s)")
+        if self.analysis_shape and (len(self.analysis_shape) != pieces or any(
+                not x > 0 for x in self.analysis_shape)):
+            wrong.append(f"analysis_shape: expected {pieces} relative hazards > 0, got "
+                         f"{self.analysis_shape}")
+        if any(v is not None for v in self.futility_predictive):
+            if len(self.futility_predictive) != self.looks:
+                wrong.append(f"futility_predictive: expected {self.looks} values, got "
+                             f"{len(self.futility_predictive)}")
+            normal = self.log_hazard_ratio_prior is not None
+            if self.trigger != "events" or (pieces != 1 and not normal):
+                wrong.append("futility_predictive: expected looks at event counts and one "
+                             f"analysis piece, got trigger {self.trigger!r} and {pieces} "
+                             "piece(s)")
+            if self.predictive_draws < 1:
+                wrong.append(f"predictive_draws: expected at least 1, got "
+                             f"{self.predictive_draws}")
         if self.allocation and (len(self.allocation) != self.arms
                                 or any(not w > 0 for w in self.allocation)):
             wrong.append(f"allocation: expected {self.arms} positive weights, got "
@@ -236,8 +330,10 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     hazard periods (``starts`` and ``relative_hazard``: each arm's hazard is its
     ``truth`` times the period's relative hazard) is simulated piecewise, analysed per
     period with the arm's prior on each, and decided on the first period's hazard ratio
-    (two arms); one arm with several periods decides on a landmark survival, which this
-    kernel does not compute (``ValueError``)."""
+    (two arms); one arm with several periods decides on the survival at the landmark
+    (``endpoint.landmark_time``: the landmark, or the benchmark's median), as the
+    family does. With ``analysis = 'normal-log-hazard-ratio'`` the decision is the
+    normal approximation with the prior ``hypothesis.prior`` on log HR."""
     conduct = design.conduct
     if conduct is None:
         raise ValueError("an event-driven design needs a [conduct] table")
@@ -247,12 +343,17 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
     endpoint = design.endpoint
     starts = tuple(float(x) for x in getattr(endpoint, "starts", (0.0,)))
     shape = tuple(float(x) for x in getattr(endpoint, "relative_hazard", (1.0,)))
-    if len(starts) > 1 and len(arms) == 1:
-        raise ValueError("one arm with several hazard periods decides on a landmark "
-                         "survival, which the patient-level kernel does not compute")
     benchmark = getattr(h, "benchmark", None)
     claim = (benchmark if benchmark is not None else h.null_value) if len(arms) == 1 \
         else h.threshold
+    overlap: tuple[float, ...] = ()
+    limit = math.nan
+    if len(starts) > 1 and len(arms) == 1:
+        from octrial.endpoints import survival_maths as sm
+
+        landmark = endpoint.landmark_time(float(claim))
+        overlap = tuple(float(v) for v in sm.period_overlap(starts, landmark))
+        limit = float(claim) * float(sm.base_cumulative_hazard(starts, shape, landmark))
     # looks at event counts are read into n; calendar-time looks carry their times in at
     trigger = "time" if looks.trigger == "time" else "events"
     targets = tuple(float(t) for t in (looks.at if looks.trigger in TRIGGERS and looks.at
@@ -260,6 +361,15 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
 
     def per_period(values: Any) -> tuple[tuple[float, ...], ...]:
         return (tuple(float(x) for x in values),) * len(starts)
+
+    normal = None
+    if getattr(endpoint, "analysis", "gamma") == "normal-log-hazard-ratio":
+        prior = h.prior  # a normal mixture on log HR (the family's check_design)
+        normal = (tuple(float(v) for v in prior.weights),
+                  tuple(float(v) for v in prior.mean), tuple(float(v) for v in prior.sd))
+        # the arms' gamma priors are unused by the normal approximation
+        unused = SimpleNamespace(a=(1.0,), b=(1.0,), weights=(1.0,))
+        arms = tuple(SimpleNamespace(prior=unused, allocation=arm.allocation) for arm in arms)
 
     return EventDrivenSetup(
         hazards=tuple(tuple(float(t) * r for r in shape) for t in truth),
@@ -272,7 +382,10 @@ def setup_of_design(design: Any, truth: tuple[float, ...]) -> EventDrivenSetup:
         hazard_starts=starts, analysis_starts=starts,
         lower_better=h.better == "lower", trigger=trigger,
         dropout_hazard=float(conduct.dropout_hazard),
-        allocation=tuple(float(a.allocation) for a in arms))
+        allocation=tuple(float(a.allocation) for a in arms),
+        futility_predictive=tuple(getattr(looks, "futility_predictive", ())),
+        landmark_overlap=overlap, landmark_limit=limit, log_hazard_ratio_prior=normal,
+        analysis_shape=shape)
 
 
 class PatientLevelSimulator(Simulator):
@@ -306,11 +419,91 @@ class PatientLevelSimulator(Simulator):
             self.a[j, :size] = s.prior_a[j][p]
             self.b[j, :size] = s.prior_b[j][p]
             self.log_w[j, :size] = np.log(weights / weights.sum())
+        # one arm's prior in every analysis piece, for a landmark decision
+        pieces = len(s.analysis_starts)
+        self.piece_a = np.ones((pieces, width))
+        self.piece_b = np.ones((pieces, width))
+        for q in range(pieces):
+            size = len(s.prior_a[0][q])
+            self.piece_a[q, :size] = s.prior_a[0][q]
+            self.piece_b[q, :size] = s.prior_b[0][q]
+        self.overlap = np.asarray(s.landmark_overlap, dtype=float)
+        self.normal = self.normal_setup()
         self.targets = np.asarray(s.targets, dtype=float)
         self.efficacy = np.asarray(_nan(s.efficacy))
         self.futility = np.asarray(_nan(s.futility))
         self.edges = s.duration_edges()
         self.counts = s.count_edges()
+        self.predictive = np.asarray(_nan(s.futility_predictive or (None,) * s.looks))
+        self.bound, self.quantiles = self.predictive_setup()
+
+    def normal_setup(self) -> tuple[np.ndarray, ...]:
+        """The normal approximation's numbers for the kernel: (prior weights, means and
+        precisions on the benefit scale eta = sign log HR, then one array of [sign,
+        claim sign log c, information per event q / (1 + q)^2, final information, final
+        score bound], then the analysis pieces' relative hazards); empty arrays for the
+        gamma analysis. The final score bound S* (final success iff S >= S*) is the
+        known-variance rule's (:func:`octrial.rules.normal.benefit_score`), for the
+        predictive probability."""
+        s = self.setup
+        pieces = len(s.analysis_starts)
+        shape = np.asarray(s.analysis_shape or (1.0,) * pieces, dtype=float)
+        if s.log_hazard_ratio_prior is None:
+            return np.empty(0), np.empty(0), np.empty(0), np.empty(5), shape
+        from octrial.endpoints.normal import NormalMixture
+        from octrial.rules.normal import benefit_score
+
+        w, m, sd = (np.asarray(v, dtype=float) for v in s.log_hazard_ratio_prior)
+        sign = -1.0 if s.lower_better else 1.0
+        q = (s.allocation[0] / s.allocation[1]) if s.allocation else 1.0
+        factor = q / (1.0 + q) ** 2
+        claim = sign * math.log(s.claim)
+        final_info = float(s.targets[-1]) * factor if s.trigger == "events" else math.nan
+        upper = math.nan
+        if s.trigger == "events" and any(v is not None for v in s.futility_predictive):
+            final_efficacy = s.efficacy[-1]
+            assert final_efficacy is not None  # problems() requires it
+            target = float(final_efficacy) - DECISION_TOLERANCE
+            prior = NormalMixture(tuple(w / w.sum()), tuple(m), tuple(sd))
+            upper = -math.inf if target <= 0 else benefit_score(
+                prior, int(sign), final_info, claim, target)
+        p0 = 1.0 / sd**2
+        numbers = np.array([sign, claim, factor, final_info, upper])
+        return w / w.sum(), sign * m, p0, numbers, shape
+
+    def predictive_setup(self) -> tuple[float, np.ndarray]:
+        """What the predictive probability needs beyond the posterior, found once per
+        scenario: one arm, the final exposure t* at which the final analysis succeeds
+        (:func:`octrial.endpoints.survival_predictive.exposure_bound` on this kernel's
+        :func:`benefit_at`); two arms with one prior component each, per number i of
+        the treatment's final events, the beta quantile q_i with success iff k / (1 + k)
+        >= q_i (lower hazards better; <= otherwise), k = c b_T / b_C the final posterior
+        rates' ratio (``nan`` placeholders when not needed)."""
+        from scipy import special
+
+        from octrial.endpoints.survival_predictive import exposure_bound
+
+        s = self.setup
+        none = (math.nan, np.empty(0))
+        if np.all(np.isnan(self.predictive)) or s.log_hazard_ratio_prior is not None:
+            return none
+        final = float(self.targets[-1])
+        threshold = float(self.efficacy[-1])
+        if s.arms == 1:
+            def benefit(t: float) -> float:
+                return float(benefit_at(np.array([final]), np.array([t]), self.log_w,
+                                        self.a, self.b, s.claim, s.lower_better))
+
+            scale = final / float(np.exp(self.log_w[0]) @ (self.a[0] / self.b[0]))
+            return exposure_bound(benefit, threshold, s.lower_better, scale), none[1]
+        if np.isfinite(self.log_w).sum() != 2:
+            return none
+        target = threshold - DECISION_TOLERANCE
+        i = np.arange(int(final) + 1, dtype=float)
+        a_t, a_c = self.a[0, 0] + i, self.a[1, 0] + final - i
+        level = target if s.lower_better else 1.0 - target
+        quantiles = special.betaincinv(a_t, a_c, min(max(level, 0.0), 1.0))
+        return math.nan, np.asarray(quantiles, dtype=float)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         efficacy = np.zeros(self.looks, dtype=np.int64)
@@ -323,7 +516,8 @@ class PatientLevelSimulator(Simulator):
             TRIGGERS[s.trigger], self.targets, self.analysis_starts, s.decision_piece,
             self.log_w, self.a, self.b, s.claim, s.lower_better, self.efficacy,
             self.futility, DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility,
-            calendar)
+            calendar, self.predictive, self.bound, self.quantiles, s.predictive_draws,
+            self.overlap, s.landmark_limit, self.piece_a, self.piece_b, *self.normal)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
     def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -346,50 +540,6 @@ class EventDrivenSimulator(PatientLevelSimulator):
     def __init__(self, design: Any, truth: tuple[float, ...], level: float) -> None:
         self.design = design
         super().__init__(setup_of_design(design, truth))
-
-
-@numba.njit(cache=True)
-def benefit_at(events: np.ndarray, exposure: np.ndarray, log_w: np.ndarray, a: np.ndarray,
-               b: np.ndarray, claim: float, lower: bool) -> float:
-    """Posterior probability of benefit from each arm's events and exposure (module
-    docstring of :mod:`octrial.endpoints.time_to_event`)."""
-    arms, width = a.shape
-    post_w = np.empty((arms, width))
-    post_a = np.empty((arms, width))
-    post_b = np.empty((arms, width))
-    for j in range(arms):
-        top = -np.inf
-        for c in range(width):
-            post_a[j, c] = a[j, c] + events[j]
-            post_b[j, c] = b[j, c] + exposure[j]
-            if math.isinf(log_w[j, c]):
-                post_w[j, c] = -np.inf
-                continue
-            # log marginal likelihood of the component (the gamma-Poisson form)
-            post_w[j, c] = (log_w[j, c] + a[j, c] * math.log(b[j, c])
-                            + math.lgamma(post_a[j, c]) - math.lgamma(a[j, c])
-                            - post_a[j, c] * math.log(post_b[j, c]))
-            top = max(top, post_w[j, c])
-        total = 0.0
-        for c in range(width):
-            post_w[j, c] = math.exp(post_w[j, c] - top) if not math.isinf(post_w[j, c]) else 0.0
-            total += post_w[j, c]
-        for c in range(width):
-            post_w[j, c] /= total
-    below = 0.0
-    if arms == 1:
-        for c in range(width):
-            if post_w[0, c] > 0.0:
-                below += post_w[0, c] * gammainc_pair(post_a[0, c], post_b[0, c] * claim)[0]
-    else:
-        for c in range(width):
-            for e in range(width):
-                w = post_w[0, c] * post_w[1, e]
-                if w > 0.0:
-                    k = claim * post_b[0, c] / post_b[1, e]
-                    below += w * betainc(post_a[0, c], post_a[1, e], k / (1.0 + k))
-    below = min(max(below, 0.0), 1.0)
-    return below if lower else 1.0 - below
 
 
 @numba.njit(cache=True, inline="always")
@@ -420,10 +570,16 @@ def draw_subjects(rng: Any, kind: int, rates: np.ndarray, starts: np.ndarray,
             gaps[i] = rng.standard_exponential()
     fill_enrolment_times(gaps, kind, rates, starts, times, enrolled)
     resolved = 0.0
+    one_piece = hazard_starts.size == 1
+    place = 0  # i modulo the block's size, without a division per subject
     for i in range(m):
-        j = pattern[i % pattern.size]
+        j = pattern[place]
+        place = place + 1 if place + 1 < pattern.size else 0
         arm_of[i] = j
-        t_event = piecewise_time(rng.standard_exponential(), hazards[j], hazard_starts)
+        # one piece: u / h, what piecewise_time returns (0 + u / h), without taking a
+        # row of hazards, whose reference counting cost more than the division
+        t_event = (rng.standard_exponential() / hazards[j, 0] if one_piece else
+                   piecewise_time(rng.standard_exponential(), hazards[j], hazard_starts))
         t_loss = rng.standard_exponential() / dropout if dropout > 0.0 else np.inf
         seen[i] = t_event <= t_loss
         follow[i] = t_event if seen[i] else t_loss
@@ -438,10 +594,34 @@ def piece_statistics(enrolled: np.ndarray, follow: np.ndarray, seen: np.ndarray,
     """Each arm's events and exposure in each analysis piece (rows: arms, columns:
     pieces of ``starts``) at the analysis at calendar time ``tau``; returns the subjects
     enrolled by then (``enrolled`` non-decreasing, as enrolment times are)."""
-    events[:] = 0.0
-    exposure[:] = 0.0
     pieces = starts.size
     entered = 0
+    if pieces == 1 and exposure.shape[0] <= 2:
+        # one piece, one or two arms: sums in registers, in the same order as below
+        # (arithmetic rather than branches for whether a subject has ended, a coin toss
+        # the processor cannot predict; the arm follows the allocation block's pattern)
+        e0 = e1 = d0 = d1 = 0.0
+        for i in range(enrolled.size):
+            if enrolled[i] > tau:
+                break  # enrolment times are non-decreasing
+            entered += 1
+            ended = enrolled[i] + follow[i] <= tau
+            f = follow[i] if ended else tau - enrolled[i]
+            g = 1.0 * (ended & seen[i])
+            if arm_of[i] == 0:
+                e0 += f
+                d0 += g
+            else:
+                e1 += f
+                d1 += g
+        exposure[0, 0] = e0
+        events[0, 0] = d0
+        if exposure.shape[0] == 2:
+            exposure[1, 0] = e1
+            events[1, 0] = d1
+        return entered
+    events[:] = 0.0
+    exposure[:] = 0.0
     for i in range(enrolled.size):
         if enrolled[i] > tau:
             break  # enrolment times are non-decreasing
@@ -537,9 +717,20 @@ def patient_level_studies(
     analysis_starts: np.ndarray, piece: int, log_w: np.ndarray, a: np.ndarray,
     b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
     tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
-    stop_futility: np.ndarray, calendar: np.ndarray,
+    stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray,
+    bound: float, quantiles: np.ndarray, draws: int, overlap: np.ndarray, limit: float,
+    piece_a: np.ndarray, piece_b: np.ndarray, normal_w: np.ndarray, normal_m: np.ndarray,
+    normal_p: np.ndarray, normal: np.ndarray, shape: np.ndarray,
 ) -> None:
-    """Simulate ``studies`` studies, adding their stops and calendar totals."""
+    """Simulate ``studies`` studies, adding their stops and calendar totals.
+
+    ``predictive``: the predictive futility threshold per look (``nan``: none; looks at
+    event counts, one analysis piece); one arm uses the final exposure bound ``bound``,
+    two arms ``draws`` draws and the table ``quantiles``
+    (:meth:`PatientLevelSimulator.predictive_setup`). A non-empty ``overlap`` makes a
+    one-arm decision on the landmark survival (:func:`landmark_benefit`, priors per piece
+    ``piece_a``, ``piece_b``). Non-empty ``normal_w`` selects the normal approximation on
+    the log hazard ratio (:meth:`PatientLevelSimulator.normal_setup`)."""
     looks = targets.size
     arms = hazards.shape[0]
     pieces = analysis_starts.size
@@ -568,10 +759,11 @@ def patient_level_studies(
         if trigger == 0:
             top = 0.0
             for i in range(m):
-                if seen[i]:
-                    event_times[count] = enrolled[i] + follow[i]
-                    top = max(top, event_times[count])
-                    count += 1
+                # written always, kept when seen: no branch on a coin toss
+                t = enrolled[i] + follow[i]
+                event_times[count] = t
+                top = max(top, t if seen[i] else 0.0)
+                count += seen[i]
             while reached < looks and targets[reached] <= count:
                 reached += 1
             ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
@@ -589,9 +781,32 @@ def patient_level_studies(
             for j in range(arms):
                 d[j] = events[j, piece]
                 e[j] = exposure[j, piece]
-            benefit = benefit_at(d, e, log_w, a, b, claim, lower)
+            score = 0.0
+            information = 0.0
+            if normal_w.size > 0:
+                score, information = log_hazard_ratio_score(events, exposure, shape,
+                                                            normal[0], normal[2])
+                benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
+                                         normal[1])
+            elif overlap.size > 0:
+                benefit = landmark_benefit(events[0], exposure[0], log_w[0], piece_a,
+                                           piece_b, overlap, limit, lower)
+            else:
+                benefit = benefit_at(d, e, log_w, a, b, claim, lower)
             threshold = efficacy[looks - 1] if final else efficacy[k]
             code = look_decision_at(threshold, futility[k], final, benefit, tol)
+            if code == CONTINUE and wants_predictive_at(predictive[k], final):
+                if normal_w.size > 0:
+                    pp = normal_predictive(score, information, normal[3], normal[4],
+                                           normal_w, normal_m, normal_p)
+                elif arms == 1:
+                    pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b,
+                                            bound, lower)
+                else:
+                    pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b,
+                                            claim, lower, efficacy[looks - 1] - tol,
+                                            quantiles, draws)
+                code = predictive_decision_at(predictive[k], pp, tol)
             record_study(calendar, edges, k, tau, entered, events.sum(),
                          code != CONTINUE, counts)
             if code == EFFICACY:
