@@ -50,6 +50,7 @@ from octrial.simulation.calendar import (
     duration_edges,
     record_studies,
 )
+from octrial.simulation.counts_benefit import BetaCounts, serves
 
 CELLS = 2_000_000
 """Most study-by-subject cells held at once under random conduct (memory bound)."""
@@ -115,6 +116,12 @@ class CalendarStudies(Simulator):
         self.arm_of = np.argmax(np.diff(arm_counts(np.arange(m + 1), block), axis=0), axis=1)
         self.edges = duration_edges(design)
         self.counts = count_edges(design)
+        # Under random conduct the sizes reached vary from study to study: binary
+        # beta-mixture designs then compute each study's probabilities at its own counts
+        # (memoised) instead of a table per distinct size. Deterministic conduct keeps
+        # the tables (one size per look), so its numbers stay those of the tables.
+        self.at_counts = (BetaCounts(design) if not self.conduct.deterministic
+                          and serves(design) else None)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         """Simulate ``replicates`` studies with random numbers from ``rng`` only."""
@@ -194,6 +201,13 @@ class CalendarStudies(Simulator):
         final = design.looks.per_arm[-1]
         codes = np.full(counts.shape[0], CONTINUE if k < rule.last else FUTILITY,
                         dtype=np.int64)
+        if self.at_counts is not None and not rule.has_predictive(k):
+            # an arm without outcomes: no decision possible
+            where = np.flatnonzero(counts.min(axis=1) >= 1)
+            benefit = self.at_counts.benefit(tuple(x[where] for x in statistics),
+                                             counts[where])
+            codes[where] = rule.decide_many(k, benefit)
+            return codes
         for n, where in _groups(counts):
             if min(n) < 1:
                 continue  # an arm without outcomes: no decision possible
@@ -215,6 +229,12 @@ class CalendarStudies(Simulator):
 
     def _final_success(self, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
         success = np.zeros(counts.shape[0], dtype=bool)
+        if self.at_counts is not None:
+            where = np.flatnonzero(counts.min(axis=1) >= 1)
+            benefit = self.at_counts.benefit(tuple(x[where] for x in statistics),
+                                             counts[where])
+            success[where] = self.rule.decide_many(self.rule.last, benefit) == EFFICACY
+            return success
         for n, where in _groups(counts):
             if min(n) < 1:
                 continue
@@ -228,11 +248,19 @@ class CalendarStudies(Simulator):
         """Add the estimation sums of stopping studies; their covered count (``None``:
         the family offers no estimate)."""
         covered = 0
-        for n, where in _groups(counts):
-            if min(n) < 1:
+        if self.at_counts is not None:
+            groups = [((), np.flatnonzero(counts.min(axis=1) >= 1))]
+        else:
+            groups = _groups(counts)
+        for n, where in groups:
+            if self.at_counts is not None:
+                found = self.at_counts.estimate(tuple(x[where] for x in statistics),
+                                                counts[where], self.target)
+            elif min(n) < 1:
                 continue
-            found = self.design.family.estimate_at(
-                self.design, tuple(x[where] for x in statistics), n, self.target)
+            else:
+                found = self.design.family.estimate_at(
+                    self.design, tuple(x[where] for x in statistics), n, self.target)
             if found is None:
                 return None
             error = found[0] - self.target

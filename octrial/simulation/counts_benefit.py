@@ -1,0 +1,193 @@
+"""Posterior probabilities of binary beta-mixture designs at each study's own counts.
+
+Under random conduct (Poisson arrivals, dropout) the studies of one look reach many
+different per-arm sizes, so decision tables at planned sizes do not apply and a table per
+distinct size costs a whole lattice of quadratures for the few points studies reach.
+Here each study's posterior probability is computed at its own counts: one arm, the
+posterior tail at the benchmark (regularised incomplete beta); two arms,
+``Pr(p_T - p_C > d)`` by :func:`octrial.simulation.beta_difference.prob_difference_exceeds`,
+the decision tables' tanh-sinh quadrature (same nodes, step halving until successive
+levels agree to 1e-11) run for one pair of posteriors at a time.
+
+Values are memoised by the counts ``(n_T, x_T, n_C, x_C)`` in numba dictionaries kept
+for the life of the process, so that batches and scenarios of a design share them (the
+values do not depend on the true rates). A memo only saves work: every value is computed
+from its own counts alone, so the numbers do not depend on which batches ran before, on
+``--jobs`` or on the backend.
+
+Against the decision tables (:func:`octrial.endpoints.binary.prob_difference_exceeds`,
+which halve the step until the largest change over the whole table is below 1e-11) a
+value can differ by the quadrature tolerance, about 1e-11; a decision can differ only for
+a probability that close to a threshold (``tests/test_calendar_speed.py`` counts such
+flips over many studies against the tables; none occur there).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numba
+import numpy as np
+from numba import types
+from numba.typed import Dict
+
+from octrial.allocation.decisions import padded_priors, posterior_mixture
+from octrial.endpoints.binary import BetaMixture
+from octrial.simulation.beta_difference import (
+    QUADRATURE_TOLERANCE,
+    _mixture_cdf,
+    prob_difference_exceeds,
+    quadrature_nodes,
+)
+
+MEMO_LIMIT = 4_000_000
+"""A memo holding more values than this is emptied (memory bound; it only saves work)."""
+
+_KEY = types.UniTuple(types.int64, 4)
+_MEMOS: dict[tuple[Any, ...], Any] = {}
+_NODES: tuple[np.ndarray, ...] | None = None
+
+
+def serves(design: Any) -> bool:
+    """Whether ``design`` is a binary design whose every prior is a beta mixture on the
+    rate with a comparison on the difference (the closed-form posteriors this module
+    computes); other designs keep the family's tables."""
+    family = design.family
+    if family.name != "binary" or family.on_grid(design):
+        return False
+    return all(isinstance(arm.prior, BetaMixture) for arm in design.arms)
+
+
+def _nodes() -> tuple[np.ndarray, ...]:
+    global _NODES
+    if _NODES is None:
+        _NODES = quadrature_nodes()
+    return _NODES
+
+
+def _memo(key: tuple[Any, ...]) -> Any:
+    memo = _MEMOS.get(key)
+    if memo is None or len(memo) > MEMO_LIMIT:
+        memo = Dict.empty(key_type=_KEY, value_type=types.float64)
+        _MEMOS[key] = memo
+    return memo
+
+
+@numba.njit(cache=True)
+def _fill(two_arm, upper, d, prior_w, prior_a, prior_b, n_t, x_t, n_c, x_c, log_u,
+          log_1mu, log_w, start, memo, out):  # pragma: no cover - compiled
+    """``out[i]``: one arm, Pr(p > d) (``upper``) or Pr(p <= d) at ``x_t[i]`` of
+    ``n_t[i]``; two arms, Pr(p_T - p_C > d) (``upper``) or Pr(p_C - p_T > d)."""
+    width = prior_w.shape[1]
+    tw, ta, tb = np.empty(width), np.empty(width), np.empty(width)
+    cw, ca, cb = np.empty(width), np.empty(width), np.empty(width)
+    for i in range(out.size):
+        key = (n_t[i], x_t[i], n_c[i], x_c[i])
+        found = memo.get(key, -1.0)
+        if found >= 0.0:
+            out[i] = found
+            continue
+        posterior_mixture(prior_w[0], prior_a[0], prior_b[0], n_t[i], x_t[i], tw, ta, tb)
+        if not two_arm:
+            value = _mixture_cdf(tw, ta, tb, d, upper)
+        else:
+            posterior_mixture(prior_w[1], prior_a[1], prior_b[1], n_c[i], x_c[i], cw, ca, cb)
+            if upper:
+                value = prob_difference_exceeds(tw, ta, tb, cw, ca, cb, d, log_u, log_1mu,
+                                                log_w, start, QUADRATURE_TOLERANCE)
+            else:
+                value = prob_difference_exceeds(cw, ca, cb, tw, ta, tb, d, log_u, log_1mu,
+                                                log_w, start, QUADRATURE_TOLERANCE)
+        memo[key] = value
+        out[i] = value
+
+
+@numba.njit(cache=True)
+def _means(prior_w, prior_a, prior_b, n, x, out):  # pragma: no cover - compiled
+    """Posterior mean of the rate of one arm at ``x[i]`` of ``n[i]``."""
+    width = prior_w.size
+    pw, pa, pb = np.empty(width), np.empty(width), np.empty(width)
+    for i in range(out.size):
+        posterior_mixture(prior_w, prior_a, prior_b, n[i], x[i], pw, pa, pb)
+        total = 0.0
+        for j in range(width):
+            total += pw[j] * pa[j] / (pa[j] + pb[j])
+        out[i] = total
+
+
+class BetaCounts:
+    """Posterior summaries of a binary beta-mixture design at per-study counts.
+
+    Parameters
+    ----------
+    design : Design
+        A design :func:`serves` accepts.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from octrial import load_design
+    >>> design = load_design("designs/delayed-response.toml")
+    >>> at = BetaCounts(design)
+    >>> b = at.benefit((np.array([30.0]), np.array([20.0])), np.array([[60, 60]]))
+    >>> bool(0.95 < b[0] < 0.99)
+    True
+    """
+
+    def __init__(self, design: Any) -> None:
+        h = design.hypothesis
+        self.two_arm = len(design.arms) == 2
+        self.higher = h.better == "higher"
+        self.shift = float(h.shift) if self.two_arm else float(h.benchmark)
+        priors = [(p.weights, p.a, p.b) for p in (arm.prior for arm in design.arms)]
+        self.prior_w, self.prior_a, self.prior_b = padded_priors(priors)
+        self._identity = (tuple(tuple(tuple(v) for v in p) for p in priors), self.two_arm)
+
+    def _values(self, statistics: tuple[np.ndarray, ...], n: np.ndarray, upper: bool,
+                d: float) -> np.ndarray:
+        n = np.asarray(n, dtype=np.int64)
+        rows = n.shape[0]
+        x_t = np.asarray(statistics[0], dtype=np.int64)
+        if self.two_arm:
+            n_c, x_c = np.ascontiguousarray(n[:, 1]), np.asarray(statistics[1], dtype=np.int64)
+        else:
+            n_c = x_c = np.zeros(rows, dtype=np.int64)
+        out = np.empty(rows)
+        memo = _memo((*self._identity, upper, d))
+        _fill(self.two_arm, upper, d, self.prior_w, self.prior_a, self.prior_b,
+              np.ascontiguousarray(n[:, 0]), np.ascontiguousarray(x_t), n_c,
+              np.ascontiguousarray(x_c), *_nodes(), memo, out)
+        return out
+
+    def benefit(self, statistics: tuple[np.ndarray, ...], n: np.ndarray) -> np.ndarray:
+        """Posterior probability of benefit per study.
+
+        Parameters
+        ----------
+        statistics : tuple of ndarray
+            Responses per arm, one value per study.
+        n : ndarray of int, shape (studies, arms)
+            Subjects with an outcome per study and arm (each at least 1 where the
+            caller decides; a study with 0 gets the prior's probability).
+        """
+        return self._values(statistics, n, self.higher, self.shift)
+
+    def estimate(self, statistics: tuple[np.ndarray, ...], n: np.ndarray,
+                 value: float) -> tuple[np.ndarray, np.ndarray]:
+        """Per study the posterior mean of the target (the rate; two arms p_T - p_C)
+        and the posterior Pr(target <= ``value``), as
+        :meth:`~octrial.endpoints.binary.BinaryFamily.target_mean` and ``target_cdf``."""
+        n = np.asarray(n, dtype=np.int64)
+        means = []
+        for j in range(n.shape[1]):
+            out = np.empty(n.shape[0])
+            _means(self.prior_w[j], self.prior_a[j], self.prior_b[j],
+                   np.ascontiguousarray(n[:, j]),
+                   np.asarray(statistics[j], dtype=np.int64), out)
+            means.append(out)
+        mean = means[0] - means[1] if self.two_arm else means[0]
+        if self.two_arm:
+            cdf = 1.0 - self._values(statistics, n, True, float(value))
+        else:
+            cdf = self._values(statistics, n, False, float(value))
+        return mean, cdf
