@@ -35,8 +35,10 @@ the generic study loop draws them, so the numbers equal those of
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
+import numba
 import numpy as np
 
 from octrial.conduct import arrivals
@@ -65,6 +67,62 @@ def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
     inverse = inverse.reshape(-1)
     return [(tuple(int(v) for v in row), np.flatnonzero(inverse == g))
             for g, row in enumerate(rows)]
+
+
+BY_OUTCOMES, BY_ENROLMENT, BY_TIME = 0, 1, 2
+"""Look triggers as the kernels number them (``looks.n``, ``looks.enrolled``, ``looks.time``)."""
+
+
+@numba.njit(cache=True)
+def _look_state(enrol: np.ndarray, observed: np.ndarray, ordered: np.ndarray,
+                rows: np.ndarray, trigger: int, target: float, arm_of: np.ndarray,
+                times: np.ndarray, complete: np.ndarray,
+                in_study: np.ndarray) -> None:  # pragma: no cover - compiled
+    """Per study ``rows[r]`` of the subject arrays: the look's time, its subjects with an
+    outcome per arm and its subjects enrolled (the look ``target``: outcomes, enrolled
+    subjects or a time). ``ordered``: the outcome times sorted per study (equal to
+    ``observed`` when they are already in order)."""
+    m = enrol.shape[1]
+    for r in range(rows.size):
+        s = rows[r]
+        if trigger == BY_TIME:
+            t = target
+        elif trigger == BY_ENROLMENT:
+            t = enrol[s, int(target) - 1]
+        else:
+            t = ordered[s, int(target) - 1]
+            if not math.isfinite(t):
+                # a target dropout made unreachable: the look waits for the last outcome
+                t = -math.inf
+                for i in range(m - 1, -1, -1):
+                    if math.isfinite(ordered[s, i]):
+                        t = ordered[s, i]
+                        break
+        times[r] = t
+        limit = t + SLACK * max(1.0, abs(t))
+        for i in range(m):
+            if observed[s, i] <= limit:
+                complete[r, arm_of[i]] += 1
+            if enrol[s, i] <= limit:
+                in_study[r] += 1
+
+
+@numba.njit(cache=True)
+def _pipeline_state(enrol: np.ndarray, observed: np.ndarray, rows: np.ndarray,
+                    t: np.ndarray, arm_of: np.ndarray, final: np.ndarray,
+                    last: np.ndarray) -> None:  # pragma: no cover - compiled
+    """Per study ``rows[r]`` stopped at time ``t[r]``: the subjects enrolled by then
+    whose outcome will be observed, per arm (``final``), and the last of those outcome
+    times (``last``; ``-inf`` when none)."""
+    for r in range(rows.size):
+        s = rows[r]
+        limit = t[r] + SLACK * max(1.0, abs(t[r]))
+        top = -math.inf
+        for i in range(enrol.shape[1]):
+            if enrol[s, i] <= limit and math.isfinite(observed[s, i]):
+                final[r, arm_of[i]] += 1
+                top = max(top, observed[s, i])
+        last[r] = top
 
 
 def calendar_unsupported(design: Any) -> str | None:
@@ -153,27 +211,19 @@ class CalendarStudies(Simulator):
                                                                            lost.shape))
         return enrol, observed
 
-    def _look_time(self, k: int, enrol: np.ndarray, observed: np.ndarray) -> np.ndarray:
+    def _look(self, k: int, enrol: np.ndarray, observed: np.ndarray, ordered: np.ndarray,
+              rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Look ``k`` of the studies ``rows`` of the subject arrays: time, subjects with
+        an outcome per arm, subjects enrolled (:func:`_look_state`)."""
         looks = self.design.looks
-        rows = enrol.shape[0]
-        if looks.trigger == "time":
-            return np.full(rows, looks.at[k])
-        if looks.trigger == "enrolled":
-            return enrol[:, int(looks.at[k]) - 1].copy()
-        n = looks.n[k]
-        ordered = observed if self.conduct.dropout_hazard == 0 else np.sort(observed, axis=1)
-        t = ordered[:, n - 1].copy()
-        # a target dropout made unreachable: the look waits for the last outcome
-        last = np.where(np.isfinite(ordered), ordered, -np.inf).max(axis=1)
-        return np.where(np.isfinite(t), t, last)
-
-    def _counts(self, times: np.ndarray, t: np.ndarray) -> np.ndarray:
-        """Per row and arm: subjects with times at or before ``t``."""
-        limit = (t + SLACK * np.maximum(1.0, np.abs(t)))[:, None]
-        arms = len(self.design.arms)
-        before = times <= limit
-        return np.stack([before[:, self.arm_of == j].sum(axis=1) for j in range(arms)],
-                        axis=1).astype(np.int64)
+        trigger = {"time": BY_TIME, "enrolled": BY_ENROLMENT}.get(looks.trigger, BY_OUTCOMES)
+        target = float(looks.n[k]) if trigger == BY_OUTCOMES else float(looks.at[k])
+        times = np.empty(rows.size)
+        complete = np.zeros((rows.size, len(self.design.arms)), dtype=np.int64)
+        in_study = np.zeros(rows.size, dtype=np.int64)
+        _look_state(enrol, observed, ordered, rows, trigger, target, self.arm_of, times,
+                    complete, in_study)
+        return times, complete, in_study
 
     def _draw(self, rng: np.random.Generator, statistics: list[np.ndarray],
               increments: np.ndarray) -> None:
@@ -248,6 +298,7 @@ class CalendarStudies(Simulator):
         """Add the estimation sums of stopping studies; their covered count (``None``:
         the family offers no estimate)."""
         covered = 0
+        groups: list[tuple[tuple[int, ...], np.ndarray]]
         if self.at_counts is not None:
             groups = [((), np.flatnonzero(counts.min(axis=1) >= 1))]
         else:
@@ -275,9 +326,11 @@ class CalendarStudies(Simulator):
         arms = len(design.arms)
         shared = conduct.deterministic
         enrol, observed = self._timeline(rng, studies)
-        m = conduct.max_enrolment
-        enrol_all = np.broadcast_to(enrol, (studies, m))
-        observed_all = np.broadcast_to(observed, (studies, m))
+        enrol = np.ascontiguousarray(enrol)
+        observed = np.ascontiguousarray(observed)
+        # looks by n with dropout read the n-th outcome time: sort each study's once
+        ordered = (np.sort(observed, axis=1) if design.looks.trigger == "complete"
+                   and conduct.dropout_hazard > 0 else observed)
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         sums, covered, estimated = np.zeros(3), 0, True
@@ -292,13 +345,9 @@ class CalendarStudies(Simulator):
         for k in range(self.looks):
             if running.size == 0:
                 break
-            if shared:
-                rows_e, rows_o = enrol, observed
-            else:
-                rows_e, rows_o = enrol_all[running], observed_all[running]
-            t = self._look_time(k, rows_e, rows_o)
-            complete = self._counts(rows_o, t)
-            in_study = self._counts(rows_e, t).sum(axis=1)
+            # one shared timeline (row 0) under deterministic conduct
+            rows = np.zeros(1, dtype=np.int64) if shared else running
+            t, complete, in_study = self._look(k, enrol, observed, ordered, rows)
             if shared:
                 t = np.broadcast_to(t, running.shape)
                 complete = np.broadcast_to(complete, (running.size, arms))
@@ -322,7 +371,7 @@ class CalendarStudies(Simulator):
                     covered += found
             if conduct.analyse_pipeline and k < self.rule.last and np.any(stops):
                 reversed_ += self._pipeline(rng, codes, running, t, statistics, before,
-                                            rows_e, rows_o, duration, analysed, shared)
+                                            enrol, observed, duration, analysed, shared)
             keep = ~stops
             running = running[keep]
             statistics = [x[keep] for x in statistics]
@@ -336,21 +385,19 @@ class CalendarStudies(Simulator):
 
     def _pipeline(self, rng: np.random.Generator, codes: np.ndarray, running: np.ndarray,
                   t: np.ndarray, statistics: list[np.ndarray], counts: np.ndarray,
-                  rows_e: np.ndarray, rows_o: np.ndarray, duration: np.ndarray,
+                  enrol: np.ndarray, observed: np.ndarray, duration: np.ndarray,
                   analysed: np.ndarray, shared: bool) -> int:
         """The pipeline of studies that stopped at an interim look: their duration ends
         at the last pipeline outcome and their analysed subjects include it; the final
         analysis of stops for efficacy is redone with it. Returns how many of those
         stops the final analysis reverses."""
         chosen = codes != CONTINUE
-        t_c = np.asarray(t[chosen])
-        e, o = (rows_e, rows_o) if shared else (rows_e[chosen], rows_o[chosen])
-        t_rows = t_c[:1] if shared else t_c
-        waiting = e <= (t_rows + SLACK * np.maximum(1.0, np.abs(t_rows)))[:, None]
-        seen = waiting & np.isfinite(o)
-        final_counts = np.stack([seen[:, self.arm_of == j].sum(axis=1)
-                                 for j in range(counts.shape[1])], axis=1).astype(np.int64)
-        last = np.where(seen, o, -np.inf).max(axis=1)
+        t_c = np.ascontiguousarray(t[chosen], dtype=float)
+        rows = np.zeros(1, dtype=np.int64) if shared else running[chosen]
+        final_counts = np.zeros((rows.size, counts.shape[1]), dtype=np.int64)
+        last = np.empty(rows.size)
+        _pipeline_state(enrol, observed, rows, t_c[:rows.size], self.arm_of, final_counts,
+                        last)
         if shared:
             final_counts = np.broadcast_to(final_counts, (t_c.size, counts.shape[1]))
             last = np.broadcast_to(last, t_c.shape)

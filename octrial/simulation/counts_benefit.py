@@ -154,9 +154,11 @@ class BetaCounts:
             n_c = x_c = np.zeros(rows, dtype=np.int64)
         out = np.empty(rows)
         memo = _memo((*self._identity, upper, d))
-        _fill(self.two_arm, upper, d, self.prior_w, self.prior_a, self.prior_b,
-              np.ascontiguousarray(n[:, 0]), np.ascontiguousarray(x_t), n_c,
-              np.ascontiguousarray(x_c), *_nodes(), memo, out)
+        # numba's Dispatcher type does not carry the compiled function's parameters
+        _fill(  # type: ignore[call-arg]
+            self.two_arm, upper, d, self.prior_w, self.prior_a, self.prior_b,
+            np.ascontiguousarray(n[:, 0]), np.ascontiguousarray(x_t), n_c,
+            np.ascontiguousarray(x_c), *_nodes(), memo, out)
         return out
 
     def benefit(self, statistics: tuple[np.ndarray, ...], n: np.ndarray) -> np.ndarray:
