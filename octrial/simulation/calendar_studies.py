@@ -35,6 +35,7 @@ the generic study loop draws them, so the numbers equal those of
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from typing import Any
 
@@ -42,6 +43,12 @@ import numba
 import numpy as np
 
 from octrial.conduct import arrivals
+from octrial.conduct.final_counts import (
+    BY_ENROLMENT,
+    BY_OUTCOMES,
+    BY_TIME,
+    expected_final_counts,
+)
 from octrial.conduct.timing import SLACK, allocation_block, arm_counts
 from octrial.endpoints.base import Family
 from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
@@ -67,10 +74,6 @@ def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
     inverse = inverse.reshape(-1)
     return [(tuple(int(v) for v in row), np.flatnonzero(inverse == g))
             for g, row in enumerate(rows)]
-
-
-BY_OUTCOMES, BY_ENROLMENT, BY_TIME = 0, 1, 2
-"""Look triggers as the kernels number them (``looks.n``, ``looks.enrolled``, ``looks.time``)."""
 
 
 @numba.njit(cache=True)
@@ -178,6 +181,7 @@ class CalendarStudies(Simulator):
         # beta-mixture designs then compute each study's probabilities at its own counts
         # (memoised) instead of a table per distinct size. Deterministic conduct keeps
         # the tables (one size per look), so its numbers stay those of the tables.
+        self._finals: dict[tuple[int, ...], Any] = {}
         self.at_counts = (BetaCounts(design) if not self.conduct.deterministic
                           and serves(design) else None)
 
@@ -195,21 +199,24 @@ class CalendarStudies(Simulator):
         return tally
 
     # -- one chunk of studies -------------------------------------------------------
-    def _timeline(self, rng: np.random.Generator, studies: int) -> tuple[np.ndarray, np.ndarray]:
-        """Enrolment and outcome times (``inf``: lost before the outcome); one shared
-        row under deterministic conduct."""
+    def _timeline(self, rng: np.random.Generator, studies: int,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Enrolment and outcome times (``inf``: lost before the outcome) and times from
+        enrolment to loss (a 1 x 1 placeholder without dropout); one shared row under
+        deterministic conduct."""
         conduct = self.conduct
         m = conduct.max_enrolment
         gaps = (None if conduct.accrual.deterministic
                 else rng.standard_exponential((studies, m)))
         enrol = arrivals.enrolment_times(conduct.accrual, gaps, studies, m)
         observed = enrol + conduct.lag
+        lost = np.full((1, 1), np.inf)
         if conduct.dropout_hazard > 0:
             lost = arrivals.dropout_times(rng.standard_exponential((studies, m)),
                                           conduct.dropout_hazard)
             observed = np.where(lost < conduct.lag, np.inf, np.broadcast_to(observed,
                                                                            lost.shape))
-        return enrol, observed
+        return enrol, observed, lost
 
     def _look(self, k: int, enrol: np.ndarray, observed: np.ndarray, ordered: np.ndarray,
               rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -245,37 +252,88 @@ class CalendarStudies(Simulator):
                                                           rng, int(where.sum()))
             statistics[j] = statistics[j] + added
 
-    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
-        """Decision codes at look ``k`` from the data of subjects with an outcome."""
+    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray,
+                subjects: tuple[np.ndarray, ...], rows: np.ndarray,
+                t: np.ndarray) -> np.ndarray:
+        """Decision codes at look ``k`` from the data of subjects with an outcome
+        (``subjects``, ``rows`` and ``t``: the studies' subject arrays, their rows there
+        and the look's times, for the predictive probability's final counts)."""
         design, family, rule = self.design, self.design.family, self.rule
-        final = design.looks.per_arm[-1]
         codes = np.full(counts.shape[0], CONTINUE if k < rule.last else FUTILITY,
                         dtype=np.int64)
-        if self.at_counts is not None and not rule.has_predictive(k):
-            # an arm without outcomes: no decision possible
-            where = np.flatnonzero(counts.min(axis=1) >= 1)
-            benefit = self.at_counts.benefit(tuple(x[where] for x in statistics),
-                                             counts[where])
-            codes[where] = rule.decide_many(k, benefit)
+        # an arm without outcomes: no decision possible
+        where = np.flatnonzero(counts.min(axis=1) >= 1)
+        benefit = np.full(counts.shape[0], np.nan)
+        if self.at_counts is not None:
+            benefit[where] = self.at_counts.benefit(tuple(x[where] for x in statistics),
+                                                    counts[where])
+        else:
+            for n, group in _groups(counts[where]):
+                chosen = where[group]
+                benefit[chosen] = family.benefit_at(
+                    design, tuple(x[chosen] for x in statistics), n)
+        codes[where] = rule.decide_many(k, benefit[where])
+        open_ = where[codes[where] == CONTINUE]
+        if not rule.has_predictive(k) or open_.size == 0:
             return codes
-        for n, where in _groups(counts):
-            if min(n) < 1:
-                continue  # an arm without outcomes: no decision possible
-            now = tuple(x[where] for x in statistics)
-            benefit = family.benefit_at(design, now, n)
-            here = rule.decide_many(k, benefit)
-            if rule.has_predictive(k) and np.any(here == CONTINUE):
-                open_ = here == CONTINUE
-                predictive = np.ones(where.size)
-                if all(a <= b for a, b in zip(n, final, strict=True)):
-                    predictive[open_] = family.predictive_at(
-                        design, tuple(x[open_] for x in now), n)
-                else:
-                    passed = rule.decide_many(rule.last, benefit[open_]) == EFFICACY
-                    predictive[open_] = passed.astype(float)
-                here = rule.decide_many(k, benefit, predictive)
-            codes[where] = here
+        if self.conduct.deterministic:
+            final = np.broadcast_to(np.array(design.looks.per_arm[-1], dtype=np.int64),
+                                    (open_.size, counts.shape[1]))
+        else:
+            final = self._final_counts(subjects, np.ascontiguousarray(rows[open_]),
+                                       np.ascontiguousarray(t[open_], dtype=float))
+        if self.at_counts is not None:
+            predictive = self.at_counts.predictive(
+                tuple(x[open_] for x in statistics), counts[open_], final,
+                float(rule.efficacy[rule.last]) - rule.tolerance)
+            codes[open_] = rule.decide_many(k, benefit[open_], predictive)
+            return codes
+        predictive = np.ones(open_.size)
+        sizes = np.concatenate([counts[open_], final], axis=1)
+        arms = counts.shape[1]
+        for key, group in _groups(sizes):
+            n, sizes_final = key[:arms], key[arms:]
+            chosen = open_[group]
+            if all(a <= b for a, b in zip(n, sizes_final, strict=True)):
+                predictive[group] = family.predictive_at(
+                    self._with_final(sizes_final), tuple(x[chosen] for x in statistics), n)
+            else:
+                # past the planned final counts: the final threshold on the current data
+                passed = rule.decide_many(rule.last, benefit[chosen]) == EFFICACY
+                predictive[group] = passed.astype(float)
+        codes[open_] = rule.decide_many(k, benefit[open_], predictive)
         return codes
+
+    def _final_counts(self, subjects: tuple[np.ndarray, ...], rows: np.ndarray,
+                      t: np.ndarray) -> np.ndarray:
+        """Each study's expected final size per arm from its own state at its look time
+        (:func:`octrial.conduct.final_counts.expected_final_counts`)."""
+        conduct, looks = self.conduct, self.design.looks
+        trigger = {"time": BY_TIME, "enrolled": BY_ENROLMENT}.get(looks.trigger, BY_OUTCOMES)
+        target = float(looks.n[-1]) if trigger == BY_OUTCOMES else float(looks.at[-1])
+        out = np.zeros((rows.size, len(self.design.arms)), dtype=np.int64)
+        accrual = conduct.accrual
+        enrol, observed, lost = subjects
+        expected_final_counts(enrol, observed, lost, rows, t, accrual.arrivals == "poisson",
+                              np.asarray(accrual.rates, dtype=float),
+                              np.asarray(accrual.starts, dtype=float), float(conduct.lag),
+                              float(conduct.dropout_hazard), trigger, target, self.arm_of,
+                              out)
+        return out
+
+    def _with_final(self, final: tuple[int, ...]) -> Any:
+        """The design with final per-arm sizes ``final`` (what the family's predictive
+        probability reads as the final analysis)."""
+        if final == tuple(self.design.looks.per_arm[-1]):
+            return self.design
+        design = self._finals.get(final)
+        if design is None:
+            looks = self.design.looks
+            looks = dataclasses.replace(looks, per_arm=(*looks.per_arm[:-1], final),
+                                        n=(*looks.n[:-1], sum(final)))
+            design = dataclasses.replace(self.design, looks=looks)
+            self._finals[final] = design
+        return design
 
     def _final_success(self, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
         success = np.zeros(counts.shape[0], dtype=bool)
@@ -325,9 +383,10 @@ class CalendarStudies(Simulator):
         conduct, design = self.conduct, self.design
         arms = len(design.arms)
         shared = conduct.deterministic
-        enrol, observed = self._timeline(rng, studies)
-        enrol = np.ascontiguousarray(enrol)
+        enrol, observed, lost = self._timeline(rng, studies)
+        enrol = np.ascontiguousarray(np.broadcast_to(enrol, observed.shape))
         observed = np.ascontiguousarray(observed)
+        subjects = (enrol, observed, np.ascontiguousarray(lost))
         # looks by n with dropout read the n-th outcome time: sort each study's once
         ordered = (np.sort(observed, axis=1) if design.looks.trigger == "complete"
                    and conduct.dropout_hazard > 0 else observed)
@@ -354,7 +413,7 @@ class CalendarStudies(Simulator):
                 in_study = np.broadcast_to(in_study, running.shape)
             self._draw(rng, statistics, complete - before)
             before = np.array(complete)
-            codes = self._decide(k, statistics, before)
+            codes = self._decide(k, statistics, before, subjects, rows, t)
             stops = codes != CONTINUE
             efficacy[k] = int(np.count_nonzero(codes == EFFICACY))
             futility[k] = int(np.count_nonzero(codes == FUTILITY))

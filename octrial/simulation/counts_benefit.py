@@ -24,6 +24,7 @@ flips over many studies against the tables; none occur there).
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numba
@@ -39,12 +40,14 @@ from octrial.simulation.beta_difference import (
     prob_difference_exceeds,
     quadrature_nodes,
 )
+from octrial.simulation.special import log_beta
 
 MEMO_LIMIT = 4_000_000
 """A memo holding more values than this is emptied (memory bound; it only saves work)."""
 
 _KEY = types.UniTuple(types.int64, 4)
 _MEMOS: dict[tuple[Any, ...], Any] = {}
+_BOUNDS: dict[tuple[Any, ...], Any] = {}
 _NODES: tuple[np.ndarray, ...] | None = None
 
 
@@ -65,41 +68,140 @@ def _nodes() -> tuple[np.ndarray, ...]:
     return _NODES
 
 
-def _memo(key: tuple[Any, ...]) -> Any:
-    memo = _MEMOS.get(key)
+def _memo(key: tuple[Any, ...], store: dict[tuple[Any, ...], Any] | None = None,
+          value_type: Any = types.float64) -> Any:
+    store = _MEMOS if store is None else store
+    memo = store.get(key)
     if memo is None or len(memo) > MEMO_LIMIT:
-        memo = Dict.empty(key_type=_KEY, value_type=types.float64)
-        _MEMOS[key] = memo
+        memo = Dict.empty(key_type=_KEY, value_type=value_type)
+        store[key] = memo
     return memo
+
+
+@numba.njit(cache=True)
+def _value(two_arm, upper, d, prior_w, prior_a, prior_b, n_t, x_t, n_c, x_c, log_u, log_1mu,
+           log_w, start, memo):  # pragma: no cover - compiled
+    """One arm, Pr(p > d) (``upper``) or Pr(p <= d) at ``x_t`` of ``n_t``; two arms,
+    Pr(p_T - p_C > d) (``upper``) or Pr(p_C - p_T > d); memoised by the counts."""
+    key = (n_t, x_t, n_c, x_c)
+    found = memo.get(key, -1.0)
+    if found >= 0.0:
+        return found
+    width = prior_w.shape[1]
+    tw, ta, tb = np.empty(width), np.empty(width), np.empty(width)
+    posterior_mixture(prior_w[0], prior_a[0], prior_b[0], n_t, x_t, tw, ta, tb)
+    if not two_arm:
+        value = _mixture_cdf(tw, ta, tb, d, upper)
+    else:
+        cw, ca, cb = np.empty(width), np.empty(width), np.empty(width)
+        posterior_mixture(prior_w[1], prior_a[1], prior_b[1], n_c, x_c, cw, ca, cb)
+        if upper:
+            value = prob_difference_exceeds(tw, ta, tb, cw, ca, cb, d, log_u, log_1mu,
+                                            log_w, start, QUADRATURE_TOLERANCE)
+        else:
+            value = prob_difference_exceeds(cw, ca, cb, tw, ta, tb, d, log_u, log_1mu,
+                                            log_w, start, QUADRATURE_TOLERANCE)
+    memo[key] = value
+    return value
 
 
 @numba.njit(cache=True)
 def _fill(two_arm, upper, d, prior_w, prior_a, prior_b, n_t, x_t, n_c, x_c, log_u,
           log_1mu, log_w, start, memo, out):  # pragma: no cover - compiled
-    """``out[i]``: one arm, Pr(p > d) (``upper``) or Pr(p <= d) at ``x_t[i]`` of
-    ``n_t[i]``; two arms, Pr(p_T - p_C > d) (``upper``) or Pr(p_C - p_T > d)."""
-    width = prior_w.shape[1]
-    tw, ta, tb = np.empty(width), np.empty(width), np.empty(width)
-    cw, ca, cb = np.empty(width), np.empty(width), np.empty(width)
+    """``out[i]``: :func:`_value` at the i-th study's counts."""
     for i in range(out.size):
-        key = (n_t[i], x_t[i], n_c[i], x_c[i])
-        found = memo.get(key, -1.0)
-        if found >= 0.0:
-            out[i] = found
-            continue
-        posterior_mixture(prior_w[0], prior_a[0], prior_b[0], n_t[i], x_t[i], tw, ta, tb)
-        if not two_arm:
-            value = _mixture_cdf(tw, ta, tb, d, upper)
+        out[i] = _value(two_arm, upper, d, prior_w, prior_a, prior_b, n_t[i], x_t[i],
+                        n_c[i], x_c[i], log_u, log_1mu, log_w, start, memo)
+
+
+@numba.njit(cache=True)
+def _boundary(two_arm, upper, d, threshold, prior_w, prior_a, prior_b, final_t, final_c,
+              z_c, log_u, log_1mu, log_w, start, memo, bounds):  # pragma: no cover
+    """The treatment's final responses at the edge of final success, at final sizes
+    ``final_t``, ``final_c`` and ``z_c`` control responses: the smallest count that
+    succeeds (``upper``: the probability rises with the count; ``final_t + 1`` when none
+    does), else the largest (``-1`` when none does). Found by bisection: the posterior
+    of a binomial rate is stochastically increasing in the count whatever the prior
+    (the likelihood's monotone ratio), so success is a threshold in the count."""
+    key = (final_t, final_c, z_c, 0)
+    found = bounds.get(key, -2)
+    if found > -2:
+        return found
+    lo, hi = 0, final_t + 1
+    while lo < hi:
+        mid = (lo + hi) // 2
+        value = _value(two_arm, upper, d, prior_w, prior_a, prior_b, final_t, mid, final_c,
+                       z_c, log_u, log_1mu, log_w, start, memo)
+        succeeds = value >= threshold
+        if succeeds == upper:
+            hi = mid  # upper: success from mid on; else failure from mid on
         else:
-            posterior_mixture(prior_w[1], prior_a[1], prior_b[1], n_c[i], x_c[i], cw, ca, cb)
-            if upper:
-                value = prob_difference_exceeds(tw, ta, tb, cw, ca, cb, d, log_u, log_1mu,
-                                                log_w, start, QUADRATURE_TOLERANCE)
-            else:
-                value = prob_difference_exceeds(cw, ca, cb, tw, ta, tb, d, log_u, log_1mu,
-                                                log_w, start, QUADRATURE_TOLERANCE)
-        memo[key] = value
-        out[i] = value
+            lo = mid + 1
+    edge = lo if upper else lo - 1
+    bounds[key] = edge
+    return edge
+
+
+@numba.njit(cache=True)
+def _predictive_pmf(w, a, b, n, x, m, out):  # pragma: no cover - compiled
+    """Beta-binomial Pr(Y = 0..m) of ``m`` future subjects after ``x`` of ``n``:
+    C(m, y) B(a' + y, b' + m - y) / B(a', b') mixed over the posterior's components."""
+    width = w.size
+    pw, pa, pb = np.empty(width), np.empty(width), np.empty(width)
+    posterior_mixture(w, a, b, n, x, pw, pa, pb)
+    for y in range(m + 1):
+        choose = math.lgamma(m + 1.0) - math.lgamma(y + 1.0) - math.lgamma(m - y + 1.0)
+        total = 0.0
+        for j in range(width):
+            if pw[j] > 0.0:
+                total += pw[j] * math.exp(choose + log_beta(pa[j] + y, pb[j] + m - y)
+                                          - log_beta(pa[j], pb[j]))
+        out[y] = total
+
+
+@numba.njit(cache=True)
+def _predictive(two_arm, upper, d, threshold, prior_w, prior_a, prior_b, n_t, x_t, n_c,
+                x_c, final_t, final_c, log_u, log_1mu, log_w, start, memo, bounds,
+                out):  # pragma: no cover - compiled
+    """``out[i]``: the predictive probability of final success of the i-th study at
+    final sizes ``final_t[i]``, ``final_c[i]`` (Lee & Liu 2008): the future responses'
+    beta-binomial probabilities summed over the final counts that succeed."""
+    for i in range(out.size):
+        m_t = final_t[i] - n_t[i]
+        pmf_t = np.empty(m_t + 1)
+        _predictive_pmf(prior_w[0], prior_a[0], prior_b[0], n_t[i], x_t[i], m_t, pmf_t)
+        # beyond[k] = Pr(Y_T >= k); within[k] = Pr(Y_T <= k)
+        beyond = np.zeros(m_t + 2)
+        for y in range(m_t, -1, -1):
+            beyond[y] = beyond[y + 1] + pmf_t[y]
+        if not two_arm:
+            edge = _boundary(False, upper, d, threshold, prior_w, prior_a, prior_b,
+                             final_t[i], 0, 0, log_u, log_1mu, log_w, start, memo, bounds)
+            out[i] = _success_mass(upper, edge - x_t[i], m_t, beyond)
+            continue
+        m_c = final_c[i] - n_c[i]
+        pmf_c = np.empty(m_c + 1)
+        _predictive_pmf(prior_w[1], prior_a[1], prior_b[1], n_c[i], x_c[i], m_c, pmf_c)
+        total = 0.0
+        for y_c in range(m_c + 1):
+            edge = _boundary(True, upper, d, threshold, prior_w, prior_a, prior_b,
+                             final_t[i], final_c[i], x_c[i] + y_c, log_u, log_1mu, log_w,
+                             start, memo, bounds)
+            total += pmf_c[y_c] * _success_mass(upper, edge - x_t[i], m_t, beyond)
+        out[i] = min(max(total, 0.0), 1.0)
+
+
+@numba.njit(cache=True)
+def _success_mass(upper, edge, m, beyond):  # pragma: no cover - compiled
+    """Pr(future responses reach the edge): ``upper``, Pr(Y >= edge); else
+    Pr(Y <= edge), from ``beyond[k] = Pr(Y >= k)``."""
+    if upper:
+        if edge <= 0:
+            return beyond[0]
+        return beyond[edge] if edge <= m else 0.0
+    if edge < 0:
+        return 0.0
+    return beyond[0] - beyond[edge + 1] if edge < m else beyond[0]
 
 
 @numba.njit(cache=True)
@@ -193,3 +295,28 @@ class BetaCounts:
         else:
             cdf = self._values(statistics, n, False, float(value))
         return mean, cdf
+
+    def predictive(self, statistics: tuple[np.ndarray, ...], n: np.ndarray,
+                   final: np.ndarray, threshold: float) -> np.ndarray:
+        """Per study the predictive probability that the final analysis at per-arm sizes
+        ``final`` (shape like ``n``, each at least ``n``) reaches ``threshold``: the
+        final success threshold less the decision tolerance, as the stop rule compares
+        (:data:`octrial.rules.stop.DECISION_TOLERANCE`)."""
+        n = np.asarray(n, dtype=np.int64)
+        final = np.asarray(final, dtype=np.int64)
+        rows = n.shape[0]
+        x_t = np.ascontiguousarray(statistics[0], dtype=np.int64)
+        zeros = np.zeros(rows, dtype=np.int64)
+        two = self.two_arm
+        n_c = np.ascontiguousarray(n[:, 1]) if two else zeros
+        x_c = np.ascontiguousarray(statistics[1], dtype=np.int64) if two else zeros
+        final_c = np.ascontiguousarray(final[:, 1]) if two else zeros
+        out = np.empty(rows)
+        memo = _memo((*self._identity, self.higher, self.shift))
+        bounds = _memo((*self._identity, self.higher, self.shift, threshold), _BOUNDS,
+                       types.int64)
+        _predictive(  # type: ignore[call-arg]
+            two, self.higher, self.shift, float(threshold), self.prior_w, self.prior_a,
+            self.prior_b, np.ascontiguousarray(n[:, 0]), x_t, n_c, x_c,
+            np.ascontiguousarray(final[:, 0]), final_c, *_nodes(), memo, bounds, out)
+        return out
