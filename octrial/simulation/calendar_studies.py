@@ -20,10 +20,15 @@ decisions taken at the looks). Without ``analyse_pipeline`` a study ends at the 
 where it stops. Study durations count from time 0, the start of the first accrual
 period.
 
-The predictive probability at an interim look assumes the final look's planned counts
-(``looks.per_arm[-1]``, see :func:`octrial.conduct.reader.planned_counts`) and ignores
-the pipeline; a study already past the planned final counts uses the final threshold
-on its current data instead.
+The predictive probability at an interim look integrates over every subject without an
+outcome up to the final analysis (pipeline and subjects still to enrol are exchangeable
+given the parameter, so one stage suffices). Under deterministic conduct the final
+analysis has the looks' planned final counts (``looks.per_arm[-1]``); under random
+conduct each study's own, expected from its state at the look
+(:mod:`octrial.conduct.final_counts`: docs/methods.md, "Delayed outcomes under random
+conduct"). Binary beta-mixture designs under random conduct compute the posterior and
+predictive probabilities at each study's counts (:mod:`octrial.simulation.counts_benefit`,
+memoised by the counts); other designs use the family's tables per distinct size.
 
 Random numbers come from the batch's generator only: enrolment gaps (Poisson arrivals)
 and dropout times first, then, look by look and arm by arm, the statistics. With even
