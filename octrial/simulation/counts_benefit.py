@@ -42,7 +42,7 @@ from octrial.simulation.beta_difference import (
 )
 from octrial.simulation.special import log_beta
 
-MEMO_LIMIT = 4_000_000
+MEMO_LIMIT = 1_000_000
 """A memo holding more values than this is emptied (memory bound; it only saves work)."""
 
 _KEY = types.UniTuple(types.int64, 4)
