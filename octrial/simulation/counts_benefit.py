@@ -145,18 +145,23 @@ def _boundary(two_arm, upper, d, threshold, prior_w, prior_a, prior_b, final_t, 
 @numba.njit(cache=True)
 def _predictive_pmf(w, a, b, n, x, m, out):  # pragma: no cover - compiled
     """Beta-binomial Pr(Y = 0..m) of ``m`` future subjects after ``x`` of ``n``:
-    C(m, y) B(a' + y, b' + m - y) / B(a', b') mixed over the posterior's components."""
+    C(m, y) B(a' + y, b' + m - y) / B(a', b') mixed over the posterior's components,
+    each term from the previous by the ratio of successive terms, in logs
+    ((m - y) / (y + 1) x (a' + y) / (b' + m - y - 1)), so that no term underflows."""
     width = w.size
     pw, pa, pb = np.empty(width), np.empty(width), np.empty(width)
     posterior_mixture(w, a, b, n, x, pw, pa, pb)
     for y in range(m + 1):
-        choose = math.lgamma(m + 1.0) - math.lgamma(y + 1.0) - math.lgamma(m - y + 1.0)
-        total = 0.0
-        for j in range(width):
-            if pw[j] > 0.0:
-                total += pw[j] * math.exp(choose + log_beta(pa[j] + y, pb[j] + m - y)
-                                          - log_beta(pa[j], pb[j]))
-        out[y] = total
+        out[y] = 0.0
+    for j in range(width):
+        if pw[j] <= 0.0:
+            continue
+        log_term = log_beta(pa[j], pb[j] + m) - log_beta(pa[j], pb[j])
+        for y in range(m + 1):
+            out[y] += pw[j] * math.exp(log_term)
+            if y < m:
+                log_term += (math.log((m - y) / (y + 1.0))
+                             + math.log((pa[j] + y) / (pb[j] + m - y - 1.0)))
 
 
 @numba.njit(cache=True)

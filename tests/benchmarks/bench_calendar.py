@@ -18,6 +18,12 @@ run, all on one core:
 * a naive loop: study by study, subject by subject in Python, each posterior
   probability by scipy's ``quad`` over beta densities.
 
+A second pair of lines times the same design with futility by the predictive probability
+(< 0.10 at the interim looks), at each study's own expected final sizes
+(:mod:`octrial.conduct.final_counts`): the compiled predictive probability against the
+family's lattice tables per distinct (current, final) sizes at the same final sizes (the
+previous way of computing it, which then assumed the planned final sizes).
+
 The fast simulator runs several batches of 50,000 studies, each with its own seed, as the
 Monte Carlo engine does; its memo is shared between batches (and scenarios) in a
 process, so the first batch pays for most of the quadratures. Printed: studies per second
@@ -87,11 +93,14 @@ seed = 1
 """
 
 
-def load() -> object:
+def load(predictive: bool = False) -> object:
+    """The benchmark design; ``predictive``: futility by the predictive probability
+    (< 0.10) instead of the posterior probability."""
+    text = DESIGN.replace("futility = ", "futility_predictive = ") if predictive else DESIGN
     with tempfile.TemporaryDirectory() as folder:
         path = os.path.join(folder, "bench.toml")
         with open(path, "w") as handle:
-            handle.write(DESIGN)
+            handle.write(text)
         return load_design(path)
 
 
@@ -178,6 +187,22 @@ def main() -> None:
           f"Pr(success) {p_naive:.4f}")
     print(f"ratios (all batches): {all_rate / old_rate:.1f}x the previous implementation, "
           f"{all_rate / naive_rate:,.0f}x the naive loop")
+
+    predictive = load(predictive=True)
+    fast = CalendarStudies(predictive, TRUTH, 0.95)
+    fast.simulate(batch_generator(99, 9, 9), 50)
+    pp_batches = max(2, batches // 2)
+    times, p_fast = timed(fast, 2, pp_batches, size)
+    old = CalendarStudies(predictive, TRUTH, 0.95)
+    old.at_counts = None
+    old.simulate(batch_generator(99, 9, 9), 50)
+    old_times, p_old = timed(old, 2, 1, old_size // 2)
+    pp_rate = pp_batches * size / sum(times)
+    pp_old = old_size // 2 / old_times[0]
+    print(f"predictive futility, own final sizes: all {pp_batches} x {size:,}: "
+          f"{pp_rate:,.0f}/s; Pr(success) {p_fast:.4f}")
+    print(f"predictive futility, previous tables: {pp_old:,.0f}/s ({old_size // 2:,} "
+          f"studies); Pr(success) {p_old:.4f}; ratio {pp_rate / pp_old:.1f}x")
 
 
 if __name__ == "__main__":
