@@ -267,3 +267,23 @@ def test_one_arm_lower_better_mixture_equals_the_family_predictive():
         assert np.array_equal(a.efficacy, b.efficacy)
         assert np.array_equal(a.futility, b.futility)
         assert a.futility[:2].sum() > 0
+
+
+def test_predictive_futility_under_random_conduct_does_not_depend_on_jobs():
+    """Memos fill differently in one process and in two; the numbers do not."""
+    from octrial.engines.monte_carlo import MonteCarloEngine, MonteCarloSettings
+    from octrial.execution import Execution
+
+    design = design_of()
+    truths = np.array([[0.3, 0.3], [0.5, 0.3]])
+    settings = MonteCarloSettings(replicates=1500, seed=9, batch_size=500)
+    one = MonteCarloEngine.run(design, truths, settings=settings)
+    two = MonteCarloEngine.run(design, truths, settings=settings,
+                               execution=Execution(jobs=2))
+    assert np.array_equal(one.efficacy, two.efficacy)
+    assert np.array_equal(one.futility, two.futility)
+    for name, values in one.extra.items():
+        assert np.array_equal(values, two.extra[name], equal_nan=True), name
+    assert one.estimation is not None and two.estimation is not None
+    assert np.array_equal(one.estimation.error_moments, two.estimation.error_moments)
+    assert np.array_equal(one.estimation.coverage, two.estimation.coverage)
