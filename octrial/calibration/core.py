@@ -42,7 +42,7 @@ from octrial.design_prior import assurance_record
 from octrial.engines import engine_for
 from octrial.engines.exact_lattice import ExactLatticeEngine
 from octrial.engines.monte_carlo import MonteCarloSettings
-from octrial.errors import Problem, SettingsError
+from octrial.errors import DesignError, Problem, SettingsError
 from octrial.execution import Execution
 from octrial.execution.checkpoints import CheckpointStore
 from octrial.rules.boundaries import boundary_table
@@ -318,6 +318,14 @@ def calibrate(design: Design, source: str = "calibrate()", *,
     >>> result.summary["chosen"]["final"]["value"]  # doctest: +SKIP
     """
     request = make_request(design, source, **settings)
+    if design.conduct is not None and (request.search or request.sizes):
+        # candidates change the looks' counts, not the enrolment, accrual or lag of
+        # [conduct]: they would not be the same study at another size
+        raise DesignError(design.source.path, [Problem(
+            "conduct", "a design without [conduct] when calibration varies the sample "
+            "size (vary n, search)", "a [conduct] table",
+            "calibrate thresholds only, or size the study without [conduct] and add it "
+            "back with max_enrolment to match")])
     simulation = simulation or MonteCarloSettings()
     execution, seed_store = (execution or Execution()).within({
         "calibration": repr(request), "design_sha256": design.source.sha256,
@@ -354,7 +362,9 @@ def calibrate(design: Design, source: str = "calibrate()", *,
                        f"> alpha at {where} after {REFINE_ROUNDS} rounds; use more "
                        "points)")
     run.log.choose(choice.row)
-    _check_against_engine(choice.design, run.truths, choice.assessment)
+    if isinstance(run.ev, LatticeEvaluator):
+        # simulated assessments (a design file asking for Monte Carlo) are not exact
+        _check_against_engine(choice.design, run.truths, choice.assessment)
     data = run.builder.data_for(choice.looks)
     data["name"] = f"{design.name}.calibrated"
     summary = _summary(run, choice, refined)

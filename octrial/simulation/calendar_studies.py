@@ -20,10 +20,15 @@ decisions taken at the looks). Without ``analyse_pipeline`` a study ends at the 
 where it stops. Study durations count from time 0, the start of the first accrual
 period.
 
-The predictive probability at an interim look assumes the final look's planned counts
-(``looks.per_arm[-1]``, see :func:`octrial.conduct.reader.planned_counts`) and ignores
-the pipeline; a study already past the planned final counts uses the final threshold
-on its current data instead.
+The predictive probability at an interim look integrates over every subject without an
+outcome up to the final analysis (pipeline and subjects still to enrol are exchangeable
+given the parameter, so one stage suffices). Under deterministic conduct the final
+analysis has the looks' planned final counts (``looks.per_arm[-1]``); under random
+conduct each study's own, expected from its state at the look
+(:mod:`octrial.conduct.final_counts`: docs/methods.md, "Delayed outcomes under random
+conduct"). Binary beta-mixture designs under random conduct compute the posterior and
+predictive probabilities at each study's counts (:mod:`octrial.simulation.counts_benefit`,
+memoised by the counts); other designs use the family's tables per distinct size.
 
 Random numbers come from the batch's generator only: enrolment gaps (Poisson arrivals)
 and dropout times first, then, look by look and arm by arm, the statistics. With even
@@ -35,11 +40,20 @@ the generic study loop draws them, so the numbers equal those of
 
 from __future__ import annotations
 
+import dataclasses
+import math
 from typing import Any
 
+import numba
 import numpy as np
 
 from octrial.conduct import arrivals
+from octrial.conduct.final_counts import (
+    BY_ENROLMENT,
+    BY_OUTCOMES,
+    BY_TIME,
+    expected_final_counts,
+)
 from octrial.conduct.timing import SLACK, allocation_block, arm_counts
 from octrial.endpoints.base import Family
 from octrial.rules.stop import CONTINUE, EFFICACY, FUTILITY, Rule
@@ -50,6 +64,7 @@ from octrial.simulation.calendar import (
     duration_edges,
     record_studies,
 )
+from octrial.simulation.counts_benefit import BetaCounts, serves
 
 CELLS = 2_000_000
 """Most study-by-subject cells held at once under random conduct (memory bound)."""
@@ -64,6 +79,58 @@ def _groups(counts: np.ndarray) -> list[tuple[tuple[int, ...], np.ndarray]]:
     inverse = inverse.reshape(-1)
     return [(tuple(int(v) for v in row), np.flatnonzero(inverse == g))
             for g, row in enumerate(rows)]
+
+
+@numba.njit(cache=True)
+def _look_state(enrol: np.ndarray, observed: np.ndarray, ordered: np.ndarray,
+                rows: np.ndarray, trigger: int, target: float, arm_of: np.ndarray,
+                times: np.ndarray, complete: np.ndarray,
+                in_study: np.ndarray) -> None:  # pragma: no cover - compiled
+    """Per study ``rows[r]`` of the subject arrays: the look's time, its subjects with an
+    outcome per arm and its subjects enrolled (the look ``target``: outcomes, enrolled
+    subjects or a time). ``ordered``: the outcome times sorted per study (equal to
+    ``observed`` when they are already in order)."""
+    m = enrol.shape[1]
+    for r in range(rows.size):
+        s = rows[r]
+        if trigger == BY_TIME:
+            t = target
+        elif trigger == BY_ENROLMENT:
+            t = enrol[s, int(target) - 1]
+        else:
+            t = ordered[s, int(target) - 1]
+            if not math.isfinite(t):
+                # a target dropout made unreachable: the look waits for the last outcome
+                t = -math.inf
+                for i in range(m - 1, -1, -1):
+                    if math.isfinite(ordered[s, i]):
+                        t = ordered[s, i]
+                        break
+        times[r] = t
+        limit = t + SLACK * max(1.0, abs(t))
+        for i in range(m):
+            if observed[s, i] <= limit:
+                complete[r, arm_of[i]] += 1
+            if enrol[s, i] <= limit:
+                in_study[r] += 1
+
+
+@numba.njit(cache=True)
+def _pipeline_state(enrol: np.ndarray, observed: np.ndarray, rows: np.ndarray,
+                    t: np.ndarray, arm_of: np.ndarray, final: np.ndarray,
+                    last: np.ndarray) -> None:  # pragma: no cover - compiled
+    """Per study ``rows[r]`` stopped at time ``t[r]``: the subjects enrolled by then
+    whose outcome will be observed, per arm (``final``), and the last of those outcome
+    times (``last``; ``-inf`` when none)."""
+    for r in range(rows.size):
+        s = rows[r]
+        limit = t[r] + SLACK * max(1.0, abs(t[r]))
+        top = -math.inf
+        for i in range(enrol.shape[1]):
+            if enrol[s, i] <= limit and math.isfinite(observed[s, i]):
+                final[r, arm_of[i]] += 1
+                top = max(top, observed[s, i])
+        last[r] = top
 
 
 def calendar_unsupported(design: Any) -> str | None:
@@ -115,6 +182,13 @@ class CalendarStudies(Simulator):
         self.arm_of = np.argmax(np.diff(arm_counts(np.arange(m + 1), block), axis=0), axis=1)
         self.edges = duration_edges(design)
         self.counts = count_edges(design)
+        # Under random conduct the sizes reached vary from study to study: binary
+        # beta-mixture designs then compute each study's probabilities at its own counts
+        # (memoised) instead of a table per distinct size. Deterministic conduct keeps
+        # the tables (one size per look), so its numbers stay those of the tables.
+        self._finals: dict[tuple[int, ...], Any] = {}
+        self.at_counts = (BetaCounts(design) if not self.conduct.deterministic
+                          and serves(design) else None)
 
     def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
         """Simulate ``replicates`` studies with random numbers from ``rng`` only."""
@@ -130,43 +204,38 @@ class CalendarStudies(Simulator):
         return tally
 
     # -- one chunk of studies -------------------------------------------------------
-    def _timeline(self, rng: np.random.Generator, studies: int) -> tuple[np.ndarray, np.ndarray]:
-        """Enrolment and outcome times (``inf``: lost before the outcome); one shared
-        row under deterministic conduct."""
+    def _timeline(self, rng: np.random.Generator, studies: int,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Enrolment and outcome times (``inf``: lost before the outcome) and times from
+        enrolment to loss (a 1 x 1 placeholder without dropout); one shared row under
+        deterministic conduct."""
         conduct = self.conduct
         m = conduct.max_enrolment
         gaps = (None if conduct.accrual.deterministic
                 else rng.standard_exponential((studies, m)))
         enrol = arrivals.enrolment_times(conduct.accrual, gaps, studies, m)
         observed = enrol + conduct.lag
+        lost = np.full((1, 1), np.inf)
         if conduct.dropout_hazard > 0:
             lost = arrivals.dropout_times(rng.standard_exponential((studies, m)),
                                           conduct.dropout_hazard)
             observed = np.where(lost < conduct.lag, np.inf, np.broadcast_to(observed,
                                                                            lost.shape))
-        return enrol, observed
+        return enrol, observed, lost
 
-    def _look_time(self, k: int, enrol: np.ndarray, observed: np.ndarray) -> np.ndarray:
+    def _look(self, k: int, enrol: np.ndarray, observed: np.ndarray, ordered: np.ndarray,
+              rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Look ``k`` of the studies ``rows`` of the subject arrays: time, subjects with
+        an outcome per arm, subjects enrolled (:func:`_look_state`)."""
         looks = self.design.looks
-        rows = enrol.shape[0]
-        if looks.trigger == "time":
-            return np.full(rows, looks.at[k])
-        if looks.trigger == "enrolled":
-            return enrol[:, int(looks.at[k]) - 1].copy()
-        n = looks.n[k]
-        ordered = observed if self.conduct.dropout_hazard == 0 else np.sort(observed, axis=1)
-        t = ordered[:, n - 1].copy()
-        # a target dropout made unreachable: the look waits for the last outcome
-        last = np.where(np.isfinite(ordered), ordered, -np.inf).max(axis=1)
-        return np.where(np.isfinite(t), t, last)
-
-    def _counts(self, times: np.ndarray, t: np.ndarray) -> np.ndarray:
-        """Per row and arm: subjects with times at or before ``t``."""
-        limit = (t + SLACK * np.maximum(1.0, np.abs(t)))[:, None]
-        arms = len(self.design.arms)
-        before = times <= limit
-        return np.stack([before[:, self.arm_of == j].sum(axis=1) for j in range(arms)],
-                        axis=1).astype(np.int64)
+        trigger = {"time": BY_TIME, "enrolled": BY_ENROLMENT}.get(looks.trigger, BY_OUTCOMES)
+        target = float(looks.n[k]) if trigger == BY_OUTCOMES else float(looks.at[k])
+        times = np.empty(rows.size)
+        complete = np.zeros((rows.size, len(self.design.arms)), dtype=np.int64)
+        in_study = np.zeros(rows.size, dtype=np.int64)
+        _look_state(enrol, observed, ordered, rows, trigger, target, self.arm_of, times,
+                    complete, in_study)
+        return times, complete, in_study
 
     def _draw(self, rng: np.random.Generator, statistics: list[np.ndarray],
               increments: np.ndarray) -> None:
@@ -188,33 +257,97 @@ class CalendarStudies(Simulator):
                                                           rng, int(where.sum()))
             statistics[j] = statistics[j] + added
 
-    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
-        """Decision codes at look ``k`` from the data of subjects with an outcome."""
+    def _decide(self, k: int, statistics: list[np.ndarray], counts: np.ndarray,
+                subjects: tuple[np.ndarray, ...], rows: np.ndarray,
+                t: np.ndarray) -> np.ndarray:
+        """Decision codes at look ``k`` from the data of subjects with an outcome
+        (``subjects``, ``rows`` and ``t``: the studies' subject arrays, their rows there
+        and the look's times, for the predictive probability's final counts)."""
         design, family, rule = self.design, self.design.family, self.rule
-        final = design.looks.per_arm[-1]
         codes = np.full(counts.shape[0], CONTINUE if k < rule.last else FUTILITY,
                         dtype=np.int64)
-        for n, where in _groups(counts):
-            if min(n) < 1:
-                continue  # an arm without outcomes: no decision possible
-            now = tuple(x[where] for x in statistics)
-            benefit = family.benefit_at(design, now, n)
-            here = rule.decide_many(k, benefit)
-            if rule.has_predictive(k) and np.any(here == CONTINUE):
-                open_ = here == CONTINUE
-                predictive = np.ones(where.size)
-                if all(a <= b for a, b in zip(n, final, strict=True)):
-                    predictive[open_] = family.predictive_at(
-                        design, tuple(x[open_] for x in now), n)
-                else:
-                    passed = rule.decide_many(rule.last, benefit[open_]) == EFFICACY
-                    predictive[open_] = passed.astype(float)
-                here = rule.decide_many(k, benefit, predictive)
-            codes[where] = here
+        # an arm without outcomes: no decision possible
+        where = np.flatnonzero(counts.min(axis=1) >= 1)
+        benefit = np.full(counts.shape[0], np.nan)
+        if self.at_counts is not None:
+            benefit[where] = self.at_counts.benefit(tuple(x[where] for x in statistics),
+                                                    counts[where])
+        else:
+            for n, group in _groups(counts[where]):
+                chosen = where[group]
+                benefit[chosen] = family.benefit_at(
+                    design, tuple(x[chosen] for x in statistics), n)
+        codes[where] = rule.decide_many(k, benefit[where])
+        open_ = where[codes[where] == CONTINUE]
+        if not rule.has_predictive(k) or open_.size == 0:
+            return codes
+        if self.conduct.deterministic:
+            final = np.broadcast_to(np.array(design.looks.per_arm[-1], dtype=np.int64),
+                                    (open_.size, counts.shape[1]))
+        else:
+            final = self._final_counts(subjects, np.ascontiguousarray(rows[open_]),
+                                       np.ascontiguousarray(t[open_], dtype=float))
+        if self.at_counts is not None:
+            predictive = self.at_counts.predictive(
+                tuple(x[open_] for x in statistics), counts[open_], final,
+                float(rule.efficacy[rule.last]) - rule.tolerance)
+            codes[open_] = rule.decide_many(k, benefit[open_], predictive)
+            return codes
+        predictive = np.ones(open_.size)
+        sizes = np.concatenate([counts[open_], final], axis=1)
+        arms = counts.shape[1]
+        for key, group in _groups(sizes):
+            n, sizes_final = key[:arms], key[arms:]
+            chosen = open_[group]
+            if all(a <= b for a, b in zip(n, sizes_final, strict=True)):
+                predictive[group] = family.predictive_at(
+                    self._with_final(sizes_final), tuple(x[chosen] for x in statistics), n)
+            else:
+                # past the planned final counts: the final threshold on the current data
+                passed = rule.decide_many(rule.last, benefit[chosen]) == EFFICACY
+                predictive[group] = passed.astype(float)
+        codes[open_] = rule.decide_many(k, benefit[open_], predictive)
         return codes
+
+    def _final_counts(self, subjects: tuple[np.ndarray, ...], rows: np.ndarray,
+                      t: np.ndarray) -> np.ndarray:
+        """Each study's expected final size per arm from its own state at its look time
+        (:func:`octrial.conduct.final_counts.expected_final_counts`)."""
+        conduct, looks = self.conduct, self.design.looks
+        trigger = {"time": BY_TIME, "enrolled": BY_ENROLMENT}.get(looks.trigger, BY_OUTCOMES)
+        target = float(looks.n[-1]) if trigger == BY_OUTCOMES else float(looks.at[-1])
+        out = np.zeros((rows.size, len(self.design.arms)), dtype=np.int64)
+        accrual = conduct.accrual
+        enrol, observed, lost = subjects
+        expected_final_counts(enrol, observed, lost, rows, t, accrual.arrivals == "poisson",
+                              np.asarray(accrual.rates, dtype=float),
+                              np.asarray(accrual.starts, dtype=float), float(conduct.lag),
+                              float(conduct.dropout_hazard), trigger, target, self.arm_of,
+                              out)
+        return out
+
+    def _with_final(self, final: tuple[int, ...]) -> Any:
+        """The design with final per-arm sizes ``final`` (what the family's predictive
+        probability reads as the final analysis)."""
+        if final == tuple(self.design.looks.per_arm[-1]):
+            return self.design
+        design = self._finals.get(final)
+        if design is None:
+            looks = self.design.looks
+            looks = dataclasses.replace(looks, per_arm=(*looks.per_arm[:-1], final),
+                                        n=(*looks.n[:-1], sum(final)))
+            design = dataclasses.replace(self.design, looks=looks)
+            self._finals[final] = design
+        return design
 
     def _final_success(self, statistics: list[np.ndarray], counts: np.ndarray) -> np.ndarray:
         success = np.zeros(counts.shape[0], dtype=bool)
+        if self.at_counts is not None:
+            where = np.flatnonzero(counts.min(axis=1) >= 1)
+            benefit = self.at_counts.benefit(tuple(x[where] for x in statistics),
+                                             counts[where])
+            success[where] = self.rule.decide_many(self.rule.last, benefit) == EFFICACY
+            return success
         for n, where in _groups(counts):
             if min(n) < 1:
                 continue
@@ -228,11 +361,20 @@ class CalendarStudies(Simulator):
         """Add the estimation sums of stopping studies; their covered count (``None``:
         the family offers no estimate)."""
         covered = 0
-        for n, where in _groups(counts):
-            if min(n) < 1:
+        groups: list[tuple[tuple[int, ...], np.ndarray]]
+        if self.at_counts is not None:
+            groups = [((), np.flatnonzero(counts.min(axis=1) >= 1))]
+        else:
+            groups = _groups(counts)
+        for n, where in groups:
+            if self.at_counts is not None:
+                found = self.at_counts.estimate(tuple(x[where] for x in statistics),
+                                                counts[where], self.target)
+            elif min(n) < 1:
                 continue
-            found = self.design.family.estimate_at(
-                self.design, tuple(x[where] for x in statistics), n, self.target)
+            else:
+                found = self.design.family.estimate_at(
+                    self.design, tuple(x[where] for x in statistics), n, self.target)
             if found is None:
                 return None
             error = found[0] - self.target
@@ -246,10 +388,13 @@ class CalendarStudies(Simulator):
         conduct, design = self.conduct, self.design
         arms = len(design.arms)
         shared = conduct.deterministic
-        enrol, observed = self._timeline(rng, studies)
-        m = conduct.max_enrolment
-        enrol_all = np.broadcast_to(enrol, (studies, m))
-        observed_all = np.broadcast_to(observed, (studies, m))
+        enrol, observed, lost = self._timeline(rng, studies)
+        enrol = np.ascontiguousarray(np.broadcast_to(enrol, observed.shape))
+        observed = np.ascontiguousarray(observed)
+        subjects = (enrol, observed, np.ascontiguousarray(lost))
+        # looks by n with dropout read the n-th outcome time: sort each study's once
+        ordered = (np.sort(observed, axis=1) if design.looks.trigger == "complete"
+                   and conduct.dropout_hazard > 0 else observed)
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         sums, covered, estimated = np.zeros(3), 0, True
@@ -264,20 +409,16 @@ class CalendarStudies(Simulator):
         for k in range(self.looks):
             if running.size == 0:
                 break
-            if shared:
-                rows_e, rows_o = enrol, observed
-            else:
-                rows_e, rows_o = enrol_all[running], observed_all[running]
-            t = self._look_time(k, rows_e, rows_o)
-            complete = self._counts(rows_o, t)
-            in_study = self._counts(rows_e, t).sum(axis=1)
+            # one shared timeline (row 0) under deterministic conduct
+            rows = np.zeros(1, dtype=np.int64) if shared else running
+            t, complete, in_study = self._look(k, enrol, observed, ordered, rows)
             if shared:
                 t = np.broadcast_to(t, running.shape)
                 complete = np.broadcast_to(complete, (running.size, arms))
                 in_study = np.broadcast_to(in_study, running.shape)
             self._draw(rng, statistics, complete - before)
             before = np.array(complete)
-            codes = self._decide(k, statistics, before)
+            codes = self._decide(k, statistics, before, subjects, rows, t)
             stops = codes != CONTINUE
             efficacy[k] = int(np.count_nonzero(codes == EFFICACY))
             futility[k] = int(np.count_nonzero(codes == FUTILITY))
@@ -294,7 +435,7 @@ class CalendarStudies(Simulator):
                     covered += found
             if conduct.analyse_pipeline and k < self.rule.last and np.any(stops):
                 reversed_ += self._pipeline(rng, codes, running, t, statistics, before,
-                                            rows_e, rows_o, duration, analysed, shared)
+                                            enrol, observed, duration, analysed, shared)
             keep = ~stops
             running = running[keep]
             statistics = [x[keep] for x in statistics]
@@ -308,21 +449,19 @@ class CalendarStudies(Simulator):
 
     def _pipeline(self, rng: np.random.Generator, codes: np.ndarray, running: np.ndarray,
                   t: np.ndarray, statistics: list[np.ndarray], counts: np.ndarray,
-                  rows_e: np.ndarray, rows_o: np.ndarray, duration: np.ndarray,
+                  enrol: np.ndarray, observed: np.ndarray, duration: np.ndarray,
                   analysed: np.ndarray, shared: bool) -> int:
         """The pipeline of studies that stopped at an interim look: their duration ends
         at the last pipeline outcome and their analysed subjects include it; the final
         analysis of stops for efficacy is redone with it. Returns how many of those
         stops the final analysis reverses."""
         chosen = codes != CONTINUE
-        t_c = np.asarray(t[chosen])
-        e, o = (rows_e, rows_o) if shared else (rows_e[chosen], rows_o[chosen])
-        t_rows = t_c[:1] if shared else t_c
-        waiting = e <= (t_rows + SLACK * np.maximum(1.0, np.abs(t_rows)))[:, None]
-        seen = waiting & np.isfinite(o)
-        final_counts = np.stack([seen[:, self.arm_of == j].sum(axis=1)
-                                 for j in range(counts.shape[1])], axis=1).astype(np.int64)
-        last = np.where(seen, o, -np.inf).max(axis=1)
+        t_c = np.ascontiguousarray(t[chosen], dtype=float)
+        rows = np.zeros(1, dtype=np.int64) if shared else running[chosen]
+        final_counts = np.zeros((rows.size, counts.shape[1]), dtype=np.int64)
+        last = np.empty(rows.size)
+        _pipeline_state(enrol, observed, rows, t_c[:rows.size], self.arm_of, final_counts,
+                        last)
         if shared:
             final_counts = np.broadcast_to(final_counts, (t_c.size, counts.shape[1]))
             last = np.broadcast_to(last, t_c.shape)

@@ -37,6 +37,10 @@ def prior_simulation_unsupported(design: Design) -> str | None:
     name = design.family.name
     if not design.family.draws_design_prior:
         return f"no simulation from the design prior for {name} endpoints"
+    if design.conduct is not None and not design.family.event_driven:
+        # these studies run without calendar time (no lag, dropout or look timing)
+        return ("conduct: studies under the design prior are not simulated in calendar "
+                "time, so a design with [conduct] has no simulated assurance")
     return design.family.simulation_unsupported(design)
 
 
