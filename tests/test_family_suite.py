@@ -301,5 +301,6 @@ def test_toy_family_without_workflow_checks_is_refused_plainly(
     result = CliRunner().invoke(main, ["check", str(path), "--out", str(tmp_path / "c")])
     assert result.exit_code == 2, result.output
     assert "endpoint.type" in result.output and "workflow checks" in result.output
-    assert "workflow checks (binary, count, normal, time-to-event); got 'toy-exponential'" in result.output
+    assert ("workflow checks (binary, count, normal, time-to-event); "
+            "got 'toy-exponential'") in result.output
     assert not (tmp_path / "c").exists()
