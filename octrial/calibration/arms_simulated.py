@@ -43,7 +43,8 @@ from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import build_tables
 from octrial.rules.stop import DECISION_TOLERANCE
 
-__all__ = ["SimulatedCalibration", "calibrate_simulated", "error_curves"]
+__all__ = ["NULL_LINE_ASSUMPTION", "SimulatedCalibration", "calibrate_simulated", "error_curves",
+           "simulated_details", "simulated_summary"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -178,7 +179,11 @@ def calibrate_simulated(design: MultiArmDesign, alpha: float, *, replicates: int
                          f"{floor}")
     errors, where = error_curves(values, nulls, candidates, target)
     se = np.sqrt(errors * (1 - errors) / replicates)
-    log = pd.DataFrame({"threshold": candidates, "error": errors, "error_se": se})
+    # the log: every step of the error curve (the smallest candidate giving each value;
+    # the candidates between two steps give the same error as the step below them)
+    step = np.r_[True, errors[1:] != errors[:-1]]
+    log = pd.DataFrame({"threshold": candidates[step], "error": errors[step],
+                        "error_se": se[step]})
     goal = alpha - margin * float(np.sqrt(alpha * (1 - alpha) / replicates))
     passing = np.flatnonzero(errors <= goal)
     # the error falls as the threshold rises (counts of values at or above it), so the
@@ -200,3 +205,41 @@ def _design_order(design: MultiArmDesign, point: np.ndarray) -> tuple[float, ...
     (the control first)."""
     values = tuple(float(v) for v in point)
     return (values[-1], *values[:-1]) if design.shared_control else values
+
+
+NULL_LINE_ASSUMPTION = (
+    "the error is searched on the null line (every arm on its null boundary, over "
+    "control values); with adaptive allocation, dropping or selection the arms are "
+    "coupled and that the global null is the worst case is an assumption: check other "
+    "null configurations with octrial run")
+
+
+def simulated_details(result: SimulatedCalibration) -> dict[str, object]:
+    """What calibration.json records of a calibration by simulation."""
+    return {"error_se": result.se, "goal": result.goal, "se_margin": result.margin,
+            "next_threshold": result.next_threshold,
+            "next_error": None if result.next_threshold is None else result.next_error,
+            "replicates": result.replicates, "seed": result.seed,
+            "guarantee": "up to Monte Carlo error: the error is estimated from "
+                         f"{result.replicates} simulated studies per null point (standard "
+                         f"error {result.se:.2g}), on the studies that chose the "
+                         "threshold; re-simulate with another seed to confirm",
+            "null_line": NULL_LINE_ASSUMPTION}
+
+
+def simulated_summary(name: str, result: SimulatedCalibration, alpha: float,
+                      target: str) -> list[str]:
+    """The lines the command prints."""
+    assert result.threshold is not None
+    goal = (f"{alpha:g}" if result.margin == 0 else
+            f"{result.goal:.4g} (alpha {alpha:g} - {result.margin:g} SE)")
+    lines = [f"{name}: final threshold {result.threshold:.6g} for every arm; {target} "
+             f"error {result.error:.4g} (Monte Carlo SE {result.se:.2g}) <= {goal}, largest "
+             f"over the null line; {result.replicates} simulated studies per null point, "
+             f"seed {result.seed}"]
+    if result.next_threshold is not None:
+        lines.append(f"the next smaller candidate, {result.next_threshold:.6g}, gives "
+                     f"{result.next_error:.4g}")
+    lines.append("The guarantee holds up to Monte Carlo error; re-simulate the calibrated "
+                 "design with another seed (octrial run --seed) to confirm it.")
+    return lines

@@ -235,10 +235,11 @@ def _adaptive_values(design: MultiArmDesign, row: tuple[float, ...], replicates:
         values = np.where(batch.outcome[:, first:] == 1, np.inf, -np.inf)
         reached = (batch.dropped[:, first:] == last) & (batch.outcome[:, first:] != 0)
         values[reached] = -np.inf  # filled below
-        adaptive_final(reached, batch.sizes[:, last], batch.responses[:, last], first,
-                       rule.versus_control, rule.higher, float(rule.shift),
-                       float(rule.benchmark), prior_w, prior_a, prior_b,
-                       int(study.looks[-1]), *decision_nodes(), memo, values)
+        adaptive_final(  # type: ignore[call-arg]
+            reached, batch.sizes[:, last], batch.responses[:, last], first,
+            rule.versus_control, rule.higher, float(rule.shift), float(rule.benchmark),
+            prior_w, prior_a, prior_b, int(study.looks[-1]), *decision_nodes(), memo,
+            values)
         parts.append(values)
     return np.concatenate(parts) if parts else np.empty((0, rates.size - first))
 
