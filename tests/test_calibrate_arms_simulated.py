@@ -198,7 +198,6 @@ def test_command(tmp_path):
 
 @pytest.mark.parametrize("extra, message", [
     (["--method", "exact"], "no exact engine"),
-    (["--jobs", "2"], "--jobs"),
     (["--target-se", "0.01"], "--target-se"),
 ])
 def test_command_refuses_on_adaptive(tmp_path, extra, message):
@@ -207,6 +206,30 @@ def test_command_refuses_on_adaptive(tmp_path, extra, message):
                                        "--out", str(out), *extra])
     assert result.exit_code == 2 and message in result.output
     assert not out.exists()
+
+
+def test_same_numbers_with_workers_and_from_checkpoints(tmp_path, monkeypatch):
+    # one seed in, the same numbers out, whatever --jobs; a resumed calibration reads
+    # the finished null points back and decides as the uninterrupted one
+    from octrial.execution import Execution
+
+    design = load_multiarm(DEMO)
+    settings = {"replicates": 2_000, "seed": 5, "null_range": (0.2, 0.4), "null_points": 2}
+    alone = calibrate_simulated(design, 0.05, **settings)
+    kept = Execution(jobs=2, checkpoints=tmp_path / "partial")
+    spread = calibrate_simulated(design, 0.05, execution=kept, **settings)
+    saved = list((tmp_path / "partial").rglob("*"))
+
+    def not_again(task):
+        raise AssertionError("a finished null point was simulated again")
+
+    monkeypatch.setattr("octrial.calibration.arms_simulated.point_values", not_again)
+    resumed = calibrate_simulated(design, 0.05, execution=Execution(
+        checkpoints=tmp_path / "partial"), **settings)
+    assert any(p.is_file() for p in saved)
+    for other in (spread, resumed):
+        assert other.threshold == alone.threshold and other.error == alone.error
+        assert other.log.equals(alone.log)
 
 
 def test_command_simulation_options_need_the_simulation(tmp_path):

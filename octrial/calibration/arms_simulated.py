@@ -32,18 +32,27 @@ is searched as an assumption, stated in calibration.json, and other null configu
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from octrial._version import __version__
 from octrial.calibration.arms import TARGETS, ArmsCalibration, null_line, with_threshold
-from octrial.multiarm.final_values import final_benefit_tables, final_values, refusal
+from octrial.execution import Execution, run_grid
+from octrial.multiarm.final_values import (
+    BATCH,
+    final_benefit_tables,
+    final_values,
+    refusal,
+)
 from octrial.multiarm.model import MultiArmDesign
-from octrial.multiarm.tables import build_tables
+from octrial.multiarm.tables import MultiArmTables, build_tables
 from octrial.rules.stop import DECISION_TOLERANCE
 
-__all__ = ["NULL_LINE_ASSUMPTION", "SimulatedCalibration", "calibrate_simulated", "error_curves",
-           "simulated_details", "simulated_summary"]
+__all__ = ["NULL_LINE_ASSUMPTION", "PointTask", "SimulatedCalibration",
+           "calibrate_simulated", "error_curves", "point_values", "simulated_details",
+           "simulated_summary"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -79,6 +88,43 @@ class SimulatedCalibration(ArmsCalibration):
     margin: float
     replicates: int
     seed: int
+
+
+@dataclass(frozen=True)
+class PointTask:
+    """One null point's simulation (picklable for the workers of
+    :func:`octrial.execution.run_grid`; its result can be kept as a checkpoint)."""
+
+    design: MultiArmDesign
+    tables: MultiArmTables | None
+    benefit: np.ndarray | None
+    row: tuple[float, ...]
+    replicates: int
+    seed: int
+    index: int
+
+    def identity(self) -> dict[str, Any]:
+        """What this point's checkpoint records."""
+        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
+                "scenario": self.index, "batch": "all", "kernel": "several-arm final values"}
+
+    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
+        """What is wrong with ``arrays`` as this point's recorded values."""
+        shape = (self.replicates, len(self.design.pairs))
+        values = arrays.get("values")
+        if values is None or np.shape(values) != shape:
+            return [f"values: shape {shape} expected"]
+        finite = values[np.isfinite(values)]
+        if np.isnan(values).any() or np.any((finite < 0) | (finite > 1)):
+            return ["values: probabilities in [0, 1], +inf or -inf expected"]
+        return []
+
+
+def point_values(task: PointTask) -> dict[str, np.ndarray]:
+    """The recorded values of one null point
+    (:func:`~octrial.multiarm.final_values.final_values`)."""
+    return {"values": final_values(task.design, task.row, task.replicates, task.seed,
+                                   task.index, task.tables, task.benefit)}
 
 
 def error_curves(values: list[np.ndarray], nulls: list[np.ndarray], candidates: np.ndarray,
@@ -127,7 +173,8 @@ def calibrate_simulated(design: MultiArmDesign, alpha: float, *, replicates: int
                         target: str = "family-wise",
                         null_range: tuple[float, float] | None = None,
                         null_points: int = 19, margin: float = 0.0,
-                        floor: float = 0.5) -> SimulatedCalibration:
+                        floor: float = 0.5,
+                        execution: Execution | None = None) -> SimulatedCalibration:
     """Smallest common final threshold whose simulated error stays at most the goal
     (module docstring) at every point of the null line.
 
@@ -147,6 +194,9 @@ def calibrate_simulated(design: MultiArmDesign, alpha: float, *, replicates: int
         Standard errors (at ``alpha``) taken off ``alpha``: the goal.
     floor : float
         Smallest threshold considered.
+    execution : Execution, optional
+        Workers for the null points (never changes a number) and where to keep the
+        finished ones, so that an interrupted calibration resumes.
 
     Raises
     ------
@@ -169,13 +219,18 @@ def calibrate_simulated(design: MultiArmDesign, alpha: float, *, replicates: int
     fixed = not design.allocation.adaptive
     tables = build_tables(design) if fixed else None
     benefit = final_benefit_tables(design) if fixed else None
-    values, nulls = [], []
-    for i, point in enumerate(points):
-        row = _design_order(design, point)
-        values.append(final_values(design, row, replicates, seed, i, tables, benefit))
-        # every arm is null on this line by construction; the root of its boundary may
-        # round a hair to the better side, which must not take the arm out of the error
-        nulls.append(np.ones(len(design.pairs), dtype=bool))
+    tasks = [PointTask(design, tables, benefit, _design_order(design, point), replicates,
+                       seed, i) for i, point in enumerate(points)]
+    execution = Execution() if execution is None else execution
+    store = execution.store({
+        "design_sha256": design.source.sha256, "design": repr(design),
+        "engine": "several-arm final values", "replicates": replicates, "seed": seed,
+        "points": points.tolist(), "batch": BATCH, "octrial": __version__})
+    results, _ = run_grid(point_values, tasks, execution, store, unit="null points")
+    values = [r["values"] for r in results]
+    # every arm is null on this line by construction; the root of its boundary may
+    # round a hair to the better side, which must not take the arm out of the error
+    nulls = [np.ones(len(design.pairs), dtype=bool) for _ in points]
     found = np.unique(np.concatenate([v[:, null].ravel()
                                       for v, null in zip(values, nulls, strict=True)]))
     candidates = found[(found >= floor) & (found <= 1.0)]

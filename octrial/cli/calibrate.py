@@ -30,6 +30,7 @@ from octrial.cli.common import (
     simulation_options,
 )
 from octrial.engines.arms_exact import unsupported
+from octrial.execution import Execution
 from octrial.multiarm.load import load_multiarm
 from octrial.multiarm.model import MultiArmDesign
 from octrial.provenance import now
@@ -178,11 +179,10 @@ def _calibrate_arms(design: str, out: str | None, started: str,
                                "--null-range, --null-points, --method, --replicates, "
                                "--seed and --se-margin apply; got "
                                + ", ".join("--" + k.replace("_", "-") for k in given))
-    if (simulation.jobs != 1 or simulation.backend != "joblib"
-            or simulation.target_se is not None):
-        raise click.UsageError("with several treatment arms the calibration runs in one "
-                               "process with a fixed number of studies (--replicates); "
-                               "--jobs, --backend and --target-se do not apply")
+    if simulation.target_se is not None:
+        raise click.UsageError("with several treatment arms the calibration simulates a "
+                               "fixed number of studies per null point (--replicates); "
+                               "--target-se does not apply")
     alpha = options.get("alpha")
     if not isinstance(alpha, float) or not 0.0 < alpha < 1.0:
         raise click.BadParameter(f"expected a number in (0, 1); got {alpha}",
@@ -215,15 +215,20 @@ def _calibrate_arms(design: str, out: str | None, started: str,
     command = ["octrial", *sys.argv[1:]]
     folder = Path(out) if out else Path("reports") / loaded.name
     result: ArmsCalibration
+    execution = simulation.execution(folder)
     try:
         if simulate:
-            result = _simulated(loaded, alpha, target, null_range, null_points, options)
+            with resumable(execution):
+                result = _simulated(loaded, alpha, target, null_range, null_points,
+                                    options, execution)
         else:
             result = calibrate_multiarm(loaded, alpha, target=target,
                                         null_range=null_range, null_points=null_points)
     except ValueError as exc:
+        execution.remove_checkpoints()
         raise click.UsageError(str(exc)) from None
     if result.threshold is None:
+        execution.remove_checkpoints()
         raise click.UsageError(f"no final threshold keeps the {target} error at or below "
                                f"{alpha:g} (the strictest gives {result.error:.4g})")
     if isinstance(result, SimulatedCalibration):
@@ -233,6 +238,7 @@ def _calibrate_arms(design: str, out: str | None, started: str,
     else:
         written = write_arms_calibration(folder, loaded, result, alpha, target,
                                          started=started, command=command)
+    execution.remove_checkpoints()
     if simulation.quiet:
         return
     if isinstance(result, SimulatedCalibration):
@@ -248,7 +254,7 @@ def _calibrate_arms(design: str, out: str | None, started: str,
 
 def _simulated(design: MultiArmDesign, alpha: float, target: str,
                null_range: tuple[float, float] | None, null_points: int,
-               options: dict[str, object]) -> SimulatedCalibration:
+               options: dict[str, object], execution: Execution) -> SimulatedCalibration:
     """The simulation's settings from the options and the design file."""
     seed = options.get("seed")
     seed = design.simulation.seed if seed is None else seed
@@ -261,4 +267,4 @@ def _simulated(design: MultiArmDesign, alpha: float, target: str,
         design, alpha, target=target, null_range=null_range, null_points=null_points,
         replicates=int(replicates) if isinstance(replicates, int)
         else design.simulation.replicates, seed=seed,
-        margin=float(margin) if isinstance(margin, float) else 0.0)
+        margin=float(margin) if isinstance(margin, float) else 0.0, execution=execution)
