@@ -249,3 +249,21 @@ def test_command_simulation_options_need_the_simulation(tmp_path):
                                        "--out", str(out)])
     assert result.exit_code == 0, result.output
     assert json.loads((out / "calibration.json").read_text())["seed"] == 3
+
+
+def test_arms_against_a_benchmark_against_the_exact_calibration():
+    # without a control the arms are independent: the exact engine's family-wise error
+    # is 1 - prod(1 - alpha_j) (tests/test_arms_calibration.py checks that identity)
+    from tests.test_multiarm import design_data, parse
+
+    design = parse(design_data(control=False, n=(30, 60, 90)))
+    alpha, replicates = 0.1, 40_000
+    exact = calibrate_multiarm(design, alpha)
+    found = calibrate_simulated(design, alpha, replicates=replicates, seed=12)
+    assert exact.threshold is not None and found.threshold is not None
+    pairs = [with_threshold(p, found.threshold) for p in design.pairs]
+    truth = null_line(design)
+    assert truth.shape == (1, 3)
+    exact_error = float(run_arms(pairs, truth).family_wise.max())
+    assert abs(found.error - exact_error) <= 4 * found.se
+    assert exact_error <= alpha + 4 * np.sqrt(alpha * (1 - alpha) / replicates)
