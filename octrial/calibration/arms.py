@@ -45,7 +45,8 @@ from octrial.rules.lattice import LatticeCache, build_rule
 from octrial.run_folder import write_folder
 
 __all__ = ["TARGETS", "ArmsCalibration", "calibrate_arms", "calibrate_multiarm",
-           "calibrated_text", "global_null", "with_threshold", "write_arms_calibration"]
+           "calibrated_text", "global_null", "null_line", "with_threshold",
+           "write_arms_calibration"]
 
 TARGETS = ("family-wise", "per-arm")
 """What the threshold controls: the family-wise error rate, or the largest per-arm type
@@ -196,22 +197,12 @@ def _log(rows: list[tuple[float, float]]) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["threshold", "error"]).drop_duplicates()
 
 
-def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "family-wise",
-                       null_range: tuple[float, float] | None = None,
-                       null_points: int = 19) -> ArmsCalibration:
-    """:func:`calibrate_arms` for a several-arm design file: with a shared control the
-    null line runs over ``null_points`` control values evenly spread over ``null_range``
-    (by default the family's parameter range, ends excluded); against a benchmark it is
-    the benchmark point.
-
-    Raises
-    ------
-    ValueError
-        When the exact engine does not apply, or the settings are out of range.
-    """
-    why = unsupported(design)
-    if why is not None:
-        raise ValueError(f"no exact engine for this several-arm design: {why}")
+def null_line(design: MultiArmDesign, null_range: tuple[float, float] | None = None,
+              null_points: int = 19) -> np.ndarray:
+    """The null points of a several-arm design file (:func:`global_null`): with a shared
+    control ``null_points`` control values evenly spread over ``null_range`` (by default
+    the family's parameter range, ends excluded); against a benchmark the benchmark
+    point."""
     if null_points < 2:
         raise ValueError(f"null_points: expected a whole number >= 2; got {null_points}")
     if null_range is None:
@@ -223,7 +214,23 @@ def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "f
         control = np.linspace(low + step, high - step, null_points)
     else:
         control = np.linspace(null_range[0], null_range[1], null_points)
-    return calibrate_arms(design.pairs, alpha, global_null(design.pairs, control),
+    return global_null(design.pairs, control)
+
+
+def calibrate_multiarm(design: MultiArmDesign, alpha: float, *, target: str = "family-wise",
+                       null_range: tuple[float, float] | None = None,
+                       null_points: int = 19) -> ArmsCalibration:
+    """:func:`calibrate_arms` for a several-arm design file over :func:`null_line`.
+
+    Raises
+    ------
+    ValueError
+        When the exact engine does not apply, or the settings are out of range.
+    """
+    why = unsupported(design)
+    if why is not None:
+        raise ValueError(f"no exact engine for this several-arm design: {why}")
+    return calibrate_arms(design.pairs, alpha, null_line(design, null_range, null_points),
                           target=target)
 
 
@@ -241,17 +248,20 @@ def calibrated_text(design: MultiArmDesign, threshold: float, command: list[str]
 
 def write_arms_calibration(folder: str | Path, design: MultiArmDesign,
                            result: ArmsCalibration, alpha: float, target: str, *,
-                           started: str, command: list[str]) -> list[Path]:
+                           started: str, command: list[str],
+                           engine: str = "exact (several arms)",
+                           details: dict[str, Any] | None = None) -> list[Path]:
     """calibration.csv (every threshold examined), calibration.json and
-    ``<name>.calibrated.toml``, all at once."""
+    ``<name>.calibrated.toml``, all at once; ``details`` go into calibration.json after
+    the error (the simulation's seed, replicates and standard error)."""
     assert result.threshold is not None
     record = {
         "octrial_version": __version__,
         "design": {"name": design.name, "path": design.source.path,
                    "sha256": design.source.sha256},
         "command": command, "started": started, "finished": now(),
-        "engine": "exact (several arms)", "controls": target, "alpha": alpha,
-        "threshold": result.threshold, "error": result.error,
+        "engine": engine, "controls": target, "alpha": alpha,
+        "threshold": result.threshold, "error": result.error, **(details or {}),
         "worst_null": dict(zip((*design.treatment_names, "control"),
                                (float(v) for v in result.worst), strict=False)),
         "environment": environment(), "caution": CAUTION,
