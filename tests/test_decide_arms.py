@@ -38,7 +38,7 @@ from octrial.interim.rule import CONTINUE, FAILURE, STOP_EFFICACY, STOP_FUTILITY
 from octrial.multiarm import parse_multiarm
 from tests.helpers import DESIGNS
 
-DEMO = DESIGNS / "several-arms" / "dose-ranging.toml"
+DEMO = DESIGNS / "dose-ranging.toml"
 DRAWS = 400_000
 Z = 4.0
 
@@ -350,8 +350,9 @@ def test_fixed_allocation_has_no_next_block():
 
 # -- command line ------------------------------------------------------------------------
 def test_demo_text_and_json_agree():
-    args = ["decide", str(DEMO), "--look", "1", "--data", "control=8/30", "--data",
-            "low=9/30", "--data", "middle=10/30", "--data", "high=16/30"]
+    # the demo's look 1 is at 60 subjects: 15 per arm as each arm's own rule plans them
+    args = ["decide", str(DEMO), "--look", "1", "--data", "control=4/15", "--data",
+            "low=5/15", "--data", "middle=5/15", "--data", "high=8/15"]
     runner = CliRunner()
     text = runner.invoke(main, args)
     assert text.exit_code == 0, text.output
@@ -403,7 +404,7 @@ def test_adaptive_json_has_the_next_block():
       "--data", "high=16/30", "--pipeline", "low=3"], ["--pipeline", "one or two arms"]),
     (["--data", "control=8/30", "--data", "low=9/30", "--data", "middle=10/30",
       "--data", "high=16/30", "--subjects", "x.csv"], ["--subjects", "several"]),
-    (["--look", "4", "--data", "control=8/30"], ["--look", "between 1 and 3"]),
+    (["--look", "5", "--data", "control=8/30"], ["--look", "between 1 and 4"]),  # 4 looks
 ])
 def test_bad_input_exits_2_naming_the_option(args, words):
     if "--look" not in args:
