@@ -20,6 +20,7 @@ Each check names what it is checked against:
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -341,6 +342,23 @@ def test_next_block_before_burn_in_is_the_fixed_ratio():
     # 60 enrolled < 100: the fixed ratio, equal weights over the four arms (hand)
     assert [result.control_allocation] + [a.allocation for a in result.arms] == \
         pytest.approx([0.25] * 4, abs=1e-12)
+
+
+def test_next_block_before_burn_in_gives_the_control_its_share_as_simulated():
+    # with a control share, the burn-in ratio is that share to the control and the rest
+    # equal (hand: 0.3, then 0.7 / 3 each); the several-arm simulation enrols block 1 with
+    # the same ratio (its <arm>_block1_share, every study enrolling block 1)
+    from octrial.multiarm.engine import simulate_design
+
+    design = _adaptive(kind="information", control_share=0.3, burn_in=100)
+    design = dataclasses.replace(design, simulation=dataclasses.replace(
+        design.simulation, seed=7, replicates=200))
+    result = decide_arms(design, 1, ["control=3/15", "low=4/15", "mid=6/15", "high=8/15"])
+    found = [result.control_allocation] + [a.allocation for a in result.arms]
+    assert found == pytest.approx([0.3] + [0.7 / 3] * 3, abs=1e-12)
+    simulated = simulate_design(design).iloc[0]
+    assert [simulated[f"{a}_block1_share"] for a in design.arm_names] == pytest.approx(
+        found, abs=1e-12)
 
 
 def test_fixed_allocation_has_no_next_block():
