@@ -13,16 +13,14 @@ Engines:
 - ``exact (several arms, joint lattice)``, :mod:`octrial.engines.arms_joint`: small
   binary studies whose arms are coupled by Pr(best) dropping or selection (only when
   asked for with method ``exact``: its cost grows with the power of the arms);
-- ``monte-carlo (several arms)``, :mod:`octrial.multiarm.engine`: everything, one task
-  per scenario through :mod:`octrial.execution` (workers, checkpoints, resumption).
+- ``monte-carlo (several arms)``, :mod:`octrial.multiarm.engine`: everything, fixed and
+  response-adaptive allocation, one task per scenario through :mod:`octrial.execution`
+  (workers, checkpoints, resumption).
 """
 
 from __future__ import annotations
 
 import dataclasses
-import inspect
-import json
-from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -32,17 +30,16 @@ import pandas as pd
 from octrial._version import __version__
 from octrial.engines.arms_exact import evaluate_design, unsupported
 from octrial.engines.arms_joint import joint_exact
-from octrial.errors import InputError, Problem, bad_setting
-from octrial.execution import Execution, run_grid
+from octrial.errors import InputError, Problem
+from octrial.execution import Execution
 from octrial.execution.checkpoints import kept_seed
-from octrial.multiarm import engine as multiarm_engine
-from octrial.multiarm.engine import arm_nulls, simulate_design
+from octrial.multiarm.engine import BATCH, arm_nulls, simulate_scenarios
 from octrial.multiarm.model import MultiArmDesign
-from octrial.multiarm.tables import MultiArmTables, build_tables
+from octrial.multiarm.tables import build_tables
 from octrial.rules.lattice import build_rule
 
 __all__ = ["EXACT_PATHS", "JOINT", "METHODS", "SIMULATION", "ArmsEvaluation",
-           "arms_type1", "choose_engine", "compute_arms", "oc_columns"]
+           "arms_type1", "choose_engine", "compute_arms", "oc_columns", "sizes_per_look"]
 
 METHODS = ("auto", "exact", "monte-carlo")
 EXACT_PATHS = "exact (several arms, control paths)"
@@ -75,10 +72,11 @@ class ArmsEvaluation:
 
 
 def oc_columns(design: MultiArmDesign) -> list[str]:
-    """The documented columns of a several-arm oc.csv, in their order (docs/output-files.md).
+    """The documented columns of a several-arm oc.csv, in their order (docs/output-files.md),
+    without the last two, ``method`` and ``replicates``.
 
-    Columns an engine adds beyond these (the allocation's ``<arm>_block<k>_share`` and
-    ``<arm>_look<k>_n``) follow them, before ``method`` and ``replicates``.
+    Allocation over time comes last: per arm (the control first) its
+    ``<arm>_block<k>_share`` and then its ``<arm>_look<k>_n`` columns.
     """
     looks = range(1, design.looks.count + 1)
     cols = ["scenario", *(f"true_{a}" for a in design.arm_names), "is_null",
@@ -93,16 +91,16 @@ def oc_columns(design: MultiArmDesign) -> list[str]:
                  f"{arm}_expected_n", f"{arm}_sd_n"]
         cols += [f"{arm}_look{k}_{what}" for k in looks
                  for what in ("stop_efficacy", "stop_futility", "drop")]
+    for arm in design.arm_names:
+        cols += [f"{arm}_block{k}_share" for k in looks]
+        cols += [f"{arm}_look{k}_n" for k in looks]
     return cols
 
 
 def _ordered(design: MultiArmDesign, table: pd.DataFrame) -> pd.DataFrame:
-    """``table`` with the documented columns first (empty where absent), then the
-    engine's further columns, then ``method`` and ``replicates``."""
-    documented = oc_columns(design)
-    tail = ["method", "replicates"]
-    extra = [c for c in table.columns if c not in documented and c not in tail]
-    out = table.reindex(columns=[*documented, *extra, *tail])
+    """``table`` in the documented order, empty where the engine does not compute a
+    column."""
+    out = table.reindex(columns=[*oc_columns(design), "method", "replicates"])
     return out.reset_index(drop=True)
 
 
@@ -235,144 +233,72 @@ def _joint(design: MultiArmDesign) -> pd.DataFrame:
 
 
 def _exact_extras(design: MultiArmDesign, table: pd.DataFrame) -> None:
-    """The columns every exact table shares: standard errors 0, no replicates."""
+    """The columns every exact table shares: standard errors 0, no replicates, and each
+    arm's mean cumulative size per look."""
     for column in ("prob_success_se", "fwer_se",
                    *(f"{a}_prob_success_se" for a in design.treatment_names)):
         table[column] = 0.0
+    for arm, sizes in sizes_per_look(design, table).items():
+        for k in range(design.looks.count):
+            table[f"{arm}_look{k + 1}_n"] = sizes[:, k]
     table["method"] = "exact"
     table["replicates"] = 0
 
 
+def sizes_per_look(design: MultiArmDesign, table: pd.DataFrame) -> dict[str, np.ndarray]:
+    """Per arm (control first), its mean cumulative size at each look under fixed
+    allocation, shape (scenarios, looks), from the planned sizes and the probabilities
+    of leaving at each look in ``table``.
+
+    With fixed allocation an arm enrols its planned subjects until it leaves and keeps
+    the size it reached, so the mean size at look k is the sum over looks m <= k of the
+    planned size at m times Pr(leave at m) for m < k, plus the planned size at k times
+    Pr(still in at k). The control leaves when the study ends (the study's
+    ``look<k>_stop_*`` columns), a treatment arm by its own rule or when dropped.
+    The block shares are not computed here: their mean over the studies enrolling a
+    block depends on which arms are in together, not on each arm's probabilities.
+    """
+    k_looks = design.looks.count
+    out = {}
+    for j, arm in enumerate(design.arm_names):
+        planned = np.array([n[j] for n in design.looks.per_arm], dtype=float)
+        if design.shared_control and j == 0:
+            whys = [f"look{{k}}_stop_{why}" for why in ("efficacy", "futility")]
+        else:
+            whys = [f"{arm}_look{{k}}_{why}" for why in ("stop_efficacy", "stop_futility",
+                                                          "drop")]
+        left_at = sum(table[[w.format(k=k) for k in range(1, k_looks + 1)]].to_numpy(float)
+                      for w in whys)
+        left_at = np.asarray(left_at, dtype=float)
+        gone_before = np.cumsum(left_at, axis=1) - left_at
+        kept = np.cumsum(left_at * planned, axis=1) - left_at * planned
+        out[arm] = kept + (1.0 - gone_before) * planned
+    return out
+
+
 # -- simulation ---------------------------------------------------------------------------
-@dataclass(frozen=True)
-class ArmsScenarioTask:
-    """One scenario of a several-arm simulation (picklable, checkpointed)."""
-
-    design: MultiArmDesign
-    index: int
-    replicates: int
-    seed: int
-
-    def identity(self) -> dict[str, Any]:
-        """What this task's checkpoint records."""
-        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
-                "scenario": self.index, "replicates": self.replicates,
-                "kernel": "several arms"}
-
-    def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
-        """What is wrong with ``arrays`` as this scenario's saved row."""
-        try:
-            row = json.loads(str(arrays["row"]))
-        except (KeyError, ValueError) as exc:
-            return [f"no readable row ({type(exc).__name__})"]
-        if not isinstance(row, dict) or row.get("replicates") != self.replicates:
-            return ["a row of another number of replicates"]
-        probabilities = [v for k, v in row.items()
-                         if "prob" in k or "look" in k or k == "fwer"]
-        if any(isinstance(v, float) and not 0.0 <= v <= 1.0 for v in probabilities
-               if v == v):  # NaN (nothing selected) is allowed
-            return ["a probability outside [0, 1]"]
-        return []
-
-
-def simulate_scenario(task: ArmsScenarioTask) -> dict[str, np.ndarray]:
-    """Simulate one scenario with the several-arm engine's own per-scenario routine
-    (seeded by the scenario's index, so the numbers are those of
-    :func:`octrial.multiarm.engine.simulate_design`)."""
-    design = task.design
-    row = design.scenarios.values[task.index]
-    found = multiarm_engine._scenario(design, _tables(design), row, task.replicates,
-                                      task.seed, task.index)
-    found["scenario"] = task.index + 1
-    text = json.dumps({k: _plain(v) for k, v in found.items()})
-    return {"row": np.array(text)}
-
-
-_TABLES: dict[str, MultiArmTables] = {}
-"""The decision tables of the last design simulated in this process (a worker runs many
-scenarios of one design; building them takes longer than simulating a scenario)."""
-
-
-def _tables(design: MultiArmDesign) -> MultiArmTables:
-    key = design.source.sha256 + repr(design)
-    if key not in _TABLES:
-        _TABLES.clear()
-        _TABLES[key] = build_tables(design)
-    return _TABLES[key]
-
-
-def _plain(value: Any) -> Any:
-    if isinstance(value, (np.bool_, bool)):
-        return bool(value)
-    if isinstance(value, (np.integer, int)):
-        return int(value)
-    if isinstance(value, (np.floating, float)):
-        return float(value)  # json writes repr: read back bit for bit
-    return value
-
-
-def _engine_takes_execution() -> bool:
-    return "execution" in inspect.signature(simulate_design).parameters
-
-
-SCENARIO_ROUTINE = ("design", "tables", "row", "replicates", "seed", "index")
-"""The parameters of the several-arm engine's per-scenario routine that
-:func:`simulate_scenario` calls."""
-
-
-def _per_scenario(design: MultiArmDesign) -> bool:
-    """Whether the scenarios can be run one task each by the engine's own routine (fixed
-    allocation; the routine present with the parameters it is called with)."""
-    routine = getattr(multiarm_engine, "_scenario", None)
-    if design.allocation.adaptive or routine is None:
-        return False
-    return tuple(inspect.signature(routine).parameters)[:6] == SCENARIO_ROUTINE
-
-
 def _simulated(design: MultiArmDesign, execution: Execution
                ) -> tuple[MultiArmDesign, pd.DataFrame, dict[str, Any]]:
+    """The several-arm engine on every scenario, fixed or adaptive allocation: one task
+    per scenario through ``execution`` (workers, checkpoints, resumption), the engine's
+    own checkpoints; a seed drawn for the run is kept beside them so that a resumed run
+    draws no other."""
     replicates = design.simulation.replicates
     ingredients = {"design_sha256": design.source.sha256, "design": repr(design),
                    "engine": SIMULATION, "replicates": replicates,
                    "seed": "drawn" if design.simulation.seed is None else design.simulation.seed,
                    "octrial": __version__}
-    store = execution.store(ingredients)
+    store = execution.store(ingredients) if design.simulation.seed is None else None
     seed, drawn = kept_seed(store, design.simulation.seed)
     design = dataclasses.replace(
         design, simulation=dataclasses.replace(design.simulation, seed=seed))
+    simulated = simulate_scenarios(design, replicates, seed, execution=execution)
     facts: dict[str, Any] = {
         "seed": seed, "seed_drawn": drawn, "replicates_per_scenario": replicates,
-        "batch_size": multiarm_engine.BATCH,
+        "batch_size": BATCH, "scenarios_resumed": simulated.resumed,
         "random_numbers": "numpy PCG64; scenario i (from 0), batch b: "
                           "SeedSequence(seed, spawn_key=(i, b))"}
-    if not _per_scenario(design):
-        table = _whole_design(design, replicates, seed, execution)
-        facts["checkpointed_by_engine"] = _engine_takes_execution()
-        return design, table, facts
-    tasks = [ArmsScenarioTask(design, i, replicates, seed)
-             for i in range(len(design.scenarios.values))]
-    results, resumed = run_grid(simulate_scenario, tasks, execution, store)
-    facts["scenarios_resumed"] = resumed
-    rows = [json.loads(str(r["row"])) for r in results]
-    return design, pd.DataFrame(rows), facts
-
-
-def _whole_design(design: MultiArmDesign, replicates: int, seed: int,
-                  execution: Execution) -> pd.DataFrame:
-    """The engine's own loop over the scenarios (adaptive allocation, or an engine that
-    runs the grid itself)."""
-    call: Callable[..., pd.DataFrame] = simulate_design
-    given = {"execution": execution} if _engine_takes_execution() else {}
-    if not given and (execution.jobs > 1 or execution.backend != "joblib"):
-        raise bad_setting("jobs", "jobs", "1 (this design is simulated in one process: its "
-                          "engine runs its own loop over the scenarios)",
-                          f"jobs {execution.jobs}, backend {execution.backend}")
-    try:
-        return call(design, replicates, seed, **given)
-    except NotImplementedError as exc:
-        raise InputError(design.source.path, [Problem(
-            "allocation.kind", "an allocation this version simulates ('fixed')",
-            design.allocation.kind, str(exc))]) from None
+    return design, simulated.table, facts
 
 
 # -- summaries ----------------------------------------------------------------------------

@@ -20,6 +20,7 @@ Each check names what it is checked against:
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -38,7 +39,7 @@ from octrial.interim.rule import CONTINUE, FAILURE, STOP_EFFICACY, STOP_FUTILITY
 from octrial.multiarm import parse_multiarm
 from tests.helpers import DESIGNS
 
-DEMO = DESIGNS / "several-arms" / "dose-ranging.toml"
+DEMO = DESIGNS / "dose-ranging.toml"
 DRAWS = 400_000
 Z = 4.0
 
@@ -343,6 +344,23 @@ def test_next_block_before_burn_in_is_the_fixed_ratio():
         pytest.approx([0.25] * 4, abs=1e-12)
 
 
+def test_next_block_before_burn_in_gives_the_control_its_share_as_simulated():
+    # with a control share, the burn-in ratio is that share to the control and the rest
+    # equal (hand: 0.3, then 0.7 / 3 each); the several-arm simulation enrols block 1 with
+    # the same ratio (its <arm>_block1_share, every study enrolling block 1)
+    from octrial.multiarm.engine import simulate_design
+
+    design = _adaptive(kind="information", control_share=0.3, burn_in=100)
+    design = dataclasses.replace(design, simulation=dataclasses.replace(
+        design.simulation, seed=7, replicates=200))
+    result = decide_arms(design, 1, ["control=3/15", "low=4/15", "mid=6/15", "high=8/15"])
+    found = [result.control_allocation] + [a.allocation for a in result.arms]
+    assert found == pytest.approx([0.3] + [0.7 / 3] * 3, abs=1e-12)
+    simulated = simulate_design(design).iloc[0]
+    assert [simulated[f"{a}_block1_share"] for a in design.arm_names] == pytest.approx(
+        found, abs=1e-12)
+
+
 def test_fixed_allocation_has_no_next_block():
     result = decide_arms(_design(), 1, ["control=3/15", "low=4/15", "mid=6/15", "high=8/15"])
     assert result.allocation is None and all(a.allocation is None for a in result.arms)
@@ -350,8 +368,9 @@ def test_fixed_allocation_has_no_next_block():
 
 # -- command line ------------------------------------------------------------------------
 def test_demo_text_and_json_agree():
-    args = ["decide", str(DEMO), "--look", "1", "--data", "control=8/30", "--data",
-            "low=9/30", "--data", "middle=10/30", "--data", "high=16/30"]
+    # the demo's look 1 is at 60 subjects: 15 per arm as each arm's own rule plans them
+    args = ["decide", str(DEMO), "--look", "1", "--data", "control=4/15", "--data",
+            "low=5/15", "--data", "middle=5/15", "--data", "high=8/15"]
     runner = CliRunner()
     text = runner.invoke(main, args)
     assert text.exit_code == 0, text.output
@@ -403,7 +422,7 @@ def test_adaptive_json_has_the_next_block():
       "--data", "high=16/30", "--pipeline", "low=3"], ["--pipeline", "one or two arms"]),
     (["--data", "control=8/30", "--data", "low=9/30", "--data", "middle=10/30",
       "--data", "high=16/30", "--subjects", "x.csv"], ["--subjects", "several"]),
-    (["--look", "4", "--data", "control=8/30"], ["--look", "between 1 and 3"]),
+    (["--look", "5", "--data", "control=8/30"], ["--look", "between 1 and 4"]),  # 4 looks
 ])
 def test_bad_input_exits_2_naming_the_option(args, words):
     if "--look" not in args:

@@ -17,7 +17,7 @@ from octrial.multiarm import parse_multiarm
 from octrial.multiarm.engine import simulate_design
 from octrial.numerics.beta_best import probability_best
 
-DEMO = Path(__file__).parents[1] / "designs" / "several-arms" / "dose-ranging.toml"
+DEMO = Path(__file__).parents[1] / "designs" / "dose-ranging.toml"
 
 
 def flat():

@@ -3,8 +3,8 @@
 Outside checks: the page parsed back with html5lib (strict) and its numbers against
 oc.csv as written; the allocation-over-time figure's cumulative subjects at the last look
 against the exact engine's own expected sizes per arm (an identity: an arm's mean final
-size is its mean cumulative size at the last look, computed here from the probabilities
-of leaving at each look); the caution of every report; the seals (hashlib SHA-256)
+size is its mean cumulative size at the last look, which the exact run derives from the
+probabilities of leaving at each look); the caution of every report; the seals (hashlib SHA-256)
 refused when oc.csv is edited.
 """
 
@@ -126,7 +126,24 @@ def test_allocation_figures_from_simulated_columns(folders) -> None:
         assert figure.uri.startswith("data:image/svg+xml;base64,")
         assert b"<svg" in base64.b64decode(figure.uri.split(",", 1)[1])
     assert "as simulated" in allocation_subjects(synthetic).caption.lower()
-    assert allocation_shares(data) is None  # fixed allocation: no shares to show
+    # fixed allocation simulated writes the shares too (every design plotted the same
+    # way); the exact engine leaves them empty (they need which arms are in together)
+    assert allocation_shares(data) is not None
+    assert allocation_shares(arms_from_run_folder(folders["exact"])) is None
+
+
+def test_a_folder_without_sizes_per_look_gets_them_derived(folders) -> None:
+    # a run folder written before the exact engines wrote <arm>_look<k>_n: the report
+    # derives them the same way, so the figure is the same
+    data = arms_from_run_folder(folders["exact"])
+    written = cumulative_subjects(data)
+    older = data.oc.drop(columns=[c for c in data.oc.columns if c.endswith("_n")
+                                  and "_look" in c])
+    derived = cumulative_subjects(type(data)(data.design, older, data.boundaries,
+                                             data.record, data.origin))
+    assert written is not None and derived is not None
+    for arm in ("control", "low", "high"):
+        assert np.array_equal(written[arm], derived[arm])
 
 
 def test_report_of_a_several_arm_design_file(folders, tmp_path) -> None:

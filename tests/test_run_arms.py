@@ -64,6 +64,8 @@ DOCUMENTED = (
          f"{arm}_expected_n", f"{arm}_sd_n"]
         + [f"{arm}_look{k}_{w}" for k in (1, 2, 3)
            for w in ("stop_efficacy", "stop_futility", "drop")])]
+    + [c for arm in ("control", "low", "high") for c in (
+        [f"{arm}_block{k}_share" for k in (1, 2, 3)] + [f"{arm}_look{k}_n" for k in (1, 2, 3)])]
 )
 
 
@@ -113,6 +115,8 @@ def within_4_se(exact: pd.DataFrame, simulated: pd.DataFrame, replicates: int,
             continue
         if column in sizes:
             se = sizes[column].to_numpy(float) / math.sqrt(replicates)
+        elif "_look" in column and column.endswith("_n"):
+            raise AssertionError(f"{column}: a size column needs its sd in `sizes`")
         elif "prob" in column or "look" in column or column == "fwer":
             if column.endswith("_se") or column not in simulated:
                 continue
@@ -126,13 +130,23 @@ def within_4_se(exact: pd.DataFrame, simulated: pd.DataFrame, replicates: int,
     return checked
 
 
+def look_size_sds(table: pd.DataFrame, arms: tuple[str, ...], per_look: int,
+                  looks: int) -> dict[str, pd.Series]:
+    """Bounds on the sd of each arm's cumulative size at look k: it lies in
+    [per_look, k per_look], so its sd is at most per_look (k - 1) / 2 (Popoviciu's
+    inequality on variances); at look 1 it is certain."""
+    return {f"{arm}_look{k}_n": pd.Series(per_look * (k - 1) / 2, index=table.index)
+            for arm in arms for k in range(1, looks + 1)}
+
+
 def test_exact_and_simulation_agree_within_4_se(runs) -> None:
     exact, simulated = read(runs["exact"]), read(runs["simulated"])
     assert set(exact["method"]) == {"exact"} and set(simulated["method"]) == {"monte-carlo"}
     assert json.loads((runs["exact"] / "run.json").read_text())["engine"].startswith("exact")
     sizes = {"expected_n": simulated["sd_n"], "control_expected_n": exact["control_sd_n"],
              "low_expected_n": exact["low_sd_n"], "high_expected_n": exact["high_sd_n"]}
-    assert within_4_se(exact, simulated, REPLICATES, sizes) > 30
+    sizes.update(look_size_sds(exact, ("control", "low", "high"), 8, 3))
+    assert within_4_se(exact, simulated, REPLICATES, sizes) > 39
 
 
 def test_simulated_run_gives_the_engine_numbers(runs) -> None:
@@ -158,6 +172,19 @@ def test_columns_are_those_documented(runs) -> None:
         assert np.allclose(exact[leave].sum(axis=1), 1.0, atol=1e-12)
     assert list(exact["is_null"]) == [True, False, False]
     assert list(exact["low_is_null"]) == [True, True, False]
+    # identity: the last look's cumulative size is the expected size (a study that ended
+    # earlier counts with the subjects it reached)
+    for arm in ("control", "low", "high"):
+        for table in (exact, read(runs["simulated"])):
+            assert np.allclose(table[f"{arm}_look3_n"], table[f"{arm}_expected_n"],
+                               rtol=1e-12)
+    # block shares need which arms are in together: simulation only, never made up
+    shares = [f"{a}_block{k}_share" for a in ("control", "low", "high") for k in (1, 2, 3)]
+    assert exact[shares].isna().all().all()
+    simulated = read(runs["simulated"])
+    # fixed allocation, 8 subjects per arm per look: block 1 is always a third each (hand)
+    assert np.allclose(simulated[[f"{a}_block1_share" for a in ("control", "low", "high")]],
+                       1 / 3, atol=1e-12)
 
 
 def test_run_record_has_provenance_and_seals(runs) -> None:
@@ -243,7 +270,8 @@ def test_joint_exact_engine_on_request_agrees_with_simulation(runner, tmp_path) 
     assert json.loads((tmp_path / "joint" / "run.json").read_text())["engine"] == (
         "exact (several arms, joint lattice)")
     assert (joint[[f"{a}_look1_drop" for a in ("low", "high")]] > 0.01).all().all()
-    sizes = {"expected_n": simulated["sd_n"]}
+    sizes = {"expected_n": simulated["sd_n"],
+             **look_size_sds(joint, ("control", "low", "high"), 6, 2)}
     assert within_4_se(joint, simulated, REPLICATES, sizes) > 20
 
 
@@ -330,7 +358,8 @@ def test_arms_against_a_benchmark(runner, tmp_path) -> None:
     alphas = exact.loc[0, [f"{a}_prob_success" for a in "abc"]].to_numpy(float)
     assert exact.loc[0, "fwer"] == pytest.approx(1 - np.prod(1 - alphas), abs=1e-13)
     sizes = {"expected_n": simulated["sd_n"],
-             **{f"{a}_expected_n": exact[f"{a}_sd_n"] for a in "abc"}}
+             **{f"{a}_expected_n": exact[f"{a}_sd_n"] for a in "abc"},
+             **look_size_sds(exact, ("a", "b", "c"), 10, 2)}
     assert within_4_se(exact, simulated, 20_000, sizes) > 20
 
 
@@ -387,38 +416,39 @@ def test_mutated_several_arm_files_exit_0_or_2(runner, tmp_path, start) -> None:
         assert result.exit_code == 0 or not out.exists(), where
 
 
-def test_adaptive_designs_are_simulated_by_the_engine_whole(tmp_path, monkeypatch) -> None:
-    # response-adaptive allocation: the engine's own loop (it writes the allocation
-    # columns), handed the execution when it takes one; the columns it adds are kept
-    # before method and replicates
-    text = SMALL.replace("[scenarios]", '[allocation]\nkind = "power"\n[scenarios]')
-    design = load_multiarm(design_file(tmp_path, text, replicates=1000))
-    fixed = load_multiarm(design_file(tmp_path, SMALL, replicates=1000, name="fixed.toml"))
-    calls = []
+ADAPTIVE = SMALL.replace("[scenarios]", '[allocation]\nkind = "power"\n[scenarios]')
+"""SMALL with response-adaptive allocation (power form)."""
 
-    def engine(given, replicates=None, seed=None, tables=None, execution=None):
-        calls.append((given.allocation.kind, replicates, seed, execution))
-        frame = simulate_design(fixed, replicates, seed)
-        for arm in ("control", "low", "high"):
-            frame[f"{arm}_block1_share"] = 1 / 3
-        return frame
 
-    monkeypatch.setattr("octrial.arms_evaluation.simulate_design", engine)
-    execution = Execution(checkpoints=tmp_path / PARTIAL)
-    found = compute_arms(design, "auto", execution)
-    assert found.info["engine"] == "monte-carlo (several arms)"
-    assert "adaptive" in found.info["exact_not_used"]
-    assert calls == [("power", 1000, 20261205, execution)]
-    columns = list(found.oc.columns)
-    assert columns[-5:] == ["control_block1_share", "low_block1_share", "high_block1_share",
-                            "method", "replicates"]
-    assert columns[:len(DOCUMENTED)] == DOCUMENTED
+def test_adaptive_designs_run_per_scenario_with_jobs_and_resume(runner, tmp_path) -> None:
+    # response-adaptive allocation goes through the same per-scenario engine as fixed:
+    # the numbers of one library call, whatever --jobs, and an interrupted run resumes
+    path = design_file(tmp_path, ADAPTIVE, replicates=2000)
+    design = load_multiarm(path)
     with pytest.raises(InputError, match="adaptive"):
         compute_arms(design, "exact")
+    for jobs in ("1", "2"):
+        invoke(runner, str(path), "--jobs", jobs, "--quiet", "--out",
+               str(tmp_path / f"jobs{jobs}"))
+    assert (tmp_path / "jobs1" / "oc.csv").read_bytes() == (
+        tmp_path / "jobs2" / "oc.csv").read_bytes()
+    written = read(tmp_path / "jobs1")
+    assert list(written.columns) == [*DOCUMENTED, "method", "replicates"]
+    library = simulate_design(design)
+    for column in library.columns:
+        assert np.array_equal(written[column].to_numpy(), library[column].to_numpy()), column
+    # power allocation moves the doses' shares away from the fixed third after look 1
+    # under scenario 3 (both doses effective, high better)
+    assert written.loc[2, "high_block2_share"] > written.loc[2, "high_block1_share"]
+    partial = tmp_path / PARTIAL
+    with pytest.raises(Stop):
+        compute_arms(design, "monte-carlo", Execution(checkpoints=partial,
+                                                      on_saved=_stop_after_one))
+    resumed = compute_arms(design, "auto", Execution(checkpoints=partial))
+    assert resumed.info["scenarios_resumed"] == 1
+    assert resumed.info["engine"] == "monte-carlo (several arms)"
+    pd.testing.assert_frame_equal(resumed.oc, compute_arms(design).oc)
 
-    def one_process(given, replicates=None, seed=None, tables=None):
-        return engine(given, replicates, seed)
 
-    monkeypatch.setattr("octrial.arms_evaluation.simulate_design", one_process)
-    with pytest.raises(InputError, match="one process"):  # --jobs never ignored
-        compute_arms(design, "auto", Execution(jobs=2))
+def _stop_after_one(index: int) -> None:
+    raise Stop

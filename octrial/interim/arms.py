@@ -439,9 +439,8 @@ def _next_block(design: MultiArmDesign, observed: dict[str, Any], remaining: lis
     """Allocation probabilities of the next block over every arm (0 for arms gone)."""
     names = design.arm_names
     control = design.shared_control
-    weights = tuple(float(a.allocation) for a in
-                    ((design.control,) if design.control is not None else ()) + design.treatments)
-    rule = design.allocation.rule(weights)
+    # the simulation's rule, so that the burn-in ratio is the one simulated
+    rule = design.allocation_rule()
     sizes, stats = _sizes_and_statistics(design, observed, list(names))
     active = [name in remaining or (control and name == names[0]) for name in names]
     priors = [a.prior for a in design.treatments]

@@ -95,11 +95,7 @@ def adaptive_study(design: MultiArmDesign, planned_blocks: bool = False) -> Adap
     if found:
         raise SettingsError(design.source.path or design.name, found)
     arms = ((design.control,) if design.control is not None else ()) + design.treatments
-    weights = tuple(float(a.allocation) for a in arms)
-    fixed = design.allocation.kind == "fixed"
-    # the fixed ratio before the burn-in: the arms' weights when they differ, else the
-    # rule's default (the control share to the control, equal treatment shares)
-    rule = design.allocation.rule(weights if fixed or len(set(weights)) > 1 else None)
+    rule = design.allocation_rule()
     pair = design.pairs[0]
     h = design.hypothesis
     nan = float("nan")

@@ -55,7 +55,8 @@ from octrial.simulation.draws import DrawTables
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
 
-__all__ = ["BATCH", "arm_nulls", "simulate_design", "truly_best"]
+__all__ = ["BATCH", "SimulatedScenarios", "arm_nulls", "simulate_design",
+           "simulate_scenarios", "truly_best"]
 
 
 def arm_nulls(design: MultiArmDesign, row: tuple[float, ...]) -> np.ndarray:
@@ -77,12 +78,43 @@ def truly_best(design: MultiArmDesign, row: tuple[float, ...]) -> np.ndarray:
     return values == values.max()
 
 
+@dataclass(frozen=True, eq=False)
+class SimulatedScenarios:
+    """Every scenario of a design simulated, and how many came from checkpoints.
+
+    Attributes
+    ----------
+    table : DataFrame
+        One row per scenario (the columns of the module docstring).
+    resumed : int
+        Scenarios read back from the checkpoints of an earlier, interrupted run rather
+        than simulated (0 without checkpoints).
+    """
+
+    table: pd.DataFrame
+    resumed: int
+
+
 def simulate_design(design: MultiArmDesign, replicates: int | None = None,
                     seed: int | None = None, tables: MultiArmTables | None = None,
                     execution: Execution | None = None, planned_blocks: bool = False,
                     ) -> pd.DataFrame:
     """Simulate every scenario of ``design``: one row per scenario (see module
     docstring for the columns), for fixed and response-adaptive allocation.
+
+    The table of :func:`simulate_scenarios`, which takes the same parameters.
+    """
+    return simulate_scenarios(design, replicates, seed, tables, execution,
+                              planned_blocks).table
+
+
+def simulate_scenarios(design: MultiArmDesign, replicates: int | None = None,
+                       seed: int | None = None, tables: MultiArmTables | None = None,
+                       execution: Execution | None = None, planned_blocks: bool = False,
+                       ) -> SimulatedScenarios:
+    """Simulate every scenario of ``design``, one task per scenario through
+    :func:`octrial.execution.run_grid` (workers, checkpoints, resumption), for fixed and
+    response-adaptive allocation.
 
     Parameters
     ----------
@@ -123,17 +155,17 @@ def simulate_design(design: MultiArmDesign, replicates: int | None = None,
                          tuple(map(bool, arm_nulls(design, row))),
                          tuple(map(bool, truly_best(design, row))), replicates, seed, i,
                          BATCH, design.source.sha256) for i, row in enumerate(rows)]
-        results, _ = run_grid(scenario_sums, adaptive_tasks, execution, store)
+        results, resumed = run_grid(scenario_sums, adaptive_tasks, execution, store)
     else:
         tables = build_tables(design) if tables is None else tables
         fixed_tasks = [FixedTask(design, tables, tuple(row), replicates, seed, i)
                        for i, row in enumerate(rows)]
-        results, _ = run_grid(fixed_sums, fixed_tasks, execution, store)
+        results, resumed = run_grid(fixed_sums, fixed_tasks, execution, store)
     out = [columns(design, row, sums, replicates) for row, sums in zip(rows, results,
                                                                        strict=True)]
     for i, r in enumerate(out):
         r["scenario"] = i + 1
-    return pd.DataFrame(out)
+    return SimulatedScenarios(pd.DataFrame(out), resumed)
 
 
 def _increment_pmfs(design: MultiArmDesign, truth: np.ndarray, increments: np.ndarray,

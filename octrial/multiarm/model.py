@@ -171,6 +171,18 @@ class MultiArmDesign:
         """The treatment arms' names in file order."""
         return tuple(a.name for a in self.treatments)
 
+    def allocation_rule(self) -> AllocationRule:
+        """The allocation rule the simulation and ``decide`` both apply.
+
+        Before the burn-in (and throughout with ``kind = 'fixed'``) the shares follow the
+        arms' fixed weights when they differ or the kind is ``'fixed'``; otherwise the
+        rule's default ratio (``control_share`` to the control, equal treatment shares).
+        """
+        arms = ((self.control,) if self.control is not None else ()) + self.treatments
+        weights = tuple(float(a.allocation) for a in arms)
+        fixed = self.allocation.kind == "fixed"
+        return self.allocation.rule(weights if fixed or len(set(weights)) > 1 else None)
+
     @property
     def family(self) -> Any:
         """The endpoint family object that does this design's maths."""

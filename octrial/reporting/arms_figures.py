@@ -3,12 +3,11 @@
 Drawn in grey scale as every report figure (:mod:`octrial.reporting.figures`: lines
 differ by style and marker, never by colour alone) from oc.csv columns only.
 
-Allocation over time reads the columns the simulation writes when it has them:
-``<arm>_block<k>_share`` (mean allocation probability of block k; block 1 is the
-subjects before look 1) and ``<arm>_look<k>_n`` (mean cumulative subjects of the arm at
-look k). Without ``<arm>_look<k>_n`` and with fixed allocation, the mean cumulative
-subjects follow from the planned sizes and the probabilities of leaving at each look
-(:func:`cumulative_subjects`): an arm that leaves at look m keeps its size there.
+Allocation over time reads the columns ``<arm>_block<k>_share`` (mean allocation
+probability of block k; block 1 is the subjects before look 1; simulation only) and
+``<arm>_look<k>_n`` (mean cumulative subjects of the arm at look k; every engine). A
+run folder written before the exact engines wrote ``<arm>_look<k>_n`` gets them derived
+as those engines derive them (:func:`cumulative_subjects`).
 """
 
 from __future__ import annotations
@@ -19,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from octrial.arms_evaluation import sizes_per_look
 from octrial.reporting.figures import LINES, MAX_PANELS, STYLE, Figure, _new, _panels, encode
 from octrial.reporting.formats import truth
 
@@ -102,33 +102,21 @@ def _per_look(oc: pd.DataFrame, prefix: str, what: str, looks: int) -> np.ndarra
 
 def cumulative_subjects(data: Any) -> dict[str, np.ndarray] | None:
     """Per arm (control first), the mean cumulative subjects at each look, shape
-    (scenarios, looks): the ``<arm>_look<k>_n`` columns, or (fixed allocation) derived
-    from the planned sizes and the probabilities of leaving at each look; ``None`` when
-    neither is possible."""
+    (scenarios, looks): the ``<arm>_look<k>_n`` columns (every engine writes them), or,
+    for a run folder without them and fixed allocation, derived as the exact engines
+    derive them (:func:`octrial.arms_evaluation.sizes_per_look`); ``None`` when neither
+    is possible."""
     design, oc = data.design, data.oc
     k_looks = design.looks.count
     given = {a: _per_look(oc, a, "n", k_looks) for a in design.arm_names}
-    if all(v is not None for v in given.values()):
+    if all(v is not None and not np.isnan(v).any() for v in given.values()):
         return {a: v for a, v in given.items() if v is not None}
     if design.allocation.adaptive:
         return None
-    out = {}
-    for j, arm in enumerate(design.arm_names):
-        planned = np.array([n[j] for n in design.looks.per_arm], dtype=float)
-        if design.shared_control and j == 0:
-            # the control leaves when the study ends (study columns look<k>_stop_*)
-            left_at = sum(oc[[f"look{k}_stop_{why}" for k in range(1, k_looks + 1)]]
-                          .to_numpy(float) for why in ("efficacy", "futility"))
-        else:
-            parts = [_per_look(oc, arm, w, k_looks)
-                     for w in ("stop_efficacy", "stop_futility", "drop")]
-            if any(p is None for p in parts):
-                return None
-            left_at = sum(p for p in parts if p is not None)
-        gone_before = np.cumsum(left_at, axis=1) - left_at  # left at an earlier look
-        kept = np.cumsum(left_at * planned, axis=1) - left_at * planned
-        out[arm] = kept + (1.0 - gone_before) * planned
-    return out
+    try:
+        return sizes_per_look(design, oc)
+    except KeyError:  # a table without the per-look leaving columns
+        return None
 
 
 def share_columns(data: Any) -> dict[str, list[str]]:
@@ -138,7 +126,8 @@ def share_columns(data: Any) -> dict[str, list[str]]:
     for arm in data.design.arm_names:
         found = []
         k = 1
-        while f"{arm}_block{k}_share" in data.oc.columns:
+        while (f"{arm}_block{k}_share" in data.oc.columns
+               and data.oc[f"{arm}_block{k}_share"].notna().any()):
             found.append(f"{arm}_block{k}_share")
             k += 1
         if found:
@@ -183,10 +172,10 @@ def allocation_subjects(data: Any) -> Figure | None:
         for ax in axes[:, 0]:
             ax.set_ylabel(f"mean cumulative {design.family.look_unit}")
         axes.flat[0].legend(loc="upper left", frameon=False)
-    derived = not all(f"{a}_look1_n" in oc.columns for a in design.arm_names)
-    how = (" Derived from the planned sizes and each arm's probabilities of leaving at "
-           "each look (fixed allocation: an arm that leaves keeps its size)." if derived
-           else " As simulated (oc.csv columns <arm>_look<k>_n).")
+    simulated = set(oc["method"]) == {"monte-carlo"} if "method" in oc.columns else False
+    how = (" As simulated (oc.csv columns <arm>_look<k>_n)." if simulated else
+           " Computed from the planned sizes and each arm's probabilities of leaving at "
+           "each look (fixed allocation: an arm that leaves keeps its size).")
     more = (f" The first {len(shown)} of {len(oc)} scenarios are shown."
             if len(shown) < len(oc) else "") + SCENARIO_VALUES
     caption = ("Allocation over time: mean number of subjects each arm has received by "
@@ -197,7 +186,8 @@ def allocation_subjects(data: Any) -> Figure | None:
 
 
 def allocation_shares(data: Any) -> Figure | None:
-    """Mean allocation probability of every arm per block (adaptive allocation)."""
+    """Mean allocation probability of every arm per block (simulation, fixed or adaptive
+    allocation)."""
     import matplotlib
 
     shares = share_columns(data)
