@@ -57,6 +57,10 @@ HAND = [
     # only the control left
     (AllocationRule("power", 1.0, 0.3), [0, .5, .5, 0], np.array([1, 0, 0, 0], bool), 40,
      120, [1.0, 0.0, 0.0, 0.0]),
+    # before the burn-in with a stated control share 0.3 and arm 2 dropped: the control
+    # keeps 0.3, the two treatment arms left split 0.7 equally (0.35 each)
+    (AllocationRule("information", control_share=0.3, burn_in=120), [0, .5, .2, .3],
+     np.array([1, 1, 0, 1], bool), 60, 360, [0.3, 0.35, 0.0, 0.35]),
 ]
 
 

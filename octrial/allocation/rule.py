@@ -152,20 +152,27 @@ def shares(pr_best, active, control, form, power, control_share, minimum, burn_i
     first = 1 if control else 0
     for j in range(arms):
         out[j] = 0.0
-    if form == 0 or enrolled < burn_in or enrolled == 0:
-        total = 0.0
-        for j in range(arms):
-            if active[j]:
-                total += ratio[j]
-        if total > 0:
-            for j in range(arms):
-                if active[j]:
-                    out[j] = ratio[j] / total
-        return
     treated = 0
     for j in range(first, arms):
         if active[j]:
             treated += 1
+    if form == 0 or enrolled < burn_in or enrolled == 0:
+        # a stated control share holds in every block, the burn-in's included, so an
+        # arm leaving passes its share to the other treatment arms, not to the control
+        held_control = control and active[0] and treated > 0 and control_share >= 0
+        start = first if held_control else 0
+        total = 0.0
+        for j in range(start, arms):
+            if active[j]:
+                total += ratio[j]
+        room = 1.0 - control_share if held_control else 1.0
+        if held_control:
+            out[0] = control_share
+        if total > 0:
+            for j in range(start, arms):
+                if active[j]:
+                    out[j] = ratio[j] / total * room
+        return
     control_part = 0.0
     if control and active[0]:
         if treated == 0:
