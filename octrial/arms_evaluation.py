@@ -36,6 +36,7 @@ from octrial.errors import InputError, Problem, bad_setting
 from octrial.execution import Execution, run_grid
 from octrial.execution.checkpoints import kept_seed
 from octrial.multiarm import engine as multiarm_engine
+from octrial.multiarm import family_loop
 from octrial.multiarm.engine import arm_nulls, simulate_design
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
@@ -324,7 +325,8 @@ def _per_scenario(design: MultiArmDesign) -> bool:
     """Whether the scenarios can be run one task each by the engine's own routine (fixed
     allocation; the routine present with the parameters it is called with)."""
     routine = getattr(multiarm_engine, "_scenario", None)
-    if design.allocation.adaptive or routine is None:
+    if design.allocation.adaptive or routine is None or family_loop.serves(design):
+        # normal and time-to-event designs: simulate_design's own study loop
         return False
     return tuple(inspect.signature(routine).parameters)[:6] == SCENARIO_ROUTINE
 

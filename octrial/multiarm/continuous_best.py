@@ -112,10 +112,19 @@ class ArmPosteriors:
         """Component c's quantile function at the nodes v, shape (m, G)."""
         a, b = self.first[:, c:c + 1], self.second[:, c:c + 1]
         if self.kind == "gamma":
-            return special.gammaincinv(a, v[None, :]) / b
+            return _per_value(special.gammaincinv, self.first[:, c], v) / b
         if self.kind == "t":
-            return a + b * special.stdtrit(self.df[:, c:c + 1], v[None, :])
+            return a + b * _per_value(special.stdtrit, self.df[:, c], v)
         return a + b * special.ndtri(v)[None, :]
+
+
+def _per_value(function: np.ufunc, shapes: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """``function(shape, v)`` for every study (rows) and node (columns), evaluated once
+    per distinct shape: inverting the t and gamma distributions is slow, and at one look
+    the studies share their degrees of freedom (gamma shape: prior shape plus events)."""
+    values, where = np.unique(shapes, return_inverse=True)
+    table: np.ndarray = function(values[:, None], v[None, :])
+    return table[where.ravel()]
 
 
 def probability_best(posteriors: list[ArmPosteriors], active: np.ndarray,
