@@ -12,9 +12,11 @@ import pytest
 from scipy import integrate, special, stats
 
 import octrial
+from octrial.arms_evaluation import SIMULATION, compute_arms
 from octrial.design.model import Scenarios, Source
 from octrial.engines.monte_carlo import batch_generator
 from octrial.errors import SettingsError
+from octrial.execution import Execution
 from octrial.multiarm import parse_multiarm
 from octrial.multiarm.continuous_best import ArmPosteriors, probability_best
 from octrial.multiarm.engine import simulate_design
@@ -316,6 +318,27 @@ def test_same_numbers_whatever_the_split():
         d, scenarios=Scenarios(d.scenarios.arms, d.scenarios.values[:1])), replicates=1_000)
     pd_cols = [c for c in alone.columns if c != "scenario"]
     assert both.iloc[0][pd_cols].equals(alone.iloc[0][pd_cols])
+
+
+def test_two_workers_give_the_numbers_of_one():
+    # identity: one generator per scenario and batch, whatever the split of the work
+    d = parse(tte_data())
+    one = simulate_design(d, replicates=2_000)
+    two = simulate_design(d, replicates=2_000, execution=Execution(jobs=2))
+    assert one.equals(two)
+
+
+def test_run_simulates_normal_designs_with_the_family_loop():
+    # octrial run's engine choice: no exact several-arm engine for normal endpoints, so
+    # simulation, whose numbers are simulate_design's (identity)
+    d = parse(normal_data())
+    d = dataclasses.replace(d, simulation=dataclasses.replace(d.simulation,
+                                                              replicates=2_000))
+    found = compute_arms(d)
+    assert found.info["engine"] == SIMULATION
+    direct = simulate_design(d)
+    for column in ("prob_success", "fwer", "low_prob_success", "high_look1_stop_futility"):
+        assert found.oc[column].tolist() == direct[column].tolist(), column
 
 
 # -- bad input ---------------------------------------------------------------------------
