@@ -24,6 +24,7 @@ __all__ = ["ArmPosteriors", "probability_best", "quadrature_rule"]
 
 PANELS = 48
 ORDER = 8
+"""Default panels and nodes per panel of :func:`quadrature_rule`."""
 CHUNK = 2048
 """Studies per block of the integration (bounds the memory of the (studies, nodes)
 arrays; only a matter of speed)."""
@@ -42,7 +43,27 @@ def quadrature_rule(panels: int = PANELS, order: int = ORDER) -> tuple[np.ndarra
     return nodes, weights
 
 
-_NODES, _WEIGHTS = quadrature_rule()
+def tanh_sinh_rule(step: float, half_width: float = 3.0) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes and weights on (0, 1) of the tanh-sinh rule (Takahasi & Mori 1974):
+    v = (1 + tanh(pi/2 sinh t)) / 2, trapezoid in t on [-half_width, half_width] (at
+    t = 3 the node is within 2e-14 of the end, where 1 - v is still exact)."""
+    t = np.arange(-half_width, half_width + step / 2, step)
+    s = 0.5 * np.pi * np.sinh(t)
+    return (1.0 + np.tanh(s)) / 2.0, step * 0.25 * np.pi * np.cosh(t) / np.cosh(s) ** 2
+
+
+RULES = ((2.0, tanh_sinh_rule(1 / 8)), (10.0, tanh_sinh_rule(1 / 16)),
+         (30.0, tanh_sinh_rule(1 / 64)), (100.0, tanh_sinh_rule(1 / 128)),
+         (np.inf, quadrature_rule(192, 8)))
+"""(largest scale ratio, rule): a study is integrated by the first rule whose ratio its
+arms' posterior sds are within (equal allocation keeps the ratio near 1). Tanh-sinh
+converges geometrically where the integrand is smooth inside (0, 1); a much sharper arm
+makes a steep step inside the interval, which needs more nodes. Measured against the
+closed form for two normals (4,000 random pairs per band, docs/multi-arm.md): 49 nodes
+up to ratio 2 and 97 up to 10, errors 3e-15 and 3e-8; 385 up to 30 and 769 up to 100,
+about 1e-13 and 5e-7; beyond, 1,536 graded Gauss-Legendre nodes, 2e-5 up to 300 and
+1.3e-4 up to 1,000."""
+_NODES, _WEIGHTS = RULES[-1][1]
 
 
 @dataclass(frozen=True, eq=False)
@@ -154,19 +175,55 @@ def probability_best(posteriors: list[ArmPosteriors], active: np.ndarray,
     active = np.asarray(active, dtype=bool)
     m, arms = active.shape
     out = np.zeros((m, arms))
+    ratio = _scale_ratio(posteriors, active)
+    # each study by the first (cheapest) rule whose scale ratio it is within
+    chosen = np.searchsorted(np.array([limit for limit, _ in RULES]), ratio)
+    for g, (_, (nodes, weights)) in enumerate(RULES):
+        rows_g = np.flatnonzero(chosen == g)
+        if rows_g.size:
+            out[rows_g] = _integrate([p.take(rows_g) for p in posteriors], active[rows_g],
+                                     higher, nodes, weights)
+    return out
+
+
+def _scale_ratio(posteriors: list[ArmPosteriors], active: np.ndarray) -> np.ndarray:
+    """Per study, the largest over the smallest posterior sd of the active arms'
+    components (the steepness of the integrand in the quantile variable)."""
+    big = np.zeros(active.shape[0])
+    small = np.full(active.shape[0], np.inf)
+    for j, p in enumerate(posteriors):
+        if p.kind == "gamma":
+            sd = np.sqrt(p.first) / p.second
+        elif p.kind == "t":
+            sd = p.second * np.sqrt(np.where(p.df > 2, p.df / np.maximum(p.df - 2, 1e-300),
+                                             np.inf))
+            sd = np.where(np.isfinite(sd), sd, p.second)
+        else:
+            sd = p.second
+        live = active[:, j:j + 1]
+        big = np.maximum(big, np.where(live, sd, 0.0).max(axis=1))
+        small = np.minimum(small, np.where(live, sd, np.inf).min(axis=1))
+    return np.where(small > 0, big / np.where(small > 0, small, 1.0), np.inf)
+
+
+def _integrate(parts: list[ArmPosteriors], active: np.ndarray, higher: bool,
+               nodes: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """The sum of the module docstring on the rule (nodes, weights)."""
+    m, arms = active.shape
+    out = np.zeros((m, arms))
     for start in range(0, m, CHUNK):
         rows = slice(start, min(start + CHUNK, m))
         live = active[rows]
-        parts = [p.take(rows) for p in posteriors]
+        chunk = [p.take(rows) for p in parts]
         for j in range(arms):
             if not live[:, j].any():
                 continue
-            for c in range(parts[j].weights.shape[1]):
-                u = parts[j].quantile(c, _NODES)
+            for c in range(chunk[j].weights.shape[1]):
+                u = chunk[j].quantile(c, nodes)
                 product = np.ones(u.shape)
                 for i in range(arms):
                     if i != j:
-                        product *= np.where(live[:, i:i + 1], parts[i].worse(u, higher), 1.0)
-                out[rows, j] += parts[j].weights[:, c] * (product @ _WEIGHTS)
+                        product *= np.where(live[:, i:i + 1], chunk[i].worse(u, higher), 1.0)
+                out[rows, j] += chunk[j].weights[:, c] * (product @ weights)
         out[rows] = np.where(live, out[rows], 0.0)
     return out
