@@ -35,10 +35,12 @@ Gamma(events, exposure)).
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Any
 
+import numba
 import numpy as np
 from scipy import special
 
@@ -51,6 +53,7 @@ from octrial.multiarm.continuous_best import ArmPosteriors, probability_best
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tallies import tally_problems
 from octrial.rules.stop import EFFICACY, FUTILITY, Rule
+from octrial.simulation import student_t
 from octrial.simulation.normal import draw_increments
 
 __all__ = ["FamilyTask", "family_sums", "refuse_unsupported", "serves"]
@@ -211,14 +214,36 @@ class _UnknownSd(_KnownSd):
             assert h.benchmark is not None  # one arm (load.py)
             claim = h.sign * h.benchmark
             return np.asarray(special.stdtr(df[0], (loc[0] - claim) / scale[0]))
-        return unknown_sd.difference_sf(loc[0], scale[0], df[0], loc[1], scale[1], df[1],
-                                        h.shift)
+        # the two-arm kernel's Behrens-Fisher quadrature (simulation/student_t.py), on
+        # the benefit scale (the t is symmetric, so reflecting both arms is exact)
+        out = np.empty(loc[0].size)
+        # numba's Dispatcher type does not carry the compiled function's parameters
+        _difference_exceeds(  # type: ignore[call-arg]
+            loc[0], scale[0], float(df[0]), loc[1], scale[1], float(df[1]),
+            float(h.shift), *_t_rules(float(df[0]), float(df[1])), out)
+        return out
 
     def own(self, t: int, k: int, rows: np.ndarray) -> ArmPosteriors:
         p = self._posterior(t, t, 0, k, rows)
         scale = np.sqrt(np.asarray(p.scale) / (p.shape * p.mean_n))
         return ArmPosteriors.of("t", np.ones(scale.size), np.asarray(p.mean), scale,
                                 np.full(scale.size, p.df))
+
+
+@functools.lru_cache(maxsize=64)
+def _t_rules(df_treatment: float, df_control: float) -> tuple[np.ndarray, ...]:
+    """The packed sinh rules of the two arms' degrees of freedom (rows 0 and 1)."""
+    return student_t.rules([df_treatment, df_control])
+
+
+@numba.njit(cache=True)
+def _difference_exceeds(loc_x, scale_x, df_x, loc_y, scale_y, df_y, shift, nodes, weights,
+                        start, out):  # pragma: no cover - compiled
+    """Pr(X - Y > shift) per study, X the treatment (rule row 0), Y the control (row 1)."""
+    for r in range(out.size):
+        out[r] = student_t.prob_difference_exceeds(
+            loc_x[r], scale_x[r], df_x, 0, loc_y[r], scale_y[r], df_y, 1, shift, nodes,
+            weights, start)
 
 
 class _Exponential(_Arms):
