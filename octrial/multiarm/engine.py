@@ -45,6 +45,7 @@ import pandas as pd
 from octrial._version import __version__
 from octrial.engines.monte_carlo import batch_generator
 from octrial.execution import Execution, run_grid
+from octrial.multiarm import family_loop
 from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sums
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.model import MultiArmDesign
@@ -142,13 +143,23 @@ def simulate_scenarios(design: MultiArmDesign, replicates: int | None = None,
         raise ValueError("several-arm simulation needs a seed (simulation.seed)")
     execution = Execution() if execution is None else execution
     rows = list(design.scenarios.values)
-    adaptive = design.allocation.adaptive or planned_blocks
+    family = family_loop.serves(design)
+    if family:  # normal, time-to-event: octrial.multiarm.family_loop
+        family_loop.refuse_unsupported(design)
+    adaptive = (design.allocation.adaptive or planned_blocks) and not family
     store = execution.store({
         "design_sha256": design.source.sha256, "design": repr(design),
-        "engine": "several-arm monte-carlo", "loop": "adaptive" if adaptive else "fixed",
+        "engine": "several-arm monte-carlo",
+        "loop": "family" if family else "adaptive" if adaptive else "fixed",
         "planned_blocks": planned_blocks, "replicates": replicates, "seed": seed,
         "batch": BATCH, "octrial": __version__})
-    if adaptive:
+    if family:
+        family_tasks = [family_loop.FamilyTask(
+            design, tuple(map(float, row)), tuple(map(bool, arm_nulls(design, row))),
+            tuple(map(bool, truly_best(design, row))), replicates, seed, i, BATCH)
+            for i, row in enumerate(rows)]
+        results, _ = run_grid(family_loop.family_sums, family_tasks, execution, store)
+    elif adaptive:
         study = adaptive_study(design, planned_blocks)
         adaptive_tasks = [
             AdaptiveTask(study, tuple(map(float, row)),

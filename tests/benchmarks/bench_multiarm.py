@@ -1,6 +1,10 @@
 """Benchmark: simulated four-arm binary studies per second, per core (issue 16).
 
 Run:  PYTHONPATH=. python tests/benchmarks/bench_multiarm.py      (about a minute)
+      PYTHONPATH=. python tests/benchmarks/bench_multiarm.py families
+      (normal with known and unknown sd and time-to-event endpoints: the several-arm
+      loop of octrial.multiarm.family_loop end to end, with and without
+      drop_if_best_below = 0.1, against a naive per-study Python loop)
 
 Design: a shared control and three treatment arms, Beta(1, 1) priors, looks at 60, 120
 and 180 subjects (15 per arm per look), each arm against the control on
@@ -155,5 +159,119 @@ def main() -> None:
     print(f"kernel with drop_if_best_below = 0.05: {200_000 / t:,.0f} studies/s")
 
 
+# -- normal and time-to-event endpoints (octrial.multiarm.family_loop) ----------------
+def family_design(kind: str, drop: float | None = None):
+    """Control and three treatment arms, 60 / 120 / 180 subjects, efficacy 0.999 / 0.999
+    / 0.975, futility 0.05: normal with known sd 1 (prior N(0, 10^2) on each difference),
+    unknown sd (vague normal-inverse-gamma priors), or time-to-event (gamma priors)."""
+    arms = ("control", "low", "mid", "high")
+    if kind == "time-to-event":
+        prior = {"distribution": "gamma", "shape": 0.1, "rate": 2.0}
+        endpoint = {"type": "time-to-event", "better": "lower"}
+        hypothesis = {"comparison": "ratio", "margin": 0.0}
+        own = {"prior": prior}
+        truth = [0.05, 0.045, 0.04, 0.035]
+    else:
+        known = kind == "normal, known sd"
+        endpoint = ({"type": "normal", "sd": 1.0, "better": "higher"} if known else
+                    {"type": "normal", "sd": "unknown", "true_sd": 1.0, "better": "higher"})
+        hypothesis = {"comparison": "difference", "kind": "superiority", "margin": 0.0}
+        if known:
+            hypothesis["prior"] = {"distribution": "normal", "mean": 0.0, "sd": 10.0}
+        own = {} if known else {"prior": {"distribution": "normal-inverse-gamma",
+                                          "mean": 0.0, "mean_n": 0.01, "shape": 0.01,
+                                          "scale": 0.01}}
+        truth = [0.0, 0.1, 0.2, 0.3]
+    looks: dict = {"n": [60, 120, 180], "efficacy": [0.999, 0.999, 0.975],
+                   "futility": [0.05, 0.05, "none"]}
+    if drop is not None:
+        looks["drop_if_best_below"] = [drop, drop, "none"]
+    data = {"schema": 1, "name": "bench", "title": "bench", "endpoint": endpoint,
+            "hypothesis": hypothesis, "arms": {a: dict(own) for a in arms},
+            "looks": looks, "scenarios": {a: [v] for a, v in zip(arms, truth, strict=True)},
+            "simulation": {"seed": 1, "replicates": 1000}}
+    return parse_multiarm(data, Source("bench.toml", "", ""))
+
+
+def family_naive(d, reps: int, rng: np.random.Generator) -> float:
+    """A Python loop over studies, looks and arms, one study at a time: the family's
+    draw and benefit (unknown sd: each subject drawn, the posteriors of
+    :mod:`octrial.endpoints.unknown_sd`); no Pr(best) rule."""
+    from octrial.endpoints import unknown_sd
+    from octrial.rules.stop import EFFICACY, FUTILITY, Rule
+
+    family, T = d.family, len(d.treatments)
+    unknown = getattr(family, "name", "") == "normal" and not d.endpoint.known_sd
+    truth = np.array(d.scenarios.values[0], dtype=float)
+    per = np.array(d.looks.per_arm)
+    inc = np.diff(per, axis=0, prepend=0)
+    rule = Rule.of(d.pairs[0].looks)
+    wins = 0
+    for _ in range(reps):
+        stat = np.zeros(T + 1)
+        squares = np.zeros(T + 1)
+        live = list(range(T))
+        won = False
+        for k in range(d.looks.count):
+            for a in range(T + 1):
+                if unknown:
+                    y = rng.normal(truth[a], 1.0, int(inc[k, a]))
+                    stat[a] += y.sum()
+                    squares[a] += (y * y).sum()
+                else:
+                    stat[a] += family.draw_statistics(d.pairs[0], 0 if a else 1, truth[a],
+                                                      int(inc[k, a]), rng, 1)[0]
+            for t in list(live):
+                pair = d.pairs[t]
+                n = (int(per[k, t + 1]), int(per[k, 0]))
+                if unknown:
+                    posts = []
+                    for a, m in ((t + 1, n[0]), (0, n[1])):
+                        p = pair.arms[0].prior
+                        ybar = stat[a] / m
+                        sd = np.sqrt((squares[a] - m * ybar * ybar) / (m - 1))
+                        posts.append(unknown_sd.update(p.mean, p.mean_n, p.shape, p.scale,
+                                                       n=m, ybar=ybar, sd=sd))
+                    b = unknown_sd.benefit_two_arms(posts[0], posts[1], 0.0)
+                else:
+                    b = float(family.benefit_at(pair, (stat[t + 1:t + 2], stat[:1]), n)[0])
+                code = rule.decide(k, b)
+                if code == EFFICACY:
+                    won = True
+                if code in (EFFICACY, FUTILITY):
+                    live.remove(t)
+            if not live:
+                break
+        wins += won
+    return wins / reps
+
+
+def families() -> None:
+    """Studies per CPU second of the several-arm loop for normal and time-to-event
+    endpoints, end to end (simulate_design), against the naive loop."""
+    print(f"{'family':<20}{'drop':>6}{'studies/s':>12}{'x naive':>9}{'P(any)':>8}")
+    for kind in ("normal, known sd", "normal, unknown sd", "time-to-event"):
+        d = family_design(kind)
+        reps_naive = 2_000
+        t0 = time.process_time()
+        p_naive = family_naive(d, reps_naive, np.random.default_rng(3))
+        naive_rate = reps_naive / (time.process_time() - t0)
+        print(f"{kind:<20}{'naive':>6}{naive_rate:>12,.0f}{1.0:>9.1f}{p_naive:>8.3f}")
+        for drop in (None, 0.1):
+            dd = family_design(kind, drop)
+            reps = 50_000 if drop is None else 20_000
+            simulate_design(dd, replicates=1_000)  # imports and caches
+            t0 = time.process_time()
+            oc = simulate_design(dd, replicates=reps).iloc[0]
+            rate = reps / (time.process_time() - t0)
+            print(f"{kind:<20}{'-' if drop is None else drop:>6}{rate:>12,.0f}"
+                  f"{rate / naive_rate:>9.1f}{oc['prob_success']:>8.3f}")
+
+
 if __name__ == "__main__":
-    main()
+    import sys
+
+    if sys.argv[1:] == ["families"]:
+        families()
+    else:
+        main()
