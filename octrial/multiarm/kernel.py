@@ -111,10 +111,11 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
                 if not active[t]:
                     continue
                 code = decision[t, k, x[t], c]
-                if record and k == K - 1:
-                    out_final[r, t] = final_benefit[t, x[t], c]
-                elif record and code == EFFICACY:
-                    out_final[r, t] = np.inf
+                if record:
+                    if k == K - 1:
+                        out_final[r, t] = final_benefit[t, x[t], c]
+                    elif code == EFFICACY:
+                        out_final[r, t] = np.inf
                 if code == EFFICACY:
                     active[t] = False
                     success[t] = True
