@@ -40,12 +40,8 @@ import pandas as pd
 from octrial._version import __version__
 from octrial.calibration.arms import TARGETS, ArmsCalibration, null_line, with_threshold
 from octrial.execution import Execution, run_grid
-from octrial.multiarm.final_values import (
-    BATCH,
-    final_benefit_tables,
-    final_values,
-    refusal,
-)
+from octrial.multiarm.engine import BATCH
+from octrial.multiarm.final_values import final_benefit_tables, final_values, refusal
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
 from octrial.rules.stop import DECISION_TOLERANCE

@@ -17,6 +17,7 @@ b))))``, so how the work is split never changes a number.
 from __future__ import annotations
 
 import functools
+from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
 
@@ -31,7 +32,8 @@ from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tallies import tally_problems
 from octrial.numerics.beta_best import BestTables
 
-__all__ = ["AdaptiveTask", "adaptive_study", "batch_sums", "scenario_sums"]
+__all__ = ["AdaptiveTask", "adaptive_study", "batch_sums", "benefit_memo", "best_tables",
+           "memo_identity", "scenario_batches", "scenario_sums"]
 
 
 def _prior(prior: BetaMixture) -> tuple[tuple[float, ...], tuple[float, ...],
@@ -128,23 +130,41 @@ DESIGN_KEYS = {"looks": "looks.n", "drop_by_look": "looks.drop_if_best_below",
 
 
 @functools.lru_cache(maxsize=2)
-def _tables(priors: tuple, largest: int, higher: bool) -> BestTables:
-    # built once per process and design: the scenarios of a design share them
+def best_tables(priors: tuple, largest: int, higher: bool) -> BestTables:
+    """The Pr(best) tables of arms with ``priors`` up to ``largest`` subjects, built once
+    per process and design (the scenarios of a design share them)."""
     return BestTables.build(list(priors), largest, higher)
 
 
 @functools.lru_cache(maxsize=1)
-def _memo(identity: str) -> Memo:
-    # the posterior probabilities of benefit depend on the priors and the hypothesis,
-    # not on the scenario: the scenarios of a design run in one process share them
+def benefit_memo(identity: str) -> Memo:
+    """The memo of posterior probabilities of benefit for :func:`memo_identity`
+    ``identity``: they depend on the priors and the hypothesis, not on the scenario, so
+    the scenarios of a design run in one process share it."""
     return new_memo()
 
 
-def _memo_identity(study: AdaptiveStudy) -> str:
+def memo_identity(study: AdaptiveStudy) -> str:
+    """What the posterior probabilities of benefit of ``study`` depend on."""
     rule = study.arm_rule
     assert rule is not None
     return repr((study.arm_priors, study.prior, rule.versus_control, rule.higher,
                  rule.shift, rule.benchmark, study.looks[-1]))
+
+
+def scenario_batches(study: AdaptiveStudy, rates: np.ndarray, replicates: int, seed: int,
+                     scenario: int, batch: int) -> Iterator[StudyBatch]:
+    """The batches of ``batch`` studies of scenario number ``scenario`` (0-based) at
+    true ``rates``, in batch order, decided with the process's shared tables and memo
+    (:func:`best_tables`, :func:`benefit_memo`)."""
+    study.check(rates.size)
+    priors = study.arm_priors if study.arm_priors is not None else (study.prior,) * rates.size
+    table = best_tables(tuple(priors), int(study.looks[-2]) if len(study.looks) > 1 else 0,
+                        study.higher)
+    memo = benefit_memo(memo_identity(study))
+    for b, start in enumerate(range(0, replicates, batch)):
+        yield simulate_batch(study, rates, min(batch, replicates - start), seed, scenario,
+                             b, table, memo)
 
 
 @dataclass(frozen=True)
@@ -179,15 +199,9 @@ def scenario_sums(task: AdaptiveTask) -> dict[str, np.ndarray]:
     batches in batch order."""
     rates = np.asarray(task.truth, float)
     study = task.study
-    study.check(rates.size)
-    priors = study.arm_priors if study.arm_priors is not None else (study.prior,) * rates.size
-    table = _tables(tuple(priors), int(study.looks[-2]) if len(study.looks) > 1 else 0,
-                    study.higher)
-    memo = _memo(_memo_identity(study))
     total: dict[str, np.ndarray] = {}
-    for b, start in enumerate(range(0, task.replicates, task.batch)):
-        part = simulate_batch(study, rates, min(task.batch, task.replicates - start),
-                              task.seed, task.scenario, b, table, memo)
+    for part in scenario_batches(study, rates, task.replicates, task.seed, task.scenario,
+                                 task.batch):
         sums = batch_sums(study, part, rates, np.array(task.is_null),
                           np.array(task.is_best))
         total = sums if not total else {k: total[k] + v for k, v in sums.items()}

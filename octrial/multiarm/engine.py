@@ -43,15 +43,13 @@ import numpy as np
 import pandas as pd
 
 from octrial._version import __version__
-from octrial.engines.monte_carlo import batch_generator
 from octrial.execution import Execution, run_grid
 from octrial.multiarm import family_loop
 from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sums
-from octrial.multiarm.kernel import simulate
+from octrial.multiarm.fixed_scenario import fixed_tallies
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
 from octrial.multiarm.tallies import tally_problems
-from octrial.simulation.draws import DrawTables
 
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
@@ -179,23 +177,6 @@ def simulate_scenarios(design: MultiArmDesign, replicates: int | None = None,
     return SimulatedScenarios(pd.DataFrame(out), resumed)
 
 
-def _increment_pmfs(design: MultiArmDesign, truth: np.ndarray, increments: np.ndarray,
-                    sizes: np.ndarray) -> list[np.ndarray]:
-    """Per look and slot, the pmf of the arm's increment, sized as the two-arm table
-    kernel sizes it (each arm through its own design: the treatment is arm 0 there, the
-    control arm 1)."""
-    family = design.family
-    T = len(design.treatments)
-    pmfs = []
-    for k in range(increments.shape[0]):
-        for a in range(increments.shape[1]):
-            pair, j = (design.pairs[a], 0) if a < T else (design.pairs[0], 1)
-            m = int(increments[k, a])
-            size = min(family.lattice_size(pair, j, m), int(sizes[k, a]))
-            pmfs.append(family.increment_pmf(pair, truth[a], m, size))
-    return pmfs
-
-
 @dataclass(frozen=True)
 class FixedTask:
     """One scenario with fixed allocation (picklable for the workers)."""
@@ -219,58 +200,12 @@ class FixedTask:
                               self.replicates)
 
 
-BEST_MEMO_BITS = 18
-"""The fixed-allocation kernel memoises up to 0.7 x 2^18 Pr(best) vectors per scenario."""
-
-
-def best_memo(tables: MultiArmTables) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """An empty memo of Pr(best) for the kernel (keys, values, count); empty arrays
-    when no rule needs Pr(best) or when the keys could overflow 63 bits."""
-    T, K, X = tables.mean.shape
-    fits = K * float(X + 1) ** T < 2.0**62
-    size = 1 << BEST_MEMO_BITS if tables.needs_best and fits else 0
-    return (np.full(size, -1, np.int64), np.zeros((size, T)), np.zeros(1, np.int64))
-
-
 def fixed_sums(task: FixedTask) -> dict[str, np.ndarray]:
     """The tallies of one scenario with fixed allocation (the keys of
     :func:`octrial.multiarm.adaptive.batch_sums`; arms in design order)."""
-    design, tables, row = task.design, task.tables, task.row
-    T, K = tables.decision.shape[:2]
-    A = tables.increments.shape[1]
-    success = np.zeros(T, np.int64)
-    eff = np.zeros((T, K), np.int64)
-    fut = np.zeros((T, K), np.int64)
-    drop = np.zeros((T, K), np.int64)
-    n_slot = np.zeros(A, np.int64)
-    scalars = np.zeros(7)
-    end = np.zeros((2, K), np.int64)
-    share = np.zeros((K, A))
-    running = np.zeros(K, np.int64)
-    look_n = np.zeros((K, A), np.int64)
-    nulls = arm_nulls(design, row)
-    best = truly_best(design, row)
-    sign = 1 if design.hypothesis.better == "higher" else -1
-    # slot order: treatments, then the control (the two-arm kernel's arm order)
-    order = np.roll(np.arange(A), -1) if design.shared_control else np.arange(A)
-    truth = np.asarray(row, dtype=float)[order]
-    increments = np.ascontiguousarray(tables.increments[:, order])
-    sizes = np.ascontiguousarray(tables.sizes[:, order])
-    draws = DrawTables.from_pmfs(_increment_pmfs(design, truth, increments, sizes))
-    memo = best_memo(tables)
-    for b in range(-(-task.replicates // BATCH)):
-        reps = min(BATCH, task.replicates - b * BATCH)
-        rng = batch_generator(task.seed, task.index, b)
-        words = rng.bit_generator.random_raw(reps * K * A).reshape(reps, K, A)
-        simulate(words, truth, increments, sizes, tables.decision, tables.mean,
-                 tables.density, tables.worse, tables.support, tables.reach,
-                 tables.weights, tables.drop_below, tables.keep, tables.control, sign,
-                 nulls, best, success, eff, fut, drop, n_slot, scalars, end, share,
-                 running, look_n, *memo, *draws.arrays())
-    back = np.argsort(order)
-    return {"success": success, "efficacy": eff, "futility": fut, "drop": drop,
-            "n_arm": n_slot[back], "scalars": scalars, "end": end,
-            "share": share[:, back], "running": running, "look_n": look_n[:, back]}
+    design, row = task.design, task.row
+    return fixed_tallies(design, task.tables, row, task.replicates, task.seed, task.index,
+                         BATCH, arm_nulls(design, row), truly_best(design, row))
 
 
 def columns(design: MultiArmDesign, row: tuple[float, ...], sums: dict[str, np.ndarray],

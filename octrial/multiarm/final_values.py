@@ -18,11 +18,11 @@ successes of the simulation engine are recovered for any ``u``
 at the design's own threshold against :func:`octrial.multiarm.engine.simulate_design`
 count for count).
 
-The random streams are the engine's: fixed allocation draws the words of
-:func:`octrial.engines.monte_carlo.batch_generator` and replays the decision-table
-kernel's study (:mod:`octrial.multiarm.kernel`) up to the last look; adaptive allocation
-runs the same batches of :func:`octrial.allocation.simulate.simulate_batch` and
-computes the last look's probability with the same function the study loop decides by
+The studies are the engine's own: fixed allocation runs the decision-table kernel
+through :func:`octrial.multiarm.fixed_scenario.fixed_tallies` (the kernel records the
+values, :func:`octrial.multiarm.kernel.simulate`); adaptive allocation runs the batches
+of :func:`octrial.multiarm.adaptive.scenario_batches` and computes the last look's
+probability with the same function and memo the study loop decides by
 (:func:`octrial.allocation.decisions.arm_benefit`).
 """
 
@@ -33,27 +33,20 @@ import numpy as np
 
 from octrial.allocation.decisions import arm_benefit, padded_priors
 from octrial.allocation.decisions import nodes as decision_nodes
-from octrial.allocation.simulate import simulate_batch
-from octrial.engines.monte_carlo import batch_generator
 from octrial.multiarm.adaptive import (
-    _memo,
-    _memo_identity,
-    _tables,
     adaptive_study,
+    benefit_memo,
+    memo_identity,
+    scenario_batches,
 )
-from octrial.multiarm.engine import _increment_pmfs, best_memo
-from octrial.multiarm.kernel import EFFICACY, FUTILITY, best_memoised
+from octrial.multiarm.engine import BATCH, arm_nulls, truly_best
+from octrial.multiarm.fixed_scenario import fixed_tallies
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
 from octrial.rules.lattice import build_rule
 from octrial.rules.stop import DECISION_TOLERANCE
-from octrial.simulation.draws import DrawTables, draw
 
-__all__ = ["BATCH", "final_benefit_tables", "final_values", "refusal", "successes"]
-
-BATCH = 50_000
-"""Studies per batch, as :data:`octrial.multiarm.engine.BATCH` (the batches' seeds
-depend on it)."""
+__all__ = ["final_benefit_tables", "final_values", "refusal", "successes"]
 
 
 def refusal(design: MultiArmDesign) -> str | None:
@@ -119,119 +112,27 @@ def final_values(design: MultiArmDesign, row: tuple[float, ...], replicates: int
         return _adaptive_values(design, row, replicates, seed, scenario)
     tables = build_tables(design) if tables is None else tables
     benefit = final_benefit_tables(design) if benefit is None else benefit
-    return _fixed_values(design, tables, benefit, row, replicates, seed, scenario)
-
-
-def _fixed_values(design: MultiArmDesign, tables: MultiArmTables, benefit: np.ndarray,
-                  row: tuple[float, ...], replicates: int, seed: int,
-                  scenario: int) -> np.ndarray:
-    # the set-up of octrial.multiarm.engine.fixed_sums, so the words and draws are its own
-    T, K = tables.decision.shape[:2]
-    A = tables.increments.shape[1]
-    order = np.roll(np.arange(A), -1) if design.shared_control else np.arange(A)
-    truth = np.asarray(row, dtype=float)[order]
-    increments = np.ascontiguousarray(tables.increments[:, order])
-    sizes = np.ascontiguousarray(tables.sizes[:, order])
-    draws = DrawTables.from_pmfs(_increment_pmfs(design, truth, increments, sizes))
-    memo = best_memo(tables)
-    out = np.empty((replicates, T))
-    for b in range(-(-replicates // BATCH)):
-        reps = min(BATCH, replicates - b * BATCH)
-        rng = batch_generator(seed, scenario, b)
-        words = rng.bit_generator.random_raw(reps * K * A).reshape(reps, K, A)
-        fixed_studies(words, increments, sizes, tables.decision, benefit, tables.density,
-                      tables.worse, tables.support, tables.reach, tables.weights,
-                      tables.drop_below, tables.keep, tables.control,
-                      out[b * BATCH:b * BATCH + reps], *memo, *draws.arrays())
+    out = np.empty((replicates, len(design.treatments)))
+    # the engine's scenario, its tallies unused
+    fixed_tallies(design, tables, row, replicates, seed, scenario, BATCH,
+                  arm_nulls(design, row), truly_best(design, row), benefit, out)
     return out
-
-
-@numba.njit(cache=True)
-def fixed_studies(words, increments, sizes, decision, benefit, density, worse, support,
-                  reach, weights, drop_below, keep, control, out, memo_keys, memo_values,
-                  memo_held, bounds, t_start, t_length, guide, guide_start,
-                  shift):  # pragma: no cover - compiled
-    """The study of :func:`octrial.multiarm.kernel.simulate` (same words, draws,
-    interim decisions, dropping and selection), writing each arm's value (module
-    docstring) into ``out`` (studies, T) instead of adding up tallies."""
-    reps = words.shape[0]
-    K, A = increments.shape
-    T = decision.shape[0]
-    X = decision.shape[2]
-    needs_best = density.shape[0] > 0
-    x = np.zeros(A, np.int64)
-    active = np.zeros(T, np.bool_)
-    probs = np.zeros(T)
-    rows = np.zeros(T, np.int64)
-    for r in range(reps):
-        x[:] = 0
-        active[:] = True
-        for t in range(T):
-            out[r, t] = -np.inf
-        for k in range(K):
-            for a in range(A):
-                y = draw(words[r, k, a], k * A + a, bounds, t_start, t_length, guide,
-                         guide_start, shift)
-                if a < T and not active[a]:
-                    continue
-                x[a] += y
-                if x[a] >= sizes[k, a]:
-                    x[a] = sizes[k, a] - 1
-            c = x[T] if control else 0
-            left = 0
-            for t in range(T):
-                if not active[t]:
-                    continue
-                if k == K - 1:
-                    active[t] = False
-                    out[r, t] = benefit[t, x[t], c]
-                    continue
-                code = decision[t, k, x[t], c]
-                if code == EFFICACY:
-                    active[t] = False
-                    out[r, t] = np.inf
-                elif code == FUTILITY:
-                    active[t] = False
-                else:
-                    left += 1
-            if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
-                best_memoised(density, worse, support, reach, weights, K, X, k, x, active,
-                              rows, memo_keys, memo_values, memo_held, probs)
-                if drop_below[k] >= 0:
-                    for t in range(T):
-                        if active[t] and probs[t] < drop_below[k]:
-                            active[t] = False
-                            left -= 1
-                while keep > 0 and left > keep:
-                    worst = -1
-                    for t in range(T):
-                        if active[t] and (worst < 0 or probs[t] <= probs[worst]):
-                            worst = t
-                    active[worst] = False
-                    left -= 1
-            if left == 0:
-                break
 
 
 def _adaptive_values(design: MultiArmDesign, row: tuple[float, ...], replicates: int,
                      seed: int, scenario: int) -> np.ndarray:
-    # the batches of octrial.multiarm.adaptive.scenario_sums (same tables and memo)
     study = adaptive_study(design)
     rates = np.asarray(row, float)
-    study.check(rates.size)
     priors = study.arm_priors
     assert priors is not None and study.arm_rule is not None
-    table = _tables(tuple(priors), int(study.looks[-2]) if len(study.looks) > 1 else 0,
-                    study.higher)
-    memo = _memo(_memo_identity(study))
     rule = study.arm_rule
     prior_w, prior_a, prior_b = padded_priors(list(priors))
     first = 1 if study.control else 0
     last = len(study.looks) - 1
+    # the memo the study loop decides by (scenario_batches shares it)
+    memo = benefit_memo(memo_identity(study))
     parts = []
-    for b, start in enumerate(range(0, replicates, BATCH)):
-        batch = simulate_batch(study, rates, min(BATCH, replicates - start), seed,
-                               scenario, b, table, memo)
+    for batch in scenario_batches(study, rates, replicates, seed, scenario, BATCH):
         values = np.where(batch.outcome[:, first:] == 1, np.inf, -np.inf)
         reached = (batch.dropped[:, first:] == last) & (batch.outcome[:, first:] != 0)
         values[reached] = -np.inf  # filled below

@@ -28,8 +28,8 @@ TALLY_FIELDS = ("success", "efficacy", "futility", "dropped", "n_arm", "n_total"
 def simulate(words, truth, increments, sizes, decision, mean, density, worse, support,
              reach, weights, drop_below, keep, control, sign, is_null, is_best, out_success,
              out_eff, out_fut, out_drop, out_n, out_scalars, out_end, out_share,
-             out_running, out_look_n, memo_keys, memo_values, memo_held, bounds,
-             t_start, t_length, guide, guide_start, shift):
+             out_running, out_look_n, final_benefit, out_final, memo_keys, memo_values,
+             memo_held, bounds, t_start, t_length, guide, guide_start, shift):
     """Simulate ``len(words)`` studies at true rates ``truth``.
 
     Arms are in slot order: the treatment arms, then the control (when there is one),
@@ -49,7 +49,11 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
     arm a's share of block k (its planned subjects over those of every arm enrolling
     the block) over the ``out_running[k]`` studies that enrol block k, and
     ``out_look_n[k, a]`` the arm's cumulative subjects at look k (carried forward after
-    the study ends). Pr(best) reads rows ``(t K + k) X + x`` of ``density``, ``worse``
+    the study ends). When ``out_final`` (studies, T) has rows, each study's row gets,
+    per treatment arm, ``+inf`` (success at an interim look), ``-inf`` (left before
+    the last look without one) or ``final_benefit[t, x, c]`` at its last-look counts
+    (:mod:`octrial.multiarm.final_values`); an empty ``out_final`` records nothing.
+    Pr(best) reads rows ``(t K + k) X + x`` of ``density``, ``worse``
     (:mod:`octrial.numerics.beta_best`); its values are memoised by the look, the arms
     still in and their counts in the hash table ``memo_keys`` / ``memo_values`` (empty:
     no memo), which only saves work.
@@ -59,6 +63,7 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
     T = decision.shape[0]
     X = mean.shape[2]
     needs_best = density.shape[0] > 0
+    record = out_final.shape[0] > 0
     x = np.zeros(A, np.int64)
     n_arm = np.zeros(A, np.int64)
     active = np.zeros(T, np.bool_)
@@ -73,6 +78,9 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
         success[:] = False
         n_total = 0
         end = K - 1
+        if record:
+            for t in range(T):
+                out_final[r, t] = -np.inf
         for k in range(K):
             block = 0
             for a in range(A):
@@ -103,6 +111,11 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
                 if not active[t]:
                     continue
                 code = decision[t, k, x[t], c]
+                if record:
+                    if k == K - 1:
+                        out_final[r, t] = final_benefit[t, x[t], c]
+                    elif code == EFFICACY:
+                        out_final[r, t] = np.inf
                 if code == EFFICACY:
                     active[t] = False
                     success[t] = True
@@ -162,7 +175,6 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
             if is_best[chosen]:
                 out_scalars[5] += 1
             out_scalars[6] += estimate[chosen] - truth[chosen]
-
 
 
 @numba.njit(cache=True)

@@ -36,7 +36,8 @@ from scipy import stats
 from octrial.design.model import Source
 from octrial.engines.monte_carlo import batch_generator
 from octrial.multiarm import parse_multiarm
-from octrial.multiarm.engine import best_memo, simulate_design
+from octrial.multiarm.engine import simulate_design
+from octrial.multiarm.fixed_scenario import best_memo
 from octrial.multiarm.kernel import simulate
 from octrial.multiarm.tables import EFFICACY, FUTILITY, build_tables
 from octrial.simulation.draws import DrawTables
@@ -110,7 +111,8 @@ def kernel_run(d, tables, reps):
     outs = (np.zeros(T, np.int64), np.zeros((T, K), np.int64), np.zeros((T, K), np.int64),
             np.zeros((T, K), np.int64), np.zeros(4, np.int64), np.zeros(7),
             np.zeros((2, K), np.int64), np.zeros((K, 4)), np.zeros(K, np.int64),
-            np.zeros((K, 4), np.int64), *best_memo(tables))
+            np.zeros((K, 4), np.int64), np.empty((0, 0, 0)), np.empty((0, T)),
+            *best_memo(tables))
     nulls = np.zeros(T, np.bool_)
     best = np.array([False, False, True])
     batch = 50_000
