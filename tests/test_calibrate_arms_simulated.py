@@ -41,7 +41,7 @@ from octrial.multiarm.load import load_multiarm
 from octrial.rules.lattice import build_rule
 from tests.test_arms_exact import THREE_DOSES, multiarm
 
-DEMO = "designs/several-arms/dose-ranging.toml"
+DEMO = "designs/dose-ranging.toml"
 SEEDED = THREE_DOSES.replace("[scenarios]", "[simulation]\nseed = 16\n[scenarios]")
 SMALL = SEEDED.replace("n = [24, 48, 72]", "n = [12, 24, 36]")
 COUPLED = SMALL.replace("futility = 0.1", "futility = 0.1\ndrop_if_best_below = 0.1").replace(

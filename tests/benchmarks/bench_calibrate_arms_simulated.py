@@ -7,7 +7,7 @@ Run:  PYTHONPATH=. python tests/benchmarks/bench_calibrate_arms_simulated.py
 Both use the same seed and the same candidates (the recorded final probabilities), so
 they must choose the same threshold with the same error (checked before the ratio is
 printed): the naive search's errors come from octrial.multiarm.engine.simulate_design's
-own tallies. Cases: the adaptive demo (designs/several-arms/dose-ranging.toml) and a
+own tallies. Cases: the adaptive demo (designs/dose-ranging.toml) and a
 fixed-allocation design with Pr(best) dropping and selection, 3 null points each.
 """
 
