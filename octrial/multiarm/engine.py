@@ -156,7 +156,7 @@ def simulate_scenarios(design: MultiArmDesign, replicates: int | None = None,
             design, tuple(map(float, row)), tuple(map(bool, arm_nulls(design, row))),
             tuple(map(bool, truly_best(design, row))), replicates, seed, i, BATCH)
             for i, row in enumerate(rows)]
-        results, _ = run_grid(family_loop.family_sums, family_tasks, execution, store)
+        results, resumed = run_grid(family_loop.family_sums, family_tasks, execution, store)
     elif adaptive:
         study = adaptive_study(design, planned_blocks)
         adaptive_tasks = [
