@@ -1,0 +1,344 @@
+"""Event-driven time-to-event studies simulated event by event (numba), exactly.
+
+With one constant hazard per arm (lambda_a, in time since enrolment), exponential dropout
+(hazard mu, or none) and enrolment at deterministic times (even or fixed arrivals) or as
+a Poisson process with piecewise-constant rates, the study's state (subjects at risk per
+arm R_a, subjects enrolled) is a Markov jump process in calendar time: every subject at
+risk leaves at rate lambda_a + mu whatever its time on study (memorylessness), so between
+transitions the total rate is H = sum_a (lambda_a + mu) R_a (+ the Poisson enrolment
+rate while enrolment is open), and the next transition is of each kind with probability
+its rate over H (the direct method; Gillespie 1977). Deterministic entries, Poisson rate
+changes and calendar-time looks change H at known times, so the time to the next
+transition is found by a time change: one unit exponential budget E is consumed by the
+integral of H over the piecewise-constant segments until it runs out (Ross, *Simulation*,
+5th ed., 2013, section 5.5, recalled from memory); a deterministic entry costs no random
+number. Each arm's exposure grows by R_a x (segment length); a look at D_k events happens
+at the D_k-th event, with the exposure accumulated by then (administrative censoring is
+automatic). When no event can happen any more (everyone enrolled and followed to the end)
+before D_k events, the look is at the last transition and it is the final analysis, as in
+the subject-level kernel. Per look the statistics, the decision (the same functions of
+:mod:`octrial.simulation.event_driven_decisions`) and the calendar record are those of
+:func:`octrial.simulation.event_driven.patient_level_studies`, so the same tallies come
+out, equal in distribution (not study by study: the random numbers differ).
+
+Random numbers: per batch, four words from the batch's generator seed an inline
+xoshiro256** generator (Blackman & Vigna 2021; each word passed through splitmix64 as
+its authors recommend), which draws, per transition, one uniform for the time (E = -log U,
+U in (0, 1]) and one for the kind of transition (53-bit doubles). The predictive
+probability of two arms with mixture priors still draws from the batch's numpy generator.
+Both depend on the seed and the batch only, so ``--jobs`` and the backend change nothing.
+
+Used for every design with one hazard period (:func:`qualifies`); designs with hazard
+periods keep the subject-level kernel (:mod:`octrial.simulation.event_driven`).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numba
+import numpy as np
+
+from octrial.conduct.arrivals import fill_enrolment_times
+from octrial.rules.stop import (
+    CONTINUE,
+    DECISION_TOLERANCE,
+    EFFICACY,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
+from octrial.simulation.base import Tally
+from octrial.simulation.calendar import calendar_size, record_study
+from octrial.simulation.event_driven import (
+    ARRIVALS,
+    TRIGGERS,
+    EventDrivenSetup,
+    PatientLevelSimulator,
+    setup_of_design,
+)
+from octrial.simulation.event_driven_decisions import (
+    benefit_at,
+    log_hazard_ratio_score,
+    normal_benefit,
+    normal_predictive,
+    one_arm_predictive,
+    two_arm_predictive,
+)
+
+UNIT = 1.0 / 9007199254740992.0  # 2^-53: the spacing of 53-bit uniforms
+
+
+def qualifies(setup: EventDrivenSetup) -> bool:
+    """Whether the event-level simulator is exact for ``setup``: one hazard period (the
+    hazards constant in time since enrolment; then the analysis has one piece too).
+    Dropout is exponential or absent and every accrual of
+    :class:`octrial.conduct.model.Accrual` works (module docstring)."""
+    return len(setup.hazard_starts) == 1 and len(setup.analysis_starts) == 1
+
+
+@numba.njit(cache=True, inline="always")
+def splitmix64(x: np.uint64) -> np.uint64:
+    """One output of splitmix64 from state ``x`` (Steele, Lea & Flood 2014), to spread a
+    seed word over the xoshiro state."""
+    z = x + np.uint64(0x9E3779B97F4A7C15)
+    z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    return z ^ (z >> np.uint64(31))
+
+
+@numba.njit(cache=True, inline="always")
+def _rotl(x: np.uint64, k: int) -> np.uint64:
+    return (x << np.uint64(k)) | (x >> np.uint64(64 - k))
+
+
+@numba.njit(cache=True, inline="always")
+def next_word(s: np.ndarray) -> np.uint64:
+    """The next 64-bit output of xoshiro256** with state ``s`` (4 words, updated)."""
+    result = _rotl(s[1] * np.uint64(5), 7) * np.uint64(9)
+    t = s[1] << np.uint64(17)
+    s[2] ^= s[0]
+    s[3] ^= s[1]
+    s[1] ^= s[2]
+    s[0] ^= s[3]
+    s[2] ^= t
+    s[3] = _rotl(s[3], 45)
+    return result
+
+
+@numba.njit(cache=True, inline="always")
+def uniform(s: np.ndarray) -> float:
+    """A uniform double in [0, 1) from the top 53 bits of the next word."""
+    return float(next_word(s) >> np.uint64(11)) * UNIT
+
+
+@numba.njit(cache=True, inline="always")
+def open_uniform(s: np.ndarray) -> float:
+    """A uniform double in (0, 1] (so its logarithm is finite)."""
+    return (float(next_word(s) >> np.uint64(11)) + 1.0) * UNIT
+
+
+def seeded_state(rng: np.random.Generator) -> np.ndarray:
+    """The xoshiro256** state of a batch: four words of the batch's generator, each
+    through splitmix64 (never all zero: splitmix64 is a bijection of 0 to a non-zero
+    word, and four zeros from it would need four equal inputs)."""
+    words = rng.integers(0, np.iinfo(np.uint64).max, size=4, dtype=np.uint64,
+                         endpoint=True)
+    return np.array([splitmix64(w) for w in words], dtype=np.uint64)
+
+
+@numba.njit(cache=True)
+def _look(k: int, final: bool, tau: float, entered: int, d0: float, d1: float, x0: float,
+          x1: float, rng: Any, arms: int, looks: int, targets: np.ndarray, log_w: np.ndarray,
+          a: np.ndarray, b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray,
+          futility: np.ndarray, tol: float, edges: np.ndarray, counts: np.ndarray,
+          stop_efficacy: np.ndarray, stop_futility: np.ndarray, calendar: np.ndarray,
+          predictive: np.ndarray, bound: float, quantiles: np.ndarray, draws: int,
+          normal_w: np.ndarray, normal_m: np.ndarray, normal_p: np.ndarray,
+          normal: np.ndarray, shape: np.ndarray, events: np.ndarray, exposure: np.ndarray,
+          d: np.ndarray, e: np.ndarray) -> bool:
+    """Look ``k`` at calendar time ``tau``: the decision and the record of
+    :func:`octrial.simulation.event_driven.patient_level_studies`; whether the study
+    stops."""
+    d[0] = events[0, 0] = d0
+    e[0] = exposure[0, 0] = x0
+    if arms == 2:
+        d[1] = events[1, 0] = d1
+        e[1] = exposure[1, 0] = x1
+    score = 0.0
+    information = 0.0
+    if normal_w.size > 0:
+        score, information = log_hazard_ratio_score(events, exposure, shape, normal[0],
+                                                    normal[2])
+        benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
+                                 normal[1])
+    else:
+        benefit = benefit_at(d, e, log_w, a, b, claim, lower)
+    threshold = efficacy[looks - 1] if final else efficacy[k]
+    code = look_decision_at(threshold, futility[k], final, benefit, tol)
+    if code == CONTINUE and wants_predictive_at(predictive[k], final):
+        if normal_w.size > 0:
+            pp = normal_predictive(score, information, normal[3], normal[4], normal_w,
+                                   normal_m, normal_p)
+        elif arms == 1:
+            pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b, bound,
+                                    lower)
+        else:
+            pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b, claim,
+                                    lower, efficacy[looks - 1] - tol, quantiles, draws)
+        code = predictive_decision_at(predictive[k], pp, tol)
+    record_study(calendar, edges, k, tau, entered, d0 + d1, code != CONTINUE, counts)
+    if code == EFFICACY:
+        stop_efficacy[k] += 1
+    elif code != CONTINUE:
+        stop_futility[k] += 1
+    return code != CONTINUE or final
+
+
+@numba.njit(cache=True)
+def jump_studies(
+    rng: Any, state: np.ndarray, studies: int, m: int, kind: int, rates: np.ndarray,
+    starts: np.ndarray, entry: np.ndarray, pattern: np.ndarray, hazards: np.ndarray,
+    dropout: float, trigger: int, targets: np.ndarray, log_w: np.ndarray, a: np.ndarray,
+    b: np.ndarray, claim: float, lower: bool, efficacy: np.ndarray, futility: np.ndarray,
+    tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
+    stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray, bound: float,
+    quantiles: np.ndarray, draws: int, normal_w: np.ndarray, normal_m: np.ndarray,
+    normal_p: np.ndarray, normal: np.ndarray, shape: np.ndarray,
+) -> None:
+    """Simulate ``studies`` studies transition by transition (module docstring), adding
+    their stops and calendar totals; the arguments are those of
+    :func:`octrial.simulation.event_driven.patient_level_studies` (one piece), with
+    ``state`` the xoshiro256** state and ``entry`` the enrolment times of deterministic
+    accrual (``kind`` 1 or 2)."""
+    looks = targets.size
+    arms = hazards.size
+    lam0 = hazards[0]
+    lam1 = hazards[1] if arms == 2 else 0.0
+    out0 = lam0 + dropout  # rate at which one subject at risk in arm 0 leaves
+    out1 = lam1 + dropout
+    events = np.zeros((arms, 1))
+    exposure = np.zeros((arms, 1))
+    d = np.zeros(arms)
+    e = np.zeros(arms)
+    blocks = pattern.size
+    periods = rates.size
+    for _ in range(studies):
+        t = 0.0
+        r0 = 0.0  # subjects at risk per arm (floats: they multiply rates and times)
+        r1 = 0.0
+        x0 = 0.0  # exposure per arm
+        x1 = 0.0
+        d0 = 0.0  # events per arm
+        d1 = 0.0
+        n = 0  # subjects enrolled
+        place = 0  # position in the allocation block
+        p = 0  # Poisson accrual period
+        k = 0  # next look
+        budget = -math.log(open_uniform(state))
+        while True:
+            arrival = rates[p] if kind == 0 and n < m else 0.0
+            h0 = out0 * r0
+            h1 = out1 * r1
+            total = h0 + h1 + arrival
+            # the next time the rates change by plan: an entry, a new accrual period or
+            # a calendar look (entries at the look's time first: enrolled by tau count)
+            at = math.inf
+            what = 0
+            if n < m:
+                if kind != 0:
+                    at = entry[n]
+                    what = 1
+                elif p + 1 < periods:
+                    at = starts[p + 1]
+                    what = 2
+            if trigger == 1 and targets[k] < at:
+                at = targets[k]
+                what = 3
+            if total > 0.0 and budget < total * (at - t):
+                dt = budget / total
+                t += dt
+                x0 += r0 * dt
+                x1 += r1 * dt
+                u = uniform(state) * total
+                budget = -math.log(open_uniform(state))
+                if u < h0 + h1:
+                    # in each arm's share: the event first (rate lambda_a R_a), then the
+                    # loss (rate mu R_a)
+                    if u < h0:
+                        seen = u < lam0 * r0
+                        r0 -= 1.0
+                        d0 += seen
+                    else:
+                        seen = u - h0 < lam1 * r1
+                        r1 -= 1.0
+                        d1 += seen
+                    if not seen:
+                        continue
+                    if trigger == 0 and d0 + d1 == targets[k]:
+                        if _look(k, k == looks - 1, t, n, d0, d1, x0, x1, rng, arms,
+                                 looks, targets, log_w, a, b, claim, lower, efficacy,
+                                 futility, tol, edges, counts, stop_efficacy,
+                                 stop_futility, calendar, predictive, bound, quantiles,
+                                 draws, normal_w, normal_m, normal_p, normal, shape,
+                                 events, exposure, d, e):
+                            break
+                        k += 1
+                    continue
+                what = 1  # a Poisson arrival enters like a planned one
+            elif at == math.inf:
+                # nothing can happen any more: the look at the last transition, final
+                _look(k, True, t, n, d0, d1, x0, x1, rng, arms, looks, targets, log_w, a,
+                      b, claim, lower, efficacy, futility, tol, edges, counts,
+                      stop_efficacy, stop_futility, calendar, predictive, bound,
+                      quantiles, draws, normal_w, normal_m, normal_p, normal, shape,
+                      events, exposure, d, e)
+                break
+            else:
+                dt = at - t
+                budget -= total * dt
+                x0 += r0 * dt
+                x1 += r1 * dt
+                t = at
+            if what == 1:
+                if pattern[place] == 0:
+                    r0 += 1.0
+                else:
+                    r1 += 1.0
+                place = place + 1 if place + 1 < blocks else 0
+                n += 1
+            elif what == 2:
+                p += 1
+            elif what == 3:
+                if _look(k, k == looks - 1, t, n, d0, d1, x0, x1, rng, arms, looks,
+                         targets, log_w, a, b, claim, lower, efficacy, futility, tol,
+                         edges, counts, stop_efficacy, stop_futility, calendar,
+                         predictive, bound, quantiles, draws, normal_w, normal_m,
+                         normal_p, normal, shape, events, exposure, d, e):
+                    break
+                k += 1
+
+
+class EventJumpSimulator(PatientLevelSimulator):
+    """Studies of one :class:`~octrial.simulation.event_driven.EventDrivenSetup` with one
+    hazard period, simulated event by event (module docstring); the posterior and
+    predictive set-up is the subject-level simulator's."""
+
+    kernel = "event-jump"
+
+    def __init__(self, setup: EventDrivenSetup) -> None:
+        if not qualifies(setup):
+            raise ValueError("event-level simulation: expected one hazard period, got "
+                             f"hazard_starts {setup.hazard_starts}")
+        super().__init__(setup)
+        self.entry = np.zeros(max(setup.max_enrolment, 1))
+        if self.kind != ARRIVALS["poisson"]:
+            fill_enrolment_times(np.empty(0), self.kind, self.rates, self.starts,
+                                 self.times, self.entry)
+
+    def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
+        efficacy = np.zeros(self.looks, dtype=np.int64)
+        futility = np.zeros(self.looks, dtype=np.int64)
+        calendar = np.zeros(calendar_size(self.looks))
+        s = self.setup
+        state = seeded_state(rng)
+        jump_studies(
+            rng, state, replicates, s.max_enrolment, self.kind, self.rates, self.starts,
+            self.entry, self.pattern, np.ascontiguousarray(self.hazards[:, 0]),
+            s.dropout_hazard, TRIGGERS[s.trigger], self.targets, self.log_w, self.a,
+            self.b, s.claim, s.lower_better, self.efficacy, self.futility,
+            DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility, calendar,
+            self.predictive, self.bound, self.quantiles, s.predictive_draws,
+            *self.normal)
+        return Tally(replicates, efficacy, futility, calendar=calendar)
+
+
+def event_driven_simulator(design: Any, truth: tuple[float, ...],
+                           level: float) -> PatientLevelSimulator:
+    """The simulator of an event-driven design at true hazards ``truth``: event by event
+    when :func:`qualifies` (exact and faster), else subject by subject."""
+    setup = setup_of_design(design, truth)
+    if qualifies(setup):
+        return EventJumpSimulator(setup)
+    return PatientLevelSimulator(setup)
