@@ -94,29 +94,32 @@ def _rotl(x: np.uint64, k: int) -> np.uint64:
 
 
 @numba.njit(cache=True, inline="always")
-def next_word(s: np.ndarray) -> np.uint64:
-    """The next 64-bit output of xoshiro256** with state ``s`` (4 words, updated)."""
-    result = _rotl(s[1] * np.uint64(5), 7) * np.uint64(9)
-    t = s[1] << np.uint64(17)
-    s[2] ^= s[0]
-    s[3] ^= s[1]
-    s[1] ^= s[2]
-    s[0] ^= s[3]
-    s[2] ^= t
-    s[3] = _rotl(s[3], 45)
-    return result
+def xoshiro(s0: np.uint64, s1: np.uint64, s2: np.uint64,
+            s3: np.uint64) -> tuple[np.uint64, np.uint64, np.uint64, np.uint64, np.uint64]:
+    """The next 64-bit output of xoshiro256** and its new state (Blackman & Vigna 2021).
+    The state is four scalars, not an array: the kernel keeps them in registers (an
+    array's words went through memory at every draw, which was most of the time)."""
+    result = _rotl(s1 * np.uint64(5), 7) * np.uint64(9)
+    t = s1 << np.uint64(17)
+    s2 ^= s0
+    s3 ^= s1
+    s1 ^= s2
+    s0 ^= s3
+    s2 ^= t
+    s3 = _rotl(s3, 45)
+    return result, s0, s1, s2, s3
 
 
 @numba.njit(cache=True, inline="always")
-def uniform(s: np.ndarray) -> float:
-    """A uniform double in [0, 1) from the top 53 bits of the next word."""
-    return float(next_word(s) >> np.uint64(11)) * UNIT
+def to_uniform(word: np.uint64) -> float:
+    """A uniform double in [0, 1) from the top 53 bits of ``word``."""
+    return float(word >> np.uint64(11)) * UNIT
 
 
 @numba.njit(cache=True, inline="always")
-def open_uniform(s: np.ndarray) -> float:
-    """A uniform double in (0, 1] (so its logarithm is finite)."""
-    return (float(next_word(s) >> np.uint64(11)) + 1.0) * UNIT
+def to_open_uniform(word: np.uint64) -> float:
+    """A uniform double in (0, 1] (so its logarithm is finite) from ``word``."""
+    return (float(word >> np.uint64(11)) + 1.0) * UNIT
 
 
 def seeded_state(rng: np.random.Generator) -> np.ndarray:
@@ -204,6 +207,7 @@ def jump_studies(
     e = np.zeros(arms)
     blocks = pattern.size
     periods = rates.size
+    s0, s1, s2, s3 = state[0], state[1], state[2], state[3]
     for _ in range(studies):
         t = 0.0
         r0 = 0.0  # subjects at risk per arm (floats: they multiply rates and times)
@@ -214,90 +218,93 @@ def jump_studies(
         d1 = 0.0
         n = 0  # subjects enrolled
         place = 0  # position in the allocation block
-        p = 0  # Poisson accrual period
         k = 0  # next look
-        budget = -math.log(open_uniform(state))
+        # Poisson arrivals are drawn one ahead (independent of everything else), so
+        # that they are planned changes of the rates like deterministic entries: the
+        # cumulative enrolment rate reached, its period and the period's start value
+        cumulative = 0.0
+        p = 0
+        at_start = 0.0
+        arrive = entry[0]
+        if kind == 0:
+            w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
+            cumulative = -math.log(to_open_uniform(w))
+            while p + 1 < periods and cumulative > at_start + rates[p] * (
+                    starts[p + 1] - starts[p]):
+                at_start += rates[p] * (starts[p + 1] - starts[p])
+                p += 1
+            arrive = starts[p] + (cumulative - at_start) / rates[p]
+        w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
+        budget = -math.log(to_open_uniform(w))
         while True:
-            arrival = rates[p] if kind == 0 and n < m else 0.0
             h0 = out0 * r0
             h1 = out1 * r1
-            total = h0 + h1 + arrival
-            # the next time the rates change by plan: an entry, a new accrual period or
-            # a calendar look (entries at the look's time first: enrolled by tau count)
-            at = math.inf
-            what = 0
-            if n < m:
-                if kind != 0:
-                    at = entry[n]
-                    what = 1
-                elif p + 1 < periods:
-                    at = starts[p + 1]
-                    what = 2
-            if trigger == 1 and targets[k] < at:
+            total = h0 + h1
+            # the next planned change of the rates: an entry or a calendar look (entries
+            # at the look's time first: subjects enrolled by tau count)
+            at = arrive if n < m else math.inf
+            look = trigger == 1 and targets[k] < at
+            if look:
                 at = targets[k]
-                what = 3
-            if total > 0.0 and budget < total * (at - t):
+            if budget < total * (at - t):
                 dt = budget / total
                 t += dt
                 x0 += r0 * dt
                 x1 += r1 * dt
-                u = uniform(state) * total
-                budget = -math.log(open_uniform(state))
-                if u < h0 + h1:
-                    # in each arm's share: the event first (rate lambda_a R_a), then the
-                    # loss (rate mu R_a)
-                    if u < h0:
-                        seen = u < lam0 * r0
-                        r0 -= 1.0
-                        d0 += seen
-                    else:
-                        seen = u - h0 < lam1 * r1
-                        r1 -= 1.0
-                        d1 += seen
-                    if not seen:
-                        continue
-                    if trigger == 0 and d0 + d1 == targets[k]:
-                        if _look(k, k == looks - 1, t, n, d0, d1, x0, x1, rng, arms,
-                                 looks, targets, log_w, a, b, claim, lower, efficacy,
-                                 futility, tol, edges, counts, stop_efficacy,
-                                 stop_futility, calendar, predictive, bound, quantiles,
-                                 draws, normal_w, normal_m, normal_p, normal, shape,
-                                 events, exposure, d, e):
-                            break
-                        k += 1
+                w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
+                u = to_uniform(w) * total
+                w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
+                budget = -math.log(to_open_uniform(w))
+                # arm 0's share of u first, its events (rate lambda_0 R_0) then its losses;
+                # then arm 1's. Arithmetic rather than branches: which arm and whether an
+                # event are coin tosses the processor cannot predict
+                first = 1.0 * (u < h0)
+                seen = first * (u < lam0 * r0) + (1.0 - first) * (u - h0 < lam1 * r1)
+                r0 -= first
+                r1 -= 1.0 - first
+                d0 += first * seen
+                d1 += (1.0 - first) * seen
+                if d0 + d1 != targets[k] or trigger != 0:
                     continue
-                what = 1  # a Poisson arrival enters like a planned one
+                final = k == looks - 1
             elif at == math.inf:
                 # nothing can happen any more: the look at the last transition, final
-                _look(k, True, t, n, d0, d1, x0, x1, rng, arms, looks, targets, log_w, a,
-                      b, claim, lower, efficacy, futility, tol, edges, counts,
-                      stop_efficacy, stop_futility, calendar, predictive, bound,
-                      quantiles, draws, normal_w, normal_m, normal_p, normal, shape,
-                      events, exposure, d, e)
-                break
+                final = True
             else:
                 dt = at - t
                 budget -= total * dt
                 x0 += r0 * dt
                 x1 += r1 * dt
                 t = at
-            if what == 1:
-                if pattern[place] == 0:
-                    r0 += 1.0
-                else:
-                    r1 += 1.0
-                place = place + 1 if place + 1 < blocks else 0
-                n += 1
-            elif what == 2:
-                p += 1
-            elif what == 3:
-                if _look(k, k == looks - 1, t, n, d0, d1, x0, x1, rng, arms, looks,
-                         targets, log_w, a, b, claim, lower, efficacy, futility, tol,
-                         edges, counts, stop_efficacy, stop_futility, calendar,
-                         predictive, bound, quantiles, draws, normal_w, normal_m,
-                         normal_p, normal, shape, events, exposure, d, e):
-                    break
-                k += 1
+                if not look:
+                    if pattern[place] == 0:
+                        r0 += 1.0
+                    else:
+                        r1 += 1.0
+                    place = place + 1 if place + 1 < blocks else 0
+                    n += 1
+                    if n < m:
+                        if kind != 0:
+                            arrive = entry[n]
+                        else:
+                            w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
+                            cumulative -= math.log(to_open_uniform(w))
+                            while p + 1 < periods and cumulative > at_start + rates[p] * (
+                                    starts[p + 1] - starts[p]):
+                                at_start += rates[p] * (starts[p + 1] - starts[p])
+                                p += 1
+                            arrive = starts[p] + (cumulative - at_start) / rates[p]
+                    continue
+                final = k == looks - 1
+            # one call site for the looks keeps the loop small
+            if _look(k, final, t, n, d0, d1, x0, x1, rng, arms, looks, targets, log_w, a,
+                     b, claim, lower, efficacy, futility, tol, edges, counts,
+                     stop_efficacy, stop_futility, calendar, predictive, bound, quantiles,
+                     draws, normal_w, normal_m, normal_p, normal, shape, events, exposure,
+                     d, e):
+                break
+            k += 1
+    state[0], state[1], state[2], state[3] = s0, s1, s2, s3
 
 
 class EventJumpSimulator(PatientLevelSimulator):
