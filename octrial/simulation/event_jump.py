@@ -140,10 +140,18 @@ def _look(k: int, final: bool, tau: float, entered: int, d0: float, d1: float, x
           predictive: np.ndarray, bound: float, quantiles: np.ndarray, draws: int,
           normal_w: np.ndarray, normal_m: np.ndarray, normal_p: np.ndarray,
           normal: np.ndarray, shape: np.ndarray, events: np.ndarray, exposure: np.ndarray,
-          d: np.ndarray, e: np.ndarray) -> bool:
+          d: np.ndarray, e: np.ndarray, trace: np.ndarray) -> bool:
     """Look ``k`` at calendar time ``tau``: the decision and the record of
     :func:`octrial.simulation.event_driven.patient_level_studies`; whether the study
-    stops."""
+    stops. A non-empty ``trace`` (one row of :meth:`EventJumpSimulator.looks_of`) gets
+    the look's time, subjects enrolled, events and exposure per arm."""
+    if trace.size > 0:
+        trace[k, 0] = tau
+        trace[k, 1] = entered
+        trace[k, 2] = d0
+        trace[k, 3] = d1
+        trace[k, 4] = x0
+        trace[k, 5] = x1
     d[0] = events[0, 0] = d0
     e[0] = exposure[0, 0] = x0
     if arms == 2:
@@ -188,13 +196,14 @@ def jump_studies(
     tol: float, edges: np.ndarray, counts: np.ndarray, stop_efficacy: np.ndarray,
     stop_futility: np.ndarray, calendar: np.ndarray, predictive: np.ndarray, bound: float,
     quantiles: np.ndarray, draws: int, normal_w: np.ndarray, normal_m: np.ndarray,
-    normal_p: np.ndarray, normal: np.ndarray, shape: np.ndarray,
+    normal_p: np.ndarray, normal: np.ndarray, shape: np.ndarray, trace: np.ndarray,
 ) -> None:
     """Simulate ``studies`` studies transition by transition (module docstring), adding
     their stops and calendar totals; the arguments are those of
     :func:`octrial.simulation.event_driven.patient_level_studies` (one piece), with
     ``state`` the xoshiro256** state and ``entry`` the enrolment times of deterministic
-    accrual (``kind`` 1 or 2)."""
+    accrual (``kind`` 1 or 2); a non-empty ``trace`` (studies x looks x 6) gets each
+    look's numbers (:func:`_look`)."""
     looks = targets.size
     arms = hazards.size
     lam0 = hazards[0]
@@ -208,7 +217,9 @@ def jump_studies(
     blocks = pattern.size
     periods = rates.size
     s0, s1, s2, s3 = state[0], state[1], state[2], state[3]
-    for _ in range(studies):
+    inverse = 1.0 / rates  # a multiplication per Poisson arrival rather than a division
+    for study in range(studies):
+        row = trace[study] if trace.shape[0] > 0 else trace[0:0, 0]
         t = 0.0
         r0 = 0.0  # subjects at risk per arm (floats: they multiply rates and times)
         r1 = 0.0
@@ -233,7 +244,7 @@ def jump_studies(
                     starts[p + 1] - starts[p]):
                 at_start += rates[p] * (starts[p + 1] - starts[p])
                 p += 1
-            arrive = starts[p] + (cumulative - at_start) / rates[p]
+            arrive = starts[p] + (cumulative - at_start) * inverse[p]
         w, s0, s1, s2, s3 = xoshiro(s0, s1, s2, s3)
         budget = -math.log(to_open_uniform(w))
         while True:
@@ -293,7 +304,7 @@ def jump_studies(
                                     starts[p + 1] - starts[p]):
                                 at_start += rates[p] * (starts[p + 1] - starts[p])
                                 p += 1
-                            arrive = starts[p] + (cumulative - at_start) / rates[p]
+                            arrive = starts[p] + (cumulative - at_start) * inverse[p]
                     continue
                 final = k == looks - 1
             # one call site for the looks keeps the loop small
@@ -301,7 +312,7 @@ def jump_studies(
                      b, claim, lower, efficacy, futility, tol, edges, counts,
                      stop_efficacy, stop_futility, calendar, predictive, bound, quantiles,
                      draws, normal_w, normal_m, normal_p, normal, shape, events, exposure,
-                     d, e):
+                     d, e, row):
                 break
             k += 1
     state[0], state[1], state[2], state[3] = s0, s1, s2, s3
@@ -324,7 +335,10 @@ class EventJumpSimulator(PatientLevelSimulator):
             fill_enrolment_times(np.empty(0), self.kind, self.rates, self.starts,
                                  self.times, self.entry)
 
-    def simulate(self, rng: np.random.Generator, replicates: int) -> Tally:
+    def simulate(self, rng: np.random.Generator, replicates: int,
+                 trace: np.ndarray | None = None) -> Tally:
+        if trace is None:
+            trace = np.empty((0, self.looks, 6))
         efficacy = np.zeros(self.looks, dtype=np.int64)
         futility = np.zeros(self.looks, dtype=np.int64)
         calendar = np.zeros(calendar_size(self.looks))
@@ -337,8 +351,20 @@ class EventJumpSimulator(PatientLevelSimulator):
             self.b, s.claim, s.lower_better, self.efficacy, self.futility,
             DECISION_TOLERANCE, self.edges, self.counts, efficacy, futility, calendar,
             self.predictive, self.bound, self.quantiles, s.predictive_draws,
-            *self.normal)
+            *self.normal, trace)
         return Tally(replicates, efficacy, futility, calendar=calendar)
+
+
+    def looks_of(self, rng: np.random.Generator, studies: int) -> dict[str, np.ndarray]:
+        """Each study's numbers at each look it reaches (shape (studies, looks); NaN
+        after it stops), from the random numbers :meth:`simulate` draws: ``time``,
+        ``enrolled``, ``events`` and ``exposure`` (the last two with a last axis per
+        arm)."""
+        trace = np.full((studies, self.looks, 6), np.nan)
+        self.simulate(rng, studies, trace)
+        return {"time": trace[:, :, 0], "enrolled": trace[:, :, 1],
+                "events": trace[:, :, 2:2 + self.setup.arms],
+                "exposure": trace[:, :, 4:4 + self.setup.arms]}
 
 
 def event_driven_simulator(design: Any, truth: tuple[float, ...],
