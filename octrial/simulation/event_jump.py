@@ -346,7 +346,8 @@ class EventJumpSimulator(PatientLevelSimulator):
         calendar = np.zeros(calendar_size(self.looks))
         s = self.setup
         state = seeded_state(rng)
-        jump_studies(
+        # numba's Dispatcher type does not carry the compiled function's parameters
+        jump_studies(  # type: ignore[call-arg]
             rng, state, replicates, s.max_enrolment, self.kind, self.rates, self.starts,
             self.entry, self.pattern, np.ascontiguousarray(self.hazards[:, 0]),
             s.dropout_hazard, TRIGGERS[s.trigger], self.targets, self.log_w, self.a,

@@ -30,7 +30,6 @@ import dataclasses
 import math
 import os
 import sys
-import time
 
 import numpy as np
 
@@ -43,10 +42,10 @@ from tests.benchmarks.bench_event_driven import (
     DROPOUT,
     EFFICACY,
     HAZARDS,
-    M,
     PRIOR,
     RATE,
     TARGETS,
+    M,
     setup,
     timed,
 )
