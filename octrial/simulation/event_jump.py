@@ -5,26 +5,28 @@ With one constant hazard per arm (lambda_a, in time since enrolment), exponentia
 a Poisson process with piecewise-constant rates, the study's state (subjects at risk per
 arm R_a, subjects enrolled) is a Markov jump process in calendar time: every subject at
 risk leaves at rate lambda_a + mu whatever its time on study (memorylessness), so between
-transitions the total rate is H = sum_a (lambda_a + mu) R_a (+ the Poisson enrolment
-rate while enrolment is open), and the next transition is of each kind with probability
-its rate over H (the direct method; Gillespie 1977). Deterministic entries, Poisson rate
-changes and calendar-time looks change H at known times, so the time to the next
-transition is found by a time change: one unit exponential budget E is consumed by the
-integral of H over the piecewise-constant segments until it runs out (Ross, *Simulation*,
-5th ed., 2013, section 5.5, recalled from memory); a deterministic entry costs no random
-number. Each arm's exposure grows by R_a x (segment length); a look at D_k events happens
-at the D_k-th event, with the exposure accumulated by then (administrative censoring is
-automatic). When no event can happen any more (everyone enrolled and followed to the end)
-before D_k events, the look is at the last transition and it is the final analysis, as in
-the subject-level kernel. Per look the statistics, the decision (the same functions of
+changes the total rate is H = sum_a (lambda_a + mu) R_a, and the next exit is an event
+in arm a with probability lambda_a R_a / H and a loss with mu R_a / H (the direct
+method; Gillespie 1977). Entries change H at times known in advance (Poisson arrivals
+are independent of everything else, so each is drawn one ahead and then treated as
+planned), and so do calendar-time looks; the time to the next exit is found by a time
+change: one unit exponential budget E is consumed by the integral of H over the
+piecewise-constant segments until it runs out (Ross, *Simulation*, 5th ed., 2013, section
+5.5, recalled from memory); a deterministic entry costs no random number. Each arm's
+exposure grows by R_a x (segment length); a look at D_k events happens at the D_k-th
+event, with the exposure accumulated by then (administrative censoring is automatic).
+When no event can happen any more (everyone enrolled and followed to the end) before D_k
+events, the look is at the last exit and it is the final analysis, as in the
+subject-level kernel. Per look the statistics, the decision (the same functions of
 :mod:`octrial.simulation.event_driven_decisions`) and the calendar record are those of
 :func:`octrial.simulation.event_driven.patient_level_studies`, so the same tallies come
 out, equal in distribution (not study by study: the random numbers differ).
 
 Random numbers: per batch, four words from the batch's generator seed an inline
 xoshiro256** generator (Blackman & Vigna 2021; each word passed through splitmix64 as
-its authors recommend), which draws, per transition, one uniform for the time (E = -log U,
-U in (0, 1]) and one for the kind of transition (53-bit doubles). The predictive
+its authors recommend), which draws, per exit, one uniform for the next budget
+(E = -log U, U in (0, 1]) and one for the kind of exit, and per Poisson arrival one
+uniform for the next gap (53-bit doubles). The predictive
 probability of two arms with mixture priors still draws from the batch's numpy generator.
 Both depend on the seed and the batch only, so ``--jobs`` and the backend change nothing.
 
@@ -357,6 +359,12 @@ class EventJumpSimulator(PatientLevelSimulator):
             *self.normal, trace)
         return Tally(replicates, efficacy, futility, calendar=calendar)
 
+
+    def subjects(self, rng: np.random.Generator) -> dict[str, np.ndarray]:
+        """Not available: this simulator draws transitions, not subjects (the subject-level
+        simulator's :meth:`~octrial.simulation.event_driven.PatientLevelSimulator.subjects`
+        would draw another stream); :meth:`looks_of` gives each look's numbers."""
+        raise TypeError("the event-level simulator draws no subjects; use looks_of")
 
     def looks_of(self, rng: np.random.Generator, studies: int) -> dict[str, np.ndarray]:
         """Each study's numbers at each look it reaches (shape (studies, looks); NaN
