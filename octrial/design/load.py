@@ -19,6 +19,7 @@ from octrial.conduct.model import Conduct
 from octrial.conduct.reader import check_complete_targets, planned_counts, read_conduct
 from octrial.design.model import (
     CONTROL,
+    EVENT_DRIVEN_ENGINES,
     METHODS,
     TREATMENT,
     Arm,
@@ -441,7 +442,8 @@ def _read_simulation(top: Table) -> Simulation:
     table = top.table("simulation", required=False)
     if table is None:
         return Simulation()
-    table.allow("method", "replicates", "seed", "interval_level", "grid_points")
+    table.allow("method", "replicates", "seed", "interval_level", "grid_points",
+                "event_driven_engine")
     method = table.string("method", METHODS, required=False, default="auto")
     replicates = table.number("replicates", required=False, default=10_000, integer=True,
                               check=lambda v: 1 <= v <= MAX_REPLICATES,
@@ -453,6 +455,9 @@ def _read_simulation(top: Table) -> Simulation:
     grid = table.number("grid_points", required=False, default=GRID_POINTS, integer=True,
                         check=lambda v: 101 <= v <= 200_001,
                         expected="a whole number from 101 to 200001")
+    engine = table.string("event_driven_engine", EVENT_DRIVEN_ENGINES, required=False,
+                          default="subjects")
     return Simulation(method or "auto", int(replicates or 10_000),
                       None if seed is None else int(seed), level or 0.95,
-                      grid_points=int(grid or GRID_POINTS))
+                      grid_points=int(grid or GRID_POINTS),
+                      event_driven_engine=engine or "subjects")

@@ -14,6 +14,9 @@ from octrial.conduct.model import Conduct
 
 METHODS = ("auto", "exact", "monte-carlo")
 """Values of ``simulation.method``."""
+EVENT_DRIVEN_ENGINES = ("subjects", "events")
+"""Values of ``simulation.event_driven_engine``: event-driven studies simulated subject
+by subject, or event by event (one hazard period; :mod:`octrial.simulation.event_jump`)."""
 
 TREATMENT = "treatment"
 CONTROL = "control"
@@ -226,6 +229,8 @@ class Simulation:
     """Level of the equal-tailed credible interval whose coverage is reported."""
     grid_points: int = 4001
     """Points of the parameter grid for posteriors with no closed form (grid engine)."""
+    event_driven_engine: str = "subjects"
+    """How studies in calendar time are simulated (:data:`EVENT_DRIVEN_ENGINES`)."""
 
 
 @dataclass(frozen=True)

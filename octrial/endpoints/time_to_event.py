@@ -526,6 +526,11 @@ class TimeToEventFamily(Family):
             # the patient-level simulator decides on one period's gamma posteriors (two
             # arms), the landmark survival (one arm) or the normal approximation on the
             # log hazard ratio; check_design refuses two-arm gamma with several periods
+            if getattr(design.simulation, "event_driven_engine", "subjects") == "events" \
+                    and e.periods > 1:
+                return ("simulation.event_driven_engine = 'events' simulates one hazard "
+                        "period (constant hazards); this endpoint has "
+                        f"{e.periods} periods: use 'subjects'")
             return self.predictive_unsupported(design)
         if e.periods > 1:
             return ("a piecewise-exponential design is simulated subject by subject: add a "
@@ -578,12 +583,11 @@ class TimeToEventFamily(Family):
 
     def simulator(self, design: Any, truth: tuple[float, ...], level: float) -> Any:
         if design.conduct is not None or design.looks.trigger in ("events", "time"):
-            # the patient-level simulator is engineer K's module; the name it exports is
-            # reconciled at merge time
-            import importlib
+            # subject by subject, or event by event when the design asks for it
+            # (simulation.event_driven_engine; one hazard period)
+            from octrial.simulation.event_jump import event_driven_simulator
 
-            module = importlib.import_module("octrial.simulation.event_driven")
-            return module.EventDrivenSimulator(design, truth, level)
+            return event_driven_simulator(design, truth, level)
         return super().simulator(design, truth, level)
 
     # Without [conduct], one period: each analysed subject contributes one event and its
