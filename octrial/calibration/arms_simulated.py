@@ -44,6 +44,7 @@ from octrial.multiarm.engine import BATCH
 from octrial.multiarm.final_values import final_benefit_tables, final_values, refusal
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
+from octrial.multiarm.tallies import scenario_identity
 from octrial.rules.stop import DECISION_TOLERANCE
 
 __all__ = ["NULL_LINE_ASSUMPTION", "PointTask", "SimulatedCalibration",
@@ -101,8 +102,8 @@ class PointTask:
 
     def identity(self) -> dict[str, Any]:
         """What this point's checkpoint records."""
-        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
-                "scenario": self.index, "batch": "all", "kernel": "several-arm final values"}
+        return scenario_identity(self.design.source.sha256, self.seed, self.index,
+                                 "several-arm final values")
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this point's recorded values."""

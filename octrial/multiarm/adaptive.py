@@ -29,7 +29,7 @@ from octrial.allocation.simulate import AdaptiveStudy, StudyBatch, simulate_batc
 from octrial.endpoints.binary import BetaMixture, BinaryEndpoint
 from octrial.errors import Problem, SettingsError, show
 from octrial.multiarm.model import MultiArmDesign
-from octrial.multiarm.tallies import tally_problems
+from octrial.multiarm.tallies import scenario_identity, tally_problems
 from octrial.numerics.beta_best import BestTables
 
 __all__ = ["AdaptiveTask", "adaptive_study", "batch_sums", "benefit_memo", "best_tables",
@@ -183,8 +183,8 @@ class AdaptiveTask:
 
     def identity(self) -> dict[str, Any]:
         """What this scenario's checkpoint records."""
-        return {"design_sha256": self.design_sha256, "seed": self.seed,
-                "scenario": self.scenario, "batch": "all", "kernel": "several-arm adaptive"}
+        return scenario_identity(self.design_sha256, self.seed, self.scenario,
+                                 "several-arm adaptive")
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this scenario's saved tallies."""

@@ -49,7 +49,7 @@ from octrial.multiarm.adaptive import AdaptiveTask, adaptive_study, scenario_sum
 from octrial.multiarm.fixed_scenario import fixed_tallies
 from octrial.multiarm.model import MultiArmDesign
 from octrial.multiarm.tables import MultiArmTables, build_tables
-from octrial.multiarm.tallies import tally_problems
+from octrial.multiarm.tallies import scenario_identity, tally_problems
 
 BATCH = 50_000
 """Studies per batch: each batch has its own seed, spawned from the scenario's."""
@@ -190,8 +190,8 @@ class FixedTask:
 
     def identity(self) -> dict[str, Any]:
         """What this scenario's checkpoint records."""
-        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
-                "scenario": self.index, "batch": "all", "kernel": "several-arm fixed"}
+        return scenario_identity(self.design.source.sha256, self.seed, self.index,
+                                 "several-arm fixed")
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this scenario's saved tallies."""

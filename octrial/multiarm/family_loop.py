@@ -51,7 +51,7 @@ from octrial.engines.monte_carlo import batch_generator
 from octrial.errors import bad_setting
 from octrial.multiarm.continuous_best import ArmPosteriors, probability_best
 from octrial.multiarm.model import MultiArmDesign
-from octrial.multiarm.tallies import tally_problems
+from octrial.multiarm.tallies import scenario_identity, tally_problems
 from octrial.rules.stop import EFFICACY, FUTILITY, Rule
 from octrial.simulation import student_t
 from octrial.simulation.normal import draw_increments
@@ -311,9 +311,8 @@ class FamilyTask:
 
     def identity(self) -> dict[str, Any]:
         """What this scenario's checkpoint records."""
-        return {"design_sha256": self.design.source.sha256, "seed": self.seed,
-                "scenario": self.index, "batch": self.batch,
-                "kernel": "several-arm family loop"}
+        return scenario_identity(self.design.source.sha256, self.seed, self.index,
+                                 "several-arm family loop", self.batch)
 
     def problems(self, arrays: dict[str, np.ndarray]) -> list[str]:
         """What is wrong with ``arrays`` as this scenario's saved tallies."""

@@ -11,9 +11,20 @@ arm, selected arm truly best, sum of selected estimate - truth]), ``end`` (2, K)
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
-__all__ = ["tally_problems"]
+__all__ = ["scenario_identity", "tally_problems"]
+
+
+def scenario_identity(design_sha256: str, seed: int, scenario: int, kernel: str,
+                      batch: int | str = "all") -> dict[str, Any]:
+    """What the checkpoint of one several-arm scenario (or calibration null point)
+    records: the design, seed, scenario, batch and which study loop wrote it, in one
+    layout for every loop (:class:`octrial.execution.checkpoints.Checkpointed`)."""
+    return {"design_sha256": design_sha256, "seed": seed, "scenario": scenario,
+            "batch": batch, "kernel": kernel}
 
 
 def tally_problems(arrays: dict[str, np.ndarray], T: int, K: int, A: int,

@@ -8,7 +8,6 @@ evaluated for the report (:func:`octrial.arms_evaluation.compute_arms`).
 
 from __future__ import annotations
 
-import hashlib
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -22,7 +21,7 @@ from octrial.errors import InputError, Problem, single
 from octrial.multiarm.load import is_multiarm, load_multiarm, parse_multiarm
 from octrial.multiarm.model import MultiArmDesign
 from octrial.provenance import now, run_record
-from octrial.reporting.data import read_table
+from octrial.reporting.data import design_toml, read_flags, read_table, require_run_files
 from octrial.run_folder import check_sealed, read_record
 
 __all__ = ["ArmsReportData", "arms_from_design", "arms_from_run_folder", "is_arms_run"]
@@ -111,11 +110,7 @@ def arms_from_run_folder(folder: str | Path, alpha: float | None = None) -> Arms
         When a file is missing, not what run.json sealed, or lacks documented columns.
     """
     folder = Path(folder)
-    missing = [name for name in ("oc.csv", "run.json") if not (folder / name).is_file()]
-    if missing:
-        raise InputError(str(folder), [Problem(
-            name, "a run folder written by 'octrial run' (oc.csv and run.json)",
-            "no such file") for name in missing])
+    require_run_files(folder)
     record = read_record(folder / "run.json")
     design = _design_of(record, folder)
     records = {name: read_record(folder / name) if (folder / name).is_file() else None
@@ -128,9 +123,7 @@ def arms_from_run_folder(folder: str | Path, alpha: float | None = None) -> Arms
         raise InputError(str(folder / "oc.csv"), [Problem(
             c, "the several-arm oc.csv column (docs/output-files.md)", "no such column")
             for c in absent])
-    for column in ["is_null", *(f"{a}_is_null" for a in design.treatment_names)]:
-        if oc[column].dtype != bool:
-            oc[column] = oc[column].astype(str).str.lower().isin(("true", "1", "yes"))
+    read_flags(oc, ["is_null", *(f"{a}_is_null" for a in design.treatment_names)])
     boundaries_path = folder / "boundaries.csv"
     boundaries = read_table(boundaries_path) if boundaries_path.is_file() else None
     return ArmsReportData(design, oc, boundaries, record, f"run folder {folder}", alpha)
@@ -144,11 +137,5 @@ def _design_of(record: dict[str, Any], folder: Path) -> MultiArmDesign:
     if not isinstance(text, str):
         raise single(where, "design.text", "the design file's text", "none",
                      "re-run 'octrial run' on the design")
-    if sha and hashlib.sha256(text.encode("utf-8")).hexdigest() != sha:
-        raise single(where, "design.text", f"text with the recorded SHA-256 {sha}",
-                     "text with another checksum", "the record was edited; re-run the design")
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise single(where, "design.text", "a TOML design", str(exc)) from None
-    return parse_multiarm(data, Source(info.get("path") or "", sha, text))
+    return parse_multiarm(design_toml(where, text, sha),
+                          Source(info.get("path") or "", sha, text))

@@ -12,6 +12,7 @@ from octrial.reporting.figures import Figure
 from octrial.reporting.formats import probability, truth
 from octrial.reporting.render import environment, page_context
 from octrial.reporting.tables import Tables
+from octrial.reporting.wording import alpha_verdict, largest_error, standard_error
 
 ARMS_SECTIONS = (
     ("design", "Design"),
@@ -32,8 +33,7 @@ def _glance(data: Any) -> dict[str, str]:
     if t1 is None:
         fwer = "not assessed (no scenario with a null arm)"
     else:
-        se = f" (se {probability(t1['se'])})" if t1.get("se") else ""
-        fwer = probability(t1["max_type1_error"]) + se
+        fwer = largest_error(t1)
     reps = oc.loc[oc["replicates"] > 0, "replicates"]
     method = "exact" if reps.empty else f"Monte Carlo, {int(reps.min()):,} replicates"
     arms = ", ".join(design.treatment_names)
@@ -52,14 +52,9 @@ def fwer_sentence(data: Any) -> str:
         return ("No scenario of the grid has a null arm, so the family-wise error rate is "
                 "not assessed by this report.")
     at = ", ".join(f"{arm} = {truth(v)}" for arm, v in t1["at"].items())
-    se = f" (Monte Carlo standard error {probability(t1['se'])})" if t1.get("se") else ""
-    text = (f"Largest family-wise error rate over the {count(t1['null_scenarios'], 'scenario')}"
-            f" with a null arm: {probability(t1['max_type1_error'])}{se}, at scenario "
-            f"{t1['scenario']} ({at}).")
-    if data.alpha is not None:
-        verdict = "at or below" if t1["max_type1_error"] <= data.alpha else "above"
-        text += f" This is {verdict} the stated level alpha = {truth(data.alpha)}."
-    return text
+    return (f"Largest family-wise error rate over the {count(t1['null_scenarios'], 'scenario')}"
+            f" with a null arm: {probability(t1['max_type1_error'])}{standard_error(t1)}, at "
+            f"scenario {t1['scenario']} ({at}).{alpha_verdict(t1, data.alpha)}")
 
 
 def _design(data: Any) -> dict[str, Any]:

@@ -8,6 +8,7 @@ are exported as CSV, Markdown and LaTeX.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
 from types import SimpleNamespace
 from typing import Any
 
@@ -172,18 +173,16 @@ def per_arm_table(data: Any) -> Table:
 
 def arm_looks_table(data: Any, arm: str) -> Table:
     """How treatment arm ``arm`` leaves the study at each look."""
-    design = data.design
-    k_looks = design.looks.count
-    columns = [Column("scenario", "scenario", "count"), *truth_columns(data)]
-    for k in range(1, k_looks + 1):
-        final = k == k_looks
-        group = "final analysis" if final else f"look {k}"
-        columns += [Column(f"{arm}_look{k}_stop_efficacy", "success" if final else "efficacy",
-                           "probability", group),
-                    Column(f"{arm}_look{k}_stop_futility", "failure" if final else "futility",
-                           "probability", group)]
-        if not final:
-            columns.append(Column(f"{arm}_look{k}_drop", "dropped", "probability", group))
+    def of_look(k: int, final: bool, group: str) -> list[Column]:
+        leaving = [Column(f"{arm}_look{k}_stop_efficacy", "success" if final else "efficacy",
+                          "probability", group),
+                   Column(f"{arm}_look{k}_stop_futility", "failure" if final else "futility",
+                          "probability", group)]
+        dropped = [] if final else [Column(f"{arm}_look{k}_drop", "dropped", "probability",
+                                           group)]
+        return leaving + dropped
+
+    columns = _by_look(data, of_look)
     note = (f"Probability that arm {arm} leaves the study at each look: by its own rule "
             "(efficacy, futility) or dropped (low Pr(best), or not selected). At the final "
             "analysis it succeeds or fails. Every row sums to 1: the study ends only when "
@@ -192,16 +191,22 @@ def arm_looks_table(data: Any, arm: str) -> Table:
                  tuple(columns), _rows(data, columns), (note,))
 
 
-def study_looks_table(data: Any) -> Table:
-    """Per scenario and look: the study ends with or without a success."""
-    design = data.design
-    k_looks = design.looks.count
+def _by_look(data: Any, of_look: Callable[[int, bool, str], list[Column]]) -> list[Column]:
+    """The scenario and true values, then ``of_look(k, final, group)`` for each look k
+    from 1, grouped under "look k" (the last under "final analysis")."""
+    k_looks = data.design.looks.count
     columns = [Column("scenario", "scenario", "count"), *truth_columns(data)]
     for k in range(1, k_looks + 1):
         final = k == k_looks
-        group = "final analysis" if final else f"look {k}"
-        columns += [Column(f"look{k}_stop_efficacy", "with success", "probability", group),
-                    Column(f"look{k}_stop_futility", "without", "probability", group)]
+        columns += of_look(k, final, "final analysis" if final else f"look {k}")
+    return columns
+
+
+def study_looks_table(data: Any) -> Table:
+    """Per scenario and look: the study ends with or without a success."""
+    columns = _by_look(data, lambda k, final, group: [
+        Column(f"look{k}_stop_efficacy", "with success", "probability", group),
+        Column(f"look{k}_stop_futility", "without", "probability", group)])
     note = ("Probability that the study ends at each look (no treatment arm left), with at "
             "least one successful arm or with none; every row sums to 1.")
     return Table("stopping-by-look", "The study's end per look", tuple(columns),

@@ -152,11 +152,7 @@ def from_run_folder(folder: str | Path, alpha: float | None = None) -> ReportDat
         design), or the design behind the run cannot be recovered.
     """
     folder = Path(folder)
-    missing = [name for name in RUN_FILES if not (folder / name).is_file()]
-    if missing:
-        raise InputError(str(folder), [Problem(
-            name, "a run folder written by 'octrial run' (oc.csv and run.json)",
-            "no such file") for name in missing])
+    require_run_files(folder)
     record = read_record(folder / "run.json")
     design = _design_of(record, folder)
     calibrated = _optional_json(folder / "calibration.json")
@@ -229,14 +225,49 @@ def _design_of(record: dict[str, Any], folder: Path) -> Design:
                          "'octrial run' since the report command exists), or the design file "
                          f"at {path or 'the recorded path'} with SHA-256 {sha or '?'}",
                          "neither", "re-run 'octrial run' on the design")
-    elif sha and hashlib.sha256(text.encode("utf-8")).hexdigest() != sha:
+    # Text read from the design file already has the recorded SHA-256: checked again, it passes.
+    return parse_design(design_toml(where, text, sha), Source(path, sha, text))
+
+
+def require_run_files(folder: Path) -> None:
+    """Refuse a folder without the files every run folder holds (:data:`RUN_FILES`).
+
+    Raises
+    ------
+    InputError
+        Naming each missing file.
+    """
+    missing = [name for name in RUN_FILES if not (folder / name).is_file()]
+    if missing:
+        raise InputError(str(folder), [Problem(
+            name, "a run folder written by 'octrial run' (oc.csv and run.json)",
+            "no such file") for name in missing])
+
+
+def design_toml(where: str, text: str, sha: str) -> dict[str, Any]:
+    """The design text recorded in run.json (``where``), checked against its recorded
+    SHA-256 ``sha`` (when there is one) and parsed as TOML.
+
+    Raises
+    ------
+    InputError
+        When the text has another checksum or is not TOML.
+    """
+    if sha and hashlib.sha256(text.encode("utf-8")).hexdigest() != sha:
         raise single(where, "design.text", f"text with the recorded SHA-256 {sha}",
                      "text with another checksum", "the record was edited; re-run the design")
     try:
-        data = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise single(where, "design.text", "a TOML design", str(exc)) from None
-    return parse_design(data, Source(path, sha, text))
+
+
+def read_flags(oc: pd.DataFrame, columns: list[str]) -> None:
+    """Make ``oc``'s true/false ``columns`` booleans, in place (a CSV read back may give
+    them as text or numbers)."""
+    for column in columns:
+        if oc[column].dtype != bool:
+            oc[column] = oc[column].astype(str).str.lower().isin(("true", "1", "yes"))
 
 
 def _check_oc(oc: pd.DataFrame, design: Design, path: Path) -> None:
@@ -247,5 +278,4 @@ def _check_oc(oc: pd.DataFrame, design: Design, path: Path) -> None:
     if absent:
         raise InputError(str(path), [Problem(c, "the oc.csv column (docs/output-files.md)",
                                              "no such column") for c in absent])
-    if oc["is_null"].dtype != bool:
-        oc["is_null"] = oc["is_null"].astype(str).str.lower().isin(("true", "1", "yes"))
+    read_flags(oc, ["is_null"])

@@ -91,8 +91,7 @@ def _glance(data: Any) -> dict[str, str]:
     if t1 is None:
         type1 = "not assessed (no null scenario)"
     else:
-        se = f" (se {probability(t1['se'])})" if t1.get("se") else ""
-        type1 = probability(t1["max_type1_error"]) + se
+        type1 = wording.largest_error(t1)
     low, high = wording.sample_size_range(design, data.boundaries)
     reps = oc.loc[oc["replicates"] > 0, "replicates"]
     if reps.empty:

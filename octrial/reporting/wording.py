@@ -282,14 +282,32 @@ def type1_sentence(data: Any) -> str:
     at = ", ".join(f"{parameter(data.design)}_{arm[0].upper()} = {truth(v)}"
                    if arm in data.design.arm_names else f"{arm} = {truth(v)}"
                    for arm, v in t1["at"].items())
-    se = f" (Monte Carlo standard error {probability(t1['se'])})" if t1.get("se") else ""
-    text = (f"Maximum type I error over the {t1['null_scenarios']} null scenarios of the "
-            f"grid: {probability(t1['max_type1_error'])}{se}, at scenario {t1['scenario']} "
-            f"({at}).")
-    if data.alpha is not None:
-        verdict = "at or below" if t1["max_type1_error"] <= data.alpha else "above"
-        text += f" This is {verdict} the stated level alpha = {truth(data.alpha)}."
-    return text
+    return (f"Maximum type I error over the {t1['null_scenarios']} null scenarios of the "
+            f"grid: {probability(t1['max_type1_error'])}{standard_error(t1)}, at scenario "
+            f"{t1['scenario']} ({at}).{alpha_verdict(t1, data.alpha)}")
+
+
+def largest_error(t1: dict[str, Any]) -> str:
+    """The largest type I (or family-wise) error with its standard error, as the cover
+    shows it; ``t1`` is run.json's ``type1`` record."""
+    se = f" (se {probability(t1['se'])})" if t1.get("se") else ""
+    return probability(t1["max_type1_error"]) + se
+
+
+def standard_error(t1: dict[str, Any]) -> str:
+    """The Monte Carlo standard error of run.json's ``type1`` record in parentheses, or
+    nothing when the numbers are exact."""
+    return f" (Monte Carlo standard error {probability(t1['se'])})" if t1.get("se") else ""
+
+
+def alpha_verdict(t1: dict[str, Any], alpha: float | None) -> str:
+    """The sentence that sets the largest error against the stated level ``alpha``, or
+    nothing when no level is stated (one verdict for one-arm, two-arm and several-arm
+    reports)."""
+    if alpha is None:
+        return ""
+    verdict = "at or below" if t1["max_type1_error"] <= alpha else "above"
+    return f" This is {verdict} the stated level alpha = {truth(alpha)}."
 
 
 def conduct_assumptions(design: Any) -> list[str]:

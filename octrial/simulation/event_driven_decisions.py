@@ -310,11 +310,14 @@ def log_hazard_ratio_score(events: np.ndarray, exposure: np.ndarray, shape: np.n
 
 @numba.njit(cache=True)
 def _normal_posterior(score: float, information: float, w: np.ndarray, m: np.ndarray,
-                      p0: np.ndarray, post_w: np.ndarray, post_m: np.ndarray,
-                      post_p: np.ndarray) -> None:
+                      p0: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The normal mixture posterior of eta after score S with information I (as
     :func:`octrial.endpoints.normal.update`): precision p0 + I, mean (m p0 + S) /
-    precision, weights by the marginal N(S; I m, I + I^2 / p0)."""
+    precision, weights by the marginal N(S; I m, I + I^2 / p0); returns the weights,
+    means and precisions."""
+    post_w = np.empty(w.size)
+    post_m = np.empty(w.size)
+    post_p = np.empty(w.size)
     top = -np.inf
     for j in range(w.size):
         post_p[j] = p0[j] + information
@@ -333,6 +336,7 @@ def _normal_posterior(score: float, information: float, w: np.ndarray, m: np.nda
         total += post_w[j]
     for j in range(w.size):
         post_w[j] /= total
+    return post_w, post_m, post_p
 
 
 @numba.njit(cache=True)
@@ -343,10 +347,7 @@ def normal_benefit(score: float, information: float, w: np.ndarray, m: np.ndarra
     gives 0 or 1."""
     if not math.isfinite(score):
         return 1.0 if score > 0 else 0.0
-    post_w = np.empty(w.size)
-    post_m = np.empty(w.size)
-    post_p = np.empty(w.size)
-    _normal_posterior(score, information, w, m, p0, post_w, post_m, post_p)
+    post_w, post_m, post_p = _normal_posterior(score, information, w, m, p0)
     out = 0.0
     for j in range(w.size):
         out += post_w[j] * normal_sf(-(post_m[j] - claim) * math.sqrt(post_p[j]))
@@ -363,10 +364,7 @@ def normal_predictive(score: float, information: float, final_information: float
         return 0.0 if final_upper > 0 else 1.0
     if not math.isfinite(score):
         return 1.0 if score > 0 else 0.0
-    post_w = np.empty(w.size)
-    post_m = np.empty(w.size)
-    post_p = np.empty(w.size)
-    _normal_posterior(score, information, w, m, p0, post_w, post_m, post_p)
+    post_w, post_m, post_p = _normal_posterior(score, information, w, m, p0)
     gap = max(final_information - information, 0.0)
     out = 0.0
     for j in range(w.size):
