@@ -5,7 +5,7 @@ prior), so the scenario-wise simulator of :mod:`octrial.simulation.event_driven`
 be used as a whole; its numba parts are, unchanged: every subject is drawn by
 :func:`~octrial.simulation.event_driven.draw_subjects` (enrolment, arm, piecewise
 exponential event time, loss time, in that order), the event-driven look times by
-:func:`~octrial.simulation.event_driven.ranked_times` and each look's events and exposure
+:func:`~octrial.simulation.event_driven.look_times` and each look's events and exposure
 per hazard period by :func:`~octrial.simulation.event_driven.piece_statistics`. Looks
 happen as the simulator has them: at the D_k-th observed event (or a stated calendar
 time), and when the events run out, when every follow-up has ended. Studies are not
@@ -29,12 +29,13 @@ import numpy as np
 from octrial.design.model import Design
 from octrial.simulation.event_driven import (
     ARRIVALS,
-    BUCKETS,
     TRIGGERS,
     allocation_pattern,
     draw_subjects,
+    look_buffers,
+    look_times,
     piece_statistics,
-    ranked_times,
+    subject_buffers,
 )
 
 
@@ -124,43 +125,18 @@ def _conduct_studies(rng: Any, m: int, kind: int, rates: np.ndarray, starts: np.
     looks = targets.size
     arms = hazards.shape[1]
     pieces = hazard_starts.size
-    gaps = np.empty(m)
-    enrolled = np.empty(m)
-    arm_of = np.empty(m, dtype=np.int64)
-    follow = np.empty(m)
-    seen = np.empty(m, dtype=np.bool_)
-    event_times = np.empty(m)
-    scattered = np.empty(m)
-    tally = np.zeros(BUCKETS + 1, dtype=np.int64)
-    ranks = np.empty(looks, dtype=np.int64)
-    for k in range(looks):
-        ranks[k] = int(targets[k]) - 1 if trigger == 0 else 0
-    taus = np.empty(looks)
+    gaps, enrolled, arm_of, follow, seen = subject_buffers(m)
+    event_times, scattered, tally, ranks, taus = look_buffers(m, trigger, targets)
     ev = np.zeros((arms, pieces))
     ex = np.zeros((arms, pieces))
     for s in range(hazards.shape[0]):
         resolved = draw_subjects(rng, kind, rates, starts, times, pattern, hazards[s],
                                  hazard_starts, dropout, gaps, enrolled, arm_of, follow,
                                  seen)
-        reached = 0
-        if trigger == 0:
-            count = 0
-            top = 0.0
-            for i in range(m):
-                if seen[i]:
-                    event_times[count] = enrolled[i] + follow[i]
-                    top = max(top, event_times[count])
-                    count += 1
-            while reached < looks and targets[reached] <= count:
-                reached += 1
-            ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
+        reached = look_times(trigger, targets, enrolled, follow, seen, event_times,
+                             scattered, tally, ranks, taus)
         for k in range(looks):
-            if trigger == 1:
-                tau = targets[k]
-            elif k < reached:
-                tau = taus[k]
-            else:
-                tau = resolved
+            tau = taus[k] if k < reached else resolved
             entered[k, s] = piece_statistics(enrolled, follow, seen, arm_of, tau,
                                              hazard_starts, ev, ex)
             look_time[k, s] = tau

@@ -557,6 +557,16 @@ def piecewise_time(unit: float, hazards: np.ndarray, starts: np.ndarray) -> floa
 
 
 @numba.njit(cache=True)
+def subject_buffers(m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                                     np.ndarray]:
+    """The work arrays :func:`draw_subjects` fills for studies of ``m`` subjects: gaps
+    between entries, entry times, arms, follow-up times and whether each follow-up ends
+    in an event."""
+    return (np.empty(m), np.empty(m), np.empty(m, dtype=np.int64), np.empty(m),
+            np.empty(m, dtype=np.bool_))
+
+
+@numba.njit(cache=True)
 def draw_subjects(rng: Any, kind: int, rates: np.ndarray, starts: np.ndarray,
                   times: np.ndarray, pattern: np.ndarray, hazards: np.ndarray,
                   hazard_starts: np.ndarray, dropout: float, gaps: np.ndarray,
@@ -710,6 +720,55 @@ def ranked_times(values: np.ndarray, count: int, ranks: np.ndarray, top: float,
 
 
 @numba.njit(cache=True)
+def look_buffers(m: int, trigger: int, targets: np.ndarray) -> tuple[
+        np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The work arrays of :func:`look_times` for studies of at most ``m`` subjects:
+    event times, their scattered copy, the bucket tally, the 0-based rank of each look's
+    event target (``trigger`` 0: events; 1: calendar times, no ranks needed) and the
+    look times."""
+    looks = targets.size
+    ranks = np.empty(looks, dtype=np.int64)
+    for k in range(looks):
+        ranks[k] = int(targets[k]) - 1 if trigger == 0 else 0
+    return (np.empty(m), np.empty(m), np.zeros(BUCKETS + 1, dtype=np.int64), ranks,
+            np.empty(looks))
+
+
+@numba.njit(cache=True, inline="always")
+def look_times(trigger: int, targets: np.ndarray, enrolled: np.ndarray,
+               follow: np.ndarray, seen: np.ndarray, event_times: np.ndarray,
+               scattered: np.ndarray, tally: np.ndarray, ranks: np.ndarray,
+               taus: np.ndarray) -> int:
+    """The calendar times of one study's looks, into ``taus``; returns how many looks
+    happen at them (the rest happen when the events run out, at the end of every
+    follow-up: :func:`draw_subjects`' return value).
+
+    ``trigger`` 1: the looks are at the calendar times ``targets``, all of them. ``trigger``
+    0: look k is at the ``targets[k]``-th observed event (:func:`ranked_times` on the
+    event times of the ``seen`` subjects), for the looks whose target is reached. The
+    work arrays come from :func:`look_buffers`. Inlined: a call passing arrays pays
+    reference counting on each, once per study."""
+    looks = targets.size
+    if trigger == 1:
+        for k in range(looks):
+            taus[k] = targets[k]
+        return looks
+    count = 0
+    top = 0.0
+    for i in range(enrolled.size):
+        # written always, kept when seen: no branch on a coin toss
+        t = enrolled[i] + follow[i]
+        event_times[count] = t
+        top = max(top, t if seen[i] else 0.0)
+        count += seen[i]
+    reached = 0  # looks whose event target is reached
+    while reached < looks and targets[reached] <= count:
+        reached += 1
+    ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
+    return reached
+
+
+@numba.njit(cache=True)
 def patient_level_studies(
     rng: Any, studies: int, m: int, kind: int, rates: np.ndarray, starts: np.ndarray,
     times: np.ndarray, pattern: np.ndarray, hazards: np.ndarray,
@@ -734,18 +793,8 @@ def patient_level_studies(
     looks = targets.size
     arms = hazards.shape[0]
     pieces = analysis_starts.size
-    gaps = np.empty(m)
-    enrolled = np.empty(m)
-    arm_of = np.empty(m, dtype=np.int64)
-    follow = np.empty(m)
-    seen = np.empty(m, dtype=np.bool_)
-    event_times = np.empty(m)
-    scattered = np.empty(m)
-    tally = np.zeros(BUCKETS + 1, dtype=np.int64)
-    ranks = np.empty(looks, dtype=np.int64)
-    for k in range(looks):
-        ranks[k] = int(targets[k]) - 1 if trigger == 0 else 0
-    taus = np.empty(looks)
+    gaps, enrolled, arm_of, follow, seen = subject_buffers(m)
+    event_times, scattered, tally, ranks, taus = look_buffers(m, trigger, targets)
     events = np.zeros((arms, pieces))
     exposure = np.zeros((arms, pieces))
     d = np.zeros(arms)
@@ -754,24 +803,11 @@ def patient_level_studies(
         resolved = draw_subjects(rng, kind, rates, starts, times, pattern, hazards,
                                  hazard_starts, dropout, gaps, enrolled, arm_of, follow,
                                  seen)
-        count = 0
-        reached = 0  # looks whose event target is reached
-        if trigger == 0:
-            top = 0.0
-            for i in range(m):
-                # written always, kept when seen: no branch on a coin toss
-                t = enrolled[i] + follow[i]
-                event_times[count] = t
-                top = max(top, t if seen[i] else 0.0)
-                count += seen[i]
-            while reached < looks and targets[reached] <= count:
-                reached += 1
-            ranked_times(event_times, count, ranks[:reached], top, tally, scattered, taus)
+        reached = look_times(trigger, targets, enrolled, follow, seen, event_times,
+                             scattered, tally, ranks, taus)
         for k in range(looks):
             final = k == looks - 1
-            if trigger == 1:
-                tau = targets[k]
-            elif k < reached:
+            if k < reached:
                 tau = taus[k]
             else:  # the events run out: the analysis when every follow-up has ended
                 tau = resolved
