@@ -60,9 +60,6 @@ from octrial.rules.stop import (
     CONTINUE,
     DECISION_TOLERANCE,
     EFFICACY,
-    look_decision_at,
-    predictive_decision_at,
-    wants_predictive_at,
 )
 from octrial.simulation.base import Simulator, Tally
 from octrial.simulation.calendar import (
@@ -71,15 +68,7 @@ from octrial.simulation.calendar import (
     duration_edges,
     record_study,
 )
-from octrial.simulation.event_driven_decisions import (
-    benefit_at,
-    landmark_benefit,
-    log_hazard_ratio_score,
-    normal_benefit,
-    normal_predictive,
-    one_arm_predictive,
-    two_arm_predictive,
-)
+from octrial.simulation.event_driven_decisions import benefit_at, look_code
 
 ARRIVALS = {"poisson": 0, "even": 1, "fixed": 2}
 PREDICTIVE_DRAWS = 1000
@@ -817,32 +806,10 @@ def patient_level_studies(
             for j in range(arms):
                 d[j] = events[j, piece]
                 e[j] = exposure[j, piece]
-            score = 0.0
-            information = 0.0
-            if normal_w.size > 0:
-                score, information = log_hazard_ratio_score(events, exposure, shape,
-                                                            normal[0], normal[2])
-                benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
-                                         normal[1])
-            elif overlap.size > 0:
-                benefit = landmark_benefit(events[0], exposure[0], log_w[0], piece_a,
-                                           piece_b, overlap, limit, lower)
-            else:
-                benefit = benefit_at(d, e, log_w, a, b, claim, lower)
-            threshold = efficacy[looks - 1] if final else efficacy[k]
-            code = look_decision_at(threshold, futility[k], final, benefit, tol)
-            if code == CONTINUE and wants_predictive_at(predictive[k], final):
-                if normal_w.size > 0:
-                    pp = normal_predictive(score, information, normal[3], normal[4],
-                                           normal_w, normal_m, normal_p)
-                elif arms == 1:
-                    pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b,
-                                            bound, lower)
-                else:
-                    pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b,
-                                            claim, lower, efficacy[looks - 1] - tol,
-                                            quantiles, draws)
-                code = predictive_decision_at(predictive[k], pp, tol)
+            code = look_code(rng, k, final, arms, looks, targets, events, exposure, d, e,
+                             log_w, a, b, claim, lower, efficacy, futility, tol, predictive,
+                             bound, quantiles, draws, overlap, limit, piece_a, piece_b,
+                             normal_w, normal_m, normal_p, normal, shape)
             record_study(calendar, edges, k, tau, entered, events.sum(),
                          code != CONTINUE, counts)
             if code == EFFICACY:

@@ -10,6 +10,8 @@ exposure at a look, for the patient-level kernel (:mod:`octrial.simulation.event
 * Predictive probabilities of final success: :func:`one_arm_predictive`,
   :func:`two_arm_predictive` (the maths in
   :mod:`octrial.endpoints.survival_predictive`) and :func:`normal_predictive`.
+* The decision at a look from all of these and the one stop rule: :func:`look_code`,
+  shared by the subject-level and the event-level kernels.
 
 Each is checked against scipy in tests/test_event_driven*.py (docs/validation.md).
 """
@@ -22,6 +24,12 @@ from typing import Any
 import numba
 import numpy as np
 
+from octrial.rules.stop import (
+    CONTINUE,
+    look_decision_at,
+    predictive_decision_at,
+    wants_predictive_at,
+)
 from octrial.simulation.special import betainc, gammainc_pair, normal_sf
 
 
@@ -374,3 +382,46 @@ def normal_predictive(score: float, information: float, final_information: float
         else:
             out += post_w[j] * normal_sf(-(score + post_m[j] * gap - final_upper) / spread)
     return min(max(out, 0.0), 1.0)
+
+
+@numba.njit(cache=True)
+def look_code(rng: Any, k: int, final: bool, arms: int, looks: int, targets: np.ndarray,
+              events: np.ndarray, exposure: np.ndarray, d: np.ndarray, e: np.ndarray,
+              log_w: np.ndarray, a: np.ndarray, b: np.ndarray, claim: float, lower: bool,
+              efficacy: np.ndarray, futility: np.ndarray, tol: float,
+              predictive: np.ndarray, bound: float, quantiles: np.ndarray, draws: int,
+              overlap: np.ndarray, limit: float, piece_a: np.ndarray, piece_b: np.ndarray,
+              normal_w: np.ndarray, normal_m: np.ndarray, normal_p: np.ndarray,
+              normal: np.ndarray, shape: np.ndarray) -> int:
+    """The stop rule's code (:mod:`octrial.rules.stop`) at look ``k`` from each arm's
+    events and exposure: ``events``/``exposure`` per arm and analysis piece, ``d``/``e``
+    the decision piece's. The benefit is the normal approximation on the log hazard
+    ratio when ``normal_w`` is non-empty, the landmark survival when ``overlap`` is,
+    else the gamma posterior of the hazard (ratio); a continuing study then meets the
+    predictive futility threshold of the look, if any."""
+    score = 0.0
+    information = 0.0
+    if normal_w.size > 0:
+        score, information = log_hazard_ratio_score(events, exposure, shape, normal[0],
+                                                    normal[2])
+        benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
+                                 normal[1])
+    elif overlap.size > 0:
+        benefit = landmark_benefit(events[0], exposure[0], log_w[0], piece_a, piece_b,
+                                   overlap, limit, lower)
+    else:
+        benefit = benefit_at(d, e, log_w, a, b, claim, lower)
+    threshold = efficacy[looks - 1] if final else efficacy[k]
+    code = look_decision_at(threshold, futility[k], final, benefit, tol)
+    if code == CONTINUE and wants_predictive_at(predictive[k], final):
+        if normal_w.size > 0:
+            pp = normal_predictive(score, information, normal[3], normal[4], normal_w,
+                                   normal_m, normal_p)
+        elif arms == 1:
+            pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b, bound,
+                                    lower)
+        else:
+            pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b, claim,
+                                    lower, efficacy[looks - 1] - tol, quantiles, draws)
+        code = predictive_decision_at(predictive[k], pp, tol)
+    return code

@@ -48,9 +48,6 @@ from octrial.rules.stop import (
     CONTINUE,
     DECISION_TOLERANCE,
     EFFICACY,
-    look_decision_at,
-    predictive_decision_at,
-    wants_predictive_at,
 )
 from octrial.simulation.base import Tally
 from octrial.simulation.calendar import calendar_size, record_study
@@ -62,14 +59,7 @@ from octrial.simulation.event_driven import (
     PatientLevelSimulator,
     setup_of_design,
 )
-from octrial.simulation.event_driven_decisions import (
-    benefit_at,
-    log_hazard_ratio_score,
-    normal_benefit,
-    normal_predictive,
-    one_arm_predictive,
-    two_arm_predictive,
-)
+from octrial.simulation.event_driven_decisions import look_code
 
 UNIT = 1.0 / 9007199254740992.0  # 2^-53: the spacing of 53-bit uniforms
 
@@ -161,28 +151,11 @@ def _look(k: int, final: bool, tau: float, entered: int, d0: float, d1: float, x
     if arms == 2:
         d[1] = events[1, 0] = d1
         e[1] = exposure[1, 0] = x1
-    score = 0.0
-    information = 0.0
-    if normal_w.size > 0:
-        score, information = log_hazard_ratio_score(events, exposure, shape, normal[0],
-                                                    normal[2])
-        benefit = normal_benefit(score, information, normal_w, normal_m, normal_p,
-                                 normal[1])
-    else:
-        benefit = benefit_at(d, e, log_w, a, b, claim, lower)
-    threshold = efficacy[looks - 1] if final else efficacy[k]
-    code = look_decision_at(threshold, futility[k], final, benefit, tol)
-    if code == CONTINUE and wants_predictive_at(predictive[k], final):
-        if normal_w.size > 0:
-            pp = normal_predictive(score, information, normal[3], normal[4], normal_w,
-                                   normal_m, normal_p)
-        elif arms == 1:
-            pp = one_arm_predictive(d[0], e[0], targets[looks - 1], log_w, a, b, bound,
-                                    lower)
-        else:
-            pp = two_arm_predictive(rng, d, e, targets[looks - 1], log_w, a, b, claim,
-                                    lower, efficacy[looks - 1] - tol, quantiles, draws)
-        code = predictive_decision_at(predictive[k], pp, tol)
+    # one hazard period: no landmark decision (empty views, no allocation)
+    code = look_code(rng, k, final, arms, looks, targets, events, exposure, d, e, log_w, a,
+                     b, claim, lower, efficacy, futility, tol, predictive, bound, quantiles,
+                     draws, e[:0], 0.0, events[:0], events[:0], normal_w, normal_m,
+                     normal_p, normal, shape)
     record_study(calendar, edges, k, tau, entered, d0 + d1, code != CONTINUE, counts)
     if code == EFFICACY:
         stop_efficacy[k] += 1
