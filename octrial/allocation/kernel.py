@@ -23,6 +23,7 @@ import numpy as np
 from octrial.allocation.decisions import arm_benefit
 from octrial.allocation.rule import shares
 from octrial.numerics.beta_best import best_of_rows
+from octrial.rules.dropping import drop_arms
 from octrial.rules.stop import CONTINUE, DECISION_TOLERANCE, EFFICACY, look_decision_at
 
 
@@ -122,6 +123,7 @@ def simulate_studies(rounded, rates, looks, planned, shrink, control, form, powe
     rows = np.zeros(arms, np.int64)
     competing = np.zeros(arms, np.bool_)
     block = np.zeros(arms, np.int64)
+    leaving = np.zeros(arms, np.bool_)
     for r in range(studies):
         for j in range(arms):
             n[j] = 0
@@ -203,21 +205,10 @@ def simulate_studies(rounded, rates, looks, planned, shrink, control, form, powe
             if adaptive or drop_below[k] > 0 or (keep > 0 and left > keep):
                 best_now(density, worse, support, reach, weights, which, states, n, x,
                          active, first, rows, competing, pr_best)
-                gone = 0
-                if drop_below[k] > 0:
-                    for j in range(first, arms):
-                        if active[j] and pr_best[j] < drop_below[k]:
-                            active[j] = False
-                            dropped[r, j] = k
-                            gone += 1
-                while keep > 0 and left - gone > keep:
-                    worst = -1
-                    for j in range(first, arms):
-                        if active[j] and (worst < 0 or pr_best[j] <= pr_best[worst]):
-                            worst = j
-                    active[worst] = False
-                    dropped[r, worst] = k
-                    gone += 1
+                gone = drop_arms(pr_best, active, first, drop_below[k], keep, left, leaving)
+                for j in range(first, arms):
+                    if leaving[j]:
+                        dropped[r, j] = k
                 if left - gone == 0:
                     ended = True
                     continue

@@ -15,6 +15,7 @@ import numpy as np
 
 from octrial.allocation.decisions import first_slot
 from octrial.numerics.beta_best import best_of_rows
+from octrial.rules.dropping import drop_arms
 from octrial.simulation.draws import draw
 
 CONTINUE, EFFICACY, FUTILITY = 0, 1, 2
@@ -71,6 +72,7 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
     estimate = np.zeros(T)
     probs = np.zeros(T)
     rows = np.zeros(T, np.int64)
+    gone = np.zeros(T, np.bool_)
     for r in range(reps):
         x[:] = 0
         n_arm[:] = 0
@@ -129,21 +131,10 @@ def simulate(words, truth, increments, sizes, decision, mean, density, worse, su
             if left > 0 and k < K - 1 and needs_best and (drop_below[k] >= 0 or keep > 0):
                 best_memoised(density, worse, support, reach, weights, K, X, k, x, active,
                               rows, memo_keys, memo_values, memo_held, probs)
-                if drop_below[k] >= 0:
-                    for t in range(T):
-                        if active[t] and probs[t] < drop_below[k]:
-                            active[t] = False
-                            out_drop[t, k] += 1
-                            left -= 1
-                while keep > 0 and left > keep:
-                    # the arm least likely to be the best goes (ties: the later arm)
-                    worst = -1
-                    for t in range(T):
-                        if active[t] and (worst < 0 or probs[t] <= probs[worst]):
-                            worst = t
-                    active[worst] = False
-                    out_drop[worst, k] += 1
-                    left -= 1
+                left -= drop_arms(probs, active, 0, drop_below[k], keep, left, gone)
+                for t in range(T):
+                    if gone[t]:
+                        out_drop[t, k] += 1
             if left == 0:
                 end = k
                 for later in range(k + 1, K):
