@@ -2,23 +2,21 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import click
 
 from octrial.caution import CAUTION
 from octrial.cli.common import design_argument, read_design, reports_input_errors
-from octrial.design.load import read_toml
 from octrial.endpoints import FAMILIES
-from octrial.errors import InputError, bad_setting
+from octrial.errors import bad_setting
 from octrial.interim import Decision, decide
 from octrial.interim.arms import ArmsDecision, decide_arms
 from octrial.interim.base import PosteriorSummary
 from octrial.interim.decision import DEFAULT_LEVEL, DEFAULT_SEED
 from octrial.interim.pipeline import PipelineReading
-from octrial.multiarm.load import is_multiarm, load_multiarm
+from octrial.multiarm.load import load_multiarm
 from octrial.output import json_text
 from octrial.plurals import count
+from octrial.review.arms_verification import several_arms
 
 FORMS = "; ".join(f"{name}: ARM={support.syntax.form}" for name, family in FAMILIES.items()
                   if (support := family.interim()) is not None)
@@ -75,7 +73,7 @@ def decide_command(design: str, look: int, data: tuple[str, ...], level: float,
 
     Exit codes: 0 a decision was made; 2 bad input.
     """
-    if _several_arms(design):
+    if several_arms(design):
         if subjects is not None:
             raise bad_setting("subjects", "", "no per-subject file for a design with "
                               "several treatment arms (give --data per arm)", subjects)
@@ -133,16 +131,6 @@ def render(result: Decision) -> str:
         lines.append(f"check of the data model{arm}, {check.statistic}: {check.verdict}")
     lines.append(f"decision: {a.decision.upper()} ({a.reason})")
     return "\n".join(lines)
-
-
-def _several_arms(path: str) -> bool:
-    """Whether the design file names several treatment arms (a file that cannot be read
-    is left to the loader, which says why)."""
-    try:
-        data, _ = read_toml(Path(path))
-    except InputError:  # the loader reports it
-        return False
-    return is_multiarm(data)
 
 
 def render_arms(result: ArmsDecision) -> str:
