@@ -397,6 +397,16 @@ def test_several_arm_demos_load(path) -> None:
     assert len(design.source.sha256) == 64
 
 
+@pytest.mark.parametrize("path", SEVERAL_ARM_DEMOS, ids=lambda p: p.stem)
+def test_workflow_checks_refuse_several_arm_designs_plainly(runner, tmp_path, path) -> None:
+    # `octrial check` has no several-arm checks yet: exit 2 naming the file and `arms`
+    # (PRODUCT.md: bad input names file and key), nothing written, no traceback
+    result = runner.invoke(main, ["check", str(path), "--out", str(tmp_path / "c")])
+    assert result.exit_code == 2, result.output
+    assert f"{path}: arms: expected one treatment arm" in result.output
+    assert "Traceback" not in result.output and not (tmp_path / "c").exists()
+
+
 @pytest.mark.parametrize("start", [SMALL, DROPPING], ids=["exact", "simulated"])
 def test_mutated_several_arm_files_exit_0_or_2(runner, tmp_path, start) -> None:
     # a seeded sample of every key replaced by extreme and wrong-type values (the

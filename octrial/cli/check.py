@@ -12,9 +12,10 @@ from octrial.caution import CAUTION
 from octrial.checks import CHECKS, CheckSettings, check
 from octrial.checks.files import write_outputs
 from octrial.cli.common import default_out, design_argument, read_design, reports_input_errors
-from octrial.errors import NumericalWarning, single
+from octrial.errors import InputError, NumericalWarning, Problem, single
 from octrial.plurals import count
 from octrial.provenance import display_command, now
+from octrial.review.arms_verification import several_arms
 
 EXIT_FAILED = 1
 
@@ -86,6 +87,11 @@ def check_command(design: str, out: str | None, simulations: int, bins: int, dra
         simulations=simulations, bins=bins, draws=draws, alpha=alpha, seed=seed,
         outcome_range=_range("--outcome-range", outcome_range),
         plausible=_range("--plausible", plausible), checks=_checks(only))
+    if several_arms(design):  # 2-8 treatment arms: docs/multi-arm.md
+        raise InputError(design, [Problem(
+            "arms", "one treatment arm (workflow checks for several-arm designs are not "
+            "available yet; check each arm's own two-arm design)",
+            "several treatment arms")])
     loaded = read_design(design)
     if settings.outcome_range is not None and not loaded.family.outcome_range_needed:
         raise single("--outcome-range", "", "a normal endpoint (binary and count outcomes "
