@@ -15,7 +15,7 @@ for design in designs/*.toml; do
   python -m octrial check "$design" --out "reports/$name" --quiet 2>/dev/null || status=$?
   case $status in
     0) ;;
-    2) echo "reports/$name: no workflow checks for this endpoint yet" ;;
+    2) echo "reports/$name: no workflow checks for this design yet" ;;
     *) echo "reports/$name: a posterior computation failed calibration (see checks.json)" ;;
   esac
   python -m octrial report "reports/$name" --pdf --quiet
